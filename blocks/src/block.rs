@@ -1,0 +1,256 @@
+//! The block model: one small trait, and one declaration per block kind.
+//!
+//! A block receives items one at a time on numbered input ports and pushes
+//! items to numbered output ports. The scheduler calls [`Block::process`] for
+//! every input item (merging several inputs in time order), then
+//! [`Block::finish`] once every input has ended. A block never runs twice at
+//! once, so it keeps its state in plain fields.
+//!
+//! ```
+//! use lobeflow_blocks::{Block, BlockError, Item, Outputs};
+//!
+//! /// Multiplies every complex sample by a constant.
+//! struct Scale(f32);
+//!
+//! impl Block for Scale {
+//!     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+//!         if let Item::Samples(mut chunk) = item {
+//!             let scaled: Vec<_> = chunk.iq.iter().map(|x| x * self.0).collect();
+//!             chunk.iq = scaled.into();
+//!             out.push(0, Item::Samples(chunk));
+//!         }
+//!         Ok(())
+//!     }
+//! }
+//!
+//! let mut block = Scale(2.0);
+//! let mut out = Outputs::new(1);
+//! let chunk = lobeflow_blocks::SampleChunk {
+//!     stamp: lobeflow_blocks::Stamp::new(0, 1000.0),
+//!     iq: vec![num_complex::Complex32::new(1.0, -1.0)].into(),
+//!     sync: None,
+//!     trigger: None,
+//! };
+//! block.process(0, Item::Samples(chunk), &mut out).unwrap();
+//! let (port, item) = out.drain().next().unwrap();
+//! assert_eq!(port, 0);
+//! if let Item::Samples(c) = item { assert_eq!(c.iq[0].re, 2.0); }
+//! ```
+
+use crate::item::{Item, ItemKind, Notice, Stamp};
+use crate::param::{ParamSpec, Params};
+use std::collections::BTreeMap;
+use std::fmt;
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+
+/// What went wrong inside a block; the scheduler adds the block's name.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BlockError {
+    pub message: String,
+    /// Sample index the problem was found at, when there is one.
+    pub at_sample: Option<u64>,
+}
+
+impl BlockError {
+    pub fn new(message: impl Into<String>) -> Self {
+        BlockError { message: message.into(), at_sample: None }
+    }
+    pub fn at(message: impl Into<String>, sample: u64) -> Self {
+        BlockError { message: message.into(), at_sample: Some(sample) }
+    }
+}
+
+impl fmt::Display for BlockError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self.at_sample {
+            Some(s) => write!(f, "{} (at sample {s})", self.message),
+            None => write!(f, "{}", self.message),
+        }
+    }
+}
+
+impl From<String> for BlockError {
+    fn from(s: String) -> Self {
+        BlockError::new(s)
+    }
+}
+
+impl From<std::io::Error> for BlockError {
+    fn from(e: std::io::Error) -> Self {
+        BlockError::new(e.to_string())
+    }
+}
+
+/// Items a block produced in one step, with the notices it raised.
+#[derive(Default)]
+pub struct Outputs {
+    items: Vec<(usize, Item)>,
+    notices: Vec<Notice>,
+    ports: usize,
+}
+
+impl Outputs {
+    pub fn new(ports: usize) -> Self {
+        Outputs { items: Vec::new(), notices: Vec::new(), ports }
+    }
+    /// Send `item` on output port `port` (in declaration order).
+    pub fn push(&mut self, port: usize, item: Item) {
+        debug_assert!(port < self.ports, "output port {port} not declared");
+        self.items.push((port, item));
+    }
+    /// Report an irregularity to the person running the graph.
+    pub fn notice(&mut self, stamp: Stamp, what: impl Into<String>) {
+        self.notices.push(Notice { stamp, block: Arc::from(""), what: what.into() });
+    }
+    pub fn drain(&mut self) -> std::vec::Drain<'_, (usize, Item)> {
+        self.items.drain(..)
+    }
+    pub fn drain_notices(&mut self) -> std::vec::Drain<'_, Notice> {
+        self.notices.drain(..)
+    }
+    pub fn len(&self) -> usize {
+        self.items.len()
+    }
+    pub fn is_empty(&self) -> bool {
+        self.items.is_empty()
+    }
+}
+
+/// The block trait. See the module docs for an example.
+pub trait Block: Send {
+    /// Handle one input item that arrived on input port `port`.
+    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let _ = (port, item, out);
+        Ok(())
+    }
+
+    /// All inputs have ended: flush whatever is held back.
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let _ = out;
+        Ok(())
+    }
+
+    /// Sources only (blocks without inputs): produce the next items and
+    /// return `Ok(true)` while more will follow. Keep each call small (one
+    /// chunk) so memory stays bounded.
+    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        let _ = out;
+        Ok(false)
+    }
+
+    /// Sources reading a file: (bytes done, bytes total), for progress bars.
+    fn progress(&self) -> Option<(u64, u64)> {
+        None
+    }
+}
+
+/// One port's declaration.
+#[derive(Clone, Copy, Debug)]
+pub struct PortSpec {
+    pub name: &'static str,
+    pub kind: ItemKind,
+    /// Inputs only: the graph is invalid when a required input is unwired.
+    pub required: bool,
+    pub doc: &'static str,
+}
+
+impl PortSpec {
+    pub const fn required(name: &'static str, kind: ItemKind, doc: &'static str) -> Self {
+        PortSpec { name, kind, required: true, doc }
+    }
+    pub const fn optional(name: &'static str, kind: ItemKind, doc: &'static str) -> Self {
+        PortSpec { name, kind, required: false, doc }
+    }
+}
+
+/// Files a run writes: each is written under a temporary name and renamed
+/// into place only when the whole graph has succeeded, so a failed or
+/// interrupted run never leaves output that looks complete.
+#[derive(Clone, Default)]
+pub struct FileStager {
+    staged: Arc<Mutex<Vec<(PathBuf, PathBuf)>>>,
+}
+
+impl FileStager {
+    /// The temporary path to write instead of `final_path`.
+    pub fn temp_path(final_path: &Path) -> PathBuf {
+        let mut name = final_path.file_name().map(|n| n.to_os_string()).unwrap_or_default();
+        name.push(format!(".{}.tmp-lobeflow", std::process::id()));
+        final_path.with_file_name(name)
+    }
+    /// Record that `temp` is complete and should become `final_path`.
+    pub fn stage(&self, temp: PathBuf, final_path: PathBuf) {
+        self.staged.lock().unwrap_or_else(|e| e.into_inner()).push((temp, final_path));
+    }
+    /// Rename every staged file into place (on success).
+    pub fn commit(&self) -> std::io::Result<Vec<PathBuf>> {
+        let staged = std::mem::take(&mut *self.staged.lock().unwrap_or_else(|e| e.into_inner()));
+        let mut done = Vec::new();
+        for (tmp, fin) in staged {
+            std::fs::rename(&tmp, &fin)?;
+            done.push(fin);
+        }
+        Ok(done)
+    }
+    /// Delete every staged file (on failure).
+    pub fn discard(&self) {
+        let staged = std::mem::take(&mut *self.staged.lock().unwrap_or_else(|e| e.into_inner()));
+        for (tmp, _) in staged {
+            let _ = std::fs::remove_file(tmp);
+        }
+    }
+}
+
+/// What a block's constructor may need besides its parameters.
+#[derive(Clone, Default)]
+pub struct BuildContext {
+    /// Instance name in the graph (for messages).
+    pub name: String,
+    /// Where output files go (output-path parameters are already resolved).
+    pub out_dir: PathBuf,
+    pub files: FileStager,
+}
+
+/// Constructor of a block kind from its checked parameters.
+pub type BuildFn = fn(&Params, &BuildContext) -> Result<Box<dyn Block>, String>;
+
+/// Everything known about one block kind, declared once.
+#[derive(Clone, Copy)]
+pub struct BlockSpec {
+    pub kind: &'static str,
+    /// One paragraph: what the block does and when to use it.
+    pub doc: &'static str,
+    pub inputs: &'static [PortSpec],
+    pub outputs: &'static [PortSpec],
+    pub params: &'static [ParamSpec],
+    pub build: BuildFn,
+}
+
+impl BlockSpec {
+    pub fn param(&self, name: &str) -> Option<&ParamSpec> {
+        self.params.iter().find(|p| p.name == name)
+    }
+}
+
+/// The block kinds a graph may use, by name.
+#[derive(Clone, Default)]
+pub struct Registry {
+    kinds: BTreeMap<&'static str, BlockSpec>,
+}
+
+impl Registry {
+    pub fn new() -> Self {
+        Registry::default()
+    }
+    /// Add a kind; a later registration of the same name replaces it.
+    pub fn register(&mut self, spec: BlockSpec) {
+        self.kinds.insert(spec.kind, spec);
+    }
+    pub fn get(&self, kind: &str) -> Option<&BlockSpec> {
+        self.kinds.get(kind)
+    }
+    pub fn kinds(&self) -> impl Iterator<Item = &BlockSpec> {
+        self.kinds.values()
+    }
+}

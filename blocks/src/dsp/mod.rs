@@ -1,0 +1,1 @@
+//! Signal-processing pieces shared by several blocks (no block code here).

@@ -1,0 +1,310 @@
+//! Stream items: what flows along the wires of a graph.
+//!
+//! Every item knows exactly when it happened: the absolute sample index of its
+//! first sample (counted from the capture's first sample) and the sample rate.
+//! Sample data sits behind [`Span`], a cheap shared view, so fanning a chunk
+//! out to several blocks or cutting a sweep out of a chunk copies no samples.
+
+use num_complex::Complex32;
+use std::fmt;
+use std::ops::{Deref, Range};
+use std::sync::Arc;
+
+/// A shared, immutable view of part of a sample buffer. Cloning is O(1).
+#[derive(Clone)]
+pub struct Span<T> {
+    data: Arc<Vec<T>>,
+    range: Range<usize>,
+}
+
+impl<T> Span<T> {
+    /// Take ownership of a buffer without copying it.
+    pub fn new(data: Vec<T>) -> Self {
+        let len = data.len();
+        Span { data: Arc::new(data), range: 0..len }
+    }
+
+    /// A sub-view, relative to this view. Panics if out of bounds, like slicing.
+    pub fn slice(&self, r: Range<usize>) -> Self {
+        assert!(r.start <= r.end && r.end <= self.range.len(), "span slice out of bounds");
+        Span { data: Arc::clone(&self.data), range: self.range.start + r.start..self.range.start + r.end }
+    }
+}
+
+impl<T> Deref for Span<T> {
+    type Target = [T];
+    fn deref(&self) -> &[T] {
+        &self.data[self.range.clone()]
+    }
+}
+
+impl<T> From<Vec<T>> for Span<T> {
+    fn from(v: Vec<T>) -> Self {
+        Span::new(v)
+    }
+}
+
+impl<T: fmt::Debug> fmt::Debug for Span<T> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "Span(len {})", self.len())
+    }
+}
+
+/// Where an item sits in time: first sample index and sample rate.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Stamp {
+    /// Absolute index of the first sample, from the capture's first sample.
+    pub index: u64,
+    /// Samples per second of the stream the index counts.
+    pub rate: f64,
+}
+
+impl Stamp {
+    pub fn new(index: u64, rate: f64) -> Self {
+        Stamp { index, rate }
+    }
+    /// Seconds from the capture's first sample.
+    pub fn seconds(&self) -> f64 {
+        self.index as f64 / self.rate
+    }
+    /// The stamp `n` samples later.
+    pub fn after(&self, n: usize) -> Stamp {
+        Stamp { index: self.index + n as u64, rate: self.rate }
+    }
+}
+
+/// A run of consecutive complex baseband samples, with the capture's auxiliary
+/// real channels (switch sync, transmit trigger) aligned sample for sample.
+#[derive(Clone, Debug)]
+pub struct SampleChunk {
+    pub stamp: Stamp,
+    pub iq: Span<Complex32>,
+    pub sync: Option<Span<f32>>,
+    pub trigger: Option<Span<f32>>,
+}
+
+impl SampleChunk {
+    pub fn len(&self) -> usize {
+        self.iq.len()
+    }
+    pub fn is_empty(&self) -> bool {
+        self.iq.is_empty()
+    }
+    /// A sub-chunk of samples `r`, sharing the buffers.
+    pub fn slice(&self, r: Range<usize>) -> SampleChunk {
+        SampleChunk {
+            stamp: self.stamp.after(r.start),
+            iq: self.iq.slice(r.clone()),
+            sync: self.sync.as_ref().map(|s| s.slice(r.clone())),
+            trigger: self.trigger.as_ref().map(|s| s.slice(r)),
+        }
+    }
+}
+
+/// Which lobe an item belongs to, and which dwell of the switch cycle.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LobeTag {
+    /// Position of the lobe in the configured lobe order.
+    pub lobe: usize,
+    /// The lobe's user name (e.g. "right").
+    pub name: Arc<str>,
+    /// Running count of dwells since the capture start (0 for the first seen).
+    pub dwell: u64,
+    /// Sample index where this dwell's switch instant was found (or scheduled).
+    pub dwell_start: u64,
+}
+
+/// One pulse repetition interval, starting at its transmit instant.
+#[derive(Clone, Debug)]
+pub struct Sweep {
+    /// Stamp of the transmit instant (range bin 0).
+    pub stamp: Stamp,
+    /// Pulse count since the capture start, including pulses found missing.
+    pub pulse: u64,
+    /// Samples from the transmit instant up to the next one (leakage blanked).
+    pub iq: Span<Complex32>,
+    /// The sync channel over the same samples, when the capture has one.
+    pub sync: Option<Span<f32>>,
+    /// Samples blanked at the start for transmit leakage.
+    pub blanked: usize,
+    /// True when no transmit instant was seen and this one was predicted.
+    pub predicted: bool,
+    /// Set by a switch-sync gate.
+    pub lobe: Option<LobeTag>,
+}
+
+/// Samples of one lobe within one dwell, with the switch guard left out.
+#[derive(Clone, Debug)]
+pub struct LobeSegment {
+    pub tag: LobeTag,
+    pub chunk: SampleChunk,
+    /// True for the last segment of the dwell (the next segment starts a new dwell).
+    pub dwell_end: bool,
+}
+
+/// The integrated result of one lobe dwell.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DwellRecord {
+    pub tag: LobeTag,
+    /// Stamp of the middle of the samples used.
+    pub mid: Stamp,
+    /// Amplitude estimate (voltage-like; noise power removed). NaN when the
+    /// noise-corrected power came out at or below zero.
+    pub amplitude: f64,
+    /// Noise power per sample, in the same units as |x|^2.
+    pub noise_power: f64,
+    /// Per-pulse (or per-dwell, for beacons) signal energy over noise power, linear.
+    pub snr: f64,
+    /// Expected variance of ln(amplitude) (field notes section 4).
+    pub var_ln_amp: f64,
+    /// Target range in metres, where the integrator measured one.
+    pub range_m: Option<f64>,
+    /// Pulses (or, for beacons, samples) integrated.
+    pub used: u64,
+}
+
+/// Why an estimate is not an ordinary number.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum Flag {
+    Ok,
+    /// The ratio lies outside the beam model's monotonic region.
+    OutOfRange,
+    /// A lobe's noise-corrected power was not positive.
+    NoSignal,
+    /// Rejected by the tracker's gate.
+    Outlier,
+}
+
+impl Flag {
+    pub fn as_str(&self) -> &'static str {
+        match self {
+            Flag::Ok => "ok",
+            Flag::OutOfRange => "out_of_range",
+            Flag::NoSignal => "no_signal",
+            Flag::Outlier => "outlier",
+        }
+    }
+}
+
+/// An angle error from one pair of dwells.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AngleEstimate {
+    /// Mid time of the pair (mean of the two dwells' mid stamps).
+    pub stamp: Stamp,
+    /// Axis (pair) name, e.g. "az".
+    pub axis: Arc<str>,
+    /// Angle off boresight in degrees; `None` unless `flag` is Ok or Outlier.
+    pub error_deg: Option<f64>,
+    /// Expected one-sigma spread of `error_deg`, degrees.
+    pub sigma_deg: f64,
+    /// SNR of the weaker dwell, dB.
+    pub snr_db: f64,
+    /// 20 log10 of the amplitude ratio (positive lobe over negative), dB.
+    pub ratio_db: f64,
+    pub range_m: Option<f64>,
+    pub flag: Flag,
+    /// Smoothed error from a tracker, degrees.
+    pub tracked_deg: Option<f64>,
+    /// Absolute target angle (pointing + tracked error), degrees.
+    pub absolute_deg: Option<f64>,
+}
+
+/// A labelled row for table outputs and pictures (free-form numeric columns).
+#[derive(Clone, Debug, PartialEq)]
+pub struct TableRow {
+    pub stamp: Stamp,
+    pub fields: Vec<(Arc<str>, Cell)>,
+}
+
+/// One cell of a [`TableRow`].
+#[derive(Clone, Debug, PartialEq)]
+pub enum Cell {
+    Num(f64),
+    Int(i64),
+    Text(Arc<str>),
+    Empty,
+}
+
+/// Something a block noticed that a person should know about (an irregular
+/// dwell, a missing pulse, a noise-floor mismatch). Also drawn on timelines.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Notice {
+    pub stamp: Stamp,
+    pub block: Arc<str>,
+    pub what: String,
+}
+
+/// Everything that can travel along a wire.
+#[derive(Clone, Debug)]
+pub enum Item {
+    Samples(SampleChunk),
+    Sweep(Sweep),
+    Segment(LobeSegment),
+    Dwell(DwellRecord),
+    Estimate(AngleEstimate),
+    Row(TableRow),
+    Notice(Notice),
+}
+
+/// The kind of item a port carries; ports only connect to the same kind.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum ItemKind {
+    Samples,
+    Sweep,
+    Segment,
+    Dwell,
+    Estimate,
+    Row,
+    Notice,
+}
+
+impl ItemKind {
+    pub fn name(&self) -> &'static str {
+        match self {
+            ItemKind::Samples => "samples",
+            ItemKind::Sweep => "sweeps",
+            ItemKind::Segment => "lobe segments",
+            ItemKind::Dwell => "dwell records",
+            ItemKind::Estimate => "angle estimates",
+            ItemKind::Row => "table rows",
+            ItemKind::Notice => "notices",
+        }
+    }
+}
+
+impl Item {
+    pub fn kind(&self) -> ItemKind {
+        match self {
+            Item::Samples(_) => ItemKind::Samples,
+            Item::Sweep(_) => ItemKind::Sweep,
+            Item::Segment(_) => ItemKind::Segment,
+            Item::Dwell(_) => ItemKind::Dwell,
+            Item::Estimate(_) => ItemKind::Estimate,
+            Item::Row(_) => ItemKind::Row,
+            Item::Notice(_) => ItemKind::Notice,
+        }
+    }
+
+    /// When the item happened; the scheduler merges multiple inputs by it.
+    pub fn stamp(&self) -> Stamp {
+        match self {
+            Item::Samples(c) => c.stamp,
+            Item::Sweep(s) => s.stamp,
+            Item::Segment(s) => s.chunk.stamp,
+            Item::Dwell(d) => d.mid,
+            Item::Estimate(e) => e.stamp,
+            Item::Row(r) => r.stamp,
+            Item::Notice(n) => n.stamp,
+        }
+    }
+
+    /// Number of raw samples the item carries (for statistics).
+    pub fn sample_count(&self) -> usize {
+        match self {
+            Item::Samples(c) => c.len(),
+            Item::Sweep(s) => s.iq.len(),
+            Item::Segment(s) => s.chunk.len(),
+            _ => 0,
+        }
+    }
+}

@@ -1,0 +1,33 @@
+//! # lobeflow-blocks
+//!
+//! The block trait, the stream items and the standard signal-processing
+//! blocks of lobeflow, a toolkit for lobe-switching angle trackers. This
+//! crate is all a researcher needs to write a new block: implement
+//! [`Block`], declare a [`BlockSpec`], and register it in a [`Registry`].
+//!
+//! ```
+//! let registry = lobeflow_blocks::standard_registry();
+//! let pass = registry.get("pass").expect("standard kind");
+//! assert_eq!(pass.inputs[0].kind, lobeflow_blocks::ItemKind::Samples);
+//! ```
+
+pub mod block;
+pub mod dsp;
+pub mod item;
+pub mod kinds;
+pub mod output_file;
+pub mod param;
+
+pub use block::{Block, BlockError, BlockSpec, BuildContext, BuildFn, FileStager, Outputs, PortSpec, Registry};
+pub use item::*;
+pub use output_file::OutputFile;
+pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
+
+/// A registry holding every standard block kind of this crate.
+pub fn standard_registry() -> Registry {
+    let mut r = Registry::new();
+    for spec in kinds::ALL {
+        r.register(*spec);
+    }
+    r
+}

@@ -1,0 +1,518 @@
+//! Block parameters: declared once per block kind, parsed and checked once.
+//!
+//! A [`ParamSpec`] names a parameter, its type, unit, default, allowed range
+//! and a one-line doc. Graph validation, the `blocks` catalog and `--set`
+//! overrides all read the same declaration, and all values go through
+//! [`ParamSpec::parse`].
+
+use std::collections::BTreeMap;
+use std::fmt;
+
+/// The physical dimension of a numeric parameter. Values are stored in the
+/// canonical unit shown first; the others are accepted when written with a
+/// unit suffix (e.g. `"20 us"`, `"10 km"`, `"2.4 MS/s"`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Unit {
+    /// A plain number.
+    None,
+    /// Seconds: s, ms, us, ns; also `samples` and `pulses` where the block
+    /// allows counts (see [`ParamType::Time`]).
+    Seconds,
+    /// Hertz: Hz, kHz, MHz, GHz.
+    Hertz,
+    /// Samples per second: S/s, kS/s, MS/s (Hz accepted too).
+    SampleRate,
+    /// Degrees: deg, rad, mrad.
+    Degrees,
+    /// Metres: m, km; also `bins` where the block allows it.
+    Metres,
+    /// Decibels: dB.
+    Decibels,
+}
+
+impl Unit {
+    /// The canonical unit symbol, as printed by the catalog.
+    pub fn symbol(&self) -> &'static str {
+        match self {
+            Unit::None => "",
+            Unit::Seconds => "s",
+            Unit::Hertz => "Hz",
+            Unit::SampleRate => "S/s",
+            Unit::Degrees => "deg",
+            Unit::Metres => "m",
+            Unit::Decibels => "dB",
+        }
+    }
+
+    /// Scale factor of a suffix to the canonical unit, or None when the suffix
+    /// does not belong to this dimension.
+    fn scale(&self, suffix: &str) -> Option<f64> {
+        let s = suffix;
+        match self {
+            Unit::None => None,
+            Unit::Seconds => match s {
+                "s" => Some(1.0),
+                "ms" => Some(1e-3),
+                "us" | "µs" => Some(1e-6),
+                "ns" => Some(1e-9),
+                _ => None,
+            },
+            Unit::Hertz | Unit::SampleRate => match s {
+                "Hz" | "S/s" | "sps" => Some(1.0),
+                "kHz" | "kS/s" => Some(1e3),
+                "MHz" | "MS/s" => Some(1e6),
+                "GHz" | "GS/s" => Some(1e9),
+                _ => None,
+            },
+            Unit::Degrees => match s {
+                "deg" | "°" => Some(1.0),
+                "rad" => Some(180.0 / std::f64::consts::PI),
+                "mrad" => Some(0.18 / std::f64::consts::PI),
+                _ => None,
+            },
+            Unit::Metres => match s {
+                "m" => Some(1.0),
+                "km" => Some(1e3),
+                _ => None,
+            },
+            Unit::Decibels => match s {
+                "dB" => Some(1.0),
+                _ => None,
+            },
+        }
+    }
+
+    fn accepted(&self) -> &'static str {
+        match self {
+            Unit::None => "a plain number",
+            Unit::Seconds => "s, ms, us, ns",
+            Unit::Hertz | Unit::SampleRate => "Hz, kHz, MHz, GHz (or S/s, kS/s, MS/s)",
+            Unit::Degrees => "deg, rad, mrad",
+            Unit::Metres => "m, km",
+            Unit::Decibels => "dB",
+        }
+    }
+}
+
+/// What a parameter holds.
+#[derive(Clone, Copy, Debug)]
+pub enum ParamType {
+    /// A real number in `unit`, within `min..=max` (canonical unit).
+    Number { unit: Unit, min: f64, max: f64 },
+    /// A duration in seconds, or a count of `samples` (and of `pulses` when
+    /// `pulses` is true).
+    Time { min_s: f64, max_s: f64, pulses: bool },
+    /// A distance in metres, or a count of range `bins`.
+    Distance { min_m: f64, max_m: f64 },
+    /// A whole number within `min..=max`.
+    Integer { min: i64, max: i64 },
+    Bool,
+    /// Free text.
+    Text,
+    /// One word out of a fixed list.
+    Choice(&'static [&'static str]),
+    /// A comma-separated list of names (e.g. a lobe order).
+    Names,
+    /// A file to read; relative paths resolve against the file that set it.
+    InputPath,
+    /// A file to write; relative paths resolve against the output directory.
+    OutputPath,
+}
+
+impl ParamType {
+    /// Short description for the catalog and error hints.
+    pub fn describe(&self) -> String {
+        match self {
+            ParamType::Number { unit, min, max } => {
+                let u = unit.symbol();
+                format!("number{}{}", if u.is_empty() { String::new() } else { format!(" [{u}]") }, range_text(*min, *max))
+            }
+            ParamType::Time { min_s, max_s, pulses } => format!(
+                "time [s, or samples{}]{}",
+                if *pulses { "/pulses" } else { "" },
+                range_text(*min_s, *max_s)
+            ),
+            ParamType::Distance { min_m, max_m } => format!("distance [m, or bins]{}", range_text(*min_m, *max_m)),
+            ParamType::Integer { min, max } => format!("integer{}", range_text(*min as f64, *max as f64)),
+            ParamType::Bool => "true/false".into(),
+            ParamType::Text => "text".into(),
+            ParamType::Choice(c) => format!("one of {}", c.join(", ")),
+            ParamType::Names => "comma-separated names".into(),
+            ParamType::InputPath => "input file path".into(),
+            ParamType::OutputPath => "output file path".into(),
+        }
+    }
+}
+
+fn range_text(min: f64, max: f64) -> String {
+    match (min.is_finite(), max.is_finite()) {
+        (true, true) => format!(", {min} to {max}"),
+        (true, false) => format!(", at least {min}"),
+        (false, true) => format!(", at most {max}"),
+        _ => String::new(),
+    }
+}
+
+/// One parameter's declaration.
+#[derive(Clone, Copy, Debug)]
+pub struct ParamSpec {
+    pub name: &'static str,
+    pub ty: ParamType,
+    /// Default, written as it would be in a graph file; None = required.
+    pub default: Option<&'static str>,
+    pub doc: &'static str,
+}
+
+/// A value as written in a graph file, params file or `--set`, before checking.
+#[derive(Clone, Debug, PartialEq)]
+pub enum RawValue {
+    Number(f64),
+    Bool(bool),
+    Text(String),
+    List(Vec<RawValue>),
+}
+
+impl fmt::Display for RawValue {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            RawValue::Number(n) => write!(f, "{n}"),
+            RawValue::Bool(b) => write!(f, "{b}"),
+            RawValue::Text(t) => write!(f, "{t}"),
+            RawValue::List(l) => {
+                let parts: Vec<String> = l.iter().map(|v| v.to_string()).collect();
+                write!(f, "{}", parts.join(","))
+            }
+        }
+    }
+}
+
+impl RawValue {
+    /// Read a `--set` style text: numbers and booleans become typed values.
+    pub fn from_text(s: &str) -> RawValue {
+        let t = s.trim();
+        if let Ok(n) = t.parse::<f64>() {
+            return RawValue::Number(n);
+        }
+        match t {
+            "true" => RawValue::Bool(true),
+            "false" => RawValue::Bool(false),
+            _ => RawValue::Text(t.to_string()),
+        }
+    }
+}
+
+/// A checked parameter value.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Value {
+    /// In the canonical unit of its [`Unit`].
+    Number(f64),
+    Seconds(f64),
+    Samples(f64),
+    Pulses(f64),
+    Metres(f64),
+    Bins(f64),
+    Int(i64),
+    Bool(bool),
+    Text(String),
+    Names(Vec<String>),
+}
+
+impl fmt::Display for Value {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Value::Number(n) => write!(f, "{n}"),
+            Value::Seconds(s) => write!(f, "{s} s"),
+            Value::Samples(n) => write!(f, "{n} samples"),
+            Value::Pulses(n) => write!(f, "{n} pulses"),
+            Value::Metres(m) => write!(f, "{m} m"),
+            Value::Bins(b) => write!(f, "{b} bins"),
+            Value::Int(i) => write!(f, "{i}"),
+            Value::Bool(b) => write!(f, "{b}"),
+            Value::Text(t) => write!(f, "{t}"),
+            Value::Names(n) => write!(f, "{}", n.join(",")),
+        }
+    }
+}
+
+/// Split `"20 us"` into (20.0, "us"); a bare number gives an empty suffix.
+fn split_number(text: &str) -> Option<(f64, &str)> {
+    let t = text.trim();
+    let end = t
+        .char_indices()
+        .find(|&(i, c)| {
+            !(c.is_ascii_digit() || c == '.' || c == '+' || c == '-' || ((c == 'e' || c == 'E') && i > 0 && t[i + 1..].starts_with(|d: char| d.is_ascii_digit() || d == '-' || d == '+')))
+        })
+        .map(|(i, _)| i)
+        .unwrap_or(t.len());
+    let n: f64 = t[..end].parse().ok()?;
+    Some((n, t[end..].trim()))
+}
+
+impl ParamSpec {
+    /// Check a raw value against this declaration. The error says what was
+    /// expected (type, unit, range); the caller adds where.
+    pub fn parse(&self, raw: &RawValue) -> Result<Value, String> {
+        let v = match (&self.ty, raw) {
+            (ParamType::Number { unit, .. }, RawValue::Number(n)) => Value::Number(*n * if *unit == Unit::None { 1.0 } else { 1.0 }),
+            (ParamType::Number { unit, .. }, RawValue::Text(t)) => {
+                let (n, suffix) = split_number(t).ok_or_else(|| format!("expected a number, got '{t}'"))?;
+                if suffix.is_empty() {
+                    Value::Number(n)
+                } else {
+                    let k = unit.scale(suffix).ok_or_else(|| {
+                        format!("unit '{suffix}' does not fit this parameter (accepted: {})", unit.accepted())
+                    })?;
+                    Value::Number(n * k)
+                }
+            }
+            (ParamType::Time { .. }, RawValue::Number(n)) => Value::Seconds(*n),
+            (ParamType::Time { pulses, .. }, RawValue::Text(t)) => {
+                let (n, suffix) = split_number(t).ok_or_else(|| format!("expected a time, got '{t}'"))?;
+                match suffix {
+                    "" => Value::Seconds(n),
+                    "samples" | "sample" => Value::Samples(n),
+                    "pulses" | "pulse" if *pulses => Value::Pulses(n),
+                    _ => match Unit::Seconds.scale(suffix) {
+                        Some(k) => Value::Seconds(n * k),
+                        None => {
+                            return Err(format!(
+                                "unit '{suffix}' does not fit a time (accepted: s, ms, us, ns, samples{})",
+                                if *pulses { ", pulses" } else { "" }
+                            ));
+                        }
+                    },
+                }
+            }
+            (ParamType::Distance { .. }, RawValue::Number(n)) => Value::Metres(*n),
+            (ParamType::Distance { .. }, RawValue::Text(t)) => {
+                let (n, suffix) = split_number(t).ok_or_else(|| format!("expected a distance, got '{t}'"))?;
+                match suffix {
+                    "" => Value::Metres(n),
+                    "bins" | "bin" => Value::Bins(n),
+                    _ => match Unit::Metres.scale(suffix) {
+                        Some(k) => Value::Metres(n * k),
+                        None => return Err(format!("unit '{suffix}' does not fit a distance (accepted: m, km, bins)")),
+                    },
+                }
+            }
+            (ParamType::Integer { .. }, RawValue::Number(n)) if n.fract() == 0.0 => Value::Int(*n as i64),
+            (ParamType::Integer { .. }, RawValue::Text(t)) if t.trim().parse::<i64>().is_ok() => {
+                Value::Int(t.trim().parse().unwrap_or_default())
+            }
+            (ParamType::Integer { .. }, other) => return Err(format!("expected a whole number, got '{other}'")),
+            (ParamType::Bool, RawValue::Bool(b)) => Value::Bool(*b),
+            (ParamType::Bool, other) => return Err(format!("expected true or false, got '{other}'")),
+            (ParamType::Text | ParamType::InputPath | ParamType::OutputPath, RawValue::List(_)) => {
+                return Err("expected a single value, got a list".into());
+            }
+            (ParamType::Text | ParamType::InputPath | ParamType::OutputPath, v) => Value::Text(v.to_string()),
+            (ParamType::Choice(options), v) => {
+                let t = v.to_string();
+                if options.contains(&t.as_str()) {
+                    Value::Text(t)
+                } else {
+                    let hint = closest(&t, options.iter().copied()).map(|c| format!("; did you mean '{c}'?")).unwrap_or_default();
+                    return Err(format!("'{t}' is not one of {}{hint}", options.join(", ")));
+                }
+            }
+            (ParamType::Names, RawValue::List(items)) => Value::Names(items.iter().map(|i| i.to_string().trim().to_string()).collect()),
+            (ParamType::Names, v) => {
+                Value::Names(v.to_string().split(',').map(|s| s.trim().to_string()).filter(|s| !s.is_empty()).collect())
+            }
+            (_, RawValue::Bool(b)) => return Err(format!("expected {}, got '{b}'", self.ty.describe())),
+            (_, RawValue::List(_)) => return Err(format!("expected {}, got a list", self.ty.describe())),
+        };
+        self.check_range(&v)?;
+        Ok(v)
+    }
+
+    fn check_range(&self, v: &Value) -> Result<(), String> {
+        let (x, min, max, unit) = match (&self.ty, v) {
+            (ParamType::Number { min, max, unit }, Value::Number(x)) => (*x, *min, *max, unit.symbol()),
+            (ParamType::Time { min_s, max_s, .. }, Value::Seconds(x)) => (*x, *min_s, *max_s, "s"),
+            (ParamType::Time { .. }, Value::Samples(x) | Value::Pulses(x)) => (*x, 0.0, f64::INFINITY, ""),
+            (ParamType::Distance { min_m, max_m }, Value::Metres(x)) => (*x, *min_m, *max_m, "m"),
+            (ParamType::Distance { .. }, Value::Bins(x)) => (*x, 0.0, f64::INFINITY, ""),
+            (ParamType::Integer { min, max }, Value::Int(i)) => (*i as f64, *min as f64, *max as f64, ""),
+            (ParamType::Names, Value::Names(n)) if n.is_empty() => return Err("expected at least one name".into()),
+            _ => return Ok(()),
+        };
+        if !x.is_finite() || x < min || x > max {
+            let u = if unit.is_empty() { String::new() } else { format!(" {unit}") };
+            return Err(format!("{x}{u} is out of range (allowed{})", range_text(min, max).trim_start_matches(',')));
+        }
+        Ok(())
+    }
+}
+
+/// The checked parameters of one block instance, by name.
+#[derive(Clone, Debug, Default)]
+pub struct Params {
+    values: BTreeMap<String, Value>,
+}
+
+impl Params {
+    pub fn new() -> Self {
+        Params::default()
+    }
+    pub fn insert(&mut self, name: &str, v: Value) {
+        self.values.insert(name.to_string(), v);
+    }
+    pub fn get(&self, name: &str) -> Option<&Value> {
+        self.values.get(name)
+    }
+    pub fn iter(&self) -> impl Iterator<Item = (&String, &Value)> {
+        self.values.iter()
+    }
+
+    fn missing(name: &str) -> String {
+        format!("parameter '{name}' has no value")
+    }
+
+    /// A plain or unit-carrying number, in its canonical unit.
+    pub fn num(&self, name: &str) -> Result<f64, String> {
+        match self.get(name) {
+            Some(Value::Number(n)) | Some(Value::Seconds(n)) | Some(Value::Metres(n)) => Ok(*n),
+            Some(Value::Int(i)) => Ok(*i as f64),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not a number")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    pub fn int(&self, name: &str) -> Result<i64, String> {
+        match self.get(name) {
+            Some(Value::Int(i)) => Ok(*i),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not a whole number")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    pub fn flag(&self, name: &str) -> Result<bool, String> {
+        match self.get(name) {
+            Some(Value::Bool(b)) => Ok(*b),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not true/false")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    /// Text, choice and path parameters.
+    pub fn text(&self, name: &str) -> Result<&str, String> {
+        match self.get(name) {
+            Some(Value::Text(t)) => Ok(t),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not text")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    pub fn names(&self, name: &str) -> Result<Vec<String>, String> {
+        match self.get(name) {
+            Some(Value::Names(n)) => Ok(n.clone()),
+            Some(Value::Text(t)) => Ok(t.split(',').map(|s| s.trim().to_string()).filter(|s| !s.is_empty()).collect()),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not a list of names")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    /// A time parameter as a count of samples at `rate` (pulses use `pri_samples`).
+    pub fn samples_at(&self, name: &str, rate: f64, pri_samples: Option<f64>) -> Result<f64, String> {
+        match self.get(name) {
+            Some(Value::Seconds(s)) => Ok(s * rate),
+            Some(Value::Samples(n)) => Ok(*n),
+            Some(Value::Pulses(p)) => match pri_samples {
+                Some(pri) => Ok(p * pri),
+                None => Err(format!("parameter '{name}' is given in pulses, but this stream has no pulse interval")),
+            },
+            Some(Value::Number(n)) => Ok(n * rate),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not a time")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    /// A distance parameter as a (fractional) count of range bins at `rate`.
+    pub fn bins_at(&self, name: &str, rate: f64) -> Result<f64, String> {
+        match self.get(name) {
+            Some(Value::Metres(m)) | Some(Value::Number(m)) => Ok(m / range_bin_m(rate)),
+            Some(Value::Bins(b)) => Ok(*b),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not a distance")),
+            None => Err(Self::missing(name)),
+        }
+    }
+}
+
+/// Speed of light in vacuum, m/s (SI definition).
+pub const SPEED_OF_LIGHT: f64 = 299_792_458.0;
+
+/// Range covered by one sample of delay at `rate`: c / (2 fs).
+pub fn range_bin_m(rate: f64) -> f64 {
+    SPEED_OF_LIGHT / (2.0 * rate)
+}
+
+/// The closest candidate by edit distance, if it is close enough to be a
+/// plausible typo. Used for every "did you mean" hint.
+pub fn closest<'a>(word: &str, candidates: impl Iterator<Item = &'a str>) -> Option<&'a str> {
+    let mut best: Option<(&str, usize)> = None;
+    for c in candidates {
+        let d = edit_distance(word, c);
+        if best.is_none_or(|(_, bd)| d < bd) {
+            best = Some((c, d));
+        }
+    }
+    best.filter(|&(c, d)| d <= 2.max(c.len() / 3)).map(|(c, _)| c)
+}
+
+fn edit_distance(a: &str, b: &str) -> usize {
+    let a: Vec<char> = a.chars().collect();
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for i in 1..=a.len() {
+        let mut cur = vec![i; b.len() + 1];
+        for j in 1..=b.len() {
+            let sub = prev[j - 1] + usize::from(a[i - 1] != b[j - 1]);
+            cur[j] = sub.min(prev[j] + 1).min(cur[j - 1] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn spec(ty: ParamType) -> ParamSpec {
+        ParamSpec { name: "p", ty, default: None, doc: "" }
+    }
+
+    #[test]
+    fn units_convert_to_canonical() {
+        let t = spec(ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: true });
+        assert_eq!(t.parse(&RawValue::Text("20 us".into())), Ok(Value::Seconds(20e-6)));
+        assert_eq!(t.parse(&RawValue::Text("12 samples".into())), Ok(Value::Samples(12.0)));
+        assert_eq!(t.parse(&RawValue::Text("3 pulses".into())), Ok(Value::Pulses(3.0)));
+        let r = spec(ParamType::Number { unit: Unit::SampleRate, min: 1.0, max: 1e10 });
+        assert_eq!(r.parse(&RawValue::Text("2.4 MS/s".into())), Ok(Value::Number(2.4e6)));
+        let d = spec(ParamType::Distance { min_m: 0.0, max_m: 1e6 });
+        assert_eq!(d.parse(&RawValue::Text("10 km".into())), Ok(Value::Metres(10e3)));
+        assert_eq!(d.parse(&RawValue::Text("4 bins".into())), Ok(Value::Bins(4.0)));
+    }
+
+    #[test]
+    fn wrong_unit_and_range_are_explained() {
+        let t = spec(ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false });
+        let e = t.parse(&RawValue::Text("5 km".into())).unwrap_err();
+        assert!(e.contains("unit 'km'") && e.contains("accepted"), "{e}");
+        let e = t.parse(&RawValue::Text("3 pulses".into())).unwrap_err();
+        assert!(e.contains("unit 'pulses'"), "{e}");
+        let n = spec(ParamType::Number { unit: Unit::Degrees, min: 0.1, max: 90.0 });
+        let e = n.parse(&RawValue::Number(120.0)).unwrap_err();
+        assert!(e.contains("out of range") && e.contains("0.1 to 90"), "{e}");
+    }
+
+    #[test]
+    fn choices_hint_the_closest() {
+        let c = spec(ParamType::Choice(&["gaussian", "uniform", "cosine"]));
+        let e = c.parse(&RawValue::Text("gausian".into())).unwrap_err();
+        assert!(e.contains("did you mean 'gaussian'"), "{e}");
+    }
+
+    #[test]
+    fn range_bin_matches_field_values() {
+        // c/(2 fs): 37.47 m at 4 MS/s, 62.46 m at 2.4 MS/s (field notes section 5).
+        assert!((range_bin_m(4e6) - 37.47).abs() < 0.005);
+        assert!((range_bin_m(2.4e6) - 62.46).abs() < 0.005);
+    }
+}

@@ -1,0 +1,42 @@
+//! `lobeflow blocks [KIND]`: the catalog of block kinds, from their declarations.
+
+use crate::error::Error;
+use lobeflow_blocks::{BlockSpec, Registry};
+use std::fmt::Write;
+
+pub fn catalog(registry: &Registry, kind: Option<&str>) -> Result<String, Error> {
+    let mut s = String::new();
+    match kind {
+        Some(k) => {
+            let spec = registry.get(k).ok_or_else(|| {
+                let hint = lobeflow_blocks::closest(k, registry.kinds().map(|s| s.kind))
+                    .map(|c| format!("; did you mean '{c}'?"))
+                    .unwrap_or_default();
+                Error::Usage(format!("no block kind '{k}'{hint}"))
+            })?;
+            describe(&mut s, spec);
+        }
+        None => {
+            let _ = writeln!(s, "Block kinds ({}); `lobeflow blocks KIND` for one alone.\n", registry.kinds().count());
+            for spec in registry.kinds() {
+                describe(&mut s, spec);
+                s.push('\n');
+            }
+        }
+    }
+    Ok(s)
+}
+
+fn describe(s: &mut String, spec: &BlockSpec) {
+    let _ = writeln!(s, "{}\n  {}", spec.kind, spec.doc);
+    for (side, ports) in [("in ", spec.inputs), ("out", spec.outputs)] {
+        for p in ports {
+            let req = if side == "in " && !p.required { " (optional)" } else { "" };
+            let _ = writeln!(s, "  {side} {:<12} {}{req}: {}", p.name, p.kind.name(), p.doc);
+        }
+    }
+    for p in spec.params {
+        let default = p.default.map(|d| format!(" = {d}")).unwrap_or_else(|| " (required)".into());
+        let _ = writeln!(s, "  param {}{default}  [{}]\n        {}", p.name, p.ty.describe(), p.doc);
+    }
+}

@@ -1,0 +1,46 @@
+//! `lobeflow check GRAPH`: validate and print the resolved graph.
+
+use crate::error::Error;
+use crate::graph::{Overrides, ResolvedGraph, resolve};
+use std::fmt::Write;
+use std::path::Path;
+
+/// Resolve `path` and describe it: knobs (value and origin), blocks with
+/// every parameter and where it came from, and the wires.
+pub fn check(path: &Path, overrides: &Overrides) -> Result<String, Error> {
+    let g = resolve(path, overrides, &crate::registry())?;
+    Ok(describe(&g))
+}
+
+pub fn describe(g: &ResolvedGraph) -> String {
+    let mut s = String::new();
+    let _ = writeln!(s, "graph {}{}", g.path.display(), if g.title.is_empty() { String::new() } else { format!(": {}", g.title) });
+    let _ = writeln!(s, "\nknobs:");
+    for k in &g.knobs {
+        let unit = k.unit.as_deref().map(|u| format!(" [{u}]")).unwrap_or_default();
+        let _ = writeln!(s, "  {} = {}{unit}    ({})", k.name, k.value, k.origin);
+    }
+    let _ = writeln!(s, "\nblocks:");
+    for b in &g.blocks {
+        let _ = writeln!(s, "  {} ({})", b.name, b.spec.kind);
+        for (name, value) in b.params.iter() {
+            let from = b.sources.get(name).map(String::as_str).unwrap_or("");
+            let _ = writeln!(s, "      {name} = {value}    ({from})");
+        }
+    }
+    let _ = writeln!(s, "\nwires:");
+    for w in &g.wires {
+        let (f, t) = (&g.blocks[w.from.0], &g.blocks[w.to.0]);
+        let _ = writeln!(
+            s,
+            "  {}.{} -> {}.{}    ({})",
+            f.name,
+            f.spec.outputs[w.from.1].name,
+            t.name,
+            t.spec.inputs[w.to.1].name,
+            f.spec.outputs[w.from.1].kind.name()
+        );
+    }
+    let _ = writeln!(s, "\nok: {} blocks, {} wires", g.blocks.len(), g.wires.len());
+    s
+}

@@ -1,0 +1,10 @@
+//! Graph files: reading them, settling knobs, expanding composites and
+//! checking everything before a sample flows.
+
+pub mod error;
+pub mod file;
+pub mod locate;
+pub mod resolve;
+
+pub use error::GraphError;
+pub use resolve::{KnobValue, Origin, Override, Overrides, ResolvedBlock, ResolvedGraph, Wire, resolve};

@@ -1,0 +1,563 @@
+//! From graph files to a checked, flat graph ready to run.
+//!
+//! Resolution settles every knob (file default, then params file, then
+//! `--set`), expands composites (`use:`) into their blocks with prefixed
+//! names, parses every parameter against its block's declaration, wires the
+//! ports and checks the whole: nothing runs until all of it holds.
+
+use super::error::GraphError;
+use super::file::{BlockBody, GraphFile, Source, parse_yaml, raw_value, read_text};
+use super::locate::{Seg, key, locate};
+use lobeflow_blocks::{BlockSpec, ItemKind, ParamType, Params, RawValue, Registry, Value};
+use std::collections::{BTreeMap, HashMap};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+/// Where a knob's value came from (shown by `lobeflow check`).
+#[derive(Clone, Debug, PartialEq)]
+pub enum Origin {
+    Default { file: PathBuf, line: usize },
+    ParamsFile { file: PathBuf, line: usize },
+    CommandLine,
+    /// Set by the enclosing graph on a composite block.
+    Parent { file: PathBuf, line: usize },
+}
+
+impl std::fmt::Display for Origin {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Origin::Default { file, line } => write!(f, "default, {}:{line}", file.display()),
+            Origin::ParamsFile { file, line } => write!(f, "params file {}:{line}", file.display()),
+            Origin::CommandLine => write!(f, "--set"),
+            Origin::Parent { file, line } => write!(f, "set by {}:{line}", file.display()),
+        }
+    }
+}
+
+/// A knob value supplied from outside the graph file.
+#[derive(Clone, Debug)]
+pub struct Override {
+    pub name: String,
+    pub value: RawValue,
+    pub origin: Origin,
+    /// Directory that relative paths in `value` are relative to.
+    pub base: PathBuf,
+}
+
+/// Knob values from `--set`, a params file, or the embedding API.
+#[derive(Clone, Debug, Default)]
+pub struct Overrides {
+    pub items: Vec<Override>,
+}
+
+impl Overrides {
+    /// `name=value`, as given to `--set`.
+    pub fn set_text(&mut self, assignment: &str) -> Result<(), String> {
+        let (name, value) = assignment
+            .split_once('=')
+            .ok_or_else(|| format!("--set takes name=value, got '{assignment}'"))?;
+        self.set(name.trim(), RawValue::from_text(value));
+        Ok(())
+    }
+
+    pub fn set(&mut self, name: &str, value: RawValue) {
+        self.items.push(Override { name: name.to_string(), value, origin: Origin::CommandLine, base: PathBuf::new() });
+    }
+
+    /// Read a params file: a YAML mapping of knob names to values.
+    pub fn add_params_file(&mut self, path: &Path) -> Result<(), GraphError> {
+        let text = read_text(path)?;
+        let doc = parse_yaml(path, &text)?;
+        let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
+        let Some(map) = doc.as_mapping() else {
+            return Err(GraphError {
+                file: path.to_path_buf(),
+                line: 1,
+                column: 1,
+                message: "a params file is a mapping of knob names to values".into(),
+                hint: None,
+            });
+        };
+        for (k, v) in map {
+            let name = k.as_str().unwrap_or_default().to_string();
+            let (line, column) = locate(&text, &[key(&name)]);
+            let value = raw_value(v).ok_or_else(|| GraphError {
+                file: path.to_path_buf(),
+                line,
+                column,
+                message: format!("'{name}' must be a number, text, true/false or a list"),
+                hint: None,
+            })?;
+            self.items.push(Override {
+                name,
+                value,
+                origin: Origin::ParamsFile { file: path.to_path_buf(), line },
+                base: base.clone(),
+            });
+        }
+        Ok(())
+    }
+}
+
+/// A knob with its settled value.
+#[derive(Clone, Debug)]
+pub struct KnobValue {
+    pub name: String,
+    pub value: RawValue,
+    pub unit: Option<String>,
+    pub doc: String,
+    pub origin: Origin,
+    base: PathBuf,
+}
+
+/// One block instance, parameters checked.
+#[derive(Clone)]
+pub struct ResolvedBlock {
+    /// Unique name; blocks from composites are `composite/inner`.
+    pub name: String,
+    pub spec: BlockSpec,
+    pub params: Params,
+    /// Where each parameter's value came from.
+    pub sources: BTreeMap<String, String>,
+    pub file: PathBuf,
+    pub line: usize,
+}
+
+/// A wire from an output port to an input port (block index, port index).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Wire {
+    pub from: (usize, usize),
+    pub to: (usize, usize),
+}
+
+/// A whole graph, checked and flattened.
+#[derive(Clone)]
+pub struct ResolvedGraph {
+    pub path: PathBuf,
+    pub title: String,
+    pub about: String,
+    pub knobs: Vec<KnobValue>,
+    pub blocks: Vec<ResolvedBlock>,
+    pub wires: Vec<Wire>,
+}
+
+impl ResolvedGraph {
+    pub fn block_index(&self, name: &str) -> Option<usize> {
+        self.blocks.iter().position(|b| b.name == name)
+    }
+}
+
+/// What a local name in one file's scope stands for.
+enum Local {
+    Block(usize),
+    Composite { inputs: Vec<(String, (usize, usize))>, outputs: Vec<(String, (usize, usize))> },
+}
+
+struct Builder<'r> {
+    registry: &'r Registry,
+    blocks: Vec<ResolvedBlock>,
+    wires: Vec<Wire>,
+    wire_at: Vec<(Arc<Source>, Vec<Seg>)>,
+    /// Files being expanded, to catch a file that includes itself.
+    stack: Vec<PathBuf>,
+}
+
+/// Load `path`, apply `overrides`, expand and check everything.
+pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Result<ResolvedGraph, GraphError> {
+    let file = GraphFile::load(path)?;
+    let mut knobs = settle_knobs(&file, BTreeMap::new())?;
+    for o in &overrides.items {
+        let Some(k) = knobs.get_mut(&o.name) else {
+            let names: Vec<&str> = file.knobs.iter().map(|k| k.name.as_str()).collect();
+            let (f, line) = match &o.origin {
+                Origin::ParamsFile { file, line } => (file.clone(), *line),
+                _ => (PathBuf::from("--set"), 0),
+            };
+            return Err(GraphError {
+                file: f,
+                line,
+                column: 1,
+                message: format!("knob '{}' is not defined by {}", o.name, path.display()),
+                hint: None,
+            }
+            .hint_closest(&o.name, names.iter().copied(), &format!("its knobs: {}", names.join(", "))));
+        };
+        k.value = o.value.clone();
+        k.origin = o.origin.clone();
+        k.base = o.base.clone();
+    }
+    for decl in &file.knobs {
+        if matches!(knobs[&decl.name].value, RawValue::List(ref l) if l.is_empty()) {
+            return Err(file
+                .source
+                .error(&[key("knobs"), key(&decl.name)], format!("knob '{}' has no value", decl.name))
+                .with_hint(format!("give it a default, or set it: --set {}=VALUE", decl.name)));
+        }
+    }
+    let mut b = Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
+    expand(&file, "", &knobs, &mut b)?;
+    check_required_inputs(&b)?;
+    check_cycles(&b)?;
+    let ordered: Vec<KnobValue> = file.knobs.iter().map(|d| knobs[&d.name].clone()).collect();
+    Ok(ResolvedGraph {
+        path: path.to_path_buf(),
+        title: file.title.clone(),
+        about: file.about.clone(),
+        knobs: ordered,
+        blocks: b.blocks,
+        wires: b.wires,
+    })
+}
+
+fn canonical(p: &Path) -> PathBuf {
+    p.canonicalize().unwrap_or_else(|_| p.to_path_buf())
+}
+
+/// Knob values from the file's defaults, then from `given` (a parent's set).
+/// A knob with no value yet holds an empty list, caught by the caller.
+fn settle_knobs(file: &GraphFile, mut given: BTreeMap<String, KnobValue>) -> Result<BTreeMap<String, KnobValue>, GraphError> {
+    let src = &file.source;
+    let mut out = BTreeMap::new();
+    for d in &file.knobs {
+        let (line, _) = locate(&src.text, &[key("knobs"), key(&d.name)]);
+        let mut v = KnobValue {
+            name: d.name.clone(),
+            value: d.default.clone().unwrap_or(RawValue::List(Vec::new())),
+            unit: d.unit.clone(),
+            doc: d.doc.clone(),
+            origin: Origin::Default { file: src.path.clone(), line },
+            base: src.dir(),
+        };
+        if let Some(g) = given.remove(&d.name) {
+            v.value = g.value;
+            v.origin = g.origin;
+            v.base = g.base;
+        }
+        out.insert(d.name.clone(), v);
+    }
+    Ok(out)
+}
+
+/// Replace a `$knob` reference by the knob's value; bare numbers take the
+/// knob's unit so the parameter's own unit check applies.
+fn substitute(
+    raw: &RawValue,
+    ty: Option<&ParamType>,
+    knobs: &BTreeMap<String, KnobValue>,
+    src: &Source,
+    at: &[Seg],
+) -> Result<(RawValue, Option<KnobValue>), GraphError> {
+    let RawValue::Text(t) = raw else { return Ok((raw.clone(), None)) };
+    let Some(name) = t.strip_prefix('$') else { return Ok((raw.clone(), None)) };
+    let Some(k) = knobs.get(name) else {
+        return Err(src
+            .error(at, format!("knob '{name}' is referenced but not defined"))
+            .hint_closest(name, knobs.keys().map(String::as_str), "declare it under 'knobs:'"));
+    };
+    if matches!(k.value, RawValue::List(ref l) if l.is_empty()) {
+        return Err(src.error(at, format!("knob '{name}' has no value")).with_hint(format!("set it: --set {name}=VALUE")));
+    }
+    let takes_unit = matches!(ty, Some(ParamType::Number { .. } | ParamType::Time { .. } | ParamType::Distance { .. }) | None);
+    let value = match (&k.value, &k.unit) {
+        (RawValue::Number(n), Some(u)) if takes_unit && !u.is_empty() => RawValue::Text(format!("{n} {u}")),
+        (v, _) => v.clone(),
+    };
+    Ok((value, Some(k.clone())))
+}
+
+fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b: &mut Builder) -> Result<HashMap<String, Local>, GraphError> {
+    let src = &file.source;
+    let mut scope: HashMap<String, Local> = HashMap::new();
+    for decl in &file.blocks {
+        let at = [key("blocks"), key(&decl.name)];
+        let full = format!("{prefix}{}", decl.name);
+        match &decl.body {
+            BlockBody::Kind(kind) => {
+                let Some(spec) = b.registry.get(kind) else {
+                    return Err(src
+                        .error(&[key("blocks"), key(&decl.name), key("kind")], format!("unknown block kind '{kind}'"))
+                        .hint_closest(kind, b.registry.kinds().map(|s| s.kind), "`lobeflow blocks` lists the kinds"));
+                };
+                let spec = *spec;
+                let mut params = Params::new();
+                let mut sources = BTreeMap::new();
+                for (pname, raw) in &decl.set {
+                    let pat = [key("blocks"), key(&decl.name), key("set"), key(pname)];
+                    let Some(ps) = spec.param(pname) else {
+                        let names: Vec<&str> = spec.params.iter().map(|p| p.name).collect();
+                        return Err(src
+                            .error(&pat, format!("block kind '{}' has no parameter '{pname}'", spec.kind))
+                            .hint_closest(pname, names.iter().copied(), &format!("its parameters: {}", names.join(", "))));
+                    };
+                    let (value, knob) = substitute(raw, Some(&ps.ty), knobs, src, &pat)?;
+                    let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
+                    let mut parsed = ps.parse(&value).map_err(|m| {
+                        let via = knob.as_ref().map(|k| format!(" (from knob '{}', {})", k.name, k.origin)).unwrap_or_default();
+                        src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
+                            .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
+                    })?;
+                    if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed) {
+                        if p != "-" && Path::new(p).is_relative() {
+                            parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
+                        }
+                    }
+                    let from = match &knob {
+                        Some(k) => format!("knob {} ({})", k.name, k.origin),
+                        None => format!("{}:{}", src.path.display(), locate(&src.text, &pat).0),
+                    };
+                    sources.insert(pname.clone(), from);
+                    params.insert(pname, parsed);
+                }
+                for ps in spec.params {
+                    if params.get(ps.name).is_some() {
+                        continue;
+                    }
+                    match ps.default {
+                        Some(d) => {
+                            let v = ps
+                                .parse(&RawValue::from_text(d))
+                                .map_err(|m| src.error(&at, format!("built-in default of '{}' on kind '{}' is bad: {m}", ps.name, spec.kind)))?;
+                            params.insert(ps.name, v);
+                            sources.insert(ps.name.to_string(), "block default".into());
+                        }
+                        None => {
+                            return Err(src
+                                .error(&at, format!("block '{}' ({}) needs parameter '{}'", decl.name, spec.kind, ps.name))
+                                .with_hint(format!("'{}': {} — {}", ps.name, ps.ty.describe(), ps.doc)));
+                        }
+                    }
+                }
+                let (line, _) = locate(&src.text, &at);
+                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, file: src.path.clone(), line });
+                scope.insert(decl.name.clone(), Local::Block(b.blocks.len() - 1));
+            }
+            BlockBody::Use(rel) => {
+                let child_path = src.dir().join(rel);
+                let canon = canonical(&child_path);
+                if b.stack.contains(&canon) {
+                    return Err(src.error(&[key("blocks"), key(&decl.name), key("use")], format!("'{rel}' includes itself (directly or through other files)")));
+                }
+                let child = GraphFile::load(&child_path).map_err(|e| {
+                    if e.line == 0 { src.error(&[key("blocks"), key(&decl.name), key("use")], e.message.clone()) } else { e }
+                })?;
+                let (line, _) = locate(&src.text, &at);
+                let mut given = BTreeMap::new();
+                for (kname, raw) in &decl.set {
+                    let pat = [key("blocks"), key(&decl.name), key("set"), key(kname)];
+                    let Some(cd) = child.knobs.iter().find(|k| &k.name == kname) else {
+                        let names: Vec<&str> = child.knobs.iter().map(|k| k.name.as_str()).collect();
+                        return Err(src
+                            .error(&pat, format!("'{rel}' has no knob '{kname}'"))
+                            .hint_closest(kname, names.iter().copied(), &format!("its knobs: {}", names.join(", "))));
+                    };
+                    let (value, knob) = substitute(raw, None, knobs, src, &pat)?;
+                    let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
+                    given.insert(
+                        kname.clone(),
+                        KnobValue {
+                            name: kname.clone(),
+                            value,
+                            unit: cd.unit.clone(),
+                            doc: cd.doc.clone(),
+                            origin: Origin::Parent { file: src.path.clone(), line: locate(&src.text, &pat).0 },
+                            base,
+                        },
+                    );
+                }
+                let child_knobs = settle_knobs(&child, given)?;
+                for cd in &child.knobs {
+                    if matches!(child_knobs[&cd.name].value, RawValue::List(ref l) if l.is_empty()) {
+                        return Err(src
+                            .error(&at, format!("composite '{}' needs knob '{}' set", decl.name, cd.name))
+                            .with_hint(cd.doc.clone()));
+                    }
+                }
+                b.stack.push(canon);
+                let child_scope = expand(&child, &format!("{full}/"), &child_knobs, b)?;
+                b.stack.pop();
+                let csrc = &child.source;
+                let mut inputs = Vec::new();
+                for (i, (pname, target)) in child.exposes.inputs.iter().enumerate() {
+                    let pat = [key("exposes"), key("inputs"), key(pname)];
+                    let _ = i;
+                    inputs.push((pname.clone(), input_end(&child_scope, target, csrc, &pat, b)?));
+                }
+                let mut outputs = Vec::new();
+                for (pname, target) in &child.exposes.outputs {
+                    let pat = [key("exposes"), key("outputs"), key(pname)];
+                    outputs.push((pname.clone(), output_end(&child_scope, target, csrc, &pat, b)?));
+                }
+                let _ = line;
+                scope.insert(decl.name.clone(), Local::Composite { inputs, outputs });
+            }
+        }
+    }
+    for (i, chain) in file.wiring.iter().enumerate() {
+        let at = [key("wiring"), Seg::Index(i)];
+        let ends: Vec<&str> = chain.split("->").map(str::trim).collect();
+        if ends.len() < 2 || ends.iter().any(|e| e.is_empty()) {
+            return Err(src.error(&at, format!("'{chain}' is not a chain")).with_hint("write 'a -> b -> c', naming ports as block.port where a block has several"));
+        }
+        for pair in ends.windows(2) {
+            let from = output_end(&scope, pair[0], src, &at, b)?;
+            let to = input_end(&scope, pair[1], src, &at, b)?;
+            connect(from, to, src, &at, b)?;
+        }
+    }
+    Ok(scope)
+}
+
+fn split_end(text: &str) -> (&str, Option<&str>) {
+    match text.split_once('.') {
+        Some((blk, port)) => (blk.trim(), Some(port.trim())),
+        None => (text.trim(), None),
+    }
+}
+
+fn lookup<'s>(scope: &'s HashMap<String, Local>, name: &str, src: &Source, at: &[Seg]) -> Result<&'s Local, GraphError> {
+    scope.get(name).ok_or_else(|| {
+        src.error(at, format!("no block named '{name}' in this file"))
+            .hint_closest(name, scope.keys().map(String::as_str), "")
+    })
+}
+
+fn pick_port(
+    ports: &[(String, (usize, usize))],
+    want: Option<&str>,
+    side: &str,
+    owner: &str,
+    src: &Source,
+    at: &[Seg],
+) -> Result<(usize, usize), GraphError> {
+    match want {
+        Some(p) => ports.iter().find(|(n, _)| n == p).map(|(_, e)| *e).ok_or_else(|| {
+            let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();
+            src.error(at, format!("'{owner}' has no {side} port '{p}'"))
+                .hint_closest(p, names.iter().copied(), &format!("its {side} ports: {}", if names.is_empty() { "none".into() } else { names.join(", ") }))
+        }),
+        None if ports.len() == 1 || (side == "output" && !ports.is_empty()) => Ok(ports[0].1),
+        None if ports.is_empty() => Err(src.error(at, format!("'{owner}' has no {side} ports"))),
+        None => {
+            let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();
+            Err(src.error(at, format!("'{owner}' has {side} ports {}: name one, as {owner}.{}", names.join(", "), names[0])))
+        }
+    }
+}
+
+fn block_ports(b: &Builder, idx: usize, outputs: bool) -> Vec<(String, (usize, usize))> {
+    let spec = &b.blocks[idx].spec;
+    let ports = if outputs { spec.outputs } else { spec.inputs };
+    ports.iter().enumerate().map(|(i, p)| (p.name.to_string(), (idx, i))).collect()
+}
+
+fn output_end(scope: &HashMap<String, Local>, text: &str, src: &Source, at: &[Seg], b: &Builder) -> Result<(usize, usize), GraphError> {
+    let (name, port) = split_end(text);
+    match lookup(scope, name, src, at)? {
+        Local::Block(idx) => pick_port(&block_ports(b, *idx, true), port, "output", name, src, at),
+        Local::Composite { outputs, .. } => pick_port(outputs, port, "output", name, src, at),
+    }
+}
+
+fn input_end(scope: &HashMap<String, Local>, text: &str, src: &Source, at: &[Seg], b: &Builder) -> Result<(usize, usize), GraphError> {
+    let (name, port) = split_end(text);
+    match lookup(scope, name, src, at)? {
+        Local::Block(idx) => pick_port(&block_ports(b, *idx, false), port, "input", name, src, at),
+        Local::Composite { inputs, .. } => pick_port(inputs, port, "input", name, src, at),
+    }
+}
+
+fn connect(from: (usize, usize), to: (usize, usize), src: &Arc<Source>, at: &[Seg], b: &mut Builder) -> Result<(), GraphError> {
+    let out_spec = b.blocks[from.0].spec.outputs[from.1];
+    let in_spec = b.blocks[to.0].spec.inputs[to.1];
+    if out_spec.kind != in_spec.kind {
+        return Err(src
+            .error(
+                at,
+                format!(
+                    "port type mismatch: {}.{} carries {}, but {}.{} takes {}",
+                    b.blocks[from.0].name,
+                    out_spec.name,
+                    out_spec.kind.name(),
+                    b.blocks[to.0].name,
+                    in_spec.name,
+                    in_spec.kind.name()
+                ),
+            )
+            .with_hint(suggest_output(b, from.0, in_spec.kind)));
+    }
+    if let Some(w) = b.wires.iter().find(|w| w.to == to) {
+        return Err(src.error(
+            at,
+            format!(
+                "input {}.{} is already wired from {}",
+                b.blocks[to.0].name, in_spec.name, b.blocks[w.from.0].name
+            ),
+        ));
+    }
+    b.wires.push(Wire { from, to });
+    b.wire_at.push((Arc::clone(src), at.to_vec()));
+    Ok(())
+}
+
+fn suggest_output(b: &Builder, idx: usize, kind: ItemKind) -> String {
+    match b.blocks[idx].spec.outputs.iter().find(|p| p.kind == kind) {
+        Some(p) => format!("{}.{} carries {}", b.blocks[idx].name, p.name, kind.name()),
+        None => format!("a block between them must turn {} into {}", b.blocks[idx].spec.outputs.first().map(|p| p.kind.name()).unwrap_or("?"), kind.name()),
+    }
+}
+
+fn check_required_inputs(b: &Builder) -> Result<(), GraphError> {
+    for (i, blk) in b.blocks.iter().enumerate() {
+        for (p, port) in blk.spec.inputs.iter().enumerate() {
+            if port.required && !b.wires.iter().any(|w| w.to == (i, p)) {
+                return Err(GraphError {
+                    file: blk.file.clone(),
+                    line: blk.line,
+                    column: 3,
+                    message: format!("input '{}' of block '{}' ({}) is not wired", port.name, blk.name, blk.spec.kind),
+                    hint: Some(format!("add a chain ending in '{}.{}' ({})", blk.name.rsplit('/').next().unwrap_or(&blk.name), port.name, port.kind.name())),
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+fn check_cycles(b: &Builder) -> Result<(), GraphError> {
+    // Depth-first search; colour 1 = on the stack, 2 = done.
+    let n = b.blocks.len();
+    let mut colour = vec![0u8; n];
+    fn visit(v: usize, b: &Builder, colour: &mut [u8], path: &mut Vec<usize>) -> Option<(Vec<usize>, usize)> {
+        colour[v] = 1;
+        path.push(v);
+        for (wi, w) in b.wires.iter().enumerate().filter(|(_, w)| w.from.0 == v) {
+            let u = w.to.0;
+            if colour[u] == 1 {
+                let start = path.iter().position(|&x| x == u).unwrap_or(0);
+                return Some((path[start..].to_vec(), wi));
+            }
+            if colour[u] == 0 {
+                if let Some(c) = visit(u, b, colour, path) {
+                    return Some(c);
+                }
+            }
+        }
+        path.pop();
+        colour[v] = 2;
+        None
+    }
+    for v in 0..n {
+        if colour[v] == 0 {
+            let mut path = Vec::new();
+            if let Some((cycle, wi)) = visit(v, b, &mut colour, &mut path) {
+                let mut names: Vec<&str> = cycle.iter().map(|&i| b.blocks[i].name.as_str()).collect();
+                names.push(names[0]);
+                let (src, at) = &b.wire_at[wi];
+                return Err(src
+                    .error(at, format!("the wiring has a cycle: {}", names.join(" -> ")))
+                    .with_hint("items flow one way; break the loop"));
+            }
+        }
+    }
+    Ok(())
+}

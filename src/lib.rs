@@ -1,0 +1,37 @@
+//! # lobeflow
+//!
+//! Lobe-switching angle trackers from recorded captures. A graph file wires
+//! blocks (capture readers, switch-sync gate, pulse framing, range-gate
+//! integrator, amplitude-ratio discriminator, tracker, tables, pictures);
+//! this crate loads, checks and runs it.
+//!
+//! ```no_run
+//! let mut session = lobeflow::Session::open("graphs/four-lobe-pulsed.yaml")?;
+//! session.set("beamwidth", "6 deg").out_dir("out");
+//! let report = session.run()?;
+//! for path in &report.written {
+//!     println!("wrote {}", path.display());
+//! }
+//! # Ok::<(), lobeflow::Error>(())
+//! ```
+//!
+//! Where things live: `graph` reads and checks graph files, `runtime`
+//! schedules blocks, `capture` reads and writes recordings, `picture` draws,
+//! `commands` holds the entry points of the `lobeflow` command.
+
+pub mod commands;
+pub mod error;
+pub mod graph;
+pub mod runtime;
+pub mod session;
+
+pub use error::Error;
+pub use lobeflow_blocks as blocks;
+pub use session::{ItemStream, Session};
+
+/// Every block kind the `lobeflow` command knows: the standard DSP blocks of
+/// `lobeflow-blocks` plus the file readers, writers and pictures of this crate.
+pub fn registry() -> lobeflow_blocks::Registry {
+    let r = lobeflow_blocks::standard_registry();
+    r
+}

@@ -1,0 +1,83 @@
+//! The `lobeflow` command: parse, dispatch to one entry point, print any
+//! error once, exit with its code (0 ok, 1 a check failed, 2 usage or input).
+
+use clap::{Parser, Subcommand};
+use lobeflow::Error;
+use lobeflow::commands;
+use std::path::PathBuf;
+
+#[derive(Parser)]
+#[command(name = "lobeflow", version, about = "Lobe-switching angle trackers from recorded IQ and WAV captures")]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Run a graph on a capture and write its outputs.
+    Run {
+        /// The graph file.
+        graph: PathBuf,
+        /// Capture to read instead of the graph's default (sets the knob `input`).
+        #[arg(long)]
+        input: Option<PathBuf>,
+        /// Output directory.
+        #[arg(long, default_value = "out")]
+        out: PathBuf,
+        /// Override a knob: name=value (repeatable).
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
+        /// A YAML file of knob values (an installation's numbers).
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Print per-block statistics.
+        #[arg(long)]
+        stats: bool,
+        /// No progress bar, no summary.
+        #[arg(long)]
+        quiet: bool,
+        /// Worker threads (default: one per core).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
+    /// Validate a graph and print it resolved: blocks, wires, knob values and their origins.
+    Check {
+        graph: PathBuf,
+        #[arg(long)]
+        input: Option<PathBuf>,
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
+        #[arg(long)]
+        params: Option<PathBuf>,
+    },
+    /// List block kinds with their ports and parameters (or one kind in full).
+    Blocks { kind: Option<String> },
+}
+
+fn main() {
+    let cli = Cli::parse();
+    if let Err(e) = dispatch(cli) {
+        eprintln!("error: {e}");
+        std::process::exit(e.exit_code());
+    }
+}
+
+fn dispatch(cli: Cli) -> Result<(), Error> {
+    match cli.command {
+        Command::Run { graph, input, out, set, params, stats, quiet, threads } => {
+            let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
+            let args = commands::run::RunArgs { graph, overrides, out_dir: out, threads, quiet, stats };
+            commands::run::run_graph(&args).map(|_| ())
+        }
+        Command::Check { graph, input, set, params } => {
+            let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
+            print!("{}", commands::check::check(&graph, &overrides)?);
+            Ok(())
+        }
+        Command::Blocks { kind } => {
+            print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);
+            Ok(())
+        }
+    }
+}
