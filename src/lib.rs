@@ -19,6 +19,7 @@
 //! schedules blocks, `capture` reads and writes recordings, `picture` draws,
 //! `commands` holds the entry points of the `lobeflow` command.
 
+pub mod capture;
 pub mod commands;
 pub mod error;
 pub mod graph;
@@ -32,6 +33,12 @@ pub use session::{ItemStream, Session};
 /// Every block kind the `lobeflow` command knows: the standard DSP blocks of
 /// `lobeflow-blocks` plus the file readers, writers and pictures of this crate.
 pub fn registry() -> lobeflow_blocks::Registry {
-    let r = lobeflow_blocks::standard_registry();
+    let mut r = lobeflow_blocks::standard_registry();
+    for spec in FILE_KINDS {
+        r.register(*spec);
+    }
     r
 }
+
+/// Block kinds of this crate (they read or write files), one entry each.
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[];

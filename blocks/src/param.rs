@@ -480,7 +480,10 @@ mod tests {
     #[test]
     fn units_convert_to_canonical() {
         let t = spec(ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: true });
-        assert_eq!(t.parse(&RawValue::Text("20 us".into())), Ok(Value::Seconds(20e-6)));
+        match t.parse(&RawValue::Text("20 us".into())) {
+            Ok(Value::Seconds(s)) => assert!((s - 20e-6).abs() < 1e-18),
+            other => panic!("{other:?}"),
+        }
         assert_eq!(t.parse(&RawValue::Text("12 samples".into())), Ok(Value::Samples(12.0)));
         assert_eq!(t.parse(&RawValue::Text("3 pulses".into())), Ok(Value::Pulses(3.0)));
         let r = spec(ParamType::Number { unit: Unit::SampleRate, min: 1.0, max: 1e10 });

@@ -162,8 +162,8 @@ mod tests {
 
     #[test]
     fn finds_flow_keys_and_sequence_items() {
-        assert_eq!(locate(DOC, &[key("blocks"), key("gate"), key("set"), key("guard")]), (11, 23));
-        assert_eq!(locate(DOC, &[key("knobs"), key("bw"), key("doc")]), (3, 26));
+        assert_eq!(locate(DOC, &[key("blocks"), key("gate"), key("set"), key("guard")]), (11, 21));
+        assert_eq!(locate(DOC, &[key("knobs"), key("bw"), key("doc")]), (3, 24));
         assert_eq!(locate(DOC, &[key("wiring"), Seg::Index(1)]), (15, 3));
     }
 

@@ -1,1 +1,2 @@
 //! Signal-processing pieces shared by several blocks (no block code here).
+pub mod beam;
