@@ -1,2 +1,3 @@
 //! Signal-processing pieces shared by several blocks (no block code here).
 pub mod beam;
+pub mod rng;
