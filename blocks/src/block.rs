@@ -216,7 +216,7 @@ pub struct BuildContext {
 pub type BuildFn = fn(&Params, &BuildContext) -> Result<Box<dyn Block>, String>;
 
 /// Everything known about one block kind, declared once.
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, Debug)]
 pub struct BlockSpec {
     pub kind: &'static str,
     /// One paragraph: what the block does and when to use it.

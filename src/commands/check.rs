@@ -2,6 +2,7 @@
 
 use crate::error::Error;
 use crate::graph::{Overrides, ResolvedGraph, resolve};
+use lobeflow_blocks::{ParamType, Value};
 use std::fmt::Write;
 use std::path::Path;
 
@@ -25,7 +26,11 @@ pub fn describe(g: &ResolvedGraph) -> String {
         let _ = writeln!(s, "  {} ({})", b.name, b.spec.kind);
         for (name, value) in b.params.iter() {
             let from = b.sources.get(name).map(String::as_str).unwrap_or("");
-            let _ = writeln!(s, "      {name} = {value}    ({from})");
+            let unit = match (value, b.spec.param(name).map(|p| p.ty)) {
+                (Value::Number(_), Some(ParamType::Number { unit, .. })) if !unit.symbol().is_empty() => format!(" {}", unit.symbol()),
+                _ => String::new(),
+            };
+            let _ = writeln!(s, "      {name} = {value}{unit}    ({from})");
         }
     }
     let _ = writeln!(s, "\nwires:");

@@ -99,9 +99,30 @@ pub fn raw_value(v: &Value) -> Option<RawValue> {
 /// Parse YAML text, turning syntax errors into file:line:column errors.
 pub fn parse_yaml(path: &Path, text: &str) -> Result<Value, GraphError> {
     serde_yaml::from_str(text).map_err(|e| {
-        let (line, column) = e.location().map(|l| (l.line(), l.column())).unwrap_or((1, 1));
+        let (mut line, mut column) = e.location().map(|l| (l.line(), l.column())).unwrap_or((1, 1));
+        if let Some(at) = second_occurrence(text, &e.to_string(), line) {
+            (line, column) = at;
+        }
         GraphError { file: path.to_path_buf(), line, column, message: format!("not valid YAML: {e}"), hint: None }
     })
+}
+
+/// The parser places a duplicate key at its first occurrence; point at the
+/// repeat instead, which is the line to change.
+fn second_occurrence(text: &str, message: &str, first_line: usize) -> Option<(usize, usize)> {
+    let start = message.find("duplicate entry with key \"")? + "duplicate entry with key \"".len();
+    let key = &message[start..start + message[start..].find('"')?];
+    let mut seen = 0;
+    for (i, line) in text.lines().enumerate().skip(first_line.saturating_sub(1)) {
+        let t = line.trim_start();
+        if t.strip_prefix(key).is_some_and(|rest| rest.trim_start().starts_with(':')) {
+            seen += 1;
+            if seen == 2 {
+                return Some((i + 1, line.len() - t.len() + 1));
+            }
+        }
+    }
+    None
 }
 
 /// Read a file's text, or an error naming it.

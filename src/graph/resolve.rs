@@ -111,7 +111,7 @@ pub struct KnobValue {
 }
 
 /// One block instance, parameters checked.
-#[derive(Clone)]
+#[derive(Clone, Debug)]
 pub struct ResolvedBlock {
     /// Unique name; blocks from composites are `composite/inner`.
     pub name: String,
@@ -131,7 +131,7 @@ pub struct Wire {
 }
 
 /// A whole graph, checked and flattened.
-#[derive(Clone)]
+#[derive(Clone, Debug)]
 pub struct ResolvedGraph {
     pub path: PathBuf,
     pub title: String,
