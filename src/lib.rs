@@ -23,6 +23,7 @@ pub mod capture;
 pub mod commands;
 pub mod error;
 pub mod graph;
+pub mod regress;
 pub mod runtime;
 pub mod session;
 

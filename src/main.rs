@@ -53,6 +53,24 @@ enum Command {
     },
     /// List block kinds with their ports and parameters (or one kind in full).
     Blocks { kind: Option<String> },
+    /// Run every sample in DIR through its graph and check it against its manifest.
+    Regress {
+        /// Folder of samples with their `*.check.yaml` manifests.
+        #[arg(default_value = "samples")]
+        dir: PathBuf,
+        /// Also write the table as JSON to this file.
+        #[arg(long)]
+        report: Option<PathBuf>,
+        /// Rewrite golden files from this run and say what changed.
+        #[arg(long)]
+        update: bool,
+        /// Where each sample's outputs go (one folder per sample).
+        #[arg(long, default_value = "target/regress")]
+        out: PathBuf,
+        /// Samples run at once (default: one per core).
+        #[arg(long)]
+        jobs: Option<usize>,
+    },
 }
 
 fn main() {
@@ -74,6 +92,16 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
             print!("{}", commands::check::check(&graph, &overrides)?);
             Ok(())
+        }
+        Command::Regress { dir, report, update, out, jobs } => {
+            let jobs = jobs.unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(2));
+            let args = commands::regress::RegressArgs { dir, report, update, out, jobs };
+            let rows = commands::regress::regress(&args)?;
+            print!("{}", commands::regress::table(&rows));
+            match rows.iter().filter(|r| !r.passed).count() {
+                0 => Ok(()),
+                n => Err(Error::Failed(format!("{n} regression checks failed"))),
+            }
         }
         Command::Blocks { kind } => {
             print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);

@@ -1,0 +1,96 @@
+//! Pass-through benchmark: a cf32_le capture of at least 1 GiB read by
+//! `capture_source`, handed through `pass`, dropped by `discard`, against a
+//! plain sequential read of the same file in the same run.
+//!
+//! `cargo bench --bench passthrough` (set LOBEFLOW_BENCH_GIB to change the
+//! size). Prints MS/s of both, their ratio, and the peak resident set.
+
+use std::io::{Read, Write};
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+fn main() {
+    let gib: f64 = std::env::var("LOBEFLOW_BENCH_GIB").ok().and_then(|v| v.parse().ok()).unwrap_or(1.0);
+    let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("bench");
+    std::fs::create_dir_all(&dir).expect("bench folder");
+    let data = dir.join("passthrough.cf32");
+    let bytes = (gib * (1u64 << 30) as f64) as u64 / 8 * 8;
+    make_capture(&data, bytes);
+    let samples = bytes / 8;
+    let graph = dir.join("passthrough.yaml");
+    std::fs::write(
+        &graph,
+        format!(
+            "title: pass-through benchmark\nblocks:\n  read: {{kind: capture_source, set: {{path: {}, format: raw, datatype: cf32_le, rate: 10 MS/s}}}}\n  hand: {{kind: pass}}\n  drop: {{kind: discard}}\nwiring:\n  - read -> hand -> drop\n",
+            data.display()
+        ),
+    )
+    .expect("graph");
+
+    let mut best_read = f64::MAX;
+    let mut best_graph = f64::MAX;
+    for round in 0..2 {
+        let t = Instant::now();
+        plain_read(&data);
+        best_read = best_read.min(t.elapsed().as_secs_f64());
+        let t = Instant::now();
+        let mut s = lobeflow::Session::open(&graph).expect("graph loads");
+        s.out_dir(dir.join("out"));
+        let report = s.run().expect("graph runs");
+        best_graph = best_graph.min(t.elapsed().as_secs_f64());
+        assert_eq!(report.stats[2].samples_in, samples, "every sample arrives (round {round})");
+    }
+    let ms = |secs: f64| samples as f64 / secs / 1e6;
+    println!("capture: {} ({:.2} GiB, {samples} samples cf32_le)", data.display(), bytes as f64 / (1u64 << 30) as f64);
+    println!("plain read:   {:8.1} MS/s  ({:.3} s)", ms(best_read), best_read);
+    println!("pass-through: {:8.1} MS/s  ({:.3} s)", ms(best_graph), best_graph);
+    println!("ratio:        {:8.3}", best_read / best_graph);
+    println!("peak RSS:     {:8.1} MiB", peak_rss_kib() as f64 / 1024.0);
+}
+
+fn make_capture(path: &Path, bytes: u64) {
+    if std::fs::metadata(path).map(|m| m.len() == bytes).unwrap_or(false) {
+        return;
+    }
+    let mut f = std::io::BufWriter::new(std::fs::File::create(path).expect("create capture"));
+    let mut buf = Vec::with_capacity(1 << 20);
+    let mut written = 0u64;
+    let mut k = 0u32;
+    while written < bytes {
+        buf.clear();
+        while buf.len() < (1 << 20) && written + (buf.len() as u64) < bytes {
+            let ph = k as f32 * 0.001;
+            buf.extend_from_slice(&ph.cos().to_le_bytes());
+            buf.extend_from_slice(&ph.sin().to_le_bytes());
+            k = k.wrapping_add(1);
+        }
+        f.write_all(&buf).expect("write capture");
+        written += buf.len() as u64;
+    }
+    f.flush().expect("flush");
+}
+
+/// The baseline: read the file sequentially in 1 MiB blocks and touch the bytes.
+fn plain_read(path: &Path) -> u64 {
+    let mut f = std::fs::File::open(path).expect("open");
+    let mut buf = vec![0u8; 1 << 20];
+    let mut acc = 0u64;
+    loop {
+        let n = f.read(&mut buf).expect("read");
+        if n == 0 {
+            break;
+        }
+        acc = acc.wrapping_add(buf[..n].iter().step_by(4096).map(|&b| b as u64).sum::<u64>());
+    }
+    std::hint::black_box(acc)
+}
+
+fn peak_rss_kib() -> u64 {
+    std::fs::read_to_string("/proc/self/status")
+        .unwrap_or_default()
+        .lines()
+        .find(|l| l.starts_with("VmHWM:"))
+        .and_then(|l| l.split_whitespace().nth(1))
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(0)
+}
