@@ -3,9 +3,12 @@
 
 pub mod discard;
 pub mod pass;
+pub mod ratio_discriminator;
+pub mod table_writer;
 pub mod test_tone;
+pub mod tracker;
 
 use crate::block::BlockSpec;
 
 /// Every standard kind, registered by [`crate::standard_registry`].
-pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC];
+pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC, ratio_discriminator::SPEC, tracker::SPEC, table_writer::SPEC];

@@ -1,0 +1,360 @@
+//! `table_writer`: writes angle estimates, dwell records or free-form rows
+//! as a CSV or JSON-lines table, atomically (the file appears only when the
+//! whole run succeeds). Numbers have fixed formats, so equal input gives
+//! byte-equal files.
+
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, FileStager, Outputs, PortSpec};
+use crate::item::{AngleEstimate, Cell, DwellRecord, Item, ItemKind, Stamp, TableRow};
+use crate::output_file::OutputFile;
+use crate::param::{ParamSpec, ParamType, Params};
+use std::collections::BTreeSet;
+use std::fmt::Write as _;
+use std::io::Write as _;
+use std::path::Path;
+use std::sync::Arc;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "table_writer",
+    doc: "Writes angle estimates, dwell records or table rows (wire exactly one input) to a CSV or \
+          JSON-lines file with fixed number formats; the file appears only when the run succeeds.",
+    inputs: &[
+        PortSpec::optional("estimates", ItemKind::Estimate, "angle estimates"),
+        PortSpec::optional("dwells", ItemKind::Dwell, "dwell records"),
+        PortSpec::optional(
+            "rows",
+            ItemKind::Row,
+            "free-form rows (columns from the first row)",
+        ),
+    ],
+    outputs: &[],
+    params: &[
+        ParamSpec {
+            name: "path",
+            ty: ParamType::OutputPath,
+            default: None,
+            doc: "table file to write",
+        },
+        ParamSpec {
+            name: "format",
+            ty: ParamType::Choice(&["csv", "jsonl"]),
+            default: Some("csv"),
+            doc: "csv with a header line, or one JSON object per line",
+        },
+    ],
+    build,
+};
+
+const ESTIMATE_COLUMNS: &[&str] = &[
+    "time_s",
+    "axis",
+    "error_deg",
+    "sigma_deg",
+    "snr_db",
+    "range_m",
+    "flag",
+    "ratio_db",
+    "tracked_deg",
+    "absolute_deg",
+];
+const DWELL_COLUMNS: &[&str] = &[
+    "time_s",
+    "lobe",
+    "dwell",
+    "amplitude",
+    "noise_power",
+    "snr_db",
+    "range_m",
+    "used",
+];
+
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let path = p.text("path")?.trim().to_string();
+    if path.is_empty() {
+        return Err("parameter 'path' is empty".into());
+    }
+    let file = OutputFile::create(Path::new(&path))
+        .map_err(|e| format!("cannot create table {path}: {e}"))?;
+    let json = p.text("format")? == "jsonl";
+    Ok(Box::new(TableWriter {
+        file: Some(file),
+        files: ctx.files.clone(),
+        path,
+        line: LineBuilder {
+            text: String::new(),
+            json,
+            first: true,
+        },
+        kind: None,
+        row_columns: Vec::new(),
+        unknown_fields: BTreeSet::new(),
+        last_stamp: None,
+    }))
+}
+
+/// How a number is written.
+#[derive(Clone, Copy)]
+enum NumStyle {
+    /// Fixed decimals.
+    Fixed(usize),
+    /// Scientific notation with this many decimals.
+    Sci(usize),
+    /// The shortest text that reads back to the same f64.
+    Shortest,
+}
+
+/// Builds one output line (CSV record or JSON object) in a reused buffer.
+struct LineBuilder {
+    text: String,
+    json: bool,
+    first: bool,
+}
+
+impl LineBuilder {
+    fn begin(&mut self) {
+        self.text.clear();
+        self.first = true;
+        if self.json {
+            self.text.push('{');
+        }
+    }
+
+    fn key(&mut self, key: &str) {
+        if !self.first {
+            self.text.push(',');
+        }
+        self.first = false;
+        if self.json {
+            push_json_string(&mut self.text, key);
+            self.text.push(':');
+        }
+    }
+
+    fn empty(&mut self, key: &str) {
+        self.key(key);
+        if self.json {
+            self.text.push_str("null");
+        }
+    }
+
+    fn num(&mut self, key: &str, v: Option<f64>, style: NumStyle) {
+        let Some(v) = v.filter(|v| v.is_finite()) else {
+            return self.empty(key);
+        };
+        self.key(key);
+        let _ = match style {
+            NumStyle::Fixed(d) => write!(self.text, "{v:.d$}"),
+            NumStyle::Sci(d) => write!(self.text, "{v:.d$e}"),
+            NumStyle::Shortest => write!(self.text, "{v}"),
+        };
+    }
+
+    fn int(&mut self, key: &str, v: i128) {
+        self.key(key);
+        let _ = write!(self.text, "{v}");
+    }
+
+    fn text(&mut self, key: &str, v: &str) {
+        self.key(key);
+        if self.json {
+            push_json_string(&mut self.text, v);
+        } else {
+            push_csv_field(&mut self.text, v);
+        }
+    }
+
+    fn end(&mut self) {
+        if self.json {
+            self.text.push('}');
+        }
+        self.text.push('\n');
+    }
+}
+
+/// RFC 4180 quoting where needed.
+fn push_csv_field(out: &mut String, v: &str) {
+    if v.contains([',', '"', '\n', '\r']) {
+        out.push('"');
+        out.push_str(&v.replace('"', "\"\""));
+        out.push('"');
+    } else {
+        out.push_str(v);
+    }
+}
+
+fn push_json_string(out: &mut String, v: &str) {
+    out.push('"');
+    for c in v.chars() {
+        match c {
+            '"' => out.push_str("\\\""),
+            '\\' => out.push_str("\\\\"),
+            '\n' => out.push_str("\\n"),
+            '\r' => out.push_str("\\r"),
+            '\t' => out.push_str("\\t"),
+            c if (c as u32) < 0x20 => {
+                let _ = write!(out, "\\u{:04x}", c as u32);
+            }
+            c => out.push(c),
+        }
+    }
+    out.push('"');
+}
+
+/// Most unknown row field names reported (each once).
+const UNKNOWN_FIELDS_REPORTED: usize = 16;
+
+struct TableWriter {
+    /// Present until `finish` hands it to the stager.
+    file: Option<OutputFile>,
+    files: FileStager,
+    path: String,
+    line: LineBuilder,
+    kind: Option<ItemKind>,
+    row_columns: Vec<Arc<str>>,
+    unknown_fields: BTreeSet<Arc<str>>,
+    last_stamp: Option<Stamp>,
+}
+
+impl TableWriter {
+    fn write_line(&mut self) -> Result<(), BlockError> {
+        let Some(file) = self.file.as_mut() else {
+            return Err(BlockError::new(format!(
+                "table {} was already finished",
+                self.path
+            )));
+        };
+        file.write_all(self.line.text.as_bytes())
+            .map_err(|e| BlockError::new(format!("cannot write table {}: {e}", self.path)))
+    }
+
+    fn header(&mut self, columns: &[&str]) -> Result<(), BlockError> {
+        if self.line.json {
+            return Ok(());
+        }
+        self.line.text.clear();
+        for (i, c) in columns.iter().enumerate() {
+            if i > 0 {
+                self.line.text.push(',');
+            }
+            push_csv_field(&mut self.line.text, c);
+        }
+        self.line.text.push('\n');
+        self.write_line()
+    }
+
+    fn estimate(&mut self, e: &AngleEstimate) -> Result<(), BlockError> {
+        let l = &mut self.line;
+        l.begin();
+        l.num("time_s", Some(e.stamp.seconds()), NumStyle::Fixed(6));
+        l.text("axis", &e.axis);
+        l.num("error_deg", e.error_deg, NumStyle::Fixed(5));
+        l.num("sigma_deg", Some(e.sigma_deg), NumStyle::Fixed(5));
+        l.num("snr_db", Some(e.snr_db), NumStyle::Fixed(3));
+        l.num("range_m", e.range_m, NumStyle::Fixed(3));
+        l.text("flag", e.flag.as_str());
+        l.num("ratio_db", Some(e.ratio_db), NumStyle::Fixed(4));
+        l.num("tracked_deg", e.tracked_deg, NumStyle::Fixed(5));
+        l.num("absolute_deg", e.absolute_deg, NumStyle::Fixed(5));
+        l.end();
+        self.write_line()
+    }
+
+    fn dwell(&mut self, d: &DwellRecord) -> Result<(), BlockError> {
+        let l = &mut self.line;
+        l.begin();
+        l.num("time_s", Some(d.mid.seconds()), NumStyle::Fixed(6));
+        l.text("lobe", &d.tag.name);
+        l.int("dwell", d.tag.dwell.into());
+        l.num("amplitude", Some(d.amplitude), NumStyle::Sci(6));
+        l.num("noise_power", Some(d.noise_power), NumStyle::Sci(6));
+        l.num("snr_db", Some(10.0 * d.snr.log10()), NumStyle::Fixed(3));
+        l.num("range_m", d.range_m, NumStyle::Fixed(3));
+        l.int("used", d.used.into());
+        l.end();
+        self.write_line()
+    }
+
+    fn row(&mut self, r: &TableRow, out: &mut Outputs) -> Result<(), BlockError> {
+        for (name, _) in &r.fields {
+            if !self.row_columns.contains(name)
+                && self.unknown_fields.len() < UNKNOWN_FIELDS_REPORTED
+                && self.unknown_fields.insert(name.clone())
+            {
+                out.notice(r.stamp, format!("row field '{name}' is not among the table's columns (from the first row); left out"));
+            }
+        }
+        let l = &mut self.line;
+        l.begin();
+        for column in &self.row_columns {
+            match r.fields.iter().find(|(n, _)| n == column).map(|(_, c)| c) {
+                Some(Cell::Num(v)) => l.num(column, Some(*v), NumStyle::Shortest),
+                Some(Cell::Int(i)) => l.int(column, (*i).into()),
+                Some(Cell::Text(t)) => l.text(column, t),
+                Some(Cell::Empty) | None => l.empty(column),
+            }
+        }
+        l.end();
+        self.write_line()
+    }
+}
+
+impl Block for TableWriter {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let kind = item.kind();
+        if !matches!(kind, ItemKind::Estimate | ItemKind::Dwell | ItemKind::Row) {
+            return Ok(());
+        }
+        self.last_stamp = Some(item.stamp());
+        match self.kind {
+            Some(k) if k != kind => {
+                return Err(BlockError::at(
+                    format!(
+                        "table {} received both {} and {}; wire only one input of the table writer",
+                        self.path,
+                        k.name(),
+                        kind.name()
+                    ),
+                    item.stamp().index,
+                ));
+            }
+            Some(_) => {}
+            None => {
+                self.kind = Some(kind);
+                match &item {
+                    Item::Estimate(_) => self.header(ESTIMATE_COLUMNS)?,
+                    Item::Dwell(_) => self.header(DWELL_COLUMNS)?,
+                    Item::Row(r) => {
+                        for (name, _) in &r.fields {
+                            if !self.row_columns.contains(name) {
+                                self.row_columns.push(name.clone());
+                            }
+                        }
+                        let columns = self.row_columns.clone();
+                        let names: Vec<&str> = columns.iter().map(|c| &**c).collect();
+                        self.header(&names)?;
+                    }
+                    _ => {}
+                }
+            }
+        }
+        match &item {
+            Item::Estimate(e) => self.estimate(e),
+            Item::Dwell(d) => self.dwell(d),
+            Item::Row(r) => self.row(r, out),
+            _ => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        if self.kind.is_none() {
+            out.notice(
+                self.last_stamp.unwrap_or(Stamp::new(0, 1.0)),
+                format!("no items arrived; table {} is empty", self.path),
+            );
+        }
+        let Some(file) = self.file.take() else {
+            return Ok(());
+        };
+        file.finish(&self.files)
+            .map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))
+    }
+}
