@@ -5,3 +5,4 @@ pub mod datatype;
 pub mod sigmf_meta;
 
 pub use datatype::{DataType, SampleFormat};
+pub mod write;
