@@ -25,6 +25,7 @@ pub mod error;
 pub mod graph;
 pub mod runtime;
 pub mod session;
+pub mod synth;
 
 pub use error::Error;
 pub use lobeflow_blocks as blocks;

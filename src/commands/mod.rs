@@ -5,6 +5,7 @@
 pub mod catalog;
 pub mod check;
 pub mod run;
+pub mod synth;
 
 use crate::error::Error;
 use crate::graph::Overrides;
