@@ -431,7 +431,11 @@ impl ScenarioFile {
     /// Parse scenario text; `path` names it in messages and anchors relative paths.
     pub fn parse(path: &Path, text: String) -> Result<ScenarioFile, String> {
         let scenario: Scenario = serde_yaml::from_str(&text).map_err(|e| match e.location() {
-            Some(l) => format!("{}:{}:{}: {e}", path.display(), l.line(), l.column()),
+            Some(l) => {
+                let text = e.to_string();
+                let tail = format!(" at line {} column {}", l.line(), l.column());
+                format!("{}:{}:{}: {}", path.display(), l.line(), l.column(), text.strip_suffix(&tail).unwrap_or(&text))
+            }
             None => format!("{}: {e}", path.display()),
         })?;
         Ok(ScenarioFile { path: path.to_path_buf(), text, scenario })
@@ -481,7 +485,7 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
     fn errors_name_file_line_and_what() {
         let bad = MINIMAL.replace("dwell: 100 us", "dwell: 100 km");
         let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
-        assert!(e.starts_with("s.yaml:5:") && e.contains("unit 'km'"), "{e}");
+        assert!(e.starts_with("s.yaml:6:") && e.contains("unit 'km'") && !e.contains("at line"), "{e}");
         let bad = MINIMAL.replace("toward: left", "toward: west");
         let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
         assert!(e.starts_with("s.yaml:4:") && e.contains("west"), "{e}");
