@@ -314,6 +314,28 @@ impl Model {
         self.start + n / self.rate
     }
 
+    /// Position of scenario time `t` in samples (fractional). Within a
+    /// millionth of a sample of a whole number it is snapped to it, so
+    /// instants meant to fall on a sample do not slip by rounding error.
+    pub fn sample_pos(&self, t: f64) -> f64 {
+        let x = (t - self.start) * self.rate;
+        let r = x.round();
+        if (x - r).abs() < 1e-6 { r } else { x }
+    }
+
+    /// The dwell sample `x` belongs to (by switch positions in samples, so
+    /// the answer does not depend on where a chunk starts).
+    pub fn dwell_at_sample(&self, x: f64) -> i64 {
+        let mut d = self.dwell_at(self.time_of(x));
+        while self.sample_pos(self.switch_time(d)) > x {
+            d -= 1;
+        }
+        while self.sample_pos(self.switch_time(d + 1)) <= x {
+            d += 1;
+        }
+        d
+    }
+
     /// Pattern factor `g(x)^n` of lobe `l` for the target at scenario time `t`.
     pub fn pattern_factor(&self, l: usize, t: f64) -> f64 {
         let lobe = &self.lobes[l];
@@ -470,21 +492,21 @@ impl Generator {
     fn fill_sync(&mut self, n0: u64, n: usize, sync: &mut Vec<f32>) {
         let m = &self.model;
         let lobes = m.lobes.len();
-        let mut d = m.dwell_at(m.time_of(n0 as f64));
-        let mut this_switch = m.switch_time(d);
-        let mut next_switch = m.switch_time(d + 1);
+        let mut d = m.dwell_at_sample(n0 as f64);
+        let mut this_switch = m.sample_pos(m.switch_time(d));
+        let mut next_switch = m.sample_pos(m.switch_time(d + 1));
         for i in 0..n {
-            let t = m.time_of((n0 + i as u64) as f64);
-            while t >= next_switch {
+            let x = (n0 + i as u64) as f64;
+            while x >= next_switch {
                 d += 1;
                 this_switch = next_switch;
-                next_switch = m.switch_time(d + 1);
+                next_switch = m.sample_pos(m.switch_time(d + 1));
             }
             let level = sync_level(m.lobe_of_dwell(d), lobes);
-            let since = (t - this_switch) * m.rate;
+            let since = x - this_switch;
             let v = if since < SYNC_RAMP_SAMPLES {
                 let prev = sync_level(m.lobe_of_dwell(d - 1), lobes);
-                prev + (level - prev) * since / SYNC_RAMP_SAMPLES
+                prev + (level - prev) * since.max(0.0) / SYNC_RAMP_SAMPLES
             } else {
                 level
             };
@@ -496,20 +518,22 @@ impl Generator {
     fn add_transients(&mut self, n0: u64, n: usize, ta: f64, tb: f64) {
         let m = &self.model;
         let Some((amp, len)) = m.transient else { return };
+        let len_samples = len * m.rate;
+        let end = (n0 + n as u64) as f64;
         let mut d = m.dwell_at(ta - len);
         loop {
-            let s = m.switch_time(d);
-            if s >= tb {
+            let s = m.sample_pos(m.switch_time(d));
+            if s >= end || m.switch_time(d) >= tb {
                 break;
             }
-            if s + len > ta {
-                let first = ((s - m.start) * m.rate).ceil().max(n0 as f64) as u64;
-                let last = (((s + len - m.start) * m.rate).ceil() as u64).min(n0 + n as u64);
-                for idx in first..last {
-                    let dt = m.time_of(idx as f64) - s;
-                    let env = amp * (-5.0 * dt / len).exp();
-                    self.acc[(idx - n0) as usize] += Complex64::from_polar(env, 2.0 * PI * 0.125 * m.rate * dt);
-                }
+            let first = s.ceil().max(n0 as f64);
+            let last = (s + len_samples).ceil().min(end);
+            let mut idx = first;
+            while idx < last {
+                let dt = idx - s;
+                let env = amp * (-5.0 * dt / len_samples).exp();
+                self.acc[(idx as u64 - n0) as usize] += Complex64::from_polar(env, 2.0 * PI * 0.125 * dt);
+                idx += 1.0;
             }
             d += 1;
         }
@@ -540,7 +564,7 @@ impl Generator {
         let len_samples = p.pulse_length * m.rate;
         for k in k_first..=k_last {
             let tx = m.transmit_time(p, k);
-            let a = (tx - m.start) * m.rate;
+            let a = m.sample_pos(tx);
             if let Some(leak) = p.leakage_amplitude {
                 add_rect(&mut self.acc, a, a + len_samples, Complex64::new(leak, 0.0));
             }
@@ -552,7 +576,7 @@ impl Generator {
                 }
             }
             let delay = 2.0 * p.range.at_time(tx) / SPEED_OF_LIGHT;
-            let ea = a + delay * m.rate;
+            let ea = m.sample_pos(tx + delay);
             if ea + len_samples <= lo || ea >= hi {
                 continue;
             }
@@ -565,18 +589,18 @@ impl Generator {
 
     fn add_beacon(&mut self, b: &Beacon, n0: u64, n: usize) {
         let m = &self.model;
-        let mut d = m.dwell_at(m.time_of(n0 as f64));
-        let mut next_switch = m.switch_time(d + 1);
+        let mut d = m.dwell_at_sample(n0 as f64);
+        let mut next_switch = m.sample_pos(m.switch_time(d + 1));
         let mut gain = Complex64::new(0.0, 0.0);
         let mut gain_dwell = None;
         for i in 0..n {
-            let t = m.time_of((n0 + i as u64) as f64);
-            while t >= next_switch {
+            let x = (n0 + i as u64) as f64;
+            while x >= next_switch {
                 d += 1;
-                next_switch = m.switch_time(d + 1);
+                next_switch = m.sample_pos(m.switch_time(d + 1));
             }
             if gain_dwell != Some(d) {
-                let mid = 0.5 * (m.switch_time(d) + next_switch);
+                let mid = 0.5 * (m.switch_time(d) + m.switch_time(d + 1));
                 let fluct = match b.fluctuation {
                     Fluctuation::PerDwell => m.target_factor(Fluctuation::PerDwell, PhaseMode::PerDwell, d, 0),
                     _ => Complex64::new(1.0, 0.0),
@@ -585,7 +609,7 @@ impl Generator {
                 gain_dwell = Some(d);
             }
             // Tone phase from the sample index, so long captures keep precision.
-            let cycles = (b.tone_hz * ((n0 + i as u64) as f64 / m.rate)).fract() + (b.tone_hz * m.start).fract();
+            let cycles = (b.tone_hz * (x / m.rate)).fract() + (b.tone_hz * m.start).fract();
             self.acc[i] += gain * Complex64::from_polar(1.0, 2.0 * PI * cycles);
         }
     }
