@@ -20,7 +20,8 @@
 //! depend on the chunk size.
 
 use super::scenario::{
-    BeamKind, Fluctuation, PhaseMode, ScaleSpec, ScenarioFile, SignalSpec, SyncMode, Toward, Track, Way, Degrees, Metres,
+    BeamKind, Degrees, Fluctuation, Metres, PhaseMode, Quantity, ScaleSpec, ScenarioFile,
+    SignalSpec, SyncMode, Toward, Track, Way,
 };
 use crate::capture::write::{AuxRole, WriteFormat};
 use lobeflow_blocks::SPEED_OF_LIGHT;
@@ -111,6 +112,15 @@ pub struct Model {
     pub name: String,
 }
 
+/// at, per_second, then (amplitude, period, phase) when the track swings.
+fn track_numbers<Q: Quantity + Default>(t: &Track<Q>) -> Vec<f64> {
+    let mut v = vec![t.at.value(), t.per_second.value()];
+    if let Some(s) = &t.swing {
+        v.extend([s.amplitude.value(), s.period.0, s.phase.0]);
+    }
+    v
+}
+
 fn db_amplitude(db: f64) -> f64 {
     10f64.powf(db / 20.0)
 }
@@ -123,18 +133,30 @@ impl Model {
         let c = &s.capture;
         let rate = c.sample_rate.0;
         if !(rate.is_finite() && rate > 0.0) {
-            return Err(err("capture/sample_rate", format!("sample rate {rate} must be positive")));
+            return Err(err(
+                "capture/sample_rate",
+                format!("sample rate {rate} must be positive"),
+            ));
         }
         let samples = (c.duration.0 * rate).round();
         if !(samples >= 1.0 && samples <= MAX_SAMPLES) {
-            return Err(err("capture/duration", format!("duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})", c.duration.0)));
+            return Err(err(
+                "capture/duration",
+                format!(
+                    "duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})",
+                    c.duration.0
+                ),
+            ));
         }
         if !c.start.0.is_finite() {
             return Err(err("capture/start", "start must be a finite time".into()));
         }
         let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e))?;
         if c.chunk == 0 || c.chunk > 1 << 24 {
-            return Err(err("capture/chunk", format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24)));
+            return Err(err(
+                "capture/chunk",
+                format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24),
+            ));
         }
 
         let a = &s.antenna;
@@ -143,10 +165,23 @@ impl Model {
             BeamKind::Uniform => BeamShape::Uniform,
             BeamKind::Cosine => BeamShape::Cosine,
             BeamKind::Table => {
-                let rel = a.pattern.as_deref().ok_or_else(|| err("antenna/beam", "a table beam needs `pattern: FILE.csv`".into()))?;
+                let rel = a.pattern.as_deref().ok_or_else(|| {
+                    err(
+                        "antenna/beam",
+                        "a table beam needs `pattern: FILE.csv`".into(),
+                    )
+                })?;
                 let path = f.dir().join(rel);
-                let text = std::fs::read_to_string(&path).map_err(|e| err("antenna/pattern", format!("cannot read {}: {e}", path.display())))?;
-                BeamShape::Table(parse_pattern_csv(&text).map_err(|e| err("antenna/pattern", format!("{}: {e}", path.display())))?)
+                let text = std::fs::read_to_string(&path).map_err(|e| {
+                    err(
+                        "antenna/pattern",
+                        format!("cannot read {}: {e}", path.display()),
+                    )
+                })?;
+                BeamShape::Table(
+                    parse_pattern_csv(&text)
+                        .map_err(|e| err("antenna/pattern", format!("{}: {e}", path.display())))?,
+                )
             }
         };
         let bw = match (&shape, a.beamwidth) {
@@ -156,27 +191,50 @@ impl Model {
         };
         let beam = Beam::new(shape, bw).map_err(|e| err("antenna", e))?;
         let pulsed = matches!(s.signal, SignalSpec::Pulsed(_));
-        let way = match a.way.unwrap_or(if pulsed { Way::TwoWay } else { Way::OneWay }) {
+        let way = match a
+            .way
+            .unwrap_or(if pulsed { Way::TwoWay } else { Way::OneWay })
+        {
             Way::OneWay => 1,
             Way::TwoWay => 2,
         };
 
         if s.lobes.len() < 2 {
-            return Err(err("lobes", format!("{} lobe(s) given; lobe switching needs at least two", s.lobes.len())));
+            return Err(err(
+                "lobes",
+                format!(
+                    "{} lobe(s) given; lobe switching needs at least two",
+                    s.lobes.len()
+                ),
+            ));
         }
         let mut lobes = Vec::new();
         for (i, l) in s.lobes.iter().enumerate() {
             let at = format!("lobes/{i}");
             let name = l.name.trim();
             if name.is_empty() || name.contains(',') {
-                return Err(err(&at, format!("lobe name '{}' must be non-empty and without commas", l.name)));
+                return Err(err(
+                    &at,
+                    format!(
+                        "lobe name '{}' must be non-empty and without commas",
+                        l.name
+                    ),
+                ));
             }
             if lobes.iter().any(|o: &Lobe| o.name == name) {
                 return Err(err(&at, format!("lobe name '{name}' is used twice")));
             }
             let (az, el) = match (l.toward, l.az, l.el) {
                 (Some(t), None, None) => {
-                    let sq = a.squint.ok_or_else(|| err("antenna", "`squint` is needed when lobes use `toward`".into()))?.0;
+                    let sq = a
+                        .squint
+                        .ok_or_else(|| {
+                            err(
+                                "antenna",
+                                "`squint` is needed when lobes use `toward`".into(),
+                            )
+                        })?
+                        .0;
                     match t {
                         Toward::Right => (sq, 0.0),
                         Toward::Left => (-sq, 0.0),
@@ -184,37 +242,107 @@ impl Model {
                         Toward::Down => (0.0, -sq),
                     }
                 }
-                (None, az, el) if az.is_some() || el.is_some() => (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0)),
-                _ => return Err(err(&at, format!("lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)"))),
+                (None, az, el) if az.is_some() || el.is_some() => {
+                    (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0))
+                }
+                _ => {
+                    return Err(err(
+                        &at,
+                        format!(
+                            "lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)"
+                        ),
+                    ));
+                }
             };
-            lobes.push(Lobe { name: name.to_string(), az, el });
+            lobes.push(Lobe {
+                name: name.to_string(),
+                az,
+                el,
+            });
         }
 
         let end = c.start.0 + samples / rate;
+        let tracks = [
+            ("target/az", track_numbers(&s.target.az)),
+            ("target/el", track_numbers(&s.target.el)),
+            (
+                "target/range",
+                s.target
+                    .range
+                    .as_ref()
+                    .map(track_numbers)
+                    .unwrap_or_default(),
+            ),
+        ];
+        for (at, numbers) in tracks {
+            if numbers.iter().any(|v| !v.is_finite()) {
+                return Err(err(
+                    at,
+                    "every value of a track must be a finite number".into(),
+                ));
+            }
+            if numbers.len() > 2 && !(numbers[3] > 0.0) {
+                return Err(err(
+                    &format!("{at}/swing/period"),
+                    format!("swing period {} s must be positive", numbers[3]),
+                ));
+            }
+        }
         let signal = match &s.signal {
             SignalSpec::Pulsed(p) => {
                 let at = |k: &str| format!("signal/pulsed/{k}");
                 let pri = 1.0 / p.prf.0;
                 if !(p.prf.0 > 0.0 && pri.is_finite()) {
-                    return Err(err(&at("prf"), format!("PRF {} Hz must be positive", p.prf.0)));
+                    return Err(err(
+                        &at("prf"),
+                        format!("PRF {} Hz must be positive", p.prf.0),
+                    ));
                 }
                 if !(p.pulse_length.0 > 0.0 && p.pulse_length.0 < pri) {
-                    return Err(err(&at("pulse_length"), format!("pulse length {} s must be positive and shorter than the PRI {pri} s", p.pulse_length.0)));
+                    return Err(err(
+                        &at("pulse_length"),
+                        format!(
+                            "pulse length {} s must be positive and shorter than the PRI {pri} s",
+                            p.pulse_length.0
+                        ),
+                    ));
                 }
                 if p.pulses_per_dwell == 0 {
-                    return Err(err(&at("pulses_per_dwell"), "at least one pulse per dwell is needed".into()));
+                    return Err(err(
+                        &at("pulses_per_dwell"),
+                        "at least one pulse per dwell is needed".into(),
+                    ));
                 }
                 if !(p.prf_jitter.0 >= 0.0 && p.prf_jitter.0 < 0.1 * pri) {
-                    return Err(err(&at("prf_jitter"), format!("PRF jitter {} s must be from 0 to a tenth of the PRI", p.prf_jitter.0)));
+                    return Err(err(
+                        &at("prf_jitter"),
+                        format!(
+                            "PRF jitter {} s must be from 0 to a tenth of the PRI",
+                            p.prf_jitter.0
+                        ),
+                    ));
                 }
                 let lead = p.switch_lead.map_or(0.1 * pri, |l| l.0);
                 if !(lead >= 0.0 && lead < 0.5 * pri) {
-                    return Err(err(&at("switch_lead"), format!("switch lead {lead} s must be from 0 to half the PRI")));
+                    return Err(err(
+                        &at("switch_lead"),
+                        format!("switch lead {lead} s must be from 0 to half the PRI"),
+                    ));
                 }
-                let range = s.target.range.ok_or_else(|| err("target", "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into()))?;
+                let range = s.target.range.ok_or_else(|| {
+                    err(
+                        "target",
+                        "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into(),
+                    )
+                })?;
                 let (rmin, _) = range.bounds(c.start.0, end);
                 if !(rmin > 0.0) {
-                    return Err(err("target/range", format!("range falls to {rmin} m during the capture; it must stay positive")));
+                    return Err(err(
+                        "target/range",
+                        format!(
+                            "range falls to {rmin} m during the capture; it must stay positive"
+                        ),
+                    ));
                 }
                 if !p.first_transmit.0.is_finite() {
                     return Err(err(&at("first_transmit"), "must be a finite time".into()));
@@ -236,25 +364,55 @@ impl Model {
             SignalSpec::Beacon(b) => {
                 let at = |k: &str| format!("signal/beacon/{k}");
                 if !(b.dwell.0 > 0.0 && b.dwell.0 * rate >= 1.0) {
-                    return Err(err(&at("dwell"), format!("dwell {} s must hold at least one sample", b.dwell.0)));
+                    return Err(err(
+                        &at("dwell"),
+                        format!("dwell {} s must hold at least one sample", b.dwell.0),
+                    ));
                 }
                 if b.fluctuation == Fluctuation::PerPulse {
-                    return Err(err(&at("fluctuation"), "a beacon has no pulses: use none or per_dwell".into()));
+                    return Err(err(
+                        &at("fluctuation"),
+                        "a beacon has no pulses: use none or per_dwell".into(),
+                    ));
                 }
                 if s.target.range.is_some() {
-                    return Err(err("target/range", "a beacon scenario has no range; remove `range`".into()));
+                    return Err(err(
+                        "target/range",
+                        "a beacon scenario has no range; remove `range`".into(),
+                    ));
                 }
                 if c.trigger {
-                    return Err(err("capture/trigger", "a beacon has no transmit trigger; remove `trigger`".into()));
+                    return Err(err(
+                        "capture/trigger",
+                        "a beacon has no transmit trigger; remove `trigger`".into(),
+                    ));
                 }
                 if !(b.tone.0.abs() < rate / 2.0) {
-                    return Err(err(&at("tone"), format!("tone {} Hz must lie within +-{} Hz (half the sample rate)", b.tone.0, rate / 2.0)));
+                    return Err(err(
+                        &at("tone"),
+                        format!(
+                            "tone {} Hz must lie within +-{} Hz (half the sample rate)",
+                            b.tone.0,
+                            rate / 2.0
+                        ),
+                    ));
                 }
-                Signal::Beacon(Beacon { tone_hz: b.tone.0, amplitude: db_amplitude(b.snr.0), dwell: b.dwell.0, t0: b.first_lobe_start.0, fluctuation: b.fluctuation })
+                Signal::Beacon(Beacon {
+                    tone_hz: b.tone.0,
+                    amplitude: db_amplitude(b.snr.0),
+                    dwell: b.dwell.0,
+                    t0: b.first_lobe_start.0,
+                    fluctuation: b.fluctuation,
+                })
             }
         };
         let transient = match &s.switch_transient {
-            Some(t) if !(t.length.0 > 0.0) => return Err(err("switch_transient/length", "length must be positive".into())),
+            Some(t) if !(t.length.0 > 0.0) => {
+                return Err(err(
+                    "switch_transient/length",
+                    "length must be positive".into(),
+                ));
+            }
             Some(t) => Some((db_amplitude(t.level.0), t.length.0)),
             None => None,
         };
@@ -290,10 +448,18 @@ impl Model {
     pub fn expected_peak(&self) -> f64 {
         let noise = NOISE_PEAK_SIGMAS * std::f64::consts::FRAC_1_SQRT_2;
         let (signal, fluct, leak) = match &self.signal {
-            Signal::Pulsed(p) => (p.amplitude, p.fluctuation, p.leakage_amplitude.unwrap_or(0.0)),
+            Signal::Pulsed(p) => (
+                p.amplitude,
+                p.fluctuation,
+                p.leakage_amplitude.unwrap_or(0.0),
+            ),
             Signal::Beacon(b) => (b.amplitude, b.fluctuation, 0.0),
         };
-        let f = if fluct == Fluctuation::None { 1.0 } else { FLUCTUATION_PEAK };
+        let f = if fluct == Fluctuation::None {
+            1.0
+        } else {
+            FLUCTUATION_PEAK
+        };
         noise + signal * f + leak + self.transient.map_or(0.0, |t| t.0)
     }
 
@@ -388,8 +554,12 @@ impl Model {
     fn target_factor(&self, fluct: Fluctuation, phase: PhaseMode, d: i64, k: i64) -> Complex64 {
         let amp = match fluct {
             Fluctuation::None => 1.0,
-            Fluctuation::PerDwell => sub_rng(self.seed, STREAM_FLUCT, d).complex_gaussian(1.0).norm() as f64,
-            Fluctuation::PerPulse => sub_rng(self.seed, STREAM_FLUCT, k).complex_gaussian(1.0).norm() as f64,
+            Fluctuation::PerDwell => sub_rng(self.seed, STREAM_FLUCT, d)
+                .complex_gaussian(1.0)
+                .norm() as f64,
+            Fluctuation::PerPulse => sub_rng(self.seed, STREAM_FLUCT, k)
+                .complex_gaussian(1.0)
+                .norm() as f64,
         };
         let ph = match phase {
             PhaseMode::PerDwell => sub_rng(self.seed, STREAM_PHASE_DWELL, d).uniform(),
@@ -421,7 +591,10 @@ fn mix(mut z: u64) -> u64 {
 
 /// An independent random stream for (seed, stream, index).
 fn sub_rng(seed: u64, stream: u64, index: i64) -> Rng {
-    Rng::new(mix(seed ^ mix(stream.wrapping_mul(0x9E37_79B9_7F4A_7C15) ^ mix(index as u64))))
+    Rng::new(mix(seed
+        ^ mix(
+            stream.wrapping_mul(0x9E37_79B9_7F4A_7C15) ^ mix(index as u64)
+        )))
 }
 
 /// One chunk of generated frames (buffers reused between chunks).
@@ -448,7 +621,13 @@ impl Generator {
     pub fn new(model: Model) -> Generator {
         let noise = sub_rng(model.seed, STREAM_NOISE, 0);
         let sync_noise = sub_rng(model.seed, STREAM_SYNC, 0);
-        Generator { model, next: 0, noise, sync_noise, acc: Vec::new() }
+        Generator {
+            model,
+            next: 0,
+            noise,
+            sync_noise,
+            acc: Vec::new(),
+        }
     }
 
     pub fn model(&self) -> &Model {
@@ -470,7 +649,8 @@ impl Generator {
             Complex64::new(z.re as f64, z.im as f64)
         }));
         out.trigger.clear();
-        out.trigger.resize(if m.trigger_channel { n } else { 0 }, 0.0);
+        out.trigger
+            .resize(if m.trigger_channel { n } else { 0 }, 0.0);
         out.sync.clear();
         let ta = m.time_of(n0 as f64);
         let tb = m.time_of((n0 + n as u64) as f64);
@@ -484,7 +664,11 @@ impl Generator {
             Signal::Beacon(b) => self.add_beacon(&b, n0, n),
         }
         out.iq.clear();
-        out.iq.extend(self.acc.iter().map(|z| Complex32::new(z.re as f32, z.im as f32)));
+        out.iq.extend(
+            self.acc
+                .iter()
+                .map(|z| Complex32::new(z.re as f32, z.im as f32)),
+        );
         self.next += n as u64;
         true
     }
@@ -517,7 +701,9 @@ impl Generator {
     /// A damped ring at an eighth of the sample rate from each switch instant.
     fn add_transients(&mut self, n0: u64, n: usize, ta: f64, tb: f64) {
         let m = &self.model;
-        let Some((amp, len)) = m.transient else { return };
+        let Some((amp, len)) = m.transient else {
+            return;
+        };
         let len_samples = len * m.rate;
         let end = (n0 + n as u64) as f64;
         let mut d = m.dwell_at(ta - len);
@@ -532,7 +718,8 @@ impl Generator {
             while idx < last {
                 let dt = idx - s;
                 let env = amp * (-5.0 * dt / len_samples).exp();
-                self.acc[(idx as u64 - n0) as usize] += Complex64::from_polar(env, 2.0 * PI * 0.125 * dt);
+                self.acc[(idx as u64 - n0) as usize] +=
+                    Complex64::from_polar(env, 2.0 * PI * 0.125 * dt);
                 idx += 1.0;
             }
             d += 1;
@@ -602,7 +789,9 @@ impl Generator {
             if gain_dwell != Some(d) {
                 let mid = 0.5 * (m.switch_time(d) + m.switch_time(d + 1));
                 let fluct = match b.fluctuation {
-                    Fluctuation::PerDwell => m.target_factor(Fluctuation::PerDwell, PhaseMode::PerDwell, d, 0),
+                    Fluctuation::PerDwell => {
+                        m.target_factor(Fluctuation::PerDwell, PhaseMode::PerDwell, d, 0)
+                    }
                     _ => Complex64::new(1.0, 0.0),
                 };
                 gain = fluct * (b.amplitude * m.pattern_factor(m.lobe_of_dwell(d), mid));
