@@ -284,12 +284,12 @@ fn echo_power_at_the_true_delay_matches_the_snr() {
     let (mut echo, mut ne, mut noise, mut nn) = (0.0, 0, 0.0, 0);
     for k in 0..100 {
         let tx = 200 + 1000 * k;
-        for n in tx + 10..tx + 13 {
-            echo += iq[n].norm_sqr() as f64;
+        for x in &iq[tx + 10..tx + 13] {
+            echo += x.norm_sqr() as f64;
             ne += 1;
         }
-        for n in tx + 400..(tx + 900).min(iq.len()) {
-            noise += iq[n].norm_sqr() as f64;
+        for x in &iq[tx + 400..(tx + 900).min(iq.len())] {
+            noise += x.norm_sqr() as f64;
             nn += 1;
         }
     }

@@ -139,7 +139,7 @@ impl Model {
             ));
         }
         let samples = (c.duration.0 * rate).round();
-        if !(samples >= 1.0 && samples <= MAX_SAMPLES) {
+        if !(1.0..=MAX_SAMPLES).contains(&samples) {
             return Err(err(
                 "capture/duration",
                 format!(
