@@ -651,3 +651,71 @@ fn bad_scenarios_are_refused_with_positions() {
         );
     }
 }
+
+#[test]
+fn per_dwell_fluctuation_is_rayleigh_across_dwells_and_steady_within() {
+    // Two pulses per dwell at 60 dB: both pulses of a dwell share one draw;
+    // across dwells the power is exponential (Swerling-1-like) with mean SNR.
+    let yaml = pulsed(60.0, 0.0, range_for_delay(20.0), ", fluctuation: per_dwell")
+        .replace("pulses_per_dwell: 5", "pulses_per_dwell: 2")
+        .replace("duration: 100 ms", "duration: 800 ms");
+    let (iq, _, _) = generate_all(model(&yaml));
+    let mean_power = 1e6 * gaussian(2.4, 6.0).powi(4);
+    let powers: Vec<f64> = (0..400)
+        .map(|d| {
+            let p0 = iq[200 + 2000 * d + 21].norm_sqr() as f64;
+            let p1 = iq[1200 + 2000 * d + 21].norm_sqr() as f64;
+            // Same draw: amplitudes differ only by noise (about 1 rms).
+            assert!(
+                (p0.sqrt() - p1.sqrt()).abs() < 5.0,
+                "dwell {d}: {p0} vs {p1}"
+            );
+            p0 / mean_power
+        })
+        .collect();
+    let m = powers.iter().sum::<f64>() / powers.len() as f64;
+    let var = powers.iter().map(|p| (p - m).powi(2)).sum::<f64>() / powers.len() as f64;
+    // Exponential: mean 1, variance 1 (400 draws: about 5 % and 10 % spread).
+    assert!((m - 1.0).abs() < 0.15, "mean power {m}");
+    assert!(
+        (var / (m * m) - 1.0).abs() < 0.35,
+        "normalised variance {}",
+        var / (m * m)
+    );
+    let below = powers
+        .iter()
+        .filter(|&&p| p < std::f64::consts::LN_2)
+        .count();
+    assert!(
+        (150..=250).contains(&below),
+        "median of an exponential is ln 2: {below} of 400 below"
+    );
+}
+
+#[test]
+fn beacon_truth_has_no_range_and_schedule_sync_writes_one_channel() {
+    let dir = temp_dir("beacon-files");
+    let yaml = "name: mast beacon\nseed: 3\n\
+capture: {sample_rate: 1 MS/s, duration: 8 ms, format: sigmf_cu8, sync: schedule}\n\
+antenna: {beam: cosine, beamwidth: 10 deg, squint: 5 deg}\n\
+lobes: [{name: e, toward: right}, {name: w, toward: left}, {name: n, toward: up}]\n\
+signal:\n  beacon: {tone: 12.5 kHz, snr: 10 dB, dwell: 1 ms}\n\
+target: {az: {at: 1 deg}}\n";
+    let files = synth_bytes(yaml, &dir, "b");
+    let truth = String::from_utf8(files[0].clone()).unwrap();
+    let rows: Vec<&str> = truth.lines().skip(1).collect();
+    assert_eq!(rows.len(), 8);
+    assert!(
+        rows.iter().all(|r| r.ends_with(',')),
+        "range must be empty for a beacon"
+    );
+    assert!(
+        rows[0].starts_with("0.000500000,e,") && rows[4].starts_with("0.004500000,w,"),
+        "{truth}"
+    );
+    assert_eq!(files[1].len(), 8000 * 2, "cu8, one complex channel");
+    let meta: serde_json::Value = serde_json::from_slice(&files[2]).unwrap();
+    assert_eq!(meta["global"]["core:num_channels"].as_u64(), Some(1));
+    assert_eq!(meta["global"]["core:datatype"], "cu8");
+    let _ = std::fs::remove_dir_all(&dir);
+}
