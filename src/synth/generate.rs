@@ -34,6 +34,8 @@ use std::f64::consts::PI;
 pub const SYNC_RAMP_SAMPLES: f64 = 4.0;
 /// RMS noise on the sync channel.
 pub const SYNC_NOISE_RMS: f64 = 0.01;
+/// Ranges beyond this are refused (the echo loop would span too many PRIs).
+const MAX_RANGE_M: f64 = 1e8;
 /// A capture longer than this many samples is refused (about 2^40).
 const MAX_SAMPLES: f64 = 1.1e12;
 /// Rayleigh amplitude allowance for the auto scale (exceeded with
@@ -335,7 +337,15 @@ impl Model {
                         "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into(),
                     )
                 })?;
-                let (rmin, _) = range.bounds(c.start.0, end);
+                let (rmin, rmax) = range.bounds(c.start.0, end);
+                if rmax > MAX_RANGE_M {
+                    return Err(err(
+                        "target/range",
+                        format!(
+                            "range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m"
+                        ),
+                    ));
+                }
                 if !(rmin > 0.0) {
                     return Err(err(
                         "target/range",
@@ -568,11 +578,13 @@ impl Model {
         Complex64::from_polar(amp, 2.0 * PI * ph)
     }
 
-    /// Scenario times of the range (delay) bound: the longest echo delay.
+    /// The longest echo delay of any pulse whose echo can reach the capture
+    /// (the range bound taken back to transmits one delay before the start).
     fn max_delay(&self, p: &Pulsed) -> f64 {
         let end = self.time_of(self.samples as f64);
-        let (_, rmax) = p.range.bounds(self.start - p.pri, end);
-        2.0 * rmax / SPEED_OF_LIGHT
+        let (_, first) = p.range.bounds(self.start - p.pri, end);
+        let early = self.start - 2.0 * first / SPEED_OF_LIGHT - p.pri;
+        2.0 * p.range.bounds(early, end).1 / SPEED_OF_LIGHT
     }
 }
 
