@@ -26,6 +26,7 @@ pub mod graph;
 pub mod regress;
 pub mod runtime;
 pub mod session;
+pub mod synth;
 
 pub use error::Error;
 pub use lobeflow_blocks as blocks;
@@ -42,4 +43,4 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::sink::SPEC];

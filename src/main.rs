@@ -71,6 +71,14 @@ enum Command {
         #[arg(long)]
         jobs: Option<usize>,
     },
+    /// Write a synthetic capture with known truth from a scenario file.
+    Synth {
+        /// The scenario file (YAML).
+        scenario: PathBuf,
+        /// Output prefix: writes PREFIX.wav or PREFIX.sigmf-data/-meta, and PREFIX.truth.csv.
+        #[arg(long)]
+        out: PathBuf,
+    },
 }
 
 fn main() {
@@ -105,6 +113,11 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
         }
         Command::Blocks { kind } => {
             print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);
+            Ok(())
+        }
+        Command::Synth { scenario, out } => {
+            let (_, summary) = commands::synth::synth(&scenario, &out)?;
+            eprint!("{summary}");
             Ok(())
         }
     }

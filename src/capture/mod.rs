@@ -5,3 +5,5 @@ pub mod datatype;
 pub mod sigmf_meta;
 
 pub use datatype::{DataType, SampleFormat};
+pub mod sink;
+pub mod write;

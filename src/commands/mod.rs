@@ -6,6 +6,7 @@ pub mod catalog;
 pub mod check;
 pub mod regress;
 pub mod run;
+pub mod synth;
 
 use crate::error::Error;
 use crate::graph::Overrides;
