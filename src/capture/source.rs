@@ -1,0 +1,176 @@
+//! `capture_source`: reads a capture (WAV, SigMF, raw file or standard input)
+//! and emits its samples in chunks, stamped from sample 0 at the file's rate.
+
+use super::reader::{CaptureReader, Format, OpenOptions, open};
+use super::roles::{NonFinite, Replaced, RoleMap};
+use lobeflow_blocks::{
+    Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType,
+    Params, PortSpec, Stamp, Unit,
+};
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "capture_source",
+    doc: "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
+    inputs: &[],
+    outputs: &[PortSpec::optional(
+        "samples",
+        ItemKind::Samples,
+        "the capture's samples, from sample 0",
+    )],
+    params: &[
+        ParamSpec {
+            name: "path",
+            ty: ParamType::InputPath,
+            default: None,
+            doc: "capture file; a SigMF recording by either file or its base name; '-' reads standard input",
+        },
+        ParamSpec {
+            name: "format",
+            ty: ParamType::Choice(&["auto", "wav", "sigmf", "raw"]),
+            default: Some("auto"),
+            doc: "container; auto decides from the name or the first bytes (standard input needs raw)",
+        },
+        ParamSpec {
+            name: "datatype",
+            ty: ParamType::Text,
+            default: Some("auto"),
+            doc: "SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, rf32_le, ...); auto = from the file or its extension",
+        },
+        ParamSpec {
+            name: "rate",
+            ty: ParamType::Number {
+                unit: Unit::SampleRate,
+                min: 0.0,
+                max: 1e11,
+            },
+            default: Some("0"),
+            doc: "sample rate; 0 = from the file (raw data needs it); a value the file contradicts is an error",
+        },
+        ParamSpec {
+            name: "channels",
+            ty: ParamType::Integer { min: 0, max: 64 },
+            default: Some("0"),
+            doc: "channels in the file; 0 = from the file (1 for raw data)",
+        },
+        ParamSpec {
+            name: "roles",
+            ty: ParamType::Names,
+            default: Some("auto"),
+            doc: "role of each channel: i, q, sync, trigger or - for real channels; iq, sync, trigger or - for complex ones; auto = by channel count",
+        },
+        ParamSpec {
+            name: "chunk",
+            ty: ParamType::Integer {
+                min: 1,
+                max: 1 << 22,
+            },
+            default: Some("65536"),
+            doc: "samples per emitted chunk",
+        },
+        ParamSpec {
+            name: "nonfinite",
+            ty: ParamType::Choice(&["error", "zero"]),
+            default: Some("error"),
+            doc: "NaN or infinite samples: stop with an error, or replace them by 0 and report the count",
+        },
+    ],
+    build,
+};
+
+/// The reader options the parameters describe (shared with `lobeflow inspect`).
+pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
+    let datatype = p.text("datatype")?;
+    let rate = p.num("rate")?;
+    let channels = p.int("channels")?;
+    Ok(OpenOptions {
+        format: Format::parse(p.text("format")?)?,
+        datatype: (datatype != "auto" && !datatype.is_empty()).then(|| datatype.to_string()),
+        rate: (rate > 0.0).then_some(rate),
+        channels: (channels > 0).then_some(channels as usize),
+    })
+}
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let path = p.text("path")?;
+    let reader = open(path, &open_options(p)?).map_err(|e| e.to_string())?;
+    let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
+    Ok(Box::new(CaptureSource {
+        reader,
+        roles,
+        chunk: p.int("chunk")? as usize,
+        nonfinite: NonFinite::parse(p.text("nonfinite")?)?,
+        replaced: Replaced::default(),
+        next: 0,
+        frames: Vec::new(),
+    }))
+}
+
+pub struct CaptureSource {
+    reader: Box<dyn CaptureReader>,
+    roles: RoleMap,
+    chunk: usize,
+    nonfinite: NonFinite,
+    replaced: Replaced,
+    next: u64,
+    frames: Vec<f32>,
+}
+
+impl CaptureSource {
+    /// A source over an opened reader (for embedding and tests).
+    pub fn new(
+        reader: Box<dyn CaptureReader>,
+        roles: RoleMap,
+        chunk: usize,
+        nonfinite: NonFinite,
+    ) -> Self {
+        CaptureSource {
+            reader,
+            roles,
+            chunk: chunk.max(1),
+            nonfinite,
+            replaced: Replaced::default(),
+            next: 0,
+            frames: Vec::new(),
+        }
+    }
+
+    /// Non-finite samples replaced by 0 so far.
+    pub fn replaced(&self) -> Replaced {
+        self.replaced
+    }
+}
+
+impl Block for CaptureSource {
+    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        let n = self.reader.read_frames(self.chunk, &mut self.frames)?;
+        if n == 0 {
+            if self.replaced.count > 0 {
+                let info = self.reader.info();
+                let first = self.replaced.first_sample.unwrap_or(0);
+                out.notice(
+                    Stamp::new(first, info.rate),
+                    format!(
+                        "{}: replaced {} non-finite value(s) by 0, the first at sample {first}",
+                        info.path, self.replaced.count
+                    ),
+                );
+            }
+            return Ok(false);
+        }
+        let chunk = self.roles.chunk(
+            &self.frames,
+            self.next,
+            self.reader.info(),
+            self.nonfinite,
+            &mut self.replaced,
+        )?;
+        self.next += n as u64;
+        out.push(0, Item::Samples(chunk));
+        Ok(true)
+    }
+
+    fn progress(&self) -> Option<(u64, u64)> {
+        let total = self.reader.info().data_bytes?;
+        Some((self.reader.bytes_read(), total))
+    }
+}
