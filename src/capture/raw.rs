@@ -45,7 +45,7 @@ pub(crate) fn raw_info(
         path: path.to_string(),
         meta_path: None,
         format: Format::Raw,
-        encoding_text: format!("raw {datatype}"),
+        encoding_text: datatype.to_string(),
         encoding: Encoding::Type(datatype),
         complex: datatype.complex,
         channels,
@@ -83,7 +83,7 @@ pub(crate) fn check_whole_frames(info: &CaptureInfo, data_bytes: u64) -> Result<
                 "{}: {data_bytes} bytes of data is not a whole number of frames ({} channel(s) of {} = {frame} bytes each): {rest} byte(s) left over at byte offset {}",
                 info.path,
                 info.channels,
-                info.encoding_text.trim_start_matches("raw "),
+                info.encoding_text,
                 info.data_offset + whole
             ),
             whole / frame,

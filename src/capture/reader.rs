@@ -74,9 +74,10 @@ impl Default for OpenOptions {
 pub enum Encoding {
     /// A SigMF datatype (also used for 8-bit unsigned, 16-bit and float WAV).
     Type(DataType),
-    /// Little-endian signed integer in a container of 3 or 4 bytes (WAV 24/32-bit),
-    /// scaled by the container's full scale (valid bits are the high ones).
-    IntLe { bytes: usize },
+    /// Little-endian signed integer of `bits` valid bits in a container of 3
+    /// or 4 bytes (WAV 24 and 32-bit), scaled by 2^(bits-1). A 24-bit sample
+    /// in a 4-byte container sits in the low three bytes, as hound reads it.
+    IntLe { bytes: usize, bits: u32 },
 }
 
 impl Encoding {
@@ -84,7 +85,7 @@ impl Encoding {
     pub fn component_bytes(&self) -> usize {
         match self {
             Encoding::Type(t) => t.component_bytes(),
-            Encoding::IntLe { bytes } => *bytes,
+            Encoding::IntLe { bytes, .. } => *bytes,
         }
     }
 
@@ -102,7 +103,7 @@ impl Encoding {
                 SampleFormat::I16 => 16,
                 SampleFormat::I8 | SampleFormat::U8 => 8,
             },
-            Encoding::IntLe { bytes } => 8 * *bytes as i32,
+            Encoding::IntLe { bits, .. } => *bits as i32,
         };
         1.0 - 2f32.powi(1 - bits)
     }
@@ -111,11 +112,17 @@ impl Encoding {
     pub fn decode(&self, bytes: &[u8], out: &mut Vec<f32>) {
         match self {
             Encoding::Type(t) => t.decode(bytes, out),
-            // Shifting the code into the top of an i32 and dividing by 2^31 is
-            // exact for 24-bit codes and the usual rounding for 32-bit ones.
-            Encoding::IntLe { bytes: 3 } => out.extend(
+            // A 24-bit code shifted into the top of an i32 is sign-extended;
+            // dividing by 2^31 is then exact, as for 32-bit codes up to the
+            // usual f32 rounding.
+            Encoding::IntLe { bytes: 3, .. } => out.extend(
                 bytes
                     .chunks_exact(3)
+                    .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
+            ),
+            Encoding::IntLe { bits: 24, .. } => out.extend(
+                bytes
+                    .chunks_exact(4)
                     .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
             ),
             Encoding::IntLe { .. } => out.extend(

@@ -199,7 +199,7 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
         path: d,
         meta_path: Some(m),
         format: Format::Sigmf,
-        encoding_text: format!("SigMF {datatype}"),
+        encoding_text: datatype.to_string(),
         encoding: Encoding::Type(datatype),
         complex: datatype.complex,
         channels,

@@ -50,36 +50,28 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
         )));
     }
     let bits = spec.bits_per_sample;
-    let (encoding, text) = match (spec.sample_format, container) {
-        (hound::SampleFormat::Float, 4) if bits == 32 => (
-            Encoding::Type(DataType {
-                complex: false,
-                format: SampleFormat::F32,
-                big_endian: false,
-            }),
+    // The combinations hound itself decodes.
+    let (encoding, text) = match (spec.sample_format, container, bits) {
+        (hound::SampleFormat::Float, 4, 32) => (
+            Encoding::Type(real(SampleFormat::F32)),
             "IEEE float 32-bit".to_string(),
         ),
-        (hound::SampleFormat::Int, 1) => (
-            Encoding::Type(DataType {
-                complex: false,
-                format: SampleFormat::U8,
-                big_endian: false,
-            }),
+        (hound::SampleFormat::Int, 1, 8) => (
+            Encoding::Type(real(SampleFormat::U8)),
             "PCM unsigned 8-bit".to_string(),
         ),
-        (hound::SampleFormat::Int, 2) => (
-            Encoding::Type(DataType {
-                complex: false,
-                format: SampleFormat::I16,
-                big_endian: false,
-            }),
-            format!("PCM integer {bits}-bit"),
+        (hound::SampleFormat::Int, 2, 16) => (
+            Encoding::Type(real(SampleFormat::I16)),
+            "PCM integer 16-bit".to_string(),
         ),
-        (hound::SampleFormat::Int, 3 | 4) => (
-            Encoding::IntLe { bytes: container },
+        (hound::SampleFormat::Int, 3, 24) | (hound::SampleFormat::Int, 4, 24 | 32) => (
+            Encoding::IntLe {
+                bytes: container,
+                bits: u32::from(bits),
+            },
             container_text(bits, container),
         ),
-        (fmt, _) => {
+        (fmt, _, _) => {
             return Err(BlockError::new(format!(
                 "{path}: unsupported WAV sample format: {} {bits}-bit in {container}-byte containers (supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit)",
                 if fmt == hound::SampleFormat::Float {
@@ -128,6 +120,14 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
         sigmf: None,
     };
     Ok(Box::new(FrameStream::new(info, input)))
+}
+
+fn real(format: SampleFormat) -> DataType {
+    DataType {
+        complex: false,
+        format,
+        big_endian: false,
+    }
 }
 
 fn container_text(bits: u16, container: usize) -> String {

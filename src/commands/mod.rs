@@ -4,6 +4,7 @@
 
 pub mod catalog;
 pub mod check;
+pub mod inspect;
 pub mod run;
 
 use crate::error::Error;
