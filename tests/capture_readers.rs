@@ -448,3 +448,26 @@ fn standard_input_is_read_through_the_command() {
     assert_eq!(out.status.code(), Some(2));
     assert!(err.contains("1 byte(s) left over at byte offset 100"), "{err}");
 }
+
+#[test]
+fn capture_source_runs_in_a_graph() {
+    // scipy-written float32 capture through the registered kind, a graph file and the scheduler
+    let dir = std::env::temp_dir().join(format!("lobeflow-graph-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let graph = dir.join("read.yaml");
+    let yaml = format!(
+        "title: read a capture\nknobs:\n  input: {{default: {}, doc: capture}}\nblocks:\n  read: {{kind: capture_source, set: {{path: $input, chunk: 50}}}}\n  sink: {{kind: discard}}\nwiring:\n  - read -> sink\n",
+        good("scipy_f32_iqst.wav")
+    );
+    std::fs::write(&graph, yaml).unwrap();
+    let mut session = lobeflow::Session::open(&graph).unwrap();
+    session.out_dir(dir.join("out"));
+    let report = session.run().unwrap();
+    let sink = report.stats.iter().find(|s| s.name.ends_with("sink")).unwrap();
+    assert_eq!((sink.samples_in, sink.items_in), (256, 6));
+    // A bad capture stops the run with the file named.
+    session.set("input", &bad("alaw.wav"));
+    let e = session.run().err().unwrap().to_string();
+    assert!(e.contains("alaw.wav") && e.contains("A-law"), "{e}");
+    let _ = std::fs::remove_dir_all(&dir);
+}

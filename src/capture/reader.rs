@@ -382,3 +382,77 @@ pub(crate) fn agree_channels(
         _ => Ok(from_file),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Cursor;
+
+    fn info(data_bytes: Option<u64>) -> CaptureInfo {
+        CaptureInfo {
+            path: "mem.ci16".into(),
+            meta_path: None,
+            format: Format::Raw,
+            encoding_text: "ci16_le".into(),
+            encoding: Encoding::Type(DataType::parse("ci16_le").unwrap_or(DataType::CF32_LE)),
+            complex: true,
+            channels: 1,
+            rate: 1e3,
+            data_offset: 0,
+            data_bytes,
+            frequency: None,
+            sigmf: None,
+        }
+    }
+
+    fn bytes(codes: &[i16]) -> Vec<u8> {
+        codes.iter().flat_map(|c| c.to_le_bytes()).collect()
+    }
+
+    #[test]
+    fn frames_come_in_blocks_across_reads() {
+        let codes: Vec<i16> = (0..20).map(|k| k * 1000 - 10000).collect();
+        let mut s = FrameStream::new(info(Some(40)), Cursor::new(bytes(&codes)));
+        let mut out = Vec::new();
+        let mut all = Vec::new();
+        while s.read_frames(3, &mut out).unwrap_or(0) > 0 {
+            all.extend_from_slice(&out);
+        }
+        let want: Vec<f32> = codes.iter().map(|&c| f32::from(c) / 32768.0).collect();
+        assert_eq!(all, want);
+        assert_eq!(s.bytes_read(), 40);
+    }
+
+    #[test]
+    fn short_data_is_truncated_and_a_partial_frame_is_refused() {
+        let data = bytes(&[1, 2, 3, 4, 5]);
+        let mut s = FrameStream::new(info(Some(16)), Cursor::new(data.clone()));
+        let e = s.read_frames(10, &mut Vec::new()).unwrap_err();
+        assert!(
+            e.message.contains("truncated") && e.message.contains("byte offset 10"),
+            "{e}"
+        );
+        assert_eq!(e.at_sample, Some(2));
+        let mut s = FrameStream::new(info(None), Cursor::new(data));
+        let mut out = Vec::new();
+        let e = s.read_frames(10, &mut out).unwrap_err();
+        assert!(
+            e.message.contains("2 byte(s) left over at byte offset 8"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn full_scale_of_each_encoding() {
+        assert_eq!(
+            Encoding::IntLe { bytes: 3, bits: 24 }.full_scale_positive(),
+            1.0 - 1.0 / 8388608.0
+        );
+        assert_eq!(
+            Encoding::Type(DataType::parse("cu8").unwrap_or(DataType::CF32_LE))
+                .full_scale_positive(),
+            127.0 / 128.0
+        );
+        assert_eq!(Encoding::Type(DataType::CF32_LE).full_scale_positive(), 1.0);
+    }
+}
