@@ -190,11 +190,16 @@ impl CaptureInfo {
 pub trait CaptureReader: Send {
     fn info(&self) -> &CaptureInfo;
     /// Read up to `max_frames` frames into `out` (cleared first), decoded and
-    /// channel-interleaved. Returns the number of frames; 0 at the end.
+    /// channel-interleaved. Returns the number of frames, which may be fewer
+    /// than asked for (reads are capped at [`MAX_READ_BYTES`]); 0 at the end.
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError>;
     /// Bytes of sample data read so far.
     fn bytes_read(&self) -> u64;
 }
+
+/// Most bytes one read takes in, so wide frames with a large `max_frames`
+/// cannot make a huge buffer.
+pub const MAX_READ_BYTES: usize = 16 << 20;
 
 /// Frames from any byte stream positioned at the first sample: the one
 /// reading loop behind every format.
@@ -228,7 +233,9 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
         out.clear();
         let frame_bytes = self.info.frame_bytes();
-        let mut want = max_frames.saturating_mul(frame_bytes);
+        let mut want = max_frames
+            .min((MAX_READ_BYTES / frame_bytes.max(1)).max(1))
+            .saturating_mul(frame_bytes);
         if let Some(total) = self.info.data_bytes {
             want = want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX));
         }

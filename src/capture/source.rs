@@ -102,6 +102,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         replaced: Replaced::default(),
         next: 0,
         frames: Vec::new(),
+        part: Vec::new(),
     }))
 }
 
@@ -113,6 +114,7 @@ pub struct CaptureSource {
     replaced: Replaced,
     next: u64,
     frames: Vec<f32>,
+    part: Vec<f32>,
 }
 
 impl CaptureSource {
@@ -131,6 +133,7 @@ impl CaptureSource {
             replaced: Replaced::default(),
             next: 0,
             frames: Vec::new(),
+            part: Vec::new(),
         }
     }
 
@@ -142,7 +145,16 @@ impl CaptureSource {
 
 impl Block for CaptureSource {
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
-        let n = self.reader.read_frames(self.chunk, &mut self.frames)?;
+        // A reader may return fewer frames than asked; fill the chunk.
+        let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
+        while n > 0 && n < self.chunk {
+            let more = self.reader.read_frames(self.chunk - n, &mut self.part)?;
+            if more == 0 {
+                break;
+            }
+            self.frames.extend_from_slice(&self.part);
+            n += more;
+        }
         if n == 0 {
             if self.replaced.count > 0 {
                 let info = self.reader.info();
@@ -172,5 +184,87 @@ impl Block for CaptureSource {
     fn progress(&self) -> Option<(u64, u64)> {
         let total = self.reader.info().data_bytes?;
         Some((self.reader.bytes_read(), total))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::capture::reader::{CaptureInfo, Encoding};
+    use crate::capture::{DataType, Format};
+
+    /// Hands out at most 7 real frames per read, like a slow pipe.
+    struct Trickle {
+        info: CaptureInfo,
+        left: usize,
+        next: f32,
+    }
+
+    impl CaptureReader for Trickle {
+        fn info(&self) -> &CaptureInfo {
+            &self.info
+        }
+        fn read_frames(&mut self, max: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
+            out.clear();
+            let n = max.min(7).min(self.left);
+            for _ in 0..n {
+                out.push(self.next);
+                self.next += 1.0;
+            }
+            self.left -= n;
+            Ok(n)
+        }
+        fn bytes_read(&self) -> u64 {
+            0
+        }
+    }
+
+    #[test]
+    fn short_reads_still_fill_whole_chunks() {
+        let info = CaptureInfo {
+            path: "pipe".into(),
+            meta_path: None,
+            format: Format::Raw,
+            encoding_text: "rf32_le".into(),
+            encoding: Encoding::Type(DataType {
+                complex: false,
+                ..DataType::CF32_LE
+            }),
+            complex: false,
+            channels: 1,
+            rate: 100.0,
+            data_offset: 0,
+            data_bytes: None,
+            frequency: None,
+            sigmf: None,
+        };
+        let roles = RoleMap::new(&[], &info).unwrap_or_else(|e| panic!("{e}"));
+        let mut src = CaptureSource::new(
+            Box::new(Trickle {
+                info,
+                left: 45,
+                next: 0.0,
+            }),
+            roles,
+            20,
+            NonFinite::Error,
+        );
+        let mut out = Outputs::new(1);
+        while src.generate(&mut out).unwrap_or(false) {}
+        let chunks: Vec<_> = out
+            .drain()
+            .filter_map(|(_, i)| {
+                if let Item::Samples(c) = i {
+                    Some(c)
+                } else {
+                    None
+                }
+            })
+            .collect();
+        let lens: Vec<usize> = chunks.iter().map(|c| c.len()).collect();
+        assert_eq!(lens, [20, 20, 5]);
+        assert_eq!(chunks[2].stamp.index, 40);
+        assert_eq!(chunks[2].iq[4].re, 44.0);
+        assert_eq!(src.progress(), None, "no length, no progress");
     }
 }

@@ -259,17 +259,18 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
         .iter()
         .zip(labels)
         .map(|(a, label)| {
-            let (mean, rms) = if a.count > 0 {
-                (a.sum / a.count as f64, (a.sum_sq / a.count as f64).sqrt())
+            let n = a.count as f64;
+            let (min, max, mean, rms) = if a.count > 0 {
+                (a.min, a.max, a.sum / n, (a.sum_sq / n).sqrt())
             } else {
-                (f64::NAN, f64::NAN)
+                (f64::NAN, f64::NAN, f64::NAN, f64::NAN)
             };
-            let peak = a.min.abs().max(a.max.abs());
+            let peak = min.abs().max(max.abs());
             ComponentStats {
                 label,
                 count: a.count,
-                min: a.min,
-                max: a.max,
+                min,
+                max,
                 mean,
                 rms,
                 peak_dbfs: 20.0 * peak.log10(),
