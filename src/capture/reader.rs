@@ -176,7 +176,7 @@ impl CaptureInfo {
     /// Frames in the capture, when the length is known.
     pub fn frames(&self) -> Option<u64> {
         let fb = self.frame_bytes() as u64;
-        self.data_bytes.map(|b| if fb == 0 { 0 } else { b / fb })
+        self.data_bytes.map(|b| b.checked_div(fb).unwrap_or(0))
     }
     /// Byte offset in the data file of component `component` of frame `frame`.
     pub fn byte_offset(&self, frame: u64, component: usize) -> u64 {

@@ -37,11 +37,10 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     input
         .seek(SeekFrom::Start(data_offset))
         .map_err(|e| BlockError::new(format!("{path}: {e}")))?;
-    let container = if values > 0 {
-        (data_bytes / values) as usize
-    } else {
-        usize::from(spec.bits_per_sample).div_ceil(8)
-    };
+    let container = data_bytes
+        .checked_div(values)
+        .map(|b| b as usize)
+        .unwrap_or_else(|| usize::from(spec.bits_per_sample).div_ceil(8));
 
     let channels = usize::from(spec.channels);
     if channels > MAX_WAV_CHANNELS {
