@@ -721,3 +721,26 @@ fn capture_source_runs_in_a_graph() {
     assert!(e.contains("alaw.wav") && e.contains("A-law"), "{e}");
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+#[test]
+fn sigmf_retune_is_read_and_reported() {
+    // written by the sigmf package: cf32_le with a second capture segment at sample 100
+    check_fixture("retune_cf32", OpenOptions::default());
+    let mut b = build(&[("path", &good("retune_cf32.sigmf-meta")), ("chunk", "64")]).unwrap();
+    let mut out = Outputs::new(1);
+    let mut notices = Vec::new();
+    while b.generate(&mut out).unwrap() {
+        notices.extend(out.drain_notices());
+    }
+    notices.extend(out.drain_notices());
+    assert_eq!(notices.len(), 1, "{notices:?}");
+    assert_eq!(notices[0].stamp.index, 100);
+    assert!(
+        notices[0].what.contains("retune_cf32.sigmf-meta")
+            && notices[0]
+                .what
+                .contains("segment 2 starts at sample 100, centre frequency 2420000000 Hz"),
+        "{:?}",
+        notices[0]
+    );
+}

@@ -94,16 +94,12 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let path = p.text("path")?;
     let reader = open(path, &open_options(p)?).map_err(|e| e.to_string())?;
     let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
-    Ok(Box::new(CaptureSource {
+    Ok(Box::new(CaptureSource::new(
         reader,
         roles,
-        chunk: p.int("chunk")? as usize,
-        nonfinite: NonFinite::parse(p.text("nonfinite")?)?,
-        replaced: Replaced::default(),
-        next: 0,
-        frames: Vec::new(),
-        part: Vec::new(),
-    }))
+        p.int("chunk")? as usize,
+        NonFinite::parse(p.text("nonfinite")?)?,
+    )))
 }
 
 pub struct CaptureSource {
@@ -115,6 +111,23 @@ pub struct CaptureSource {
     next: u64,
     frames: Vec<f32>,
     part: Vec<f32>,
+    /// SigMF capture segments after the first: (first sample, centre frequency).
+    segments: Vec<(u64, Option<f64>)>,
+    segments_seen: usize,
+}
+
+/// Segment-start notices shown one by one before the rest are only counted.
+const SEGMENT_NOTICES: usize = 10;
+
+fn later_segments(reader: &dyn CaptureReader) -> Vec<(u64, Option<f64>)> {
+    let Some(meta) = &reader.info().sigmf else {
+        return Vec::new();
+    };
+    meta.captures
+        .iter()
+        .skip(1)
+        .map(|c| (c.sample_start, c.frequency))
+        .collect()
 }
 
 impl CaptureSource {
@@ -126,7 +139,6 @@ impl CaptureSource {
         nonfinite: NonFinite,
     ) -> Self {
         CaptureSource {
-            reader,
             roles,
             chunk: chunk.max(1),
             nonfinite,
@@ -134,6 +146,33 @@ impl CaptureSource {
             next: 0,
             frames: Vec::new(),
             part: Vec::new(),
+            segments: later_segments(reader.as_ref()),
+            segments_seen: 0,
+            reader,
+        }
+    }
+
+    /// Tell of SigMF capture segments (e.g. a retune) starting in the next `n` samples.
+    fn segment_notices(&mut self, n: u64, out: &mut Outputs) {
+        let info = self.reader.info();
+        while let Some(&(start, freq)) = self.segments.get(self.segments_seen) {
+            if start >= self.next + n {
+                break;
+            }
+            self.segments_seen += 1;
+            if self.segments_seen <= SEGMENT_NOTICES {
+                let f = freq
+                    .map(|f| format!(", centre frequency {f} Hz"))
+                    .unwrap_or_default();
+                out.notice(
+                    Stamp::new(start, info.rate),
+                    format!(
+                        "{}: capture segment {} starts at sample {start}{f}",
+                        info.meta_path.as_deref().unwrap_or(&info.path),
+                        self.segments_seen + 1
+                    ),
+                );
+            }
         }
     }
 
@@ -155,7 +194,20 @@ impl Block for CaptureSource {
             self.frames.extend_from_slice(&self.part);
             n += more;
         }
+        self.segment_notices(n as u64, out);
         if n == 0 {
+            let unseen = self.segments.len() - self.segments_seen;
+            if self.segments_seen > SEGMENT_NOTICES || unseen > 0 {
+                let info = self.reader.info();
+                out.notice(
+                    Stamp::new(self.next, info.rate),
+                    format!(
+                        "{}: {} capture segments after the first ({unseen} starting at or past the end of the data)",
+                        info.meta_path.as_deref().unwrap_or(&info.path),
+                        self.segments.len()
+                    ),
+                );
+            }
             if self.replaced.count > 0 {
                 let info = self.reader.info();
                 let first = self.replaced.first_sample.unwrap_or(0);
