@@ -99,7 +99,15 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             Ok(())
         }
         Command::Inspect { capture, format, datatype, rate, channels, roles, seconds } => {
-            let args = commands::inspect::args_from_text(capture, &format, datatype, rate.as_deref(), channels, roles.as_deref(), seconds)?;
+            let args = commands::inspect::args_from_text(
+                capture,
+                &format,
+                datatype,
+                rate.as_deref(),
+                channels,
+                roles.as_deref(),
+                seconds,
+            )?;
             print!("{}", commands::inspect::inspect(&args)?);
             Ok(())
         }
