@@ -43,4 +43,4 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::sink::SPEC];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::source::SPEC, capture::sink::SPEC];

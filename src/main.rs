@@ -79,6 +79,29 @@ enum Command {
         #[arg(long)]
         out: PathBuf,
     },
+    /// Describe a capture: format, rate, channels and roles, levels, envelope periodicities.
+    Inspect {
+        /// WAV, SigMF recording (either file or base name), raw file, or '-' for standard input.
+        capture: String,
+        /// auto, wav, sigmf or raw.
+        #[arg(long, default_value = "auto")]
+        format: String,
+        /// SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, ...).
+        #[arg(long)]
+        datatype: Option<String>,
+        /// Sample rate, e.g. 2.4MS/s (needed for raw data).
+        #[arg(long)]
+        rate: Option<String>,
+        /// Channels in a raw file.
+        #[arg(long)]
+        channels: Option<usize>,
+        /// Channel roles, comma-separated (i,q,sync,trigger,- or iq,sync,trigger,-).
+        #[arg(long)]
+        roles: Option<String>,
+        /// Look at no more than this many seconds from the start.
+        #[arg(long, default_value_t = 60.0)]
+        seconds: f64,
+    },
 }
 
 fn main() {
@@ -110,6 +133,19 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 0 => Ok(()),
                 n => Err(Error::Failed(format!("{n} regression checks failed"))),
             }
+        }
+        Command::Inspect { capture, format, datatype, rate, channels, roles, seconds } => {
+            let args = commands::inspect::args_from_text(
+                capture,
+                &format,
+                datatype,
+                rate.as_deref(),
+                channels,
+                roles.as_deref(),
+                seconds,
+            )?;
+            print!("{}", commands::inspect::inspect(&args)?);
+            Ok(())
         }
         Command::Blocks { kind } => {
             print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);

@@ -2,8 +2,17 @@
 //! input) in chunks, and writing derived streams.
 
 pub mod datatype;
+pub mod raw;
+pub mod reader;
+pub mod roles;
+pub mod sigmf;
 pub mod sigmf_meta;
+pub mod source;
+pub mod stdin;
+pub mod wav;
 
 pub use datatype::{DataType, SampleFormat};
 pub mod sink;
 pub mod write;
+pub use reader::{CaptureInfo, CaptureReader, Format, OpenOptions, open};
+pub use roles::{NonFinite, Role, RoleMap};

@@ -5,6 +5,7 @@
 pub mod catalog;
 pub mod check;
 pub mod regress;
+pub mod inspect;
 pub mod run;
 pub mod synth;
 

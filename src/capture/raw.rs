@@ -1,0 +1,93 @@
+//! Raw interleaved sample files: no header, the layout is a SigMF datatype
+//! name plus a channel count, and the sample rate comes from the parameters.
+
+use super::datatype::DataType;
+use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions};
+use lobeflow_blocks::BlockError;
+use std::fs::File;
+use std::io::BufReader;
+use std::path::Path;
+
+/// The datatype of a raw capture: given, or the file's extension when that is
+/// a datatype name (`capture.cu8`).
+pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, BlockError> {
+    let ext = Path::new(path)
+        .extension()
+        .and_then(|e| e.to_str())
+        .unwrap_or("");
+    match &opts.datatype {
+        Some(name) => DataType::parse(name).map_err(|e| BlockError::new(format!("{path}: {e}"))),
+        None => DataType::parse(&ext.to_ascii_lowercase()).map_err(|_| {
+            BlockError::new(format!("{path}: raw data needs a datatype (a SigMF name such as cf32_le, ci16_le, ci8 or cu8)"))
+        }),
+    }
+}
+
+/// The rate of a raw capture, which only the caller can know.
+pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError> {
+    match opts.rate {
+        Some(r) if r.is_finite() && r > 0.0 => Ok(r),
+        _ => Err(BlockError::new(format!(
+            "{path}: raw data carries no sample rate; set rate (e.g. 2.4 MS/s)"
+        ))),
+    }
+}
+
+pub(crate) fn raw_info(
+    path: &str,
+    opts: &OpenOptions,
+    data_bytes: Option<u64>,
+) -> Result<CaptureInfo, BlockError> {
+    let datatype = raw_datatype(path, opts)?;
+    let rate = raw_rate(path, opts)?;
+    let channels = opts.channels.unwrap_or(1).max(1);
+    Ok(CaptureInfo {
+        path: path.to_string(),
+        meta_path: None,
+        format: Format::Raw,
+        encoding_text: datatype.to_string(),
+        encoding: Encoding::Type(datatype),
+        complex: datatype.complex,
+        channels,
+        rate,
+        data_offset: 0,
+        data_bytes,
+        frequency: None,
+        sigmf: None,
+    })
+}
+
+pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
+    let file = File::open(path)
+        .map_err(|e| BlockError::new(format!("{path}: cannot open the raw capture: {e}")))?;
+    let len = file
+        .metadata()
+        .map_err(|e| BlockError::new(format!("{path}: {e}")))?
+        .len();
+    let info = raw_info(path, opts, Some(len))?;
+    check_whole_frames(&info, len)?;
+    Ok(Box::new(FrameStream::new(
+        info,
+        BufReader::with_capacity(1 << 20, file),
+    )))
+}
+
+/// A data file must hold whole frames; say where the partial one starts.
+pub(crate) fn check_whole_frames(info: &CaptureInfo, data_bytes: u64) -> Result<(), BlockError> {
+    let frame = info.frame_bytes() as u64;
+    let rest = data_bytes % frame;
+    if rest != 0 {
+        let whole = data_bytes - rest;
+        return Err(BlockError::at(
+            format!(
+                "{}: {data_bytes} bytes of data is not a whole number of frames ({} channel(s) of {} = {frame} bytes each): {rest} byte(s) left over at byte offset {}",
+                info.path,
+                info.channels,
+                info.encoding_text,
+                info.data_offset + whole
+            ),
+            whole / frame,
+        ));
+    }
+    Ok(())
+}

@@ -1,0 +1,465 @@
+//! Capture readers: one interface over WAV files, raw interleaved files,
+//! SigMF recordings and standard input, reading a capture in blocks of frames
+//! with constant memory whatever its length.
+//!
+//! A *frame* is one sample instant of every channel. Readers hand out frames
+//! decoded to `f32` components, channel-interleaved (complex channels as I
+//! then Q); [`crate::capture::roles::RoleMap`] turns them into sample chunks.
+
+use super::datatype::{DataType, SampleFormat};
+use super::sigmf_meta::SigmfMeta;
+use lobeflow_blocks::BlockError;
+use std::io::Read;
+use std::path::Path;
+
+/// Which container a capture comes in.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Format {
+    /// Decide from the path: `.wav`, `.sigmf-*`, a datatype extension or the first bytes.
+    Auto,
+    Wav,
+    Sigmf,
+    Raw,
+}
+
+impl Format {
+    /// Parse the names used by the `format` parameter and `--format`.
+    pub fn parse(name: &str) -> Result<Format, String> {
+        match name {
+            "auto" | "" => Ok(Format::Auto),
+            "wav" => Ok(Format::Wav),
+            "sigmf" => Ok(Format::Sigmf),
+            "raw" => Ok(Format::Raw),
+            other => Err(format!(
+                "unknown capture format '{other}' (known: auto, wav, sigmf, raw)"
+            )),
+        }
+    }
+
+    pub fn name(&self) -> &'static str {
+        match self {
+            Format::Auto => "auto",
+            Format::Wav => "wav",
+            Format::Sigmf => "sigmf",
+            Format::Raw => "raw",
+        }
+    }
+}
+
+/// What the caller knows besides the path; `None` means "from the file".
+#[derive(Clone, Debug)]
+pub struct OpenOptions {
+    pub format: Format,
+    /// SigMF datatype name, for raw files and standard input.
+    pub datatype: Option<String>,
+    /// Samples per second; required for raw data, checked against the file otherwise.
+    pub rate: Option<f64>,
+    /// Channels in the file; required for multi-channel raw data, checked otherwise.
+    pub channels: Option<usize>,
+}
+
+impl Default for OpenOptions {
+    fn default() -> Self {
+        OpenOptions {
+            format: Format::Auto,
+            datatype: None,
+            rate: None,
+            channels: None,
+        }
+    }
+}
+
+/// How the bytes of one component are turned into a float.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Encoding {
+    /// A SigMF datatype (also used for 8-bit unsigned, 16-bit and float WAV).
+    Type(DataType),
+    /// Little-endian signed integer of `bits` valid bits in a container of 3
+    /// or 4 bytes (WAV 24 and 32-bit), scaled by 2^(bits-1). A 24-bit sample
+    /// in a 4-byte container sits in the low three bytes, as hound reads it.
+    IntLe { bytes: usize, bits: u32 },
+}
+
+impl Encoding {
+    /// Bytes one component occupies.
+    pub fn component_bytes(&self) -> usize {
+        match self {
+            Encoding::Type(t) => t.component_bytes(),
+            Encoding::IntLe { bytes, .. } => *bytes,
+        }
+    }
+
+    /// Only floats can hold NaN or infinity.
+    pub fn is_float(&self) -> bool {
+        matches!(self, Encoding::Type(t) if t.format == SampleFormat::F32)
+    }
+
+    /// The largest positive value a sample can take; at or beyond it (or at
+    /// -1) an integer sample is clipped. Floats have no hard limit, so 1.0.
+    pub fn full_scale_positive(&self) -> f32 {
+        let bits = match self {
+            Encoding::Type(t) => match t.format {
+                SampleFormat::F32 => return 1.0,
+                SampleFormat::I16 => 16,
+                SampleFormat::I8 | SampleFormat::U8 => 8,
+            },
+            Encoding::IntLe { bits, .. } => *bits as i32,
+        };
+        1.0 - 2f32.powi(1 - bits)
+    }
+
+    /// Decode whole components of `bytes`, appending to `out`.
+    pub fn decode(&self, bytes: &[u8], out: &mut Vec<f32>) {
+        match self {
+            Encoding::Type(t) => t.decode(bytes, out),
+            // A 24-bit code shifted into the top of an i32 is sign-extended;
+            // dividing by 2^31 is then exact, as for 32-bit codes up to the
+            // usual f32 rounding.
+            Encoding::IntLe { bytes: 3, .. } => out.extend(
+                bytes
+                    .chunks_exact(3)
+                    .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
+            ),
+            Encoding::IntLe { bits: 24, .. } => out.extend(
+                bytes
+                    .chunks_exact(4)
+                    .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
+            ),
+            Encoding::IntLe { .. } => out.extend(
+                bytes
+                    .chunks_exact(4)
+                    .map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f32 / 2147483648.0),
+            ),
+        }
+    }
+}
+
+/// Everything known about an opened capture.
+#[derive(Clone, Debug)]
+pub struct CaptureInfo {
+    /// The data file as given (or `-` for standard input), for messages.
+    pub path: String,
+    /// The metadata file of a SigMF recording.
+    pub meta_path: Option<String>,
+    pub format: Format,
+    /// A short human description of the sample encoding, e.g. "PCM integer 24-bit".
+    pub encoding_text: String,
+    pub encoding: Encoding,
+    /// Each channel's components are complex (I, Q) rather than one real value.
+    pub complex: bool,
+    pub channels: usize,
+    pub rate: f64,
+    /// Byte offset of the first sample in the data file.
+    pub data_offset: u64,
+    /// Bytes of sample data, when known (not for standard input).
+    pub data_bytes: Option<u64>,
+    /// Centre frequency of the first capture segment (SigMF), Hz.
+    pub frequency: Option<f64>,
+    /// The SigMF metadata as read, annotations included, so a derived
+    /// recording can carry it on.
+    pub sigmf: Option<SigmfMeta>,
+}
+
+impl CaptureInfo {
+    /// Components of one channel per frame: 2 for complex data, 1 for real.
+    pub fn components_per_channel(&self) -> usize {
+        if self.complex { 2 } else { 1 }
+    }
+    /// Components of all channels per frame.
+    pub fn components_per_frame(&self) -> usize {
+        self.channels * self.components_per_channel()
+    }
+    /// Bytes of one frame.
+    pub fn frame_bytes(&self) -> usize {
+        self.components_per_frame() * self.encoding.component_bytes()
+    }
+    /// Frames in the capture, when the length is known.
+    pub fn frames(&self) -> Option<u64> {
+        let fb = self.frame_bytes() as u64;
+        self.data_bytes.map(|b| b.checked_div(fb).unwrap_or(0))
+    }
+    /// Byte offset in the data file of component `component` of frame `frame`.
+    pub fn byte_offset(&self, frame: u64, component: usize) -> u64 {
+        self.data_offset
+            + frame * self.frame_bytes() as u64
+            + (component * self.encoding.component_bytes()) as u64
+    }
+}
+
+/// A capture opened for reading.
+pub trait CaptureReader: Send {
+    fn info(&self) -> &CaptureInfo;
+    /// Read up to `max_frames` frames into `out` (cleared first), decoded and
+    /// channel-interleaved. Returns the number of frames, which may be fewer
+    /// than asked for (reads are capped at [`MAX_READ_BYTES`]); 0 at the end.
+    fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError>;
+    /// Bytes of sample data read so far.
+    fn bytes_read(&self) -> u64;
+}
+
+/// Most bytes one read takes in, so wide frames with a large `max_frames`
+/// cannot make a huge buffer.
+pub const MAX_READ_BYTES: usize = 16 << 20;
+
+/// Frames from any byte stream positioned at the first sample: the one
+/// reading loop behind every format.
+pub struct FrameStream<R> {
+    info: CaptureInfo,
+    inner: R,
+    done_bytes: u64,
+    buf: Vec<u8>,
+}
+
+impl<R: Read + Send> FrameStream<R> {
+    pub fn new(info: CaptureInfo, inner: R) -> Self {
+        FrameStream {
+            info,
+            inner,
+            done_bytes: 0,
+            buf: Vec::new(),
+        }
+    }
+}
+
+impl<R: Read + Send> CaptureReader for FrameStream<R> {
+    fn info(&self) -> &CaptureInfo {
+        &self.info
+    }
+
+    fn bytes_read(&self) -> u64 {
+        self.done_bytes
+    }
+
+    fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
+        out.clear();
+        let frame_bytes = self.info.frame_bytes();
+        let mut want = max_frames
+            .min((MAX_READ_BYTES / frame_bytes.max(1)).max(1))
+            .saturating_mul(frame_bytes);
+        if let Some(total) = self.info.data_bytes {
+            want = want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX));
+        }
+        self.buf.resize(want, 0);
+        let mut got = 0;
+        while got < want {
+            match self.inner.read(&mut self.buf[got..want]) {
+                Ok(0) => break,
+                Ok(n) => got += n,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => {
+                    let at = self.info.data_offset + self.done_bytes + got as u64;
+                    return Err(BlockError::new(format!(
+                        "{}: read failed at byte offset {at}: {e}",
+                        self.info.path
+                    )));
+                }
+            }
+        }
+        let frames = got / frame_bytes.max(1);
+        let whole = frames * frame_bytes;
+        if got < want {
+            // The stream ended early: either the file was cut short of its
+            // stated length, or a stream without a length ended mid-frame.
+            let at = self.info.data_offset + self.done_bytes + got as u64;
+            if let Some(total) = self.info.data_bytes {
+                return Err(BlockError::at(
+                    format!(
+                        "{}: truncated: the data should run to byte offset {} but ends at byte offset {at}",
+                        self.info.path,
+                        self.info.data_offset + total
+                    ),
+                    (self.done_bytes + whole as u64) / frame_bytes as u64,
+                ));
+            }
+            if whole != got {
+                return Err(BlockError::at(
+                    format!(
+                        "{}: the data ends inside a frame: {} byte(s) left over at byte offset {} (a frame is {frame_bytes} bytes)",
+                        self.info.path,
+                        got - whole,
+                        self.info.data_offset + self.done_bytes + whole as u64
+                    ),
+                    (self.done_bytes + whole as u64) / frame_bytes as u64,
+                ));
+            }
+        }
+        self.info.encoding.decode(&self.buf[..whole], out);
+        self.done_bytes += whole as u64;
+        Ok(frames)
+    }
+}
+
+/// Open a capture: `-` is standard input (raw only), otherwise the format is
+/// taken from `opts.format` or guessed from the path.
+pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
+    let format = match opts.format {
+        Format::Auto => guess_format(path, opts)?,
+        f => f,
+    };
+    if path == "-" && format != Format::Raw {
+        return Err(BlockError::new(format!(
+            "standard input can only be read as raw data (format raw with a datatype and a rate), not as {}",
+            format.name()
+        )));
+    }
+    match format {
+        Format::Wav => super::wav::open_wav(path, opts),
+        Format::Sigmf => super::sigmf::open_sigmf(path, opts),
+        Format::Raw if path == "-" => super::stdin::open_stdin(opts),
+        Format::Raw | Format::Auto => super::raw::open_raw(path, opts),
+    }
+}
+
+fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
+    if path == "-" {
+        return Err(BlockError::new(
+            "standard input ('-') needs format raw, a datatype (e.g. cu8) and a rate; the format cannot be guessed from a pipe",
+        ));
+    }
+    let p = Path::new(path);
+    let ext = p
+        .extension()
+        .and_then(|e| e.to_str())
+        .unwrap_or("")
+        .to_ascii_lowercase();
+    match ext.as_str() {
+        "wav" | "wave" => return Ok(Format::Wav),
+        "sigmf-meta" | "sigmf-data" => return Ok(Format::Sigmf),
+        _ => {}
+    }
+    if opts.datatype.is_some() || DataType::parse(&ext).is_ok() {
+        return Ok(Format::Raw);
+    }
+    if super::sigmf::meta_path_for(path).exists() {
+        return Ok(Format::Sigmf);
+    }
+    let mut head = [0u8; 4];
+    let riff = std::fs::File::open(p)
+        .and_then(|mut f| f.read_exact(&mut head))
+        .is_ok()
+        && &head == b"RIFF";
+    if riff {
+        return Ok(Format::Wav);
+    }
+    if !p.exists() {
+        return Err(BlockError::new(format!(
+            "{path}: no such capture file (nor a SigMF recording of that base name)"
+        )));
+    }
+    Err(BlockError::new(format!(
+        "{path}: cannot tell the capture format from the name or the first bytes; set format (wav, sigmf or raw with a datatype)"
+    )))
+}
+
+/// Check a rate given by the user against the file's own, if both exist.
+pub(crate) fn agree_rate(
+    path: &str,
+    given: Option<f64>,
+    from_file: Option<f64>,
+    what: &str,
+) -> Result<f64, BlockError> {
+    match (given, from_file) {
+        (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => {
+            Err(BlockError::new(format!(
+                "{path}: rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
+            )))
+        }
+        (_, Some(f)) if f.is_finite() && f > 0.0 => Ok(f),
+        (_, Some(f)) => Err(BlockError::new(format!(
+            "{path}: {what} gives an unusable sample rate {f}"
+        ))),
+        (Some(g), None) => Ok(g),
+        (None, None) => Err(BlockError::new(format!(
+            "{path}: the sample rate is not in the file; set rate"
+        ))),
+    }
+}
+
+/// Check a channel count given by the user against the file's own.
+pub(crate) fn agree_channels(
+    path: &str,
+    given: Option<usize>,
+    from_file: usize,
+    what: &str,
+) -> Result<usize, BlockError> {
+    match given {
+        Some(g) if g != from_file => Err(BlockError::new(format!(
+            "{path}: channels {g} was given but {what} says {from_file}; leave channels at 0 to use the file's"
+        ))),
+        _ => Ok(from_file),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Cursor;
+
+    fn info(data_bytes: Option<u64>) -> CaptureInfo {
+        CaptureInfo {
+            path: "mem.ci16".into(),
+            meta_path: None,
+            format: Format::Raw,
+            encoding_text: "ci16_le".into(),
+            encoding: Encoding::Type(DataType::parse("ci16_le").unwrap_or(DataType::CF32_LE)),
+            complex: true,
+            channels: 1,
+            rate: 1e3,
+            data_offset: 0,
+            data_bytes,
+            frequency: None,
+            sigmf: None,
+        }
+    }
+
+    fn bytes(codes: &[i16]) -> Vec<u8> {
+        codes.iter().flat_map(|c| c.to_le_bytes()).collect()
+    }
+
+    #[test]
+    fn frames_come_in_blocks_across_reads() {
+        let codes: Vec<i16> = (0..20).map(|k| k * 1000 - 10000).collect();
+        let mut s = FrameStream::new(info(Some(40)), Cursor::new(bytes(&codes)));
+        let mut out = Vec::new();
+        let mut all = Vec::new();
+        while s.read_frames(3, &mut out).unwrap_or(0) > 0 {
+            all.extend_from_slice(&out);
+        }
+        let want: Vec<f32> = codes.iter().map(|&c| f32::from(c) / 32768.0).collect();
+        assert_eq!(all, want);
+        assert_eq!(s.bytes_read(), 40);
+    }
+
+    #[test]
+    fn short_data_is_truncated_and_a_partial_frame_is_refused() {
+        let data = bytes(&[1, 2, 3, 4, 5]);
+        let mut s = FrameStream::new(info(Some(16)), Cursor::new(data.clone()));
+        let e = s.read_frames(10, &mut Vec::new()).unwrap_err();
+        assert!(
+            e.message.contains("truncated") && e.message.contains("byte offset 10"),
+            "{e}"
+        );
+        assert_eq!(e.at_sample, Some(2));
+        let mut s = FrameStream::new(info(None), Cursor::new(data));
+        let mut out = Vec::new();
+        let e = s.read_frames(10, &mut out).unwrap_err();
+        assert!(
+            e.message.contains("2 byte(s) left over at byte offset 8"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn full_scale_of_each_encoding() {
+        assert_eq!(
+            Encoding::IntLe { bytes: 3, bits: 24 }.full_scale_positive(),
+            1.0 - 1.0 / 8388608.0
+        );
+        assert_eq!(
+            Encoding::Type(DataType::parse("cu8").unwrap_or(DataType::CF32_LE))
+                .full_scale_positive(),
+            127.0 / 128.0
+        );
+        assert_eq!(Encoding::Type(DataType::CF32_LE).full_scale_positive(), 1.0);
+    }
+}

@@ -1,0 +1,260 @@
+//! The channel-role map: which channel of a capture is the signal (I and Q,
+//! or a complex `iq` channel), the switch sync and the transmit trigger, and
+//! the assembly of decoded frames into [`SampleChunk`]s.
+
+use super::reader::CaptureInfo;
+use lobeflow_blocks::{BlockError, SampleChunk, Stamp};
+use num_complex::Complex32;
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Role {
+    /// In-phase part of the signal (real channels).
+    I,
+    /// Quadrature part of the signal (real channels).
+    Q,
+    /// The whole complex signal (complex channels).
+    Iq,
+    /// Switch sync; a complex channel gives its real part.
+    Sync,
+    /// Transmit trigger; a complex channel gives its real part.
+    Trigger,
+    Ignore,
+}
+
+impl Role {
+    pub fn name(&self) -> &'static str {
+        match self {
+            Role::I => "i",
+            Role::Q => "q",
+            Role::Iq => "iq",
+            Role::Sync => "sync",
+            Role::Trigger => "trigger",
+            Role::Ignore => "-",
+        }
+    }
+}
+
+/// What to do with NaN or infinite samples.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum NonFinite {
+    Error,
+    /// Replace by 0 and count.
+    Zero,
+}
+
+impl NonFinite {
+    pub fn parse(name: &str) -> Result<NonFinite, String> {
+        match name {
+            "error" => Ok(NonFinite::Error),
+            "zero" => Ok(NonFinite::Zero),
+            other => Err(format!("nonfinite must be error or zero, not '{other}'")),
+        }
+    }
+}
+
+/// Non-finite samples replaced so far.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Replaced {
+    pub count: u64,
+    pub first_sample: Option<u64>,
+}
+
+/// Channel roles checked against a capture's channels.
+#[derive(Clone, Debug)]
+pub struct RoleMap {
+    roles: Vec<Role>,
+    /// Component index within a frame of each output.
+    i: usize,
+    q: Option<usize>,
+    sync: Option<usize>,
+    trigger: Option<usize>,
+    stride: usize,
+}
+
+/// The roles used when none are given, or None when the count needs them spelled out.
+pub fn default_roles(channels: usize, complex: bool) -> Option<Vec<Role>> {
+    use Role::*;
+    let r: &[Role] = match (complex, channels) {
+        (false, 1) => &[I],
+        (false, 2) => &[I, Q],
+        (false, 3) => &[I, Q, Sync],
+        (false, 4) => &[I, Q, Sync, Trigger],
+        (true, 1) => &[Iq],
+        (true, 2) => &[Iq, Sync],
+        (true, 3) => &[Iq, Sync, Trigger],
+        _ => return None,
+    };
+    Some(r.to_vec())
+}
+
+impl RoleMap {
+    /// Check `names` (empty or `auto` for the default) against `info`.
+    pub fn new(names: &[String], info: &CaptureInfo) -> Result<RoleMap, String> {
+        let channels = info.channels;
+        let complex = info.complex;
+        let kind = if complex { "complex" } else { "real" };
+        let allowed = if complex {
+            "iq, sync, trigger, -"
+        } else {
+            "i, q, sync, trigger, -"
+        };
+        let listing = channel_listing(channels, complex);
+        let src = info.meta_path.as_deref().unwrap_or(&info.path);
+        let auto = names.is_empty() || (names.len() == 1 && names[0] == "auto");
+        let roles = if auto {
+            default_roles(channels, complex).ok_or_else(|| {
+                format!("{src}: {channels} {kind} channels ({listing}) have no default roles; set roles, one of {allowed} per channel")
+            })?
+        } else {
+            if names.len() != channels {
+                return Err(format!(
+                    "{src}: roles '{}' name {} channel(s) but the capture has {channels} {kind} channel(s): {listing}; give one of {allowed} per channel",
+                    names.join(","),
+                    names.len()
+                ));
+            }
+            let mut v = Vec::with_capacity(names.len());
+            for (k, n) in names.iter().enumerate() {
+                let role = match (n.as_str(), complex) {
+                    ("i", false) => Role::I,
+                    ("q", false) => Role::Q,
+                    ("iq", true) => Role::Iq,
+                    ("sync", _) => Role::Sync,
+                    ("trigger", _) => Role::Trigger,
+                    ("-", _) => Role::Ignore,
+                    _ => {
+                        return Err(format!(
+                            "{src}: role '{n}' for channel {} does not fit {kind} channels (allowed: {allowed}); the capture has {listing}",
+                            k + 1
+                        ));
+                    }
+                };
+                v.push(role);
+            }
+            v
+        };
+        let cpc = if complex { 2 } else { 1 };
+        let find = |role: Role| -> Result<Option<usize>, String> {
+            let at: Vec<usize> = roles
+                .iter()
+                .enumerate()
+                .filter(|(_, r)| **r == role)
+                .map(|(k, _)| k)
+                .collect();
+            if at.len() > 1 {
+                let chans: Vec<String> = at.iter().map(|k| (k + 1).to_string()).collect();
+                return Err(format!(
+                    "{src}: role '{}' is given to channels {}; each role may be used once",
+                    role.name(),
+                    chans.join(" and ")
+                ));
+            }
+            Ok(at.first().map(|k| k * cpc))
+        };
+        let signal = if complex { Role::Iq } else { Role::I };
+        let i = find(signal)?.ok_or_else(|| {
+            format!(
+                "{src}: no channel has role '{}' ({listing}); the signal is needed",
+                signal.name()
+            )
+        })?;
+        let q = if complex { Some(i + 1) } else { find(Role::Q)? };
+        let sync = find(Role::Sync)?;
+        let trigger = find(Role::Trigger)?;
+        Ok(RoleMap {
+            roles,
+            i,
+            q,
+            sync,
+            trigger,
+            stride: channels * cpc,
+        })
+    }
+
+    pub fn roles(&self) -> &[Role] {
+        &self.roles
+    }
+
+    pub fn has_sync(&self) -> bool {
+        self.sync.is_some()
+    }
+
+    /// "ch1=i ch2=q ch3=sync".
+    pub fn describe(&self) -> String {
+        let parts: Vec<String> = self
+            .roles
+            .iter()
+            .enumerate()
+            .map(|(k, r)| format!("ch{}={}", k + 1, r.name()))
+            .collect();
+        parts.join(" ")
+    }
+
+    /// Build a chunk from `frames` (decoded, interleaved) starting at sample
+    /// `first`. Non-finite values in used components follow `policy`.
+    pub fn chunk(
+        &self,
+        frames: &[f32],
+        first: u64,
+        info: &CaptureInfo,
+        policy: NonFinite,
+        replaced: &mut Replaced,
+    ) -> Result<SampleChunk, BlockError> {
+        let n = frames.len() / self.stride;
+        let mut iq = Vec::with_capacity(n);
+        let mut sync = self.sync.map(|_| Vec::with_capacity(n));
+        let mut trigger = self.trigger.map(|_| Vec::with_capacity(n));
+        let check = info.encoding.is_float();
+        for (k, f) in frames.chunks_exact(self.stride).enumerate() {
+            let mut take = |c: usize| -> Result<f32, BlockError> {
+                let v = f[c];
+                if !check || v.is_finite() {
+                    return Ok(v);
+                }
+                let sample = first + k as u64;
+                match policy {
+                    NonFinite::Zero => {
+                        replaced.count += 1;
+                        replaced.first_sample.get_or_insert(sample);
+                        Ok(0.0)
+                    }
+                    NonFinite::Error => Err(BlockError::at(
+                        format!(
+                            "{}: non-finite value ({v}) at sample {sample}, channel {}, byte offset {}; set nonfinite: zero to replace such values by 0",
+                            info.path,
+                            c / info.components_per_channel() + 1,
+                            info.byte_offset(sample, c)
+                        ),
+                        sample,
+                    )),
+                }
+            };
+            let re = take(self.i)?;
+            let im = match self.q {
+                Some(c) => take(c)?,
+                None => 0.0,
+            };
+            iq.push(Complex32::new(re, im));
+            if let (Some(c), Some(s)) = (self.sync, sync.as_mut()) {
+                s.push(take(c)?);
+            }
+            if let (Some(c), Some(t)) = (self.trigger, trigger.as_mut()) {
+                t.push(take(c)?);
+            }
+        }
+        Ok(SampleChunk {
+            stamp: Stamp::new(first, info.rate),
+            iq: iq.into(),
+            sync: sync.map(Into::into),
+            trigger: trigger.map(Into::into),
+        })
+    }
+}
+
+fn channel_listing(channels: usize, complex: bool) -> String {
+    let kind = if complex { " (complex)" } else { "" };
+    let parts: Vec<String> = (1..=channels)
+        .map(|k| format!("channel {k}{kind}"))
+        .collect();
+    parts.join(", ")
+}

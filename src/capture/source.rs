@@ -1,0 +1,322 @@
+//! `capture_source`: reads a capture (WAV, SigMF, raw file or standard input)
+//! and emits its samples in chunks, stamped from sample 0 at the file's rate.
+
+use super::reader::{CaptureReader, Format, OpenOptions, open};
+use super::roles::{NonFinite, Replaced, RoleMap};
+use lobeflow_blocks::{
+    Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType,
+    Params, PortSpec, Stamp, Unit,
+};
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "capture_source",
+    doc: "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
+    inputs: &[],
+    outputs: &[PortSpec::optional(
+        "samples",
+        ItemKind::Samples,
+        "the capture's samples, from sample 0",
+    )],
+    params: &[
+        ParamSpec {
+            name: "path",
+            ty: ParamType::InputPath,
+            default: None,
+            doc: "capture file; a SigMF recording by either file or its base name; '-' reads standard input",
+        },
+        ParamSpec {
+            name: "format",
+            ty: ParamType::Choice(&["auto", "wav", "sigmf", "raw"]),
+            default: Some("auto"),
+            doc: "container; auto decides from the name or the first bytes (standard input needs raw)",
+        },
+        ParamSpec {
+            name: "datatype",
+            ty: ParamType::Text,
+            default: Some("auto"),
+            doc: "SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, rf32_le, ...); auto = from the file or its extension",
+        },
+        ParamSpec {
+            name: "rate",
+            ty: ParamType::Number {
+                unit: Unit::SampleRate,
+                min: 0.0,
+                max: 1e11,
+            },
+            default: Some("0"),
+            doc: "sample rate; 0 = from the file (raw data needs it); a value the file contradicts is an error",
+        },
+        ParamSpec {
+            name: "channels",
+            ty: ParamType::Integer { min: 0, max: 64 },
+            default: Some("0"),
+            doc: "channels in the file; 0 = from the file (1 for raw data)",
+        },
+        ParamSpec {
+            name: "roles",
+            ty: ParamType::Names,
+            default: Some("auto"),
+            doc: "role of each channel: i, q, sync, trigger or - for real channels; iq, sync, trigger or - for complex ones; auto = by channel count",
+        },
+        ParamSpec {
+            name: "chunk",
+            ty: ParamType::Integer {
+                min: 1,
+                max: 1 << 22,
+            },
+            default: Some("65536"),
+            doc: "samples per emitted chunk",
+        },
+        ParamSpec {
+            name: "nonfinite",
+            ty: ParamType::Choice(&["error", "zero"]),
+            default: Some("error"),
+            doc: "NaN or infinite samples: stop with an error, or replace them by 0 and report the count",
+        },
+    ],
+    build,
+};
+
+/// The reader options the parameters describe (shared with `lobeflow inspect`).
+pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
+    let datatype = p.text("datatype")?;
+    let rate = p.num("rate")?;
+    let channels = p.int("channels")?;
+    Ok(OpenOptions {
+        format: Format::parse(p.text("format")?)?,
+        datatype: (datatype != "auto" && !datatype.is_empty()).then(|| datatype.to_string()),
+        rate: (rate > 0.0).then_some(rate),
+        channels: (channels > 0).then_some(channels as usize),
+    })
+}
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let path = p.text("path")?;
+    let reader = open(path, &open_options(p)?).map_err(|e| e.to_string())?;
+    let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
+    Ok(Box::new(CaptureSource::new(
+        reader,
+        roles,
+        p.int("chunk")? as usize,
+        NonFinite::parse(p.text("nonfinite")?)?,
+    )))
+}
+
+pub struct CaptureSource {
+    reader: Box<dyn CaptureReader>,
+    roles: RoleMap,
+    chunk: usize,
+    nonfinite: NonFinite,
+    replaced: Replaced,
+    next: u64,
+    frames: Vec<f32>,
+    part: Vec<f32>,
+    /// SigMF capture segments after the first: (first sample, centre frequency).
+    segments: Vec<(u64, Option<f64>)>,
+    segments_seen: usize,
+}
+
+/// Segment-start notices shown one by one before the rest are only counted.
+const SEGMENT_NOTICES: usize = 10;
+
+fn later_segments(reader: &dyn CaptureReader) -> Vec<(u64, Option<f64>)> {
+    let Some(meta) = &reader.info().sigmf else {
+        return Vec::new();
+    };
+    meta.captures
+        .iter()
+        .skip(1)
+        .map(|c| (c.sample_start, c.frequency))
+        .collect()
+}
+
+impl CaptureSource {
+    /// A source over an opened reader (for embedding and tests).
+    pub fn new(
+        reader: Box<dyn CaptureReader>,
+        roles: RoleMap,
+        chunk: usize,
+        nonfinite: NonFinite,
+    ) -> Self {
+        CaptureSource {
+            roles,
+            chunk: chunk.max(1),
+            nonfinite,
+            replaced: Replaced::default(),
+            next: 0,
+            frames: Vec::new(),
+            part: Vec::new(),
+            segments: later_segments(reader.as_ref()),
+            segments_seen: 0,
+            reader,
+        }
+    }
+
+    /// Tell of SigMF capture segments (e.g. a retune) starting in the next `n` samples.
+    fn segment_notices(&mut self, n: u64, out: &mut Outputs) {
+        let info = self.reader.info();
+        while let Some(&(start, freq)) = self.segments.get(self.segments_seen) {
+            if start >= self.next + n {
+                break;
+            }
+            self.segments_seen += 1;
+            if self.segments_seen <= SEGMENT_NOTICES {
+                let f = freq
+                    .map(|f| format!(", centre frequency {f} Hz"))
+                    .unwrap_or_default();
+                out.notice(
+                    Stamp::new(start, info.rate),
+                    format!(
+                        "{}: capture segment {} starts at sample {start}{f}",
+                        info.meta_path.as_deref().unwrap_or(&info.path),
+                        self.segments_seen + 1
+                    ),
+                );
+            }
+        }
+    }
+
+    /// Non-finite samples replaced by 0 so far.
+    pub fn replaced(&self) -> Replaced {
+        self.replaced
+    }
+}
+
+impl Block for CaptureSource {
+    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        // A reader may return fewer frames than asked; fill the chunk.
+        let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
+        while n > 0 && n < self.chunk {
+            let more = self.reader.read_frames(self.chunk - n, &mut self.part)?;
+            if more == 0 {
+                break;
+            }
+            self.frames.extend_from_slice(&self.part);
+            n += more;
+        }
+        self.segment_notices(n as u64, out);
+        if n == 0 {
+            let unseen = self.segments.len() - self.segments_seen;
+            if self.segments_seen > SEGMENT_NOTICES || unseen > 0 {
+                let info = self.reader.info();
+                out.notice(
+                    Stamp::new(self.next, info.rate),
+                    format!(
+                        "{}: {} capture segments after the first ({unseen} starting at or past the end of the data)",
+                        info.meta_path.as_deref().unwrap_or(&info.path),
+                        self.segments.len()
+                    ),
+                );
+            }
+            if self.replaced.count > 0 {
+                let info = self.reader.info();
+                let first = self.replaced.first_sample.unwrap_or(0);
+                out.notice(
+                    Stamp::new(first, info.rate),
+                    format!(
+                        "{}: replaced {} non-finite value(s) by 0, the first at sample {first}",
+                        info.path, self.replaced.count
+                    ),
+                );
+            }
+            return Ok(false);
+        }
+        let chunk = self.roles.chunk(
+            &self.frames,
+            self.next,
+            self.reader.info(),
+            self.nonfinite,
+            &mut self.replaced,
+        )?;
+        self.next += n as u64;
+        out.push(0, Item::Samples(chunk));
+        Ok(true)
+    }
+
+    fn progress(&self) -> Option<(u64, u64)> {
+        let total = self.reader.info().data_bytes?;
+        Some((self.reader.bytes_read(), total))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::capture::reader::{CaptureInfo, Encoding};
+    use crate::capture::{DataType, Format};
+
+    /// Hands out at most 7 real frames per read, like a slow pipe.
+    struct Trickle {
+        info: CaptureInfo,
+        left: usize,
+        next: f32,
+    }
+
+    impl CaptureReader for Trickle {
+        fn info(&self) -> &CaptureInfo {
+            &self.info
+        }
+        fn read_frames(&mut self, max: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
+            out.clear();
+            let n = max.min(7).min(self.left);
+            for _ in 0..n {
+                out.push(self.next);
+                self.next += 1.0;
+            }
+            self.left -= n;
+            Ok(n)
+        }
+        fn bytes_read(&self) -> u64 {
+            0
+        }
+    }
+
+    #[test]
+    fn short_reads_still_fill_whole_chunks() {
+        let info = CaptureInfo {
+            path: "pipe".into(),
+            meta_path: None,
+            format: Format::Raw,
+            encoding_text: "rf32_le".into(),
+            encoding: Encoding::Type(DataType {
+                complex: false,
+                ..DataType::CF32_LE
+            }),
+            complex: false,
+            channels: 1,
+            rate: 100.0,
+            data_offset: 0,
+            data_bytes: None,
+            frequency: None,
+            sigmf: None,
+        };
+        let roles = RoleMap::new(&[], &info).unwrap_or_else(|e| panic!("{e}"));
+        let mut src = CaptureSource::new(
+            Box::new(Trickle {
+                info,
+                left: 45,
+                next: 0.0,
+            }),
+            roles,
+            20,
+            NonFinite::Error,
+        );
+        let mut out = Outputs::new(1);
+        while src.generate(&mut out).unwrap_or(false) {}
+        let chunks: Vec<_> = out
+            .drain()
+            .filter_map(|(_, i)| {
+                if let Item::Samples(c) = i {
+                    Some(c)
+                } else {
+                    None
+                }
+            })
+            .collect();
+        let lens: Vec<usize> = chunks.iter().map(|c| c.len()).collect();
+        assert_eq!(lens, [20, 20, 5]);
+        assert_eq!(chunks[2].stamp.index, 40);
+        assert_eq!(chunks[2].iq[4].re, 44.0);
+        assert_eq!(src.progress(), None, "no length, no progress");
+    }
+}
