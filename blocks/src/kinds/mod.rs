@@ -2,10 +2,12 @@
 //! a `pub const SPEC: BlockSpec`, declare it here and list it in [`ALL`].
 
 pub mod discard;
+pub mod gate_common;
+pub mod lobe_gate;
 pub mod pass;
 pub mod test_tone;
 
 use crate::block::BlockSpec;
 
 /// Every standard kind, registered by [`crate::standard_registry`].
-pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC];
+pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC, lobe_gate::SPEC];
