@@ -2,3 +2,4 @@
 pub mod beam;
 pub mod rng;
 pub mod switch_sync;
+pub mod pulse_timing;

@@ -5,9 +5,11 @@ pub mod discard;
 pub mod gate_common;
 pub mod lobe_gate;
 pub mod pass;
+pub mod pulse_framer;
+pub mod sweep_gate;
 pub mod test_tone;
 
 use crate::block::BlockSpec;
 
 /// Every standard kind, registered by [`crate::standard_registry`].
-pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC, lobe_gate::SPEC];
+pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC, lobe_gate::SPEC, sweep_gate::SPEC, pulse_framer::SPEC];
