@@ -9,7 +9,7 @@
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::lobe_gate;
 use lobeflow_blocks::{
-    Block, BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp,
+    BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp,
 };
 use num_complex::Complex32;
 
@@ -134,7 +134,7 @@ fn run(
         port_notices: Vec::new(),
         report: Vec::new(),
     };
-    let mut collect = |out: &mut Outputs, r: &mut Run| {
+    let collect = |out: &mut Outputs, r: &mut Run| {
         for (port, item) in out.drain() {
             match (port, item) {
                 (0, Item::Segment(seg)) => {

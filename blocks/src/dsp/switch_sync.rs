@@ -449,7 +449,7 @@ impl SyncTracker {
         let old = self.current;
         let names = self.settings.names.clone();
         if self.dwell_from_switch {
-            let len = at - self.dwell_start;
+            let len = at.saturating_sub(self.dwell_start);
             if let Some(expected) = self.expected_dwell() {
                 let tol = self.settings.tolerance;
                 if (len as f64 - expected).abs() > tol * expected {
@@ -502,8 +502,10 @@ impl SyncTracker {
         if self.stuck_reported {
             return;
         }
-        if let Some(expected) = self.expected_dwell() {
-            if (n - self.dwell_start) as f64 > STUCK_DWELLS * expected {
+        if let Some(expected) = self.expected_dwell()
+            && n.saturating_sub(self.dwell_start) as f64 > STUCK_DWELLS * expected
+        {
+            {
                 self.stuck_reported = true;
                 let start = self.dwell_start;
                 let name = self.settings.names[self.current].clone();
@@ -534,7 +536,7 @@ pub struct ScheduleTracker {
 
 impl ScheduleTracker {
     pub fn new(settings: ScheduleSettings) -> Result<ScheduleTracker, String> {
-        if !(settings.dwell >= 1.0) {
+        if settings.dwell.is_nan() || settings.dwell < 1.0 {
             return Err(format!(
                 "schedule dwell is {:.3} samples; it must be at least one sample (set 'dwell')",
                 settings.dwell
@@ -610,7 +612,7 @@ enum Stage {
         settings: SyncSettings,
         values: Vec<f32>,
     },
-    Sync(SyncTracker),
+    Sync(Box<SyncTracker>),
     Schedule(ScheduleTracker),
 }
 
@@ -662,7 +664,7 @@ impl SwitchSync {
     pub fn end_learning(&mut self) -> Result<(), String> {
         if let Stage::Learning { settings, values } = &self.stage {
             let levels = learn_levels(values, settings.names.len())?;
-            self.stage = Stage::Sync(SyncTracker::new(settings.clone(), levels));
+            self.stage = Stage::Sync(Box::new(SyncTracker::new(settings.clone(), levels)));
         }
         Ok(())
     }
@@ -672,6 +674,10 @@ impl SwitchSync {
         match &mut self.stage {
             Stage::Learning { .. } => Err("switch sync fed before its levels were learned".into()),
             Stage::Sync(t) => match sync {
+                Some(s) if s.len() != len => Err(format!(
+                    "the sync channel has {} samples where the IQ has {len}, from sample {index}",
+                    s.len()
+                )),
                 Some(s) => {
                     t.feed(index, s);
                     Ok(())

@@ -189,7 +189,7 @@ impl PulseFramer {
     fn set_up(&mut self, first: Stamp) -> Result<(), BlockError> {
         let rate = first.rate;
         let pri = rate / self.prf;
-        if !(pri >= 2.0) {
+        if pri.is_nan() || pri < 2.0 {
             return Err(BlockError::new(format!(
                 "prf {} Hz gives a pulse interval of {pri:.2} samples at {rate} S/s; it must be at least 2",
                 self.prf
@@ -262,6 +262,15 @@ impl PulseFramer {
                     start,
                 ));
             }
+            (_, Some(t)) if t.len() != len => {
+                return Err(BlockError::at(
+                    format!(
+                        "the trigger channel has {} samples where the IQ has {len}",
+                        t.len()
+                    ),
+                    start,
+                ));
+            }
             (_, t) => t.clone(),
         };
         self.pending.push_back(chunk.clone());
@@ -292,10 +301,10 @@ impl PulseFramer {
                 self.prev_above = above;
                 if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
                     self.instant(n, false, out);
-                } else if let Some((l, _)) = self.last {
-                    if n - l > gap {
-                        self.instant(l + pri.round() as u64, true, out);
-                    }
+                } else if let Some((l, _)) = self.last
+                    && n - l > gap
+                {
+                    self.instant(l + pri.round() as u64, true, out);
                 }
             }
         }
@@ -491,11 +500,10 @@ impl Block for PulseFramer {
             return Ok(());
         };
         match self.last {
-            Some((from, predicted)) => {
-                if end.index > from {
-                    self.emit(from, end.index, predicted, out);
-                }
+            Some((from, predicted)) if end.index > from => {
+                self.emit(from, end.index, predicted, out)
             }
+            Some(_) => {}
             None if self.mode != Mode::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));
             }
