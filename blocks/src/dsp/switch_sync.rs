@@ -189,7 +189,7 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
         let list: Vec<String> = levels.iter().map(|l| format!("{l:.3}")).collect();
         return Err(format!(
             "found {} sync levels in the learning window ({}), expected {lobes}, one per lobe; \
-             check the 'lobes' list and the sync channel",
+             check the 'lobes' list, the sync channel, and that 'learn' covers a full lobe cycle",
             levels.len(),
             list.join(", ")
         ));
@@ -808,6 +808,33 @@ mod tests {
         assert!(e.contains("sync channel is flat"), "{e}");
         let e = learn_levels(&[0.5; 100], 2).unwrap_err();
         assert!(e.contains("sync channel is flat"), "{e}");
+    }
+
+    #[test]
+    fn glitches_and_excursions_inside_the_hysteresis_do_not_switch() {
+        let settings = SyncSettings {
+            names: names(2),
+            learn: 0,
+            hysteresis: 0.2,
+            min_dwell: 20,
+            expected_dwell: None,
+            tolerance: 0.25,
+        };
+        let mut t = SyncTracker::new(settings, vec![0.0, 1.0]);
+        let mut v = vec![0.0f32; 3000];
+        v[500..510].fill(1.0); // shorter than min_dwell
+        v[1000..1200].fill(0.58); // past the midpoint, short of the 0.6 hysteresis margin
+        v[2000..].fill(1.0);
+        t.feed(0, &v[..1100]);
+        // A switch could still be placed at the midpoint crossing: nothing after it is decided.
+        assert_eq!(t.settled(), 1000);
+        t.feed(1100, &v[1100..]);
+        assert_eq!(t.settled(), 3000);
+        let events: Vec<SwitchEvent> = std::iter::from_fn(|| t.pop_event()).collect();
+        assert_eq!(events.len(), 3, "{events:?}");
+        assert_eq!(events[0], SwitchEvent::Begin { at: 0, lobe: 0, switch_at: None });
+        assert!(matches!(&events[1], SwitchEvent::Irregular { at: 1000, kind: Irregularity::Stray, .. }));
+        assert_eq!(events[2], SwitchEvent::Switch { at: 2000, lobe: 1 });
     }
 
     #[test]

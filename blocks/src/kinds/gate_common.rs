@@ -170,14 +170,14 @@ pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
         ParamSpec {
             name: "min_dwell",
             ty: time(0.0, pulses),
-            default: Some("50 us"),
-            doc: "a new sync level must hold this long to count as a switch",
+            default: Some("100 us"),
+            doc: "a new sync level must hold this long to count as a switch (longer than a switch ramp)",
         },
         ParamSpec {
             name: "learn",
             ty: time(0.0, pulses),
-            default: Some("50 ms"),
-            doc: "sync data used to learn the levels (at most 4 Mi samples)",
+            default: Some("200 ms"),
+            doc: "sync data used to learn the levels: at least one full lobe cycle (at most 4 Mi samples)",
         },
         ParamSpec {
             name: "tolerance",
