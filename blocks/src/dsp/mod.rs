@@ -3,3 +3,5 @@ pub mod beam;
 pub mod discriminator;
 pub mod rng;
 pub mod tracking;
+pub mod switch_sync;
+pub mod pulse_timing;

@@ -1,0 +1,855 @@
+//! Switch-sync tracking: which lobe is active at every sample, and the exact
+//! sample index of each switch instant, from a recorded sync staircase or a
+//! known schedule. Shared by the gate blocks; no block code here.
+//!
+//! Sync staircase convention: the lobe at position `i` of the configured
+//! order has the `i`-th lowest sync level. The levels are learned from the
+//! data (histogram peaks, refined by trimmed means), so rigs with other
+//! voltages work as long as the order holds.
+
+use std::collections::VecDeque;
+use std::sync::Arc;
+
+/// Kinds of irregularity, so callers can rate-limit each kind separately.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Irregularity {
+    /// A dwell far shorter or longer than expected.
+    DwellLength,
+    /// The sync stayed at one level for several dwells.
+    Stuck,
+    /// The sync value matched no lobe level for a while.
+    Stray,
+    /// A lobe came out of the configured order (missing transition).
+    Order,
+}
+
+impl Irregularity {
+    pub const ALL: [Irregularity; 4] = [
+        Irregularity::DwellLength,
+        Irregularity::Stuck,
+        Irregularity::Stray,
+        Irregularity::Order,
+    ];
+
+    pub fn label(&self) -> &'static str {
+        match self {
+            Irregularity::DwellLength => "irregular dwell length",
+            Irregularity::Stuck => "stuck sync",
+            Irregularity::Stray => "sync value matching no lobe",
+            Irregularity::Order => "lobe out of order",
+        }
+    }
+}
+
+/// What the tracker found, in sample order.
+#[derive(Clone, Debug, PartialEq)]
+pub enum SwitchEvent {
+    /// The first sample seen: lobe active there. `switch_at` is the switch
+    /// instant that began this dwell when it is known (schedules), possibly
+    /// before the capture start (negative).
+    Begin {
+        at: u64,
+        lobe: usize,
+        switch_at: Option<i64>,
+    },
+    /// A switch instant: from sample `at` on, `lobe` is active.
+    Switch { at: u64, lobe: usize },
+    /// Something a person should know, at sample `at`.
+    Irregular {
+        at: u64,
+        kind: Irregularity,
+        what: String,
+    },
+}
+
+/// Settings of the sync-channel tracker, in samples.
+#[derive(Clone, Debug)]
+pub struct SyncSettings {
+    pub names: Vec<Arc<str>>,
+    /// Samples to learn the levels from (bounded by [`MAX_LEARN_SAMPLES`]).
+    pub learn: usize,
+    /// Switch only when nearer another level by this fraction of the spacing.
+    pub hysteresis: f64,
+    /// A new level must hold this many samples to count as a switch.
+    pub min_dwell: usize,
+    /// Expected dwell length; `None` = median of the dwells seen.
+    pub expected_dwell: Option<f64>,
+    /// Allowed relative deviation of a dwell from the expected length.
+    pub tolerance: f64,
+}
+
+/// Settings of a known switch schedule, in samples.
+#[derive(Clone, Debug)]
+pub struct ScheduleSettings {
+    pub names: Vec<Arc<str>>,
+    /// Sample position (may be fractional or negative) where lobe 0's dwell starts.
+    pub first_start: f64,
+    /// Dwell length in samples (may be fractional).
+    pub dwell: f64,
+}
+
+/// Upper bound of the learning window, so memory stays bounded.
+pub const MAX_LEARN_SAMPLES: usize = 1 << 22;
+/// A dwell longer than this many expected dwells means a stuck sync.
+const STUCK_DWELLS: f64 = 3.0;
+/// Dwell lengths kept for the running median.
+const DWELL_HISTORY: usize = 31;
+/// A value farther than this fraction of the level spacing from every level matches no lobe.
+const STRAY_FRACTION: f64 = 0.3;
+
+/// Learn `lobes` sync levels (ascending) from `values`.
+///
+/// Levels are the peaks of a smoothed histogram that are separated by a deep
+/// valley and hold a fair share of the samples; each is then refined to the
+/// mean of the samples within a quarter spacing of it.
+pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
+    const BINS: usize = 256;
+    let finite: Vec<f64> = values
+        .iter()
+        .filter(|v| v.is_finite())
+        .map(|&v| v as f64)
+        .collect();
+    if finite.len() < 16 {
+        return Err(format!(
+            "too few sync samples to learn the levels ({} usable); make 'learn' longer",
+            finite.len()
+        ));
+    }
+    let lo = finite.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let flat_msg = |near: f64| {
+        format!(
+            "sync channel is flat in the learning window ({} samples, all near {near:.4}): no transitions, \
+             so no lobe levels to learn; check the channel map, or use timing: schedule",
+            finite.len()
+        )
+    };
+    if hi - lo <= 1e-6 * (1.0 + lo.abs().max(hi.abs())) {
+        return Err(flat_msg(lo));
+    }
+    let width = (hi - lo) / BINS as f64;
+    let bin_of = |v: f64| (((v - lo) / width) as usize).min(BINS - 1);
+    let mut counts = [0f64; BINS];
+    for &v in &finite {
+        counts[bin_of(v)] += 1.0;
+    }
+    let kernel = [1.0, 2.0, 3.0, 2.0, 1.0];
+    let smooth: Vec<f64> = (0..BINS)
+        .map(|i| {
+            kernel
+                .iter()
+                .enumerate()
+                .filter_map(|(k, w)| {
+                    (i + k)
+                        .checked_sub(2)
+                        .filter(|&j| j < BINS)
+                        .map(|j| w * counts[j])
+                })
+                .sum::<f64>()
+                / 9.0
+        })
+        .collect();
+    let mut peaks: Vec<usize> = (0..BINS)
+        .filter(|&i| {
+            let left = if i == 0 { 0.0 } else { smooth[i - 1] };
+            let right = if i + 1 == BINS { 0.0 } else { smooth[i + 1] };
+            smooth[i] > left && smooth[i] >= right
+        })
+        .collect();
+    peaks.sort_by(|&a, &b| smooth[b].total_cmp(&smooth[a]));
+    let min_mass = (0.05 * finite.len() as f64 / lobes as f64).max(8.0);
+    let mass = |p: usize| {
+        counts[p.saturating_sub(3)..(p + 4).min(BINS)]
+            .iter()
+            .sum::<f64>()
+    };
+    let mut accepted: Vec<usize> = Vec::new();
+    for p in peaks {
+        if mass(p) < min_mass {
+            continue;
+        }
+        let distinct = accepted.iter().all(|&a| {
+            let (x, y) = (a.min(p), a.max(p));
+            let valley = smooth[x..=y].iter().copied().fold(f64::INFINITY, f64::min);
+            valley < 0.5 * smooth[a].min(smooth[p])
+        });
+        if distinct {
+            accepted.push(p);
+        }
+    }
+    accepted.sort_unstable();
+    let mut levels: Vec<f64> = accepted
+        .iter()
+        .map(|&b| lo + (b as f64 + 0.5) * width)
+        .collect();
+    if levels.len() == 1 {
+        return Err(flat_msg(levels[0]));
+    }
+    if levels.len() != lobes {
+        let list: Vec<String> = levels.iter().map(|l| format!("{l:.3}")).collect();
+        return Err(format!(
+            "found {} sync levels in the learning window ({}), expected {lobes}, one per lobe; \
+             check the 'lobes' list, the sync channel, and that 'learn' covers a full lobe cycle",
+            levels.len(),
+            list.join(", ")
+        ));
+    }
+    for _ in 0..3 {
+        let spacing = min_spacing(&levels);
+        let mut refined = levels.clone();
+        for (r, &l) in refined.iter_mut().zip(&levels) {
+            let (mut sum, mut n) = (0.0, 0usize);
+            for &v in &finite {
+                if (v - l).abs() <= 0.25 * spacing {
+                    sum += v;
+                    n += 1;
+                }
+            }
+            if n > 0 {
+                *r = sum / n as f64;
+            }
+        }
+        levels = refined;
+    }
+    Ok(levels)
+}
+
+fn min_spacing(levels: &[f64]) -> f64 {
+    levels
+        .windows(2)
+        .map(|w| (w[1] - w[0]).abs())
+        .fold(f64::INFINITY, f64::min)
+}
+
+fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
+    let mut v: Vec<u64> = values.collect();
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_unstable();
+    let m = v.len() / 2;
+    Some(if v.len() % 2 == 1 {
+        v[m] as f64
+    } else {
+        (v[m - 1] + v[m]) as f64 / 2.0
+    })
+}
+
+fn lobe_list(names: &[Arc<str>], from: usize, count: usize) -> String {
+    (0..count)
+        .map(|k| names[(from + k) % names.len()].to_string())
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Classifies a sync channel sample by sample, after the levels are learned.
+pub struct SyncTracker {
+    settings: SyncSettings,
+    levels: Vec<f64>,
+    margin: f64,
+    stray_distance: f64,
+    stray_limit: u64,
+    max_hold: u64,
+    started: bool,
+    current: usize,
+    pending: usize,
+    pending_since: u64,
+    /// Per level: whether the value is past the midpoint between the current level and it.
+    past_mid: Vec<bool>,
+    /// Per level: where the value last crossed that midpoint.
+    crossed_at: Vec<u64>,
+    dwell_start: u64,
+    dwell_from_switch: bool,
+    stuck_reported: bool,
+    history: VecDeque<u64>,
+    stray_start: Option<u64>,
+    stray_reported: bool,
+    next_index: u64,
+    settled_floor: u64,
+    events: VecDeque<SwitchEvent>,
+}
+
+impl SyncTracker {
+    pub fn new(settings: SyncSettings, levels: Vec<f64>) -> SyncTracker {
+        let n = levels.len();
+        let spacing = min_spacing(&levels);
+        let min_dwell = settings.min_dwell.max(1) as u64;
+        SyncTracker {
+            margin: settings.hysteresis * spacing,
+            stray_distance: STRAY_FRACTION * spacing,
+            stray_limit: (min_dwell / 2).max(32),
+            max_hold: min_dwell + min_dwell.max(4096),
+            settings,
+            levels,
+            started: false,
+            current: 0,
+            pending: 0,
+            pending_since: 0,
+            past_mid: vec![false; n],
+            crossed_at: vec![0; n],
+            dwell_start: 0,
+            dwell_from_switch: false,
+            stuck_reported: false,
+            history: VecDeque::new(),
+            stray_start: None,
+            stray_reported: false,
+            next_index: 0,
+            settled_floor: 0,
+            events: VecDeque::new(),
+        }
+    }
+
+    pub fn levels(&self) -> &[f64] {
+        &self.levels
+    }
+
+    fn nearest(&self, v: f64) -> (usize, f64) {
+        let mut best = (0, f64::INFINITY);
+        for (i, &l) in self.levels.iter().enumerate() {
+            let d = (v - l).abs();
+            if d < best.1 {
+                best = (i, d);
+            }
+        }
+        best
+    }
+
+    fn expected_dwell(&self) -> Option<f64> {
+        self.settings.expected_dwell.or_else(|| {
+            if self.history.len() >= 3 {
+                median(self.history.iter().copied())
+            } else {
+                None
+            }
+        })
+    }
+
+    fn irregular(&mut self, at: u64, kind: Irregularity, what: String) {
+        self.events
+            .push_back(SwitchEvent::Irregular { at, kind, what });
+    }
+
+    /// Feed sync values starting at absolute sample `index`. Samples already
+    /// seen are skipped; a jump forward is treated as a gap in the stream.
+    pub fn feed(&mut self, index: u64, values: &[f32]) {
+        let skip = self
+            .next_index
+            .saturating_sub(index)
+            .min(values.len() as u64) as usize;
+        if !self.started {
+            self.settled_floor = index;
+        }
+        for (k, &v) in values.iter().enumerate().skip(skip) {
+            self.step(index + k as u64, v as f64);
+        }
+        self.next_index = self.next_index.max(index + values.len() as u64);
+        // Bound how far back a switch may still be placed, so callers hold bounded data.
+        let floor = self.next_index.saturating_sub(self.max_hold);
+        if floor > self.settled_floor {
+            self.settled_floor = floor;
+            for c in self.crossed_at.iter_mut() {
+                *c = (*c).max(floor);
+            }
+        }
+        // Never move back: a later switch may not be placed before what callers already released.
+        self.settled_floor = self.settled();
+    }
+
+    /// Every sample before this index has its lobe decided.
+    pub fn settled(&self) -> u64 {
+        let mut s = self.next_index;
+        for (k, &past) in self.past_mid.iter().enumerate() {
+            if past && k != self.current {
+                s = s.min(self.crossed_at[k]);
+            }
+        }
+        s.max(self.settled_floor)
+    }
+
+    fn step(&mut self, n: u64, v: f64) {
+        let (j, dist) = if v.is_finite() {
+            self.nearest(v)
+        } else {
+            (self.current, f64::INFINITY)
+        };
+        self.track_stray(n, v, dist);
+        if !v.is_finite() {
+            return;
+        }
+        if !self.started {
+            self.started = true;
+            self.current = j;
+            self.pending = j;
+            self.dwell_start = n;
+            self.events.push_back(SwitchEvent::Begin {
+                at: n,
+                lobe: j,
+                switch_at: None,
+            });
+            return;
+        }
+        if j != self.pending && (v - self.levels[self.pending]).abs() - dist > self.margin {
+            self.pending = j;
+            self.pending_since = n;
+        }
+        let here = self.levels[self.current];
+        for k in 0..self.levels.len() {
+            if k == self.current {
+                continue;
+            }
+            let mid = 0.5 * (here + self.levels[k]);
+            let past = if self.levels[k] > here {
+                v > mid
+            } else {
+                v < mid
+            };
+            if past && !self.past_mid[k] {
+                self.crossed_at[k] = n;
+            }
+            self.past_mid[k] = past;
+        }
+        if self.pending != self.current
+            && n + 1 - self.pending_since >= self.settings.min_dwell.max(1) as u64
+        {
+            self.confirm(n);
+        }
+        self.check_stuck(n);
+    }
+
+    fn track_stray(&mut self, n: u64, v: f64, dist: f64) {
+        if dist > self.stray_distance {
+            let start = *self.stray_start.get_or_insert(n);
+            if !self.stray_reported && n + 1 - start >= self.stray_limit {
+                self.stray_reported = true;
+                let levels: Vec<String> = self.levels.iter().map(|l| format!("{l:.3}")).collect();
+                self.irregular(
+                    start,
+                    Irregularity::Stray,
+                    format!(
+                        "sync value {v:.3} matches no lobe level (levels {}) for {}+ samples from sample {start}",
+                        levels.join(", "),
+                        self.stray_limit
+                    ),
+                );
+            }
+        } else {
+            self.stray_start = None;
+            self.stray_reported = false;
+        }
+    }
+
+    fn confirm(&mut self, n: u64) {
+        let new = self.pending;
+        let at = if self.past_mid[new] {
+            self.crossed_at[new]
+        } else {
+            self.pending_since
+        };
+        let at = at.max(self.settled_floor).min(n);
+        let old = self.current;
+        let names = self.settings.names.clone();
+        if self.dwell_from_switch {
+            let len = at.saturating_sub(self.dwell_start);
+            if let Some(expected) = self.expected_dwell() {
+                let tol = self.settings.tolerance;
+                if (len as f64 - expected).abs() > tol * expected {
+                    let what = if (len as f64) < expected {
+                        "short"
+                    } else {
+                        "long"
+                    };
+                    self.irregular(
+                        self.dwell_start,
+                        Irregularity::DwellLength,
+                        format!(
+                            "{what} dwell of lobe {} from sample {}: {len} samples, expected about {expected:.0} (tolerance {:.0} %)",
+                            names[old],
+                            self.dwell_start,
+                            tol * 100.0
+                        ),
+                    );
+                }
+            }
+            self.history.push_back(len);
+            if self.history.len() > DWELL_HISTORY {
+                self.history.pop_front();
+            }
+        }
+        let lobes = self.levels.len();
+        let expected_next = (old + 1) % lobes;
+        if new != expected_next {
+            let skipped = (new + lobes - old - 1) % lobes;
+            self.irregular(
+                at,
+                Irregularity::Order,
+                format!(
+                    "lobe order broken at sample {at}: {} followed by {} (skipped {}: a missing transition?)",
+                    names[old],
+                    names[new],
+                    lobe_list(&names, expected_next, skipped)
+                ),
+            );
+        }
+        self.current = new;
+        self.dwell_start = at;
+        self.dwell_from_switch = true;
+        self.stuck_reported = false;
+        self.past_mid.iter_mut().for_each(|p| *p = false);
+        self.events.push_back(SwitchEvent::Switch { at, lobe: new });
+    }
+
+    fn check_stuck(&mut self, n: u64) {
+        if self.stuck_reported {
+            return;
+        }
+        if let Some(expected) = self.expected_dwell()
+            && n.saturating_sub(self.dwell_start) as f64 > STUCK_DWELLS * expected
+        {
+            {
+                self.stuck_reported = true;
+                let start = self.dwell_start;
+                let name = self.settings.names[self.current].clone();
+                self.irregular(
+                    start,
+                    Irregularity::Stuck,
+                    format!(
+                        "sync stuck at lobe {name}'s level from sample {start} for more than {STUCK_DWELLS} dwells (about {expected:.0} samples each)"
+                    ),
+                );
+            }
+        }
+    }
+
+    pub fn pop_event(&mut self) -> Option<SwitchEvent> {
+        self.events.pop_front()
+    }
+}
+
+/// Switch instants of a known schedule: the dwell `m` starts at sample
+/// `ceil(first_start + m * dwell)` and belongs to lobe `m mod N`.
+pub struct ScheduleTracker {
+    settings: ScheduleSettings,
+    next_dwell: Option<i64>,
+    next_index: u64,
+    events: VecDeque<SwitchEvent>,
+}
+
+impl ScheduleTracker {
+    pub fn new(settings: ScheduleSettings) -> Result<ScheduleTracker, String> {
+        if settings.dwell.is_nan() || settings.dwell < 1.0 {
+            return Err(format!(
+                "schedule dwell is {:.3} samples; it must be at least one sample (set 'dwell')",
+                settings.dwell
+            ));
+        }
+        Ok(ScheduleTracker {
+            settings,
+            next_dwell: None,
+            next_index: 0,
+            events: VecDeque::new(),
+        })
+    }
+
+    /// First sample of dwell `m` (may be negative).
+    pub fn boundary(&self, m: i64) -> i64 {
+        (self.settings.first_start + m as f64 * self.settings.dwell).ceil() as i64
+    }
+
+    /// Lobe position of dwell `m`.
+    pub fn lobe_of(&self, m: i64) -> usize {
+        m.rem_euclid(self.settings.names.len() as i64) as usize
+    }
+
+    /// The dwell holding sample `n`.
+    pub fn dwell_of(&self, n: i64) -> i64 {
+        let mut m = ((n as f64 - self.settings.first_start) / self.settings.dwell).floor() as i64;
+        while self.boundary(m + 1) <= n {
+            m += 1;
+        }
+        while self.boundary(m) > n {
+            m -= 1;
+        }
+        m
+    }
+
+    pub fn feed(&mut self, index: u64, len: usize) {
+        let end = index + len as u64;
+        if len == 0 || end <= self.next_index {
+            return;
+        }
+        let next = match self.next_dwell {
+            Some(m) => m,
+            None => {
+                let m = self.dwell_of(index as i64);
+                self.events.push_back(SwitchEvent::Begin {
+                    at: index,
+                    lobe: self.lobe_of(m),
+                    switch_at: Some(self.boundary(m)),
+                });
+                m + 1
+            }
+        };
+        let mut m = next;
+        while self.boundary(m) < end as i64 {
+            let at = self.boundary(m).max(0) as u64;
+            self.events.push_back(SwitchEvent::Switch {
+                at,
+                lobe: self.lobe_of(m),
+            });
+            m += 1;
+        }
+        self.next_dwell = Some(m);
+        self.next_index = end;
+    }
+
+    pub fn pop_event(&mut self) -> Option<SwitchEvent> {
+        self.events.pop_front()
+    }
+}
+
+enum Stage {
+    Learning {
+        settings: SyncSettings,
+        values: Vec<f32>,
+    },
+    Sync(Box<SyncTracker>),
+    Schedule(ScheduleTracker),
+}
+
+/// The lobe timeline of a stream from either source, with a learning stage
+/// for sync channels. Callers buffer their items while [`Self::learning`]
+/// is true, then feed them again in order.
+pub struct SwitchSync {
+    stage: Stage,
+}
+
+impl SwitchSync {
+    pub fn from_sync(settings: SyncSettings) -> SwitchSync {
+        let cap = settings.learn.clamp(16, MAX_LEARN_SAMPLES);
+        SwitchSync {
+            stage: Stage::Learning {
+                settings,
+                values: Vec::with_capacity(cap.min(1 << 16)),
+            },
+        }
+    }
+
+    pub fn from_schedule(settings: ScheduleSettings) -> Result<SwitchSync, String> {
+        Ok(SwitchSync {
+            stage: Stage::Schedule(ScheduleTracker::new(settings)?),
+        })
+    }
+
+    pub fn learning(&self) -> bool {
+        matches!(self.stage, Stage::Learning { .. })
+    }
+
+    /// Collect sync values for learning; returns true once enough are in.
+    pub fn learn_from(&mut self, values: &[f32]) -> bool {
+        if let Stage::Learning {
+            settings,
+            values: buf,
+        } = &mut self.stage
+        {
+            let want = settings.learn.clamp(16, MAX_LEARN_SAMPLES);
+            let take = want.saturating_sub(buf.len()).min(values.len());
+            buf.extend_from_slice(&values[..take]);
+            buf.len() >= want
+        } else {
+            true
+        }
+    }
+
+    /// Learn the levels from what was collected and start tracking.
+    pub fn end_learning(&mut self) -> Result<(), String> {
+        if let Stage::Learning { settings, values } = &self.stage {
+            let levels = learn_levels(values, settings.names.len())?;
+            self.stage = Stage::Sync(Box::new(SyncTracker::new(settings.clone(), levels)));
+        }
+        Ok(())
+    }
+
+    /// Feed the samples `[index, index+len)`; `sync` is required for sync timing.
+    pub fn feed(&mut self, index: u64, sync: Option<&[f32]>, len: usize) -> Result<(), String> {
+        match &mut self.stage {
+            Stage::Learning { .. } => Err("switch sync fed before its levels were learned".into()),
+            Stage::Sync(t) => match sync {
+                Some(s) if s.len() != len => Err(format!(
+                    "the sync channel has {} samples where the IQ has {len}, from sample {index}",
+                    s.len()
+                )),
+                Some(s) => {
+                    t.feed(index, s);
+                    Ok(())
+                }
+                None => Err(format!(
+                    "timing is 'sync' but the stream has no sync channel from sample {index}; \
+                     map a sync channel or use timing: schedule"
+                )),
+            },
+            Stage::Schedule(t) => {
+                t.feed(index, len);
+                Ok(())
+            }
+        }
+    }
+
+    /// Every sample before this index has its lobe decided.
+    pub fn settled(&self, fed_end: u64) -> u64 {
+        match &self.stage {
+            Stage::Sync(t) => t.settled(),
+            _ => fed_end,
+        }
+    }
+
+    pub fn pop_event(&mut self) -> Option<SwitchEvent> {
+        match &mut self.stage {
+            Stage::Sync(t) => t.pop_event(),
+            Stage::Schedule(t) => t.pop_event(),
+            Stage::Learning { .. } => None,
+        }
+    }
+
+    /// Learned sync levels, when tracking a sync channel.
+    pub fn levels(&self) -> Option<&[f64]> {
+        match &self.stage {
+            Stage::Sync(t) => Some(t.levels()),
+            _ => None,
+        }
+    }
+}
+
+/// Passes the first few notices of each kind on and counts the rest, so a
+/// bad capture does not flood the report.
+#[derive(Default)]
+pub struct NoticeLimiter {
+    shown: [u64; 4],
+    hidden: [u64; 4],
+}
+
+/// Notices of one kind shown before the rest are only counted.
+pub const NOTICES_SHOWN: u64 = 8;
+
+impl NoticeLimiter {
+    fn slot(kind: Irregularity) -> usize {
+        Irregularity::ALL
+            .iter()
+            .position(|k| *k == kind)
+            .unwrap_or(0)
+    }
+    /// True when this notice should be shown.
+    pub fn admit(&mut self, kind: Irregularity) -> bool {
+        let s = Self::slot(kind);
+        if self.shown[s] < NOTICES_SHOWN {
+            self.shown[s] += 1;
+            true
+        } else {
+            self.hidden[s] += 1;
+            false
+        }
+    }
+    /// Summary lines for the kinds that were cut short.
+    pub fn summary(&self) -> Vec<String> {
+        Irregularity::ALL
+            .iter()
+            .enumerate()
+            .filter(|(s, _)| self.hidden[*s] > 0)
+            .map(|(s, k)| format!("{} more notices of {} not shown", self.hidden[s], k.label()))
+            .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dsp::rng::Rng;
+
+    fn names(n: usize) -> Vec<Arc<str>> {
+        (0..n).map(|i| Arc::from(format!("l{i}"))).collect()
+    }
+
+    fn staircase(n_lobes: usize, dwell: usize, total: usize, seed: u64) -> Vec<f32> {
+        let mut rng = Rng::new(seed);
+        (0..total)
+            .map(|k| {
+                let lobe = (k / dwell) % n_lobes;
+                (-0.8 + 1.6 * lobe as f64 / (n_lobes - 1) as f64 + 0.01 * rng.gaussian()) as f32
+            })
+            .collect()
+    }
+
+    #[test]
+    fn learns_four_levels_of_the_staircase() {
+        let v = staircase(4, 500, 5000, 1);
+        let levels = learn_levels(&v, 4).unwrap();
+        let want = [-0.8, -0.8 + 1.6 / 3.0, -0.8 + 3.2 / 3.0, 0.8];
+        for (l, w) in levels.iter().zip(want) {
+            assert!((l - w).abs() < 0.003, "{levels:?}");
+        }
+    }
+
+    #[test]
+    fn two_level_sync_is_not_four_lobes() {
+        let v = staircase(2, 500, 5000, 2);
+        let e = learn_levels(&v, 4).unwrap_err();
+        assert!(
+            e.contains("found 2 sync levels") && e.contains("expected 4"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn flat_sync_is_an_error() {
+        let mut rng = Rng::new(3);
+        let v: Vec<f32> = (0..4000)
+            .map(|_| (0.3 + 0.01 * rng.gaussian()) as f32)
+            .collect();
+        let e = learn_levels(&v, 4).unwrap_err();
+        assert!(e.contains("sync channel is flat"), "{e}");
+        let e = learn_levels(&[0.5; 100], 2).unwrap_err();
+        assert!(e.contains("sync channel is flat"), "{e}");
+    }
+
+    #[test]
+    fn glitches_and_excursions_inside_the_hysteresis_do_not_switch() {
+        let settings = SyncSettings {
+            names: names(2),
+            learn: 0,
+            hysteresis: 0.2,
+            min_dwell: 20,
+            expected_dwell: None,
+            tolerance: 0.25,
+        };
+        let mut t = SyncTracker::new(settings, vec![0.0, 1.0]);
+        let mut v = vec![0.0f32; 3000];
+        v[500..510].fill(1.0); // shorter than min_dwell
+        v[1000..1200].fill(0.58); // past the midpoint, short of the 0.6 hysteresis margin
+        v[2000..].fill(1.0);
+        t.feed(0, &v[..1100]);
+        // A switch could still be placed at the midpoint crossing: nothing after it is decided.
+        assert_eq!(t.settled(), 1000);
+        t.feed(1100, &v[1100..]);
+        assert_eq!(t.settled(), 3000);
+        let events: Vec<SwitchEvent> = std::iter::from_fn(|| t.pop_event()).collect();
+        assert_eq!(events.len(), 3, "{events:?}");
+        assert_eq!(events[0], SwitchEvent::Begin { at: 0, lobe: 0, switch_at: None });
+        assert!(matches!(&events[1], SwitchEvent::Irregular { at: 1000, kind: Irregularity::Stray, .. }));
+        assert_eq!(events[2], SwitchEvent::Switch { at: 2000, lobe: 1 });
+    }
+
+    #[test]
+    fn schedule_floors_negative_times() {
+        let t = ScheduleTracker::new(ScheduleSettings {
+            names: names(4),
+            first_start: 250.5,
+            dwell: 100.0,
+        })
+        .unwrap();
+        // Sample 250 lies before the start of lobe 0: it belongs to lobe 3 (floor of a negative).
+        assert_eq!(t.lobe_of(t.dwell_of(250)), 3);
+        assert_eq!(t.lobe_of(t.dwell_of(251)), 0);
+        assert_eq!(t.lobe_of(t.dwell_of(0)), 1);
+        assert_eq!(t.boundary(-3), -49);
+        assert_eq!(t.boundary(1), 351);
+    }
+}

@@ -1,0 +1,524 @@
+//! `pulse_framer`: finds each transmit instant (trigger channel, transmit
+//! leakage in the IQ, or a known PRF) and cuts the stream into sweeps, one
+//! pulse repetition interval each, numbered, with missing pulses predicted.
+
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::pulse_timing::{FLOOR_BLOCK, NoiseFloor};
+use crate::item::{Item, ItemKind, SampleChunk, Span, Stamp, Sweep};
+use crate::param::{ParamSpec, ParamType, Params, Unit};
+use num_complex::Complex32;
+use std::collections::VecDeque;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "pulse_framer",
+    doc: "Finds transmit instants from a trigger channel, the transmit leakage in the IQ, or a known PRF, \
+          and hands on one sweep per pulse interval (leakage blanked); gaps over 1.5 PRI get predicted \
+          instants so pulse numbers stay right.",
+    inputs: &[PortSpec::required(
+        "samples",
+        ItemKind::Samples,
+        "capture chunks (with a trigger channel for trigger timing)",
+    )],
+    outputs: &[PortSpec::optional(
+        "sweeps",
+        ItemKind::Sweep,
+        "one sweep per pulse interval, from its transmit instant",
+    )],
+    params: &[
+        ParamSpec {
+            name: "timing",
+            ty: ParamType::Choice(&["trigger", "leakage", "schedule"]),
+            default: Some("leakage"),
+            doc: "where transmit instants come from",
+        },
+        ParamSpec {
+            name: "prf",
+            ty: ParamType::Number {
+                unit: Unit::Hertz,
+                min: 0.01,
+                max: 1e8,
+            },
+            default: None,
+            doc: "nominal pulse repetition frequency (hold-off, missing pulses, schedule)",
+        },
+        ParamSpec {
+            name: "threshold",
+            ty: ParamType::Number {
+                unit: Unit::None,
+                min: 0.01,
+                max: 0.99,
+            },
+            default: Some("0.5"),
+            doc: "trigger: rising edge through this fraction of the trigger's maximum",
+        },
+        ParamSpec {
+            name: "threshold_db",
+            ty: ParamType::Number {
+                unit: Unit::Decibels,
+                min: 1.0,
+                max: 150.0,
+            },
+            default: Some("20 dB"),
+            doc: "leakage: power this far above the running noise floor",
+        },
+        ParamSpec {
+            name: "holdoff",
+            ty: ParamType::Number {
+                unit: Unit::None,
+                min: 0.05,
+                max: 1.4,
+            },
+            default: Some("0.7"),
+            doc: "no new instant within this fraction of a PRI after one",
+        },
+        ParamSpec {
+            name: "offset",
+            ty: ParamType::Time {
+                min_s: -3600.0,
+                max_s: 3600.0,
+                pulses: false,
+            },
+            default: Some("0 s"),
+            doc: "schedule: time of one transmit instant",
+        },
+        ParamSpec {
+            name: "blank",
+            ty: ParamType::Time {
+                min_s: 0.0,
+                max_s: 1.0,
+                pulses: false,
+            },
+            default: Some("1 us"),
+            doc: "samples zeroed at the start of each sweep (transmit leakage)",
+        },
+    ],
+    build,
+};
+
+#[derive(Clone, Copy, PartialEq)]
+enum Mode {
+    Trigger,
+    Leakage,
+    Schedule,
+}
+
+/// Pulse intervals searched for a first transmit instant before giving up.
+const SEARCH_PRIS: f64 = 32.0;
+/// Missing-pulse notices shown before the rest are only counted.
+const MISSING_SHOWN: u64 = 8;
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let mode = match p.text("timing")? {
+        "trigger" => Mode::Trigger,
+        "schedule" => Mode::Schedule,
+        _ => Mode::Leakage,
+    };
+    Ok(Box::new(PulseFramer {
+        mode,
+        prf: p.num("prf")?,
+        threshold: p.num("threshold")? as f32,
+        power_ratio: 10f64.powf(p.num("threshold_db")? / 10.0),
+        holdoff_frac: p.num("holdoff")?,
+        params: p.clone(),
+        setup: None,
+        warm_buf: Vec::new(),
+        warm_have: 0,
+        warmed: false,
+        trig_max: 0.0,
+        prev_above: true,
+        noise: NoiseFloor::default(),
+        last_real: None,
+        last: None,
+        pulse: 0,
+        pending: VecDeque::new(),
+        missing_run: None,
+        missing_reports: 0,
+        missing_total: 0,
+        next_scheduled: None,
+        seen: 0,
+        last_stamp: None,
+    }))
+}
+
+/// Stream-dependent settings, fixed at the first chunk.
+struct Setup {
+    rate: f64,
+    pri: f64,
+    holdoff: u64,
+    /// A gap longer than this (1.5 PRI) means a missing pulse.
+    gap: u64,
+    blank: usize,
+    offset: f64,
+    /// Samples before detection starts, to measure the trigger maximum or noise floor.
+    warm: u64,
+    start: u64,
+    give_up: u64,
+}
+
+struct PulseFramer {
+    mode: Mode,
+    prf: f64,
+    threshold: f32,
+    power_ratio: f64,
+    holdoff_frac: f64,
+    params: Params,
+    setup: Option<Setup>,
+    warm_buf: Vec<SampleChunk>,
+    warm_have: u64,
+    warmed: bool,
+    trig_max: f32,
+    prev_above: bool,
+    noise: NoiseFloor,
+    last_real: Option<u64>,
+    /// Start of the open sweep, and whether it was predicted.
+    last: Option<(u64, bool)>,
+    /// Number of the open sweep.
+    pulse: u64,
+    /// Samples from the open sweep's start on.
+    pending: VecDeque<SampleChunk>,
+    /// (first predicted instant, count) of the current run of missing pulses.
+    missing_run: Option<(u64, u64)>,
+    missing_reports: u64,
+    missing_total: u64,
+    next_scheduled: Option<i64>,
+    seen: u64,
+    last_stamp: Option<Stamp>,
+}
+
+impl PulseFramer {
+    fn set_up(&mut self, first: Stamp) -> Result<(), BlockError> {
+        let rate = first.rate;
+        let pri = rate / self.prf;
+        if pri.is_nan() || pri < 2.0 {
+            return Err(BlockError::new(format!(
+                "prf {} Hz gives a pulse interval of {pri:.2} samples at {rate} S/s; it must be at least 2",
+                self.prf
+            )));
+        }
+        let warm = match self.mode {
+            Mode::Schedule => 0,
+            _ => ((2.5 * pri).ceil() as u64).max(4 * FLOOR_BLOCK as u64),
+        };
+        self.setup = Some(Setup {
+            rate,
+            pri,
+            holdoff: (self.holdoff_frac * pri).round().max(1.0) as u64,
+            gap: (1.5 * pri).floor() as u64,
+            blank: self
+                .params
+                .samples_at("blank", rate, None)?
+                .round()
+                .max(0.0) as usize,
+            offset: self.params.samples_at("offset", rate, None)?,
+            warm,
+            start: first.index,
+            give_up: first.index + warm + (SEARCH_PRIS * pri).ceil() as u64,
+        });
+        Ok(())
+    }
+
+    /// Measure the trigger maximum or the noise floor over the warm-up window.
+    fn warm_up(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(s) = self.setup.as_ref() else {
+            return Ok(());
+        };
+        let warm_end = s.start + s.warm;
+        for chunk in &self.warm_buf {
+            let n = (warm_end.saturating_sub(chunk.stamp.index) as usize).min(chunk.len());
+            match self.mode {
+                Mode::Trigger => {
+                    if let Some(t) = &chunk.trigger {
+                        self.trig_max = t[..n]
+                            .iter()
+                            .copied()
+                            .filter(|v| v.is_finite())
+                            .fold(self.trig_max, f32::max);
+                    }
+                }
+                Mode::Leakage => chunk.iq[..n]
+                    .iter()
+                    .for_each(|x| self.noise.push(x.norm_sqr())),
+                Mode::Schedule => {}
+            }
+        }
+        self.warmed = true;
+        for chunk in std::mem::take(&mut self.warm_buf) {
+            self.scan(chunk, out)?;
+        }
+        Ok(())
+    }
+
+    fn scan(&mut self, chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(s) = self.setup.as_ref() else {
+            return Ok(());
+        };
+        let (start, len) = (chunk.stamp.index, chunk.len());
+        let (warm_end, holdoff, gap, pri, give_up) =
+            (s.start + s.warm, s.holdoff, s.gap, s.pri, s.give_up);
+        let trigger = match (self.mode, &chunk.trigger) {
+            (Mode::Trigger, None) => {
+                return Err(BlockError::at(
+                    "timing is 'trigger' but the capture has no trigger channel; map one, or use timing: leakage",
+                    start,
+                ));
+            }
+            (_, Some(t)) if t.len() != len => {
+                return Err(BlockError::at(
+                    format!(
+                        "the trigger channel has {} samples where the IQ has {len}",
+                        t.len()
+                    ),
+                    start,
+                ));
+            }
+            (_, t) => t.clone(),
+        };
+        self.pending.push_back(chunk.clone());
+        if self.mode == Mode::Schedule {
+            self.scan_schedule(start, len, out);
+        } else {
+            for k in 0..len {
+                let n = start + k as u64;
+                let above = match &trigger {
+                    Some(t) if self.mode == Mode::Trigger => {
+                        let v = t[k];
+                        if n >= warm_end && v.is_finite() {
+                            self.trig_max = self.trig_max.max(v);
+                        }
+                        self.trig_max > 0.0 && v >= self.threshold * self.trig_max
+                    }
+                    _ => {
+                        let p = chunk.iq[k].norm_sqr();
+                        if n >= warm_end {
+                            self.noise.push(p);
+                        }
+                        self.noise.ready()
+                            && p as f64
+                                > self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE)
+                    }
+                };
+                let edge = above && !self.prev_above;
+                self.prev_above = above;
+                if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
+                    self.instant(n, false, out);
+                } else if let Some((l, _)) = self.last
+                    && n - l > gap
+                {
+                    self.instant(l + pri.round() as u64, true, out);
+                }
+            }
+        }
+        let end = start + len as u64;
+        if self.last.is_none() {
+            self.pending.clear();
+            if end >= give_up {
+                return Err(self.not_found(end));
+            }
+        }
+        Ok(())
+    }
+
+    fn not_found(&self, end: u64) -> BlockError {
+        let hint = match self.mode {
+            Mode::Trigger => "is the trigger channel mapped, and is 'threshold' right?",
+            _ => {
+                "is 'threshold_db' above the leakage, or is there no leakage in this capture (try timing: schedule)?"
+            }
+        };
+        let from = self.setup.as_ref().map_or(0, |s| s.start);
+        BlockError::at(
+            format!(
+                "no transmit instants found in the first {} samples; {hint}",
+                end - from
+            ),
+            from,
+        )
+    }
+
+    fn scan_schedule(&mut self, start: u64, len: usize, out: &mut Outputs) {
+        let Some(s) = self.setup.as_ref() else { return };
+        let (offset, pri, first) = (s.offset, s.pri, s.start as f64);
+        let at = |k: i64| (offset + k as f64 * pri).round();
+        let mut k = match self.next_scheduled {
+            Some(k) => k,
+            None => {
+                let mut k = ((first - offset) / pri).ceil() as i64;
+                while at(k - 1) >= first {
+                    k -= 1;
+                }
+                while at(k) < first {
+                    k += 1;
+                }
+                k
+            }
+        };
+        let end = (start + len as u64) as f64;
+        while at(k) < end {
+            self.instant(at(k) as u64, false, out);
+            k += 1;
+        }
+        self.next_scheduled = Some(k);
+    }
+
+    /// A transmit instant at `n`: close the open sweep and open a new one.
+    fn instant(&mut self, n: u64, predicted: bool, out: &mut Outputs) {
+        if let Some((from, was_predicted)) = self.last {
+            self.emit(from, n, was_predicted, out);
+            self.pulse += 1;
+        }
+        if predicted {
+            self.missing_total += 1;
+            match &mut self.missing_run {
+                Some((_, count)) => *count += 1,
+                None => self.missing_run = Some((n, 1)),
+            }
+        } else {
+            self.report_missing(out);
+            self.last_real = Some(n);
+        }
+        self.last = Some((n, predicted));
+        self.trim(n);
+    }
+
+    fn report_missing(&mut self, out: &mut Outputs) {
+        let (Some((first, count)), Some(s)) = (self.missing_run.take(), self.setup.as_ref()) else {
+            return;
+        };
+        if self.missing_reports < MISSING_SHOWN {
+            out.notice(
+                Stamp::new(first, s.rate),
+                format!("{count} missing pulse(s) from sample {first}: predicted transmit instants inserted"),
+            );
+        }
+        self.missing_reports += 1;
+    }
+
+    /// Drop pending samples before `n`.
+    fn trim(&mut self, n: u64) {
+        while let Some(front) = self.pending.front_mut() {
+            let (a, len) = (front.stamp.index, front.len());
+            if a + len as u64 <= n {
+                self.pending.pop_front();
+            } else {
+                if a < n {
+                    *front = front.slice((n - a) as usize..len);
+                }
+                break;
+            }
+        }
+    }
+
+    /// Hand on the sweep `[from, to)` from the pending samples.
+    fn emit(&mut self, from: u64, to: u64, predicted: bool, out: &mut Outputs) {
+        let Some(s) = self.setup.as_ref() else { return };
+        let (rate, blank) = (s.rate, s.blank);
+        let parts: Vec<&SampleChunk> = self
+            .pending
+            .iter()
+            .filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from)
+            .collect();
+        let Some(first) = parts.first() else { return };
+        let whole = parts.len() == 1
+            && first.stamp.index <= from
+            && first.stamp.index + first.len() as u64 >= to;
+        let (mut iq, sync) = if whole {
+            let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
+            (
+                first.iq.slice(r.clone()),
+                first.sync.as_ref().map(|y| y.slice(r)),
+            )
+        } else {
+            let mut iq: Vec<Complex32> = Vec::with_capacity((to - from) as usize);
+            let mut sync: Option<Vec<f32>> = parts.iter().all(|c| c.sync.is_some()).then(Vec::new);
+            for c in &parts {
+                let a = from.max(c.stamp.index) - c.stamp.index;
+                let b = to.min(c.stamp.index + c.len() as u64) - c.stamp.index;
+                let r = a as usize..b as usize;
+                iq.extend_from_slice(&c.iq[r.clone()]);
+                if let (Some(v), Some(y)) = (sync.as_mut(), &c.sync) {
+                    v.extend_from_slice(&y[r]);
+                }
+            }
+            (Span::new(iq), sync.map(Span::new))
+        };
+        let blanked = blank.min(iq.len());
+        if blanked > 0 {
+            let mut copy = iq.to_vec();
+            copy[..blanked]
+                .iter_mut()
+                .for_each(|x| *x = Complex32::new(0.0, 0.0));
+            iq = Span::new(copy);
+        }
+        out.push(
+            0,
+            Item::Sweep(Sweep {
+                stamp: Stamp::new(from, rate),
+                pulse: self.pulse,
+                iq,
+                sync,
+                blanked,
+                predicted,
+                lobe: None,
+            }),
+        );
+    }
+}
+
+impl Block for PulseFramer {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Samples(chunk) = item else {
+            return Ok(());
+        };
+        if chunk.is_empty() {
+            return Ok(());
+        }
+        if self.setup.is_none() {
+            self.set_up(chunk.stamp)?;
+        }
+        self.seen += chunk.len() as u64;
+        self.last_stamp = Some(chunk.stamp.after(chunk.len()));
+        if self.warmed {
+            return self.scan(chunk, out);
+        }
+        self.warm_have += chunk.len() as u64;
+        self.warm_buf.push(chunk);
+        if self
+            .setup
+            .as_ref()
+            .is_some_and(|s| self.warm_have >= s.warm)
+        {
+            self.warm_up(out)?;
+        }
+        Ok(())
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        if !self.warmed && !self.warm_buf.is_empty() {
+            self.warm_up(out)?;
+        }
+        let Some(end) = self.last_stamp else {
+            return Ok(());
+        };
+        match self.last {
+            Some((from, predicted)) if end.index > from => {
+                self.emit(from, end.index, predicted, out)
+            }
+            Some(_) => {}
+            None if self.mode != Mode::Schedule && self.seen > 0 => {
+                return Err(self.not_found(end.index));
+            }
+            None => {}
+        }
+        self.report_missing(out);
+        if self.missing_reports > MISSING_SHOWN {
+            out.notice(
+                end,
+                format!(
+                    "{} missing pulses in all ({} runs; only the first {MISSING_SHOWN} runs were listed)",
+                    self.missing_total, self.missing_reports
+                ),
+            );
+        }
+        Ok(())
+    }
+}

@@ -1,0 +1,302 @@
+//! `sweep_gate`: labels each sweep (one PRI from the framer) with the lobe
+//! active at its transmit instant, cuts sweeps at switch instants inside
+//! them and drops sweeps that start within the guard after a switch.
+
+use super::gate_common::{GateConfig, NoticeRouter, gate_params};
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::switch_sync::{SwitchEvent, SwitchSync};
+use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
+use crate::param::{ParamSpec, Params};
+use std::collections::VecDeque;
+use std::sync::Arc;
+
+const PARAMS: [ParamSpec; 9] = gate_params(true);
+
+/// Sweeps used to measure the pulse interval when a time is given in pulses.
+const PRI_SWEEPS: usize = 9;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "sweep_gate",
+    doc: "Labels sweeps with the lobe active at their transmit instant (sync staircase or schedule; times \
+          may be given in pulses), cuts a sweep at a switch instant inside it and drops sweeps starting \
+          within the guard after a switch.",
+    inputs: &[PortSpec::required(
+        "sweeps",
+        ItemKind::Sweep,
+        "sweeps from a framer (with sync spans for sync timing)",
+    )],
+    outputs: &[
+        PortSpec::optional(
+            "sweeps",
+            ItemKind::Sweep,
+            "the sweeps, labelled with their lobe and dwell",
+        ),
+        PortSpec::optional(
+            "notices",
+            ItemKind::Notice,
+            "switch instants and irregularities, for timelines",
+        ),
+    ],
+    params: &PARAMS,
+    build,
+};
+
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+    Ok(Box::new(SweepGate {
+        cfg: GateConfig::from_params(p)?,
+        router: NoticeRouter::new(&ctx.name, 1),
+        source: None,
+        guard: 0,
+        startup: Vec::new(),
+        learned: 0,
+        pending: VecDeque::new(),
+        fed_end: 0,
+        switches: VecDeque::new(),
+        current: None,
+        emitted_dwell: None,
+        dwell: 0,
+        dropped: 0,
+        last_stamp: None,
+    }))
+}
+
+/// The lobe in force: (lobe, dwell start, switch instant that began it).
+type Current = (usize, u64, Option<i64>);
+
+struct SweepGate {
+    cfg: GateConfig,
+    router: NoticeRouter,
+    source: Option<SwitchSync>,
+    guard: u64,
+    /// Sweeps held while the pulse interval or the sync levels are learned.
+    startup: Vec<Sweep>,
+    /// How many of `startup` went into the level learning.
+    learned: usize,
+    /// Sweeps whose samples are not all decided yet.
+    pending: VecDeque<Sweep>,
+    fed_end: u64,
+    switches: VecDeque<(u64, usize)>,
+    current: Option<Current>,
+    /// Dwell start of the last sweep handed on.
+    emitted_dwell: Option<u64>,
+    dwell: u64,
+    dropped: u64,
+    last_stamp: Option<Stamp>,
+}
+
+fn sweep_end(s: &Sweep) -> u64 {
+    s.stamp.index + s.iq.len() as u64
+}
+
+/// Median spacing of consecutive transmit instants, in samples.
+fn pulse_interval(sweeps: &[Sweep]) -> Option<f64> {
+    let mut gaps: Vec<u64> = sweeps
+        .windows(2)
+        .map(|w| w[1].stamp.index.saturating_sub(w[0].stamp.index))
+        .filter(|&g| g > 0)
+        .collect();
+    if gaps.is_empty() {
+        return None;
+    }
+    gaps.sort_unstable();
+    Some(gaps[gaps.len() / 2] as f64)
+}
+
+impl SweepGate {
+    /// Build the switch source and learn what is needed, then replay the held sweeps.
+    fn advance(&mut self, finishing: bool, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(first) = self.startup.first().map(|s| s.stamp) else {
+            return Ok(());
+        };
+        if self.source.is_none() {
+            let pri = if self.cfg.needs_pri() {
+                if self.startup.len() < PRI_SWEEPS && !finishing {
+                    return Ok(());
+                }
+                Some(pulse_interval(&self.startup).ok_or_else(|| {
+                    BlockError::at("a time is given in pulses, but fewer than two sweeps arrived to measure the pulse interval", first.index)
+                })?)
+            } else {
+                None
+            };
+            let (source, guard) = self
+                .cfg
+                .source(first.rate, pri)
+                .map_err(|e| BlockError::at(e, first.index))?;
+            self.source = Some(source);
+            self.guard = guard;
+        }
+        let Some(source) = self.source.as_mut() else {
+            return Ok(());
+        };
+        if source.learning() {
+            let mut enough = false;
+            while self.learned < self.startup.len() && !enough {
+                let sweep = &self.startup[self.learned];
+                let Some(sync) = sweep.sync.as_deref() else {
+                    return Err(BlockError::at(
+                        "timing is 'sync' but the sweeps carry no sync channel; map one, or use timing: schedule",
+                        sweep.stamp.index,
+                    ));
+                };
+                enough = source.learn_from(sync);
+                self.learned += 1;
+            }
+            if !enough && !finishing {
+                return Ok(());
+            }
+            source
+                .end_learning()
+                .map_err(|e| BlockError::at(e, first.index))?;
+            if let Some(levels) = source.levels() {
+                let list: Vec<String> = levels
+                    .iter()
+                    .zip(&self.cfg.names)
+                    .map(|(l, n)| format!("{n} {l:.3}"))
+                    .collect();
+                out.notice(first, format!("learned sync levels: {}", list.join(", ")));
+            }
+        }
+        self.learned = 0;
+        for sweep in std::mem::take(&mut self.startup) {
+            self.run(sweep, out)?;
+        }
+        Ok(())
+    }
+
+    fn run(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(source) = self.source.as_mut() else {
+            return Ok(());
+        };
+        let index = sweep.stamp.index;
+        source
+            .feed(index, sweep.sync.as_deref(), sweep.iq.len())
+            .map_err(|e| BlockError::at(e, index))?;
+        self.fed_end = self.fed_end.max(sweep_end(&sweep));
+        self.pending.push_back(sweep);
+        self.take_events(out);
+        let upto = self
+            .source
+            .as_ref()
+            .map_or(self.fed_end, |s| s.settled(self.fed_end));
+        self.release(upto, out);
+        Ok(())
+    }
+
+    fn take_events(&mut self, out: &mut Outputs) {
+        let Some(source) = self.source.as_mut() else {
+            return;
+        };
+        let rate = self.pending.back().map_or(1.0, |s| s.stamp.rate);
+        while let Some(event) = source.pop_event() {
+            match event {
+                SwitchEvent::Begin {
+                    at,
+                    lobe,
+                    switch_at,
+                } => {
+                    self.current =
+                        Some((lobe, switch_at.map_or(at, |s| s.max(0) as u64), switch_at));
+                    let what = format!(
+                        "lobe {} active at the first sample {at}",
+                        self.cfg.names[lobe]
+                    );
+                    self.router.timeline(out, Stamp::new(at, rate), what);
+                }
+                SwitchEvent::Switch { at, lobe } => {
+                    self.switches.push_back((at, lobe));
+                    let what = format!("switch to lobe {} at sample {at}", self.cfg.names[lobe]);
+                    self.router.timeline(out, Stamp::new(at, rate), what);
+                }
+                SwitchEvent::Irregular { at, kind, what } => {
+                    self.router.irregular(out, Stamp::new(at, rate), kind, what)
+                }
+            }
+        }
+    }
+
+    /// Hand on every pending sweep that ends at or before `upto`.
+    fn release(&mut self, upto: u64, out: &mut Outputs) {
+        while self.pending.front().is_some_and(|s| sweep_end(s) <= upto) {
+            if let Some(sweep) = self.pending.pop_front() {
+                self.label(sweep, out);
+            }
+        }
+    }
+
+    fn label(&mut self, mut sweep: Sweep, out: &mut Outputs) {
+        let start = sweep.stamp.index;
+        while let Some(&(at, lobe)) = self.switches.front() {
+            if at > start {
+                break;
+            }
+            self.switches.pop_front();
+            self.current = Some((lobe, at, Some(at as i64)));
+        }
+        let Some((lobe, dwell_start, switch_at)) = self.current else {
+            return;
+        };
+        if switch_at.is_some_and(|s| (start as i64) < s + self.guard as i64) {
+            self.dropped += 1;
+            return;
+        }
+        // Samples after a switch instant inside the sweep belong to no lobe.
+        if let Some(&(at, _)) = self.switches.front() {
+            let keep = (at - start) as usize;
+            if keep < sweep.iq.len() {
+                sweep.iq = sweep.iq.slice(0..keep);
+                sweep.sync = sweep.sync.map(|s| s.slice(0..keep.min(s.len())));
+                sweep.blanked = sweep.blanked.min(keep);
+            }
+        }
+        if self.emitted_dwell != Some(dwell_start) {
+            if self.emitted_dwell.is_some() {
+                self.dwell += 1;
+            }
+            self.emitted_dwell = Some(dwell_start);
+        }
+        sweep.lobe = Some(LobeTag {
+            lobe,
+            name: Arc::clone(&self.cfg.names[lobe]),
+            dwell: self.dwell,
+            dwell_start,
+        });
+        out.push(0, Item::Sweep(sweep));
+    }
+}
+
+impl Block for SweepGate {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Sweep(sweep) = item else {
+            return Ok(());
+        };
+        if sweep.iq.is_empty() {
+            return Ok(());
+        }
+        self.last_stamp = Some(sweep.stamp);
+        if self.source.as_ref().is_some_and(|s| !s.learning()) {
+            return self.run(sweep, out);
+        }
+        self.startup.push(sweep);
+        self.advance(false, out)
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.advance(true, out)?;
+        self.take_events(out);
+        self.release(u64::MAX, out);
+        if let Some(stamp) = self.last_stamp {
+            if self.dropped > 0 {
+                out.notice(
+                    stamp,
+                    format!(
+                        "dropped {} sweeps that started within the guard ({} samples) after a switch instant",
+                        self.dropped, self.guard
+                    ),
+                );
+            }
+            self.router.summarise(out, stamp);
+        }
+        Ok(())
+    }
+}
