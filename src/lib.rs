@@ -23,6 +23,7 @@ pub mod capture;
 pub mod commands;
 pub mod error;
 pub mod graph;
+pub mod picture;
 pub mod runtime;
 pub mod session;
 
@@ -41,4 +42,4 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[picture::circular_sweep::SPEC];

@@ -1,0 +1,292 @@
+//! Bounded summaries the picture blocks keep while items stream past.
+
+use lobeflow_blocks::{BlockError, Params, Stamp, Sweep, range_bin_m};
+
+/// Most range bins one averaged sweep may hold (bounds memory per block).
+pub const MAX_BINS: usize = 1 << 20;
+
+/// Range window of a sweep picture, resolved to bins at the first sweep.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct BinWindow {
+    pub first: usize,
+    pub len: usize,
+    pub rate: f64,
+}
+
+impl BinWindow {
+    /// From the Distance parameters `start` and `end` (end 0 = to the end of
+    /// the sweep), at the sweep's rate and length.
+    pub fn from_params(
+        p: &Params,
+        start: &str,
+        end: &str,
+        sweep: &Sweep,
+    ) -> Result<BinWindow, BlockError> {
+        let rate = sweep.stamp.rate;
+        if !(rate > 0.0 && rate.is_finite()) {
+            return Err(BlockError::at(
+                format!("sweep has an unusable sample rate {rate}"),
+                sweep.stamp.index,
+            ));
+        }
+        let first = p.bins_at(start, rate)?.round().max(0.0) as usize;
+        let end_bins = p.bins_at(end, rate)?;
+        let last = if end_bins <= 0.0 {
+            sweep.iq.len() as f64
+        } else {
+            end_bins.round()
+        };
+        if last <= first as f64 + 1.0 {
+            return Err(BlockError::at(
+                format!(
+                    "range window '{start}'..'{end}' covers {:.0} to {:.0} m, fewer than two range bins of this {}-bin sweep",
+                    first as f64 * range_bin_m(rate),
+                    last * range_bin_m(rate),
+                    sweep.iq.len()
+                ),
+                sweep.stamp.index,
+            ));
+        }
+        let len = (last as usize - first).min(MAX_BINS);
+        if last as usize - first > MAX_BINS {
+            return Err(BlockError::new(format!(
+                "range window '{start}'..'{end}' spans {} bins; at most {MAX_BINS} can be averaged",
+                last as usize - first
+            )));
+        }
+        Ok(BinWindow { first, len, rate })
+    }
+
+    pub fn bin_m(&self) -> f64 {
+        range_bin_m(self.rate)
+    }
+    /// Range of window bin `k` (may be fractional).
+    pub fn range_m(&self, k: f64) -> f64 {
+        (self.first as f64 + k) * self.bin_m()
+    }
+    pub fn start_m(&self) -> f64 {
+        self.range_m(0.0)
+    }
+    pub fn end_m(&self) -> f64 {
+        self.range_m(self.len as f64)
+    }
+}
+
+/// Power averaged per range bin over many sweeps: a running mean of all
+/// sweeps, or (with `memory` > 0) an exponential average that weighs about
+/// the last `memory` sweeps. One accumulator per bin.
+#[derive(Clone, Debug)]
+pub struct SweepAverage {
+    pub window: BinWindow,
+    power: Vec<f64>,
+    counts: Vec<u64>,
+    memory: u64,
+    pub sweeps: u64,
+    pub first_stamp: Stamp,
+}
+
+impl SweepAverage {
+    pub fn new(window: BinWindow, memory: u64, first_stamp: Stamp) -> SweepAverage {
+        SweepAverage {
+            window,
+            power: vec![0.0; window.len],
+            counts: vec![0; window.len],
+            memory,
+            sweeps: 0,
+            first_stamp,
+        }
+    }
+
+    /// Add one sweep; bins it does not reach keep their value.
+    pub fn add(&mut self, sweep: &Sweep) -> Result<(), BlockError> {
+        if sweep.stamp.rate != self.window.rate {
+            return Err(BlockError::at(
+                format!(
+                    "sweep sample rate changed from {} to {} S/s",
+                    self.window.rate, sweep.stamp.rate
+                ),
+                sweep.stamp.index,
+            ));
+        }
+        let first = self.window.first.max(sweep.blanked);
+        let end = (self.window.first + self.window.len).min(sweep.iq.len());
+        for i in first..end {
+            let k = i - self.window.first;
+            let p = f64::from(sweep.iq[i].norm_sqr());
+            let c = self.counts[k] + 1;
+            self.counts[k] = c;
+            let n = if self.memory > 0 {
+                c.min(self.memory)
+            } else {
+                c
+            };
+            self.power[k] += (p - self.power[k]) / n as f64;
+        }
+        self.sweeps += 1;
+        Ok(())
+    }
+
+    /// RMS amplitude per bin; NaN for bins no sweep reached.
+    pub fn amplitude(&self) -> Vec<f64> {
+        self.power
+            .iter()
+            .zip(&self.counts)
+            .map(|(&p, &c)| if c == 0 { f64::NAN } else { p.max(0.0).sqrt() })
+            .collect()
+    }
+
+    /// Amplitude in dB (20 log10 of the RMS amplitude), floored at -300 dB.
+    pub fn amplitude_db(&self) -> Vec<f64> {
+        self.amplitude()
+            .into_iter()
+            .map(|a| {
+                if a.is_nan() {
+                    a
+                } else {
+                    20.0 * a.max(1e-15).log10()
+                }
+            })
+            .collect()
+    }
+
+    /// Mean power over window bins `lo..hi` (clipped), ignoring unreached bins.
+    pub fn mean_power(&self, lo: usize, hi: usize) -> Option<f64> {
+        let hi = hi.min(self.window.len);
+        let (mut s, mut n) = (0.0, 0);
+        for k in lo.min(hi)..hi {
+            if self.counts[k] > 0 {
+                s += self.power[k];
+                n += 1;
+            }
+        }
+        (n > 0).then(|| s / n as f64)
+    }
+}
+
+/// Reduce a series to at most about `max_points` points, keeping each
+/// group's minimum and maximum (so narrow echoes survive).
+pub fn decimate_min_max(points: &[(f64, f64)], max_points: usize) -> Vec<(f64, f64)> {
+    let finite: Vec<(f64, f64)> = points
+        .iter()
+        .copied()
+        .filter(|p| p.0.is_finite() && p.1.is_finite())
+        .collect();
+    if finite.len() <= max_points.max(2) {
+        return finite;
+    }
+    let group = finite.len().div_ceil(max_points.max(2) / 2);
+    let mut out = Vec::with_capacity(max_points + 2);
+    for chunk in finite.chunks(group) {
+        let lo = chunk.iter().min_by(|a, b| a.1.total_cmp(&b.1)).copied();
+        let hi = chunk.iter().max_by(|a, b| a.1.total_cmp(&b.1)).copied();
+        if let (Some(lo), Some(hi)) = (lo, hi) {
+            if lo.0 <= hi.0 {
+                out.extend([lo, hi]);
+            } else {
+                out.extend([hi, lo]);
+            }
+        }
+    }
+    out
+}
+
+/// Median of the finite values (None if there are none).
+pub fn median(values: &[f64]) -> Option<f64> {
+    let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(|a, b| a.total_cmp(b));
+    Some(v[v.len() / 2])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use lobeflow_blocks::{ParamSpec, ParamType, RawValue};
+    use num_complex::Complex32;
+
+    fn sweep(values: &[f32], index: u64) -> Sweep {
+        Sweep {
+            stamp: Stamp::new(index, 4e6),
+            pulse: 0,
+            iq: values
+                .iter()
+                .map(|&v| Complex32::new(v, 0.0))
+                .collect::<Vec<_>>()
+                .into(),
+            sync: None,
+            blanked: 0,
+            predicted: false,
+            lobe: None,
+        }
+    }
+
+    fn window_params(start: &str, end: &str) -> Params {
+        let mut p = Params::new();
+        let spec = ParamSpec {
+            name: "x",
+            ty: ParamType::Distance {
+                min_m: 0.0,
+                max_m: 1e7,
+            },
+            default: None,
+            doc: "",
+        };
+        p.insert("start", spec.parse(&RawValue::Text(start.into())).unwrap());
+        p.insert("end", spec.parse(&RawValue::Text(end.into())).unwrap());
+        p
+    }
+
+    #[test]
+    fn running_mean_and_exponential_memory() {
+        let s0 = sweep(&[1.0, 2.0, 0.0, 0.0], 0);
+        let w = BinWindow::from_params(&window_params("0 m", "0 m"), "start", "end", &s0).unwrap();
+        assert_eq!(
+            w,
+            BinWindow {
+                first: 0,
+                len: 4,
+                rate: 4e6
+            }
+        );
+        let mut all = SweepAverage::new(w, 0, s0.stamp);
+        let mut last2 = SweepAverage::new(w, 2, s0.stamp);
+        for (k, v) in [1.0f32, 3.0, 5.0].iter().enumerate() {
+            let s = sweep(&[*v, 0.0, 0.0, 0.0], 1000 * k as u64);
+            all.add(&s).unwrap();
+            last2.add(&s).unwrap();
+        }
+        // Powers 1, 9, 25: mean 35/3; exponential with weight 1/2 after two: (1+9)/2 then halfway to 25.
+        assert!((all.amplitude()[0] - (35.0f64 / 3.0).sqrt()).abs() < 1e-12);
+        assert!((last2.amplitude()[0] - 15.0f64.sqrt()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn window_in_metres_and_bins() {
+        let s = sweep(&[0.0; 400], 0);
+        // 37.47 m per bin at 4 MS/s (field notes section 5): 1.5 km starts at bin 40.
+        let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s)
+            .unwrap();
+        assert_eq!((w.first, w.len), (40, 60));
+        assert!(
+            BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s)
+                .is_err()
+        );
+        let mut avg = SweepAverage::new(w, 0, s.stamp);
+        let mut other_rate = s.clone();
+        other_rate.stamp.rate = 2e6;
+        assert!(avg.add(&other_rate).is_err());
+    }
+
+    #[test]
+    fn decimation_keeps_narrow_peaks() {
+        let pts: Vec<(f64, f64)> = (0..100_000)
+            .map(|k| (k as f64, if k == 51_234 { 9.0 } else { 0.0 }))
+            .collect();
+        let d = decimate_min_max(&pts, 1000);
+        assert!(d.len() <= 1002, "{}", d.len());
+        assert!(d.iter().any(|p| p.1 == 9.0 && p.0 == 51_234.0));
+        assert!(d.windows(2).all(|w| w[0].0 <= w[1].0));
+    }
+}
