@@ -42,4 +42,10 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[picture::circular_sweep::SPEC];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[
+    picture::circular_sweep::SPEC,
+    picture::range_trace::SPEC,
+    picture::split_pair::SPEC,
+    picture::angle_plot::SPEC,
+    picture::lobe_timeline::SPEC,
+];

@@ -29,32 +29,45 @@ impl BinWindow {
                 sweep.stamp.index,
             ));
         }
-        let first = p.bins_at(start, rate)?.round().max(0.0) as usize;
+        let first = p.bins_at(start, rate)?;
         let end_bins = p.bins_at(end, rate)?;
         let last = if end_bins <= 0.0 {
             sweep.iq.len() as f64
         } else {
-            end_bins.round()
+            end_bins
         };
-        if last <= first as f64 + 1.0 {
-            return Err(BlockError::at(
-                format!(
-                    "range window '{start}'..'{end}' covers {:.0} to {:.0} m, fewer than two range bins of this {}-bin sweep",
-                    first as f64 * range_bin_m(rate),
-                    last * range_bin_m(rate),
-                    sweep.iq.len()
-                ),
+        BinWindow::from_bins(first, last, sweep).map_err(|e| {
+            BlockError::at(
+                format!("parameters '{start}'..'{end}': {e}"),
                 sweep.stamp.index,
+            )
+        })
+    }
+
+    /// From fractional bin numbers (rounded), at the sweep's rate.
+    pub fn from_bins(first: f64, last: f64, sweep: &Sweep) -> Result<BinWindow, String> {
+        let rate = sweep.stamp.rate;
+        let first = first.round().max(0.0);
+        let last = last.round();
+        if !(last > first + 1.0) {
+            return Err(format!(
+                "range window {:.0} to {:.0} m holds fewer than two range bins (sweep of {} bins)",
+                first * range_bin_m(rate),
+                last * range_bin_m(rate),
+                sweep.iq.len()
             ));
         }
-        let len = (last as usize - first).min(MAX_BINS);
-        if last as usize - first > MAX_BINS {
-            return Err(BlockError::new(format!(
-                "range window '{start}'..'{end}' spans {} bins; at most {MAX_BINS} can be averaged",
-                last as usize - first
-            )));
+        if last - first > MAX_BINS as f64 {
+            return Err(format!(
+                "range window spans {} bins; at most {MAX_BINS} can be averaged",
+                last - first
+            ));
         }
-        Ok(BinWindow { first, len, rate })
+        Ok(BinWindow {
+            first: first as usize,
+            len: (last - first) as usize,
+            rate,
+        })
     }
 
     pub fn bin_m(&self) -> f64 {
@@ -160,6 +173,65 @@ impl SweepAverage {
             }
         }
         (n > 0).then(|| s / n as f64)
+    }
+}
+
+/// Most separate lobe groups a picture keeps.
+pub const MAX_GROUPS: usize = 16;
+
+/// Averaged sweeps per lobe (or one group for all), in lobe order.
+#[derive(Default)]
+pub struct LobeAverages {
+    pub groups: Vec<(String, usize, SweepAverage)>,
+    pub memory: u64,
+    /// Sweeps that fitted no group (more than [`MAX_GROUPS`] lobes).
+    pub dropped: u64,
+}
+
+impl LobeAverages {
+    pub fn new(memory: u64) -> Self {
+        LobeAverages {
+            memory,
+            ..Default::default()
+        }
+    }
+
+    /// Add `sweep` to the group `name` (lobe index `order`), creating it if
+    /// new; `window` is called once, at the very first sweep. Returns false
+    /// when the sweep was dropped for want of room.
+    pub fn add(
+        &mut self,
+        name: &str,
+        order: usize,
+        sweep: &Sweep,
+        window: impl FnOnce(&Sweep) -> Result<BinWindow, BlockError>,
+    ) -> Result<bool, BlockError> {
+        if let Some(g) = self.groups.iter_mut().find(|g| g.0 == name) {
+            g.2.add(sweep)?;
+            return Ok(true);
+        }
+        if self.groups.len() >= MAX_GROUPS {
+            self.dropped += 1;
+            return Ok(false);
+        }
+        let w = match self.groups.first() {
+            Some(g) => g.2.window,
+            None => window(sweep)?,
+        };
+        let mut avg = SweepAverage::new(w, self.memory, sweep.stamp);
+        avg.add(sweep)?;
+        self.groups.push((name.to_string(), order, avg));
+        self.groups
+            .sort_by(|a, b| a.1.cmp(&b.1).then_with(|| a.0.cmp(&b.0)));
+        Ok(true)
+    }
+
+    pub fn get(&self, name: &str) -> Option<&SweepAverage> {
+        self.groups.iter().find(|g| g.0 == name).map(|g| &g.2)
+    }
+
+    pub fn window(&self) -> Option<BinWindow> {
+        self.groups.first().map(|g| g.2.window)
     }
 }
 

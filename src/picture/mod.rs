@@ -6,15 +6,16 @@
 //! that renders a [`Picture`] twice and stages both files atomically.
 
 pub mod accum;
-// pub mod angle_plot;
+pub mod angle_plot;
 pub mod circular;
 pub mod circular_sweep;
-// pub mod lobe_timeline;
-// pub mod range_trace;
-// pub mod split_pair;
+pub mod lobe_timeline;
+pub mod range_trace;
+pub mod split_pair;
 
 use lobeflow_blocks::{BlockError, FileStager, OutputFile};
 use plotters::coord::Shift;
+use plotters::coord::types::RangedCoordf64;
 use plotters::prelude::*;
 use plotters::style::FontStyle;
 use std::path::{Path, PathBuf};
@@ -190,4 +191,93 @@ pub fn padded(lo: f64, hi: f64, frac: f64, min_span: f64) -> (f64, f64) {
         mid - 0.5 * span * (1.0 + 2.0 * frac),
         mid + 0.5 * span * (1.0 + 2.0 * frac),
     )
+}
+
+/// A chart with f64 axes on both sides.
+pub type Chart<'a, DB> = ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
+
+/// A chart in our style on `area`: panel ground, optional caption.
+pub fn chart<'a, DB: DrawingBackend>(
+    area: &'a DrawingArea<DB, Shift>,
+    caption: &str,
+    x: std::ops::Range<f64>,
+    y: std::ops::Range<f64>,
+) -> Result<Chart<'a, DB>, String> {
+    let mut builder = ChartBuilder::on(area);
+    builder
+        .margin(14)
+        .x_label_area_size(44)
+        .y_label_area_size(70);
+    if !caption.is_empty() {
+        builder.caption(caption, text_style(17.0, palette::INK));
+    }
+    let chart = builder.build_cartesian_2d(x, y).map_err(draw_err)?;
+    chart
+        .plotting_area()
+        .fill(&palette::PANEL)
+        .map_err(draw_err)?;
+    Ok(chart)
+}
+
+/// Grid, tick labels and axis titles (with units) in our style.
+pub fn draw_mesh<DB: DrawingBackend>(
+    chart: &mut Chart<'_, DB>,
+    x_desc: &str,
+    y_desc: &str,
+) -> Result<(), String> {
+    chart
+        .configure_mesh()
+        .bold_line_style(palette::GRID)
+        .light_line_style(palette::GRID_FINE)
+        .axis_style(palette::MUTED)
+        .label_style(text_style(13.0, palette::INK))
+        .axis_desc_style(text_style(14.0, palette::INK))
+        .x_desc(x_desc)
+        .y_desc(y_desc)
+        .x_labels(10)
+        .y_labels(8)
+        .draw()
+        .map_err(draw_err)
+}
+
+/// A small legend box of (colour, label) in the chart's top-right corner.
+pub fn legend<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    let (w, _) = area.dim_in_pixel();
+    let widest = entries
+        .iter()
+        .map(|e| e.1.chars().count())
+        .max()
+        .unwrap_or(0) as i32;
+    let box_w = 46 + 8 * widest;
+    let x0 = w as i32 - box_w - 24;
+    let y0 = 20;
+    let h = 22 * entries.len() as i32 + 10;
+    area.draw(&Rectangle::new(
+        [(x0, y0), (x0 + box_w, y0 + h)],
+        palette::PANEL.filled(),
+    ))
+    .map_err(draw_err)?;
+    area.draw(&Rectangle::new(
+        [(x0, y0), (x0 + box_w, y0 + h)],
+        palette::GRID.stroke_width(1),
+    ))
+    .map_err(draw_err)?;
+    for (i, (colour, label)) in entries.iter().enumerate() {
+        let y = y0 + 16 + 22 * i as i32;
+        area.draw(&PathElement::new(
+            vec![(x0 + 8, y), (x0 + 32, y)],
+            colour.stroke_width(3),
+        ))
+        .map_err(draw_err)?;
+        area.draw(&Text::new(
+            label.clone(),
+            (x0 + 40, y - 8),
+            text_style(13.0, palette::INK),
+        ))
+        .map_err(draw_err)?;
+    }
+    Ok(())
 }
