@@ -265,3 +265,363 @@ fn circular_sweep_without_sweeps_still_writes_pictures() {
     let (w, h, _) = png_facts(&base.with_extension("png"));
     assert_eq!((w, h), (1280, 780));
 }
+
+const LOBES: [&str; 4] = ["right", "up", "left", "down"];
+const PULSES_PER_DWELL: u64 = 4;
+
+/// Relative echo amplitude of each lobe for a target at 0.5 deg right and
+/// 0.5 deg up: Gaussian beams, BW 6 deg, squint 2.4 deg, two-way (field
+/// notes sections 2-3; A/B = 1.447269, 20 log10 = 3.2110 dB).
+fn lobe_gain(lobe: usize) -> f64 {
+    let bw: f64 = 6.0;
+    let g = |x: f64| (-2.0 * 2f64.ln() * x * x / (bw * bw)).exp();
+    let off = match lobe {
+        0 | 1 => 0.5 - 2.4,
+        _ => 0.5 + 2.4,
+    };
+    g(off).powi(2)
+}
+
+/// Labelled sweeps of a four-lobe switch cycle, echo at `echo_bin`.
+fn labelled_sweeps(n: u64, echo_bin: f64, noise: bool) -> Vec<Sweep> {
+    let mut rng = Rng::new(23);
+    (0..n)
+        .map(|k| {
+            let dwell = k / PULSES_PER_DWELL;
+            let lobe = (dwell % 4) as usize;
+            let tag = lobe_tag(
+                lobe,
+                LOBES[lobe],
+                dwell,
+                dwell * PULSES_PER_DWELL * SWEEP_LEN as u64,
+            );
+            let mut s = sweep(&mut rng, k, echo_bin, 20.0 * lobe_gain(lobe), Some(tag));
+            if !noise {
+                let clean: Vec<Complex32> = (0..SWEEP_LEN)
+                    .map(|i| {
+                        let env = 20.0
+                            * lobe_gain(lobe)
+                            * (-0.5 * ((i as f64 - echo_bin) / 1.5).powi(2)).exp();
+                        Complex32::new(env as f32, 0.0)
+                    })
+                    .collect();
+                s.iq = clean.into();
+            }
+            s
+        })
+        .collect()
+}
+
+fn svg_texts(path: &Path) -> Vec<String> {
+    let text = std::fs::read_to_string(path).unwrap();
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    doc.descendants()
+        .filter(|n| n.tag_name().name() == "text")
+        .filter_map(|n| n.text().map(|t| t.trim().to_string()))
+        .collect()
+}
+
+#[test]
+fn range_trace_draws_each_lobe_and_the_gate() {
+    let spec = lobeflow::picture::range_trace::SPEC;
+    let items = || {
+        labelled_sweeps(160, 900.3, true)
+            .into_iter()
+            .map(|s| (0, Item::Sweep(s)))
+            .collect()
+    };
+    let set = [
+        ("gate_start", "33.5 km"),
+        ("gate_width", "600 m"),
+        ("range_end", "60 km"),
+    ];
+    let (_, written) = assert_repeatable(&spec, &set, items, "trace");
+    let base = written[0].with_extension("");
+    check_pictures(&written, &base, (1200, 640));
+    let texts = svg_texts(&base.with_extension("svg"));
+    for lobe in LOBES {
+        assert!(
+            texts
+                .iter()
+                .any(|t| t.starts_with(&format!("{lobe} (40 sweeps)"))),
+            "legend lacks {lobe}: {texts:?}"
+        );
+    }
+    assert!(texts.iter().any(|t| t.starts_with("gate 33.")), "{texts:?}");
+}
+
+#[test]
+fn split_pair_prints_the_balance_of_each_pair() {
+    let spec = lobeflow::picture::split_pair::SPEC;
+    let echo_bin = 900.0;
+    let bin = range_bin_m(RATE);
+    let gate_start = format!("{} m", (echo_bin - 3.0) * bin);
+    let gate_width = format!("{} m", 6.0 * bin);
+    let items = || {
+        labelled_sweeps(64, echo_bin, false)
+            .into_iter()
+            .map(|s| (0, Item::Sweep(s)))
+            .collect()
+    };
+    let set = [
+        ("gate_start", gate_start.as_str()),
+        ("gate_width", gate_width.as_str()),
+        ("separation", "0.3"),
+    ];
+    let (_, written) = assert_repeatable(&spec, &set, items, "split");
+    let base = written[0].with_extension("");
+    check_pictures(&written, &base, (1200, 640));
+    // Field notes check value: A/B = 1.447269, 3.2110 dB, for 0.5 deg off axis.
+    let texts = svg_texts(&base.with_extension("svg"));
+    assert!(
+        texts
+            .iter()
+            .any(|t| t.starts_with("az: right") && t.ends_with("= +3.21 dB")),
+        "{texts:?}"
+    );
+    assert!(
+        texts
+            .iter()
+            .any(|t| t.starts_with("el: up") && t.ends_with("= +3.21 dB")),
+        "{texts:?}"
+    );
+}
+
+#[test]
+fn split_pair_balance_matches_the_gaussian_check_value() {
+    use lobeflow::picture::split_pair::balance_db;
+    let sweeps = labelled_sweeps(32, 700.0, false);
+    let p = params(&lobeflow::picture::split_pair::SPEC, &[]);
+    let window = BinWindow::from_params(
+        &{
+            let mut q = p.clone();
+            q.insert("a", lobeflow_blocks::Value::Metres(0.0));
+            q
+        },
+        "a",
+        "a",
+        &sweeps[0],
+    )
+    .unwrap();
+    let mut right = SweepAverage::new(window, 0, sweeps[0].stamp);
+    let mut left = SweepAverage::new(window, 0, sweeps[0].stamp);
+    for s in &sweeps {
+        match s.lobe.as_ref().map(|t| &*t.name) {
+            Some("right") => right.add(s).unwrap(),
+            Some("left") => left.add(s).unwrap(),
+            _ => {}
+        }
+    }
+    let b = balance_db(Some(&right), Some(&left), Some((697, 704))).unwrap();
+    assert!((b - 3.2110).abs() < 5e-4, "balance {b} dB");
+    let at_peak = balance_db(Some(&right), Some(&left), None).unwrap();
+    assert!((at_peak - 3.2110).abs() < 5e-4, "balance {at_peak} dB");
+    assert_eq!(balance_db(Some(&right), None, None), None);
+}
+
+fn estimates(n: u64) -> Vec<(usize, Item)> {
+    let mut rng = Rng::new(3);
+    let mut out = Vec::new();
+    for k in 0..n {
+        for (axis, truth) in [("az", 0.4), ("el", -0.2)] {
+            let t = k as f64 * 0.002;
+            let flag = match k % 97 {
+                5 => Flag::OutOfRange,
+                11 => Flag::NoSignal,
+                23 => Flag::Outlier,
+                _ => Flag::Ok,
+            };
+            let err = truth
+                + 0.3 * (t * 0.5).sin()
+                + 0.05 * rng.gaussian()
+                + if flag == Flag::Outlier { 1.5 } else { 0.0 };
+            out.push((
+                0,
+                Item::Estimate(AngleEstimate {
+                    stamp: Stamp::new(k * 8000, RATE),
+                    axis: Arc::from(axis),
+                    error_deg: matches!(flag, Flag::Ok | Flag::Outlier).then_some(err),
+                    sigma_deg: 0.05,
+                    snr_db: 18.0,
+                    ratio_db: 0.0,
+                    range_m: Some(33_700.0),
+                    flag,
+                    tracked_deg: Some(truth + 0.3 * (t * 0.5).sin()),
+                    absolute_deg: None,
+                }),
+            ));
+        }
+    }
+    out
+}
+
+#[test]
+fn angle_plot_has_one_panel_per_axis_and_marks_flags() {
+    let spec = lobeflow::picture::angle_plot::SPEC;
+    let (_, written) = assert_repeatable(&spec, &[], || estimates(20_000), "angles");
+    let base = written[0].with_extension("");
+    check_pictures(&written, &base, (1200, 68 + 2 * 280));
+    let texts = svg_texts(&base.with_extension("svg"));
+    // 20000 per axis: k % 97 == 5 and 11 happen 207 times, == 23 206 times.
+    assert!(
+        texts
+            .iter()
+            .any(|t| t == "axis az: 19380 ok, 207 out of range, 207 no signal, 206 outliers"),
+        "{texts:?}"
+    );
+    assert!(texts.iter().any(|t| t.starts_with("axis el:")));
+    assert!(texts.iter().any(|t| t.starts_with("out of range (207)")));
+}
+
+fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
+    let dwell_len = 4 * SWEEP_LEN;
+    let guard = 100;
+    let mut items = Vec::new();
+    for d in 0..dwells {
+        let lobe = (d % 4) as usize;
+        let start = d * dwell_len as u64;
+        let tag = lobe_tag(lobe, LOBES[lobe], d, start);
+        // Two segments per dwell after the guard.
+        for half in 0..2u64 {
+            let from = start + guard + half * (dwell_len as u64 - guard) / 2;
+            let len = (dwell_len as u64 - guard) / 2;
+            let chunk = SampleChunk {
+                stamp: Stamp::new(from, RATE),
+                iq: vec![Complex32::new(0.0, 0.0); len as usize].into(),
+                sync: None,
+                trigger: None,
+            };
+            items.push((
+                1,
+                Item::Segment(LobeSegment {
+                    tag: tag.clone(),
+                    chunk,
+                    dwell_end: half == 1,
+                }),
+            ));
+        }
+        for p in 0..4u64 {
+            let mut rng = Rng::new(d * 4 + p);
+            let mut s = sweep(&mut rng, d * 4 + p, 500.0, 1.0, Some(tag.clone()));
+            s.stamp = Stamp::new(start + p * SWEEP_LEN as u64, RATE);
+            items.push((0, Item::Sweep(s)));
+        }
+        if d % 37 == 10 {
+            let what = format!("dwell {d} shorter than expected at sample {start}");
+            items.push((
+                2,
+                Item::Notice(Notice {
+                    stamp: Stamp::new(start, RATE),
+                    block: Arc::from("gate"),
+                    what,
+                }),
+            ));
+        }
+    }
+    items.sort_by_key(|(_, i)| i.stamp().index);
+    items
+}
+
+#[test]
+fn lobe_timeline_draws_rows_guards_and_notices_and_truncates() {
+    let spec = lobeflow::picture::lobe_timeline::SPEC;
+    let (_, written) = assert_repeatable(
+        &spec,
+        &[("max_dwells", "40")],
+        || timeline_items(120),
+        "timeline",
+    );
+    let base = written[0].with_extension("");
+    check_pictures(&written, &base, (1200, 68 + 100 + 52 * 4 + 110));
+    let texts = svg_texts(&base.with_extension("svg"));
+    assert!(
+        texts
+            .iter()
+            .any(|t| t.starts_with("first 0.08") && t.contains("40 dwell bars from segments")),
+        "{texts:?}"
+    );
+    assert!(
+        texts.iter().any(|t| t.contains("dwell 10 shorter")),
+        "{texts:?}"
+    );
+    for lobe in LOBES {
+        assert!(texts.iter().any(|t| t == lobe), "no row label {lobe}");
+    }
+    // A span limit instead of a dwell count: 10 ms holds 5 dwells of 2 ms.
+    let dir = scratch("timeline-span");
+    let base = dir.join("span");
+    let (_, written) = run(
+        &spec,
+        &[("span", "10 ms"), ("path", &base.to_string_lossy())],
+        timeline_items(20),
+    );
+    assert_eq!(written.len(), 2);
+    let texts = svg_texts(&base.with_extension("svg"));
+    assert!(
+        texts
+            .iter()
+            .any(|t| t.contains("5 dwell bars from segments")),
+        "{texts:?}"
+    );
+}
+
+#[test]
+fn bad_windows_and_rates_are_errors_not_panics() {
+    let spec = lobeflow::picture::circular_sweep::SPEC;
+    let files = FileStager::default();
+    let ctx = BuildContext {
+        name: "c".into(),
+        out_dir: std::env::temp_dir(),
+        files,
+    };
+    let dir = scratch("bad");
+    let path = dir.join("bad").to_string_lossy().into_owned();
+    let mut block = (spec.build)(
+        &params(&spec, &[("range_start", "100 km"), ("path", &path)]),
+        &ctx,
+    )
+    .unwrap();
+    let mut out = Outputs::new(1);
+    let mut rng = Rng::new(1);
+    let err = block
+        .process(
+            0,
+            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
+            &mut out,
+        )
+        .unwrap_err();
+    assert!(
+        err.message.contains("range_start") && err.at_sample == Some(0),
+        "{err}"
+    );
+
+    let mut block = (spec.build)(&params(&spec, &[("path", &path)]), &ctx).unwrap();
+    block
+        .process(
+            0,
+            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
+            &mut out,
+        )
+        .unwrap();
+    let mut odd = sweep(&mut rng, 1, 10.0, 1.0, None);
+    odd.stamp.rate = 2e6;
+    let err = block.process(0, Item::Sweep(odd), &mut out).unwrap_err();
+    assert!(err.message.contains("sample rate changed"), "{err}");
+
+    let split = lobeflow::picture::split_pair::SPEC;
+    let err = (split.build)(
+        &params(&split, &[("pairs", "az=right"), ("path", &path)]),
+        &ctx,
+    )
+    .err()
+    .unwrap();
+    assert!(err.contains("pairs"), "{err}");
+    // Non-finite estimates are counted as no signal, not drawn or panicked on.
+    let angle = lobeflow::picture::angle_plot::SPEC;
+    let mut items = estimates(50);
+    if let (_, Item::Estimate(e)) = &mut items[0] {
+        e.error_deg = Some(f64::NAN);
+    }
+    let (_, written) = run(&angle, &[("path", &path)], items);
+    assert_eq!(written.len(), 2);
+}
