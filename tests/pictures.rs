@@ -470,7 +470,7 @@ fn angle_plot_has_one_panel_per_axis_and_marks_flags() {
         "{texts:?}"
     );
     assert!(texts.iter().any(|t| t.starts_with("axis el:")));
-    assert!(texts.iter().any(|t| t.starts_with("out of range (207)")));
+    assert!(texts.iter().any(|t| t == "out of range: 207, top"));
 }
 
 fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {

@@ -384,7 +384,8 @@ fn draw_axis<DB: DrawingBackend>(
         "axis {}: {ok} ok, {oor} out of range, {nosig} no signal, {outl} outliers",
         s.axis
     );
-    let mut ch = chart(cell, &caption, t0..t1, y0..y1)?;
+    let (plot, key) = cell.split_horizontally(cell.dim_in_pixel().0 as i32 - 250);
+    let mut ch = chart(&plot, &caption, t0..t1, y0..y1)?;
     let clamp = |v: f64| v.clamp(y0, y1);
     // The ±σ band, one polygon per run of buckets with ordinary estimates.
     let mut runs: Vec<Vec<(f64, f64, f64)>> = vec![Vec::new()];
@@ -460,35 +461,32 @@ fn draw_axis<DB: DrawingBackend>(
         s.buckets
             .iter()
             .filter(|b| b.out_of_range > 0)
-            .map(|b| TriangleMarker::new((b.mid(), y1 - edge), 6, palette::FLAG_EDGE.filled())),
+            .map(|b| TriangleMarker::new((b.mid(), y1 - edge), 4, palette::FLAG_EDGE.filled())),
     )
     .map_err(draw_err)?;
     ch.draw_series(
         s.buckets
             .iter()
             .filter(|b| b.no_signal > 0)
-            .map(|b| Cross::new((b.mid(), y0 + edge), 5, palette::MUTED.stroke_width(2))),
+            .map(|b| Cross::new((b.mid(), y0 + edge), 3, palette::MUTED.stroke_width(1))),
     )
     .map_err(draw_err)?;
     ch.draw_series(s.buckets.iter().filter(|b| b.outliers > 0).flat_map(|b| {
         [b.outlier_min, b.outlier_max]
             .into_iter()
-            .map(move |v| Circle::new((b.mid(), clamp(v)), 4, palette::ALERT.stroke_width(2)))
+            .map(move |v| Circle::new((b.mid(), clamp(v)), 3, palette::ALERT.stroke_width(1)))
     }))
     .map_err(draw_err)?;
     if oor > 0 {
-        entries.push((
-            palette::FLAG_EDGE,
-            format!("out of range ({oor}), top edge"),
-        ));
+        entries.push((palette::FLAG_EDGE, format!("out of range: {oor}, top")));
     }
     if nosig > 0 {
-        entries.push((palette::MUTED, format!("no signal ({nosig}), bottom edge")));
+        entries.push((palette::MUTED, format!("no signal: {nosig}, bottom")));
     }
     if outl > 0 {
-        entries.push((palette::ALERT, format!("outlier ({outl})")));
+        entries.push((palette::ALERT, format!("outliers: {outl}")));
     }
-    legend(cell, &entries)
+    legend(&key, 40, &entries)
 }
 
 #[cfg(test)]

@@ -240,9 +240,11 @@ pub fn draw_mesh<DB: DrawingBackend>(
         .map_err(draw_err)
 }
 
-/// A small legend box of (colour, label) in the chart's top-right corner.
+/// A small legend box of (colour, label) at the top-right corner of `area`,
+/// `top` pixels down.
 pub fn legend<DB: DrawingBackend>(
     area: &DrawingArea<DB, Shift>,
+    top: i32,
     entries: &[(RGBColor, String)],
 ) -> Result<(), String> {
     let (w, _) = area.dim_in_pixel();
@@ -251,9 +253,9 @@ pub fn legend<DB: DrawingBackend>(
         .map(|e| e.1.chars().count())
         .max()
         .unwrap_or(0) as i32;
-    let box_w = 46 + 8 * widest;
-    let x0 = w as i32 - box_w - 24;
-    let y0 = 20;
+    let box_w = 46 + 7 * widest;
+    let x0 = (w as i32 - box_w - 24).max(4);
+    let y0 = top;
     let h = 22 * entries.len() as i32 + 10;
     area.draw(&Rectangle::new(
         [(x0, y0), (x0 + box_w, y0 + h)],

@@ -236,7 +236,7 @@ impl Picture for TracePicture {
         if entries.is_empty() {
             entries.push((palette::MUTED, "no sweeps".into()));
         }
-        legend(&area, &entries)?;
+        legend(&area, 20, &entries)?;
         Ok(())
     }
 }

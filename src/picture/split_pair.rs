@@ -439,7 +439,7 @@ fn draw_panel<DB: DrawingBackend>(
         )))
         .map_err(draw_err)?;
     } else {
-        legend(cell, &entries)?;
+        legend(cell, 44, &entries)?;
     }
     Ok(())
 }
