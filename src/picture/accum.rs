@@ -123,28 +123,46 @@ impl SweepAverage {
         }
         let first = self.window.first.max(sweep.blanked);
         let end = (self.window.first + self.window.len).min(sweep.iq.len());
-        for i in first..end {
-            let k = i - self.window.first;
-            let p = f64::from(sweep.iq[i].norm_sqr());
-            let c = self.counts[k] + 1;
-            self.counts[k] = c;
-            let n = if self.memory > 0 {
-                c.min(self.memory)
+        if first < end {
+            let src = &sweep.iq[first..end];
+            let k0 = first - self.window.first;
+            let power = &mut self.power[k0..k0 + src.len()];
+            let counts = &mut self.counts[k0..k0 + src.len()];
+            let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
+            if self.memory == 0 {
+                // Plain mean: keep sums, divide once when drawing.
+                for ((p, c), x) in bins {
+                    *p += f64::from(x.norm_sqr());
+                    *c += 1;
+                }
             } else {
-                c
-            };
-            self.power[k] += (p - self.power[k]) / n as f64;
+                // Running mean while warming up, then a fixed weight 1/memory.
+                let m = self.memory;
+                let weight = 1.0 / m as f64;
+                for ((p, c), x) in bins {
+                    *c += 1;
+                    let v = f64::from(x.norm_sqr());
+                    let w = if *c >= m { weight } else { 1.0 / *c as f64 };
+                    *p += (v - *p) * w;
+                }
+            }
         }
         self.sweeps += 1;
         Ok(())
     }
 
+    /// Mean (or exponentially averaged) power of window bin `k`.
+    pub fn power_at(&self, k: usize) -> Option<f64> {
+        match (self.counts.get(k), self.power.get(k)) {
+            (Some(&c), Some(&p)) if c > 0 => Some(if self.memory == 0 { p / c as f64 } else { p }),
+            _ => None,
+        }
+    }
+
     /// RMS amplitude per bin; NaN for bins no sweep reached.
     pub fn amplitude(&self) -> Vec<f64> {
-        self.power
-            .iter()
-            .zip(&self.counts)
-            .map(|(&p, &c)| if c == 0 { f64::NAN } else { p.max(0.0).sqrt() })
+        (0..self.window.len)
+            .map(|k| self.power_at(k).map_or(f64::NAN, |p| p.max(0.0).sqrt()))
             .collect()
     }
 
@@ -166,11 +184,9 @@ impl SweepAverage {
     pub fn mean_power(&self, lo: usize, hi: usize) -> Option<f64> {
         let hi = hi.min(self.window.len);
         let (mut s, mut n) = (0.0, 0);
-        for k in lo.min(hi)..hi {
-            if self.counts[k] > 0 {
-                s += self.power[k];
-                n += 1;
-            }
+        for p in (lo.min(hi)..hi).filter_map(|k| self.power_at(k)) {
+            s += p;
+            n += 1;
         }
         (n > 0).then(|| s / n as f64)
     }
