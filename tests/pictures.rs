@@ -608,6 +608,21 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     let err = block.process(0, Item::Sweep(odd), &mut out).unwrap_err();
     assert!(err.message.contains("sample rate changed"), "{err}");
 
+    let mut block = (spec.build)(
+        &params(&spec, &[("mark_every", "0 bins"), ("path", &path)]),
+        &ctx,
+    )
+    .unwrap();
+    block
+        .process(
+            0,
+            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
+            &mut out,
+        )
+        .unwrap();
+    let err = block.finish(&mut out).err().unwrap();
+    assert!(err.message.contains("mark_every"), "{err}");
+
     let split = lobeflow::picture::split_pair::SPEC;
     let err = (split.build)(
         &params(&split, &[("pairs", "az=right"), ("path", &path)]),

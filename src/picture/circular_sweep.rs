@@ -164,6 +164,11 @@ impl Block for CircularSweep {
                 .bins_at("mark_every", avg.window.rate)
                 .map(|b| b * avg.window.bin_m())
         })?;
+        if !(mark_m > 0.0 && mark_m.is_finite()) {
+            return Err(BlockError::new(format!(
+                "parameter 'mark_every' must be a positive distance, got {mark_m} m"
+            )));
+        }
         let scene = Scene::compute(avg, self.revolutions, self.sign, self.gain, mark_m)
             .map_err(BlockError::new)?;
         for row in scene.rows(avg) {
