@@ -35,8 +35,10 @@ fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     p
 }
 
+/// A fresh directory under cargo's scratch space for integration tests
+/// (left in place so the pictures can be looked at after a run).
 fn scratch(name: &str) -> PathBuf {
-    let dir = std::env::temp_dir().join(format!("lobeflow-pictures-{}-{name}", std::process::id()));
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("pictures").join(name);
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).unwrap();
     dir
