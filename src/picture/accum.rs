@@ -49,7 +49,7 @@ impl BinWindow {
         let rate = sweep.stamp.rate;
         let first = first.round().max(0.0);
         let last = last.round();
-        if !(last > first + 1.0) {
+        if last.is_nan() || last <= first + 1.0 {
             return Err(format!(
                 "range window {:.0} to {:.0} m holds fewer than two range bins (sweep of {} bins)",
                 first * range_bin_m(rate),

@@ -25,8 +25,7 @@ impl Winding {
         range_end_m: f64,
         revolutions: f64,
     ) -> Result<Winding, String> {
-        if !(range_end_m > range_start_m) || !range_start_m.is_finite() || !range_end_m.is_finite()
-        {
+        if !range_start_m.is_finite() || !range_end_m.is_finite() || range_end_m <= range_start_m {
             return Err(format!(
                 "range window {range_start_m} m to {range_end_m} m is empty"
             ));

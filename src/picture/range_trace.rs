@@ -173,8 +173,11 @@ impl Block for RangeTrace {
     }
 }
 
+/// Colour, legend label and decimated (km, dB) points of one trace.
+type Trace = (RGBColor, String, Vec<(f64, f64)>);
+
 struct TracePicture {
-    traces: Vec<(RGBColor, String, Vec<(f64, f64)>)>,
+    traces: Vec<Trace>,
     gate: Option<(f64, f64)>,
     window: Option<BinWindow>,
     dropped: u64,
