@@ -23,6 +23,7 @@ pub mod capture;
 pub mod commands;
 pub mod error;
 pub mod graph;
+pub mod picture;
 pub mod regress;
 pub mod runtime;
 pub mod session;
@@ -43,4 +44,12 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::source::SPEC, capture::sink::SPEC];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[
+    capture::source::SPEC,
+    capture::sink::SPEC,
+    picture::circular_sweep::SPEC,
+    picture::range_trace::SPEC,
+    picture::split_pair::SPEC,
+    picture::angle_plot::SPEC,
+    picture::lobe_timeline::SPEC,
+];

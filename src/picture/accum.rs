@@ -1,0 +1,380 @@
+//! Bounded summaries the picture blocks keep while items stream past.
+
+use lobeflow_blocks::{BlockError, Params, Stamp, Sweep, range_bin_m};
+
+/// Most range bins one averaged sweep may hold (bounds memory per block).
+pub const MAX_BINS: usize = 1 << 20;
+
+/// Range window of a sweep picture, resolved to bins at the first sweep.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct BinWindow {
+    pub first: usize,
+    pub len: usize,
+    pub rate: f64,
+}
+
+impl BinWindow {
+    /// From the Distance parameters `start` and `end` (end 0 = to the end of
+    /// the sweep), at the sweep's rate and length.
+    pub fn from_params(
+        p: &Params,
+        start: &str,
+        end: &str,
+        sweep: &Sweep,
+    ) -> Result<BinWindow, BlockError> {
+        let rate = sweep.stamp.rate;
+        if !(rate > 0.0 && rate.is_finite()) {
+            return Err(BlockError::at(
+                format!("sweep has an unusable sample rate {rate}"),
+                sweep.stamp.index,
+            ));
+        }
+        let first = p.bins_at(start, rate)?;
+        let end_bins = p.bins_at(end, rate)?;
+        let last = if end_bins <= 0.0 {
+            sweep.iq.len() as f64
+        } else {
+            end_bins
+        };
+        BinWindow::from_bins(first, last, sweep).map_err(|e| {
+            BlockError::at(
+                format!("parameters '{start}'..'{end}': {e}"),
+                sweep.stamp.index,
+            )
+        })
+    }
+
+    /// From fractional bin numbers (rounded), at the sweep's rate.
+    pub fn from_bins(first: f64, last: f64, sweep: &Sweep) -> Result<BinWindow, String> {
+        let rate = sweep.stamp.rate;
+        let first = first.round().max(0.0);
+        let last = last.round();
+        if last.is_nan() || last <= first + 1.0 {
+            return Err(format!(
+                "range window {:.0} to {:.0} m holds fewer than two range bins (sweep of {} bins)",
+                first * range_bin_m(rate),
+                last * range_bin_m(rate),
+                sweep.iq.len()
+            ));
+        }
+        if last - first > MAX_BINS as f64 {
+            return Err(format!(
+                "range window spans {} bins; at most {MAX_BINS} can be averaged",
+                last - first
+            ));
+        }
+        Ok(BinWindow {
+            first: first as usize,
+            len: (last - first) as usize,
+            rate,
+        })
+    }
+
+    pub fn bin_m(&self) -> f64 {
+        range_bin_m(self.rate)
+    }
+    /// Range of window bin `k` (may be fractional).
+    pub fn range_m(&self, k: f64) -> f64 {
+        (self.first as f64 + k) * self.bin_m()
+    }
+    pub fn start_m(&self) -> f64 {
+        self.range_m(0.0)
+    }
+    pub fn end_m(&self) -> f64 {
+        self.range_m(self.len as f64)
+    }
+}
+
+/// Power averaged per range bin over many sweeps: a running mean of all
+/// sweeps, or (with `memory` > 0) an exponential average that weighs about
+/// the last `memory` sweeps. One accumulator per bin.
+#[derive(Clone, Debug)]
+pub struct SweepAverage {
+    pub window: BinWindow,
+    power: Vec<f64>,
+    counts: Vec<u64>,
+    memory: u64,
+    pub sweeps: u64,
+    pub first_stamp: Stamp,
+}
+
+impl SweepAverage {
+    pub fn new(window: BinWindow, memory: u64, first_stamp: Stamp) -> SweepAverage {
+        SweepAverage {
+            window,
+            power: vec![0.0; window.len],
+            counts: vec![0; window.len],
+            memory,
+            sweeps: 0,
+            first_stamp,
+        }
+    }
+
+    /// Add one sweep; bins it does not reach keep their value.
+    pub fn add(&mut self, sweep: &Sweep) -> Result<(), BlockError> {
+        if sweep.stamp.rate != self.window.rate {
+            return Err(BlockError::at(
+                format!(
+                    "sweep sample rate changed from {} to {} S/s",
+                    self.window.rate, sweep.stamp.rate
+                ),
+                sweep.stamp.index,
+            ));
+        }
+        let first = self.window.first.max(sweep.blanked);
+        let end = (self.window.first + self.window.len).min(sweep.iq.len());
+        if first < end {
+            let src = &sweep.iq[first..end];
+            let k0 = first - self.window.first;
+            let power = &mut self.power[k0..k0 + src.len()];
+            let counts = &mut self.counts[k0..k0 + src.len()];
+            let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
+            if self.memory == 0 {
+                // Plain mean: keep sums, divide once when drawing.
+                for ((p, c), x) in bins {
+                    *p += f64::from(x.norm_sqr());
+                    *c += 1;
+                }
+            } else {
+                // Running mean while warming up, then a fixed weight 1/memory.
+                let m = self.memory;
+                let weight = 1.0 / m as f64;
+                for ((p, c), x) in bins {
+                    *c += 1;
+                    let v = f64::from(x.norm_sqr());
+                    let w = if *c >= m { weight } else { 1.0 / *c as f64 };
+                    *p += (v - *p) * w;
+                }
+            }
+        }
+        self.sweeps += 1;
+        Ok(())
+    }
+
+    /// Mean (or exponentially averaged) power of window bin `k`.
+    pub fn power_at(&self, k: usize) -> Option<f64> {
+        match (self.counts.get(k), self.power.get(k)) {
+            (Some(&c), Some(&p)) if c > 0 => Some(if self.memory == 0 { p / c as f64 } else { p }),
+            _ => None,
+        }
+    }
+
+    /// RMS amplitude per bin; NaN for bins no sweep reached.
+    pub fn amplitude(&self) -> Vec<f64> {
+        (0..self.window.len)
+            .map(|k| self.power_at(k).map_or(f64::NAN, |p| p.max(0.0).sqrt()))
+            .collect()
+    }
+
+    /// Amplitude in dB (20 log10 of the RMS amplitude), floored at -300 dB.
+    pub fn amplitude_db(&self) -> Vec<f64> {
+        self.amplitude()
+            .into_iter()
+            .map(|a| {
+                if a.is_nan() {
+                    a
+                } else {
+                    20.0 * a.max(1e-15).log10()
+                }
+            })
+            .collect()
+    }
+
+    /// Mean power over window bins `lo..hi` (clipped), ignoring unreached bins.
+    pub fn mean_power(&self, lo: usize, hi: usize) -> Option<f64> {
+        let hi = hi.min(self.window.len);
+        let (mut s, mut n) = (0.0, 0);
+        for p in (lo.min(hi)..hi).filter_map(|k| self.power_at(k)) {
+            s += p;
+            n += 1;
+        }
+        (n > 0).then(|| s / n as f64)
+    }
+}
+
+/// Most separate lobe groups a picture keeps.
+pub const MAX_GROUPS: usize = 16;
+
+/// Averaged sweeps per lobe (or one group for all), in lobe order.
+#[derive(Default)]
+pub struct LobeAverages {
+    pub groups: Vec<(String, usize, SweepAverage)>,
+    pub memory: u64,
+    /// Sweeps that fitted no group (more than [`MAX_GROUPS`] lobes).
+    pub dropped: u64,
+}
+
+impl LobeAverages {
+    pub fn new(memory: u64) -> Self {
+        LobeAverages {
+            memory,
+            ..Default::default()
+        }
+    }
+
+    /// Add `sweep` to the group `name` (lobe index `order`), creating it if
+    /// new; `window` is called once, at the very first sweep. Returns false
+    /// when the sweep was dropped for want of room.
+    pub fn add(
+        &mut self,
+        name: &str,
+        order: usize,
+        sweep: &Sweep,
+        window: impl FnOnce(&Sweep) -> Result<BinWindow, BlockError>,
+    ) -> Result<bool, BlockError> {
+        if let Some(g) = self.groups.iter_mut().find(|g| g.0 == name) {
+            g.2.add(sweep)?;
+            return Ok(true);
+        }
+        if self.groups.len() >= MAX_GROUPS {
+            self.dropped += 1;
+            return Ok(false);
+        }
+        let w = match self.groups.first() {
+            Some(g) => g.2.window,
+            None => window(sweep)?,
+        };
+        let mut avg = SweepAverage::new(w, self.memory, sweep.stamp);
+        avg.add(sweep)?;
+        self.groups.push((name.to_string(), order, avg));
+        self.groups
+            .sort_by(|a, b| a.1.cmp(&b.1).then_with(|| a.0.cmp(&b.0)));
+        Ok(true)
+    }
+
+    pub fn get(&self, name: &str) -> Option<&SweepAverage> {
+        self.groups.iter().find(|g| g.0 == name).map(|g| &g.2)
+    }
+
+    pub fn window(&self) -> Option<BinWindow> {
+        self.groups.first().map(|g| g.2.window)
+    }
+}
+
+/// Reduce a series to at most about `max_points` points, keeping each
+/// group's minimum and maximum (so narrow echoes survive).
+pub fn decimate_min_max(points: &[(f64, f64)], max_points: usize) -> Vec<(f64, f64)> {
+    let finite: Vec<(f64, f64)> = points
+        .iter()
+        .copied()
+        .filter(|p| p.0.is_finite() && p.1.is_finite())
+        .collect();
+    if finite.len() <= max_points.max(2) {
+        return finite;
+    }
+    let group = finite.len().div_ceil(max_points.max(2) / 2);
+    let mut out = Vec::with_capacity(max_points + 2);
+    for chunk in finite.chunks(group) {
+        let lo = chunk.iter().min_by(|a, b| a.1.total_cmp(&b.1)).copied();
+        let hi = chunk.iter().max_by(|a, b| a.1.total_cmp(&b.1)).copied();
+        if let (Some(lo), Some(hi)) = (lo, hi) {
+            if lo.0 <= hi.0 {
+                out.extend([lo, hi]);
+            } else {
+                out.extend([hi, lo]);
+            }
+        }
+    }
+    out
+}
+
+/// Median of the finite values (None if there are none).
+pub fn median(values: &[f64]) -> Option<f64> {
+    let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(|a, b| a.total_cmp(b));
+    Some(v[v.len() / 2])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use lobeflow_blocks::{ParamSpec, ParamType, RawValue};
+    use num_complex::Complex32;
+
+    fn sweep(values: &[f32], index: u64) -> Sweep {
+        Sweep {
+            stamp: Stamp::new(index, 4e6),
+            pulse: 0,
+            iq: values
+                .iter()
+                .map(|&v| Complex32::new(v, 0.0))
+                .collect::<Vec<_>>()
+                .into(),
+            sync: None,
+            blanked: 0,
+            predicted: false,
+            lobe: None,
+        }
+    }
+
+    fn window_params(start: &str, end: &str) -> Params {
+        let mut p = Params::new();
+        let spec = ParamSpec {
+            name: "x",
+            ty: ParamType::Distance {
+                min_m: 0.0,
+                max_m: 1e7,
+            },
+            default: None,
+            doc: "",
+        };
+        p.insert("start", spec.parse(&RawValue::Text(start.into())).unwrap());
+        p.insert("end", spec.parse(&RawValue::Text(end.into())).unwrap());
+        p
+    }
+
+    #[test]
+    fn running_mean_and_exponential_memory() {
+        let s0 = sweep(&[1.0, 2.0, 0.0, 0.0], 0);
+        let w = BinWindow::from_params(&window_params("0 m", "0 m"), "start", "end", &s0).unwrap();
+        assert_eq!(
+            w,
+            BinWindow {
+                first: 0,
+                len: 4,
+                rate: 4e6
+            }
+        );
+        let mut all = SweepAverage::new(w, 0, s0.stamp);
+        let mut last2 = SweepAverage::new(w, 2, s0.stamp);
+        for (k, v) in [1.0f32, 3.0, 5.0].iter().enumerate() {
+            let s = sweep(&[*v, 0.0, 0.0, 0.0], 1000 * k as u64);
+            all.add(&s).unwrap();
+            last2.add(&s).unwrap();
+        }
+        // Powers 1, 9, 25: mean 35/3; exponential with weight 1/2 after two: (1+9)/2 then halfway to 25.
+        assert!((all.amplitude()[0] - (35.0f64 / 3.0).sqrt()).abs() < 1e-12);
+        assert!((last2.amplitude()[0] - 15.0f64.sqrt()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn window_in_metres_and_bins() {
+        let s = sweep(&[0.0; 400], 0);
+        // 37.47 m per bin at 4 MS/s (field notes section 5): 1.5 km starts at bin 40.
+        let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s)
+            .unwrap();
+        assert_eq!((w.first, w.len), (40, 60));
+        assert!(
+            BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s)
+                .is_err()
+        );
+        let mut avg = SweepAverage::new(w, 0, s.stamp);
+        let mut other_rate = s.clone();
+        other_rate.stamp.rate = 2e6;
+        assert!(avg.add(&other_rate).is_err());
+    }
+
+    #[test]
+    fn decimation_keeps_narrow_peaks() {
+        let pts: Vec<(f64, f64)> = (0..100_000)
+            .map(|k| (k as f64, if k == 51_234 { 9.0 } else { 0.0 }))
+            .collect();
+        let d = decimate_min_max(&pts, 1000);
+        assert!(d.len() <= 1002, "{}", d.len());
+        assert!(d.iter().any(|p| p.1 == 9.0 && p.0 == 51_234.0));
+        assert!(d.windows(2).all(|w| w[0].0 <= w[1].0));
+    }
+}

@@ -1,0 +1,512 @@
+//! `circular_sweep`: the circular sweep formatter. The averaged sweep (or a
+//! range window of it) is wound onto a fine circle of several turns, with a
+//! coarse single-turn circle beside it; echoes deflect the trace radially and
+//! the strongest echo's range is read off both circles.
+
+use super::accum::{BinWindow, SweepAverage, decimate_min_max, median};
+use super::circular::{Winding, interpolated_peak, read_range};
+use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
+use lobeflow_blocks::{
+    Block, BlockError, BlockSpec, BuildContext, Cell, FileStager, Item, ItemKind, Outputs,
+    ParamSpec, ParamType, Params, PortSpec, TableRow,
+};
+use plotters::coord::Shift;
+use plotters::prelude::*;
+use plotters::style::text_anchor;
+use std::f64::consts::TAU;
+use std::sync::Arc;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "circular_sweep",
+    doc: "Circular sweep formatter: winds the averaged sweep (or a range window of it) onto a fine circle of several turns \
+          with a coarse one-turn circle beside it, echoes deflecting the trace; reads the strongest echo's range from both \
+          circles and writes <path>.png and <path>.svg, optionally the trace as table rows.",
+    inputs: &[PortSpec::required(
+        "sweeps",
+        ItemKind::Sweep,
+        "sweeps to average (all lobes)",
+    )],
+    outputs: &[PortSpec::optional(
+        "rows",
+        ItemKind::Row,
+        "trace points (range_m, x, y, ...) and a final readout row",
+    )],
+    params: &[
+        ParamSpec {
+            name: "range_start",
+            ty: ParamType::Distance {
+                min_m: 0.0,
+                max_m: 1e8,
+            },
+            default: Some("0 m"),
+            doc: "start of the range window",
+        },
+        ParamSpec {
+            name: "range_end",
+            ty: ParamType::Distance {
+                min_m: 0.0,
+                max_m: 1e8,
+            },
+            default: Some("0 m"),
+            doc: "end of the range window (0 = to the end of the first sweep)",
+        },
+        ParamSpec {
+            name: "revolutions",
+            ty: ParamType::Number {
+                unit: lobeflow_blocks::Unit::None,
+                min: 1.0,
+                max: 200.0,
+            },
+            default: Some("8"),
+            doc: "turns of the fine circle per window",
+        },
+        ParamSpec {
+            name: "deflection",
+            ty: ParamType::Choice(&["outward", "inward"]),
+            default: Some("outward"),
+            doc: "which way echoes deflect the trace",
+        },
+        ParamSpec {
+            name: "gain",
+            ty: ParamType::Number {
+                unit: lobeflow_blocks::Unit::None,
+                min: 0.01,
+                max: 100.0,
+            },
+            default: Some("1"),
+            doc: "deflection scale (1: the strongest echo deflects by a quarter of the radius)",
+        },
+        ParamSpec {
+            name: "mark_every",
+            ty: ParamType::Distance {
+                min_m: 1.0,
+                max_m: 1e8,
+            },
+            default: Some("1 km"),
+            doc: "range mark spacing",
+        },
+        ParamSpec {
+            name: "average",
+            ty: ParamType::Integer {
+                min: 0,
+                max: 1_000_000_000,
+            },
+            default: Some("0"),
+            doc: "sweeps to average (0 = all; N = exponential average over about the last N)",
+        },
+        ParamSpec {
+            name: "path",
+            ty: ParamType::OutputPath,
+            default: Some("sweep-circle"),
+            doc: "base name: writes <path>.png and <path>.svg",
+        },
+    ],
+    build,
+};
+
+const WIDTH: u32 = 1280;
+const HEIGHT: u32 = 780;
+/// Most trace points drawn per circle (the rows carry every bin).
+const DRAWN_POINTS: usize = 6000;
+/// Most range marks drawn around the fine circle per turn.
+const MAX_MARKS_PER_TURN: f64 = 100.0;
+
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let deflection = p.text("deflection")?;
+    Ok(Box::new(CircularSweep {
+        params: p.clone(),
+        revolutions: p.num("revolutions")?,
+        sign: if deflection == "inward" { -1.0 } else { 1.0 },
+        gain: p.num("gain")?,
+        memory: p.int("average")?.max(0) as u64,
+        path: p.text("path")?.to_string(),
+        files: ctx.files.clone(),
+        average: None,
+    }))
+}
+
+struct CircularSweep {
+    params: Params,
+    revolutions: f64,
+    sign: f64,
+    gain: f64,
+    memory: u64,
+    path: String,
+    files: FileStager,
+    average: Option<SweepAverage>,
+}
+
+impl Block for CircularSweep {
+    fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Sweep(sweep) = item else {
+            return Ok(());
+        };
+        if self.average.is_none() {
+            let window = BinWindow::from_params(&self.params, "range_start", "range_end", &sweep)?;
+            self.average = Some(SweepAverage::new(window, self.memory, sweep.stamp));
+        }
+        if let Some(avg) = self.average.as_mut() {
+            avg.add(&sweep)?;
+        }
+        Ok(())
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(avg) = self.average.as_ref() else {
+            out.notice(
+                lobeflow_blocks::Stamp::new(0, 1.0),
+                "no sweeps arrived; the circle is drawn empty",
+            );
+            return write_picture(&Empty, &self.path, &self.files).map(|_| ());
+        };
+        let mark_m = self.params.num("mark_every").or_else(|_| {
+            self.params
+                .bins_at("mark_every", avg.window.rate)
+                .map(|b| b * avg.window.bin_m())
+        })?;
+        if !(mark_m > 0.0 && mark_m.is_finite()) {
+            return Err(BlockError::new(format!(
+                "parameter 'mark_every' must be a positive distance, got {mark_m} m"
+            )));
+        }
+        let scene = Scene::compute(avg, self.revolutions, self.sign, self.gain, mark_m)
+            .map_err(BlockError::new)?;
+        for row in scene.rows(avg) {
+            out.push(0, Item::Row(row));
+        }
+        write_picture(&scene, &self.path, &self.files)?;
+        Ok(())
+    }
+}
+
+/// Everything the picture shows, computed once from the averaged sweep.
+pub struct Scene {
+    pub fine: Winding,
+    pub coarse: Winding,
+    /// Range (m) and radial deflection in pixels of the fine circle, per bin.
+    pub trace: Vec<(f64, f64)>,
+    pub amplitude: Vec<f64>,
+    pub readout: Readout,
+    pub mark_m: f64,
+    pub sweeps: u64,
+    coarse_scale: f64,
+    /// +1 outward, -1 inward.
+    sign: f64,
+}
+
+/// The strongest echo as read from the picture.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Readout {
+    /// Range from the coarse turn plus the fine angle.
+    pub range_m: f64,
+    pub turn: i64,
+    pub fine_angle: f64,
+    pub coarse_angle: f64,
+    /// Echo amplitude over the median (floor) amplitude, dB.
+    pub above_floor_db: f64,
+}
+
+impl Scene {
+    pub fn compute(
+        avg: &SweepAverage,
+        revolutions: f64,
+        sign: f64,
+        gain: f64,
+        mark_m: f64,
+    ) -> Result<Scene, String> {
+        let w = avg.window;
+        let fine = Winding::new((400.0, 418.0), 260.0, w.start_m(), w.end_m(), revolutions)?;
+        let coarse = fine.single_turn((1000.0, 300.0), 140.0);
+        let amplitude = avg.amplitude();
+        let floor = median(&amplitude).unwrap_or(0.0);
+        let lifted: Vec<f64> = amplitude
+            .iter()
+            .map(|a| {
+                if a.is_finite() {
+                    (a - floor).max(0.0)
+                } else {
+                    0.0
+                }
+            })
+            .collect();
+        let (peak_bin, peak_lift) = interpolated_peak(&lifted).unwrap_or((0.0, 0.0));
+        let full_scale = if peak_lift > 0.0 { peak_lift } else { 1.0 };
+        let max_defl = 0.25 * fine.radius * gain;
+        let trace: Vec<(f64, f64)> = lifted
+            .iter()
+            .enumerate()
+            .map(|(k, &l)| {
+                (
+                    w.range_m(k as f64),
+                    sign * (max_defl * l / full_scale).min(0.45 * fine.radius),
+                )
+            })
+            .collect();
+        // Read the echo the way a person would: its angle on each circle.
+        let echo_m = w.range_m(peak_bin);
+        let echo_defl = sign * max_defl.min(0.45 * fine.radius);
+        let fine_angle = fine.angle_of(fine.point(echo_m, echo_defl));
+        let coarse_scale = coarse.radius / fine.radius;
+        let coarse_angle = coarse.angle_of(coarse.point(echo_m, echo_defl * coarse_scale));
+        let range_m = read_range(&fine, coarse_angle, fine_angle);
+        let peak_amp = floor + peak_lift;
+        let above_floor_db = if floor > 0.0 && peak_amp > 0.0 {
+            20.0 * (peak_amp / floor).log10()
+        } else {
+            f64::INFINITY
+        };
+        Ok(Scene {
+            fine,
+            coarse,
+            trace,
+            amplitude,
+            readout: Readout {
+                range_m,
+                turn: fine.split(range_m).0,
+                fine_angle,
+                coarse_angle,
+                above_floor_db,
+            },
+            mark_m,
+            sweeps: avg.sweeps,
+            coarse_scale,
+            sign,
+        })
+    }
+
+    /// Table rows: one per bin of the averaged window, then the readout.
+    pub fn rows(&self, avg: &SweepAverage) -> Vec<TableRow> {
+        let name = |s: &str| -> Arc<str> { Arc::from(s) };
+        let mut rows = Vec::with_capacity(self.trace.len() + 1);
+        let make = |point: &str, range_m: f64, amp: f64, defl: f64| {
+            let (x, y) = self.fine.point(range_m, defl);
+            let (turn, angle) = self.fine.split(range_m);
+            TableRow {
+                stamp: avg.first_stamp,
+                fields: vec![
+                    (name("point"), Cell::Text(name(point))),
+                    (name("range_m"), Cell::Num(range_m)),
+                    (
+                        name("amplitude"),
+                        if amp.is_finite() {
+                            Cell::Num(amp)
+                        } else {
+                            Cell::Empty
+                        },
+                    ),
+                    // Normalised: circle radius 1, centre at the origin, y up.
+                    (
+                        name("x"),
+                        Cell::Num((x - self.fine.centre.0) / self.fine.radius),
+                    ),
+                    (
+                        name("y"),
+                        Cell::Num((self.fine.centre.1 - y) / self.fine.radius),
+                    ),
+                    (name("turn"), Cell::Int(turn)),
+                    (name("angle_deg"), Cell::Num(angle.to_degrees())),
+                ],
+            }
+        };
+        for (k, &(r, d)) in self.trace.iter().enumerate() {
+            rows.push(make("trace", r, self.amplitude[k], d));
+        }
+        let peak_amp = self
+            .amplitude
+            .iter()
+            .copied()
+            .filter(|a| a.is_finite())
+            .fold(f64::NAN, f64::max);
+        let defl = self
+            .trace
+            .iter()
+            .map(|t| t.1)
+            .fold(0.0, |m: f64, d| if d.abs() > m.abs() { d } else { m });
+        rows.push(make("readout", self.readout.range_m, peak_amp, defl));
+        rows
+    }
+
+    fn draw_circle<DB: DrawingBackend>(
+        &self,
+        area: &DrawingArea<DB, Shift>,
+        w: &Winding,
+        scale: f64,
+        fine: bool,
+    ) -> Result<(), String> {
+        let px = |p: (f64, f64)| (p.0.round() as i32, p.1.round() as i32);
+        let c = px(w.centre);
+        area.draw(&Circle::new(
+            c,
+            w.radius.round() as i32,
+            palette::GRID.stroke_width(1),
+        ))
+        .map_err(draw_err)?;
+        area.draw(&Circle::new(c, 3, palette::MUTED.filled()))
+            .map_err(draw_err)?;
+        // Range marks: ticks on the inner side (or outer, for inward deflection).
+        let tick_dir = -self.sign;
+        let per_turn = w.metres_per_turn();
+        let mut step = self.mark_m;
+        while per_turn / step > MAX_MARKS_PER_TURN {
+            step *= 2.0;
+        }
+        let marks = ((w.range_end_m - w.range_start_m) / step).floor() as usize;
+        // Fine circle: label about a dozen marks of the first turn. Coarse
+        // circle: label where each fine turn starts.
+        let label_every = ((per_turn / step) / 12.0).ceil().max(1.0) as usize;
+        let fine_turn = self.fine.metres_per_turn();
+        let label_style = text_style(12.0, palette::MUTED);
+        for j in 0..=marks.min(20_000) {
+            let r = w.range_start_m + j as f64 * step;
+            let a = w.angle(r);
+            let turn_start = ((j as f64 * step) % fine_turn) < 0.5 * step;
+            let long = turn_start || fine && j % label_every == 0;
+            let len = if long { 12.0 } else { 6.0 };
+            let p0 = w.point_at_angle(a, w.radius);
+            let p1 = w.point_at_angle(a, w.radius + tick_dir * len);
+            area.draw(&PathElement::new(
+                vec![px(p0), px(p1)],
+                palette::INK.stroke_width(1),
+            ))
+            .map_err(draw_err)?;
+            // Labels: offsets within a turn on the fine circle (first turn only), turn starts on the coarse.
+            let label =
+                if fine && r < w.range_start_m + per_turn - 0.5 * step && j % label_every == 0 {
+                    Some(format!("+{}", trim_km(r - w.range_start_m)))
+                } else if !fine && turn_start {
+                    Some(trim_km(r))
+                } else {
+                    None
+                };
+            if let Some(label) = label {
+                let q = w.point_at_angle(a, w.radius + tick_dir * (len + 16.0));
+                let style = label_style.pos(text_anchor::Pos::new(
+                    text_anchor::HPos::Center,
+                    text_anchor::VPos::Center,
+                ));
+                area.draw(&Text::new(label, px(q), style))
+                    .map_err(draw_err)?;
+            }
+        }
+        // The trace itself, reduced to a drawable number of points.
+        let series: Vec<(f64, f64)> = self
+            .trace
+            .iter()
+            .enumerate()
+            .map(|(k, t)| (k as f64, t.1))
+            .collect();
+        let points: Vec<(i32, i32)> = decimate_min_max(&series, DRAWN_POINTS)
+            .into_iter()
+            .map(|(k, d)| px(w.point(self.trace[k as usize].0, d * scale)))
+            .collect();
+        area.draw(&PathElement::new(points, palette::TRACE.stroke_width(2)))
+            .map_err(draw_err)?;
+        // Cursor through the echo.
+        let a = if fine {
+            self.readout.fine_angle
+        } else {
+            self.readout.coarse_angle
+        };
+        let tip = w.point_at_angle(a, w.radius + self.sign * 0.47 * self.fine.radius * scale);
+        area.draw(&PathElement::new(
+            vec![c, px(tip)],
+            palette::ALERT.stroke_width(1),
+        ))
+        .map_err(draw_err)?;
+        Ok(())
+    }
+}
+
+fn trim_km(m: f64) -> String {
+    let s = format!("{:.3}", m / 1e3);
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    format!("{s} km")
+}
+
+impl Picture for Scene {
+    fn size(&self) -> (u32, u32) {
+        (WIDTH, HEIGHT)
+    }
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        let sub = format!(
+            "{} sweeps averaged; window {} to {}; fine circle {} turns of {}, coarse circle one turn",
+            self.sweeps,
+            fmt_km(self.fine.range_start_m),
+            fmt_km(self.fine.range_end_m),
+            self.fine.revolutions,
+            trim_km(self.fine.metres_per_turn())
+        );
+        frame(root, "Circular sweep", &sub)?;
+        // Windings are in whole-picture pixels, so draw on the root.
+        self.draw_circle(root, &self.fine, 1.0, true)?;
+        self.draw_circle(root, &self.coarse, self.coarse_scale, false)?;
+        let ink = text_style(16.0, palette::INK);
+        let muted = text_style(14.0, palette::MUTED);
+        let r = &self.readout;
+        let lines = [
+            (
+                format!("Echo range  {}", fmt_km(r.range_m)),
+                text_style(24.0, palette::ALERT),
+            ),
+            (
+                format!(
+                    "coarse circle: turn {} of {} ({:.1}°)",
+                    r.turn + 1,
+                    self.fine.revolutions,
+                    r.coarse_angle.to_degrees()
+                ),
+                ink.clone(),
+            ),
+            (
+                format!(
+                    "fine circle: {:.1}° of 360° = +{}",
+                    r.fine_angle.to_degrees(),
+                    fmt_km(r.fine_angle / TAU * self.fine.metres_per_turn())
+                ),
+                ink.clone(),
+            ),
+            (
+                format!(
+                    "turn start {} + fine offset",
+                    fmt_km(self.fine.range_start_m + r.turn as f64 * self.fine.metres_per_turn())
+                ),
+                ink.clone(),
+            ),
+            (
+                if r.above_floor_db.is_finite() {
+                    format!("echo {:.1} dB over the median level", r.above_floor_db)
+                } else {
+                    "no noise floor to compare with".into()
+                },
+                muted.clone(),
+            ),
+            (
+                format!("range marks every {}", trim_km(self.mark_m)),
+                muted.clone(),
+            ),
+        ];
+        for (i, (line, style)) in lines.into_iter().enumerate() {
+            root.draw(&Text::new(line, (760, 500 + 34 * i as i32), style))
+                .map_err(draw_err)?;
+        }
+        Ok(())
+    }
+}
+
+/// The picture drawn when no sweep arrived.
+pub struct Empty;
+
+impl Picture for Empty {
+    fn size(&self) -> (u32, u32) {
+        (WIDTH, HEIGHT)
+    }
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        frame(root, "Circular sweep", "no sweeps arrived")?;
+        root.draw(&Text::new(
+            "nothing to draw",
+            (400, 400),
+            text_style(20.0, palette::MUTED),
+        ))
+        .map_err(draw_err)
+    }
+}

@@ -1,0 +1,285 @@
+//! Pictures drawn from aggregated stream data: each picture block keeps
+//! bounded summaries while items pass and draws once, at `finish`, to a PNG
+//! and an SVG made by the same drawing code.
+//!
+//! Shared here: the embedded font, our palette, text styles and the writer
+//! that renders a [`Picture`] twice and stages both files atomically.
+
+pub mod accum;
+pub mod angle_plot;
+pub mod circular;
+pub mod circular_sweep;
+pub mod lobe_timeline;
+pub mod range_trace;
+pub mod split_pair;
+
+use lobeflow_blocks::{BlockError, FileStager, OutputFile};
+use plotters::coord::Shift;
+use plotters::coord::types::RangedCoordf64;
+use plotters::prelude::*;
+use plotters::style::FontStyle;
+use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
+
+/// Font family name the pictures ask for; SVG viewers without the embedded
+/// font fall back to their own sans-serif face.
+pub const FONT: &str = "DejaVu Sans";
+
+static FONT_BYTES: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
+
+/// Register the embedded font with the text renderer, once per process.
+pub fn ensure_font() -> Result<(), BlockError> {
+    static REGISTERED: OnceLock<Result<(), String>> = OnceLock::new();
+    REGISTERED
+        .get_or_init(|| {
+            plotters::style::register_font(FONT, FontStyle::Normal, FONT_BYTES)
+                .map_err(|_| "the embedded picture font could not be read".to_string())
+        })
+        .clone()
+        .map_err(BlockError::new)
+}
+
+/// Our palette: dark ink on a warm paper ground, lobe colours chosen to stay
+/// apart for common colour-vision deficiencies.
+pub mod palette {
+    use plotters::style::RGBColor;
+    pub const PAPER: RGBColor = RGBColor(250, 247, 240);
+    pub const PANEL: RGBColor = RGBColor(255, 254, 250);
+    pub const INK: RGBColor = RGBColor(38, 42, 52);
+    pub const MUTED: RGBColor = RGBColor(118, 116, 110);
+    pub const GRID: RGBColor = RGBColor(222, 216, 204);
+    pub const GRID_FINE: RGBColor = RGBColor(238, 234, 225);
+    pub const TRACE: RGBColor = RGBColor(22, 104, 112);
+    pub const BAND: RGBColor = RGBColor(170, 206, 204);
+    pub const GATE: RGBColor = RGBColor(236, 196, 120);
+    pub const ALERT: RGBColor = RGBColor(196, 58, 40);
+    pub const FLAG_EDGE: RGBColor = RGBColor(150, 80, 160);
+    pub const GUARD: RGBColor = RGBColor(200, 196, 188);
+    /// One colour per lobe, in lobe order (wrapping).
+    pub const LOBES: [RGBColor; 6] = [
+        RGBColor(22, 104, 112),
+        RGBColor(205, 96, 36),
+        RGBColor(84, 92, 170),
+        RGBColor(168, 136, 20),
+        RGBColor(150, 56, 110),
+        RGBColor(70, 130, 60),
+    ];
+
+    pub fn lobe(i: usize) -> RGBColor {
+        LOBES[i % LOBES.len()]
+    }
+}
+
+/// Text of `size` pixels in colour `color`.
+pub fn text_style(size: f64, color: RGBColor) -> TextStyle<'static> {
+    let mut style = TextStyle::from((FONT, size).into_font());
+    style.color = color.to_backend_color();
+    style
+}
+
+/// Something that can draw itself on any plotters backend.
+pub trait Picture {
+    /// Width and height in pixels.
+    fn size(&self) -> (u32, u32);
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String>;
+}
+
+/// Turn any drawing error into text.
+pub fn draw_err<E: std::fmt::Display>(e: E) -> String {
+    format!("drawing failed: {e}")
+}
+
+/// Render `picture` to `<base>.png` and `<base>.svg`, both staged with the
+/// run's other outputs. Returns the two final paths.
+pub fn write_picture<P: Picture>(
+    picture: &P,
+    base: &str,
+    files: &FileStager,
+) -> Result<Vec<PathBuf>, BlockError> {
+    ensure_font()?;
+    let (w, h) = picture.size();
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (w, h)).into_drawing_area();
+        picture.draw(&root).map_err(BlockError::new)?;
+        root.present().map_err(|e| BlockError::new(draw_err(e)))?;
+    }
+    let mut rgb = vec![0u8; w as usize * h as usize * 3];
+    {
+        let root = BitMapBackend::with_buffer(&mut rgb, (w, h)).into_drawing_area();
+        picture.draw(&root).map_err(BlockError::new)?;
+        root.present().map_err(|e| BlockError::new(draw_err(e)))?;
+    }
+    let png_path = PathBuf::from(format!("{base}.png"));
+    let svg_path = PathBuf::from(format!("{base}.svg"));
+    write_png(&png_path, w, h, &rgb, files)?;
+    let mut f = OutputFile::create(&svg_path).map_err(|e| file_err(&svg_path, e))?;
+    std::io::Write::write_all(&mut f, svg.as_bytes()).map_err(|e| file_err(&svg_path, e))?;
+    f.finish(files).map_err(|e| file_err(&svg_path, e))?;
+    Ok(vec![png_path, svg_path])
+}
+
+fn write_png(
+    path: &Path,
+    w: u32,
+    h: u32,
+    rgb: &[u8],
+    files: &FileStager,
+) -> Result<(), BlockError> {
+    let mut f = OutputFile::create(path).map_err(|e| file_err(path, e))?;
+    {
+        let mut encoder = png::Encoder::new(f.writer(), w, h);
+        encoder.set_color(png::ColorType::Rgb);
+        encoder.set_depth(png::BitDepth::Eight);
+        let enc_err = |e: png::EncodingError| {
+            BlockError::new(format!("cannot encode {}: {e}", path.display()))
+        };
+        let mut writer = encoder.write_header().map_err(enc_err)?;
+        writer.write_image_data(rgb).map_err(enc_err)?;
+        writer.finish().map_err(enc_err)?;
+    }
+    f.finish(files).map_err(|e| file_err(path, e))
+}
+
+fn file_err(path: &Path, e: std::io::Error) -> BlockError {
+    BlockError::new(format!("cannot write {}: {e}", path.display()))
+}
+
+/// Fill the background and draw a title line; returns the area below it.
+pub fn frame<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    title: &str,
+    subtitle: &str,
+) -> Result<DrawingArea<DB, Shift>, String> {
+    root.fill(&palette::PAPER).map_err(draw_err)?;
+    root.draw(&Text::new(
+        title.to_string(),
+        (18, 12),
+        text_style(22.0, palette::INK),
+    ))
+    .map_err(draw_err)?;
+    root.draw(&Text::new(
+        subtitle.to_string(),
+        (18, 40),
+        text_style(14.0, palette::MUTED),
+    ))
+    .map_err(draw_err)?;
+    let (w, _) = root.dim_in_pixel();
+    root.draw(&PathElement::new(
+        vec![(18, 62), (w as i32 - 18, 62)],
+        palette::GRID.stroke_width(2),
+    ))
+    .map_err(draw_err)?;
+    Ok(root.margin(68, 0, 0, 0))
+}
+
+/// A readable number of significant digits for axis-free readouts.
+pub fn fmt_km(metres: f64) -> String {
+    format!("{:.3} km", metres / 1e3)
+}
+
+/// Pad a (min, max) range so a flat series still gets a visible axis.
+pub fn padded(lo: f64, hi: f64, frac: f64, min_span: f64) -> (f64, f64) {
+    let (lo, hi) = if lo.is_finite() && hi.is_finite() && hi >= lo {
+        (lo, hi)
+    } else {
+        (0.0, 1.0)
+    };
+    let span = (hi - lo).max(min_span);
+    let mid = 0.5 * (lo + hi);
+    (
+        mid - 0.5 * span * (1.0 + 2.0 * frac),
+        mid + 0.5 * span * (1.0 + 2.0 * frac),
+    )
+}
+
+/// A chart with f64 axes on both sides.
+pub type Chart<'a, DB> = ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
+
+/// A chart in our style on `area`: panel ground, optional caption.
+pub fn chart<'a, DB: DrawingBackend>(
+    area: &'a DrawingArea<DB, Shift>,
+    caption: &str,
+    x: std::ops::Range<f64>,
+    y: std::ops::Range<f64>,
+) -> Result<Chart<'a, DB>, String> {
+    let mut builder = ChartBuilder::on(area);
+    builder
+        .margin(14)
+        .x_label_area_size(44)
+        .y_label_area_size(70);
+    if !caption.is_empty() {
+        builder.caption(caption, text_style(17.0, palette::INK));
+    }
+    let chart = builder.build_cartesian_2d(x, y).map_err(draw_err)?;
+    chart
+        .plotting_area()
+        .fill(&palette::PANEL)
+        .map_err(draw_err)?;
+    Ok(chart)
+}
+
+/// Grid, tick labels and axis titles (with units) in our style.
+pub fn draw_mesh<DB: DrawingBackend>(
+    chart: &mut Chart<'_, DB>,
+    x_desc: &str,
+    y_desc: &str,
+) -> Result<(), String> {
+    chart
+        .configure_mesh()
+        .bold_line_style(palette::GRID)
+        .light_line_style(palette::GRID_FINE)
+        .axis_style(palette::MUTED)
+        .label_style(text_style(13.0, palette::INK))
+        .axis_desc_style(text_style(14.0, palette::INK))
+        .x_desc(x_desc)
+        .y_desc(y_desc)
+        .x_labels(10)
+        .y_labels(8)
+        .draw()
+        .map_err(draw_err)
+}
+
+/// A small legend box of (colour, label) at the top-right corner of `area`,
+/// `top` pixels down.
+pub fn legend<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    top: i32,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    let (w, _) = area.dim_in_pixel();
+    let widest = entries
+        .iter()
+        .map(|e| e.1.chars().count())
+        .max()
+        .unwrap_or(0) as i32;
+    let box_w = 46 + 7 * widest;
+    let x0 = (w as i32 - box_w - 24).max(4);
+    let y0 = top;
+    let h = 22 * entries.len() as i32 + 10;
+    area.draw(&Rectangle::new(
+        [(x0, y0), (x0 + box_w, y0 + h)],
+        palette::PANEL.filled(),
+    ))
+    .map_err(draw_err)?;
+    area.draw(&Rectangle::new(
+        [(x0, y0), (x0 + box_w, y0 + h)],
+        palette::GRID.stroke_width(1),
+    ))
+    .map_err(draw_err)?;
+    for (i, (colour, label)) in entries.iter().enumerate() {
+        let y = y0 + 16 + 22 * i as i32;
+        area.draw(&PathElement::new(
+            vec![(x0 + 8, y), (x0 + 32, y)],
+            colour.stroke_width(3),
+        ))
+        .map_err(draw_err)?;
+        area.draw(&Text::new(
+            label.clone(),
+            (x0 + 40, y - 8),
+            text_style(13.0, palette::INK),
+        ))
+        .map_err(draw_err)?;
+    }
+    Ok(())
+}
