@@ -1,3 +1,4 @@
 //! Signal-processing pieces shared by several blocks (no block code here).
 pub mod beam;
 pub mod rng;
+pub mod spectrum;
