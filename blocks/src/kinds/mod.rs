@@ -3,9 +3,10 @@
 
 pub mod discard;
 pub mod pass;
+pub mod range_gate;
 pub mod test_tone;
 
 use crate::block::BlockSpec;
 
 /// Every standard kind, registered by [`crate::standard_registry`].
-pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, test_tone::SPEC];
+pub const ALL: &[BlockSpec] = &[discard::SPEC, pass::SPEC, range_gate::SPEC, test_tone::SPEC];
