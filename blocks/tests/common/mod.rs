@@ -32,7 +32,7 @@ pub struct Run {
 pub fn run(block: &mut dyn Block, items: impl IntoIterator<Item = Item>) -> Run {
     let mut out = Outputs::new(4);
     let mut r = Run { items: Vec::new(), notices: Vec::new() };
-    let mut take = |out: &mut Outputs, r: &mut Run| {
+    let take = |out: &mut Outputs, r: &mut Run| {
         r.items.extend(out.drain().map(|(_, i)| i));
         r.notices.extend(out.drain_notices().map(|n| n.what));
     };
