@@ -10,28 +10,110 @@ use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
-const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
+const DIST: ParamType = ParamType::Distance {
+    min_m: 0.0,
+    max_m: 1e9,
+};
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "range_gate",
     doc: "Integrates a range gate over each lobe dwell of labelled sweeps (noncoherent power or coherent mean), \
           with noise from a reference region, sub-bin range from the gate's amplitude centroid, an optional \
           acquire-and-follow gate, and a check that the lobes share one noise floor.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe and dwell")],
-    outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "one record per lobe dwell")],
+    inputs: &[PortSpec::required(
+        "sweeps",
+        ItemKind::Sweep,
+        "sweeps labelled with their lobe and dwell",
+    )],
+    outputs: &[PortSpec::optional(
+        "dwells",
+        ItemKind::Dwell,
+        "one record per lobe dwell",
+    )],
     params: &[
-        ParamSpec { name: "gate_start", ty: DIST, default: Some("0 bins"), doc: "first range bin of the gate (m or bins); required unless acquire is on" },
-        ParamSpec { name: "gate_width", ty: DIST, default: Some("2 bins"), doc: "gate width; keep it near the echo length plus one bin" },
-        ParamSpec { name: "acquire", ty: ParamType::Bool, default: Some("false"), doc: "find the strongest echo in the search window and centre the gate on it" },
-        ParamSpec { name: "search_start", ty: DIST, default: Some("0 bins"), doc: "start of the acquisition search window" },
-        ParamSpec { name: "search_end", ty: DIST, default: Some("0 bins"), doc: "end of the search window; 0 = up to the noise region / sweep end" },
-        ParamSpec { name: "acquire_dwells", ty: ParamType::Integer { min: 1, max: 10_000 }, default: Some("4"), doc: "dwells (all lobes) summed to acquire; they are not reported" },
-        ParamSpec { name: "follow", ty: ParamType::Choice(Follow::NAMES), default: Some("none"), doc: "re-centre the gate each lobe cycle: none, centroid, or early_late split gate" },
-        ParamSpec { name: "pulse", ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false }, default: Some("1 samples"), doc: "echo length (1 sample after a matched filter); its centre offset is taken off the range" },
-        ParamSpec { name: "integration", ty: ParamType::Choice(Integration::NAMES), default: Some("noncoherent"), doc: "noncoherent (sum of power) or coherent (complex mean per gate bin, then power)" },
-        ParamSpec { name: "noise_start", ty: DIST, default: Some("0 bins"), doc: "start of the noise reference region; 0 = the last noise_width bins of each sweep" },
-        ParamSpec { name: "noise_width", ty: DIST, default: Some("32 bins"), doc: "width of the noise reference region" },
-        ParamSpec { name: "noise_margin", ty: ParamType::Number { unit: Unit::Decibels, min: 0.0, max: 60.0 }, default: Some("3 dB"), doc: "report lobes whose noise floors differ by more than this" },
+        ParamSpec {
+            name: "gate_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "first range bin of the gate (m or bins); required unless acquire is on",
+        },
+        ParamSpec {
+            name: "gate_width",
+            ty: DIST,
+            default: Some("2 bins"),
+            doc: "gate width; keep it near the echo length plus one bin",
+        },
+        ParamSpec {
+            name: "acquire",
+            ty: ParamType::Bool,
+            default: Some("false"),
+            doc: "find the strongest echo in the search window and centre the gate on it",
+        },
+        ParamSpec {
+            name: "search_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "start of the acquisition search window",
+        },
+        ParamSpec {
+            name: "search_end",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "end of the search window; 0 = up to the noise region / sweep end",
+        },
+        ParamSpec {
+            name: "acquire_dwells",
+            ty: ParamType::Integer {
+                min: 1,
+                max: 10_000,
+            },
+            default: Some("4"),
+            doc: "dwells (all lobes) summed to acquire; they are not reported",
+        },
+        ParamSpec {
+            name: "follow",
+            ty: ParamType::Choice(Follow::NAMES),
+            default: Some("none"),
+            doc: "re-centre the gate each lobe cycle: none, centroid, or early_late split gate",
+        },
+        ParamSpec {
+            name: "pulse",
+            ty: ParamType::Time {
+                min_s: 0.0,
+                max_s: 1.0,
+                pulses: false,
+            },
+            default: Some("1 samples"),
+            doc: "echo length (1 sample after a matched filter); its centre offset is taken off the range",
+        },
+        ParamSpec {
+            name: "integration",
+            ty: ParamType::Choice(Integration::NAMES),
+            default: Some("noncoherent"),
+            doc: "noncoherent (sum of power) or coherent (complex mean per gate bin, then power)",
+        },
+        ParamSpec {
+            name: "noise_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "start of the noise reference region; 0 = the last noise_width bins of each sweep",
+        },
+        ParamSpec {
+            name: "noise_width",
+            ty: DIST,
+            default: Some("32 bins"),
+            doc: "width of the noise reference region",
+        },
+        ParamSpec {
+            name: "noise_margin",
+            ty: ParamType::Number {
+                unit: Unit::Decibels,
+                min: 0.0,
+                max: 60.0,
+            },
+            default: Some("3 dB"),
+            doc: "report lobes whose noise floors differ by more than this",
+        },
     ],
     build,
 };
@@ -39,13 +121,26 @@ pub const SPEC: BlockSpec = BlockSpec {
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let acquire = p.flag("acquire")?;
     let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
-    let integration = Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
+    let integration =
+        Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
     // Distances can only become bins once the sample rate is known; check what we can now.
-    for name in ["gate_start", "gate_width", "search_start", "search_end", "noise_start", "noise_width", "pulse"] {
-        p.get(name).ok_or_else(|| format!("parameter '{name}' has no value"))?;
+    for name in [
+        "gate_start",
+        "gate_width",
+        "search_start",
+        "search_end",
+        "noise_start",
+        "noise_width",
+        "pulse",
+    ] {
+        p.get(name)
+            .ok_or_else(|| format!("parameter '{name}' has no value"))?;
     }
     if !acquire && is_zero(p, "gate_start") {
-        return Err("range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'".into());
+        return Err(
+            "range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'"
+                .into(),
+        );
     }
     Ok(Box::new(RangeGate {
         params: p.clone(),
@@ -92,7 +187,9 @@ struct Geometry {
 fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
     let b = p.bins_at(name, rate).map_err(BlockError::new)?;
     if !b.is_finite() || b < 0.0 || b > 1e8 {
-        return Err(BlockError::new(format!("range_gate: '{name}' is {b} bins at {rate} S/s; too large")));
+        return Err(BlockError::new(format!(
+            "range_gate: '{name}' is {b} bins at {rate} S/s; too large"
+        )));
     }
     Ok(b.round() as usize)
 }
@@ -102,7 +199,9 @@ impl Geometry {
         let noise_start = whole_bins(p, "noise_start", rate)?;
         let pulse = p.samples_at("pulse", rate, None).map_err(BlockError::new)?;
         if !(pulse.is_finite() && (0.0..=1e8).contains(&pulse)) {
-            return Err(BlockError::new(format!("range_gate: 'pulse' is {pulse} samples at {rate} S/s")));
+            return Err(BlockError::new(format!(
+                "range_gate: 'pulse' is {pulse} samples at {rate} S/s"
+            )));
         }
         let g = Geometry {
             rate,
@@ -175,7 +274,13 @@ impl RangeGate {
     fn geometry(&mut self, rate: f64, at: u64) -> Result<Geometry, BlockError> {
         match &self.geometry {
             Some(g) if g.rate == rate => Ok(g.clone()),
-            Some(g) => Err(BlockError::at(format!("range_gate: sample rate changed from {} to {rate} S/s", g.rate), at)),
+            Some(g) => Err(BlockError::at(
+                format!(
+                    "range_gate: sample rate changed from {} to {rate} S/s",
+                    g.rate
+                ),
+                at,
+            )),
             None => {
                 let g = Geometry::resolve(&self.params, rate)?;
                 if !self.acquire {
@@ -220,16 +325,25 @@ impl RangeGate {
             }
             self.cycle = Follow::accumulator();
         }
-        let sums = self.gate_start.map(|s| DwellSums::new(s, geo.gate_width, self.integration));
+        let sums = self
+            .gate_start
+            .map(|s| DwellSums::new(s, geo.gate_width, self.integration));
         if sums.is_none() && self.acq.is_none() {
-            self.acq = Some(Acquisition { start: geo.search_start, power: Vec::new(), dwells: 0 });
+            self.acq = Some(Acquisition {
+                start: geo.search_start,
+                power: Vec::new(),
+                dwells: 0,
+            });
         }
         if sums.is_none()
             && let Some(acq) = &mut self.acq
         {
             acq.dwells += 1;
         }
-        self.current = Some(Current { tag: tag.clone(), sums });
+        self.current = Some(Current {
+            tag: tag.clone(),
+            sums,
+        });
     }
 
     fn add_sweep(&mut self, sweep: &Sweep, geo: &Geometry, out: &mut Outputs) {
@@ -240,7 +354,11 @@ impl RangeGate {
                 let Some(acq) = &mut self.acq else { return };
                 if acq.power.is_empty() {
                     // Size the window from the first sweep seen: constant from then on.
-                    let end = if geo.search_end > 0 { geo.search_end } else { geo.noise_range(iq.len()).start };
+                    let end = if geo.search_end > 0 {
+                        geo.search_end
+                    } else {
+                        geo.noise_range(iq.len()).start
+                    };
                     acq.power = vec![0.0; end.saturating_sub(acq.start).max(geo.gate_width)];
                 }
                 for (k, p) in acq.power.iter_mut().enumerate() {
@@ -264,19 +382,33 @@ impl RangeGate {
                 }
                 if sweep.blanked > gate.start && !self.blank_reported {
                     self.blank_reported = true;
-                    out.notice(sweep.stamp, format!("the gate (from bin {}) overlaps the blanked leakage ({} bins)", gate.start, sweep.blanked));
+                    out.notice(
+                        sweep.stamp,
+                        format!(
+                            "the gate (from bin {}) overlaps the blanked leakage ({} bins)",
+                            gate.start, sweep.blanked
+                        ),
+                    );
                 }
                 let noise = geo.noise_range(iq.len());
-                let noise_iter = iq[noise.clone()].iter().enumerate().filter(|(k, _)| !gate.contains(&(noise.start + k))).map(|(_, x)| *x);
+                let noise_iter = iq[noise.clone()]
+                    .iter()
+                    .enumerate()
+                    .filter(|(k, _)| !gate.contains(&(noise.start + k)))
+                    .map(|(_, x)| *x);
                 sums.add(&iq[gate.clone()], noise_iter, sweep.stamp.index);
             }
         }
     }
 
     fn close_dwell(&mut self, out: &mut Outputs) {
-        let Some(cur) = self.current.take() else { return };
+        let Some(cur) = self.current.take() else {
+            return;
+        };
         let Some(sums) = cur.sums else { return };
-        let Some(geo) = self.geometry.clone() else { return };
+        let Some(geo) = self.geometry.clone() else {
+            return;
+        };
         if sums.pulses() == 0 {
             return;
         }
@@ -319,16 +451,28 @@ impl RangeGate {
         if !(noise.is_finite() && noise > 0.0) {
             return;
         }
-        let entry = self.noise_floor.entry(tag.lobe).or_insert((Arc::clone(&tag.name), noise, 0));
+        let entry = self
+            .noise_floor
+            .entry(tag.lobe)
+            .or_insert((Arc::clone(&tag.name), noise, 0));
         // Smooth over a few dwells so one noisy dwell does not trip the check.
         entry.1 += 0.25 * (noise - entry.1);
         entry.2 += 1;
-        if self.mismatch_reported || self.noise_floor.len() < 2 || self.noise_floor.values().any(|e| e.2 < 3) {
+        if self.mismatch_reported
+            || self.noise_floor.len() < 2
+            || self.noise_floor.values().any(|e| e.2 < 3)
+        {
             return;
         }
-        let (lo, hi) = self.noise_floor.values().fold((None::<&(Arc<str>, f64, u64)>, None::<&(Arc<str>, f64, u64)>), |(lo, hi), e| {
-            (Some(lo.map_or(e, |l| if e.1 < l.1 { e } else { l })), Some(hi.map_or(e, |h| if e.1 > h.1 { e } else { h })))
-        });
+        let (lo, hi) = self.noise_floor.values().fold(
+            (None::<&(Arc<str>, f64, u64)>, None::<&(Arc<str>, f64, u64)>),
+            |(lo, hi), e| {
+                (
+                    Some(lo.map_or(e, |l| if e.1 < l.1 { e } else { l })),
+                    Some(hi.map_or(e, |h| if e.1 > h.1 { e } else { h })),
+                )
+            },
+        );
         if let (Some(lo), Some(hi)) = (lo, hi) {
             let diff_db = 10.0 * (hi.1 / lo.1).log10();
             if diff_db > self.noise_margin_db {
@@ -353,17 +497,25 @@ impl RangeGate {
 
 impl Block for RangeGate {
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Sweep(sweep) = item else { return Ok(()) };
+        let Item::Sweep(sweep) = item else {
+            return Ok(());
+        };
         let Some(tag) = sweep.lobe.clone() else {
             self.untagged += 1;
             if self.untagged == 1 {
-                out.notice(sweep.stamp, "sweep without a lobe label (no switch-sync gate upstream?); skipped");
+                out.notice(
+                    sweep.stamp,
+                    "sweep without a lobe label (no switch-sync gate upstream?); skipped",
+                );
             }
             return Ok(());
         };
         let geo = self.geometry(sweep.stamp.rate, sweep.stamp.index)?;
         self.last_stamp = sweep.stamp;
-        let same_dwell = self.current.as_ref().is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
+        let same_dwell = self
+            .current
+            .as_ref()
+            .is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
         if !same_dwell {
             self.close_dwell(out);
             self.open_dwell(&tag, &geo, sweep.stamp, out);
@@ -376,16 +528,40 @@ impl Block for RangeGate {
         self.close_dwell(out);
         let end = self.last_stamp;
         if self.skipped_short > 0 {
-            out.notice(end, format!("{} sweeps were shorter than the range gate and were skipped", self.skipped_short));
+            out.notice(
+                end,
+                format!(
+                    "{} sweeps were shorter than the range gate and were skipped",
+                    self.skipped_short
+                ),
+            );
         }
         if self.untagged > 1 {
-            out.notice(end, format!("{} sweeps had no lobe label and were skipped", self.untagged));
+            out.notice(
+                end,
+                format!(
+                    "{} sweeps had no lobe label and were skipped",
+                    self.untagged
+                ),
+            );
         }
         if self.no_noise > 1 {
-            out.notice(end, format!("{} dwells had no noise reference samples and were skipped", self.no_noise));
+            out.notice(
+                end,
+                format!(
+                    "{} dwells had no noise reference samples and were skipped",
+                    self.no_noise
+                ),
+            );
         }
         if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
-            out.notice(end, format!("acquisition did not finish: fewer than {} dwells and a cycle start", self.acquire_dwells));
+            out.notice(
+                end,
+                format!(
+                    "acquisition did not finish: fewer than {} dwells and a cycle start",
+                    self.acquire_dwells
+                ),
+            );
         }
         Ok(())
     }
