@@ -294,3 +294,37 @@ fn decimator_stamps_pass_and_stop_bands() {
         .is_err()
     );
 }
+
+#[test]
+fn bad_rates_and_odd_chunks_give_errors_not_panics() {
+    use lobeflow_blocks::{Block, Outputs};
+    let kinds: [(&lobeflow_blocks::BlockSpec, &[(&str, &str)]); 4] = [
+        (&matched_filter::SPEC, &[]),
+        (&dc_remove::SPEC, &[]),
+        (&frequency_shift::SPEC, &[("shift", "1 kHz")]),
+        (&lowpass_decimate::SPEC, &[("cutoff", "1 kHz")]),
+    ];
+    for (spec, set) in kinds {
+        for rate in [0.0, -1.0, f64::NAN] {
+            let mut block: Box<dyn Block> = build(spec, set);
+            let mut out = Outputs::new(1);
+            let r = block.process(
+                0,
+                Item::Samples(chunk(5, rate, vec![Complex32::new(1.0, 0.0); 8])),
+                &mut out,
+            );
+            assert!(
+                r.is_err_and(|e| e.message.contains("rate")),
+                "{} at {rate}",
+                spec.kind
+            );
+        }
+        // Empty chunks and NaN samples pass without a panic.
+        let mut block = build(spec, set);
+        let items = vec![
+            Item::Samples(chunk(0, 48_000.0, vec![])),
+            Item::Samples(chunk(0, 48_000.0, vec![Complex32::new(f32::NAN, 0.0); 100])),
+        ];
+        run(block.as_mut(), items);
+    }
+}

@@ -63,6 +63,12 @@ impl Block for DcRemove {
             return Ok(());
         };
         let rate = chunk.stamp.rate;
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::at(
+                format!("dc_remove: chunk carries a sample rate of {rate} S/s"),
+                chunk.stamp.index,
+            ));
+        }
         let a = match self.alpha {
             Some((r, a)) if r == rate => a,
             _ => {

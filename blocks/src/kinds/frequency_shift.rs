@@ -57,6 +57,12 @@ impl Block for FrequencyShift {
             return Ok(());
         };
         let rate = chunk.stamp.rate;
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::at(
+                format!("frequency_shift: chunk carries a sample rate of {rate} S/s"),
+                chunk.stamp.index,
+            ));
+        }
         let cycles_per_sample = self.shift / rate;
         let step = TAU * cycles_per_sample;
         match self.next {

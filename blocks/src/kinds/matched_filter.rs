@@ -145,6 +145,11 @@ struct MatchedFilter {
 
 impl MatchedFilter {
     fn reference(&self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::new(format!(
+                "matched_filter: chunk carries a sample rate of {rate} S/s"
+            )));
+        }
         if let Some(r) = &self.reference {
             return Ok(r.clone());
         }

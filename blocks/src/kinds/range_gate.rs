@@ -196,6 +196,11 @@ fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
 
 impl Geometry {
     fn resolve(p: &Params, rate: f64) -> Result<Geometry, BlockError> {
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::new(format!(
+                "range_gate: sweeps carry a sample rate of {rate} S/s"
+            )));
+        }
         let noise_start = whole_bins(p, "noise_start", rate)?;
         let pulse = p.samples_at("pulse", rate, None).map_err(BlockError::new)?;
         if !(pulse.is_finite() && (0.0..=1e8).contains(&pulse)) {

@@ -234,8 +234,12 @@ impl ToneDwell {
 
         // Peak near the tone: within one unpadded bin plus the search width.
         let pad = nfft as f64 / m as f64;
-        let tone_bin = self.tone_hz / rate * nfft as f64;
-        let reach = (pad + self.search_hz / rate * nfft as f64).ceil() as i64;
+        // Reduced to one turn of the spectrum so far-out tones stay in range.
+        let tone_bin = (self.tone_hz / rate).rem_euclid(1.0) * nfft as f64;
+        // Never wider than half the transform: the search wraps around.
+        let reach = (pad + self.search_hz / rate * nfft as f64)
+            .ceil()
+            .min(nfft as f64 / 2.0) as i64;
         let centre = tone_bin.round() as i64;
         let wrap = |k: i64| k.rem_euclid(nfft as i64) as usize;
         let peak = (centre - reach..=centre + reach)
@@ -353,6 +357,13 @@ impl Block for ToneDwell {
                     "tone_dwell: sample rate changed from {} to {} S/s",
                     cur.rate, seg.chunk.stamp.rate
                 ),
+                seg.chunk.stamp.index,
+            ));
+        }
+        let rate = seg.chunk.stamp.rate;
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::at(
+                format!("tone_dwell: segment carries a sample rate of {rate} S/s"),
                 seg.chunk.stamp.index,
             ));
         }
