@@ -2,6 +2,8 @@
 pub mod beam;
 pub mod discriminator;
 pub mod rng;
-pub mod tracking;
-pub mod switch_sync;
+pub mod gate;
 pub mod pulse_timing;
+pub mod spectrum;
+pub mod switch_sync;
+pub mod tracking;

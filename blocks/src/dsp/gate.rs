@@ -1,0 +1,308 @@
+//! Range-gate arithmetic for one lobe dwell: sums over pulses, noise
+//! correction, amplitude, expected spread and sub-bin range (field notes §4-5).
+//!
+//! Range comes from the amplitude-weighted centroid of the noise-corrected
+//! gate. Why amplitude and not power: a rectangular echo of `L` samples whose
+//! delay falls a fraction `f` between samples is sampled (integrate-and-dump)
+//! as weights `1-f, 1, ..., 1, f`; their amplitude centroid is exactly
+//! `n0 + (L-1)/2 + f`, while power weights `(1-f)^2, ..., f^2` bend the
+//! estimate towards the whole bin. The same holds for the triangle a matched
+//! filter makes of it (a box convolved with a box keeps first moments).
+
+use num_complex::{Complex32, Complex64};
+
+/// How the pulses of a dwell are combined.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Integration {
+    /// Sum of |x|^2 over pulses, minus the expected noise.
+    Noncoherent,
+    /// Complex mean over pulses per gate bin, then power minus the noise of the mean.
+    Coherent,
+}
+
+impl Integration {
+    pub const NAMES: &'static [&'static str] = &["noncoherent", "coherent"];
+    pub fn from_name(s: &str) -> Option<Integration> {
+        match s {
+            "noncoherent" => Some(Integration::Noncoherent),
+            "coherent" => Some(Integration::Coherent),
+            _ => None,
+        }
+    }
+}
+
+/// How a tracking gate re-centres itself.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Follow {
+    None,
+    Centroid,
+    EarlyLate,
+}
+
+impl Follow {
+    pub const NAMES: &'static [&'static str] = &["none", "centroid", "early_late"];
+    pub fn from_name(s: &str) -> Option<Follow> {
+        match s {
+            "none" => Some(Follow::None),
+            "centroid" => Some(Follow::Centroid),
+            "early_late" => Some(Follow::EarlyLate),
+            _ => None,
+        }
+    }
+    pub fn accumulator() -> FollowAccumulator {
+        FollowAccumulator::default()
+    }
+}
+
+/// What one dwell's gate measured.
+#[derive(Clone, Debug, PartialEq)]
+pub struct GateSummary {
+    /// sqrt of the noise-corrected per-pulse echo energy in the gate; NaN if not positive.
+    pub amplitude: f64,
+    /// Per-pulse echo energy in the gate over the noise power per sample (E); 0 if not positive.
+    pub energy_ratio: f64,
+    /// Expected var(ln amplitude).
+    pub var_ln_amp: f64,
+    /// Amplitude-weighted centroid of the gate, absolute bin.
+    pub centroid_bin: Option<f64>,
+    /// The centroid minus the echo's centre offset: the echo's start, in bins.
+    pub range_bin: Option<f64>,
+    /// Noise-corrected power in the early and late halves (middle bin left out).
+    pub early: f64,
+    pub late: f64,
+}
+
+/// Running sums of one dwell's gate and noise region.
+#[derive(Clone, Debug)]
+pub struct DwellSums {
+    /// First gate bin.
+    pub start: usize,
+    integration: Integration,
+    power: Vec<f64>,
+    sum: Vec<Complex64>,
+    noise_sum: f64,
+    noise_count: u64,
+    pulses: u64,
+    first_index: Option<u64>,
+    last_index: u64,
+}
+
+impl DwellSums {
+    pub fn new(start: usize, width: usize, integration: Integration) -> DwellSums {
+        let width = width.max(1);
+        DwellSums {
+            start,
+            integration,
+            power: vec![0.0; width],
+            sum: vec![Complex64::new(0.0, 0.0); width],
+            noise_sum: 0.0,
+            noise_count: 0,
+            pulses: 0,
+            first_index: None,
+            last_index: 0,
+        }
+    }
+
+    pub fn width(&self) -> usize {
+        self.power.len()
+    }
+    pub fn pulses(&self) -> u64 {
+        self.pulses
+    }
+
+    /// Add one pulse: its gate samples, its noise reference samples, and the
+    /// absolute index of its range bin 0.
+    pub fn add(
+        &mut self,
+        gate: &[Complex32],
+        noise: impl Iterator<Item = Complex32>,
+        sweep_index: u64,
+    ) {
+        for ((p, s), x) in self.power.iter_mut().zip(self.sum.iter_mut()).zip(gate) {
+            let x = Complex64::new(x.re as f64, x.im as f64);
+            *p += x.norm_sqr();
+            *s += x;
+        }
+        for x in noise {
+            self.noise_sum += x.norm_sqr() as f64;
+            self.noise_count += 1;
+        }
+        self.pulses += 1;
+        let first = sweep_index + self.start as u64;
+        self.first_index.get_or_insert(first);
+        self.last_index = first + self.width() as u64 - 1;
+    }
+
+    /// Mean noise power per sample, if any reference sample was seen.
+    pub fn noise_power(&self) -> Option<f64> {
+        (self.noise_count > 0).then(|| self.noise_sum / self.noise_count as f64)
+    }
+
+    /// Absolute index of the middle of the samples used.
+    pub fn mid_index(&self) -> u64 {
+        let first = self.first_index.unwrap_or(self.last_index);
+        first + (self.last_index - first) / 2
+    }
+
+    /// Amplitude, energy ratio, expected spread and range with noise power
+    /// `noise` per sample and an echo `pulse_samples` long.
+    pub fn summarise(&self, noise: f64, pulse_samples: f64) -> GateSummary {
+        let n = self.pulses.max(1) as f64;
+        let g = self.width() as f64;
+        // Noise-corrected per-pulse echo energy in each gate bin.
+        let corrected: Vec<f64> = match self.integration {
+            Integration::Noncoherent => self.power.iter().map(|p| p / n - noise).collect(),
+            // The mean of N pulses keeps the echo and carries noise power noise/N.
+            Integration::Coherent => self
+                .sum
+                .iter()
+                .map(|s| (s / n).norm_sqr() - noise / n)
+                .collect(),
+        };
+        let energy: f64 = corrected.iter().sum();
+        let e = if noise > 0.0 {
+            energy / noise
+        } else if energy > 0.0 {
+            f64::INFINITY
+        } else {
+            0.0
+        };
+        let amplitude = if energy > 0.0 {
+            energy.sqrt()
+        } else {
+            f64::NAN
+        };
+        let var_ln_amp = if e > 0.0 {
+            match self.integration {
+                // Field notes §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
+                Integration::Noncoherent => (g / (e * e) + 2.0 / e) / (4.0 * n),
+                // The coherent mean is one "pulse" whose echo energy over its own
+                // noise (noise/N) is N E; put E -> N E, N -> 1 in the same form:
+                // (G/(N E)^2 + 2/(N E)) / 4, which for G = 1 is 1/(2 N s) to first
+                // order, the coherent result of §4.
+                Integration::Coherent => {
+                    let ne = n * e;
+                    (g / (ne * ne) + 2.0 / ne) / 4.0
+                }
+            }
+        } else {
+            f64::INFINITY
+        };
+        let weights: Vec<f64> = corrected.iter().map(|c| c.max(0.0).sqrt()).collect();
+        let total: f64 = weights.iter().sum();
+        let centroid_bin = (total > 0.0).then(|| {
+            self.start as f64
+                + weights
+                    .iter()
+                    .enumerate()
+                    .map(|(k, w)| k as f64 * w)
+                    .sum::<f64>()
+                    / total
+        });
+        let half = self.width() / 2;
+        let early = corrected[..half].iter().map(|c| c.max(0.0)).sum();
+        let late = corrected[self.width() - half..]
+            .iter()
+            .map(|c| c.max(0.0))
+            .sum();
+        GateSummary {
+            amplitude,
+            energy_ratio: e.max(0.0),
+            var_ln_amp,
+            centroid_bin,
+            range_bin: centroid_bin.map(|c| c - (pulse_samples - 1.0) / 2.0),
+            early,
+            late,
+        }
+    }
+}
+
+/// Follow measurements over one lobe cycle.
+#[derive(Clone, Debug, Default)]
+pub struct FollowAccumulator {
+    weight: f64,
+    weighted_centroid: f64,
+    early: f64,
+    late: f64,
+}
+
+impl FollowAccumulator {
+    pub fn add(&mut self, s: &GateSummary, _gate_start: usize) {
+        if let Some(c) = s.centroid_bin
+            && s.energy_ratio > 0.0
+            && s.energy_ratio.is_finite()
+        {
+            self.weight += s.energy_ratio;
+            self.weighted_centroid += s.energy_ratio * c;
+        }
+        self.early += s.early;
+        self.late += s.late;
+    }
+
+    /// The new gate start the cycle's measurements ask for, if any.
+    pub fn proposal(&self, follow: Follow, old_start: usize, width: usize) -> Option<usize> {
+        match follow {
+            Follow::None => None,
+            Follow::Centroid => (self.weight > 0.0).then(|| {
+                let c = self.weighted_centroid / self.weight;
+                (c - (width as f64 - 1.0) / 2.0).round().max(0.0) as usize
+            }),
+            Follow::EarlyLate => {
+                let total = self.early + self.late;
+                (total > 0.0 && width >= 2).then(|| {
+                    // For an echo filling the gate, (late-early)/(late+early) = 2 d / width
+                    // for a displacement of d bins.
+                    let d = (self.late - self.early) / total * width as f64 / 2.0;
+                    (old_start as f64 + d.round()).max(0.0) as usize
+                })
+            }
+        }
+    }
+}
+
+/// Start (index into `power`) of the `width`-bin window holding the most power.
+pub fn best_gate_start(power: &[f64], width: usize) -> Option<usize> {
+    if width == 0 || power.len() < width {
+        return None;
+    }
+    let mut sum: f64 = power[..width].iter().sum();
+    let (mut best, mut best_sum) = (0, sum);
+    for s in 1..=power.len() - width {
+        sum += power[s + width - 1] - power[s - 1];
+        if sum > best_sum {
+            best = s;
+            best_sum = sum;
+        }
+    }
+    (best_sum > 0.0).then_some(best)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn box_echo_centroid_is_exact_without_noise() {
+        // Integrate-and-dump samples of a 4-sample box at delay 10.3: weights 0.7,1,1,1,0.3.
+        let mut sums = DwellSums::new(9, 7, Integration::Noncoherent);
+        let gate: Vec<Complex32> = [0.0, 0.7, 1.0, 1.0, 1.0, 0.3, 0.0]
+            .iter()
+            .map(|&a| Complex32::new(a, 0.0))
+            .collect();
+        sums.add(&gate, std::iter::empty(), 0);
+        let s = sums.summarise(0.0, 4.0);
+        assert!(
+            (s.range_bin.unwrap() - 10.3).abs() < 1e-6,
+            "{:?}",
+            s.range_bin
+        );
+    }
+
+    #[test]
+    fn best_window_is_found() {
+        let p = [0.0, 1.0, 0.0, 5.0, 6.0, 1.0, 0.0];
+        assert_eq!(best_gate_start(&p, 2), Some(3));
+        assert_eq!(best_gate_start(&p, 8), None);
+        assert_eq!(best_gate_start(&[0.0; 4], 2), None);
+    }
+}

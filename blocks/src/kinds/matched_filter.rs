@@ -1,0 +1,278 @@
+//! `matched_filter`: pulse compression by correlation with the transmitted
+//! pulse (FFT overlap-save, streaming). An echo that starts at sample `n`
+//! peaks at output sample `n`: the output keeps the input's stamps, and the
+//! auxiliary channels are held back by the same amount so they stay aligned.
+//! The output is divided by the root of the reference energy, so white noise
+//! keeps its power per sample.
+
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::spectrum::{OverlapSave, linear_chirp};
+use crate::item::{Item, ItemKind, SampleChunk, Stamp};
+use crate::param::{ParamSpec, ParamType, Params, Unit};
+use num_complex::Complex32;
+use std::path::Path;
+
+/// Longest reference accepted (the FFT size is four times this).
+const MAX_TAPS: usize = 1 << 16;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "matched_filter",
+    doc: "Pulse compression: correlates the samples with the transmitted pulse (rect, linear chirp or a taps file) \
+          by FFT overlap-save; an echo starting at sample n peaks at sample n, noise power per sample is kept.",
+    inputs: &[PortSpec::required(
+        "samples",
+        ItemKind::Samples,
+        "baseband samples",
+    )],
+    outputs: &[PortSpec::optional(
+        "samples",
+        ItemKind::Samples,
+        "compressed samples, same stamps, aux channels aligned",
+    )],
+    params: &[
+        ParamSpec {
+            name: "code",
+            ty: ParamType::Choice(&["rect", "chirp", "taps"]),
+            default: Some("rect"),
+            doc: "the transmitted pulse: rect, chirp (linear, centred on 0 Hz) or a taps file",
+        },
+        ParamSpec {
+            name: "pulse",
+            ty: ParamType::Time {
+                min_s: 0.0,
+                max_s: 0.1,
+                pulses: false,
+            },
+            default: Some("16 samples"),
+            doc: "pulse length for rect and chirp",
+        },
+        ParamSpec {
+            name: "bandwidth",
+            ty: ParamType::Number {
+                unit: Unit::Hertz,
+                min: -5e9,
+                max: 5e9,
+            },
+            default: Some("1 MHz"),
+            doc: "chirp sweep width (negative sweeps down)",
+        },
+        ParamSpec {
+            name: "taps",
+            ty: ParamType::InputPath,
+            default: Some(""),
+            doc: "CSV of re,im per line (im optional; # comments; an optional header line) for code: taps",
+        },
+    ],
+    build,
+};
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let code = p.text("code")?.to_string();
+    let reference = if code == "taps" {
+        let path = p.text("taps")?;
+        if path.is_empty() {
+            return Err("matched_filter: code 'taps' needs the 'taps' file".into());
+        }
+        Some(read_taps(Path::new(path))?)
+    } else {
+        None
+    };
+    Ok(Box::new(MatchedFilter {
+        params: p.clone(),
+        code,
+        reference,
+        stream: None,
+        notices: 0,
+    }))
+}
+
+/// Read a taps CSV: `re[,im]` per line; `#` starts a comment; the first line may be a header.
+pub fn read_taps(path: &Path) -> Result<Vec<Complex32>, String> {
+    let text =
+        std::fs::read_to_string(path).map_err(|e| format!("taps file {}: {e}", path.display()))?;
+    let mut taps = Vec::new();
+    for (i, raw) in text.lines().enumerate() {
+        let line = raw.split('#').next().unwrap_or("").trim();
+        if line.is_empty() {
+            continue;
+        }
+        let fields: Vec<&str> = line.split(',').map(str::trim).collect();
+        let nums: Result<Vec<f32>, _> = fields.iter().map(|f| f.parse::<f32>()).collect();
+        match nums {
+            Ok(v) if (1..=2).contains(&v.len()) && v.iter().all(|x| x.is_finite()) => {
+                taps.push(Complex32::new(v[0], v.get(1).copied().unwrap_or(0.0)))
+            }
+            Err(_) if taps.is_empty() && i == 0 => continue, // header line
+            _ => {
+                return Err(format!(
+                    "taps file {} line {}: expected 're' or 're,im' numbers, got '{line}'",
+                    path.display(),
+                    i + 1
+                ));
+            }
+        }
+        if taps.len() > MAX_TAPS {
+            return Err(format!(
+                "taps file {}: more than {MAX_TAPS} taps",
+                path.display()
+            ));
+        }
+    }
+    if taps.iter().all(|t| t.norm_sqr() == 0.0) {
+        return Err(format!("taps file {}: no non-zero taps", path.display()));
+    }
+    Ok(taps)
+}
+
+/// One contiguous run of input being filtered.
+struct Stream {
+    engine: OverlapSave,
+    rate: f64,
+    next_in: u64,
+    next_out: u64,
+    sync: Option<Vec<f32>>,
+    trigger: Option<Vec<f32>>,
+    out: Vec<Complex32>,
+}
+
+struct MatchedFilter {
+    params: Params,
+    code: String,
+    reference: Option<Vec<Complex32>>,
+    stream: Option<Stream>,
+    notices: u64,
+}
+
+impl MatchedFilter {
+    fn reference(&self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::new(format!(
+                "matched_filter: chunk carries a sample rate of {rate} S/s"
+            )));
+        }
+        if let Some(r) = &self.reference {
+            return Ok(r.clone());
+        }
+        let len = self
+            .params
+            .samples_at("pulse", rate, None)
+            .map_err(BlockError::new)?
+            .round();
+        if !(1.0..=MAX_TAPS as f64).contains(&len) {
+            return Err(BlockError::new(format!(
+                "matched_filter: pulse is {len} samples at {rate} S/s (1 to {MAX_TAPS})"
+            )));
+        }
+        let len = len as usize;
+        Ok(match self.code.as_str() {
+            "chirp" => {
+                let bw = self.params.num("bandwidth").map_err(BlockError::new)? / rate;
+                if bw.abs() > 1.0 {
+                    return Err(BlockError::new(format!(
+                        "matched_filter: chirp bandwidth is {:.3} times the sample rate (at most 1)",
+                        bw.abs()
+                    )));
+                }
+                linear_chirp(len, bw)
+            }
+            _ => vec![Complex32::new(1.0, 0.0); len],
+        })
+    }
+
+    fn start(&mut self, chunk: &SampleChunk) -> Result<Stream, BlockError> {
+        let h = self.reference(chunk.stamp.rate)?;
+        let energy: f64 = h.iter().map(|x| x.norm_sqr() as f64).sum();
+        let engine = OverlapSave::new(&h, (1.0 / energy.sqrt()) as f32).map_err(BlockError::new)?;
+        Ok(Stream {
+            engine,
+            rate: chunk.stamp.rate,
+            next_in: chunk.stamp.index,
+            next_out: chunk.stamp.index,
+            sync: chunk.sync.as_ref().map(|_| Vec::new()),
+            trigger: chunk.trigger.as_ref().map(|_| Vec::new()),
+            out: Vec::new(),
+        })
+    }
+}
+
+impl Stream {
+    fn fits(&self, c: &SampleChunk) -> bool {
+        c.stamp.index == self.next_in
+            && c.stamp.rate == self.rate
+            && c.sync.is_some() == self.sync.is_some()
+            && c.trigger.is_some() == self.trigger.is_some()
+    }
+
+    fn feed(&mut self, c: &SampleChunk, out: &mut Outputs) {
+        self.engine.push(&c.iq, &mut self.out);
+        if let (Some(buf), Some(s)) = (&mut self.sync, &c.sync) {
+            buf.extend_from_slice(s);
+        }
+        if let (Some(buf), Some(t)) = (&mut self.trigger, &c.trigger) {
+            buf.extend_from_slice(t);
+        }
+        self.next_in += c.len() as u64;
+        self.emit(out);
+    }
+
+    fn flush(&mut self, out: &mut Outputs) {
+        self.engine.flush(&mut self.out);
+        self.emit(out);
+    }
+
+    /// Send what is ready, with the aux samples of the same indices.
+    fn emit(&mut self, out: &mut Outputs) {
+        let n = self.out.len();
+        if n == 0 {
+            return;
+        }
+        let take = |buf: &mut Option<Vec<f32>>| {
+            buf.as_mut()
+                .map(|b| b.drain(..n.min(b.len())).collect::<Vec<f32>>().into())
+        };
+        let chunk = SampleChunk {
+            stamp: Stamp::new(self.next_out, self.rate),
+            iq: std::mem::take(&mut self.out).into(),
+            sync: take(&mut self.sync),
+            trigger: take(&mut self.trigger),
+        };
+        self.next_out += n as u64;
+        out.push(0, Item::Samples(chunk));
+    }
+}
+
+impl Block for MatchedFilter {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Samples(chunk) = item else {
+            return Ok(());
+        };
+        if chunk.is_empty() {
+            return Ok(());
+        }
+        if let Some(s) = &mut self.stream
+            && !s.fits(&chunk)
+        {
+            s.flush(out);
+            self.notices += 1;
+            if self.notices <= 3 {
+                out.notice(chunk.stamp, format!("input jumps from sample {} (or its channels or rate change); the filter restarts", s.next_in));
+            }
+            self.stream = None;
+        }
+        if self.stream.is_none() {
+            self.stream = Some(self.start(&chunk)?);
+        }
+        if let Some(s) = &mut self.stream {
+            s.feed(&chunk, out);
+        }
+        Ok(())
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        if let Some(s) = &mut self.stream {
+            s.flush(out);
+        }
+        self.stream = None;
+        Ok(())
+    }
+}

@@ -1,0 +1,573 @@
+//! `range_gate`: integrates the echo inside a range gate over each lobe dwell
+//! of a pulsed tracker, with a fixed gate or one that acquires and follows the
+//! strongest echo. Formulas: field notes sections 4 and 5; the per-dwell
+//! arithmetic lives in [`crate::dsp::gate`].
+
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::gate::{DwellSums, Follow, GateSummary, Integration, best_gate_start};
+use crate::item::{DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep};
+use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+const DIST: ParamType = ParamType::Distance {
+    min_m: 0.0,
+    max_m: 1e9,
+};
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "range_gate",
+    doc: "Integrates a range gate over each lobe dwell of labelled sweeps (noncoherent power or coherent mean), \
+          with noise from a reference region, sub-bin range from the gate's amplitude centroid, an optional \
+          acquire-and-follow gate, and a check that the lobes share one noise floor.",
+    inputs: &[PortSpec::required(
+        "sweeps",
+        ItemKind::Sweep,
+        "sweeps labelled with their lobe and dwell",
+    )],
+    outputs: &[PortSpec::optional(
+        "dwells",
+        ItemKind::Dwell,
+        "one record per lobe dwell",
+    )],
+    params: &[
+        ParamSpec {
+            name: "gate_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "first range bin of the gate (m or bins); required unless acquire is on",
+        },
+        ParamSpec {
+            name: "gate_width",
+            ty: DIST,
+            default: Some("2 bins"),
+            doc: "gate width; keep it near the echo length plus one bin",
+        },
+        ParamSpec {
+            name: "acquire",
+            ty: ParamType::Bool,
+            default: Some("false"),
+            doc: "find the strongest echo in the search window and centre the gate on it",
+        },
+        ParamSpec {
+            name: "search_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "start of the acquisition search window",
+        },
+        ParamSpec {
+            name: "search_end",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "end of the search window; 0 = up to the noise region / sweep end",
+        },
+        ParamSpec {
+            name: "acquire_dwells",
+            ty: ParamType::Integer {
+                min: 1,
+                max: 10_000,
+            },
+            default: Some("4"),
+            doc: "dwells (all lobes) summed to acquire; they are not reported",
+        },
+        ParamSpec {
+            name: "follow",
+            ty: ParamType::Choice(Follow::NAMES),
+            default: Some("none"),
+            doc: "re-centre the gate each lobe cycle: none, centroid, or early_late split gate",
+        },
+        ParamSpec {
+            name: "pulse",
+            ty: ParamType::Time {
+                min_s: 0.0,
+                max_s: 1.0,
+                pulses: false,
+            },
+            default: Some("1 samples"),
+            doc: "echo length (1 sample after a matched filter); its centre offset is taken off the range",
+        },
+        ParamSpec {
+            name: "integration",
+            ty: ParamType::Choice(Integration::NAMES),
+            default: Some("noncoherent"),
+            doc: "noncoherent (sum of power) or coherent (complex mean per gate bin, then power)",
+        },
+        ParamSpec {
+            name: "noise_start",
+            ty: DIST,
+            default: Some("0 bins"),
+            doc: "start of the noise reference region; 0 = the last noise_width bins of each sweep",
+        },
+        ParamSpec {
+            name: "noise_width",
+            ty: DIST,
+            default: Some("32 bins"),
+            doc: "width of the noise reference region",
+        },
+        ParamSpec {
+            name: "noise_margin",
+            ty: ParamType::Number {
+                unit: Unit::Decibels,
+                min: 0.0,
+                max: 60.0,
+            },
+            default: Some("3 dB"),
+            doc: "report lobes whose noise floors differ by more than this",
+        },
+    ],
+    build,
+};
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let acquire = p.flag("acquire")?;
+    let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
+    let integration =
+        Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
+    // Distances can only become bins once the sample rate is known; check what we can now.
+    for name in [
+        "gate_start",
+        "gate_width",
+        "search_start",
+        "search_end",
+        "noise_start",
+        "noise_width",
+        "pulse",
+    ] {
+        p.get(name)
+            .ok_or_else(|| format!("parameter '{name}' has no value"))?;
+    }
+    if !acquire && is_zero(p, "gate_start") {
+        return Err(
+            "range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'"
+                .into(),
+        );
+    }
+    Ok(Box::new(RangeGate {
+        params: p.clone(),
+        acquire,
+        acquire_dwells: p.int("acquire_dwells")?.max(1) as u64,
+        follow,
+        integration,
+        noise_margin_db: p.num("noise_margin")?,
+        geometry: None,
+        gate_start: None,
+        acq: None,
+        cycle: Follow::accumulator(),
+        last_lobe: None,
+        current: None,
+        skipped_short: 0,
+        untagged: 0,
+        no_noise: 0,
+        noise_floor: BTreeMap::new(),
+        mismatch_reported: false,
+        blank_reported: false,
+        last_stamp: Stamp::new(0, 1.0),
+    }))
+}
+
+fn is_zero(p: &Params, name: &str) -> bool {
+    matches!(p.get(name), Some(crate::param::Value::Bins(b)) | Some(crate::param::Value::Metres(b)) if *b == 0.0)
+}
+
+/// Parameters converted to whole bins at one sample rate.
+#[derive(Clone, Debug)]
+struct Geometry {
+    rate: f64,
+    gate_start: usize,
+    gate_width: usize,
+    search_start: usize,
+    /// 0 = up to the noise region / sweep end.
+    search_end: usize,
+    /// None = the last `noise_width` bins of each sweep.
+    noise_start: Option<usize>,
+    noise_width: usize,
+    pulse_samples: f64,
+}
+
+fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
+    let b = p.bins_at(name, rate).map_err(BlockError::new)?;
+    if !b.is_finite() || b < 0.0 || b > 1e8 {
+        return Err(BlockError::new(format!(
+            "range_gate: '{name}' is {b} bins at {rate} S/s; too large"
+        )));
+    }
+    Ok(b.round() as usize)
+}
+
+impl Geometry {
+    fn resolve(p: &Params, rate: f64) -> Result<Geometry, BlockError> {
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::new(format!(
+                "range_gate: sweeps carry a sample rate of {rate} S/s"
+            )));
+        }
+        let noise_start = whole_bins(p, "noise_start", rate)?;
+        let pulse = p.samples_at("pulse", rate, None).map_err(BlockError::new)?;
+        if !(pulse.is_finite() && (0.0..=1e8).contains(&pulse)) {
+            return Err(BlockError::new(format!(
+                "range_gate: 'pulse' is {pulse} samples at {rate} S/s"
+            )));
+        }
+        let g = Geometry {
+            rate,
+            gate_start: whole_bins(p, "gate_start", rate)?,
+            gate_width: whole_bins(p, "gate_width", rate)?.max(1),
+            search_start: whole_bins(p, "search_start", rate)?,
+            search_end: whole_bins(p, "search_end", rate)?,
+            noise_start: (noise_start > 0).then_some(noise_start),
+            noise_width: whole_bins(p, "noise_width", rate)?.max(1),
+            pulse_samples: pulse.round().max(1.0),
+        };
+        if g.search_end != 0 && g.search_end < g.search_start + g.gate_width {
+            return Err(BlockError::new(format!(
+                "range_gate: search window {}..{} bins is narrower than the gate ({} bins)",
+                g.search_start, g.search_end, g.gate_width
+            )));
+        }
+        Ok(g)
+    }
+
+    /// The noise reference bins of a sweep of `len` samples.
+    fn noise_range(&self, len: usize) -> std::ops::Range<usize> {
+        match self.noise_start {
+            Some(s) => s.min(len)..(s + self.noise_width).min(len),
+            None => len.saturating_sub(self.noise_width)..len,
+        }
+    }
+}
+
+/// Acquisition: power per bin of the search window, summed over all lobes.
+struct Acquisition {
+    start: usize,
+    power: Vec<f64>,
+    dwells: u64,
+}
+
+/// The dwell being integrated.
+struct Current {
+    tag: LobeTag,
+    /// None while acquiring.
+    sums: Option<DwellSums>,
+}
+
+struct RangeGate {
+    params: Params,
+    acquire: bool,
+    acquire_dwells: u64,
+    follow: Follow,
+    integration: Integration,
+    noise_margin_db: f64,
+    geometry: Option<Geometry>,
+    /// The gate in use; None while acquiring.
+    gate_start: Option<usize>,
+    acq: Option<Acquisition>,
+    /// Follow measurements of the running lobe cycle.
+    cycle: crate::dsp::gate::FollowAccumulator,
+    last_lobe: Option<usize>,
+    current: Option<Current>,
+    skipped_short: u64,
+    untagged: u64,
+    no_noise: u64,
+    /// Running noise power per lobe: (name, smoothed power, dwells seen).
+    noise_floor: BTreeMap<usize, (Arc<str>, f64, u64)>,
+    mismatch_reported: bool,
+    blank_reported: bool,
+    last_stamp: Stamp,
+}
+
+impl RangeGate {
+    fn geometry(&mut self, rate: f64, at: u64) -> Result<Geometry, BlockError> {
+        match &self.geometry {
+            Some(g) if g.rate == rate => Ok(g.clone()),
+            Some(g) => Err(BlockError::at(
+                format!(
+                    "range_gate: sample rate changed from {} to {rate} S/s",
+                    g.rate
+                ),
+                at,
+            )),
+            None => {
+                let g = Geometry::resolve(&self.params, rate)?;
+                if !self.acquire {
+                    self.gate_start = Some(g.gate_start);
+                }
+                self.geometry = Some(g.clone());
+                Ok(g)
+            }
+        }
+    }
+
+    /// A new dwell begins with `tag`: apply acquisition / follow results at
+    /// the start of a lobe cycle so both lobes of a pair share one gate.
+    fn open_dwell(&mut self, tag: &LobeTag, geo: &Geometry, at: Stamp, out: &mut Outputs) {
+        let cycle_start = self.last_lobe.is_none_or(|l| tag.lobe <= l);
+        self.last_lobe = Some(tag.lobe);
+        if cycle_start {
+            if self.gate_start.is_none() {
+                if let Some(acq) = &self.acq
+                    && acq.dwells >= self.acquire_dwells
+                    && let Some(best) = best_gate_start(&acq.power, geo.gate_width)
+                {
+                    let start = acq.start + best;
+                    self.gate_start = Some(start);
+                    out.notice(
+                        at,
+                        format!(
+                            "acquired the strongest echo: gate at bins {}..{} ({:.1} m) after {} dwells",
+                            start,
+                            start + geo.gate_width,
+                            start as f64 * range_bin_m(geo.rate),
+                            acq.dwells
+                        ),
+                    );
+                    self.acq = None;
+                }
+            } else if let Some(old) = self.gate_start
+                && let Some(new) = self.cycle.proposal(self.follow, old, geo.gate_width)
+            {
+                let floor = if self.acquire { geo.search_start } else { 0 };
+                self.gate_start = Some(new.max(floor).max(1));
+            }
+            self.cycle = Follow::accumulator();
+        }
+        let sums = self
+            .gate_start
+            .map(|s| DwellSums::new(s, geo.gate_width, self.integration));
+        if sums.is_none() && self.acq.is_none() {
+            self.acq = Some(Acquisition {
+                start: geo.search_start,
+                power: Vec::new(),
+                dwells: 0,
+            });
+        }
+        if sums.is_none()
+            && let Some(acq) = &mut self.acq
+        {
+            acq.dwells += 1;
+        }
+        self.current = Some(Current {
+            tag: tag.clone(),
+            sums,
+        });
+    }
+
+    fn add_sweep(&mut self, sweep: &Sweep, geo: &Geometry, out: &mut Outputs) {
+        let Some(cur) = &mut self.current else { return };
+        let iq = &sweep.iq[..];
+        match &mut cur.sums {
+            None => {
+                let Some(acq) = &mut self.acq else { return };
+                if acq.power.is_empty() {
+                    // Size the window from the first sweep seen: constant from then on.
+                    let end = if geo.search_end > 0 {
+                        geo.search_end
+                    } else {
+                        geo.noise_range(iq.len()).start
+                    };
+                    acq.power = vec![0.0; end.saturating_sub(acq.start).max(geo.gate_width)];
+                }
+                for (k, p) in acq.power.iter_mut().enumerate() {
+                    match iq.get(acq.start + k) {
+                        Some(x) => *p += x.norm_sqr() as f64,
+                        None => break,
+                    }
+                }
+            }
+            Some(sums) => {
+                let gate = sums.start..sums.start + sums.width();
+                if iq.len() < gate.end {
+                    self.skipped_short += 1;
+                    if self.skipped_short == 1 {
+                        out.notice(
+                            sweep.stamp,
+                            format!("sweep of {} samples is shorter than the gate (ends at bin {}); skipped", iq.len(), gate.end),
+                        );
+                    }
+                    return;
+                }
+                if sweep.blanked > gate.start && !self.blank_reported {
+                    self.blank_reported = true;
+                    out.notice(
+                        sweep.stamp,
+                        format!(
+                            "the gate (from bin {}) overlaps the blanked leakage ({} bins)",
+                            gate.start, sweep.blanked
+                        ),
+                    );
+                }
+                let noise = geo.noise_range(iq.len());
+                let noise_iter = iq[noise.clone()]
+                    .iter()
+                    .enumerate()
+                    .filter(|(k, _)| !gate.contains(&(noise.start + k)))
+                    .map(|(_, x)| *x);
+                sums.add(&iq[gate.clone()], noise_iter, sweep.stamp.index);
+            }
+        }
+    }
+
+    fn close_dwell(&mut self, out: &mut Outputs) {
+        let Some(cur) = self.current.take() else {
+            return;
+        };
+        let Some(sums) = cur.sums else { return };
+        let Some(geo) = self.geometry.clone() else {
+            return;
+        };
+        if sums.pulses() == 0 {
+            return;
+        }
+        let noise = match sums.noise_power() {
+            Some(n) => n,
+            None => match self.noise_floor.get(&cur.tag.lobe) {
+                Some(&(_, n, _)) => n,
+                None => {
+                    self.no_noise += 1;
+                    if self.no_noise == 1 {
+                        out.notice(
+                            Stamp::new(cur.tag.dwell_start, geo.rate),
+                            "no noise reference samples in this dwell (region past the sweep end?); dwell skipped",
+                        );
+                    }
+                    return;
+                }
+            },
+        };
+        let summary: GateSummary = sums.summarise(noise, geo.pulse_samples);
+        self.cycle.add(&summary, sums.start);
+        let mid = Stamp::new(sums.mid_index(), geo.rate);
+        self.check_noise_floor(&cur.tag, noise, mid, out);
+        out.push(
+            0,
+            Item::Dwell(DwellRecord {
+                tag: cur.tag,
+                mid,
+                amplitude: summary.amplitude,
+                noise_power: noise,
+                snr: summary.energy_ratio,
+                var_ln_amp: summary.var_ln_amp,
+                range_m: summary.range_bin.map(|b| b * range_bin_m(geo.rate)),
+                used: sums.pulses(),
+            }),
+        );
+    }
+
+    fn check_noise_floor(&mut self, tag: &LobeTag, noise: f64, at: Stamp, out: &mut Outputs) {
+        if !(noise.is_finite() && noise > 0.0) {
+            return;
+        }
+        let entry = self
+            .noise_floor
+            .entry(tag.lobe)
+            .or_insert((Arc::clone(&tag.name), noise, 0));
+        // Smooth over a few dwells so one noisy dwell does not trip the check.
+        entry.1 += 0.25 * (noise - entry.1);
+        entry.2 += 1;
+        if self.mismatch_reported
+            || self.noise_floor.len() < 2
+            || self.noise_floor.values().any(|e| e.2 < 3)
+        {
+            return;
+        }
+        let (lo, hi) = self.noise_floor.values().fold(
+            (None::<&(Arc<str>, f64, u64)>, None::<&(Arc<str>, f64, u64)>),
+            |(lo, hi), e| {
+                (
+                    Some(lo.map_or(e, |l| if e.1 < l.1 { e } else { l })),
+                    Some(hi.map_or(e, |h| if e.1 > h.1 { e } else { h })),
+                )
+            },
+        );
+        if let (Some(lo), Some(hi)) = (lo, hi) {
+            let diff_db = 10.0 * (hi.1 / lo.1).log10();
+            if diff_db > self.noise_margin_db {
+                self.mismatch_reported = true;
+                out.notice(
+                    at,
+                    format!(
+                        "noise floors differ between lobes: '{}' {:.2} dB, '{}' {:.2} dB ({:.2} dB apart, margin {} dB); \
+                         receiver gain control or a lobe imbalance?",
+                        hi.0,
+                        10.0 * hi.1.log10(),
+                        lo.0,
+                        10.0 * lo.1.log10(),
+                        diff_db,
+                        self.noise_margin_db
+                    ),
+                );
+            }
+        }
+    }
+}
+
+impl Block for RangeGate {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Sweep(sweep) = item else {
+            return Ok(());
+        };
+        let Some(tag) = sweep.lobe.clone() else {
+            self.untagged += 1;
+            if self.untagged == 1 {
+                out.notice(
+                    sweep.stamp,
+                    "sweep without a lobe label (no switch-sync gate upstream?); skipped",
+                );
+            }
+            return Ok(());
+        };
+        let geo = self.geometry(sweep.stamp.rate, sweep.stamp.index)?;
+        self.last_stamp = sweep.stamp;
+        let same_dwell = self
+            .current
+            .as_ref()
+            .is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
+        if !same_dwell {
+            self.close_dwell(out);
+            self.open_dwell(&tag, &geo, sweep.stamp, out);
+        }
+        self.add_sweep(&sweep, &geo, out);
+        Ok(())
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.close_dwell(out);
+        let end = self.last_stamp;
+        if self.skipped_short > 0 {
+            out.notice(
+                end,
+                format!(
+                    "{} sweeps were shorter than the range gate and were skipped",
+                    self.skipped_short
+                ),
+            );
+        }
+        if self.untagged > 1 {
+            out.notice(
+                end,
+                format!(
+                    "{} sweeps had no lobe label and were skipped",
+                    self.untagged
+                ),
+            );
+        }
+        if self.no_noise > 1 {
+            out.notice(
+                end,
+                format!(
+                    "{} dwells had no noise reference samples and were skipped",
+                    self.no_noise
+                ),
+            );
+        }
+        if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
+            out.notice(
+                end,
+                format!(
+                    "acquisition did not finish: fewer than {} dwells and a cycle start",
+                    self.acquire_dwells
+                ),
+            );
+        }
+        Ok(())
+    }
+}

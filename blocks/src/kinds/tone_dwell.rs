@@ -1,0 +1,412 @@
+//! `tone_dwell`: the beacon-mode integrator. Per lobe dwell, the amplitude of
+//! a known tone from a windowed FFT (peak refined between bins, then read off
+//! the windowed transform at the refined frequency, so the window's scalloping
+//! does not bias it), the noise from the off-tone bins, and the expected
+//! spread (field notes sections 4-5). Shared math: [`crate::dsp::spectrum`].
+
+use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::spectrum::{FftCache, Window, next_pow2, parabolic_offset, weighted_dtft};
+use crate::item::{DwellRecord, Item, ItemKind, LobeSegment, LobeTag, Stamp};
+use crate::param::{ParamSpec, ParamType, Params, Unit};
+use num_complex::Complex32;
+
+pub const SPEC: BlockSpec = BlockSpec {
+    kind: "tone_dwell",
+    doc: "Beacon integrator: per lobe dwell, the amplitude of a known tone from a windowed FFT with the peak \
+          interpolated between bins (or the whole-band power), noise from off-tone bins, and the expected \
+          spread of ln(amplitude).",
+    inputs: &[PortSpec::required(
+        "segments",
+        ItemKind::Segment,
+        "lobe segments; dwell_end closes a dwell",
+    )],
+    outputs: &[PortSpec::optional(
+        "dwells",
+        ItemKind::Dwell,
+        "one record per lobe dwell",
+    )],
+    params: &[
+        ParamSpec {
+            name: "tone",
+            ty: ParamType::Number {
+                unit: Unit::Hertz,
+                min: -5e9,
+                max: 5e9,
+            },
+            default: None,
+            doc: "beacon tone frequency at baseband",
+        },
+        ParamSpec {
+            name: "search",
+            ty: ParamType::Number {
+                unit: Unit::Hertz,
+                min: 0.0,
+                max: 5e9,
+            },
+            default: Some("0 Hz"),
+            doc: "extra half-width around the tone in which to look for its peak (drift)",
+        },
+        ParamSpec {
+            name: "window",
+            ty: ParamType::Choice(Window::NAMES),
+            default: Some("hann"),
+            doc: "data window: hann, blackman or rect (rect leaks a strong tone into the noise bins)",
+        },
+        ParamSpec {
+            name: "method",
+            ty: ParamType::Choice(&["fft_bin", "band_power"]),
+            default: Some("fft_bin"),
+            doc: "fft_bin: the tone's coherent amplitude; band_power: whole-band power minus the noise estimate",
+        },
+        ParamSpec {
+            name: "fft_size",
+            ty: ParamType::Integer {
+                min: 0,
+                max: 1 << 22,
+            },
+            default: Some("0"),
+            doc: "transform length (rounded up to a power of two; samples past it are not used); 0 = whole dwell, padded to twice its power of two",
+        },
+        ParamSpec {
+            name: "max_samples",
+            ty: ParamType::Integer {
+                min: 16,
+                max: 1 << 22,
+            },
+            default: Some("1048576"),
+            doc: "most samples collected per dwell (the rest are left out)",
+        },
+    ],
+    build,
+};
+
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let window = Window::from_name(p.text("window")?).ok_or("window: unknown name")?;
+    let fft_size = p.int("fft_size")?.max(0) as usize;
+    let max_samples = p.int("max_samples")?.max(16) as usize;
+    let cap = if fft_size > 0 {
+        max_samples.min(fft_size)
+    } else {
+        max_samples
+    };
+    Ok(Box::new(ToneDwell {
+        tone_hz: p.num("tone")?,
+        search_hz: p.num("search")?,
+        window,
+        band_power: p.text("method")? == "band_power",
+        fft_size: if fft_size > 0 {
+            Some(next_pow2(fft_size))
+        } else {
+            None
+        },
+        cap,
+        fft: FftCache::new(),
+        samples: Vec::new(),
+        weights: Vec::new(),
+        spectrum: Vec::new(),
+        powers: Vec::new(),
+        current: None,
+        left_out: 0,
+        gaps: 0,
+        unterminated: 0,
+        too_short: 0,
+        last_stamp: Stamp::new(0, 1.0),
+    }))
+}
+
+/// The dwell being collected.
+struct Open {
+    tag: LobeTag,
+    rate: f64,
+    first: u64,
+    last: u64,
+    next: u64,
+}
+
+struct ToneDwell {
+    tone_hz: f64,
+    search_hz: f64,
+    window: Window,
+    band_power: bool,
+    fft_size: Option<usize>,
+    cap: usize,
+    fft: FftCache,
+    // Buffers reused from dwell to dwell (bounded by `cap` and the FFT size).
+    samples: Vec<Complex32>,
+    weights: Vec<f64>,
+    spectrum: Vec<Complex32>,
+    powers: Vec<f64>,
+    current: Option<Open>,
+    left_out: u64,
+    gaps: u64,
+    unterminated: u64,
+    too_short: u64,
+    last_stamp: Stamp,
+}
+
+/// Result of one dwell's estimate.
+struct ToneEstimate {
+    amplitude: f64,
+    noise_power: f64,
+    energy_ratio: f64,
+    var_ln_amp: f64,
+}
+
+impl ToneDwell {
+    fn add(&mut self, seg: &LobeSegment, out: &mut Outputs) {
+        let stamp = seg.chunk.stamp;
+        let cur = self.current.get_or_insert(Open {
+            tag: seg.tag.clone(),
+            rate: stamp.rate,
+            first: stamp.index,
+            last: stamp.index,
+            next: stamp.index,
+        });
+        if stamp.index != cur.next && !self.samples.is_empty() {
+            self.gaps += 1;
+            if self.gaps == 1 {
+                out.notice(stamp, format!("dwell {} has a gap of samples before this segment; joined as if contiguous", seg.tag.dwell));
+            }
+        }
+        let room = self.cap - self.samples.len();
+        let take = room.min(seg.chunk.len());
+        self.samples.extend_from_slice(&seg.chunk.iq[..take]);
+        self.left_out += (seg.chunk.len() - take) as u64;
+        if take > 0 {
+            cur.last = stamp.index + take as u64 - 1;
+        }
+        cur.next = stamp.index + seg.chunk.len() as u64;
+    }
+
+    fn close(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(cur) = self.current.take() else {
+            return Ok(());
+        };
+        let m = self.samples.len();
+        if m < 8 {
+            self.too_short += 1;
+            if self.too_short == 1 {
+                out.notice(
+                    Stamp::new(cur.first, cur.rate),
+                    format!("dwell {} has only {m} samples; skipped", cur.tag.dwell),
+                );
+            }
+            self.samples.clear();
+            return Ok(());
+        }
+        let est = self.estimate(cur.rate);
+        self.samples.clear();
+        out.push(
+            0,
+            Item::Dwell(DwellRecord {
+                tag: cur.tag,
+                mid: Stamp::new(cur.first + (cur.last - cur.first) / 2, cur.rate),
+                amplitude: est.amplitude,
+                noise_power: est.noise_power,
+                snr: est.energy_ratio,
+                var_ln_amp: est.var_ln_amp,
+                range_m: None,
+                used: m as u64,
+            }),
+        );
+        Ok(())
+    }
+
+    fn estimate(&mut self, rate: f64) -> ToneEstimate {
+        let m = self.samples.len();
+        let nfft = self.fft_size.unwrap_or(2 * next_pow2(m)).max(next_pow2(m));
+        self.weights.resize(m, 0.0);
+        self.window.fill(&mut self.weights);
+        let sum_w: f64 = self.weights.iter().sum();
+        let sum_w2: f64 = self.weights.iter().map(|w| w * w).sum();
+        self.spectrum.clear();
+        self.spectrum.extend(
+            self.samples
+                .iter()
+                .zip(&self.weights)
+                .map(|(x, w)| x * *w as f32),
+        );
+        self.spectrum.resize(nfft, Complex32::new(0.0, 0.0));
+        self.fft.forward(&mut self.spectrum);
+        self.powers.clear();
+        self.powers
+            .extend(self.spectrum.iter().map(|x| x.norm_sqr() as f64));
+
+        // Peak near the tone: within one unpadded bin plus the search width.
+        let pad = nfft as f64 / m as f64;
+        // Reduced to one turn of the spectrum so far-out tones stay in range.
+        let tone_bin = (self.tone_hz / rate).rem_euclid(1.0) * nfft as f64;
+        // Never wider than half the transform: the search wraps around.
+        let reach = (pad + self.search_hz / rate * nfft as f64)
+            .ceil()
+            .min(nfft as f64 / 2.0) as i64;
+        let centre = tone_bin.round() as i64;
+        let wrap = |k: i64| k.rem_euclid(nfft as i64) as usize;
+        let peak = (centre - reach..=centre + reach)
+            .max_by(|&a, &b| self.powers[wrap(a)].total_cmp(&self.powers[wrap(b)]))
+            .unwrap_or(centre);
+        let ln = |k: i64| self.powers[wrap(k)].max(1e-300).ln();
+        let offset = parabolic_offset(ln(peak - 1), ln(peak), ln(peak + 1));
+        let freq = (peak as f64 + offset) / nfft as f64;
+
+        // Noise from the bins outside the tone's main lobe (plus one bin of margin).
+        // The median of |X|^2 over ln 2 is the mean of the exponential
+        // distribution noise bins follow, and ignores spurs (a DC spike).
+        let exclude = ((self.window.main_lobe_half_width() + 1.0) * pad).ceil() as i64;
+        let tone_pos = peak as f64 + offset;
+        let mut off: Vec<f64> = std::mem::take(&mut self.powers);
+        let n = nfft as i64;
+        off.retain({
+            let mut k = -1i64;
+            move |_| {
+                k += 1;
+                let d = (k as f64 - tone_pos).rem_euclid(n as f64);
+                d.min(n as f64 - d) > exclude as f64
+            }
+        });
+        let noise_power = if off.is_empty() {
+            f64::NAN
+        } else {
+            let mid = off.len() / 2;
+            let (_, median, _) = off.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
+            *median / std::f64::consts::LN_2 / sum_w2
+        };
+        self.powers = off;
+
+        let m_f = m as f64;
+        if self.band_power {
+            // Whole-band power minus noise; the noncoherent form of field notes §4 with
+            // one "pulse" and a gate of M samples: (M/E^2 + 2/E)/4, E = M P / noise.
+            let mean_power = self
+                .samples
+                .iter()
+                .map(|x| x.norm_sqr() as f64)
+                .sum::<f64>()
+                / m_f;
+            let p = mean_power - noise_power;
+            let e = ratio(p * m_f, noise_power);
+            return ToneEstimate {
+                amplitude: if p > 0.0 { p.sqrt() } else { f64::NAN },
+                noise_power,
+                energy_ratio: e.max(0.0),
+                var_ln_amp: if e > 0.0 {
+                    (m_f / (e * e) + 2.0 / e) / 4.0
+                } else {
+                    f64::INFINITY
+                },
+            };
+        }
+        let (re, im) = weighted_dtft(&self.samples, &self.weights, freq);
+        // E|Y|^2 = A^2 (sum w)^2 + noise * sum w^2: take the noise part off.
+        let a2 = (re * re + im * im - noise_power * sum_w2) / (sum_w * sum_w);
+        let e = ratio(a2 * m_f, noise_power);
+        // Y = A sum(w) + noise of variance noise*sum(w^2); the in-phase part of the
+        // noise moves ln|Y| by var = noise*sum(w^2) / (2 A^2 sum(w)^2)
+        // = 1 / (2 s M_eff) with M_eff = sum(w)^2/sum(w^2) = M / ENBW(bins),
+        // i.e. ENBW / (2 E). A rect window gives 1/(2 M s), field notes §4.
+        let enbw = m_f * sum_w2 / (sum_w * sum_w);
+        ToneEstimate {
+            amplitude: if a2 > 0.0 { a2.sqrt() } else { f64::NAN },
+            noise_power,
+            energy_ratio: e.max(0.0),
+            var_ln_amp: if e > 0.0 {
+                enbw / (2.0 * e)
+            } else {
+                f64::INFINITY
+            },
+        }
+    }
+}
+
+fn ratio(signal: f64, noise: f64) -> f64 {
+    if noise > 0.0 {
+        signal / noise
+    } else if signal > 0.0 {
+        f64::INFINITY
+    } else {
+        0.0
+    }
+}
+
+impl Block for ToneDwell {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Item::Segment(seg) = item else {
+            return Ok(());
+        };
+        self.last_stamp = seg.chunk.stamp;
+        if let Some(cur) = &self.current
+            && (cur.tag.dwell != seg.tag.dwell || cur.tag.lobe != seg.tag.lobe)
+        {
+            self.unterminated += 1;
+            if self.unterminated == 1 {
+                out.notice(
+                    seg.chunk.stamp,
+                    format!(
+                        "dwell {} ended without its last segment; integrated what arrived",
+                        cur.tag.dwell
+                    ),
+                );
+            }
+            self.close(out)?;
+        }
+        if let Some(cur) = &self.current
+            && cur.rate != seg.chunk.stamp.rate
+        {
+            return Err(BlockError::at(
+                format!(
+                    "tone_dwell: sample rate changed from {} to {} S/s",
+                    cur.rate, seg.chunk.stamp.rate
+                ),
+                seg.chunk.stamp.index,
+            ));
+        }
+        let rate = seg.chunk.stamp.rate;
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(BlockError::at(
+                format!("tone_dwell: segment carries a sample rate of {rate} S/s"),
+                seg.chunk.stamp.index,
+            ));
+        }
+        self.add(&seg, out);
+        if seg.dwell_end {
+            self.close(out)?;
+        }
+        Ok(())
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.close(out)?;
+        let at = self.last_stamp;
+        if self.left_out > 0 {
+            out.notice(
+                at,
+                format!(
+                    "{} samples past the per-dwell limit ({}) were left out",
+                    self.left_out, self.cap
+                ),
+            );
+        }
+        if self.gaps > 1 {
+            out.notice(
+                at,
+                format!("{} segments followed a gap within their dwell", self.gaps),
+            );
+        }
+        if self.unterminated > 1 {
+            out.notice(
+                at,
+                format!("{} dwells ended without a last segment", self.unterminated),
+            );
+        }
+        if self.too_short > 1 {
+            out.notice(
+                at,
+                format!(
+                    "{} dwells had fewer than 8 samples and were skipped",
+                    self.too_short
+                ),
+            );
+        }
+        Ok(())
+    }
+}
