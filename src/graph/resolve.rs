@@ -297,7 +297,7 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                             .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
                     })?;
                     if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed) {
-                        if p != "-" && Path::new(p).is_relative() {
+                        if p != "-" && !p.is_empty() && Path::new(p).is_relative() {
                             parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
                         }
                     }
@@ -380,7 +380,7 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                 for (i, (pname, target)) in child.exposes.inputs.iter().enumerate() {
                     let pat = [key("exposes"), key("inputs"), key(pname)];
                     let _ = i;
-                    inputs.push((pname.clone(), input_end(&child_scope, target, csrc, &pat, b)?));
+                    inputs.push((pname.clone(), input_end(&child_scope, target, None, csrc, &pat, b)?));
                 }
                 let mut outputs = Vec::new();
                 for (pname, target) in &child.exposes.outputs {
@@ -400,7 +400,8 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
         }
         for pair in ends.windows(2) {
             let from = output_end(&scope, pair[0], src, &at, b)?;
-            let to = input_end(&scope, pair[1], src, &at, b)?;
+            let kind = b.blocks[from.0].spec.outputs[from.1].kind;
+            let to = input_end(&scope, pair[1], Some(kind), src, &at, b)?;
             connect(from, to, src, &at, b)?;
         }
     }
@@ -458,12 +459,28 @@ fn output_end(scope: &HashMap<String, Local>, text: &str, src: &Source, at: &[Se
     }
 }
 
-fn input_end(scope: &HashMap<String, Local>, text: &str, src: &Source, at: &[Seg], b: &Builder) -> Result<(usize, usize), GraphError> {
+/// An input end; with several inputs and no port named, the one input that
+/// takes `kind` (what the wire carries) is meant.
+fn input_end(
+    scope: &HashMap<String, Local>,
+    text: &str,
+    kind: Option<ItemKind>,
+    src: &Source,
+    at: &[Seg],
+    b: &Builder,
+) -> Result<(usize, usize), GraphError> {
     let (name, port) = split_end(text);
-    match lookup(scope, name, src, at)? {
-        Local::Block(idx) => pick_port(&block_ports(b, *idx, false), port, "input", name, src, at),
-        Local::Composite { inputs, .. } => pick_port(inputs, port, "input", name, src, at),
+    let ports = match lookup(scope, name, src, at)? {
+        Local::Block(idx) => block_ports(b, *idx, false),
+        Local::Composite { inputs, .. } => inputs.clone(),
+    };
+    if let (None, Some(k)) = (port, kind) {
+        let fitting: Vec<_> = ports.iter().filter(|(_, e)| b.blocks[e.0].spec.inputs[e.1].kind == k).collect();
+        if ports.len() > 1 && fitting.len() == 1 {
+            return Ok(fitting[0].1);
+        }
     }
+    pick_port(&ports, port, "input", name, src, at)
 }
 
 fn connect(from: (usize, usize), to: (usize, usize), src: &Arc<Source>, at: &[Seg], b: &mut Builder) -> Result<(), GraphError> {
