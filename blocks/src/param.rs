@@ -220,8 +220,20 @@ pub enum Value {
 impl fmt::Display for Value {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            Value::Number(n) => write!(f, "{n}"),
-            Value::Seconds(s) => write!(f, "{s} s"),
+            Value::Number(n) => write!(f, "{}", short(*n)),
+            Value::Seconds(s) => {
+                let a = s.abs();
+                let (v, u) = if a == 0.0 || a >= 1.0 {
+                    (*s, "s")
+                } else if a >= 1e-3 {
+                    (s * 1e3, "ms")
+                } else if a >= 1e-6 {
+                    (s * 1e6, "us")
+                } else {
+                    (s * 1e9, "ns")
+                };
+                write!(f, "{} {u}", short(v))
+            }
             Value::Samples(n) => write!(f, "{n} samples"),
             Value::Pulses(n) => write!(f, "{n} pulses"),
             Value::Metres(m) => write!(f, "{m} m"),
@@ -232,6 +244,16 @@ impl fmt::Display for Value {
             Value::Names(n) => write!(f, "{}", n.join(",")),
         }
     }
+}
+
+/// A number without float noise: at most 9 decimals, trailing zeros dropped.
+fn short(x: f64) -> String {
+    if x.fract() == 0.0 && x.abs() < 1e15 {
+        return format!("{x}");
+    }
+    let t = format!("{x:.9}");
+    let t = t.trim_end_matches('0').trim_end_matches('.');
+    if t == "0" || t == "-0" { format!("{x:e}") } else { t.to_string() }
 }
 
 /// Split `"20 us"` into (20.0, "us"); a bare number gives an empty suffix.

@@ -310,11 +310,14 @@ fn uniform_aperture_inside_and_beyond_its_monotonic_region() {
         .trim()
         .parse()
         .unwrap();
+    // The whole monotonic region: no gain floor, no edge margin.
     let set = [
         ("beam", "uniform"),
         ("beamwidth", "6 deg"),
         ("squint", "2.4 deg"),
         ("way", "two"),
+        ("floor", "-120 dB"),
+        ("edge_sigmas", "0"),
     ];
     for row in &rows {
         let mut blk = build(&SPEC, &set).unwrap();

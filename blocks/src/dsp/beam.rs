@@ -250,6 +250,30 @@ impl PairModel {
         Some(0.5 * (lo + hi))
     }
 
+    /// Narrow the usable region to where the far lobe's one-way gain is at
+    /// least `floor_db` (negative, dB relative to its peak). Past that the far
+    /// lobe's echo sinks towards the noise and its nulls and sidelobes make the
+    /// ratio ambiguous, even where the pattern is still monotonic.
+    pub fn with_floor(mut self, floor_db: f64) -> PairModel {
+        let step = (self.beam.beamwidth_deg / 2000.0).max(1e-5);
+        let mut theta = 0.0;
+        while theta + step <= self.limit_deg
+            && 20.0 * self.beam.voltage(theta + step + self.squint_deg).abs().max(1e-300).log10() >= floor_db
+        {
+            theta += step;
+        }
+        if theta > 0.0 && theta < self.limit_deg {
+            self.limit_deg = theta;
+            self.r_limit = self.log_ratio(theta);
+        }
+        self
+    }
+
+    /// Largest |log ratio| the usable region produces.
+    pub fn r_limit(&self) -> f64 {
+        self.r_limit
+    }
+
     /// One-way or two-way gain of each lobe at boresight, dB (the crossover).
     pub fn crossover_db(&self) -> f64 {
         20.0 * self.way as f64 * self.beam.voltage(self.squint_deg).abs().log10()
@@ -313,6 +337,21 @@ mod tests {
                 assert_eq!(m.angle(m.log_ratio(m.limit_deg) * 1.01), None);
             }
         }
+    }
+
+    #[test]
+    fn a_floor_narrows_the_region_to_where_the_far_lobe_is_still_up() {
+        // Uniform aperture, 8 deg, squint 3.5: the far lobe's first null sits
+        // at asin(1/(D/lambda)) - 3.5 deg; a -20 dB floor stops short of it.
+        let m = PairModel::new(Beam::new(BeamShape::Uniform, 8.0).unwrap(), 3.5, 2).unwrap();
+        let null = (1.0 / (UNIFORM_HALF_POWER_U / 4f64.to_radians().sin())).asin().to_degrees() - 3.5;
+        assert!((m.limit_deg - null).abs() < 0.01, "{} vs null {null}", m.limit_deg);
+        let f = m.clone().with_floor(-20.0);
+        assert!(f.limit_deg < null - 0.5 && f.limit_deg > 3.0, "{}", f.limit_deg);
+        let far = f.beam.voltage(f.limit_deg + 3.5);
+        assert!((20.0 * far.log10() + 20.0).abs() < 0.05);
+        assert_eq!(f.angle(f.log_ratio(f.limit_deg + 0.1)), None);
+        assert!(f.angle(f.log_ratio(f.limit_deg - 0.1)).is_some());
     }
 
     #[test]

@@ -144,7 +144,9 @@ pub struct PairReading {
 }
 
 /// Turn gain-corrected amplitudes `a` (plus lobe) and `b` (minus lobe) with
-/// their ln-amplitude variances into an angle through `model`.
+/// their ln-amplitude variances into an angle through `model`. With
+/// `edge_sigmas` > 0, a ratio within that many of its own sigmas of the usable
+/// region's edge is flagged out of range (0 turns the test off).
 pub fn read_pair(
     model: &PairModel,
     signal: ErrorSignal,
@@ -152,6 +154,7 @@ pub fn read_pair(
     b: f64,
     var_ln_a: f64,
     var_ln_b: f64,
+    edge_sigmas: f64,
 ) -> PairReading {
     let usable = |x: f64| x.is_finite() && x > 0.0;
     if !usable(a) || !usable(b) {
@@ -166,13 +169,18 @@ pub fn read_pair(
     let theta = signal
         .to_log_ratio(signal.measure(a, b))
         .and_then(|r| model.angle(r));
+    // An estimate whose ratio cannot be told from the region's edge (within
+    // `edge_sigmas` of its own spread) may as well lie beyond it.
+    let r = (a / b).ln();
+    let near_edge = edge_sigmas > 0.0 && r.abs() + edge_sigmas * (var_ln_a + var_ln_b).sqrt() > model.r_limit();
     match theta {
-        Some(theta) => PairReading {
+        Some(theta) if !near_edge => PairReading {
             error_deg: Some(theta),
             sigma_deg: angle_sigma_deg(model, theta, var_ln_a, var_ln_b),
             ratio_db,
             flag: Flag::Ok,
         },
+        Some(_) => PairReading { error_deg: None, sigma_deg: f64::NAN, ratio_db, flag: Flag::OutOfRange },
         None => PairReading {
             error_deg: None,
             sigma_deg: f64::NAN,
@@ -236,13 +244,13 @@ mod tests {
         let m = PairModel::new(Beam::new(BeamShape::Cosine, 6.0).unwrap(), 2.4, 2).unwrap();
         let (a, b) = m.amplitudes(1.3);
         for s in [ErrorSignal::LogRatio, ErrorSignal::DiffSum] {
-            let r = read_pair(&m, s, a, b, 0.001, 0.002);
+            let r = read_pair(&m, s, a, b, 0.001, 0.002, 0.0);
             assert!((r.error_deg.unwrap() - 1.3).abs() < 1e-6, "{s:?} {r:?}");
         }
         assert_eq!(ErrorSignal::DiffSum.to_log_ratio(1.0), None);
-        let r = read_pair(&m, ErrorSignal::LogRatio, f64::NAN, b, 0.0, 0.0);
+        let r = read_pair(&m, ErrorSignal::LogRatio, f64::NAN, b, 0.0, 0.0, 0.0);
         assert_eq!(r.flag, Flag::NoSignal);
-        let r = read_pair(&m, ErrorSignal::LogRatio, 0.0, b, 0.0, 0.0);
+        let r = read_pair(&m, ErrorSignal::LogRatio, 0.0, b, 0.0, 0.0, 0.0);
         assert_eq!(r.flag, Flag::NoSignal);
     }
 }

@@ -135,9 +135,39 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         missing_reports: 0,
         missing_total: 0,
         next_scheduled: None,
+        rise: None,
         seen: 0,
         last_stamp: None,
     }))
+}
+
+/// Longest leading edge followed, samples.
+const RISE_MAX: usize = 64;
+
+/// The samples of a leakage pulse from its threshold crossing on. The
+/// transmit instant is the first sample within 3 dB of the pulse's top: the
+/// crossing itself would move with the leakage level, and a pulse-compressed
+/// leakage rises over a pulse length before its peak.
+struct Rise {
+    samples: Vec<(u64, f32)>,
+    top: f32,
+}
+
+impl Rise {
+    fn new(n: u64, p: f32) -> Rise {
+        Rise { samples: vec![(n, p)], top: p }
+    }
+    fn push(&mut self, n: u64, p: f32) {
+        self.samples.push((n, p));
+        self.top = self.top.max(p);
+    }
+    fn len(&self) -> usize {
+        self.samples.len()
+    }
+    fn instant(&self) -> u64 {
+        let half = 0.5 * self.top;
+        self.samples.iter().find(|(_, p)| *p >= half).map_or(self.samples[0].0, |(n, _)| *n)
+    }
 }
 
 /// Stream-dependent settings, fixed at the first chunk.
@@ -181,6 +211,8 @@ struct PulseFramer {
     missing_reports: u64,
     missing_total: u64,
     next_scheduled: Option<i64>,
+    /// The leading edge of a leakage pulse being followed to its top.
+    rise: Option<Rise>,
     seen: u64,
     last_stamp: Option<Stamp>,
 }
@@ -299,8 +331,22 @@ impl PulseFramer {
                 };
                 let edge = above && !self.prev_above;
                 self.prev_above = above;
+                if let Some(rise) = &mut self.rise {
+                    // Still on the leading edge of the leakage: keep looking for its top.
+                    if above && rise.len() < RISE_MAX {
+                        rise.push(n, chunk.iq[k].norm_sqr());
+                        continue;
+                    }
+                    let at = rise.instant();
+                    self.rise = None;
+                    self.instant(at, false, out);
+                }
                 if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
-                    self.instant(n, false, out);
+                    if self.mode == Mode::Leakage {
+                        self.rise = Some(Rise::new(n, chunk.iq[k].norm_sqr()));
+                    } else {
+                        self.instant(n, false, out);
+                    }
                 } else if let Some((l, _)) = self.last
                     && n - l > gap
                 {
@@ -495,6 +541,9 @@ impl Block for PulseFramer {
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         if !self.warmed && !self.warm_buf.is_empty() {
             self.warm_up(out)?;
+        }
+        if let Some(rise) = self.rise.take() {
+            self.instant(rise.instant(), false, out);
         }
         let Some(end) = self.last_stamp else {
             return Ok(());

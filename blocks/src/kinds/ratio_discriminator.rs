@@ -5,7 +5,7 @@
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::beam::{Beam, BeamShape, PairModel, parse_pattern_csv};
 use crate::dsp::discriminator::{ErrorSignal, LobePair, parse_key_values, parse_pairs, read_pair};
-use crate::item::{AngleEstimate, DwellRecord, Item, ItemKind, Stamp};
+use crate::item::{AngleEstimate, DwellRecord, Flag, Item, ItemKind, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
 use std::collections::BTreeSet;
 
@@ -91,6 +91,24 @@ pub const SPEC: BlockSpec = BlockSpec {
             default: Some("0 s"),
             doc: "pair only dwells whose mid times differ by at most this (0: no limit)",
         },
+        ParamSpec {
+            name: "floor",
+            ty: ParamType::Number { unit: Unit::Decibels, min: -120.0, max: -1.0 },
+            default: Some("-20 dB"),
+            doc: "usable region ends where the far lobe's one-way gain falls to this (its echo sinks into the noise, its nulls make the ratio ambiguous)",
+        },
+        ParamSpec {
+            name: "edge_sigmas",
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 10.0 },
+            default: Some("2"),
+            doc: "flag out of range a ratio within this many of its own sigmas of the region's edge (0: only past the edge)",
+        },
+        ParamSpec {
+            name: "min_snr",
+            ty: ParamType::Number { unit: Unit::Decibels, min: -100.0, max: 100.0 },
+            default: Some("0 dB"),
+            doc: "weaker dwell's energy over noise below which a pair gives no number (flag no_signal)",
+        },
     ],
     build,
 };
@@ -113,7 +131,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
             .ok_or_else(|| format!("lobe_gain_db: '{lobe}={text}' is not a gain in dB"))?;
         gains.push((lobe, 10f64.powf(db / 20.0)));
     }
-    let model = pair_model(p)?;
+    let model = pair_model(p)?.with_floor(p.num("floor")?);
     let signal = ErrorSignal::parse(p.text("signal")?)?;
     let max_gap = match p.get("max_gap") {
         Some(Value::Seconds(s)) => Gap::Seconds(*s),
@@ -138,6 +156,8 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         model,
         signal,
         max_gap,
+        edge_sigmas: p.num("edge_sigmas")?,
+        min_snr_db: p.num("min_snr")?,
         unknown_lobes: BTreeSet::new(),
         unpaired: 0,
         last_stamp: None,
@@ -211,6 +231,8 @@ struct RatioDiscriminator {
     model: PairModel,
     signal: ErrorSignal,
     max_gap: Gap,
+    edge_sigmas: f64,
+    min_snr_db: f64,
     unknown_lobes: BTreeSet<String>,
     unpaired: u64,
     last_stamp: Option<Stamp>,
@@ -236,20 +258,29 @@ impl RatioDiscriminator {
             b,
             plus.var_ln_amp,
             minus.var_ln_amp,
+            self.edge_sigmas,
         );
         let range_m = match (plus.range_m, minus.range_m) {
             (Some(ra), Some(rb)) => Some(0.5 * (ra + rb)),
             _ => None,
         };
+        let snr_db = 10.0 * plus.snr.min(minus.snr).log10();
+        // Too weak a lobe gives a biased, noise-dominated ratio: no number.
+        let weak = reading.flag == Flag::Ok && !(snr_db >= self.min_snr_db);
+        let (error_deg, sigma_deg, flag) = if weak {
+            (None, f64::NAN, Flag::NoSignal)
+        } else {
+            (reading.error_deg, reading.sigma_deg, reading.flag)
+        };
         AngleEstimate {
             stamp: mid_stamp(plus.mid, minus.mid),
             axis: slot.pair.axis.clone(),
-            error_deg: reading.error_deg,
-            sigma_deg: reading.sigma_deg,
-            snr_db: 10.0 * plus.snr.min(minus.snr).log10(),
+            error_deg,
+            sigma_deg,
+            snr_db,
             ratio_db: reading.ratio_db,
             range_m,
-            flag: reading.flag,
+            flag,
             tracked_deg: None,
             absolute_deg: None,
         }
