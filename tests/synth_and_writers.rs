@@ -565,11 +565,13 @@ fn truth_has_one_row_per_dwell_with_mid_dwell_values() {
 #[test]
 fn sample_scenario_writes_unclipped_ci16_with_the_scale_in_the_meta() {
     let dir = temp_dir("sample");
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("samples/ridge-four-lobe.scenario.yaml");
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("samples/off-axis-excursion.scenario.yaml");
     let f = ScenarioFile::load(&path).unwrap();
     let report = synthesize(&f, &dir.join("ridge")).unwrap();
-    assert_eq!(report.samples, 240_000);
-    assert_eq!(report.dwells, 60);
+    assert_eq!(report.samples, 250_000);
+    let truth = std::fs::read_to_string(dir.join("ridge.truth.csv")).unwrap();
+    assert_eq!(report.dwells as usize, truth.lines().count() - 1);
+    assert!((249..=250).contains(&report.dwells), "{}", report.dwells);
     let data = std::fs::read(dir.join("ridge.sigmf-data")).unwrap();
     assert!(data.len() <= 4 << 20, "sample capture must stay under 4 MB");
     let meta: serde_json::Value =
@@ -586,13 +588,14 @@ fn sample_scenario_writes_unclipped_ci16_with_the_scale_in_the_meta() {
     assert!(peak < 0.999, "IQ clipped (peak {peak})");
     assert!(peak > 0.3, "scale wastes the range (peak {peak})");
     // Noise power in the file is scale^2: check in the quiet part of PRIs.
-    let rate = 2e6;
+    // 1 MS/s, first transmit at 0.1 ms, PRI 0.25 ms, echo at 50 us, switch 40 us before a transmit.
+    let rate = 1e6;
     let quiet: Vec<f64> = v
         .chunks_exact(4)
         .enumerate()
         .filter(|(n, _)| {
-            let t = (*n as f64 / rate + 0.7e-3 - 0.05e-3).rem_euclid(0.5e-3);
-            (0.15e-3..0.44e-3).contains(&t)
+            let t = (*n as f64 / rate - 0.1e-3).rem_euclid(0.25e-3);
+            (0.07e-3..0.2e-3).contains(&t)
         })
         .map(|(_, c)| (c[0] as f64).powi(2) + (c[1] as f64).powi(2))
         .collect();
