@@ -12,6 +12,7 @@
 //!   - {measure: rms_error, axis: az, max: 0.05}        # degrees
 //!   - {measure: bias, axis: az, max: 0.01}             # degrees
 //!   - {measure: rms_over_sigma, axis: az, max: 1.2}
+//!   - {measure: worst_error, axis: az, max: 0.5}       # degrees
 //!   - {measure: range_rms, max: 15}                    # metres
 //!   - {measure: flags, flag: out_of_range, min: 1}
 //! golden:
@@ -37,6 +38,9 @@ pub enum Measure {
     Bias,
     /// RMS error over the RMS of the estimates' own sigma_deg.
     RmsOverSigma,
+    /// Largest |error_deg - truth| of any ok estimate on `axis`, degrees: a
+    /// number reported for a target the chain cannot see shows here.
+    WorstError,
     /// RMS of (range_m - truth range) over rows with a range, metres.
     RangeRms,
     /// Number of estimates with flag `flag` (any axis unless `axis` is given).
@@ -50,13 +54,14 @@ impl Measure {
             Measure::RmsError => "rms_error",
             Measure::Bias => "bias",
             Measure::RmsOverSigma => "rms_over_sigma",
+            Measure::WorstError => "worst_error",
             Measure::RangeRms => "range_rms",
             Measure::Flags => "flags",
         }
     }
     pub fn unit(&self) -> &'static str {
         match self {
-            Measure::RmsError | Measure::Bias => " deg",
+            Measure::RmsError | Measure::Bias | Measure::WorstError => " deg",
             Measure::RangeRms => " m",
             _ => "",
         }
@@ -139,14 +144,17 @@ impl Manifest {
             if c.min.is_none() && c.max.is_none() {
                 return Err(err(&at, format!("check {} ({}) needs a bound: min, max or both", i + 1, c.measure.name())));
             }
-            let needs_axis = matches!(c.measure, Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma);
+            let needs_axis =
+                matches!(c.measure, Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError);
             if needs_axis && c.axis.is_none() {
                 return Err(err(&at, format!("check {} ({}) needs an axis (e.g. az)", i + 1, c.measure.name())));
             }
             if c.measure == Measure::Flags && c.flag.is_none() {
                 return Err(err(&at, format!("check {} (flags) needs a flag (ok, out_of_range, no_signal, outlier)", i + 1)));
             }
-            if matches!(c.measure, Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma) && raw.truth.is_none() {
+            if matches!(c.measure, Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma | Measure::WorstError)
+                && raw.truth.is_none()
+            {
                 return Err(err(&at, format!("check {} ({}) compares with the truth, but the manifest names no truth file", i + 1, c.measure.name())));
             }
         }

@@ -143,7 +143,7 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
             let flag = c.flag.as_deref().unwrap_or("");
             Some(t.rows.iter().filter(on_axis).filter(|r| r.get(flag_c).map(String::as_str) == Some(flag)).count() as f64)
         }
-        Measure::RmsError | Measure::Bias | Measure::RmsOverSigma => {
+        Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError => {
             let truth = truth.ok_or_else(|| Error::Input("no truth file".into()))?;
             let err_c = t.column("error_deg", path)?;
             let sig_c = t.column("sigma_deg", path)?;
@@ -166,6 +166,7 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
                 match c.measure {
                     Measure::RmsError => Some(rms),
                     Measure::Bias => Some((errs.iter().sum::<f64>() / n).abs()),
+                    Measure::WorstError => errs.iter().map(|e| e.abs()).reduce(f64::max),
                     _ => Some(rms / (sig2 / n).sqrt()),
                 }
             }

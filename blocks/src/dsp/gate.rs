@@ -146,7 +146,12 @@ impl DwellSums {
 
     /// Amplitude, energy ratio, expected spread and range with noise power
     /// `noise` per sample and an echo `pulse_samples` long.
-    pub fn summarise(&self, noise: f64, pulse_samples: f64) -> GateSummary {
+    /// `detect_sigmas`: the noise-corrected energy must exceed this many
+    /// standard deviations of what noise alone gives in the gate, else the
+    /// dwell counts as holding no echo (amplitude NaN). Without it a lobe deep
+    /// in its null still yields a "signal" whenever the noise happens to
+    /// fluctuate up, and that ratio would read as an angle.
+    pub fn summarise(&self, noise: f64, pulse_samples: f64, detect_sigmas: f64) -> GateSummary {
         let n = self.pulses.max(1) as f64;
         let g = self.width() as f64;
         // Noise-corrected per-pulse echo energy in each gate bin.
@@ -167,7 +172,13 @@ impl DwellSums {
         } else {
             0.0
         };
-        let amplitude = if energy > 0.0 {
+        // Noise alone: each bin's mean of N powers has std noise/sqrt(N)
+        // (noncoherent); the power of a mean of N has std noise/N (coherent).
+        let noise_std = match self.integration {
+            Integration::Noncoherent => noise * (g / n).sqrt(),
+            Integration::Coherent => noise / n * g.sqrt(),
+        };
+        let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std {
             energy.sqrt()
         } else {
             f64::NAN
@@ -290,7 +301,7 @@ mod tests {
             .map(|&a| Complex32::new(a, 0.0))
             .collect();
         sums.add(&gate, std::iter::empty(), 0);
-        let s = sums.summarise(0.0, 4.0);
+        let s = sums.summarise(0.0, 4.0, 3.0);
         assert!(
             (s.range_bin.unwrap() - 10.3).abs() < 1e-6,
             "{:?}",

@@ -105,6 +105,16 @@ pub const SPEC: BlockSpec = BlockSpec {
             doc: "width of the noise reference region",
         },
         ParamSpec {
+            name: "detect",
+            ty: ParamType::Number {
+                unit: Unit::None,
+                min: 0.0,
+                max: 100.0,
+            },
+            default: Some("0"),
+            doc: "echo energy must exceed this many standard deviations of noise alone in the gate, else the dwell has no signal (0: only a positive energy; 3-4 where a lobe may sit in its null, at the price of a bias near the threshold)",
+        },
+        ParamSpec {
             name: "noise_margin",
             ty: ParamType::Number {
                 unit: Unit::Decibels,
@@ -149,6 +159,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         follow,
         integration,
         noise_margin_db: p.num("noise_margin")?,
+        detect_sigmas: p.num("detect")?,
         geometry: None,
         gate_start: None,
         acq: None,
@@ -257,6 +268,7 @@ struct RangeGate {
     follow: Follow,
     integration: Integration,
     noise_margin_db: f64,
+    detect_sigmas: f64,
     geometry: Option<Geometry>,
     /// The gate in use; None while acquiring.
     gate_start: Option<usize>,
@@ -433,7 +445,7 @@ impl RangeGate {
                 }
             },
         };
-        let summary: GateSummary = sums.summarise(noise, geo.pulse_samples);
+        let summary: GateSummary = sums.summarise(noise, geo.pulse_samples, self.detect_sigmas);
         self.cycle.add(&summary, sums.start);
         let mid = Stamp::new(sums.mid_index(), geo.rate);
         self.check_noise_floor(&cur.tag, noise, mid, out);
