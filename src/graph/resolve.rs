@@ -195,8 +195,15 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
         }
     }
     let mut b = Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
-    expand(&file, "", &knobs, &mut b)?;
-    check_required_inputs(&b)?;
+    let scope = expand(&file, "", &knobs, &mut b)?;
+    // A composite checked on its own: the inputs it exposes are wired by
+    // whoever uses it, so they count as wired here.
+    let mut exposed = Vec::new();
+    for (pname, target) in &file.exposes.inputs {
+        let at = [key("exposes"), key("inputs"), key(pname)];
+        exposed.push(input_end(&scope, target, None, &file.source, &at, &b)?);
+    }
+    check_required_inputs(&b, &exposed)?;
     check_cycles(&b)?;
     let ordered: Vec<KnobValue> = file.knobs.iter().map(|d| knobs[&d.name].clone()).collect();
     Ok(ResolvedGraph {
@@ -523,10 +530,10 @@ fn suggest_output(b: &Builder, idx: usize, kind: ItemKind) -> String {
     }
 }
 
-fn check_required_inputs(b: &Builder) -> Result<(), GraphError> {
+fn check_required_inputs(b: &Builder, exposed: &[(usize, usize)]) -> Result<(), GraphError> {
     for (i, blk) in b.blocks.iter().enumerate() {
         for (p, port) in blk.spec.inputs.iter().enumerate() {
-            if port.required && !b.wires.iter().any(|w| w.to == (i, p)) {
+            if port.required && !b.wires.iter().any(|w| w.to == (i, p)) && !exposed.contains(&(i, p)) {
                 return Err(GraphError {
                     file: blk.file.clone(),
                     line: blk.line,
