@@ -24,6 +24,16 @@ impl<T> Span<T> {
         Span { data: Arc::new(data), range: 0..len }
     }
 
+    /// The whole buffer back, when no other view of it is alive (so a
+    /// producer can refill it instead of allocating a new one).
+    pub fn reclaim(self) -> Result<Vec<T>, Span<T>> {
+        if self.range.start != 0 || self.range.end != self.data.len() {
+            return Err(self);
+        }
+        let range = self.range;
+        Arc::try_unwrap(self.data).map_err(|data| Span { data, range })
+    }
+
     /// A sub-view, relative to this view. Panics if out of bounds, like slicing.
     pub fn slice(&self, r: Range<usize>) -> Self {
         assert!(r.start <= r.end && r.end <= self.range.len(), "span slice out of bounds");

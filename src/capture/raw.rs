@@ -68,7 +68,7 @@ pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     check_whole_frames(&info, len)?;
     Ok(Box::new(FrameStream::new(
         info,
-        BufReader::with_capacity(1 << 20, file),
+        BufReader::with_capacity(1 << 16, file),
     )))
 }
 

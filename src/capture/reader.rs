@@ -231,7 +231,6 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
     }
 
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
-        out.clear();
         let frame_bytes = self.info.frame_bytes();
         let mut want = max_frames
             .min((MAX_READ_BYTES / frame_bytes.max(1)).max(1))
@@ -239,10 +238,45 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
         if let Some(total) = self.info.data_bytes {
             want = want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX));
         }
-        self.buf.resize(want, 0);
+        // Little-endian float32 on a little-endian machine is already in its
+        // final form: read it straight into `out` and skip a copy and a decode
+        // (the common case for large captures).
+        let native = matches!(self.info.encoding, Encoding::Type(t) if t.format == SampleFormat::F32 && !t.big_endian)
+            && cfg!(target_endian = "little");
+        let whole = if native {
+            // A reused buffer of the right length is overwritten as it is:
+            // only growth pays for zero-filling.
+            out.resize(want / 4, 0.0);
+            // SAFETY: f32 has no invalid bit patterns and alignment 4 >= 1; the
+            // byte view covers exactly the vector's initialised elements.
+            let bytes = unsafe { std::slice::from_raw_parts_mut(out.as_mut_ptr().cast::<u8>(), out.len() * 4) };
+            let whole = self.fill(bytes, frame_bytes)?;
+            out.truncate(whole / 4);
+            whole
+        } else {
+            out.clear();
+            let mut buf = std::mem::take(&mut self.buf);
+            buf.resize(want, 0);
+            let whole = self.fill(&mut buf, frame_bytes);
+            if let Ok(w) = whole {
+                self.info.encoding.decode(&buf[..w], out);
+            }
+            self.buf = buf;
+            whole?
+        };
+        self.done_bytes += whole as u64;
+        Ok(whole / frame_bytes.max(1))
+    }
+}
+
+impl<R: Read + Send> FrameStream<R> {
+    /// Fill `dest` with whole frames; returns the bytes of whole frames read.
+    /// Errors name the file and byte offset of a cut-short or broken stream.
+    fn fill(&mut self, dest: &mut [u8], frame_bytes: usize) -> Result<usize, BlockError> {
+        let want = dest.len();
         let mut got = 0;
         while got < want {
-            match self.inner.read(&mut self.buf[got..want]) {
+            match self.inner.read(&mut dest[got..want]) {
                 Ok(0) => break,
                 Ok(n) => got += n,
                 Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
@@ -283,9 +317,7 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
                 ));
             }
         }
-        self.info.encoding.decode(&self.buf[..whole], out);
-        self.done_bytes += whole as u64;
-        Ok(frames)
+        Ok(whole)
     }
 }
 

@@ -210,7 +210,7 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
         sigmf: Some(meta),
     };
     check_whole_frames(&info, data_bytes)?;
-    let mut input = BufReader::with_capacity(1 << 20, file);
+    let mut input = BufReader::with_capacity(1 << 16, file);
     input
         .seek(SeekFrom::Start(data_offset))
         .map_err(|e| BlockError::new(format!("{}: {e}", info.path)))?;

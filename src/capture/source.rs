@@ -111,6 +111,9 @@ pub struct CaptureSource {
     next: u64,
     frames: Vec<f32>,
     part: Vec<f32>,
+    /// Buffers of chunks handed out, oldest first; once every block is done
+    /// with one, it is refilled instead of a new one being allocated.
+    recycle: std::collections::VecDeque<lobeflow_blocks::Span<num_complex::Complex32>>,
     /// SigMF capture segments after the first: (first sample, centre frequency).
     segments: Vec<(u64, Option<f64>)>,
     segments_seen: usize,
@@ -146,6 +149,7 @@ impl CaptureSource {
             next: 0,
             frames: Vec::new(),
             part: Vec::new(),
+            recycle: std::collections::VecDeque::new(),
             segments: later_segments(reader.as_ref()),
             segments_seen: 0,
             reader,
@@ -182,8 +186,26 @@ impl CaptureSource {
     }
 }
 
+/// Chunk buffers remembered for reuse: a few more than the queues hold.
+const RECYCLE_DEPTH: usize = 16;
+
+impl CaptureSource {
+    /// Take back the oldest handed-out buffer if no block holds it any more.
+    fn reuse_buffer(&mut self) {
+        if let Some(span) = self.recycle.pop_front() {
+            match span.reclaim() {
+                Ok(v) => self.frames = crate::capture::roles::from_complex(v),
+                Err(span) => self.recycle.push_front(span),
+            }
+        }
+    }
+}
+
 impl Block for CaptureSource {
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        if self.frames.is_empty() {
+            self.reuse_buffer();
+        }
         // A reader may return fewer frames than asked; fill the chunk.
         let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
         while n > 0 && n < self.chunk {
@@ -222,13 +244,20 @@ impl Block for CaptureSource {
             return Ok(false);
         }
         let chunk = self.roles.chunk(
-            &self.frames,
+            &mut self.frames,
             self.next,
             self.reader.info(),
             self.nonfinite,
             &mut self.replaced,
         )?;
         self.next += n as u64;
+        if self.frames.is_empty() {
+            // The chunk took the buffer over: remember it for reuse.
+            self.recycle.push_back(chunk.iq.clone());
+            if self.recycle.len() > RECYCLE_DEPTH {
+                self.recycle.pop_front();
+            }
+        }
         out.push(0, Item::Samples(chunk));
         Ok(true)
     }

@@ -18,7 +18,7 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     let file = File::open(path)
         .map_err(|e| BlockError::new(format!("{path}: cannot open the WAV file: {e}")))?;
     let file_len = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let mut input = BufReader::with_capacity(1 << 20, file);
+    let mut input = BufReader::with_capacity(1 << 16, file);
     let spec = match hound::WavReader::new(&mut input) {
         Ok(r) => (r.spec(), u64::from(r.len())),
         Err(e) => return Err(BlockError::new(explain_header_error(path, e))),

@@ -241,7 +241,7 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
             }
         }
         let chunk = roles
-            .chunk(&frames, seen, &info, NonFinite::Zero, &mut replaced)
+            .chunk(&mut frames, seen, &info, NonFinite::Zero, &mut replaced)
             .map_err(|e| Error::Input(e.to_string()))?;
         for z in chunk.iq.iter() {
             magnitude.push(z.norm());

@@ -76,6 +76,8 @@ struct State {
     /// Scan order: most downstream first, so queues drain before they fill.
     order: Vec<usize>,
     running: usize,
+    /// Workers asleep on the condition variable (wake-ups cost a system call).
+    idle: usize,
     done: usize,
     stop: Option<StopReason>,
     notices: Vec<Notice>,
@@ -129,7 +131,7 @@ pub fn run_nodes(
     let order = downstream_first(&nodes, edge_count);
     let edges = (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false }).collect();
     let shared = Arc::new(Shared {
-        state: Mutex::new(State { nodes, edges, order, running: 0, done: 0, stop: None, notices: Vec::new() }),
+        state: Mutex::new(State { nodes, edges, order, running: 0, idle: 0, done: 0, stop: None, notices: Vec::new() }),
         wake: Condvar::new(),
         cancel,
         capacity: capacity.max(1),
@@ -258,7 +260,9 @@ fn worker(sh: &Shared) {
                 sh.wake.notify_all();
                 return;
             }
+            st.idle += 1;
             st = sh.wake.wait_timeout(st, Duration::from_millis(100)).unwrap_or_else(|e| e.into_inner()).0;
+            st.idle -= 1;
         };
         let n_out = st.nodes[idx].outputs.len();
         drop(st);
@@ -331,7 +335,9 @@ fn worker(sh: &Shared) {
                 st.edges[e].closed = true;
             }
         }
-        sh.wake.notify_all();
+        if st.idle > 0 {
+            sh.wake.notify_all();
+        }
         drop(st);
         if let (Some(p), Some((done, total))) = (&sh.progress, progress) {
             p(done, total);
