@@ -108,6 +108,7 @@ fn centroid_range_of_fractional_box_echoes_within_0_15_bin_rms() {
         .map(|(r, d)| (r.range_m.expect("range") / bin - d).powi(2))
         .sum();
     let rms = (sq / out.len() as f64).sqrt();
+    eprintln!("measured: range rms {rms:.4} bins");
     assert!(rms < 0.15, "range rms {rms} bins");
     // The mid stamp is the middle of the used gate samples; used counts pulses.
     assert_eq!(out[0].used, 8);
@@ -150,6 +151,9 @@ fn noncoherent_spread_matches_field_notes_formula_by_monte_carlo() {
         (reported / formula - 1.0).abs() < 0.05,
         "reported {reported} formula {formula}"
     );
+    eprintln!(
+        "measured: noncoherent var(ln A) {measured:.5}, formula {formula:.5}, reported {reported:.5}"
+    );
     let snr = out.iter().map(|r| r.snr).sum::<f64>() / out.len() as f64;
     assert!((snr - 16.0).abs() < 0.5, "snr {snr}");
 }
@@ -177,9 +181,14 @@ fn coherent_amplitude_is_unbiased_and_spread_as_derived() {
     let amps: Vec<f64> = out.iter().map(|r| r.amplitude).collect();
     let mean = amps.iter().sum::<f64>() / amps.len() as f64;
     assert!((mean - 1.0).abs() < 0.02, "mean amplitude {mean}");
+    eprintln!("measured: coherent mean amplitude {mean:.4}");
     // Field notes §4 coherent: var(ln A) ~= 1/(2 N s) = 1/32 to first order.
     let measured = variance(&amps.iter().map(|a| a.ln()).collect::<Vec<_>>());
     let reported = out.iter().map(|r| r.var_ln_amp).sum::<f64>() / out.len() as f64;
+    eprintln!(
+        "measured: coherent var(ln A) {measured:.5}, 1/(2Ns) {:.5}, reported {reported:.5}",
+        1.0 / 32.0
+    );
     assert!((measured * 32.0 - 1.0).abs() < 0.15, "measured {measured}");
     assert!(
         (reported / measured - 1.0).abs() < 0.15,
