@@ -109,6 +109,7 @@ fn centroid_range_of_fractional_box_echoes_within_0_15_bin_rms() {
         .map(|(r, d)| (r.range_m.expect("range") / bin - d).powi(2))
         .sum();
     let rms = (sq / out.len() as f64).sqrt();
+    eprintln!("measured: range rms {rms:.4} bins");
     assert!(rms < 0.15, "range rms {rms} bins");
     // The mid stamp is the middle of the used gate samples; used counts pulses.
     assert_eq!(out[0].used, 8);
@@ -151,6 +152,9 @@ fn noncoherent_spread_matches_field_notes_formula_by_monte_carlo() {
         (reported / formula - 1.0).abs() < 0.05,
         "reported {reported} formula {formula}"
     );
+    eprintln!(
+        "measured: noncoherent var(ln A) {measured:.5}, formula {formula:.5}, reported {reported:.5}"
+    );
     let snr = out.iter().map(|r| r.snr).sum::<f64>() / out.len() as f64;
     assert!((snr - 16.0).abs() < 0.5, "snr {snr}");
 }
@@ -178,9 +182,14 @@ fn coherent_amplitude_is_unbiased_and_spread_as_derived() {
     let amps: Vec<f64> = out.iter().map(|r| r.amplitude).collect();
     let mean = amps.iter().sum::<f64>() / amps.len() as f64;
     assert!((mean - 1.0).abs() < 0.02, "mean amplitude {mean}");
+    eprintln!("measured: coherent mean amplitude {mean:.4}");
     // Field notes §4 coherent: var(ln A) ~= 1/(2 N s) = 1/32 to first order.
     let measured = variance(&amps.iter().map(|a| a.ln()).collect::<Vec<_>>());
     let reported = out.iter().map(|r| r.var_ln_amp).sum::<f64>() / out.len() as f64;
+    eprintln!(
+        "measured: coherent var(ln A) {measured:.5}, 1/(2Ns) {:.5}, reported {reported:.5}",
+        1.0 / 32.0
+    );
     assert!((measured * 32.0 - 1.0).abs() < 0.15, "measured {measured}");
     assert!(
         (reported / measured - 1.0).abs() < 0.15,
@@ -368,4 +377,66 @@ fn missing_gate_is_a_build_error() {
         .err()
         .expect("needs a gate");
     assert!(err.contains("gate_start"), "{err}");
+}
+
+#[test]
+fn centroid_range_after_a_matched_filter_uses_a_one_sample_pulse() {
+    // 8-sample box echoes, compressed by correlation with the box: a triangle
+    // centred on the echo start (pulse = 1 sample). The noise after the filter
+    // is smooth and moves the whole triangle, so this needs more echo energy
+    // than the raw box test for the same spread; power weights over the wide gate.
+    use lobeflow_blocks::dsp::spectrum::correlate_direct;
+    let scene = Scene {
+        sweep_len: 300,
+        pulses: 8,
+        dwells: 40,
+        noise: [1.0, 1.0],
+    };
+    let delays: Vec<f64> = (0..40).map(|d| 140.0 + (d as f64 * 0.37).fract()).collect();
+    let raw = sweeps(&scene, 31, |d, _, rng| {
+        (delays[d as usize], 8.0, 4.0, rng.uniform() * 6.283)
+    });
+    let reference = vec![Complex32::new(1.0, 0.0); 8];
+    let scale = 1.0 / 8f32.sqrt();
+    let items: Vec<Item> = raw
+        .into_iter()
+        .map(|item| match item {
+            Item::Sweep(mut s) => {
+                let y: Vec<Complex32> = correlate_direct(&s.iq, &reference)
+                    .into_iter()
+                    .map(|v| v * scale)
+                    .collect();
+                s.iq = y.into();
+                Item::Sweep(s)
+            }
+            other => other,
+        })
+        .collect();
+    let mut block = build(
+        &SPEC,
+        &[
+            ("centroid", "power"),
+            ("gate_start", "133 bins"),
+            ("gate_width", "16 bins"),
+            ("noise_width", "64 bins"),
+        ],
+    );
+    let out = dwells(&run(block.as_mut(), items));
+    assert_eq!(out.len(), 40);
+    let bin = range_bin_m(RATE);
+    let sq: f64 = out
+        .iter()
+        .zip(&delays)
+        .map(|(r, d)| (r.range_m.expect("range") / bin - d).powi(2))
+        .sum();
+    let rms = (sq / out.len() as f64).sqrt();
+    eprintln!("measured: range rms after matched filter {rms:.4} bins");
+    assert!(rms < 0.15, "range rms {rms} bins");
+    let bias = out
+        .iter()
+        .zip(&delays)
+        .map(|(r, d)| r.range_m.unwrap() / bin - d)
+        .sum::<f64>()
+        / out.len() as f64;
+    assert!(bias.abs() < 0.05, "range bias {bias} bins");
 }

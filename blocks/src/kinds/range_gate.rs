@@ -4,7 +4,7 @@
 //! arithmetic lives in [`crate::dsp::gate`].
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::dsp::gate::{DwellSums, Follow, GateSummary, Integration, best_gate_start};
+use crate::dsp::gate::{DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
 use crate::item::{DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
 use std::collections::BTreeMap;
@@ -93,6 +93,12 @@ pub const SPEC: BlockSpec = BlockSpec {
             doc: "noncoherent (sum of power) or coherent (complex mean per gate bin, then power)",
         },
         ParamSpec {
+            name: "centroid",
+            ty: ParamType::Choice(Weighting::NAMES),
+            default: Some("amplitude"),
+            doc: "range centroid weights: amplitude (exact for any box echo) or power (less spread in wide gates, e.g. after a matched filter)",
+        },
+        ParamSpec {
             name: "noise_start",
             ty: DIST,
             default: Some("0 bins"),
@@ -158,6 +164,8 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         acquire_dwells: p.int("acquire_dwells")?.max(1) as u64,
         follow,
         integration,
+        weighting: Weighting::from_name(p.text("centroid")?)
+            .ok_or("centroid: unknown weighting")?,
         noise_margin_db: p.num("noise_margin")?,
         detect_sigmas: p.num("detect")?,
         geometry: None,
@@ -267,6 +275,7 @@ struct RangeGate {
     acquire_dwells: u64,
     follow: Follow,
     integration: Integration,
+    weighting: Weighting,
     noise_margin_db: f64,
     detect_sigmas: f64,
     geometry: Option<Geometry>,
@@ -445,7 +454,7 @@ impl RangeGate {
                 }
             },
         };
-        let summary: GateSummary = sums.summarise(noise, geo.pulse_samples, self.detect_sigmas);
+        let summary: GateSummary = sums.summarise(noise, geo.pulse_samples, self.weighting, self.detect_sigmas);
         self.cycle.add(&summary, sums.start);
         let mid = Stamp::new(sums.mid_index(), geo.rate);
         self.check_noise_floor(&cur.tag, noise, mid, out);
