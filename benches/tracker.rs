@@ -24,7 +24,7 @@ fn main() {
         .replace("duration: 300 ms", &format!("duration: {seconds} s"))
         .replace("per_second: -1.0 deg, swing", "per_second: 0 deg, swing");
     let expected = (seconds * 1e6) as u64 * 12 + 68;
-    if std::fs::metadata(&capture).map(|m| m.len()) .ok() != Some(expected) {
+    if std::fs::metadata(&capture).map(|m| m.len()).ok() != Some(expected) {
         let sc = dir.join("tracker.scenario.yaml");
         std::fs::write(&sc, scenario).expect("scenario copy");
         let t = Instant::now();
@@ -37,7 +37,8 @@ fn main() {
 
     let full = repo.join("graphs/four-lobe-pulsed.yaml");
     let bare = dir.join("four-lobe-no-pictures.yaml");
-    std::fs::write(&bare, without_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo)).expect("graph copy");
+    std::fs::write(&bare, without_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo))
+        .expect("graph copy");
 
     let read = best_of(2, || {
         plain_read(&capture);
@@ -68,9 +69,15 @@ fn without_pictures(text: &str, repo: &Path) -> String {
         .filter(|l| {
             let t = l.trim_start();
             !pictures.iter().any(|p| t.starts_with(p))
-                && !(t.starts_with("- ") && ["angle_plot", "circle", "split", "trace", "timeline"].iter().any(|p| t.ends_with(p) || t.contains(&format!("> {p}"))))
+                && !(t.starts_with("- ")
+                    && ["angle_plot", "circle", "split", "trace", "timeline"]
+                        .iter()
+                        .any(|p| t.ends_with(p) || t.contains(&format!("> {p}"))))
         })
-        .map(|l| l.replace("../samples/", &format!("{}/samples/", repo.display())).replace("parts/", &format!("{}/graphs/parts/", repo.display())))
+        .map(|l| {
+            l.replace("../samples/", &format!("{}/samples/", repo.display()))
+                .replace("parts/", &format!("{}/graphs/parts/", repo.display()))
+        })
         .collect::<Vec<_>>()
         .join("\n")
 }

@@ -33,7 +33,12 @@ impl Session {
 
     /// Open with a registry of your own (e.g. with extra block kinds).
     pub fn with_registry(path: impl AsRef<Path>, registry: Registry) -> Result<Session, Error> {
-        let s = Session { path: path.as_ref().to_path_buf(), overrides: Overrides::default(), registry, options: RunOptions::default() };
+        let s = Session {
+            path: path.as_ref().to_path_buf(),
+            overrides: Overrides::default(),
+            registry,
+            options: RunOptions::default(),
+        };
         s.resolve()?;
         Ok(s)
     }

@@ -4,7 +4,9 @@
 
 use lobeflow::graph::{Overrides, resolve};
 use lobeflow::runtime::{RunOptions, run};
-use lobeflow_blocks::{Block, BlockError, BlockSpec, Item, ItemKind, Outputs, ParamSpec, ParamType, PortSpec, Registry, SampleChunk, Stamp};
+use lobeflow_blocks::{
+    Block, BlockError, BlockSpec, Item, ItemKind, Outputs, ParamSpec, ParamType, PortSpec, Registry, SampleChunk, Stamp,
+};
 use num_complex::Complex32;
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicI64, Ordering};
@@ -21,7 +23,12 @@ const SOURCE: BlockSpec = BlockSpec {
     doc: "test: big chunks, fast",
     inputs: &[],
     outputs: &[PortSpec::optional("samples", ItemKind::Samples, "")],
-    params: &[ParamSpec { name: "chunks", ty: ParamType::Integer { min: 1, max: 1 << 30 }, default: Some("200"), doc: "" }],
+    params: &[ParamSpec {
+        name: "chunks",
+        ty: ParamType::Integer { min: 1, max: 1 << 30 },
+        default: Some("200"),
+        doc: "",
+    }],
     build: |p, _| Ok(Box::new(BigSource { left: p.int("chunks")? as u64, next: 0 })),
 };
 
@@ -104,4 +111,3 @@ fn rss_kib() -> i64 {
         .and_then(|v| v.parse().ok())
         .unwrap_or(0)
 }
-

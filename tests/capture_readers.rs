@@ -15,24 +15,15 @@ fn fixtures() -> PathBuf {
 }
 
 fn good(name: &str) -> String {
-    fixtures()
-        .join("captures")
-        .join(name)
-        .to_string_lossy()
-        .into_owned()
+    fixtures().join("captures").join(name).to_string_lossy().into_owned()
 }
 
 fn bad(name: &str) -> String {
-    fixtures()
-        .join("bad")
-        .join(name)
-        .to_string_lossy()
-        .into_owned()
+    fixtures().join("bad").join(name).to_string_lossy().into_owned()
 }
 
 fn expected() -> Value {
-    let text =
-        std::fs::read_to_string(fixtures().join("captures/expected.json")).expect("expected.json");
+    let text = std::fs::read_to_string(fixtures().join("captures/expected.json")).expect("expected.json");
     serde_json::from_str(&text).expect("valid JSON")
 }
 
@@ -40,19 +31,11 @@ fn expected() -> Value {
 fn expected_values(e: &Value) -> Vec<f64> {
     let scale = e["scale"].as_f64().unwrap();
     let offset = e["offset"].as_f64().unwrap();
-    e["codes"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|c| (c.as_f64().unwrap() - offset) / scale)
-        .collect()
+    e["codes"].as_array().unwrap().iter().map(|c| (c.as_f64().unwrap() - offset) / scale).collect()
 }
 
 fn opts(rate: Option<f64>) -> OpenOptions {
-    OpenOptions {
-        rate,
-        ..OpenOptions::default()
-    }
+    OpenOptions { rate, ..OpenOptions::default() }
 }
 
 /// Read everything in odd-sized blocks (to cross block boundaries).
@@ -74,10 +57,7 @@ fn assert_samples(name: &str, got: &[f32], want: &[f64]) {
     for (k, (&g, &w)) in got.iter().zip(want).enumerate() {
         // Exact for 8/16/24-bit codes and float32; 32-bit codes round to f32.
         let tol = w.abs() * f64::from(f32::EPSILON) * 0.5;
-        assert!(
-            (f64::from(g) - w).abs() <= tol,
-            "{name}: component {k}: read {g}, written {w}"
-        );
+        assert!((f64::from(g) - w).abs() <= tol, "{name}: component {k}: read {g}, written {w}");
     }
 }
 
@@ -86,36 +66,20 @@ fn check_fixture(key: &str, opts: OpenOptions) {
     let all = expected();
     let e = &all[key];
     let path = good(e["path"].as_str().unwrap());
-    let before = std::fs::metadata(
-        fixtures()
-            .join("captures")
-            .join(e["path"].as_str().unwrap()),
-    )
-    .or_else(|_| std::fs::metadata(format!("{path}.sigmf-data")))
-    .unwrap();
+    let before = std::fs::metadata(fixtures().join("captures").join(e["path"].as_str().unwrap()))
+        .or_else(|_| std::fs::metadata(format!("{path}.sigmf-data")))
+        .unwrap();
     let mut r = open(&path, &opts).unwrap_or_else(|e| panic!("{key}: {e}"));
     assert_eq!(r.info().rate, e["rate"].as_f64().unwrap(), "{key}: rate");
-    assert_eq!(
-        r.info().channels as u64,
-        e["channels"].as_u64().unwrap(),
-        "{key}: channels"
-    );
-    assert_eq!(
-        r.info().complex,
-        e["complex"].as_bool().unwrap(),
-        "{key}: complex"
-    );
+    assert_eq!(r.info().channels as u64, e["channels"].as_u64().unwrap(), "{key}: channels");
+    assert_eq!(r.info().complex, e["complex"].as_bool().unwrap(), "{key}: complex");
     let got = read_all(r.as_mut()).unwrap();
     assert_samples(key, &got, &expected_values(e));
     assert_eq!(r.bytes_read(), r.info().data_bytes.unwrap());
     // Reading never changes the input.
-    let after = std::fs::metadata(
-        fixtures()
-            .join("captures")
-            .join(e["path"].as_str().unwrap()),
-    )
-    .or_else(|_| std::fs::metadata(format!("{path}.sigmf-data")))
-    .unwrap();
+    let after = std::fs::metadata(fixtures().join("captures").join(e["path"].as_str().unwrap()))
+        .or_else(|_| std::fs::metadata(format!("{path}.sigmf-data")))
+        .unwrap();
     assert_eq!(before.len(), after.len());
     assert_eq!(before.modified().unwrap(), after.modified().unwrap());
 }
@@ -157,11 +121,7 @@ fn sigmf_ci16_written_by_the_sigmf_package() {
     check_fixture("kestrel_ci16", opts(Some(1e6)));
     let all = expected();
     let e = &all["kestrel_ci16"];
-    for name in [
-        "kestrel_ci16",
-        "kestrel_ci16.sigmf-meta",
-        "kestrel_ci16.sigmf-data",
-    ] {
+    for name in ["kestrel_ci16", "kestrel_ci16.sigmf-meta", "kestrel_ci16.sigmf-data"] {
         let r = open(&good(name), &OpenOptions::default()).unwrap();
         let info = r.info();
         assert_eq!(info.format, Format::Sigmf);
@@ -172,11 +132,7 @@ fn sigmf_ci16_written_by_the_sigmf_package() {
         assert_eq!(a.sample_start, want[0].as_u64().unwrap());
         assert_eq!(a.sample_count, want[1].as_u64());
         assert_eq!(a.label.as_deref(), want[2].as_str());
-        assert_eq!(
-            a.comment.as_deref(),
-            Some("sync high"),
-            "unknown fields kept"
-        );
+        assert_eq!(a.comment.as_deref(), Some("sync high"), "unknown fields kept");
     }
 }
 
@@ -186,36 +142,18 @@ fn raw_cu8_written_by_numpy() {
     check_fixture("dongle_cu8", opts(Some(2.4e6)));
     check_fixture(
         "dongle_cu8",
-        OpenOptions {
-            format: Format::Raw,
-            datatype: Some("cu8".into()),
-            rate: Some(2.4e6),
-            channels: None,
-        },
+        OpenOptions { format: Format::Raw, datatype: Some("cu8".into()), rate: Some(2.4e6), channels: None },
     );
-    let e = open(&good("dongle.cu8"), &OpenOptions::default())
-        .err()
-        .unwrap();
-    assert!(
-        e.message.contains("dongle.cu8") && e.message.contains("set rate"),
-        "{e}"
-    );
+    let e = open(&good("dongle.cu8"), &OpenOptions::default()).err().unwrap();
+    assert!(e.message.contains("dongle.cu8") && e.message.contains("set rate"), "{e}");
 }
 
 fn params(pairs: &[(&str, &str)]) -> Params {
     let mut p = Params::new();
     for spec in SPEC.params {
-        let text = pairs
-            .iter()
-            .find(|(n, _)| *n == spec.name)
-            .map(|(_, v)| *v)
-            .or(spec.default);
+        let text = pairs.iter().find(|(n, _)| *n == spec.name).map(|(_, v)| *v).or(spec.default);
         if let Some(t) = text {
-            p.insert(
-                spec.name,
-                spec.parse(&RawValue::from_text(t))
-                    .unwrap_or_else(|e| panic!("{}: {e}", spec.name)),
-            );
+            p.insert(spec.name, spec.parse(&RawValue::from_text(t)).unwrap_or_else(|e| panic!("{}: {e}", spec.name)));
         }
     }
     p
@@ -239,13 +177,7 @@ fn run(block: &mut dyn Block) -> Result<Run, BlockError> {
             }
         }
     }
-    chunks.extend(out.drain().filter_map(|(_, i)| {
-        if let Item::Samples(c) = i {
-            Some(c)
-        } else {
-            None
-        }
-    }));
+    chunks.extend(out.drain().filter_map(|(_, i)| if let Item::Samples(c) = i { Some(c) } else { None }));
     notices.extend(out.drain_notices().map(|n| n.what));
     Ok((chunks, notices, block.progress()))
 }
@@ -277,17 +209,10 @@ fn source_block_emits_roles_with_exact_stamps() {
     assert_eq!(progress, Some((4096, 4096)));
 
     // Swapped roles, an ignored channel, a single real channel.
-    let mut b = build(&[
-        ("path", &good("scipy_f32_iqst.wav")),
-        ("roles", "q,i,-,sync"),
-    ])
-    .unwrap();
+    let mut b = build(&[("path", &good("scipy_f32_iqst.wav")), ("roles", "q,i,-,sync")]).unwrap();
     let (chunks, _, _) = run(b.as_mut()).unwrap();
     let c = &chunks[0];
-    assert_eq!(
-        (c.iq[9].re, c.iq[9].im),
-        (want[9 * 4 + 1] as f32, want[9 * 4] as f32)
-    );
+    assert_eq!((c.iq[9].re, c.iq[9].im), (want[9 * 4 + 1] as f32, want[9 * 4] as f32));
     assert_eq!(c.sync.as_ref().unwrap()[0], want[3] as f32);
     assert!(c.trigger.is_none());
     let mut b = build(&[("path", &good("wave_u8_mono.wav"))]).unwrap();
@@ -318,15 +243,10 @@ fn hound_extensible_24_bit_and_24_in_32() {
         };
         let mut w = hound::WavWriter::new_with_spec_ex(
             std::io::BufWriter::new(std::fs::File::create(&path).unwrap()),
-            hound::WavSpecEx {
-                spec,
-                bytes_per_sample: container,
-            },
+            hound::WavSpecEx { spec, bytes_per_sample: container },
         )
         .unwrap();
-        let codes: Vec<i32> = (0..300)
-            .map(|k: i32| ((k * 7919) % (1 << 24)) - (1 << 23))
-            .collect();
+        let codes: Vec<i32> = (0..300).map(|k: i32| ((k * 7919) % (1 << 24)) - (1 << 23)).collect();
         for &c in &codes {
             w.write_sample(c).unwrap();
         }
@@ -352,110 +272,55 @@ fn open_err(path: &str, o: OpenOptions) -> String {
 #[test]
 fn truncated_wav_names_file_and_offsets() {
     let e = open_err(&bad("truncated.wav"), OpenOptions::default());
-    assert!(
-        e.contains("truncated.wav") && e.contains("truncated"),
-        "{e}"
-    );
+    assert!(e.contains("truncated.wav") && e.contains("truncated"), "{e}");
     // header 44 bytes + 400 data bytes claimed, 150 present
-    assert!(
-        e.contains("byte offset 44 to 444") && e.contains("byte offset 194"),
-        "{e}"
-    );
+    assert!(e.contains("byte offset 44 to 444") && e.contains("byte offset 194"), "{e}");
     assert!(e.contains("at sample 37"), "{e}");
 }
 
 #[test]
 fn odd_raw_ci16_is_refused_with_offset() {
-    let o = OpenOptions {
-        format: Format::Raw,
-        datatype: Some("ci16_le".into()),
-        rate: Some(1e6),
-        channels: None,
-    };
+    let o = OpenOptions { format: Format::Raw, datatype: Some("ci16_le".into()), rate: Some(1e6), channels: None };
     let e = open_err(&bad("odd.ci16"), o);
-    assert!(
-        e.contains("odd.ci16") && e.contains("1 byte(s) left over at byte offset 400"),
-        "{e}"
-    );
+    assert!(e.contains("odd.ci16") && e.contains("1 byte(s) left over at byte offset 400"), "{e}");
 }
 
 #[test]
 fn unsupported_wav_formats_are_named() {
     let e = open_err(&bad("float64.wav"), OpenOptions::default());
-    assert!(
-        e.contains("float64.wav") && e.contains("unsupported") && e.contains("64 bits"),
-        "{e}"
-    );
+    assert!(e.contains("float64.wav") && e.contains("unsupported") && e.contains("64 bits"), "{e}");
     let e = open_err(&bad("alaw.wav"), OpenOptions::default());
-    assert!(
-        e.contains("alaw.wav") && e.contains("A-law") && e.contains("0x0006"),
-        "{e}"
-    );
+    assert!(e.contains("alaw.wav") && e.contains("A-law") && e.contains("0x0006"), "{e}");
 }
 
 #[test]
 fn roles_that_do_not_fit_list_the_channels() {
-    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "i,q,sync")])
-        .err()
-        .unwrap();
+    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "i,q,sync")]).err().unwrap();
     assert!(
-        e.contains("wave_i16_iq.wav")
-            && e.contains("name 3 channel(s)")
-            && e.contains("channel 1, channel 2"),
+        e.contains("wave_i16_iq.wav") && e.contains("name 3 channel(s)") && e.contains("channel 1, channel 2"),
         "{e}"
     );
-    let e = build(&[("path", &good("kestrel_ci16")), ("roles", "i,q")])
-        .err()
-        .unwrap();
-    assert!(
-        e.contains("role 'i' for channel 1")
-            && e.contains("channel 1 (complex), channel 2 (complex)"),
-        "{e}"
-    );
-    let e = build(&[
-        ("path", &good("wave_i24_iqs.wav")),
-        ("roles", "i,sync,sync"),
-    ])
-    .err()
-    .unwrap();
+    let e = build(&[("path", &good("kestrel_ci16")), ("roles", "i,q")]).err().unwrap();
+    assert!(e.contains("role 'i' for channel 1") && e.contains("channel 1 (complex), channel 2 (complex)"), "{e}");
+    let e = build(&[("path", &good("wave_i24_iqs.wav")), ("roles", "i,sync,sync")]).err().unwrap();
     assert!(e.contains("channels 2 and 3"), "{e}");
-    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "q,sync")])
-        .err()
-        .unwrap();
+    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "q,sync")]).err().unwrap();
     assert!(e.contains("no channel has role 'i'"), "{e}");
 }
 
 #[test]
 fn sigmf_metadata_faults_are_explained() {
     let e = open_err(&bad("no_datatype.sigmf-meta"), OpenOptions::default());
-    assert!(
-        e.contains("no_datatype.sigmf-meta") && e.contains("no core:datatype"),
-        "{e}"
-    );
+    assert!(e.contains("no_datatype.sigmf-meta") && e.contains("no core:datatype"), "{e}");
     let e = open_err(&bad("unordered_captures"), OpenOptions::default());
-    assert!(
-        e.contains("unordered_captures.sigmf-meta") && e.contains("captures[1]"),
-        "{e}"
-    );
+    assert!(e.contains("unordered_captures.sigmf-meta") && e.contains("captures[1]"), "{e}");
     let e = open_err(&bad("no_data_file"), OpenOptions::default());
-    assert!(
-        e.contains("no_data_file.sigmf-data") && e.contains("cannot open the data file"),
-        "{e}"
-    );
+    assert!(e.contains("no_data_file.sigmf-data") && e.contains("cannot open the data file"), "{e}");
     let e = open_err(&bad("rate_48k.sigmf-data"), opts(Some(96000.0)));
-    assert!(
-        e.contains("rate_48k.sigmf-meta") && e.contains("96000") && e.contains("48000"),
-        "{e}"
-    );
+    assert!(e.contains("rate_48k.sigmf-meta") && e.contains("96000") && e.contains("48000"), "{e}");
     // A rate within 1e-9 relative is the same rate.
     assert!(open(&bad("rate_48k"), &opts(Some(48000.0 * (1.0 + 1e-12)))).is_ok());
-    let e = open_err(
-        &good("kestrel_ci16"),
-        OpenOptions {
-            channels: Some(3),
-            ..OpenOptions::default()
-        },
-    );
+    let e = open_err(&good("kestrel_ci16"), OpenOptions { channels: Some(3), ..OpenOptions::default() });
     assert!(e.contains("channels 3") && e.contains("says 2"), "{e}");
 }
 
@@ -466,43 +331,24 @@ fn nan_samples_error_or_are_zeroed_and_counted() {
         .and_then(|mut b| run(b.as_mut()).map(|_| ()).map_err(|e| e.to_string()));
     let e = e.err().unwrap();
     // sample 37, I part: byte offset 37 * 8
-    assert!(
-        e.contains("nan.cf32_le") && e.contains("at sample 37") && e.contains("byte offset 296"),
-        "{e}"
-    );
+    assert!(e.contains("nan.cf32_le") && e.contains("at sample 37") && e.contains("byte offset 296"), "{e}");
     let mut b = build(&[("path", &path), ("rate", "1 MS/s"), ("nonfinite", "zero")]).unwrap();
     let (chunks, notices, _) = run(b.as_mut()).unwrap();
     assert_eq!(chunks[0].iq[37].re, 0.0);
     assert_eq!(chunks[0].iq[50].im, 0.0);
-    assert!(
-        chunks
-            .iter()
-            .all(|c| c.iq.iter().all(|z| z.re.is_finite() && z.im.is_finite()))
-    );
+    assert!(chunks.iter().all(|c| c.iq.iter().all(|z| z.re.is_finite() && z.im.is_finite())));
     assert_eq!(notices.len(), 1);
-    assert!(
-        notices[0].contains("replaced 2 non-finite") && notices[0].contains("sample 37"),
-        "{notices:?}"
-    );
+    assert!(notices[0].contains("replaced 2 non-finite") && notices[0].contains("sample 37"), "{notices:?}");
 }
 
 #[test]
 fn missing_files_and_unguessable_formats() {
     let e = open_err(&bad("nothing_here.wav"), OpenOptions::default());
-    assert!(
-        e.contains("nothing_here.wav") && e.contains("cannot open"),
-        "{e}"
-    );
+    assert!(e.contains("nothing_here.wav") && e.contains("cannot open"), "{e}");
     let e = open_err(&bad("nothing_here"), OpenOptions::default());
-    assert!(
-        e.contains("nothing_here") && e.contains("no such capture"),
-        "{e}"
-    );
+    assert!(e.contains("nothing_here") && e.contains("no such capture"), "{e}");
     let e = open_err("-", OpenOptions::default());
-    assert!(
-        e.contains("standard input") && e.contains("format raw"),
-        "{e}"
-    );
+    assert!(e.contains("standard input") && e.contains("format raw"), "{e}");
 }
 
 #[test]
@@ -522,16 +368,9 @@ fn a_reader_chunk_survives_the_role_map_directly() {
 #[test]
 fn inspect_levels_match_numpy() {
     let all = expected();
-    for key in [
-        "wave_i16_iq",
-        "wave_i24_iqs",
-        "scipy_f32_iqst",
-        "kestrel_ci16",
-        "dongle_cu8",
-    ] {
+    for key in ["wave_i16_iq", "wave_i24_iqs", "scipy_f32_iqst", "kestrel_ci16", "dongle_cu8"] {
         let e = &all[key];
-        let rate =
-            (e["path"].as_str().unwrap().ends_with(".cu8")).then(|| e["rate"].as_f64().unwrap());
+        let rate = (e["path"].as_str().unwrap().ends_with(".cu8")).then(|| e["rate"].as_f64().unwrap());
         let args = InspectArgs {
             path: good(e["path"].as_str().unwrap()),
             options: opts(rate),
@@ -544,12 +383,7 @@ fn inspect_levels_match_numpy() {
         assert_eq!(ins.stats.len(), numpy.len(), "{key}");
         for (s, n) in ins.stats.iter().zip(numpy) {
             // numpy's min, max, mean and RMS of the decoded values
-            for (got, field) in [
-                (s.min, "min"),
-                (s.max, "max"),
-                (s.mean, "mean"),
-                (s.rms, "rms"),
-            ] {
+            for (got, field) in [(s.min, "min"), (s.max, "max"), (s.mean, "mean"), (s.rms, "rms")] {
                 let want = n[field].as_f64().unwrap();
                 assert!(
                     (got - want).abs() <= 1e-6 * (1.0 + want.abs()),
@@ -573,12 +407,8 @@ fn inspect_finds_the_switch_rate_and_says_when_it_stops_early() {
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join("switch.wav");
     let rate = 48000u32;
-    let spec = hound::WavSpec {
-        channels: 3,
-        sample_rate: rate,
-        bits_per_sample: 16,
-        sample_format: hound::SampleFormat::Int,
-    };
+    let spec =
+        hound::WavSpec { channels: 3, sample_rate: rate, bits_per_sample: 16, sample_format: hound::SampleFormat::Int };
     let mut w = hound::WavWriter::create(&path, spec).unwrap();
     let dwell = (rate / 125) as usize; // 384 samples per dwell
     for k in 0..(rate as usize * 2) {
@@ -587,45 +417,26 @@ fn inspect_finds_the_switch_rate_and_says_when_it_stops_early() {
         let ph = 2.0 * std::f64::consts::PI * 3000.0 * k as f64 / f64::from(rate);
         w.write_sample((amp * ph.cos() * 32767.0) as i16).unwrap();
         w.write_sample((amp * ph.sin() * 32767.0) as i16).unwrap();
-        w.write_sample(if lobe_b { 16000i16 } else { -16000 })
-            .unwrap();
+        w.write_sample(if lobe_b { 16000i16 } else { -16000 }).unwrap();
     }
     w.finalize().unwrap();
     let p = path.to_string_lossy().into_owned();
-    let ins = examine(&InspectArgs {
-        path: p.clone(),
-        options: OpenOptions::default(),
-        roles: vec![],
-        max_seconds: 60.0,
-    })
-    .unwrap();
+    let ins =
+        examine(&InspectArgs { path: p.clone(), options: OpenOptions::default(), roles: vec![], max_seconds: 60.0 })
+            .unwrap();
     assert_eq!(ins.envelopes.len(), 2);
     for env in &ins.envelopes {
         // The amplitude square wave has its fundamental at 62.5 Hz (period of two dwells).
         let f = env.peaks[0].frequency_hz;
         assert!((f - 62.5).abs() < 0.5, "{}: {f}", env.source);
         // and odd harmonics only: the second peak near 187.5 Hz
-        assert!(
-            (env.peaks[1].frequency_hz - 187.5).abs() < 0.5,
-            "{:?}",
-            env.peaks
-        );
+        assert!((env.peaks[1].frequency_hz - 187.5).abs() < 0.5, "{:?}", env.peaks);
     }
-    let text = inspect(&InspectArgs {
-        path: p.clone(),
-        options: OpenOptions::default(),
-        roles: vec![],
-        max_seconds: 0.5,
-    })
-    .unwrap();
-    assert!(
-        text.contains("only the first 500 ms") && text.contains("24000 samples"),
-        "{text}"
-    );
-    assert!(
-        text.contains("ch3 sync") && text.contains("48 kS/s"),
-        "{text}"
-    );
+    let text =
+        inspect(&InspectArgs { path: p.clone(), options: OpenOptions::default(), roles: vec![], max_seconds: 0.5 })
+            .unwrap();
+    assert!(text.contains("only the first 500 ms") && text.contains("24000 samples"), "{text}");
+    assert!(text.contains("ch3 sync") && text.contains("48 kS/s"), "{text}");
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -635,16 +446,7 @@ fn standard_input_is_read_through_the_command() {
     let exe = env!("CARGO_BIN_EXE_lobeflow");
     let data = std::fs::read(good("dongle.cu8")).unwrap();
     let mut child = std::process::Command::new(exe)
-        .args([
-            "inspect",
-            "-",
-            "--format",
-            "raw",
-            "--datatype",
-            "cu8",
-            "--rate",
-            "2.4 MS/s",
-        ])
+        .args(["inspect", "-", "--format", "raw", "--datatype", "cu8", "--rate", "2.4 MS/s"])
         .stdin(std::process::Stdio::piped())
         .stdout(std::process::Stdio::piped())
         .stderr(std::process::Stdio::piped())
@@ -654,15 +456,8 @@ fn standard_input_is_read_through_the_command() {
     child.stdin.take().unwrap().write_all(&data).unwrap();
     let out = child.wait_with_output().unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    assert!(
-        text.contains("standard input") && text.contains("examined     all 256 samples"),
-        "{text}"
-    );
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(text.contains("standard input") && text.contains("examined     all 256 samples"), "{text}");
     // numpy's figures for the same file
     let all = expected();
     let rms = all["dongle_cu8"]["stats"][0]["rms"].as_f64().unwrap();
@@ -670,16 +465,7 @@ fn standard_input_is_read_through_the_command() {
 
     // A pipe ending mid-frame is an error with the byte offset.
     let mut child = std::process::Command::new(exe)
-        .args([
-            "inspect",
-            "-",
-            "--format",
-            "raw",
-            "--datatype",
-            "cu8",
-            "--rate",
-            "1e6",
-        ])
+        .args(["inspect", "-", "--format", "raw", "--datatype", "cu8", "--rate", "1e6"])
         .stdin(std::process::Stdio::piped())
         .stdout(std::process::Stdio::piped())
         .stderr(std::process::Stdio::piped())
@@ -689,10 +475,7 @@ fn standard_input_is_read_through_the_command() {
     let out = child.wait_with_output().unwrap();
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(2));
-    assert!(
-        err.contains("1 byte(s) left over at byte offset 100"),
-        "{err}"
-    );
+    assert!(err.contains("1 byte(s) left over at byte offset 100"), "{err}");
 }
 
 #[test]
@@ -709,11 +492,7 @@ fn capture_source_runs_in_a_graph() {
     let mut session = lobeflow::Session::open(&graph).unwrap();
     session.out_dir(dir.join("out"));
     let report = session.run().unwrap();
-    let sink = report
-        .stats
-        .iter()
-        .find(|s| s.name.ends_with("sink"))
-        .unwrap();
+    let sink = report.stats.iter().find(|s| s.name.ends_with("sink")).unwrap();
     assert_eq!((sink.samples_in, sink.items_in), (256, 6));
     // A bad capture stops the run with the file named.
     session.set("input", &bad("alaw.wav"));
@@ -737,9 +516,7 @@ fn sigmf_retune_is_read_and_reported() {
     assert_eq!(notices[0].stamp.index, 100);
     assert!(
         notices[0].what.contains("retune_cf32.sigmf-meta")
-            && notices[0]
-                .what
-                .contains("segment 2 starts at sample 100, centre frequency 2420000000 Hz"),
+            && notices[0].what.contains("segment 2 starts at sample 100, centre frequency 2420000000 Hz"),
         "{:?}",
         notices[0]
     );

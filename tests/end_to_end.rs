@@ -26,7 +26,13 @@ fn dir(name: &str) -> PathBuf {
 }
 
 /// Synthesize `scenario` (YAML text) and run `graph` on it with `knobs`.
-fn synth_and_run(name: &str, scenario: &str, capture_suffix: &str, graph: &str, knobs: &[(&str, &str)]) -> (Table, Table) {
+fn synth_and_run(
+    name: &str,
+    scenario: &str,
+    capture_suffix: &str,
+    graph: &str,
+    knobs: &[(&str, &str)],
+) -> (Table, Table) {
     let d = dir(name);
     let sc = d.join("scenario.yaml");
     std::fs::write(&sc, scenario).unwrap();
@@ -88,9 +94,11 @@ struct Scores {
 
 fn score(angles: &Table, truth: &Table, axis: &str) -> Scores {
     let truth_col = format!("{axis}_deg");
-    let (mut e2, mut e, mut s2, mut t2, mut nt, mut r2, mut nr, mut n, mut flagged) = (0.0, 0.0, 0.0, 0.0, 0, 0.0, 0, 0, 0);
+    let (mut e2, mut e, mut s2, mut t2, mut nt, mut r2, mut nr, mut n, mut flagged) =
+        (0.0, 0.0, 0.0, 0.0, 0, 0.0, 0, 0, 0);
     let (ac, fc) = (angles.col("axis"), angles.col("flag"));
-    let has_range = truth.header.iter().any(|h| h == "range_m") && truth.rows.iter().all(|r| !r[truth.col("range_m")].is_empty());
+    let has_range =
+        truth.header.iter().any(|h| h == "range_m") && truth.rows.iter().all(|r| !r[truth.col("range_m")].is_empty());
     for i in 0..angles.rows.len() {
         if angles.rows[i][ac] != axis {
             continue;
@@ -151,7 +159,12 @@ fn four_lobe_pulsed_chain_meets_its_predicted_spread_at_two_snrs() {
             assert!(s.n >= 950, "snr {snr} {axis}: only {} estimates ({} flagged)", s.n, s.flagged);
             assert!(s.rms <= 1.10 * s.sigma, "snr {snr} {axis}: RMS {:.4} deg vs predicted {:.4} deg", s.rms, s.sigma);
             assert!(s.bias.abs() <= 0.1 * s.sigma, "snr {snr} {axis}: bias {:.4} deg vs sigma {:.4}", s.bias, s.sigma);
-            assert!(s.range_rms <= 0.15 * bin, "snr {snr} {axis}: range RMS {:.2} m = {:.3} bin", s.range_rms, s.range_rms / bin);
+            assert!(
+                s.range_rms <= 0.15 * bin,
+                "snr {snr} {axis}: range RMS {:.2} m = {:.3} bin",
+                s.range_rms,
+                s.range_rms / bin
+            );
             eprintln!("pulsed snr {snr} dB {axis}: {s:?}");
         }
     }
@@ -159,8 +172,13 @@ fn four_lobe_pulsed_chain_meets_its_predicted_spread_at_two_snrs() {
 
 #[test]
 fn tracking_a_slow_target_beats_the_per_dwell_spread() {
-    let sc = pulsed_scenario(14.0, 21, "{at: -0.5 deg, per_second: 0.25 deg}", "{at: 0.2 deg, swing: {amplitude: 0.1 deg, period: 3 s}}")
-        .replace("duration: 4 s", "duration: 2 s");
+    let sc = pulsed_scenario(
+        14.0,
+        21,
+        "{at: -0.5 deg, per_second: 0.25 deg}",
+        "{at: 0.2 deg, swing: {amplitude: 0.1 deg, period: 3 s}}",
+    )
+    .replace("duration: 4 s", "duration: 2 s");
     let (angles, truth) = synth_and_run("track", &sc, ".wav", "graphs/four-lobe-pulsed.yaml", &[]);
     for axis in ["az", "el"] {
         let s = score(&angles, &truth, axis);
@@ -179,7 +197,8 @@ signal:\n  beacon: {{tone: 5 kHz, snr: {snr} dB, dwell: 4 ms, first_lobe_start: 
 target:\n  az: {{at: 1.5 deg}}\n  el: {{at: 0 deg}}\n"
         );
         let knobs = [("dwell", "4 ms"), ("first_start", "-1 ms"), ("guard", "0.2 ms"), ("tone", "5 kHz")];
-        let (angles, truth) = synth_and_run(&format!("beacon{snr}"), &sc, ".sigmf-meta", "graphs/two-lobe-beacon.yaml", &knobs);
+        let (angles, truth) =
+            synth_and_run(&format!("beacon{snr}"), &sc, ".sigmf-meta", "graphs/two-lobe-beacon.yaml", &knobs);
         let s = score(&angles, &truth, "az");
         assert!(s.n >= 950, "snr {snr}: only {} estimates", s.n);
         assert!(s.rms <= 1.10 * s.sigma, "snr {snr}: RMS {:.4} deg vs predicted {:.4} deg", s.rms, s.sigma);
@@ -194,10 +213,20 @@ fn targets_outside_the_usable_region_are_flagged_not_reported() {
     // down at about 4.4 deg and nulls at 5.56 deg off boresight.
     let base = pulsed_scenario(30.0, 41, "{at: 5.0 deg}", "{at: 0 deg}")
         .replace("duration: 4 s", "duration: 0.3 s")
-        .replace("beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg", "beam: uniform, beamwidth: 8 deg, squint: 3.5 deg")
+        .replace(
+            "beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg",
+            "beam: uniform, beamwidth: 8 deg, squint: 3.5 deg",
+        )
         .replace("  - {name: up, toward: up}\n", "")
         .replace("  - {name: down, toward: down}\n", "");
-    let knobs = [("lobe_order", "right,left"), ("pairs", "az=right/left"), ("beam", "uniform"), ("beamwidth", "8 deg"), ("squint", "3.5 deg"), ("detect", "4")];
+    let knobs = [
+        ("lobe_order", "right,left"),
+        ("pairs", "az=right/left"),
+        ("beam", "uniform"),
+        ("beamwidth", "8 deg"),
+        ("squint", "3.5 deg"),
+        ("detect", "4"),
+    ];
     let (angles, truth) = synth_and_run("outside", &base, ".wav", "graphs/four-lobe-pulsed.yaml", &knobs);
     let s = score(&angles, &truth, "az");
     assert_eq!(s.n, 0, "a target 5 deg off must give no numbers: {s:?}");

@@ -51,7 +51,10 @@ fn check(name: &str, text: &str) -> Result<(), GraphError> {
 
 fn expect(name: &str, text: &str, line: usize, needle: &str) -> GraphError {
     let e = check(name, text).expect_err("the graph must be refused");
-    assert!(e.message.contains(needle) || e.to_string().contains(needle), "message: {e}\nexpected to contain: {needle}");
+    assert!(
+        e.message.contains(needle) || e.to_string().contains(needle),
+        "message: {e}\nexpected to contain: {needle}"
+    );
     assert_eq!(e.line, line, "line of: {e}");
     assert!(e.to_string().contains(&format!("g.yaml:{line}:")), "file:line in {e}");
     e
@@ -123,13 +126,19 @@ fn out_of_range_shows_the_allowed_range() {
 
 #[test]
 fn unconnected_required_input_is_refused() {
-    let e = expect("unwired", &GOOD.replace("  - tone -> keep -> drop\n", "  - tone -> keep\n"), 8, "input 'samples' of block 'drop' (discard) is not wired");
+    let e = expect(
+        "unwired",
+        &GOOD.replace("  - tone -> keep -> drop\n", "  - tone -> keep\n"),
+        8,
+        "input 'samples' of block 'drop' (discard) is not wired",
+    );
     assert!(e.hint.unwrap().contains("drop.samples"));
 }
 
 #[test]
 fn port_type_mismatch_is_refused() {
-    let text = "blocks:\n  tone: {kind: test_tone}\n  s: {kind: sweep_sink, set: {squint: 2 deg}}\nwiring:\n  - tone -> s\n";
+    let text =
+        "blocks:\n  tone: {kind: test_tone}\n  s: {kind: sweep_sink, set: {squint: 2 deg}}\nwiring:\n  - tone -> s\n";
     expect("mismatch", text, 5, "port type mismatch: tone.samples carries samples, but s.sweeps takes sweeps");
 }
 

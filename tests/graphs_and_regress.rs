@@ -109,7 +109,11 @@ fn regress_passes_then_catches_a_flipped_sign_and_a_wrong_squint() {
 #[test]
 fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     let d = scratch("malformed");
-    edit(&d.join("samples/two-lobe-beacon.check.yaml"), "  - {measure: bias, axis: az, max: 0.05}", "  - {measure: bias, axsi: az, max: 0.05}");
+    edit(
+        &d.join("samples/two-lobe-beacon.check.yaml"),
+        "  - {measure: bias, axis: az, max: 0.05}",
+        "  - {measure: bias, axsi: az, max: 0.05}",
+    );
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
     let err = String::from_utf8_lossy(&out.stderr);
@@ -122,8 +126,16 @@ fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     assert!(err.contains("two-lobe-beacon.check.yaml:8:") && err.contains("needs an axis"), "{err}");
 
     std::fs::remove_file(d.join("samples/two-lobe-beacon.sigmf-data")).unwrap();
-    edit(&d.join("samples/two-lobe-beacon.check.yaml"), "{measure: bias, max: 0.05}", "{measure: bias, axis: az, max: 0.05}");
+    edit(
+        &d.join("samples/two-lobe-beacon.check.yaml"),
+        "{measure: bias, max: 0.05}",
+        "{measure: bias, axis: az, max: 0.05}",
+    );
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&out.stderr).contains("two-lobe-beacon.sigmf-data"), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        String::from_utf8_lossy(&out.stderr).contains("two-lobe-beacon.sigmf-data"),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
 }

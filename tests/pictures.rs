@@ -6,8 +6,8 @@ use lobeflow::picture::accum::{BinWindow, SweepAverage};
 use lobeflow::picture::circular_sweep::Scene;
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::{
-    AngleEstimate, BlockSpec, BuildContext, Cell, FileStager, Flag, Item, LobeSegment, LobeTag,
-    Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep, range_bin_m,
+    AngleEstimate, BlockSpec, BuildContext, Cell, FileStager, Flag, Item, LobeSegment, LobeTag, Notice, Outputs,
+    Params, RawValue, SampleChunk, Stamp, Sweep, range_bin_m,
 };
 use num_complex::Complex32;
 use std::collections::BTreeSet;
@@ -20,15 +20,9 @@ const SWEEP_LEN: usize = 2000;
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     let mut p = Params::new();
     for ps in spec.params {
-        let text = set
-            .iter()
-            .find(|(n, _)| *n == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default);
+        let text = set.iter().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
         if let Some(t) = text {
-            let v = ps
-                .parse(&RawValue::from_text(t))
-                .unwrap_or_else(|e| panic!("{}: {e}", ps.name));
+            let v = ps.parse(&RawValue::from_text(t)).unwrap_or_else(|e| panic!("{}: {e}", ps.name));
             p.insert(ps.name, v);
         }
     }
@@ -46,17 +40,9 @@ fn scratch(name: &str) -> PathBuf {
 
 /// Build `spec` with `set`, feed `items` (port, item), finish, commit the
 /// files. Returns the items pushed and the committed paths.
-fn run(
-    spec: &BlockSpec,
-    set: &[(&str, &str)],
-    items: Vec<(usize, Item)>,
-) -> (Vec<(usize, Item)>, Vec<PathBuf>) {
+fn run(spec: &BlockSpec, set: &[(&str, &str)], items: Vec<(usize, Item)>) -> (Vec<(usize, Item)>, Vec<PathBuf>) {
     let files = FileStager::default();
-    let ctx = BuildContext {
-        name: spec.kind.into(),
-        out_dir: std::env::temp_dir(),
-        files: files.clone(),
-    };
+    let ctx = BuildContext { name: spec.kind.into(), out_dir: std::env::temp_dir(), files: files.clone() };
     let mut block = (spec.build)(&params(spec, set), &ctx).unwrap();
     let mut out = Outputs::new(spec.outputs.len());
     let mut pushed = Vec::new();
@@ -71,12 +57,7 @@ fn run(
 }
 
 fn lobe_tag(lobe: usize, name: &str, dwell: u64, start: u64) -> LobeTag {
-    LobeTag {
-        lobe,
-        name: Arc::from(name),
-        dwell,
-        dwell_start: start,
-    }
+    LobeTag { lobe, name: Arc::from(name), dwell, dwell_start: start }
 }
 
 /// A sweep with a Gaussian-envelope echo centred at fractional bin `echo_bin`.
@@ -116,38 +97,19 @@ fn png_facts(path: &Path) -> (u32, u32, usize) {
 fn check_pictures(written: &[PathBuf], base: &Path, size: (u32, u32)) {
     let png_path = base.with_extension("png");
     let svg_path = base.with_extension("svg");
-    assert!(
-        written.contains(&png_path) && written.contains(&svg_path),
-        "{written:?}"
-    );
+    assert!(written.contains(&png_path) && written.contains(&svg_path), "{written:?}");
     let (w, h, colours) = png_facts(&png_path);
     assert_eq!((w, h), size);
-    assert!(
-        colours >= 6,
-        "{} has only {colours} colours",
-        png_path.display()
-    );
+    assert!(colours >= 6, "{} has only {colours} colours", png_path.display());
     let text = std::fs::read_to_string(&svg_path).unwrap();
     let doc = roxmltree::Document::parse(&text).unwrap();
     assert_eq!(doc.root_element().tag_name().name(), "svg");
     let drawn = doc
         .descendants()
-        .filter(|n| {
-            matches!(
-                n.tag_name().name(),
-                "polyline" | "path" | "circle" | "rect" | "line"
-            )
-        })
+        .filter(|n| matches!(n.tag_name().name(), "polyline" | "path" | "circle" | "rect" | "line"))
         .count();
-    let texts = doc
-        .descendants()
-        .filter(|n| n.tag_name().name() == "text")
-        .count();
-    assert!(
-        drawn > 10 && texts > 3,
-        "{}: {drawn} shapes, {texts} texts",
-        svg_path.display()
-    );
+    let texts = doc.descendants().filter(|n| n.tag_name().name() == "text").count();
+    assert!(drawn > 10 && texts > 3, "{}: {drawn} shapes, {texts} texts", svg_path.display());
 }
 
 /// Run twice into two directories and compare the files byte for byte.
@@ -183,16 +145,9 @@ fn circular_sweep_draws_and_reads_the_echo() {
     let echo_bin = 1234.4;
     let items = || {
         let mut rng = Rng::new(11);
-        (0..60)
-            .map(|k| (0, Item::Sweep(sweep(&mut rng, k, echo_bin, 3.0, None))))
-            .collect::<Vec<_>>()
+        (0..60).map(|k| (0, Item::Sweep(sweep(&mut rng, k, echo_bin, 3.0, None)))).collect::<Vec<_>>()
     };
-    let set = [
-        ("range_start", "3 km"),
-        ("range_end", "63 km"),
-        ("revolutions", "6"),
-        ("mark_every", "1 km"),
-    ];
+    let set = [("range_start", "3 km"), ("range_end", "63 km"), ("revolutions", "6"), ("mark_every", "1 km")];
     let (rows, written) = assert_repeatable(&spec, &set, items, "circle");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1280, 780));
@@ -200,18 +155,10 @@ fn circular_sweep_draws_and_reads_the_echo() {
     let bin = range_bin_m(RATE);
     let window_bins = ((63e3 / bin).round() - (3e3 / bin).round()) as usize;
     assert_eq!(rows.len(), window_bins + 1);
-    let Some((0, Item::Row(last))) = rows.last() else {
-        panic!("no readout row")
-    };
+    let Some((0, Item::Row(last))) = rows.last() else { panic!("no readout row") };
     assert_eq!(last.fields[0].1, Cell::Text(Arc::from("readout")));
-    let Cell::Num(read) = last.fields[1].1 else {
-        panic!("readout range missing")
-    };
-    assert!(
-        (read - echo_bin * bin).abs() < 0.5 * bin,
-        "read {read} m, truth {} m",
-        echo_bin * bin
-    );
+    let Cell::Num(read) = last.fields[1].1 else { panic!("readout range missing") };
+    assert!((read - echo_bin * bin).abs() < 0.5 * bin, "read {read} m, truth {} m", echo_bin * bin);
 }
 
 #[test]
@@ -220,19 +167,9 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
     // bin (c / 2 fs, field notes section 5), so half a bin is the tolerance.
     let bin = range_bin_m(RATE);
     let spec = lobeflow::picture::circular_sweep::SPEC;
-    let p = params(
-        &spec,
-        &[
-            ("range_start", "2 km"),
-            ("range_end", "72 km"),
-            ("revolutions", "7"),
-        ],
-    );
+    let p = params(&spec, &[("range_start", "2 km"), ("range_end", "72 km"), ("revolutions", "7")]);
     let mut rng = Rng::new(5);
-    for (i, &truth_m) in [4_321.0, 12_345.0, 29_999.0, 33_000.7, 51_800.0, 70_002.5]
-        .iter()
-        .enumerate()
-    {
+    for (i, &truth_m) in [4_321.0, 12_345.0, 29_999.0, 33_000.7, 51_800.0, 70_002.5].iter().enumerate() {
         let echo_bin = truth_m / bin;
         let first = sweep(&mut rng, 0, echo_bin, 2.5, None);
         let window = BinWindow::from_params(&p, "range_start", "range_end", &first).unwrap();
@@ -244,15 +181,8 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
         let sign = if i % 2 == 0 { 1.0 } else { -1.0 };
         let scene = Scene::compute(&avg, 7.0, sign, 1.0, 1000.0).unwrap();
         let err = scene.readout.range_m - truth_m;
-        assert!(
-            err.abs() < 0.5 * bin,
-            "truth {truth_m} m: read {} m",
-            scene.readout.range_m
-        );
-        assert_eq!(
-            scene.readout.turn,
-            ((truth_m - 2_000.0) / 10_000.0).floor() as i64
-        );
+        assert!(err.abs() < 0.5 * bin, "truth {truth_m} m: read {} m", scene.readout.range_m);
+        assert_eq!(scene.readout.turn, ((truth_m - 2_000.0) / 10_000.0).floor() as i64);
     }
 }
 
@@ -291,19 +221,12 @@ fn labelled_sweeps(n: u64, echo_bin: f64, noise: bool) -> Vec<Sweep> {
         .map(|k| {
             let dwell = k / PULSES_PER_DWELL;
             let lobe = (dwell % 4) as usize;
-            let tag = lobe_tag(
-                lobe,
-                LOBES[lobe],
-                dwell,
-                dwell * PULSES_PER_DWELL * SWEEP_LEN as u64,
-            );
+            let tag = lobe_tag(lobe, LOBES[lobe], dwell, dwell * PULSES_PER_DWELL * SWEEP_LEN as u64);
             let mut s = sweep(&mut rng, k, echo_bin, 20.0 * lobe_gain(lobe), Some(tag));
             if !noise {
                 let clean: Vec<Complex32> = (0..SWEEP_LEN)
                     .map(|i| {
-                        let env = 20.0
-                            * lobe_gain(lobe)
-                            * (-0.5 * ((i as f64 - echo_bin) / 1.5).powi(2)).exp();
+                        let env = 20.0 * lobe_gain(lobe) * (-0.5 * ((i as f64 - echo_bin) / 1.5).powi(2)).exp();
                         Complex32::new(env as f32, 0.0)
                     })
                     .collect();
@@ -326,28 +249,14 @@ fn svg_texts(path: &Path) -> Vec<String> {
 #[test]
 fn range_trace_draws_each_lobe_and_the_gate() {
     let spec = lobeflow::picture::range_trace::SPEC;
-    let items = || {
-        labelled_sweeps(160, 900.3, true)
-            .into_iter()
-            .map(|s| (0, Item::Sweep(s)))
-            .collect()
-    };
-    let set = [
-        ("gate_start", "33.5 km"),
-        ("gate_width", "600 m"),
-        ("range_end", "60 km"),
-    ];
+    let items = || labelled_sweeps(160, 900.3, true).into_iter().map(|s| (0, Item::Sweep(s))).collect();
+    let set = [("gate_start", "33.5 km"), ("gate_width", "600 m"), ("range_end", "60 km")];
     let (_, written) = assert_repeatable(&spec, &set, items, "trace");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 640));
     let texts = svg_texts(&base.with_extension("svg"));
     for lobe in LOBES {
-        assert!(
-            texts
-                .iter()
-                .any(|t| t.starts_with(&format!("{lobe} (40 sweeps)"))),
-            "legend lacks {lobe}: {texts:?}"
-        );
+        assert!(texts.iter().any(|t| t.starts_with(&format!("{lobe} (40 sweeps)"))), "legend lacks {lobe}: {texts:?}");
     }
     assert!(texts.iter().any(|t| t.starts_with("gate 33.")), "{texts:?}");
 }
@@ -359,34 +268,15 @@ fn split_pair_prints_the_balance_of_each_pair() {
     let bin = range_bin_m(RATE);
     let gate_start = format!("{} m", (echo_bin - 3.0) * bin);
     let gate_width = format!("{} m", 6.0 * bin);
-    let items = || {
-        labelled_sweeps(64, echo_bin, false)
-            .into_iter()
-            .map(|s| (0, Item::Sweep(s)))
-            .collect()
-    };
-    let set = [
-        ("gate_start", gate_start.as_str()),
-        ("gate_width", gate_width.as_str()),
-        ("separation", "0.3"),
-    ];
+    let items = || labelled_sweeps(64, echo_bin, false).into_iter().map(|s| (0, Item::Sweep(s))).collect();
+    let set = [("gate_start", gate_start.as_str()), ("gate_width", gate_width.as_str()), ("separation", "0.3")];
     let (_, written) = assert_repeatable(&spec, &set, items, "split");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 640));
     // Field notes check value: A/B = 1.447269, 3.2110 dB, for 0.5 deg off axis.
     let texts = svg_texts(&base.with_extension("svg"));
-    assert!(
-        texts
-            .iter()
-            .any(|t| t.starts_with("az: right") && t.ends_with("= +3.21 dB")),
-        "{texts:?}"
-    );
-    assert!(
-        texts
-            .iter()
-            .any(|t| t.starts_with("el: up") && t.ends_with("= +3.21 dB")),
-        "{texts:?}"
-    );
+    assert!(texts.iter().any(|t| t.starts_with("az: right") && t.ends_with("= +3.21 dB")), "{texts:?}");
+    assert!(texts.iter().any(|t| t.starts_with("el: up") && t.ends_with("= +3.21 dB")), "{texts:?}");
 }
 
 #[test]
@@ -433,10 +323,8 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
                 23 => Flag::Outlier,
                 _ => Flag::Ok,
             };
-            let err = truth
-                + 0.3 * (t * 0.5).sin()
-                + 0.05 * rng.gaussian()
-                + if flag == Flag::Outlier { 1.5 } else { 0.0 };
+            let err =
+                truth + 0.3 * (t * 0.5).sin() + 0.05 * rng.gaussian() + if flag == Flag::Outlier { 1.5 } else { 0.0 };
             out.push((
                 0,
                 Item::Estimate(AngleEstimate {
@@ -465,12 +353,7 @@ fn angle_plot_has_one_panel_per_axis_and_marks_flags() {
     check_pictures(&written, &base, (1200, 68 + 2 * 280));
     let texts = svg_texts(&base.with_extension("svg"));
     // 20000 per axis: k % 97 == 5 and 11 happen 207 times, == 23 206 times.
-    assert!(
-        texts
-            .iter()
-            .any(|t| t == "axis az: 19380 ok, 207 out of range, 207 no signal, 206 outliers"),
-        "{texts:?}"
-    );
+    assert!(texts.iter().any(|t| t == "axis az: 19380 ok, 207 out of range, 207 no signal, 206 outliers"), "{texts:?}");
     assert!(texts.iter().any(|t| t.starts_with("axis el:")));
     assert!(texts.iter().any(|t| t == "out of range: 207, top"));
 }
@@ -493,14 +376,7 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
                 sync: None,
                 trigger: None,
             };
-            items.push((
-                1,
-                Item::Segment(LobeSegment {
-                    tag: tag.clone(),
-                    chunk,
-                    dwell_end: half == 1,
-                }),
-            ));
+            items.push((1, Item::Segment(LobeSegment { tag: tag.clone(), chunk, dwell_end: half == 1 })));
         }
         for p in 0..4u64 {
             let mut rng = Rng::new(d * 4 + p);
@@ -510,14 +386,7 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
         }
         if d % 37 == 10 {
             let what = format!("dwell {d} shorter than expected at sample {start}");
-            items.push((
-                2,
-                Item::Notice(Notice {
-                    stamp: Stamp::new(start, RATE),
-                    block: Arc::from("gate"),
-                    what,
-                }),
-            ));
+            items.push((2, Item::Notice(Notice { stamp: Stamp::new(start, RATE), block: Arc::from("gate"), what })));
         }
     }
     items.sort_by_key(|(_, i)| i.stamp().index);
@@ -527,111 +396,54 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
 #[test]
 fn lobe_timeline_draws_rows_guards_and_notices_and_truncates() {
     let spec = lobeflow::picture::lobe_timeline::SPEC;
-    let (_, written) = assert_repeatable(
-        &spec,
-        &[("max_dwells", "40")],
-        || timeline_items(120),
-        "timeline",
-    );
+    let (_, written) = assert_repeatable(&spec, &[("max_dwells", "40")], || timeline_items(120), "timeline");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 68 + 100 + 52 * 4 + 110));
     let texts = svg_texts(&base.with_extension("svg"));
     assert!(
-        texts
-            .iter()
-            .any(|t| t.starts_with("first 0.08") && t.contains("40 dwell bars from segments")),
+        texts.iter().any(|t| t.starts_with("first 0.08") && t.contains("40 dwell bars from segments")),
         "{texts:?}"
     );
-    assert!(
-        texts.iter().any(|t| t.contains("dwell 10 shorter")),
-        "{texts:?}"
-    );
+    assert!(texts.iter().any(|t| t.contains("dwell 10 shorter")), "{texts:?}");
     for lobe in LOBES {
         assert!(texts.iter().any(|t| t == lobe), "no row label {lobe}");
     }
     // A span limit instead of a dwell count: 10 ms holds 5 dwells of 2 ms.
     let dir = scratch("timeline-span");
     let base = dir.join("span");
-    let (_, written) = run(
-        &spec,
-        &[("span", "10 ms"), ("path", &base.to_string_lossy())],
-        timeline_items(20),
-    );
+    let (_, written) = run(&spec, &[("span", "10 ms"), ("path", &base.to_string_lossy())], timeline_items(20));
     assert_eq!(written.len(), 2);
     let texts = svg_texts(&base.with_extension("svg"));
-    assert!(
-        texts
-            .iter()
-            .any(|t| t.contains("5 dwell bars from segments")),
-        "{texts:?}"
-    );
+    assert!(texts.iter().any(|t| t.contains("5 dwell bars from segments")), "{texts:?}");
 }
 
 #[test]
 fn bad_windows_and_rates_are_errors_not_panics() {
     let spec = lobeflow::picture::circular_sweep::SPEC;
     let files = FileStager::default();
-    let ctx = BuildContext {
-        name: "c".into(),
-        out_dir: std::env::temp_dir(),
-        files,
-    };
+    let ctx = BuildContext { name: "c".into(), out_dir: std::env::temp_dir(), files };
     let dir = scratch("bad");
     let path = dir.join("bad").to_string_lossy().into_owned();
-    let mut block = (spec.build)(
-        &params(&spec, &[("range_start", "100 km"), ("path", &path)]),
-        &ctx,
-    )
-    .unwrap();
+    let mut block = (spec.build)(&params(&spec, &[("range_start", "100 km"), ("path", &path)]), &ctx).unwrap();
     let mut out = Outputs::new(1);
     let mut rng = Rng::new(1);
-    let err = block
-        .process(
-            0,
-            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
-            &mut out,
-        )
-        .unwrap_err();
-    assert!(
-        err.message.contains("range_start") && err.at_sample == Some(0),
-        "{err}"
-    );
+    let err = block.process(0, Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)), &mut out).unwrap_err();
+    assert!(err.message.contains("range_start") && err.at_sample == Some(0), "{err}");
 
     let mut block = (spec.build)(&params(&spec, &[("path", &path)]), &ctx).unwrap();
-    block
-        .process(
-            0,
-            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
-            &mut out,
-        )
-        .unwrap();
+    block.process(0, Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)), &mut out).unwrap();
     let mut odd = sweep(&mut rng, 1, 10.0, 1.0, None);
     odd.stamp.rate = 2e6;
     let err = block.process(0, Item::Sweep(odd), &mut out).unwrap_err();
     assert!(err.message.contains("sample rate changed"), "{err}");
 
-    let mut block = (spec.build)(
-        &params(&spec, &[("mark_every", "0 bins"), ("path", &path)]),
-        &ctx,
-    )
-    .unwrap();
-    block
-        .process(
-            0,
-            Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)),
-            &mut out,
-        )
-        .unwrap();
+    let mut block = (spec.build)(&params(&spec, &[("mark_every", "0 bins"), ("path", &path)]), &ctx).unwrap();
+    block.process(0, Item::Sweep(sweep(&mut rng, 0, 10.0, 1.0, None)), &mut out).unwrap();
     let err = block.finish(&mut out).err().unwrap();
     assert!(err.message.contains("mark_every"), "{err}");
 
     let split = lobeflow::picture::split_pair::SPEC;
-    let err = (split.build)(
-        &params(&split, &[("pairs", "az=right"), ("path", &path)]),
-        &ctx,
-    )
-    .err()
-    .unwrap();
+    let err = (split.build)(&params(&split, &[("pairs", "az=right"), ("path", &path)]), &ctx).err().unwrap();
     assert!(err.contains("pairs"), "{err}");
     // Non-finite estimates are counted as no signal, not drawn or panicked on.
     let angle = lobeflow::picture::angle_plot::SPEC;

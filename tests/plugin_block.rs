@@ -4,8 +4,8 @@
 
 use lobeflow::Session;
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, OutputFile, Outputs, ParamSpec, ParamType, Params,
-    PortSpec, Unit,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, OutputFile, Outputs, ParamSpec, ParamType,
+    Params, PortSpec, Unit,
 };
 use std::io::Write;
 
@@ -84,7 +84,11 @@ fn a_plugin_block_is_used_by_name_and_validated() {
     let e = Session::with_registry(&g, registry()).err().expect("out of range");
     let msg = e.to_string();
     assert!(msg.contains("g.yaml:3:") && msg.contains("out of range") && msg.contains("-60 to 60"), "{msg}");
-    std::fs::write(&g, "blocks:\n  tone: {kind: test_tone}\n  log: {kind: power_log, set: {ofset: 1 dB}}\nwiring:\n  - tone -> log\n").unwrap();
+    std::fs::write(
+        &g,
+        "blocks:\n  tone: {kind: test_tone}\n  log: {kind: power_log, set: {ofset: 1 dB}}\nwiring:\n  - tone -> log\n",
+    )
+    .unwrap();
     let msg = Session::with_registry(&g, registry()).err().expect("unknown").to_string();
     assert!(msg.contains("did you mean 'offset'"), "{msg}");
     // Without registering it, the kind is unknown.

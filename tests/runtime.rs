@@ -6,8 +6,8 @@ use lobeflow::graph::{Overrides, resolve};
 use lobeflow::runtime::{RunOptions, run};
 use lobeflow::{Error, Session};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, OutputFile, Outputs, ParamSpec, ParamType, Params,
-    PortSpec, Registry,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, OutputFile, Outputs, ParamSpec, ParamType,
+    Params, PortSpec, Registry,
 };
 use std::io::Write;
 use std::path::PathBuf;

@@ -20,7 +20,8 @@ impl OutputFile {
             std::fs::create_dir_all(dir)?;
         }
         let temp = FileStager::temp_path(path);
-        let file = File::create(&temp).map_err(|e| std::io::Error::new(e.kind(), format!("cannot create {}: {e}", temp.display())))?;
+        let file = File::create(&temp)
+            .map_err(|e| std::io::Error::new(e.kind(), format!("cannot create {}: {e}", temp.display())))?;
         Ok(OutputFile { writer: Some(BufWriter::with_capacity(1 << 16, file)), temp, path: path.to_path_buf() })
     }
 

@@ -98,14 +98,28 @@ impl Unit {
 #[derive(Clone, Copy, Debug)]
 pub enum ParamType {
     /// A real number in `unit`, within `min..=max` (canonical unit).
-    Number { unit: Unit, min: f64, max: f64 },
+    Number {
+        unit: Unit,
+        min: f64,
+        max: f64,
+    },
     /// A duration in seconds, or a count of `samples` (and of `pulses` when
     /// `pulses` is true).
-    Time { min_s: f64, max_s: f64, pulses: bool },
+    Time {
+        min_s: f64,
+        max_s: f64,
+        pulses: bool,
+    },
     /// A distance in metres, or a count of range `bins`.
-    Distance { min_m: f64, max_m: f64 },
+    Distance {
+        min_m: f64,
+        max_m: f64,
+    },
     /// A whole number within `min..=max`.
-    Integer { min: i64, max: i64 },
+    Integer {
+        min: i64,
+        max: i64,
+    },
     Bool,
     /// Free text.
     Text,
@@ -125,13 +139,15 @@ impl ParamType {
         match self {
             ParamType::Number { unit, min, max } => {
                 let u = unit.symbol();
-                format!("number{}{}", if u.is_empty() { String::new() } else { format!(" [{u}]") }, range_text(*min, *max))
+                format!(
+                    "number{}{}",
+                    if u.is_empty() { String::new() } else { format!(" [{u}]") },
+                    range_text(*min, *max)
+                )
             }
-            ParamType::Time { min_s, max_s, pulses } => format!(
-                "time [s, or samples{}]{}",
-                if *pulses { "/pulses" } else { "" },
-                range_text(*min_s, *max_s)
-            ),
+            ParamType::Time { min_s, max_s, pulses } => {
+                format!("time [s, or samples{}]{}", if *pulses { "/pulses" } else { "" }, range_text(*min_s, *max_s))
+            }
             ParamType::Distance { min_m, max_m } => format!("distance [m, or bins]{}", range_text(*min_m, *max_m)),
             ParamType::Integer { min, max } => format!("integer{}", range_text(*min as f64, *max as f64)),
             ParamType::Bool => "true/false".into(),
@@ -262,7 +278,13 @@ fn split_number(text: &str) -> Option<(f64, &str)> {
     let end = t
         .char_indices()
         .find(|&(i, c)| {
-            !(c.is_ascii_digit() || c == '.' || c == '+' || c == '-' || ((c == 'e' || c == 'E') && i > 0 && t[i + 1..].starts_with(|d: char| d.is_ascii_digit() || d == '-' || d == '+')))
+            !(c.is_ascii_digit()
+                || c == '.'
+                || c == '+'
+                || c == '-'
+                || ((c == 'e' || c == 'E')
+                    && i > 0
+                    && t[i + 1..].starts_with(|d: char| d.is_ascii_digit() || d == '-' || d == '+')))
         })
         .map(|(i, _)| i)
         .unwrap_or(t.len());
@@ -275,7 +297,9 @@ impl ParamSpec {
     /// expected (type, unit, range); the caller adds where.
     pub fn parse(&self, raw: &RawValue) -> Result<Value, String> {
         let v = match (&self.ty, raw) {
-            (ParamType::Number { unit, .. }, RawValue::Number(n)) => Value::Number(*n * if *unit == Unit::None { 1.0 } else { 1.0 }),
+            (ParamType::Number { unit, .. }, RawValue::Number(n)) => {
+                Value::Number(*n * if *unit == Unit::None { 1.0 } else { 1.0 })
+            }
             (ParamType::Number { unit, .. }, RawValue::Text(t)) => {
                 let (n, suffix) = split_number(t).ok_or_else(|| format!("expected a number, got '{t}'"))?;
                 if suffix.is_empty() {
@@ -333,11 +357,15 @@ impl ParamSpec {
                 if options.contains(&t.as_str()) {
                     Value::Text(t)
                 } else {
-                    let hint = closest(&t, options.iter().copied()).map(|c| format!("; did you mean '{c}'?")).unwrap_or_default();
+                    let hint = closest(&t, options.iter().copied())
+                        .map(|c| format!("; did you mean '{c}'?"))
+                        .unwrap_or_default();
                     return Err(format!("'{t}' is not one of {}{hint}", options.join(", ")));
                 }
             }
-            (ParamType::Names, RawValue::List(items)) => Value::Names(items.iter().map(|i| i.to_string().trim().to_string()).collect()),
+            (ParamType::Names, RawValue::List(items)) => {
+                Value::Names(items.iter().map(|i| i.to_string().trim().to_string()).collect())
+            }
             (ParamType::Names, v) => {
                 Value::Names(v.to_string().split(',').map(|s| s.trim().to_string()).filter(|s| !s.is_empty()).collect())
             }

@@ -8,26 +8,15 @@
 
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::lobe_gate;
-use lobeflow_blocks::{
-    BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp,
-};
+use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp};
 use num_complex::Complex32;
 
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     let mut p = Params::new();
     for ps in spec.params {
-        let text = set
-            .iter()
-            .rev()
-            .find(|(n, _)| *n == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default);
+        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
         if let Some(t) = text {
-            p.insert(
-                ps.name,
-                ps.parse(&RawValue::from_text(t))
-                    .expect("test parameter parses"),
-            );
+            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
         }
     }
     p
@@ -52,9 +41,7 @@ impl Staircase {
         seed: u64,
     ) -> Staircase {
         let mut rng = Rng::new(seed);
-        let levels = (0..n_lobes)
-            .map(|i| -0.8 + 1.6 * i as f64 / (n_lobes - 1) as f64)
-            .collect();
+        let levels = (0..n_lobes).map(|i| -0.8 + 1.6 * i as f64 / (n_lobes - 1) as f64).collect();
         let mut switches = Vec::new();
         let (mut at, mut lobe) = (first_switch, first_lobe);
         while at < total {
@@ -62,19 +49,11 @@ impl Staircase {
             switches.push((at, lobe));
             at = (at as f64 + dwell as f64 + jitter * (2.0 * rng.uniform() - 1.0)).round() as u64;
         }
-        Staircase {
-            levels,
-            first_lobe,
-            switches,
-        }
+        Staircase { levels, first_lobe, switches }
     }
 
     fn lobe_at(&self, n: u64) -> usize {
-        self.switches
-            .iter()
-            .take_while(|s| s.0 <= n)
-            .last()
-            .map_or(self.first_lobe, |s| s.1)
+        self.switches.iter().take_while(|s| s.0 <= n).last().map_or(self.first_lobe, |s| s.1)
     }
 
     fn values(&self, total: u64, seed: u64) -> Vec<f32> {
@@ -100,12 +79,7 @@ impl Staircase {
 
 fn stream(total: u64, rate: f64, sync: Option<&[f32]>) -> SampleChunk {
     let iq: Vec<Complex32> = (0..total).map(|n| Complex32::new(n as f32, 0.0)).collect();
-    SampleChunk {
-        stamp: Stamp::new(0, rate),
-        iq: iq.into(),
-        sync: sync.map(|s| s.to_vec().into()),
-        trigger: None,
-    }
+    SampleChunk { stamp: Stamp::new(0, rate), iq: iq.into(), sync: sync.map(|s| s.to_vec().into()), trigger: None }
 }
 
 /// Every sample that came out: (index, lobe, dwell, dwell_start, last sample of a dwell_end segment).
@@ -117,23 +91,12 @@ struct Run {
     report: Vec<Notice>,
 }
 
-fn run(
-    set: &[(&str, &str)],
-    whole: &SampleChunk,
-    chunk_sizes: &[usize],
-) -> Result<Run, lobeflow_blocks::BlockError> {
+fn run(set: &[(&str, &str)], whole: &SampleChunk, chunk_sizes: &[usize]) -> Result<Run, lobeflow_blocks::BlockError> {
     let spec = lobe_gate::SPEC;
-    let ctx = BuildContext {
-        name: "gate".into(),
-        ..Default::default()
-    };
+    let ctx = BuildContext { name: "gate".into(), ..Default::default() };
     let mut block = (spec.build)(&params(&spec, set), &ctx).expect("builds");
     let mut out = Outputs::new(2);
-    let mut r = Run {
-        labelled: Vec::new(),
-        port_notices: Vec::new(),
-        report: Vec::new(),
-    };
+    let mut r = Run { labelled: Vec::new(), port_notices: Vec::new(), report: Vec::new() };
     let collect = |out: &mut Outputs, r: &mut Run| {
         for (port, item) in out.drain() {
             match (port, item) {
@@ -141,19 +104,9 @@ fn run(
                     let n = seg.chunk.len();
                     assert!(n > 0, "empty segment");
                     for (k, x) in seg.chunk.iq.iter().enumerate() {
-                        assert_eq!(
-                            x.re as u64,
-                            seg.chunk.stamp.index + k as u64,
-                            "stamp and samples agree"
-                        );
+                        assert_eq!(x.re as u64, seg.chunk.stamp.index + k as u64, "stamp and samples agree");
                         let last = seg.dwell_end && k + 1 == n;
-                        r.labelled.push((
-                            x.re as u64,
-                            seg.tag.lobe,
-                            seg.tag.dwell,
-                            seg.tag.dwell_start,
-                            last,
-                        ));
+                        r.labelled.push((x.re as u64, seg.tag.lobe, seg.tag.dwell, seg.tag.dwell_start, last));
                     }
                 }
                 (1, Item::Notice(n)) => r.port_notices.push(n),
@@ -204,10 +157,7 @@ fn expected(total: u64, first_lobe: usize, switches: &[(u64, usize)], guard: u64
 /// Compare labellings, printing only the first difference.
 fn assert_same(got: &Labelled, want: &Labelled) {
     if let Some(i) = (0..got.len().min(want.len())).find(|&i| got[i] != want[i]) {
-        panic!(
-            "first difference at output {i}: got {:?}, want {:?}",
-            got[i], want[i]
-        );
+        panic!("first difference at output {i}: got {:?}, want {:?}", got[i], want[i]);
     }
     assert_eq!(got.len(), want.len(), "same samples, different count");
 }
@@ -221,10 +171,7 @@ const SYNC_SET: [(&str, &str); 5] = [
 ];
 
 fn irregular(r: &Run) -> Vec<&Notice> {
-    r.report
-        .iter()
-        .filter(|n| !n.what.starts_with("learned sync levels"))
-        .collect()
+    r.report.iter().filter(|n| !n.what.starts_with("learned sync levels")).collect()
 }
 
 #[test]
@@ -237,16 +184,9 @@ fn four_lobe_staircase_starting_mid_dwell_with_jittered_edges() {
     let want = expected(total, 2, &st.switches, 20);
     assert_same(&r.labelled, &want);
     assert!(irregular(&r).is_empty(), "{:?}", r.report);
-    let switches: Vec<u64> = r
-        .port_notices
-        .iter()
-        .filter(|n| n.what.starts_with("switch to"))
-        .map(|n| n.stamp.index)
-        .collect();
-    assert_eq!(
-        switches,
-        st.switches.iter().map(|s| s.0).collect::<Vec<_>>()
-    );
+    let switches: Vec<u64> =
+        r.port_notices.iter().filter(|n| n.what.starts_with("switch to")).map(|n| n.stamp.index).collect();
+    assert_eq!(switches, st.switches.iter().map(|s| s.0).collect::<Vec<_>>());
 }
 
 #[test]
@@ -289,21 +229,11 @@ fn missing_transition_is_reported_with_its_offset() {
     let r = run(&set, &whole, &[3000]).unwrap();
     assert_same(&r.labelled, &expected(total, 0, &st.switches, 20));
     let notes = irregular(&r);
-    let order: Vec<_> = notes
-        .iter()
-        .filter(|n| n.what.contains("lobe order broken"))
-        .collect();
+    let order: Vec<_> = notes.iter().filter(|n| n.what.contains("lobe order broken")).collect();
     assert_eq!(order.len(), 1, "{notes:?}");
     assert_eq!(order[0].stamp.index, 5000);
-    assert!(
-        order[0].what.contains("sample 5000") && order[0].what.contains("skipped down"),
-        "{}",
-        order[0].what
-    );
-    let long: Vec<_> = notes
-        .iter()
-        .filter(|n| n.what.starts_with("long dwell"))
-        .collect();
+    assert!(order[0].what.contains("sample 5000") && order[0].what.contains("skipped down"), "{}", order[0].what);
+    let long: Vec<_> = notes.iter().filter(|n| n.what.starts_with("long dwell")).collect();
     assert_eq!(long.len(), 1, "{notes:?}");
     assert_eq!(long[0].stamp.index, 1000);
     assert!(long[0].what.contains("4000 samples"), "{}", long[0].what);
@@ -329,16 +259,10 @@ fn stuck_and_stray_sync_are_reported() {
     let whole = stream(total, 1e6, Some(&sync));
     let r = run(&SYNC_SET, &whole, &[4096]).unwrap();
     let notes = irregular(&r);
-    let stuck: Vec<_> = notes
-        .iter()
-        .filter(|n| n.what.starts_with("sync stuck"))
-        .collect();
+    let stuck: Vec<_> = notes.iter().filter(|n| n.what.starts_with("sync stuck")).collect();
     assert_eq!(stuck.len(), 1, "{notes:?}");
     assert_eq!(stuck[0].stamp.index, 19_000);
-    let stray: Vec<_> = notes
-        .iter()
-        .filter(|n| n.what.contains("matches no lobe"))
-        .collect();
+    let stray: Vec<_> = notes.iter().filter(|n| n.what.contains("matches no lobe")).collect();
     assert_eq!(stray.len(), 1, "{notes:?}");
     assert_eq!(stray[0].stamp.index, 45_500);
 }
@@ -346,29 +270,15 @@ fn stuck_and_stray_sync_are_reported() {
 #[test]
 fn flat_or_too_few_levels_is_a_clear_error() {
     let mut rng = Rng::new(61);
-    let flat: Vec<f32> = (0..20_000)
-        .map(|_| (0.2 + 0.01 * rng.gaussian()) as f32)
-        .collect();
-    let e = run(&SYNC_SET, &stream(20_000, 1e6, Some(&flat)), &[4096])
-        .err()
-        .expect("flat sync fails");
+    let flat: Vec<f32> = (0..20_000).map(|_| (0.2 + 0.01 * rng.gaussian()) as f32).collect();
+    let e = run(&SYNC_SET, &stream(20_000, 1e6, Some(&flat)), &[4096]).err().expect("flat sync fails");
     assert!(e.message.contains("sync channel is flat"), "{e}");
     let st = Staircase::regular(2, 0, 500, 1000, 0.0, 20_000, 62);
     let two = st.values(20_000, 63);
-    let e = run(&SYNC_SET, &stream(20_000, 1e6, Some(&two)), &[4096])
-        .err()
-        .expect("two levels for four lobes fails");
-    assert!(
-        e.message.contains("found 2 sync levels") && e.message.contains("expected 4"),
-        "{e}"
-    );
-    let e = run(&SYNC_SET, &stream(20_000, 1e6, None), &[4096])
-        .err()
-        .expect("no sync channel fails");
-    assert!(
-        e.message.contains("no sync channel") && e.at_sample == Some(0),
-        "{e}"
-    );
+    let e = run(&SYNC_SET, &stream(20_000, 1e6, Some(&two)), &[4096]).err().expect("two levels for four lobes fails");
+    assert!(e.message.contains("found 2 sync levels") && e.message.contains("expected 4"), "{e}");
+    let e = run(&SYNC_SET, &stream(20_000, 1e6, None), &[4096]).err().expect("no sync channel fails");
+    assert!(e.message.contains("no sync channel") && e.at_sample == Some(0), "{e}");
 }
 
 #[test]
@@ -390,19 +300,11 @@ fn scheduled_dwell(n: u64, rate: f64, t0: f64, dwell: f64) -> i64 {
 #[test]
 fn schedule_with_offset_start_and_negative_times() {
     let (rate, t0, dwell, total) = (10_000.0, 0.01234, 0.00505, 3000u64);
-    let set = [
-        ("timing", "schedule"),
-        ("first_start", "12.34 ms"),
-        ("dwell", "5.05 ms"),
-        ("guard", "3 samples"),
-    ];
+    let set = [("timing", "schedule"), ("first_start", "12.34 ms"), ("dwell", "5.05 ms"), ("guard", "3 samples")];
     let whole = stream(total, rate, None);
     let r = run(&set, &whole, &[256, 1, 77]).unwrap();
     let first = scheduled_dwell(0, rate, t0, dwell);
-    assert_eq!(
-        first, -3,
-        "sample 0 lies three dwells before the first lobe start"
-    );
+    assert_eq!(first, -3, "sample 0 lies three dwells before the first lobe start");
     let mut switches = Vec::new();
     for n in 1..total {
         let m = scheduled_dwell(n, rate, t0, dwell);
@@ -410,11 +312,7 @@ fn schedule_with_offset_start_and_negative_times() {
             switches.push((n, m.rem_euclid(4) as usize));
         }
     }
-    assert_eq!(
-        switches.iter().find(|s| s.1 == 0),
-        Some(&(124, 0)),
-        "lobe 0 starts at the first sample after 12.34 ms"
-    );
+    assert_eq!(switches.iter().find(|s| s.1 == 0), Some(&(124, 0)), "lobe 0 starts at the first sample after 12.34 ms");
     // Sample 0's dwell began at -28.1 samples: its guard has passed, dwell_start clamps to 0.
     let want = expected(total, first.rem_euclid(4) as usize, &switches, 3);
     assert_same(&r.labelled, &want);
@@ -423,23 +321,12 @@ fn schedule_with_offset_start_and_negative_times() {
 #[test]
 fn schedule_guard_reaching_past_the_capture_start() {
     // The dwell holding sample 0 began 2 samples before it; a 5-sample guard cuts samples 0..3.
-    let set = [
-        ("timing", "schedule"),
-        ("first_start", "-2 ms"),
-        ("dwell", "10 ms"),
-        ("guard", "5 ms"),
-        ("lobes", "r,l"),
-    ];
+    let set =
+        [("timing", "schedule"), ("first_start", "-2 ms"), ("dwell", "10 ms"), ("guard", "5 ms"), ("lobes", "r,l")];
     let r = run(&set, &stream(40, 1000.0, None), &[8]).unwrap();
     assert_eq!(r.labelled.first().map(|l| (l.0, l.1, l.3)), Some((3, 0, 0)));
-    assert_eq!(
-        r.labelled.iter().filter(|l| l.1 == 1).map(|l| l.0).next(),
-        Some(13)
-    );
-    let e = (lobe_gate::SPEC.build)(
-        &params(&lobe_gate::SPEC, &[("timing", "schedule")]),
-        &BuildContext::default(),
-    )
-    .err();
+    assert_eq!(r.labelled.iter().filter(|l| l.1 == 1).map(|l| l.0).next(), Some(13));
+    let e =
+        (lobe_gate::SPEC.build)(&params(&lobe_gate::SPEC, &[("timing", "schedule")]), &BuildContext::default()).err();
     assert!(e.is_some_and(|e| e.contains("needs a 'dwell'")));
 }

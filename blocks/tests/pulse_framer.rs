@@ -4,9 +4,7 @@
 
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::pulse_framer;
-use lobeflow_blocks::{
-    BlockError, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep,
-};
+use lobeflow_blocks::{BlockError, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep};
 use num_complex::Complex32;
 
 const RATE: f64 = 1e6;
@@ -16,18 +14,9 @@ const PULSE_LEN: usize = 4;
 fn params(set: &[(&str, &str)]) -> Params {
     let mut p = Params::new();
     for ps in pulse_framer::SPEC.params {
-        let text = set
-            .iter()
-            .rev()
-            .find(|(n, _)| *n == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default);
+        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
         if let Some(t) = text {
-            p.insert(
-                ps.name,
-                ps.parse(&RawValue::from_text(t))
-                    .expect("test parameter parses"),
-            );
+            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
         }
     }
     p
@@ -64,21 +53,11 @@ fn capture(transmitted: &[u64], total: u64, seed: u64) -> SampleChunk {
         }
     }
     let sync: Vec<f32> = (0..total).map(|n| n as f32).collect();
-    SampleChunk {
-        stamp: Stamp::new(0, RATE),
-        iq: iq.into(),
-        sync: Some(sync.into()),
-        trigger: Some(trigger.into()),
-    }
+    SampleChunk { stamp: Stamp::new(0, RATE), iq: iq.into(), sync: Some(sync.into()), trigger: Some(trigger.into()) }
 }
 
-fn run(
-    set: &[(&str, &str)],
-    whole: &SampleChunk,
-    sizes: &[usize],
-) -> Result<(Vec<Sweep>, Vec<Notice>), BlockError> {
-    let mut block =
-        (pulse_framer::SPEC.build)(&params(set), &BuildContext::default()).expect("builds");
+fn run(set: &[(&str, &str)], whole: &SampleChunk, sizes: &[usize]) -> Result<(Vec<Sweep>, Vec<Notice>), BlockError> {
+    let mut block = (pulse_framer::SPEC.build)(&params(set), &BuildContext::default()).expect("builds");
     let mut out = Outputs::new(1);
     let (mut sweeps, mut notices) = (Vec::new(), Vec::new());
     let mut collect = |out: &mut Outputs| {
@@ -107,26 +86,13 @@ fn run(
 fn check_tiling(sweeps: &[Sweep], whole: &SampleChunk, blank: usize) {
     for (i, s) in sweeps.iter().enumerate() {
         let a = s.stamp.index as usize;
-        let end = sweeps
-            .get(i + 1)
-            .map_or(whole.len(), |n| n.stamp.index as usize);
+        let end = sweeps.get(i + 1).map_or(whole.len(), |n| n.stamp.index as usize);
         assert_eq!(s.iq.len(), end - a, "sweep {i} runs to the next instant");
         assert_eq!(s.blanked, blank.min(s.iq.len()));
-        assert!(
-            s.iq[..s.blanked].iter().all(|x| x.norm_sqr() == 0.0),
-            "sweep {i} blanked"
-        );
-        assert_eq!(
-            &s.iq[s.blanked..],
-            &whole.iq[a + s.blanked..end],
-            "sweep {i} samples"
-        );
+        assert!(s.iq[..s.blanked].iter().all(|x| x.norm_sqr() == 0.0), "sweep {i} blanked");
+        assert_eq!(&s.iq[s.blanked..], &whole.iq[a + s.blanked..end], "sweep {i} samples");
         let sync = s.sync.as_ref().expect("sync span carried");
-        assert_eq!(
-            &sync[..],
-            &whole.sync.as_ref().unwrap()[a..end],
-            "sweep {i} sync span"
-        );
+        assert_eq!(&sync[..], &whole.sync.as_ref().unwrap()[a..end], "sweep {i} sync span");
         assert_eq!(s.pulse, i as u64);
     }
 }
@@ -141,27 +107,14 @@ fn leakage_with_jitter_and_a_missing_pulse() {
     let (sweeps, notices) = run(&[("prf", "2 kHz"), ("blank", "4 us")], &whole, &[4096]).unwrap();
     let stamps: Vec<u64> = sweeps.iter().map(|s| s.stamp.index).collect();
     let predicted = truth[19] + PRI;
-    let want: Vec<u64> = truth
-        .iter()
-        .map(|&t| if t == missing { predicted } else { t })
-        .collect();
+    let want: Vec<u64> = truth.iter().map(|&t| if t == missing { predicted } else { t }).collect();
     assert_eq!(stamps, want);
-    let flagged: Vec<u64> = sweeps
-        .iter()
-        .filter(|s| s.predicted)
-        .map(|s| s.pulse)
-        .collect();
+    let flagged: Vec<u64> = sweeps.iter().filter(|s| s.predicted).map(|s| s.pulse).collect();
     assert_eq!(flagged, vec![20]);
     check_tiling(&sweeps, &whole, 4);
     assert_eq!(notices.len(), 1, "{notices:?}");
     assert_eq!(notices[0].stamp.index, predicted);
-    assert!(
-        notices[0]
-            .what
-            .contains(&format!("1 missing pulse(s) from sample {predicted}")),
-        "{}",
-        notices[0].what
-    );
+    assert!(notices[0].what.contains(&format!("1 missing pulse(s) from sample {predicted}")), "{}", notices[0].what);
 }
 
 #[test]
@@ -169,16 +122,8 @@ fn trigger_channel_with_jitter() {
     let total = 20_000;
     let truth = instants(41, 10.0, total, 3);
     let whole = capture(&truth, total, 4);
-    let (sweeps, notices) = run(
-        &[("prf", "2 kHz"), ("timing", "trigger"), ("blank", "0 s")],
-        &whole,
-        &[1000],
-    )
-    .unwrap();
-    assert_eq!(
-        sweeps.iter().map(|s| s.stamp.index).collect::<Vec<_>>(),
-        truth
-    );
+    let (sweeps, notices) = run(&[("prf", "2 kHz"), ("timing", "trigger"), ("blank", "0 s")], &whole, &[1000]).unwrap();
+    assert_eq!(sweeps.iter().map(|s| s.stamp.index).collect::<Vec<_>>(), truth);
     check_tiling(&sweeps, &whole, 0);
     assert!(notices.is_empty(), "{notices:?}");
     assert!(sweeps.iter().all(|s| !s.predicted));
@@ -189,26 +134,12 @@ fn schedule_from_prf_and_offset() {
     let total = 10_000;
     // Instants at 0.3 ms + k/2 kHz: samples 300, 800, ...; the first before the
     // capture start (-200) is not a sweep.
-    let truth: Vec<u64> = (0..)
-        .map(|k| 300 + k * PRI)
-        .take_while(|&t| t < total)
-        .collect();
+    let truth: Vec<u64> = (0..).map(|k| 300 + k * PRI).take_while(|&t| t < total).collect();
     let whole = capture(&truth, total, 5);
-    let (sweeps, _) = run(
-        &[
-            ("prf", "2 kHz"),
-            ("timing", "schedule"),
-            ("offset", "-0.2 ms"),
-            ("blank", "2 samples"),
-        ],
-        &whole,
-        &[333],
-    )
-    .unwrap();
-    assert_eq!(
-        sweeps.iter().map(|s| s.stamp.index).collect::<Vec<_>>(),
-        truth
-    );
+    let (sweeps, _) =
+        run(&[("prf", "2 kHz"), ("timing", "schedule"), ("offset", "-0.2 ms"), ("blank", "2 samples")], &whole, &[333])
+            .unwrap();
+    assert_eq!(sweeps.iter().map(|s| s.stamp.index).collect::<Vec<_>>(), truth);
     check_tiling(&sweeps, &whole, 2);
 }
 
@@ -221,19 +152,13 @@ fn chunking_does_not_change_sweeps_and_one_chunk_is_zero_copy() {
     let (a, _) = run(&set, &whole, &[total as usize]).unwrap();
     for s in &a {
         let a0 = s.stamp.index as usize;
-        assert!(
-            std::ptr::eq(s.iq.as_ptr(), whole.iq[a0..].as_ptr()),
-            "sweep at {a0} shares the capture buffer"
-        );
+        assert!(std::ptr::eq(s.iq.as_ptr(), whole.iq[a0..].as_ptr()), "sweep at {a0} shares the capture buffer");
     }
     for sizes in [&[1usize, 499, 501][..], &[64], &[4095, 3]] {
         let (b, _) = run(&set, &whole, sizes).unwrap();
         assert_eq!(a.len(), b.len());
         for (x, y) in a.iter().zip(&b) {
-            assert_eq!(
-                (x.stamp, x.pulse, x.predicted, x.blanked),
-                (y.stamp, y.pulse, y.predicted, y.blanked)
-            );
+            assert_eq!((x.stamp, x.pulse, x.predicted, x.blanked), (y.stamp, y.pulse, y.predicted, y.blanked));
             assert_eq!(&x.iq[..], &y.iq[..]);
         }
     }
@@ -244,25 +169,12 @@ fn chunking_does_not_change_sweeps_and_one_chunk_is_zero_copy() {
 fn no_pulses_or_no_trigger_is_a_clear_error() {
     let whole = capture(&[], 40_000, 9);
     let e = run(&[("prf", "2 kHz")], &whole, &[4096]).unwrap_err();
-    assert!(
-        e.message
-            .contains("no transmit instants found in the first"),
-        "{e}"
-    );
+    assert!(e.message.contains("no transmit instants found in the first"), "{e}");
     let short = capture(&[], 3000, 10);
     let e = run(&[("prf", "2 kHz")], &short, &[4096]).unwrap_err();
-    assert!(
-        e.message
-            .contains("no transmit instants found in the first 3000 samples"),
-        "{e}"
-    );
+    assert!(e.message.contains("no transmit instants found in the first 3000 samples"), "{e}");
     let mut no_trigger = capture(&[100, 600], 2000, 11);
     no_trigger.trigger = None;
-    let e = run(
-        &[("prf", "2 kHz"), ("timing", "trigger")],
-        &no_trigger,
-        &[4096],
-    )
-    .unwrap_err();
+    let e = run(&[("prf", "2 kHz"), ("timing", "trigger")], &no_trigger, &[4096]).unwrap_err();
     assert!(e.message.contains("no trigger channel"), "{e}");
 }

@@ -11,9 +11,7 @@ use num_complex::Complex32;
 use std::path::PathBuf;
 
 fn fixture(name: &str) -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/fixtures/spectrum")
-        .join(name)
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/spectrum").join(name)
 }
 
 /// Columns of a fixture CSV (header line skipped).
@@ -32,10 +30,7 @@ fn columns(name: &str) -> Vec<Vec<f64>> {
 }
 
 fn complex(re: &[f64], im: &[f64]) -> Vec<Complex32> {
-    re.iter()
-        .zip(im)
-        .map(|(&r, &i)| Complex32::new(r as f32, i as f32))
-        .collect()
+    re.iter().zip(im).map(|(&r, &i)| Complex32::new(r as f32, i as f32)).collect()
 }
 
 #[test]
@@ -51,11 +46,7 @@ fn windowed_fft_matches_numpy_hanning_and_blackman() {
         let mut buf: Vec<Complex32> = x.iter().zip(&w).map(|(v, w)| v * *w as f32).collect();
         buf.resize(256, Complex32::new(0.0, 0.0));
         fft.forward(&mut buf);
-        let peak = reference[col]
-            .iter()
-            .zip(&reference[col + 1])
-            .map(|(r, i)| r.hypot(*i))
-            .fold(0.0, f64::max);
+        let peak = reference[col].iter().zip(&reference[col + 1]).map(|(r, i)| r.hypot(*i)).fold(0.0, f64::max);
         for (k, y) in buf.iter().enumerate() {
             let err = (y.re as f64 - reference[col][k]).hypot(y.im as f64 - reference[col + 1][k]);
             assert!(err < 1e-5 * peak, "{window:?} bin {k}: {err}");
@@ -108,17 +99,10 @@ fn matched_filter_matches_numpy_correlate_of_a_chirp() {
         }
     }
     assert_eq!(got.len(), expect.len());
-    let worst = got
-        .iter()
-        .zip(&expect)
-        .map(|(a, b)| (a - b).norm())
-        .fold(0.0, f32::max);
+    let worst = got.iter().zip(&expect).map(|(a, b)| (a - b).norm()).fold(0.0, f32::max);
     assert!(worst < 1e-5 * peak, "{worst}");
     // The planted echoes (at samples 300 and 900) peak where they start.
-    let argmax = |r: std::ops::Range<usize>| {
-        r.max_by(|&a, &b| got[a].norm().total_cmp(&got[b].norm()))
-            .unwrap()
-    };
+    let argmax = |r: std::ops::Range<usize>| r.max_by(|&a, &b| got[a].norm().total_cmp(&got[b].norm())).unwrap();
     assert_eq!(argmax(0..600), 300);
     assert_eq!(argmax(600..1200), 900);
 }

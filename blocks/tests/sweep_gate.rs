@@ -4,9 +4,7 @@
 
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::{pulse_framer, sweep_gate};
-use lobeflow_blocks::{
-    BlockError, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep,
-};
+use lobeflow_blocks::{BlockError, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep};
 use num_complex::Complex32;
 
 const RATE: f64 = 1e6;
@@ -21,18 +19,9 @@ const FIRST_LOBE: u64 = 1;
 fn params(spec: &lobeflow_blocks::BlockSpec, set: &[(&str, &str)]) -> Params {
     let mut p = Params::new();
     for ps in spec.params {
-        let text = set
-            .iter()
-            .rev()
-            .find(|(n, _)| *n == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default);
+        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
         if let Some(t) = text {
-            p.insert(
-                ps.name,
-                ps.parse(&RawValue::from_text(t))
-                    .expect("test parameter parses"),
-            );
+            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
         }
     }
     p
@@ -65,19 +54,13 @@ fn capture(total: u64) -> SampleChunk {
                 if frac <= 0.0 {
                     break;
                 }
-                v = levels[lobe_of_dwell(d - 1)]
-                    + (levels[lobe_of_dwell(d)] - levels[lobe_of_dwell(d - 1)]) * frac;
+                v = levels[lobe_of_dwell(d - 1)] + (levels[lobe_of_dwell(d)] - levels[lobe_of_dwell(d - 1)]) * frac;
             }
             (v + 0.01 * rng.gaussian()) as f32
         })
         .collect();
     let iq: Vec<Complex32> = (0..total).map(|n| Complex32::new(n as f32, 0.0)).collect();
-    SampleChunk {
-        stamp: Stamp::new(0, RATE),
-        iq: iq.into(),
-        sync: Some(sync.into()),
-        trigger: None,
-    }
+    SampleChunk { stamp: Stamp::new(0, RATE), iq: iq.into(), sync: Some(sync.into()), trigger: None }
 }
 
 fn sweeps_of(whole: &SampleChunk) -> Vec<Sweep> {
@@ -87,15 +70,7 @@ fn sweeps_of(whole: &SampleChunk) -> Vec<Sweep> {
         .map(|k| {
             let r = tx(k) as usize..tx(k + 1).min(total) as usize;
             let c = whole.slice(r);
-            Sweep {
-                stamp: c.stamp,
-                pulse: k,
-                iq: c.iq,
-                sync: c.sync,
-                blanked: 0,
-                predicted: false,
-                lobe: None,
-            }
+            Sweep { stamp: c.stamp, pulse: k, iq: c.iq, sync: c.sync, blanked: 0, predicted: false, lobe: None }
         })
         .collect()
 }
@@ -137,11 +112,7 @@ fn expected(total: u64, first_dwell_start: u64) -> Vec<(u64, usize, usize, u64, 
             if dwell_of(k + 1) != d && switch_of(d + 1) < end {
                 end = switch_of(d + 1);
             }
-            let start = if d == 0 {
-                first_dwell_start
-            } else {
-                switch_of(d)
-            };
+            let start = if d == 0 { first_dwell_start } else { switch_of(d) };
             (tx(k), (end - tx(k)) as usize, lobe_of_dwell(d), d, start)
         })
         .collect()
@@ -158,11 +129,7 @@ fn summary(got: &[Sweep]) -> Vec<(u64, usize, usize, u64, u64)> {
         .collect()
 }
 
-const SYNC_SET: [(&str, &str); 3] = [
-    ("guard", "30 us"),
-    ("learn", "20000 samples"),
-    ("min_dwell", "50 us"),
-];
+const SYNC_SET: [(&str, &str); 3] = [("guard", "30 us"), ("learn", "20000 samples"), ("min_dwell", "50 us")];
 
 #[test]
 fn sync_labels_truncates_at_switches_and_starts_mid_dwell() {
@@ -173,28 +140,10 @@ fn sync_labels_truncates_at_switches_and_starts_mid_dwell() {
     assert_eq!(summary(&got), want);
     // The last sweep of a dwell is cut 50 samples before the next transmit instant.
     assert_eq!(got[1].iq.len(), (PRI - LEAD) as usize);
-    assert_eq!(
-        got[1].sync.as_ref().map(|s| s.len()),
-        Some((PRI - LEAD) as usize)
-    );
-    let switches: Vec<u64> = port
-        .iter()
-        .filter(|n| n.what.starts_with("switch to"))
-        .map(|n| n.stamp.index)
-        .collect();
-    assert_eq!(
-        switches,
-        (1..)
-            .map(switch_of)
-            .take_while(|&s| s < total)
-            .collect::<Vec<_>>()
-    );
-    assert!(
-        report
-            .iter()
-            .all(|n| n.what.starts_with("learned sync levels")),
-        "{report:?}"
-    );
+    assert_eq!(got[1].sync.as_ref().map(|s| s.len()), Some((PRI - LEAD) as usize));
+    let switches: Vec<u64> = port.iter().filter(|n| n.what.starts_with("switch to")).map(|n| n.stamp.index).collect();
+    assert_eq!(switches, (1..).map(switch_of).take_while(|&s| s < total).collect::<Vec<_>>());
+    assert!(report.iter().all(|n| n.what.starts_with("learned sync levels")), "{report:?}");
 }
 
 #[test]
@@ -203,12 +152,7 @@ fn schedule_in_pulses_agrees_with_sync() {
     let whole = capture(total);
     // Lobe 0 ("up") is dwell 3; its switch instant is at sample 5150.
     assert_eq!((lobe_of_dwell(3), switch_of(3)), (0, 5150));
-    let set = [
-        ("timing", "schedule"),
-        ("dwell", "4 pulses"),
-        ("first_start", "5150 samples"),
-        ("guard", "30 us"),
-    ];
+    let set = [("timing", "schedule"), ("dwell", "4 pulses"), ("first_start", "5150 samples"), ("guard", "30 us")];
     let (got, _, report) = run(&set, sweeps_of(&whole)).unwrap();
     // The schedule puts the first dwell's start at 5150 - 3 * 2000 < 0: clamped to 0.
     assert_eq!(summary(&got), expected(total, 0));
@@ -222,21 +166,12 @@ fn sweeps_starting_inside_the_guard_are_dropped_and_counted() {
     let mut set = SYNC_SET.to_vec();
     set.push(("guard", "60 us"));
     let (got, _, report) = run(&set, sweeps_of(&whole)).unwrap();
-    let want: Vec<_> = expected(total, FIRST_TX)
-        .into_iter()
-        .filter(|w| !(w.3 > 0 && w.0 == switch_of(w.3) + LEAD))
-        .collect();
+    let want: Vec<_> =
+        expected(total, FIRST_TX).into_iter().filter(|w| !(w.3 > 0 && w.0 == switch_of(w.3) + LEAD)).collect();
     assert_eq!(summary(&got), want);
     let dropped = (1..).take_while(|&d| switch_of(d) + LEAD < total).count();
-    let note = report
-        .iter()
-        .find(|n| n.what.starts_with("dropped"))
-        .expect("summary notice");
-    assert!(
-        note.what.starts_with(&format!("dropped {dropped} sweeps")),
-        "{}",
-        note.what
-    );
+    let note = report.iter().find(|n| n.what.starts_with("dropped")).expect("summary notice");
+    assert!(note.what.starts_with(&format!("dropped {dropped} sweeps")), "{}", note.what);
 }
 
 #[test]
@@ -250,52 +185,21 @@ fn framer_then_gate_with_a_trigger_channel() {
     whole.trigger = Some(trigger.into());
     let fspec = pulse_framer::SPEC;
     let mut framer = (fspec.build)(
-        &params(
-            &fspec,
-            &[("prf", "2 kHz"), ("timing", "trigger"), ("blank", "0 s")],
-        ),
+        &params(&fspec, &[("prf", "2 kHz"), ("timing", "trigger"), ("blank", "0 s")]),
         &BuildContext::default(),
     )
     .unwrap();
     let mut out = Outputs::new(1);
     let mut sweeps = Vec::new();
     for at in (0..total as usize).step_by(3000) {
-        framer
-            .process(
-                0,
-                Item::Samples(whole.slice(at..(at + 3000).min(total as usize))),
-                &mut out,
-            )
-            .unwrap();
-        sweeps.extend(out.drain().filter_map(|(_, i)| {
-            if let Item::Sweep(s) = i {
-                Some(s)
-            } else {
-                None
-            }
-        }));
+        framer.process(0, Item::Samples(whole.slice(at..(at + 3000).min(total as usize))), &mut out).unwrap();
+        sweeps.extend(out.drain().filter_map(|(_, i)| if let Item::Sweep(s) = i { Some(s) } else { None }));
     }
     framer.finish(&mut out).unwrap();
-    sweeps.extend(out.drain().filter_map(|(_, i)| {
-        if let Item::Sweep(s) = i {
-            Some(s)
-        } else {
-            None
-        }
-    }));
+    sweeps.extend(out.drain().filter_map(|(_, i)| if let Item::Sweep(s) = i { Some(s) } else { None }));
     // Expected dwell given in pulses: the gate measures the PRI from the sweeps.
-    let set = [
-        ("guard", "30 us"),
-        ("learn", "20000 samples"),
-        ("min_dwell", "0.1 pulses"),
-        ("dwell", "4 pulses"),
-    ];
+    let set = [("guard", "30 us"), ("learn", "20000 samples"), ("min_dwell", "0.1 pulses"), ("dwell", "4 pulses")];
     let (got, _, report) = run(&set, sweeps).unwrap();
     assert_eq!(summary(&got), expected(total, FIRST_TX));
-    assert!(
-        report
-            .iter()
-            .all(|n| n.what.starts_with("learned sync levels")),
-        "{report:?}"
-    );
+    assert!(report.iter().all(|n| n.what.starts_with("learned sync levels")), "{report:?}");
 }

@@ -5,9 +5,7 @@ mod common;
 
 use common::{dwell, params};
 use lobeflow_blocks::kinds::table_writer::SPEC;
-use lobeflow_blocks::{
-    AngleEstimate, Block, BuildContext, Cell, FileStager, Flag, Item, Outputs, Stamp, TableRow,
-};
+use lobeflow_blocks::{AngleEstimate, Block, BuildContext, Cell, FileStager, Flag, Item, Outputs, Stamp, TableRow};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
@@ -19,15 +17,9 @@ fn scratch(name: &str) -> PathBuf {
 }
 
 fn writer(path: &Path, format: &str, stager: &FileStager) -> Box<dyn Block> {
-    let p = params(
-        &SPEC,
-        &[("path", path.to_str().unwrap()), ("format", format)],
-    );
-    let ctx = BuildContext {
-        name: "table".into(),
-        out_dir: path.parent().unwrap().to_path_buf(),
-        files: stager.clone(),
-    };
+    let p = params(&SPEC, &[("path", path.to_str().unwrap()), ("format", format)]);
+    let ctx =
+        BuildContext { name: "table".into(), out_dir: path.parent().unwrap().to_path_buf(), files: stager.clone() };
     (SPEC.build)(&p, &ctx).unwrap()
 }
 
@@ -131,14 +123,7 @@ fn dwells_and_rows() {
                 ("count", Cell::Int(-3)),
             ]),
         ),
-        (
-            2,
-            row(vec![
-                ("count", Cell::Int(4)),
-                ("extra", Cell::Num(1.0)),
-                ("level", Cell::Empty),
-            ]),
-        ),
+        (2, row(vec![("count", Cell::Int(4)), ("extra", Cell::Num(1.0)), ("level", Cell::Empty)])),
     ];
     let (bytes, notices) = write_all(&path, "jsonl", items.clone());
     assert_eq!(
@@ -148,10 +133,7 @@ fn dwells_and_rows() {
     assert!(notices.iter().any(|n| n.contains("'extra'")), "{notices:?}");
     let path = dir.join("rows.csv");
     let (bytes, _) = write_all(&path, "csv", items);
-    assert_eq!(
-        String::from_utf8(bytes).unwrap(),
-        "site,level,count\n\"north, \"\"hill\"\"\",0.1,-3\n,,4\n"
-    );
+    assert_eq!(String::from_utf8(bytes).unwrap(), "site,level,count\n\"north, \"\"hill\"\"\",0.1,-3\n,,4\n");
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -164,17 +146,8 @@ fn two_kinds_of_input_are_refused() {
     let mut out = Outputs::new(0);
     let mut items = sample_estimates();
     blk.process(0, items.remove(0).1, &mut out).unwrap();
-    let err = blk
-        .process(
-            1,
-            Item::Dwell(dwell("left", 0, 10, 1.0, 0.0, 1.0)),
-            &mut out,
-        )
-        .unwrap_err();
-    assert!(
-        err.message.contains("angle estimates") && err.message.contains("dwell records"),
-        "{err}"
-    );
+    let err = blk.process(1, Item::Dwell(dwell("left", 0, 10, 1.0, 0.0, 1.0)), &mut out).unwrap_err();
+    assert!(err.message.contains("angle estimates") && err.message.contains("dwell records"), "{err}");
     assert_eq!(err.at_sample, Some(10));
     drop(blk);
     assert!(!FileStager::temp_path(&path).exists());
@@ -199,9 +172,6 @@ fn dropped_without_finish_leaves_nothing() {
     // No items at all: an empty table, with a notice.
     let (bytes, notices) = write_all(&path, "csv", Vec::new());
     assert!(bytes.is_empty());
-    assert!(
-        notices.iter().any(|n| n.contains("no items")),
-        "{notices:?}"
-    );
+    assert!(notices.iter().any(|n| n.contains("no items")), "{notices:?}");
     let _ = std::fs::remove_dir_all(&dir);
 }

@@ -14,15 +14,7 @@ const RATE: f64 = 48_000.0;
 
 /// Dwells of `m` samples (split into `pieces` segments), alternating lobes,
 /// each a tone of `amp` at `freq` Hz plus noise of `noise` power.
-fn dwell_items(
-    dwells: u64,
-    m: usize,
-    pieces: usize,
-    freq: f64,
-    amp: f64,
-    noise_power: f64,
-    seed: u64,
-) -> Vec<Item> {
+fn dwell_items(dwells: u64, m: usize, pieces: usize, freq: f64, amp: f64, noise_power: f64, seed: u64) -> Vec<Item> {
     let mut rng = Rng::new(seed);
     let mut items = Vec::new();
     let gap = 100u64; // switch guard between dwells
@@ -31,8 +23,7 @@ fn dwell_items(
         let phase0 = rng.uniform() * 6.283;
         let iq: Vec<Complex32> = (0..m)
             .map(|n| {
-                let ph =
-                    phase0 + 2.0 * std::f64::consts::PI * freq * (start + n as u64) as f64 / RATE;
+                let ph = phase0 + 2.0 * std::f64::consts::PI * freq * (start + n as u64) as f64 / RATE;
                 Complex32::from_polar(amp as f32, ph as f32) + rng.complex_gaussian(noise_power)
             })
             .collect();
@@ -51,16 +42,7 @@ fn dwell_items(
 }
 
 fn dwells(r: &Run) -> Vec<DwellRecord> {
-    r.items
-        .iter()
-        .filter_map(|i| {
-            if let Item::Dwell(d) = i {
-                Some(d.clone())
-            } else {
-                None
-            }
-        })
-        .collect()
+    r.items.iter().filter_map(|i| if let Item::Dwell(d) = i { Some(d.clone()) } else { None }).collect()
 }
 
 #[test]
@@ -94,22 +76,11 @@ fn noise_estimate_matches_injected_noise() {
         let out = dwells(&run(block.as_mut(), items));
         assert_eq!(out.len(), 10);
         let mean = out.iter().map(|r| r.noise_power).sum::<f64>() / 10.0;
-        assert!(
-            (mean / 0.2 - 1.0).abs() < 0.03,
-            "{window}: mean noise {mean}"
-        );
+        assert!((mean / 0.2 - 1.0).abs() < 0.03, "{window}: mean noise {mean}");
         for r in &out {
-            assert!(
-                (r.noise_power / 0.2 - 1.0).abs() < 0.1,
-                "{window}: {}",
-                r.noise_power
-            );
+            assert!((r.noise_power / 0.2 - 1.0).abs() < 0.1, "{window}: {}", r.noise_power);
             // Tone energy over noise per dwell: M A^2 / noise = 4096 / 0.2.
-            assert!(
-                (r.snr / 20480.0 - 1.0).abs() < 0.1,
-                "{window}: snr {}",
-                r.snr
-            );
+            assert!((r.snr / 20480.0 - 1.0).abs() < 0.1, "{window}: snr {}", r.snr);
         }
     }
 }
@@ -126,14 +97,8 @@ fn expected_spread_matches_monte_carlo() {
     let measured = ln.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (ln.len() - 1) as f64;
     let reported = out.iter().map(|r| r.var_ln_amp).sum::<f64>() / out.len() as f64;
     eprintln!("measured: tone var(ln A) {measured:.5}, reported {reported:.5}");
-    assert!(
-        (reported / (1.5 / 80.0) - 1.0).abs() < 0.1,
-        "reported {reported}"
-    );
-    assert!(
-        (measured / reported - 1.0).abs() < 0.15,
-        "measured {measured} reported {reported}"
-    );
+    assert!((reported / (1.5 / 80.0) - 1.0).abs() < 0.1, "reported {reported}");
+    assert!((measured / reported - 1.0).abs() < 0.15, "measured {measured} reported {reported}");
 }
 
 #[test]
@@ -145,17 +110,8 @@ fn band_power_reads_the_tone_power() {
     let mut mean_db = 0.0;
     for r in &out {
         // Each dwell within 4 of its own expected sigmas; the mean within 0.05 dB.
-        assert!(
-            r.amplitude.ln().abs() < 4.0 * r.var_ln_amp.sqrt(),
-            "{} vs {}",
-            r.amplitude,
-            r.var_ln_amp
-        );
-        assert!(
-            (r.noise_power / 0.05 - 1.0).abs() < 0.1,
-            "{}",
-            r.noise_power
-        );
+        assert!(r.amplitude.ln().abs() < 4.0 * r.var_ln_amp.sqrt(), "{} vs {}", r.amplitude, r.var_ln_amp);
+        assert!((r.noise_power / 0.05 - 1.0).abs() < 0.1, "{}", r.noise_power);
         mean_db += 20.0 * r.amplitude.log10() / 16.0;
     }
     assert!(mean_db.abs() < 0.05, "{mean_db} dB");
@@ -175,11 +131,5 @@ fn dwell_bookkeeping_and_limits() {
         assert_eq!(rec.mid.index, start + 599 / 2);
         assert!((rec.amplitude - 1.0).abs() < 0.02);
     }
-    assert!(
-        r.notices
-            .iter()
-            .any(|n| n.contains("1200 samples past the per-dwell limit")),
-        "{:?}",
-        r.notices
-    );
+    assert!(r.notices.iter().any(|n| n.contains("1200 samples past the per-dwell limit")), "{:?}", r.notices);
 }

@@ -36,22 +36,14 @@ fn drifting(seed: u64, seconds: f64) -> (Vec<Item>, Vec<f64>) {
         let t = k as f64 / 20.0;
         let th = 0.3 + 0.02 * t;
         truth.push(th);
-        items.push(Item::Estimate(estimate(
-            "az",
-            t,
-            th + 0.1 * rng.gaussian(),
-            0.1,
-        )));
+        items.push(Item::Estimate(estimate("az", t, th + 0.1 * rng.gaussian(), 0.1)));
         items.push(Item::Estimate(estimate("el", t + 0.01, -th, 0.1)));
     }
     (items, truth)
 }
 
 fn axis_values(out: &[Item], axis: &str) -> Vec<AngleEstimate> {
-    estimates(out)
-        .into_iter()
-        .filter(|e| &*e.axis == axis)
-        .collect()
+    estimates(out).into_iter().filter(|e| &*e.axis == axis).collect()
 }
 
 #[test]
@@ -65,53 +57,24 @@ fn tracked_error_is_well_below_the_estimate_spread() {
     let (out, _) = run(blk.as_mut(), items.clone());
     let az = axis_values(&out, "az");
     assert_eq!(az.len(), truth.len());
-    let raw: Vec<f64> = az
-        .iter()
-        .zip(&truth)
-        .skip(settle)
-        .map(|(e, t)| e.error_deg.unwrap() - t)
-        .collect();
-    let tracked: Vec<f64> = az
-        .iter()
-        .zip(&truth)
-        .skip(settle)
-        .map(|(e, t)| e.tracked_deg.unwrap() - t)
-        .collect();
+    let raw: Vec<f64> = az.iter().zip(&truth).skip(settle).map(|(e, t)| e.error_deg.unwrap() - t).collect();
+    let tracked: Vec<f64> = az.iter().zip(&truth).skip(settle).map(|(e, t)| e.tracked_deg.unwrap() - t).collect();
     let rms = |v: &[f64]| (v.iter().map(|x| x * x).sum::<f64>() / v.len() as f64).sqrt();
     let (raw_rms, ab_rms) = (rms(&raw), rms(&tracked));
     let want = alpha_beta_variance_ratio(alpha, beta).sqrt();
-    eprintln!(
-        "alpha-beta: raw {raw_rms:.4} tracked {ab_rms:.4} ratio {:.3} closed form {want:.3}",
-        ab_rms / raw_rms
-    );
-    assert!(
-        (ab_rms / raw_rms / want - 1.0).abs() < 0.12,
-        "ratio {} vs {want}",
-        ab_rms / raw_rms
-    );
+    eprintln!("alpha-beta: raw {raw_rms:.4} tracked {ab_rms:.4} ratio {:.3} closed form {want:.3}", ab_rms / raw_rms);
+    assert!((ab_rms / raw_rms / want - 1.0).abs() < 0.12, "ratio {} vs {want}", ab_rms / raw_rms);
     let outliers = az.iter().filter(|e| e.flag == Flag::Outlier).count();
     eprintln!("alpha-beta outliers in clean data: {outliers}");
-    assert!(
-        outliers <= 2,
-        "{outliers} outliers in 4000 clean estimates (4-sigma gate)"
-    );
+    assert!(outliers <= 2, "{outliers} outliers in 4000 clean estimates (4-sigma gate)");
     // The noise-free elevation axis is followed exactly once started.
     let el = axis_values(&out, "el");
-    assert!(
-        el.iter()
-            .skip(2)
-            .all(|e| (e.tracked_deg.unwrap() - e.error_deg.unwrap()).abs() < 1e-9)
-    );
+    assert!(el.iter().skip(2).all(|e| (e.tracked_deg.unwrap() - e.error_deg.unwrap()).abs() < 1e-9));
 
     let mut blk = build(&SPEC, &[("method", "kalman"), ("process_noise", "0.001")]).unwrap();
     let (out, _) = run(blk.as_mut(), items);
     let az = axis_values(&out, "az");
-    let tracked: Vec<f64> = az
-        .iter()
-        .zip(&truth)
-        .skip(settle)
-        .map(|(e, t)| e.tracked_deg.unwrap() - t)
-        .collect();
+    let tracked: Vec<f64> = az.iter().zip(&truth).skip(settle).map(|(e, t)| e.tracked_deg.unwrap() - t).collect();
     let k_rms = rms(&tracked);
     eprintln!("kalman: tracked {k_rms:.4}");
     assert!(k_rms < 0.3 * raw_rms, "kalman rms {k_rms} vs raw {raw_rms}");
@@ -121,9 +84,7 @@ fn tracked_error_is_well_below_the_estimate_spread() {
 fn outliers_are_flagged_kept_and_not_used() {
     let (mut items, truth) = drifting(9, 20.0);
     let k = 2 * 300; // an az estimate at t = 15 s
-    let Item::Estimate(e) = &mut items[k] else {
-        panic!()
-    };
+    let Item::Estimate(e) = &mut items[k] else { panic!() };
     let bad = truth[300] + 1.5;
     e.error_deg = Some(bad);
     // Flagged estimates from the discriminator pass through untouched.
@@ -137,18 +98,10 @@ fn outliers_are_flagged_kept_and_not_used() {
         let az = axis_values(&out, "az");
         let hit = az.iter().find(|e| e.error_deg == Some(bad)).unwrap();
         assert_eq!(hit.flag, Flag::Outlier, "{method}");
-        assert!(
-            (hit.tracked_deg.unwrap() - truth[300]).abs() < 0.2,
-            "{method}: {:?}",
-            hit.tracked_deg
-        );
+        assert!((hit.tracked_deg.unwrap() - truth[300]).abs() < 0.2, "{method}: {:?}", hit.tracked_deg);
         let passed = az.iter().find(|e| e.flag == Flag::OutOfRange).unwrap();
         assert_eq!(passed, &out_of_range);
-        assert_eq!(
-            az.iter().filter(|e| e.flag == Flag::Outlier).count(),
-            1,
-            "{method}"
-        );
+        assert_eq!(az.iter().filter(|e| e.flag == Flag::Outlier).count(), 1, "{method}");
     }
 }
 
@@ -163,18 +116,9 @@ fn track_restarts_after_repeated_outliers() {
     let mut blk = build(&SPEC, &[("reset_after", "3")]).unwrap();
     let (out, _) = run(blk.as_mut(), items);
     let az = axis_values(&out, "az");
-    let outliers: Vec<usize> = az
-        .iter()
-        .enumerate()
-        .filter(|(_, e)| e.flag == Flag::Outlier)
-        .map(|(i, _)| i)
-        .collect();
+    let outliers: Vec<usize> = az.iter().enumerate().filter(|(_, e)| e.flag == Flag::Outlier).map(|(i, _)| i).collect();
     assert_eq!(outliers, vec![50, 51, 52]);
-    assert!(
-        (az[99].tracked_deg.unwrap() - 2.0).abs() < 1e-3,
-        "{:?}",
-        az[99].tracked_deg
-    );
+    assert!((az[99].tracked_deg.unwrap() - 2.0).abs() < 1e-3, "{:?}", az[99].tracked_deg);
 }
 
 #[test]
@@ -183,11 +127,7 @@ fn telemetry_gives_absolute_angles() {
     std::fs::create_dir_all(&dir).unwrap();
     let pointing = dir.join("pointing.csv");
     // Invented rig: the mount slews from 120 to 121 deg azimuth over 10 s.
-    std::fs::write(
-        &pointing,
-        "time_s,az_deg,el_deg,mast_deg\n0,120,15,7\n10,121,14.5,7\n",
-    )
-    .unwrap();
+    std::fs::write(&pointing, "time_s,az_deg,el_deg,mast_deg\n0,120,15,7\n10,121,14.5,7\n").unwrap();
     let path = pointing.to_str().unwrap();
     let items: Vec<Item> = (0..24)
         .map(|k| {
@@ -196,11 +136,7 @@ fn telemetry_gives_absolute_angles() {
             Item::Estimate(estimate(axis, t, 0.25, 0.05))
         })
         .collect();
-    let mut blk = build(
-        &SPEC,
-        &[("pointing", path), ("axis_columns", "az=az_deg, el=el_deg")],
-    )
-    .unwrap();
+    let mut blk = build(&SPEC, &[("pointing", path), ("axis_columns", "az=az_deg, el=el_deg")]).unwrap();
     let (out, notices) = run(blk.as_mut(), items.clone());
     let est = estimates(&out);
     for e in &est {
@@ -219,35 +155,19 @@ fn telemetry_gives_absolute_angles() {
         }
     }
     let text: Vec<&str> = notices.iter().map(|n| n.what.as_str()).collect();
-    assert!(
-        text.iter()
-            .any(|t| t.contains("'h'") && t.contains("no pointing column")),
-        "{text:?}"
-    );
-    assert!(
-        text.iter()
-            .any(|t| t.contains("outside the pointing table")),
-        "{text:?}"
-    );
+    assert!(text.iter().any(|t| t.contains("'h'") && t.contains("no pointing column")), "{text:?}");
+    assert!(text.iter().any(|t| t.contains("outside the pointing table")), "{text:?}");
     // Other pair names map to any column.
     let mut blk = build(&SPEC, &[("pointing", path), ("axis_columns", "h=mast_deg")]).unwrap();
     let (out, _) = run(blk.as_mut(), items);
     let h = axis_values(&out, "h");
-    assert!(
-        h.iter()
-            .all(|e| e.stamp.seconds() > 10.0
-                || e.absolute_deg == Some(7.0 + e.tracked_deg.unwrap()))
-    );
+    assert!(h.iter().all(|e| e.stamp.seconds() > 10.0 || e.absolute_deg == Some(7.0 + e.tracked_deg.unwrap())));
     // Errors name the file (and the line).
-    let err = build(&SPEC, &[("pointing", path), ("axis_columns", "az=azimuth")])
-        .err()
-        .unwrap();
+    let err = build(&SPEC, &[("pointing", path), ("axis_columns", "az=azimuth")]).err().unwrap();
     assert!(err.contains(path) && err.contains("'azimuth'"), "{err}");
     let bad = dir.join("bad.csv");
     std::fs::write(&bad, "time_s,az_deg,el_deg\n0,1,2\n1,2\n").unwrap();
-    let err = build(&SPEC, &[("pointing", bad.to_str().unwrap())])
-        .err()
-        .unwrap();
+    let err = build(&SPEC, &[("pointing", bad.to_str().unwrap())]).err().unwrap();
     assert!(err.contains("bad.csv line 3"), "{err}");
     assert!(build(&SPEC, &[("alpha", "1"), ("beta", "2")]).is_err());
     let _ = std::fs::remove_dir_all(&dir);

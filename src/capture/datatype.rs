@@ -30,7 +30,9 @@ impl DataType {
     /// wider ones require `_le` or `_be`.
     pub fn parse(name: &str) -> Result<DataType, String> {
         let bad = || {
-            format!("unsupported datatype '{name}' (supported: c or r, then f32, i16, i8 or u8, with _le or _be for f32 and i16; e.g. cf32_le, ci16_le, ci8, cu8)")
+            format!(
+                "unsupported datatype '{name}' (supported: c or r, then f32, i16, i8 or u8, with _le or _be for f32 and i16; e.g. cf32_le, ci16_le, ci8, cu8)"
+            )
         };
         let (complex, rest) = match name.as_bytes().first() {
             Some(b'c') => (true, &name[1..]),
@@ -152,7 +154,11 @@ mod tests {
             assert_eq!(bytes.len(), vals.len() * dt.component_bytes());
             let mut back = Vec::new();
             dt.decode(&bytes, &mut back);
-            let tol = match dt.format { SampleFormat::F32 => 0.0, SampleFormat::I16 => 1.0 / 32768.0, _ => 1.0 / 128.0 };
+            let tol = match dt.format {
+                SampleFormat::F32 => 0.0,
+                SampleFormat::I16 => 1.0 / 32768.0,
+                _ => 1.0 / 128.0,
+            };
             for (a, b) in vals.iter().zip(&back) {
                 assert!((a - b).abs() <= tol, "{n}: {a} vs {b}");
             }

@@ -11,14 +11,13 @@ use std::path::Path;
 /// The datatype of a raw capture: given, or the file's extension when that is
 /// a datatype name (`capture.cu8`).
 pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, BlockError> {
-    let ext = Path::new(path)
-        .extension()
-        .and_then(|e| e.to_str())
-        .unwrap_or("");
+    let ext = Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("");
     match &opts.datatype {
         Some(name) => DataType::parse(name).map_err(|e| BlockError::new(format!("{path}: {e}"))),
         None => DataType::parse(&ext.to_ascii_lowercase()).map_err(|_| {
-            BlockError::new(format!("{path}: raw data needs a datatype (a SigMF name such as cf32_le, ci16_le, ci8 or cu8)"))
+            BlockError::new(format!(
+                "{path}: raw data needs a datatype (a SigMF name such as cf32_le, ci16_le, ci8 or cu8)"
+            ))
         }),
     }
 }
@@ -27,17 +26,11 @@ pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, B
 pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError> {
     match opts.rate {
         Some(r) if r.is_finite() && r > 0.0 => Ok(r),
-        _ => Err(BlockError::new(format!(
-            "{path}: raw data carries no sample rate; set rate (e.g. 2.4 MS/s)"
-        ))),
+        _ => Err(BlockError::new(format!("{path}: raw data carries no sample rate; set rate (e.g. 2.4 MS/s)"))),
     }
 }
 
-pub(crate) fn raw_info(
-    path: &str,
-    opts: &OpenOptions,
-    data_bytes: Option<u64>,
-) -> Result<CaptureInfo, BlockError> {
+pub(crate) fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, BlockError> {
     let datatype = raw_datatype(path, opts)?;
     let rate = raw_rate(path, opts)?;
     let channels = opts.channels.unwrap_or(1).max(1);
@@ -58,18 +51,11 @@ pub(crate) fn raw_info(
 }
 
 pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
-    let file = File::open(path)
-        .map_err(|e| BlockError::new(format!("{path}: cannot open the raw capture: {e}")))?;
-    let len = file
-        .metadata()
-        .map_err(|e| BlockError::new(format!("{path}: {e}")))?
-        .len();
+    let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the raw capture: {e}")))?;
+    let len = file.metadata().map_err(|e| BlockError::new(format!("{path}: {e}")))?.len();
     let info = raw_info(path, opts, Some(len))?;
     check_whole_frames(&info, len)?;
-    Ok(Box::new(FrameStream::new(
-        info,
-        BufReader::with_capacity(1 << 16, file),
-    )))
+    Ok(Box::new(FrameStream::new(info, BufReader::with_capacity(1 << 16, file))))
 }
 
 /// A data file must hold whole frames; say where the partial one starts.

@@ -30,9 +30,7 @@ impl Format {
             "wav" => Ok(Format::Wav),
             "sigmf" => Ok(Format::Sigmf),
             "raw" => Ok(Format::Raw),
-            other => Err(format!(
-                "unknown capture format '{other}' (known: auto, wav, sigmf, raw)"
-            )),
+            other => Err(format!("unknown capture format '{other}' (known: auto, wav, sigmf, raw)")),
         }
     }
 
@@ -60,12 +58,7 @@ pub struct OpenOptions {
 
 impl Default for OpenOptions {
     fn default() -> Self {
-        OpenOptions {
-            format: Format::Auto,
-            datatype: None,
-            rate: None,
-            channels: None,
-        }
+        OpenOptions { format: Format::Auto, datatype: None, rate: None, channels: None }
     }
 }
 
@@ -115,20 +108,12 @@ impl Encoding {
             // A 24-bit code shifted into the top of an i32 is sign-extended;
             // dividing by 2^31 is then exact, as for 32-bit codes up to the
             // usual f32 rounding.
-            Encoding::IntLe { bytes: 3, .. } => out.extend(
-                bytes
-                    .chunks_exact(3)
-                    .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
-            ),
-            Encoding::IntLe { bits: 24, .. } => out.extend(
-                bytes
-                    .chunks_exact(4)
-                    .map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0),
-            ),
+            Encoding::IntLe { bytes: 3, .. } => out
+                .extend(bytes.chunks_exact(3).map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0)),
+            Encoding::IntLe { bits: 24, .. } => out
+                .extend(bytes.chunks_exact(4).map(|b| i32::from_le_bytes([0, b[0], b[1], b[2]]) as f32 / 2147483648.0)),
             Encoding::IntLe { .. } => out.extend(
-                bytes
-                    .chunks_exact(4)
-                    .map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f32 / 2147483648.0),
+                bytes.chunks_exact(4).map(|b| i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f32 / 2147483648.0),
             ),
         }
     }
@@ -180,9 +165,7 @@ impl CaptureInfo {
     }
     /// Byte offset in the data file of component `component` of frame `frame`.
     pub fn byte_offset(&self, frame: u64, component: usize) -> u64 {
-        self.data_offset
-            + frame * self.frame_bytes() as u64
-            + (component * self.encoding.component_bytes()) as u64
+        self.data_offset + frame * self.frame_bytes() as u64 + (component * self.encoding.component_bytes()) as u64
     }
 }
 
@@ -212,12 +195,7 @@ pub struct FrameStream<R> {
 
 impl<R: Read + Send> FrameStream<R> {
     pub fn new(info: CaptureInfo, inner: R) -> Self {
-        FrameStream {
-            info,
-            inner,
-            done_bytes: 0,
-            buf: Vec::new(),
-        }
+        FrameStream { info, inner, done_bytes: 0, buf: Vec::new() }
     }
 }
 
@@ -232,9 +210,7 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
 
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
         let frame_bytes = self.info.frame_bytes();
-        let mut want = max_frames
-            .min((MAX_READ_BYTES / frame_bytes.max(1)).max(1))
-            .saturating_mul(frame_bytes);
+        let mut want = max_frames.min((MAX_READ_BYTES / frame_bytes.max(1)).max(1)).saturating_mul(frame_bytes);
         if let Some(total) = self.info.data_bytes {
             want = want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX));
         }
@@ -282,10 +258,7 @@ impl<R: Read + Send> FrameStream<R> {
                 Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
                 Err(e) => {
                     let at = self.info.data_offset + self.done_bytes + got as u64;
-                    return Err(BlockError::new(format!(
-                        "{}: read failed at byte offset {at}: {e}",
-                        self.info.path
-                    )));
+                    return Err(BlockError::new(format!("{}: read failed at byte offset {at}: {e}", self.info.path)));
                 }
             }
         }
@@ -349,11 +322,7 @@ fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
         ));
     }
     let p = Path::new(path);
-    let ext = p
-        .extension()
-        .and_then(|e| e.to_str())
-        .unwrap_or("")
-        .to_ascii_lowercase();
+    let ext = p.extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();
     match ext.as_str() {
         "wav" | "wave" => return Ok(Format::Wav),
         "sigmf-meta" | "sigmf-data" => return Ok(Format::Sigmf),
@@ -366,17 +335,12 @@ fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
         return Ok(Format::Sigmf);
     }
     let mut head = [0u8; 4];
-    let riff = std::fs::File::open(p)
-        .and_then(|mut f| f.read_exact(&mut head))
-        .is_ok()
-        && &head == b"RIFF";
+    let riff = std::fs::File::open(p).and_then(|mut f| f.read_exact(&mut head)).is_ok() && &head == b"RIFF";
     if riff {
         return Ok(Format::Wav);
     }
     if !p.exists() {
-        return Err(BlockError::new(format!(
-            "{path}: no such capture file (nor a SigMF recording of that base name)"
-        )));
+        return Err(BlockError::new(format!("{path}: no such capture file (nor a SigMF recording of that base name)")));
     }
     Err(BlockError::new(format!(
         "{path}: cannot tell the capture format from the name or the first bytes; set format (wav, sigmf or raw with a datatype)"
@@ -391,19 +355,13 @@ pub(crate) fn agree_rate(
     what: &str,
 ) -> Result<f64, BlockError> {
     match (given, from_file) {
-        (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => {
-            Err(BlockError::new(format!(
-                "{path}: rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
-            )))
-        }
+        (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => Err(BlockError::new(format!(
+            "{path}: rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
+        ))),
         (_, Some(f)) if f.is_finite() && f > 0.0 => Ok(f),
-        (_, Some(f)) => Err(BlockError::new(format!(
-            "{path}: {what} gives an unusable sample rate {f}"
-        ))),
+        (_, Some(f)) => Err(BlockError::new(format!("{path}: {what} gives an unusable sample rate {f}"))),
         (Some(g), None) => Ok(g),
-        (None, None) => Err(BlockError::new(format!(
-            "{path}: the sample rate is not in the file; set rate"
-        ))),
+        (None, None) => Err(BlockError::new(format!("{path}: the sample rate is not in the file; set rate"))),
     }
 }
 
@@ -467,29 +425,19 @@ mod tests {
         let data = bytes(&[1, 2, 3, 4, 5]);
         let mut s = FrameStream::new(info(Some(16)), Cursor::new(data.clone()));
         let e = s.read_frames(10, &mut Vec::new()).unwrap_err();
-        assert!(
-            e.message.contains("truncated") && e.message.contains("byte offset 10"),
-            "{e}"
-        );
+        assert!(e.message.contains("truncated") && e.message.contains("byte offset 10"), "{e}");
         assert_eq!(e.at_sample, Some(2));
         let mut s = FrameStream::new(info(None), Cursor::new(data));
         let mut out = Vec::new();
         let e = s.read_frames(10, &mut out).unwrap_err();
-        assert!(
-            e.message.contains("2 byte(s) left over at byte offset 8"),
-            "{e}"
-        );
+        assert!(e.message.contains("2 byte(s) left over at byte offset 8"), "{e}");
     }
 
     #[test]
     fn full_scale_of_each_encoding() {
+        assert_eq!(Encoding::IntLe { bytes: 3, bits: 24 }.full_scale_positive(), 1.0 - 1.0 / 8388608.0);
         assert_eq!(
-            Encoding::IntLe { bytes: 3, bits: 24 }.full_scale_positive(),
-            1.0 - 1.0 / 8388608.0
-        );
-        assert_eq!(
-            Encoding::Type(DataType::parse("cu8").unwrap_or(DataType::CF32_LE))
-                .full_scale_positive(),
+            Encoding::Type(DataType::parse("cu8").unwrap_or(DataType::CF32_LE)).full_scale_positive(),
             127.0 / 128.0
         );
         assert_eq!(Encoding::Type(DataType::CF32_LE).full_scale_positive(), 1.0);

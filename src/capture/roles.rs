@@ -93,11 +93,7 @@ impl RoleMap {
         let channels = info.channels;
         let complex = info.complex;
         let kind = if complex { "complex" } else { "real" };
-        let allowed = if complex {
-            "iq, sync, trigger, -"
-        } else {
-            "i, q, sync, trigger, -"
-        };
+        let allowed = if complex { "iq, sync, trigger, -" } else { "i, q, sync, trigger, -" };
         let listing = channel_listing(channels, complex);
         let src = info.meta_path.as_deref().unwrap_or(&info.path);
         let auto = names.is_empty() || (names.len() == 1 && names[0] == "auto");
@@ -135,12 +131,7 @@ impl RoleMap {
         };
         let cpc = if complex { 2 } else { 1 };
         let find = |role: Role| -> Result<Option<usize>, String> {
-            let at: Vec<usize> = roles
-                .iter()
-                .enumerate()
-                .filter(|(_, r)| **r == role)
-                .map(|(k, _)| k)
-                .collect();
+            let at: Vec<usize> = roles.iter().enumerate().filter(|(_, r)| **r == role).map(|(k, _)| k).collect();
             if at.len() > 1 {
                 let chans: Vec<String> = at.iter().map(|k| (k + 1).to_string()).collect();
                 return Err(format!(
@@ -153,22 +144,12 @@ impl RoleMap {
         };
         let signal = if complex { Role::Iq } else { Role::I };
         let i = find(signal)?.ok_or_else(|| {
-            format!(
-                "{src}: no channel has role '{}' ({listing}); the signal is needed",
-                signal.name()
-            )
+            format!("{src}: no channel has role '{}' ({listing}); the signal is needed", signal.name())
         })?;
         let q = if complex { Some(i + 1) } else { find(Role::Q)? };
         let sync = find(Role::Sync)?;
         let trigger = find(Role::Trigger)?;
-        Ok(RoleMap {
-            roles,
-            i,
-            q,
-            sync,
-            trigger,
-            stride: channels * cpc,
-        })
+        Ok(RoleMap { roles, i, q, sync, trigger, stride: channels * cpc })
     }
 
     pub fn roles(&self) -> &[Role] {
@@ -181,12 +162,8 @@ impl RoleMap {
 
     /// "ch1=i ch2=q ch3=sync".
     pub fn describe(&self) -> String {
-        let parts: Vec<String> = self
-            .roles
-            .iter()
-            .enumerate()
-            .map(|(k, r)| format!("ch{}={}", k + 1, r.name()))
-            .collect();
+        let parts: Vec<String> =
+            self.roles.iter().enumerate().map(|(k, r)| format!("ch{}={}", k + 1, r.name())).collect();
         parts.join(" ")
     }
 
@@ -213,15 +190,27 @@ impl RoleMap {
         if !info.encoding.is_float() || all_finite(frames) {
             if self.is_plain_iq() && frames.len() % 2 == 0 && frames.capacity() % 2 == 0 {
                 let iq = into_complex(std::mem::take(frames));
-                return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq: iq.into(), sync: None, trigger: None });
+                return Ok(SampleChunk {
+                    stamp: Stamp::new(first, info.rate),
+                    iq: iq.into(),
+                    sync: None,
+                    trigger: None,
+                });
             }
             let rows = frames.chunks_exact(self.stride);
             let iq: Vec<Complex32> = match self.q {
                 Some(q) => rows.map(|f| Complex32::new(f[self.i], f[q])).collect(),
                 None => rows.map(|f| Complex32::new(f[self.i], 0.0)).collect(),
             };
-            let column = |c: Option<usize>| c.map(|c| frames.chunks_exact(self.stride).map(|f| f[c]).collect::<Vec<f32>>().into());
-            return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq: iq.into(), sync: column(self.sync), trigger: column(self.trigger) });
+            let column = |c: Option<usize>| {
+                c.map(|c| frames.chunks_exact(self.stride).map(|f| f[c]).collect::<Vec<f32>>().into())
+            };
+            return Ok(SampleChunk {
+                stamp: Stamp::new(first, info.rate),
+                iq: iq.into(),
+                sync: column(self.sync),
+                trigger: column(self.trigger),
+            });
         }
         let mut iq = Vec::with_capacity(n);
         let mut sync = self.sync.map(|_| Vec::with_capacity(n));
@@ -302,8 +291,6 @@ fn into_complex(v: Vec<f32>) -> Vec<Complex32> {
 
 fn channel_listing(channels: usize, complex: bool) -> String {
     let kind = if complex { " (complex)" } else { "" };
-    let parts: Vec<String> = (1..=channels)
-        .map(|k| format!("channel {k}{kind}"))
-        .collect();
+    let parts: Vec<String> = (1..=channels).map(|k| format!("channel {k}{kind}")).collect();
     parts.join(", ")
 }

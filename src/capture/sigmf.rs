@@ -5,8 +5,7 @@
 use super::datatype::DataType;
 use super::raw::check_whole_frames;
 use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels,
-    agree_rate,
+    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
 use super::sigmf_meta::SigmfMeta;
 use lobeflow_blocks::BlockError;
@@ -21,9 +20,7 @@ const DATA_EXT: &str = ".sigmf-data";
 const MAX_META_BYTES: u64 = 64 << 20;
 
 fn base_of(path: &str) -> &str {
-    path.strip_suffix(META_EXT)
-        .or_else(|| path.strip_suffix(DATA_EXT))
-        .unwrap_or(path)
+    path.strip_suffix(META_EXT).or_else(|| path.strip_suffix(DATA_EXT)).unwrap_or(path)
 }
 
 /// The metadata file of the recording `path` names (meta, data or base name).
@@ -50,11 +47,7 @@ pub fn read_meta(meta_path: &Path) -> Result<SigmfMeta, BlockError> {
     let text = std::fs::read_to_string(meta_path)
         .map_err(|e| BlockError::new(format!("{m}: cannot read the SigMF metadata: {e}")))?;
     let json: Value = serde_json::from_str(&text).map_err(|e| {
-        BlockError::new(format!(
-            "{m}: not valid JSON at line {}, column {}: {e}",
-            e.line(),
-            e.column()
-        ))
+        BlockError::new(format!("{m}: not valid JSON at line {}, column {}: {e}", e.line(), e.column()))
     })?;
     let Some(top) = json.as_object() else {
         return Err(BlockError::new(format!(
@@ -68,26 +61,20 @@ pub fn read_meta(meta_path: &Path) -> Result<SigmfMeta, BlockError> {
             )));
         }
     }
-    let global = top["global"]
-        .as_object()
-        .ok_or_else(|| BlockError::new(format!("{m}: 'global' must be an object")))?;
+    let global =
+        top["global"].as_object().ok_or_else(|| BlockError::new(format!("{m}: 'global' must be an object")))?;
     for key in ["core:datatype", "core:version"] {
         match global.get(key) {
             Some(Value::String(_)) => {}
             Some(other) => {
-                return Err(BlockError::new(format!(
-                    "{m}: global {key} must be text, found {other}"
-                )));
+                return Err(BlockError::new(format!("{m}: global {key} must be text, found {other}")));
             }
             None => {
-                return Err(BlockError::new(format!(
-                    "{m}: global has no {key} (required by SigMF)"
-                )));
+                return Err(BlockError::new(format!("{m}: global has no {key} (required by SigMF)")));
             }
         }
     }
-    serde_json::from_value(json)
-        .map_err(|e| BlockError::new(format!("{m}: malformed SigMF metadata: {e}")))
+    serde_json::from_value(json).map_err(|e| BlockError::new(format!("{m}: malformed SigMF metadata: {e}")))
 }
 
 pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
@@ -99,25 +86,18 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
     let meta_path = meta_path_for(path);
     let m = meta_path.display().to_string();
     if !meta_path.exists() {
-        return Err(BlockError::new(format!(
-            "{m}: no such SigMF metadata file (for capture {path})"
-        )));
+        return Err(BlockError::new(format!("{m}: no such SigMF metadata file (for capture {path})")));
     }
     let meta = read_meta(&meta_path)?;
     let g = &meta.global;
     if !g.version.starts_with("1.") {
-        return Err(BlockError::new(format!(
-            "{m}: SigMF version '{}' is not supported (1.x is)",
-            g.version
-        )));
+        return Err(BlockError::new(format!("{m}: SigMF version '{}' is not supported (1.x is)", g.version)));
     }
     if g.other.get("core:metadata_only").and_then(Value::as_bool) == Some(true) {
-        return Err(BlockError::new(format!(
-            "{m}: a metadata-only recording has no samples to read"
-        )));
+        return Err(BlockError::new(format!("{m}: a metadata-only recording has no samples to read")));
     }
-    let datatype = DataType::parse(&g.datatype)
-        .map_err(|e| BlockError::new(format!("{m}: global core:datatype: {e}")))?;
+    let datatype =
+        DataType::parse(&g.datatype).map_err(|e| BlockError::new(format!("{m}: global core:datatype: {e}")))?;
     if let Some(given) = &opts.datatype {
         match DataType::parse(given) {
             Ok(d) if d == datatype => {}
@@ -132,13 +112,10 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
     let channels = match g.num_channels {
         None => 1,
         Some(0) => {
-            return Err(BlockError::new(format!(
-                "{m}: global core:num_channels is 0"
-            )));
+            return Err(BlockError::new(format!("{m}: global core:num_channels is 0")));
         }
-        Some(n) => usize::try_from(n).map_err(|_| {
-            BlockError::new(format!("{m}: global core:num_channels {n} is too large"))
-        })?,
+        Some(n) => usize::try_from(n)
+            .map_err(|_| BlockError::new(format!("{m}: global core:num_channels {n} is too large")))?,
     };
     let channels = agree_channels(&m, opts.channels, channels, "global core:num_channels")?;
     let rate = agree_rate(&m, opts.rate, g.sample_rate, "global core:sample_rate")?;
@@ -152,44 +129,24 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
             )));
         }
     }
-    let header_bytes = |c: &super::sigmf_meta::Capture| {
-        c.other
-            .get("core:header_bytes")
-            .and_then(Value::as_u64)
-            .unwrap_or(0)
-    };
-    if let Some((k, _)) = meta
-        .captures
-        .iter()
-        .enumerate()
-        .skip(1)
-        .find(|(_, c)| header_bytes(c) > 0)
-    {
+    let header_bytes =
+        |c: &super::sigmf_meta::Capture| c.other.get("core:header_bytes").and_then(Value::as_u64).unwrap_or(0);
+    if let Some((k, _)) = meta.captures.iter().enumerate().skip(1).find(|(_, c)| header_bytes(c) > 0) {
         return Err(BlockError::new(format!(
             "{m}: captures[{k}] has core:header_bytes; header bytes between segments are not supported"
         )));
     }
     let data_offset = meta.captures.first().map(header_bytes).unwrap_or(0);
-    let trailing = g
-        .other
-        .get("core:trailing_bytes")
-        .and_then(Value::as_u64)
-        .unwrap_or(0);
+    let trailing = g.other.get("core:trailing_bytes").and_then(Value::as_u64).unwrap_or(0);
 
     let data_path = match g.other.get("core:dataset").and_then(Value::as_str) {
         Some(name) => meta_path.parent().unwrap_or(Path::new("")).join(name),
         None => data_path_for(path),
     };
     let d = data_path.display().to_string();
-    let file = File::open(&data_path).map_err(|e| {
-        BlockError::new(format!(
-            "{d}: cannot open the data file of the recording {m}: {e}"
-        ))
-    })?;
-    let len = file
-        .metadata()
-        .map_err(|e| BlockError::new(format!("{d}: {e}")))?
-        .len();
+    let file = File::open(&data_path)
+        .map_err(|e| BlockError::new(format!("{d}: cannot open the data file of the recording {m}: {e}")))?;
+    let len = file.metadata().map_err(|e| BlockError::new(format!("{d}: {e}")))?.len();
     let Some(data_bytes) = len.checked_sub(data_offset + trailing) else {
         return Err(BlockError::new(format!(
             "{d}: the file has {len} bytes, fewer than the {data_offset} header and {trailing} trailing bytes the metadata declares"
@@ -211,8 +168,6 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
     };
     check_whole_frames(&info, data_bytes)?;
     let mut input = BufReader::with_capacity(1 << 16, file);
-    input
-        .seek(SeekFrom::Start(data_offset))
-        .map_err(|e| BlockError::new(format!("{}: {e}", info.path)))?;
+    input.seek(SeekFrom::Start(data_offset)).map_err(|e| BlockError::new(format!("{}: {e}", info.path)))?;
     Ok(Box::new(FrameStream::new(info, input)))
 }

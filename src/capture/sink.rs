@@ -4,8 +4,8 @@
 use super::sigmf_meta::Annotation;
 use super::write::{AuxRole, CaptureWriter, WRITE_FORMAT_NAMES, WriteFormat, WriterConfig};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec,
-    ParamType, Params, PortSpec, SampleChunk, Stamp,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
+    PortSpec, SampleChunk, Stamp,
 };
 use serde_json::Map;
 use std::path::PathBuf;
@@ -17,11 +17,7 @@ pub const SPEC: BlockSpec = BlockSpec {
           The file appears only when the run succeeds.",
     inputs: &[
         PortSpec::optional("samples", ItemKind::Samples, "sample chunks to write"),
-        PortSpec::optional(
-            "segments",
-            ItemKind::Segment,
-            "lobe segments to write (filtered by `lobe`)",
-        ),
+        PortSpec::optional("segments", ItemKind::Segment, "lobe segments to write (filtered by `lobe`)"),
     ],
     outputs: &[],
     params: &[
@@ -57,9 +53,7 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
     let format = WriteFormat::parse(p.text("format")?)?;
     let annotate = p.flag("annotate_dwells")?;
     if annotate && !format.is_sigmf() {
-        return Err(
-            "annotate_dwells needs a SigMF format (WAV has no place for annotations)".into(),
-        );
+        return Err("annotate_dwells needs a SigMF format (WAV has no place for annotations)".into());
     }
     let path = PathBuf::from(p.text("path")?);
     if path.as_os_str().is_empty() {
@@ -112,18 +106,14 @@ impl CaptureSink {
         }
         let stamp = chunk.stamp;
         if self.writer.is_none() {
-            self.aux = [
-                (AuxRole::Sync, chunk.sync.is_some()),
-                (AuxRole::Trigger, chunk.trigger.is_some()),
-            ]
-            .into_iter()
-            .filter_map(|(r, present)| present.then_some(r))
-            .collect();
+            self.aux = [(AuxRole::Sync, chunk.sync.is_some()), (AuxRole::Trigger, chunk.trigger.is_some())]
+                .into_iter()
+                .filter_map(|(r, present)| present.then_some(r))
+                .collect();
             let mut cfg = WriterConfig::new(self.format, stamp.rate);
             cfg.aux = self.aux.clone();
             cfg.description = Some("derived stream written by lobeflow capture_writer".into());
-            let w = CaptureWriter::create(&self.path, cfg)
-                .map_err(|e| BlockError::at(e, stamp.index))?;
+            let w = CaptureWriter::create(&self.path, cfg).map_err(|e| BlockError::at(e, stamp.index))?;
             self.writer = Some(w);
         }
         let Some(writer) = self.writer.as_mut() else {
@@ -132,10 +122,7 @@ impl CaptureSink {
         let rate = writer.config().rate;
         if stamp.rate != rate {
             return Err(BlockError::at(
-                format!(
-                    "sample rate changed from {rate} to {} S/s; one capture holds one rate",
-                    stamp.rate
-                ),
+                format!("sample rate changed from {rate} to {} S/s; one capture holds one rate", stamp.rate),
                 stamp.index,
             ));
         }
@@ -143,7 +130,10 @@ impl CaptureSink {
             || (chunk.trigger.is_some() && !self.aux.contains(&AuxRole::Trigger));
         if extra && !self.extra_aux_noticed {
             self.extra_aux_noticed = true;
-            out.notice(stamp, "an aux channel appeared after the first item; it is not written (further cases not reported)");
+            out.notice(
+                stamp,
+                "an aux channel appeared after the first item; it is not written (further cases not reported)",
+            );
         }
         if self.zeros.len() < chunk.len() {
             self.zeros.resize(chunk.len(), 0.0);
@@ -162,11 +152,12 @@ impl CaptureSink {
         }
         if missing && !self.missing_aux_noticed {
             self.missing_aux_noticed = true;
-            out.notice(stamp, "an item lacks an aux channel the first item had; zeros written (further cases not reported)");
+            out.notice(
+                stamp,
+                "an item lacks an aux channel the first item had; zeros written (further cases not reported)",
+            );
         }
-        writer
-            .write(&chunk.iq, &aux)
-            .map_err(|e| BlockError::at(e, stamp.index))
+        writer.write(&chunk.iq, &aux).map_err(|e| BlockError::at(e, stamp.index))
     }
 
     fn close_dwell(&mut self) {
@@ -181,10 +172,7 @@ impl CaptureSink {
             sample_start: d.file_start,
             sample_count: Some(count),
             label: Some(d.lobe),
-            comment: Some(format!(
-                "dwell {} from capture sample {}",
-                d.dwell, d.source_start
-            )),
+            comment: Some(format!("dwell {} from capture sample {}", d.dwell, d.source_start)),
             other: Map::new(),
         });
     }
@@ -201,12 +189,7 @@ impl Block for CaptureSink {
                 if !self.lobe.is_empty() && *seg.tag.name != *self.lobe {
                     return Ok(());
                 }
-                if self.annotate
-                    && self
-                        .open_dwell
-                        .as_ref()
-                        .is_none_or(|d| d.dwell != seg.tag.dwell)
-                {
+                if self.annotate && self.open_dwell.as_ref().is_none_or(|d| d.dwell != seg.tag.dwell) {
                     self.close_dwell();
                     self.open_dwell = Some(OpenDwell {
                         dwell: seg.tag.dwell,
@@ -231,10 +214,7 @@ impl Block for CaptureSink {
             Some(w) => {
                 w.finish(&self.files)?;
             }
-            None => out.notice(
-                Stamp::new(0, 1.0),
-                format!("no samples arrived; {} not written", self.path.display()),
-            ),
+            None => out.notice(Stamp::new(0, 1.0), format!("no samples arrived; {} not written", self.path.display())),
         }
         Ok(())
     }
@@ -248,16 +228,9 @@ mod tests {
     use std::sync::Arc;
 
     fn segment(lobe: &str, dwell: u64, index: u64, n: usize, rate: f64, end: bool) -> Item {
-        let iq: Vec<Complex32> = (0..n)
-            .map(|k| Complex32::new((index + k as u64) as f32 * 1e-3, 0.25))
-            .collect();
+        let iq: Vec<Complex32> = (0..n).map(|k| Complex32::new((index + k as u64) as f32 * 1e-3, 0.25)).collect();
         Item::Segment(LobeSegment {
-            tag: LobeTag {
-                lobe: 0,
-                name: Arc::from(lobe),
-                dwell,
-                dwell_start: index,
-            },
+            tag: LobeTag { lobe: 0, name: Arc::from(lobe), dwell, dwell_start: index },
             chunk: SampleChunk {
                 stamp: Stamp::new(index, rate),
                 iq: iq.into(),
@@ -284,43 +257,21 @@ mod tests {
         let ctx = BuildContext::default();
         let mut b = build(&params(&path, "sigmf_cf32_le", "left", true), &ctx).unwrap();
         let mut out = Outputs::new(0);
-        b.process(1, segment("left", 0, 0, 10, 1000.0, false), &mut out)
-            .unwrap();
-        b.process(1, segment("left", 0, 10, 5, 1000.0, true), &mut out)
-            .unwrap();
-        b.process(1, segment("right", 1, 15, 7, 1000.0, true), &mut out)
-            .unwrap();
-        b.process(1, segment("left", 2, 22, 6, 1000.0, true), &mut out)
-            .unwrap();
-        let e = b
-            .process(1, segment("left", 4, 40, 6, 2000.0, true), &mut out)
-            .unwrap_err();
-        assert!(
-            e.message.contains("sample rate changed") && e.at_sample == Some(40),
-            "{e}"
-        );
+        b.process(1, segment("left", 0, 0, 10, 1000.0, false), &mut out).unwrap();
+        b.process(1, segment("left", 0, 10, 5, 1000.0, true), &mut out).unwrap();
+        b.process(1, segment("right", 1, 15, 7, 1000.0, true), &mut out).unwrap();
+        b.process(1, segment("left", 2, 22, 6, 1000.0, true), &mut out).unwrap();
+        let e = b.process(1, segment("left", 4, 40, 6, 2000.0, true), &mut out).unwrap_err();
+        assert!(e.message.contains("sample rate changed") && e.at_sample == Some(40), "{e}");
         b.finish(&mut out).unwrap();
         ctx.files.commit().unwrap();
         let meta: serde_json::Value =
-            serde_json::from_slice(&std::fs::read(path.with_extension("sigmf-meta")).unwrap())
-                .unwrap();
+            serde_json::from_slice(&std::fs::read(path.with_extension("sigmf-meta")).unwrap()).unwrap();
         assert_eq!(meta["global"]["core:num_channels"], 2);
         let ann = meta["annotations"].as_array().unwrap();
         assert_eq!(ann.len(), 2);
-        assert_eq!(
-            (
-                ann[0]["core:sample_start"].as_u64(),
-                ann[0]["core:sample_count"].as_u64()
-            ),
-            (Some(0), Some(15))
-        );
-        assert_eq!(
-            (
-                ann[1]["core:sample_start"].as_u64(),
-                ann[1]["core:sample_count"].as_u64()
-            ),
-            (Some(15), Some(6))
-        );
+        assert_eq!((ann[0]["core:sample_start"].as_u64(), ann[0]["core:sample_count"].as_u64()), (Some(0), Some(15)));
+        assert_eq!((ann[1]["core:sample_start"].as_u64(), ann[1]["core:sample_count"].as_u64()), (Some(15), Some(6)));
         assert_eq!(ann[1]["core:label"], "left");
         // 21 frames of 2 complex f32 channels.
         assert_eq!(std::fs::metadata(&path).unwrap().len(), 21 * 2 * 8);
@@ -329,12 +280,8 @@ mod tests {
 
     #[test]
     fn annotations_need_sigmf() {
-        let e = build(
-            &params(std::path::Path::new("x.wav"), "wav_f32", "", true),
-            &BuildContext::default(),
-        )
-        .err()
-        .unwrap();
+        let e =
+            build(&params(std::path::Path::new("x.wav"), "wav_f32", "", true), &BuildContext::default()).err().unwrap();
         assert!(e.contains("SigMF"), "{e}");
     }
 }

@@ -4,19 +4,15 @@
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{NonFinite, Replaced, RoleMap};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType,
-    Params, PortSpec, Stamp, Unit,
+    Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec, Stamp,
+    Unit,
 };
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "capture_source",
     doc: "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
     inputs: &[],
-    outputs: &[PortSpec::optional(
-        "samples",
-        ItemKind::Samples,
-        "the capture's samples, from sample 0",
-    )],
+    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the capture's samples, from sample 0")],
     params: &[
         ParamSpec {
             name: "path",
@@ -38,11 +34,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "rate",
-            ty: ParamType::Number {
-                unit: Unit::SampleRate,
-                min: 0.0,
-                max: 1e11,
-            },
+            ty: ParamType::Number { unit: Unit::SampleRate, min: 0.0, max: 1e11 },
             default: Some("0"),
             doc: "sample rate; 0 = from the file (raw data needs it); a value the file contradicts is an error",
         },
@@ -60,10 +52,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "chunk",
-            ty: ParamType::Integer {
-                min: 1,
-                max: 1 << 22,
-            },
+            ty: ParamType::Integer { min: 1, max: 1 << 22 },
             default: Some("65536"),
             doc: "samples per emitted chunk",
         },
@@ -94,12 +83,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let path = p.text("path")?;
     let reader = open(path, &open_options(p)?).map_err(|e| e.to_string())?;
     let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
-    Ok(Box::new(CaptureSource::new(
-        reader,
-        roles,
-        p.int("chunk")? as usize,
-        NonFinite::parse(p.text("nonfinite")?)?,
-    )))
+    Ok(Box::new(CaptureSource::new(reader, roles, p.int("chunk")? as usize, NonFinite::parse(p.text("nonfinite")?)?)))
 }
 
 pub struct CaptureSource {
@@ -126,21 +110,12 @@ fn later_segments(reader: &dyn CaptureReader) -> Vec<(u64, Option<f64>)> {
     let Some(meta) = &reader.info().sigmf else {
         return Vec::new();
     };
-    meta.captures
-        .iter()
-        .skip(1)
-        .map(|c| (c.sample_start, c.frequency))
-        .collect()
+    meta.captures.iter().skip(1).map(|c| (c.sample_start, c.frequency)).collect()
 }
 
 impl CaptureSource {
     /// A source over an opened reader (for embedding and tests).
-    pub fn new(
-        reader: Box<dyn CaptureReader>,
-        roles: RoleMap,
-        chunk: usize,
-        nonfinite: NonFinite,
-    ) -> Self {
+    pub fn new(reader: Box<dyn CaptureReader>, roles: RoleMap, chunk: usize, nonfinite: NonFinite) -> Self {
         CaptureSource {
             roles,
             chunk: chunk.max(1),
@@ -165,9 +140,7 @@ impl CaptureSource {
             }
             self.segments_seen += 1;
             if self.segments_seen <= SEGMENT_NOTICES {
-                let f = freq
-                    .map(|f| format!(", centre frequency {f} Hz"))
-                    .unwrap_or_default();
+                let f = freq.map(|f| format!(", centre frequency {f} Hz")).unwrap_or_default();
                 out.notice(
                     Stamp::new(start, info.rate),
                     format!(
@@ -243,13 +216,8 @@ impl Block for CaptureSource {
             }
             return Ok(false);
         }
-        let chunk = self.roles.chunk(
-            &mut self.frames,
-            self.next,
-            self.reader.info(),
-            self.nonfinite,
-            &mut self.replaced,
-        )?;
+        let chunk =
+            self.roles.chunk(&mut self.frames, self.next, self.reader.info(), self.nonfinite, &mut self.replaced)?;
         self.next += n as u64;
         if self.frames.is_empty() {
             // The chunk took the buffer over: remember it for reuse.
@@ -307,10 +275,7 @@ mod tests {
             meta_path: None,
             format: Format::Raw,
             encoding_text: "rf32_le".into(),
-            encoding: Encoding::Type(DataType {
-                complex: false,
-                ..DataType::CF32_LE
-            }),
+            encoding: Encoding::Type(DataType { complex: false, ..DataType::CF32_LE }),
             complex: false,
             channels: 1,
             rate: 100.0,
@@ -320,28 +285,11 @@ mod tests {
             sigmf: None,
         };
         let roles = RoleMap::new(&[], &info).unwrap_or_else(|e| panic!("{e}"));
-        let mut src = CaptureSource::new(
-            Box::new(Trickle {
-                info,
-                left: 45,
-                next: 0.0,
-            }),
-            roles,
-            20,
-            NonFinite::Error,
-        );
+        let mut src = CaptureSource::new(Box::new(Trickle { info, left: 45, next: 0.0 }), roles, 20, NonFinite::Error);
         let mut out = Outputs::new(1);
         while src.generate(&mut out).unwrap_or(false) {}
-        let chunks: Vec<_> = out
-            .drain()
-            .filter_map(|(_, i)| {
-                if let Item::Samples(c) = i {
-                    Some(c)
-                } else {
-                    None
-                }
-            })
-            .collect();
+        let chunks: Vec<_> =
+            out.drain().filter_map(|(_, i)| if let Item::Samples(c) = i { Some(c) } else { None }).collect();
         let lens: Vec<usize> = chunks.iter().map(|c| c.len()).collect();
         assert_eq!(lens, [20, 20, 5]);
         assert_eq!(chunks[2].stamp.index, 40);

@@ -8,9 +8,7 @@ use lobeflow_blocks::BlockError;
 
 pub fn open_stdin(opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
     if !matches!(opts.format, Format::Raw) {
-        return Err(BlockError::new(
-            "standard input ('-') needs format raw, a datatype (e.g. cu8) and a rate",
-        ));
+        return Err(BlockError::new("standard input ('-') needs format raw, a datatype (e.g. cu8) and a rate"));
     }
     let info = raw_info("-", opts, None)?;
     // Stdin buffers internally; large reads go straight through.

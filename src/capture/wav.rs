@@ -4,8 +4,7 @@
 
 use super::datatype::{DataType, SampleFormat};
 use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels,
-    agree_rate,
+    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
 use lobeflow_blocks::BlockError;
 use std::fs::File;
@@ -15,8 +14,7 @@ use std::io::{BufReader, Read, Seek, SeekFrom};
 pub const MAX_WAV_CHANNELS: usize = 8;
 
 pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
-    let file = File::open(path)
-        .map_err(|e| BlockError::new(format!("{path}: cannot open the WAV file: {e}")))?;
+    let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the WAV file: {e}")))?;
     let file_len = file.metadata().map(|m| m.len()).unwrap_or(0);
     let mut input = BufReader::with_capacity(1 << 16, file);
     let spec = match hound::WavReader::new(&mut input) {
@@ -24,19 +22,14 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
         Err(e) => return Err(BlockError::new(explain_header_error(path, e))),
     };
     let (spec, values) = spec;
-    let data_offset = input
-        .stream_position()
-        .map_err(|e| BlockError::new(format!("{path}: {e}")))?;
+    let data_offset = input.stream_position().map_err(|e| BlockError::new(format!("{path}: {e}")))?;
     // hound knows, but does not tell, the container size of a sample (24 valid
     // bits may sit in 4 bytes); the data chunk's length field just before the
     // data gives it.
     let data_bytes = u64::from(
-        read_u32_at(&mut input, data_offset.saturating_sub(4))
-            .map_err(|e| BlockError::new(format!("{path}: {e}")))?,
+        read_u32_at(&mut input, data_offset.saturating_sub(4)).map_err(|e| BlockError::new(format!("{path}: {e}")))?,
     );
-    input
-        .seek(SeekFrom::Start(data_offset))
-        .map_err(|e| BlockError::new(format!("{path}: {e}")))?;
+    input.seek(SeekFrom::Start(data_offset)).map_err(|e| BlockError::new(format!("{path}: {e}")))?;
     let container = data_bytes
         .checked_div(values)
         .map(|b| b as usize)
@@ -51,33 +44,20 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     let bits = spec.bits_per_sample;
     // The combinations hound itself decodes.
     let (encoding, text) = match (spec.sample_format, container, bits) {
-        (hound::SampleFormat::Float, 4, 32) => (
-            Encoding::Type(real(SampleFormat::F32)),
-            "IEEE float 32-bit".to_string(),
-        ),
-        (hound::SampleFormat::Int, 1, 8) => (
-            Encoding::Type(real(SampleFormat::U8)),
-            "PCM unsigned 8-bit".to_string(),
-        ),
-        (hound::SampleFormat::Int, 2, 16) => (
-            Encoding::Type(real(SampleFormat::I16)),
-            "PCM integer 16-bit".to_string(),
-        ),
-        (hound::SampleFormat::Int, 3, 24) | (hound::SampleFormat::Int, 4, 24 | 32) => (
-            Encoding::IntLe {
-                bytes: container,
-                bits: u32::from(bits),
-            },
-            container_text(bits, container),
-        ),
+        (hound::SampleFormat::Float, 4, 32) => {
+            (Encoding::Type(real(SampleFormat::F32)), "IEEE float 32-bit".to_string())
+        }
+        (hound::SampleFormat::Int, 1, 8) => (Encoding::Type(real(SampleFormat::U8)), "PCM unsigned 8-bit".to_string()),
+        (hound::SampleFormat::Int, 2, 16) => {
+            (Encoding::Type(real(SampleFormat::I16)), "PCM integer 16-bit".to_string())
+        }
+        (hound::SampleFormat::Int, 3, 24) | (hound::SampleFormat::Int, 4, 24 | 32) => {
+            (Encoding::IntLe { bytes: container, bits: u32::from(bits) }, container_text(bits, container))
+        }
         (fmt, _, _) => {
             return Err(BlockError::new(format!(
                 "{path}: unsupported WAV sample format: {} {bits}-bit in {container}-byte containers (supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit)",
-                if fmt == hound::SampleFormat::Float {
-                    "IEEE float"
-                } else {
-                    "integer"
-                }
+                if fmt == hound::SampleFormat::Float { "IEEE float" } else { "integer" }
             )));
         }
     };
@@ -92,12 +72,7 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
             file_len.saturating_sub(data_offset) / frame_bytes.max(1),
         ));
     }
-    let rate = agree_rate(
-        path,
-        opts.rate,
-        Some(f64::from(spec.sample_rate)),
-        "the WAV header",
-    )?;
+    let rate = agree_rate(path, opts.rate, Some(f64::from(spec.sample_rate)), "the WAV header")?;
     agree_channels(path, opts.channels, channels, "the WAV header")?;
     if let Some(dt) = &opts.datatype {
         return Err(BlockError::new(format!(
@@ -122,11 +97,7 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
 }
 
 fn real(format: SampleFormat) -> DataType {
-    DataType {
-        complex: false,
-        format,
-        big_endian: false,
-    }
+    DataType { complex: false, format, big_endian: false }
 }
 
 fn container_text(bits: u16, container: usize) -> String {
@@ -149,12 +120,7 @@ fn read_u32_at<R: Read + Seek>(r: &mut R, at: u64) -> std::io::Result<u32> {
 fn explain_header_error(path: &str, e: hound::Error) -> String {
     let tag = format_tag(path);
     let tag_text = tag
-        .map(|(t, bits)| {
-            format!(
-                " (format tag 0x{t:04x} {}, {bits} bits per sample)",
-                tag_name(t)
-            )
-        })
+        .map(|(t, bits)| format!(" (format tag 0x{t:04x} {}, {bits} bits per sample)", tag_name(t)))
         .unwrap_or_default();
     let supported = "supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit, also as WAVE_FORMAT_EXTENSIBLE";
     match e {
@@ -193,11 +159,7 @@ fn tag_name(tag: u16) -> &'static str {
 /// chunks of the first few kilobytes (only used to explain an error).
 fn format_tag(path: &str) -> Option<(u16, u16)> {
     let mut head = Vec::new();
-    File::open(path)
-        .ok()?
-        .take(1 << 16)
-        .read_to_end(&mut head)
-        .ok()?;
+    File::open(path).ok()?.take(1 << 16).read_to_end(&mut head).ok()?;
     if head.get(0..4)? != b"RIFF" || head.get(8..12)? != b"WAVE" {
         return None;
     }

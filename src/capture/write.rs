@@ -35,13 +35,7 @@ pub enum WriteFormat {
 }
 
 /// Names accepted by [`WriteFormat::parse`], in catalog order.
-pub const WRITE_FORMAT_NAMES: &[&str] = &[
-    "wav_f32",
-    "wav_i16",
-    "sigmf_cf32_le",
-    "sigmf_ci16_le",
-    "sigmf_cu8",
-];
+pub const WRITE_FORMAT_NAMES: &[&str] = &["wav_f32", "wav_i16", "sigmf_cf32_le", "sigmf_ci16_le", "sigmf_cu8"];
 
 impl WriteFormat {
     pub fn parse(name: &str) -> Result<WriteFormat, String> {
@@ -52,10 +46,7 @@ impl WriteFormat {
             "sigmf_cf32_le" => dt("cf32_le"),
             "sigmf_ci16_le" => dt("ci16_le"),
             "sigmf_cu8" => dt("cu8"),
-            _ => Err(format!(
-                "unknown capture format '{name}' (one of {})",
-                WRITE_FORMAT_NAMES.join(", ")
-            )),
+            _ => Err(format!("unknown capture format '{name}' (one of {})", WRITE_FORMAT_NAMES.join(", "))),
         }
     }
 
@@ -157,9 +148,7 @@ struct SeekableOutput {
 
 impl SeekableOutput {
     fn inner(&mut self) -> std::io::Result<&mut OutputFile> {
-        self.file
-            .as_mut()
-            .ok_or_else(|| std::io::Error::other("output already closed"))
+        self.file.as_mut().ok_or_else(|| std::io::Error::other("output already closed"))
     }
 }
 
@@ -190,16 +179,8 @@ impl Drop for SeekableOutput {
 const WAV_MAX_DATA_BYTES: u64 = u32::MAX as u64 - 4096;
 
 enum Sink {
-    Wav {
-        writer: hound::WavWriter<SeekableOutput>,
-        slot: Arc<Mutex<Option<OutputFile>>>,
-        int16: bool,
-    },
-    Sigmf {
-        data: OutputFile,
-        meta_path: PathBuf,
-        datatype: DataType,
-    },
+    Wav { writer: hound::WavWriter<SeekableOutput>, slot: Arc<Mutex<Option<OutputFile>>>, int16: bool },
+    Sigmf { data: OutputFile, meta_path: PathBuf, datatype: DataType },
 }
 
 /// Streams frames to one capture. See the module docs for the layouts.
@@ -218,64 +199,36 @@ impl CaptureWriter {
     /// file goes beside it with the `.sigmf-meta` extension).
     pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, String> {
         if !(config.rate.is_finite() && config.rate > 0.0) {
-            return Err(format!(
-                "sample rate {} is not a positive number",
-                config.rate
-            ));
+            return Err(format!("sample rate {} is not a positive number", config.rate));
         }
         if !(config.scale.is_finite() && config.scale > 0.0) {
-            return Err(format!(
-                "IQ scale {} is not a positive number",
-                config.scale
-            ));
+            return Err(format!("IQ scale {} is not a positive number", config.scale));
         }
-        let open = |p: &Path| {
-            OutputFile::create(p).map_err(|e| format!("cannot write {}: {e}", p.display()))
-        };
+        let open = |p: &Path| OutputFile::create(p).map_err(|e| format!("cannot write {}: {e}", p.display()));
         let sink = match config.format {
             WriteFormat::WavF32 | WriteFormat::WavI16 => {
                 let rate = config.rate.round();
                 if (rate - config.rate).abs() > 1e-6 * config.rate || rate > u32::MAX as f64 {
-                    return Err(format!(
-                        "WAV needs a whole sample rate below 2^32 S/s, not {}",
-                        config.rate
-                    ));
+                    return Err(format!("WAV needs a whole sample rate below 2^32 S/s, not {}", config.rate));
                 }
                 let int16 = config.format == WriteFormat::WavI16;
                 let spec = hound::WavSpec {
                     channels: 2 + config.aux.len() as u16,
                     sample_rate: rate as u32,
                     bits_per_sample: if int16 { 16 } else { 32 },
-                    sample_format: if int16 {
-                        hound::SampleFormat::Int
-                    } else {
-                        hound::SampleFormat::Float
-                    },
+                    sample_format: if int16 { hound::SampleFormat::Int } else { hound::SampleFormat::Float },
                 };
                 let slot = Arc::new(Mutex::new(None));
-                let out = SeekableOutput {
-                    file: Some(open(path)?),
-                    slot: Arc::clone(&slot),
-                };
+                let out = SeekableOutput { file: Some(open(path)?), slot: Arc::clone(&slot) };
                 let writer = hound::WavWriter::new(out, spec)
                     .map_err(|e| format!("cannot start WAV {}: {e}", path.display()))?;
-                Sink::Wav {
-                    writer,
-                    slot,
-                    int16,
-                }
+                Sink::Wav { writer, slot, int16 }
             }
             WriteFormat::Sigmf(datatype) => {
                 if !datatype.complex {
-                    return Err(format!(
-                        "SigMF output needs a complex datatype, not {datatype}"
-                    ));
+                    return Err(format!("SigMF output needs a complex datatype, not {datatype}"));
                 }
-                Sink::Sigmf {
-                    data: open(path)?,
-                    meta_path: path.with_extension("sigmf-meta"),
-                    datatype,
-                }
+                Sink::Sigmf { data: open(path)?, meta_path: path.with_extension("sigmf-meta"), datatype }
             }
         };
         Ok(CaptureWriter {
@@ -306,11 +259,7 @@ impl CaptureWriter {
     /// long as `iq`.
     pub fn write(&mut self, iq: &[Complex32], aux: &[&[f32]]) -> Result<(), String> {
         if aux.len() != self.config.aux.len() {
-            return Err(format!(
-                "{} aux channels given, {} configured",
-                aux.len(),
-                self.config.aux.len()
-            ));
+            return Err(format!("{} aux channels given, {} configured", aux.len(), self.config.aux.len()));
         }
         if let Some((i, a)) = aux.iter().enumerate().find(|(_, a)| a.len() != iq.len()) {
             return Err(format!(
@@ -342,9 +291,7 @@ impl CaptureWriter {
                     self.bytes.clear();
                     I16_LE.encode(&self.components, &mut self.bytes);
                     for b in self.bytes.chunks_exact(2) {
-                        writer
-                            .write_sample(i16::from_le_bytes([b[0], b[1]]))
-                            .map_err(wav_err)?;
+                        writer.write_sample(i16::from_le_bytes([b[0], b[1]])).map_err(wav_err)?;
                     }
                 } else {
                     for &v in &self.components {
@@ -363,8 +310,7 @@ impl CaptureWriter {
                 }
                 self.bytes.clear();
                 datatype.encode(&self.components, &mut self.bytes);
-                data.write_all(&self.bytes)
-                    .map_err(|e| format!("writing {}: {e}", self.path.display()))?;
+                data.write_all(&self.bytes).map_err(|e| format!("writing {}: {e}", self.path.display()))?;
             }
         }
         self.frames += iq.len() as u64;
@@ -385,19 +331,10 @@ impl CaptureWriter {
             description: self.config.description.clone(),
             other: Map::new(),
         };
-        let capture = Capture {
-            sample_start: 0,
-            frequency: self.config.frequency,
-            datetime: None,
-            other: Map::new(),
-        };
+        let capture = Capture { sample_start: 0, frequency: self.config.frequency, datetime: None, other: Map::new() };
         let mut annotations = self.config.annotations.clone();
         annotations.sort_by_key(|a| a.sample_start);
-        Some(SigmfMeta {
-            global,
-            captures: vec![capture],
-            annotations,
-        })
+        Some(SigmfMeta { global, captures: vec![capture], annotations })
     }
 
     /// Close every file and hand it to `stager` for the final rename.
@@ -408,30 +345,21 @@ impl CaptureWriter {
         let io_err = |p: &Path, e: std::io::Error| format!("finishing {}: {e}", p.display());
         match self.sink {
             Sink::Wav { writer, slot, .. } => {
-                writer
-                    .finalize()
-                    .map_err(|e| format!("finishing {}: {e}", path.display()))?;
+                writer.finalize().map_err(|e| format!("finishing {}: {e}", path.display()))?;
                 let file = slot.lock().unwrap_or_else(|e| e.into_inner()).take();
-                let file =
-                    file.ok_or_else(|| format!("finishing {}: file was lost", path.display()))?;
+                let file = file.ok_or_else(|| format!("finishing {}: file was lost", path.display()))?;
                 file.finish(stager).map_err(|e| io_err(&path, e))?;
                 Ok(vec![path])
             }
-            Sink::Sigmf {
-                data, meta_path, ..
-            } => {
+            Sink::Sigmf { data, meta_path, .. } => {
                 data.finish(stager).map_err(|e| io_err(&path, e))?;
-                let mut meta_file =
-                    OutputFile::create(&meta_path).map_err(|e| io_err(&meta_path, e))?;
-                let json = serde_json::to_string_pretty(&meta)
-                    .map_err(|e| format!("SigMF metadata: {e}"))?;
+                let mut meta_file = OutputFile::create(&meta_path).map_err(|e| io_err(&meta_path, e))?;
+                let json = serde_json::to_string_pretty(&meta).map_err(|e| format!("SigMF metadata: {e}"))?;
                 meta_file
                     .write_all(json.as_bytes())
                     .and_then(|_| meta_file.write_all(b"\n"))
                     .map_err(|e| io_err(&meta_path, e))?;
-                meta_file
-                    .finish(stager)
-                    .map_err(|e| io_err(&meta_path, e))?;
+                meta_file.finish(stager).map_err(|e| io_err(&meta_path, e))?;
                 Ok(vec![path, meta_path])
             }
         }
@@ -455,11 +383,7 @@ pub fn commit_staged(stager: &FileStager) -> Result<Vec<PathBuf>, String> {
     })
 }
 
-const I16_LE: DataType = DataType {
-    complex: false,
-    format: SampleFormat::I16,
-    big_endian: false,
-};
+const I16_LE: DataType = DataType { complex: false, format: SampleFormat::I16, big_endian: false };
 
 #[cfg(test)]
 mod tests {
@@ -485,11 +409,7 @@ mod tests {
         let mut w = CaptureWriter::create(&path, cfg).unwrap();
         let iq = [Complex32::new(0.1, 0.2); 4];
         assert!(w.write(&iq, &[]).unwrap_err().contains("aux"));
-        assert!(
-            w.write(&iq, &[&[0.0; 3]])
-                .unwrap_err()
-                .contains("sync channel has 3")
-        );
+        assert!(w.write(&iq, &[&[0.0; 3]]).unwrap_err().contains("sync channel has 3"));
         w.write(&iq, &[&[0.5; 4]]).unwrap();
         drop(w);
         assert!(!path.exists());

@@ -15,7 +15,12 @@ pub fn check(path: &Path, overrides: &Overrides) -> Result<String, Error> {
 
 pub fn describe(g: &ResolvedGraph) -> String {
     let mut s = String::new();
-    let _ = writeln!(s, "graph {}{}", g.path.display(), if g.title.is_empty() { String::new() } else { format!(": {}", g.title) });
+    let _ = writeln!(
+        s,
+        "graph {}{}",
+        g.path.display(),
+        if g.title.is_empty() { String::new() } else { format!(": {}", g.title) }
+    );
     let _ = writeln!(s, "\nknobs:");
     for k in &g.knobs {
         let unit = k.unit.as_deref().map(|u| format!(" [{u}]")).unwrap_or_default();
@@ -27,7 +32,9 @@ pub fn describe(g: &ResolvedGraph) -> String {
         for (name, value) in b.params.iter() {
             let from = b.sources.get(name).map(String::as_str).unwrap_or("");
             let unit = match (value, b.spec.param(name).map(|p| p.ty)) {
-                (Value::Number(_), Some(ParamType::Number { unit, .. })) if !unit.symbol().is_empty() => format!(" {}", unit.symbol()),
+                (Value::Number(_), Some(ParamType::Number { unit, .. })) if !unit.symbol().is_empty() => {
+                    format!(" {}", unit.symbol())
+                }
                 _ => String::new(),
             };
             let _ = writeln!(s, "      {name} = {value}{unit}    ({from})");

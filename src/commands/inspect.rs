@@ -47,27 +47,19 @@ pub fn args_from_text(
     let rate = match rate {
         None => None,
         Some(text) => {
-            let spec = crate::capture::source::SPEC
-                .param("rate")
-                .ok_or_else(|| Error::Usage("no rate parameter".into()))?;
+            let spec =
+                crate::capture::source::SPEC.param("rate").ok_or_else(|| Error::Usage("no rate parameter".into()))?;
             match spec.parse(&RawValue::from_text(text)) {
                 Ok(Value::Number(r)) if r > 0.0 => Some(r),
                 Ok(_) => {
-                    return Err(Error::Usage(format!(
-                        "--rate {text}: the rate must be above 0"
-                    )));
+                    return Err(Error::Usage(format!("--rate {text}: the rate must be above 0")));
                 }
                 Err(e) => return Err(Error::Usage(format!("--rate {text}: {e}"))),
             }
         }
     };
     let roles = roles
-        .map(|r| {
-            r.split(',')
-                .map(|x| x.trim().to_string())
-                .filter(|x| !x.is_empty())
-                .collect()
-        })
+        .map(|r| r.split(',').map(|x| x.trim().to_string()).filter(|x| !x.is_empty()).collect())
         .unwrap_or_default();
     Ok(InspectArgs {
         path,
@@ -201,12 +193,7 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
         })
         .collect();
     let factor = ((info.rate / ENVELOPE_RATE).round() as usize).max(1);
-    let new_dec = || Decimator {
-        factor,
-        acc: 0.0,
-        n: 0,
-        values: Vec::with_capacity(MAX_FFT),
-    };
+    let new_dec = || Decimator { factor, acc: 0.0, n: 0, values: Vec::with_capacity(MAX_FFT) };
     let mut magnitude = new_dec();
     let mut sync = roles.has_sync().then(new_dec);
     let mut frames = Vec::new();
@@ -217,9 +204,7 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
             break info.frames().is_none_or(|total| total > seen);
         }
         let want = (BLOCK as u64).min(max_frames - seen) as usize;
-        let n = reader
-            .read_frames(want, &mut frames)
-            .map_err(|e| Error::Input(e.to_string()))?;
+        let n = reader.read_frames(want, &mut frames).map_err(|e| Error::Input(e.to_string()))?;
         if n == 0 {
             break false;
         }
@@ -311,23 +296,11 @@ fn component_labels(info: &CaptureInfo, roles: &[Role]) -> Vec<String> {
 /// The strongest spectral peaks of a decimated envelope: mean removed, Hann
 /// window, zero-padded power-of-two FFT, local maxima refined by a parabola
 /// through the log power of the peak bin and its neighbours.
-fn periodicities(
-    source: &'static str,
-    d: &Decimator,
-    rate: f64,
-    planner: &mut FftPlanner<f32>,
-) -> Envelope {
+fn periodicities(source: &'static str, d: &Decimator, rate: f64, planner: &mut FftPlanner<f32>) -> Envelope {
     let env_rate = rate / d.factor as f64;
     let n = d.values.len();
     let fft_len = n.next_power_of_two().clamp(64, MAX_FFT);
-    let mut envelope = Envelope {
-        source,
-        decimation: d.factor,
-        rate: env_rate,
-        used: n,
-        fft_len,
-        peaks: Vec::new(),
-    };
+    let mut envelope = Envelope { source, decimation: d.factor, rate: env_rate, used: n, fft_len, peaks: Vec::new() };
     if n < 8 {
         return envelope;
     }
@@ -343,18 +316,13 @@ fn periodicities(
         .collect();
     buf.resize(fft_len, Complex32::new(0.0, 0.0));
     planner.plan_fft_forward(fft_len).process(&mut buf);
-    let power: Vec<f64> = buf[..fft_len / 2 + 1]
-        .iter()
-        .map(|z| f64::from(z.norm_sqr()))
-        .collect();
+    let power: Vec<f64> = buf[..fft_len / 2 + 1].iter().map(|z| f64::from(z.norm_sqr())).collect();
     let strongest = power.iter().skip(1).cloned().fold(0.0, f64::max);
     if strongest <= 0.0 || !strongest.is_finite() {
         return envelope;
     }
     let mut peaks: Vec<(usize, f64)> = (2..power.len().saturating_sub(1))
-        .filter(|&k| {
-            power[k] > power[k - 1] && power[k] >= power[k + 1] && power[k] > strongest * 1e-9
-        })
+        .filter(|&k| power[k] > power[k - 1] && power[k] >= power[k + 1] && power[k] > strongest * 1e-9)
         .map(|k| (k, power[k]))
         .collect();
     peaks.sort_by(|a, b| b.1.total_cmp(&a.1));
@@ -364,23 +332,11 @@ fn periodicities(
         .iter()
         .take(PEAKS)
         .map(|&(k, p)| {
-            let (a, b, c) = (
-                power[k - 1].max(1e-300).ln(),
-                p.ln(),
-                power[k + 1].max(1e-300).ln(),
-            );
+            let (a, b, c) = (power[k - 1].max(1e-300).ln(), p.ln(), power[k + 1].max(1e-300).ln());
             let denom = a - 2.0 * b + c;
-            let delta = if denom < 0.0 {
-                (0.5 * (a - c) / denom).clamp(-0.5, 0.5)
-            } else {
-                0.0
-            };
+            let delta = if denom < 0.0 { (0.5 * (a - c) / denom).clamp(-0.5, 0.5) } else { 0.0 };
             let f = (k as f64 + delta) * bin_hz;
-            Periodicity {
-                frequency_hz: f,
-                period_s: 1.0 / f,
-                relative_db: 10.0 * (p / top).log10(),
-            }
+            Periodicity { frequency_hz: f, period_s: 1.0 / f, relative_db: 10.0 * (p / top).log10() }
         })
         .collect();
     envelope
@@ -472,17 +428,9 @@ impl Inspection {
         );
         for c in &self.stats {
             let num = |v: f64| {
-                if v.is_finite() {
-                    format!("{v:.6}")
-                } else {
-                    "-".to_string()
-                }
+                if v.is_finite() { format!("{v:.6}") } else { "-".to_string() }
             };
-            let peak = if c.peak_dbfs.is_finite() {
-                format!("{:.2}", c.peak_dbfs)
-            } else {
-                "-inf".to_string()
-            };
+            let peak = if c.peak_dbfs.is_finite() { format!("{:.2}", c.peak_dbfs) } else { "-inf".to_string() };
             let _ = writeln!(
                 s,
                 "  {:<14} {:>10} {:>10} {:>10} {:>10} {:>10} {:>8} {:>10}",

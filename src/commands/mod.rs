@@ -4,8 +4,8 @@
 
 pub mod catalog;
 pub mod check;
-pub mod regress;
 pub mod inspect;
+pub mod regress;
 pub mod run;
 pub mod synth;
 

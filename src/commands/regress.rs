@@ -18,10 +18,8 @@ pub struct RegressArgs {
 
 /// Run all samples; Ok(rows) whatever the verdicts (the caller decides the exit).
 pub fn regress(args: &RegressArgs) -> Result<Vec<Row>, Error> {
-    let manifests: Vec<Manifest> = find_manifests(&args.dir)?
-        .iter()
-        .map(|p| Manifest::load(p).map_err(Error::from))
-        .collect::<Result<_, _>>()?;
+    let manifests: Vec<Manifest> =
+        find_manifests(&args.dir)?.iter().map(|p| Manifest::load(p).map_err(Error::from)).collect::<Result<_, _>>()?;
     let next = Mutex::new(0usize);
     let results: Mutex<Vec<(usize, Result<Vec<Row>, Error>)>> = Mutex::new(Vec::new());
     std::thread::scope(|s| {
@@ -58,12 +56,21 @@ pub fn regress(args: &RegressArgs) -> Result<Vec<Row>, Error> {
 /// The table a person reads.
 pub fn table(rows: &[Row]) -> String {
     let w = |f: &dyn Fn(&Row) -> usize, min: usize| rows.iter().map(f).max().unwrap_or(0).max(min);
-    let (ws, wc, wm, wb) = (w(&|r| r.sample.len(), 6), w(&|r| r.check.len(), 5), w(&|r| r.measured.len(), 8), w(&|r| r.bound.len(), 5));
+    let (ws, wc, wm, wb) =
+        (w(&|r| r.sample.len(), 6), w(&|r| r.check.len(), 5), w(&|r| r.measured.len(), 8), w(&|r| r.bound.len(), 5));
     let mut s = String::new();
-    let _ = writeln!(s, "{:<ws$}  {:<wc$}  {:>wm$}  {:<wb$}  {:<7}  {:>7}", "sample", "check", "measured", "bound", "verdict", "time s");
+    let _ = writeln!(
+        s,
+        "{:<ws$}  {:<wc$}  {:>wm$}  {:<wb$}  {:<7}  {:>7}",
+        "sample", "check", "measured", "bound", "verdict", "time s"
+    );
     for r in rows {
         let v = if r.passed { "pass" } else { "FAIL" };
-        let _ = writeln!(s, "{:<ws$}  {:<wc$}  {:>wm$}  {:<wb$}  {:<7}  {:>7.2}", r.sample, r.check, r.measured, r.bound, v, r.seconds);
+        let _ = writeln!(
+            s,
+            "{:<ws$}  {:<wc$}  {:>wm$}  {:<wb$}  {:<7}  {:>7.2}",
+            r.sample, r.check, r.measured, r.bound, v, r.seconds
+        );
     }
     let failed = rows.iter().filter(|r| !r.passed).count();
     let _ = writeln!(s, "{} checks, {} passed, {} failed", rows.len(), rows.len() - failed, failed);

@@ -35,7 +35,10 @@ pub fn run_graph(args: &RunArgs) -> Result<RunReport, Error> {
         let _ = ctrlc::set_handler(move || c.store(true, Ordering::SeqCst));
     }
     let show = !args.quiet && std::io::stderr().is_terminal();
-    let bar = ProgressBar::with_draw_target(Some(0), if show { ProgressDrawTarget::stderr() } else { ProgressDrawTarget::hidden() });
+    let bar = ProgressBar::with_draw_target(
+        Some(0),
+        if show { ProgressDrawTarget::stderr() } else { ProgressDrawTarget::hidden() },
+    );
     bar.set_style(
         ProgressStyle::with_template("{bar:40} {bytes}/{total_bytes} {bytes_per_sec} eta {eta}")
             .unwrap_or_else(|_| ProgressStyle::default_bar()),
@@ -71,12 +74,20 @@ pub fn summary(report: &RunReport, stats: bool) -> String {
         let _ = writeln!(s, "wrote {}", w.display());
     }
     if stats {
-        let _ = writeln!(s, "{:<28} {:<22} {:>10} {:>14} {:>12} {:>10}", "block", "kind", "items", "samples", "MS/s busy", "busy s");
+        let _ = writeln!(
+            s,
+            "{:<28} {:<22} {:>10} {:>14} {:>12} {:>10}",
+            "block", "kind", "items", "samples", "MS/s busy", "busy s"
+        );
         for b in &report.stats {
             let secs = b.busy.as_secs_f64();
             let rate = if secs > 0.0 { b.samples_in as f64 / secs / 1e6 } else { 0.0 };
             let items = b.items_in.max(b.items_out);
-            let _ = writeln!(s, "{:<28} {:<22} {:>10} {:>14} {:>12.1} {:>10.3}", b.name, b.kind, items, b.samples_in, rate, secs);
+            let _ = writeln!(
+                s,
+                "{:<28} {:<22} {:>10} {:>14} {:>12.1} {:>10.3}",
+                b.name, b.kind, items, b.samples_in, rate, secs
+            );
         }
         let _ = writeln!(s, "elapsed {:.3} s", report.elapsed.as_secs_f64());
     }

@@ -12,19 +12,10 @@ const FEW_STEPS: f64 = 2.0;
 /// Run the synthesizer; returns the summary text for stderr.
 pub fn synth(scenario: &Path, prefix: &Path) -> Result<(SynthReport, String), Error> {
     let file = ScenarioFile::load(scenario).map_err(Error::Input)?;
-    let report = synthesize(&file, prefix).map_err(|e| {
-        if e.starts_with(&scenario.display().to_string()) {
-            Error::Input(e)
-        } else {
-            Error::Output(e)
-        }
-    })?;
+    let report = synthesize(&file, prefix)
+        .map_err(|e| if e.starts_with(&scenario.display().to_string()) { Error::Input(e) } else { Error::Output(e) })?;
     let mut s = String::new();
-    let _ = writeln!(
-        s,
-        "{} samples, {} dwells; IQ scaled by {:e}",
-        report.samples, report.dwells, report.scale
-    );
+    let _ = writeln!(s, "{} samples, {} dwells; IQ scaled by {:e}", report.samples, report.dwells, report.scale);
     if let Some(steps) = report.noise_steps.filter(|&st| st < FEW_STEPS) {
         let _ = writeln!(
             s,

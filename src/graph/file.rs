@@ -136,15 +136,23 @@ pub fn read_text(path: &Path) -> Result<String, GraphError> {
     })
 }
 
-fn check_keys(src: &Source, at: &[Seg], map: &serde_yaml::Mapping, allowed: &[&str], what: &str) -> Result<(), GraphError> {
+fn check_keys(
+    src: &Source,
+    at: &[Seg],
+    map: &serde_yaml::Mapping,
+    allowed: &[&str],
+    what: &str,
+) -> Result<(), GraphError> {
     for k in map.keys() {
         let name = k.as_str().unwrap_or("");
         if !allowed.contains(&name) {
             let mut path = at.to_vec();
             path.push(key(name));
-            return Err(src
-                .error(&path, format!("unknown key '{name}' in {what}"))
-                .hint_closest(name, allowed.iter().copied(), &format!("allowed: {}", allowed.join(", "))));
+            return Err(src.error(&path, format!("unknown key '{name}' in {what}")).hint_closest(
+                name,
+                allowed.iter().copied(),
+                &format!("allowed: {}", allowed.join(", ")),
+            ));
         }
     }
     Ok(())
@@ -195,7 +203,10 @@ impl GraphFile {
                         check_keys(&src, &at, m, KNOB_KEYS, &format!("knob '{name}'"))?;
                         let default = match m.get("default") {
                             Some(d) => Some(raw_value(d).ok_or_else(|| {
-                                src.error(&[key("knobs"), key(&name), key("default")], "default must be a number, text, true/false or a list")
+                                src.error(
+                                    &[key("knobs"), key(&name), key("default")],
+                                    "default must be a number, text, true/false or a list",
+                                )
                             })?),
                             None => None,
                         };
@@ -204,12 +215,16 @@ impl GraphFile {
                         KnobDecl { name, default, unit, doc }
                     }
                     // Shorthand: `name: value`.
-                    other => KnobDecl {
-                        name,
-                        default: Some(raw_value(other).ok_or_else(|| src.error(&at, "a knob is a value or a mapping with default, unit, doc"))?),
-                        unit: None,
-                        doc: String::new(),
-                    },
+                    other => {
+                        KnobDecl {
+                            name,
+                            default: Some(raw_value(other).ok_or_else(|| {
+                                src.error(&at, "a knob is a value or a mapping with default, unit, doc")
+                            })?),
+                            unit: None,
+                            doc: String::new(),
+                        }
+                    }
                 };
                 knobs.push(decl);
             }
@@ -227,12 +242,21 @@ impl GraphFile {
             let m = mapping(&src, &at, body, &format!("block '{name}'"))?;
             check_keys(&src, &at, m, BLOCK_KEYS, &format!("block '{name}'"))?;
             let body = match (m.get("kind"), m.get("use")) {
-                (Some(kind), None) => BlockBody::Kind(text_of(&src, &[key("blocks"), key(&name), key("kind")], kind, "kind")?),
-                (None, Some(file)) => BlockBody::Use(text_of(&src, &[key("blocks"), key(&name), key("use")], file, "use")?),
-                (Some(_), Some(_)) => return Err(src.error(&at, format!("block '{name}' has both 'kind' and 'use'; give one"))),
+                (Some(kind), None) => {
+                    BlockBody::Kind(text_of(&src, &[key("blocks"), key(&name), key("kind")], kind, "kind")?)
+                }
+                (None, Some(file)) => {
+                    BlockBody::Use(text_of(&src, &[key("blocks"), key(&name), key("use")], file, "use")?)
+                }
+                (Some(_), Some(_)) => {
+                    return Err(src.error(&at, format!("block '{name}' has both 'kind' and 'use'; give one")));
+                }
                 (None, None) => {
                     return Err(src
-                        .error(&at, format!("block '{name}' needs a 'kind' (a block kind) or 'use' (a graph file to include)"))
+                        .error(
+                            &at,
+                            format!("block '{name}' needs a 'kind' (a block kind) or 'use' (a graph file to include)"),
+                        )
                         .with_hint("`lobeflow blocks` lists the kinds"));
                 }
             };
@@ -242,7 +266,10 @@ impl GraphFile {
                 for (pk, pv) in mapping(&src, &set_at, s, "set")? {
                     let pname = pk.as_str().unwrap_or_default().to_string();
                     let value = raw_value(pv).ok_or_else(|| {
-                        src.error(&[key("blocks"), key(&name), key("set"), key(&pname)], "a parameter value must be a number, text, true/false or a list")
+                        src.error(
+                            &[key("blocks"), key(&name), key("set"), key(&pname)],
+                            "a parameter value must be a number, text, true/false or a list",
+                        )
                     })?;
                     set.push((pname, value));
                 }
@@ -252,7 +279,9 @@ impl GraphFile {
 
         let mut wiring = Vec::new();
         if let Some(v) = get("wiring") {
-            let items = v.as_sequence().ok_or_else(|| src.error(&[key("wiring")], "wiring must be a list of chains like 'a -> b -> c'"))?;
+            let items = v
+                .as_sequence()
+                .ok_or_else(|| src.error(&[key("wiring")], "wiring must be a list of chains like 'a -> b -> c'"))?;
             for (i, item) in items.iter().enumerate() {
                 wiring.push(text_of(&src, &[key("wiring"), Seg::Index(i)], item, "a wiring chain")?);
             }
@@ -267,7 +296,10 @@ impl GraphFile {
                     let at = [key("exposes"), key(side)];
                     for (pk, pv) in mapping(&src, &at, ports, side)? {
                         let pname = pk.as_str().unwrap_or_default().to_string();
-                        list.push((pname.clone(), text_of(&src, &[key("exposes"), key(side), key(&pname)], pv, "an exposed port")?));
+                        list.push((
+                            pname.clone(),
+                            text_of(&src, &[key("exposes"), key(side), key(&pname)], pv, "an exposed port")?,
+                        ));
                     }
                 }
             }

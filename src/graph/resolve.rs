@@ -16,11 +16,20 @@ use std::sync::Arc;
 /// Where a knob's value came from (shown by `lobeflow check`).
 #[derive(Clone, Debug, PartialEq)]
 pub enum Origin {
-    Default { file: PathBuf, line: usize },
-    ParamsFile { file: PathBuf, line: usize },
+    Default {
+        file: PathBuf,
+        line: usize,
+    },
+    ParamsFile {
+        file: PathBuf,
+        line: usize,
+    },
     CommandLine,
     /// Set by the enclosing graph on a composite block.
-    Parent { file: PathBuf, line: usize },
+    Parent {
+        file: PathBuf,
+        line: usize,
+    },
 }
 
 impl std::fmt::Display for Origin {
@@ -53,9 +62,8 @@ pub struct Overrides {
 impl Overrides {
     /// `name=value`, as given to `--set`.
     pub fn set_text(&mut self, assignment: &str) -> Result<(), String> {
-        let (name, value) = assignment
-            .split_once('=')
-            .ok_or_else(|| format!("--set takes name=value, got '{assignment}'"))?;
+        let (name, value) =
+            assignment.split_once('=').ok_or_else(|| format!("--set takes name=value, got '{assignment}'"))?;
         self.set(name.trim(), RawValue::from_text(value));
         Ok(())
     }
@@ -194,7 +202,8 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
                 .with_hint(format!("give it a default, or set it: --set {}=VALUE", decl.name)));
         }
     }
-    let mut b = Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
+    let mut b =
+        Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
     let scope = expand(&file, "", &knobs, &mut b)?;
     // A composite checked on its own: the inputs it exposes are wired by
     // whoever uses it, so they count as wired here.
@@ -222,7 +231,10 @@ fn canonical(p: &Path) -> PathBuf {
 
 /// Knob values from the file's defaults, then from `given` (a parent's set).
 /// A knob with no value yet holds an empty list, caught by the caller.
-fn settle_knobs(file: &GraphFile, mut given: BTreeMap<String, KnobValue>) -> Result<BTreeMap<String, KnobValue>, GraphError> {
+fn settle_knobs(
+    file: &GraphFile,
+    mut given: BTreeMap<String, KnobValue>,
+) -> Result<BTreeMap<String, KnobValue>, GraphError> {
     let src = &file.source;
     let mut out = BTreeMap::new();
     for d in &file.knobs {
@@ -257,14 +269,19 @@ fn substitute(
     let RawValue::Text(t) = raw else { return Ok((raw.clone(), None)) };
     let Some(name) = t.strip_prefix('$') else { return Ok((raw.clone(), None)) };
     let Some(k) = knobs.get(name) else {
-        return Err(src
-            .error(at, format!("knob '{name}' is referenced but not defined"))
-            .hint_closest(name, knobs.keys().map(String::as_str), "declare it under 'knobs:'"));
+        return Err(src.error(at, format!("knob '{name}' is referenced but not defined")).hint_closest(
+            name,
+            knobs.keys().map(String::as_str),
+            "declare it under 'knobs:'",
+        ));
     };
     if matches!(k.value, RawValue::List(ref l) if l.is_empty()) {
-        return Err(src.error(at, format!("knob '{name}' has no value")).with_hint(format!("set it: --set {name}=VALUE")));
+        return Err(src
+            .error(at, format!("knob '{name}' has no value"))
+            .with_hint(format!("set it: --set {name}=VALUE")));
     }
-    let takes_unit = matches!(ty, Some(ParamType::Number { .. } | ParamType::Time { .. } | ParamType::Distance { .. }) | None);
+    let takes_unit =
+        matches!(ty, Some(ParamType::Number { .. } | ParamType::Time { .. } | ParamType::Distance { .. }) | None);
     let value = match (&k.value, &k.unit) {
         (RawValue::Number(n), Some(u)) if takes_unit && !u.is_empty() => RawValue::Text(format!("{n} {u}")),
         (v, _) => v.clone(),
@@ -272,7 +289,12 @@ fn substitute(
     Ok((value, Some(k.clone())))
 }
 
-fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b: &mut Builder) -> Result<HashMap<String, Local>, GraphError> {
+fn expand(
+    file: &GraphFile,
+    prefix: &str,
+    knobs: &BTreeMap<String, KnobValue>,
+    b: &mut Builder,
+) -> Result<HashMap<String, Local>, GraphError> {
     let src = &file.source;
     let mut scope: HashMap<String, Local> = HashMap::new();
     for decl in &file.blocks {
@@ -294,12 +316,19 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                         let names: Vec<&str> = spec.params.iter().map(|p| p.name).collect();
                         return Err(src
                             .error(&pat, format!("block kind '{}' has no parameter '{pname}'", spec.kind))
-                            .hint_closest(pname, names.iter().copied(), &format!("its parameters: {}", names.join(", "))));
+                            .hint_closest(
+                                pname,
+                                names.iter().copied(),
+                                &format!("its parameters: {}", names.join(", ")),
+                            ));
                     };
                     let (value, knob) = substitute(raw, Some(&ps.ty), knobs, src, &pat)?;
                     let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
                     let mut parsed = ps.parse(&value).map_err(|m| {
-                        let via = knob.as_ref().map(|k| format!(" (from knob '{}', {})", k.name, k.origin)).unwrap_or_default();
+                        let via = knob
+                            .as_ref()
+                            .map(|k| format!(" (from knob '{}', {})", k.name, k.origin))
+                            .unwrap_or_default();
                         src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
                             .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
                     })?;
@@ -321,15 +350,21 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                     }
                     match ps.default {
                         Some(d) => {
-                            let v = ps
-                                .parse(&RawValue::from_text(d))
-                                .map_err(|m| src.error(&at, format!("built-in default of '{}' on kind '{}' is bad: {m}", ps.name, spec.kind)))?;
+                            let v = ps.parse(&RawValue::from_text(d)).map_err(|m| {
+                                src.error(
+                                    &at,
+                                    format!("built-in default of '{}' on kind '{}' is bad: {m}", ps.name, spec.kind),
+                                )
+                            })?;
                             params.insert(ps.name, v);
                             sources.insert(ps.name.to_string(), "block default".into());
                         }
                         None => {
                             return Err(src
-                                .error(&at, format!("block '{}' ({}) needs parameter '{}'", decl.name, spec.kind, ps.name))
+                                .error(
+                                    &at,
+                                    format!("block '{}' ({}) needs parameter '{}'", decl.name, spec.kind, ps.name),
+                                )
                                 .with_hint(format!("'{}': {} — {}", ps.name, ps.ty.describe(), ps.doc)));
                         }
                     }
@@ -342,10 +377,17 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                 let child_path = src.dir().join(rel);
                 let canon = canonical(&child_path);
                 if b.stack.contains(&canon) {
-                    return Err(src.error(&[key("blocks"), key(&decl.name), key("use")], format!("'{rel}' includes itself (directly or through other files)")));
+                    return Err(src.error(
+                        &[key("blocks"), key(&decl.name), key("use")],
+                        format!("'{rel}' includes itself (directly or through other files)"),
+                    ));
                 }
                 let child = GraphFile::load(&child_path).map_err(|e| {
-                    if e.line == 0 { src.error(&[key("blocks"), key(&decl.name), key("use")], e.message.clone()) } else { e }
+                    if e.line == 0 {
+                        src.error(&[key("blocks"), key(&decl.name), key("use")], e.message.clone())
+                    } else {
+                        e
+                    }
                 })?;
                 let (line, _) = locate(&src.text, &at);
                 let mut given = BTreeMap::new();
@@ -353,9 +395,11 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
                     let pat = [key("blocks"), key(&decl.name), key("set"), key(kname)];
                     let Some(cd) = child.knobs.iter().find(|k| &k.name == kname) else {
                         let names: Vec<&str> = child.knobs.iter().map(|k| k.name.as_str()).collect();
-                        return Err(src
-                            .error(&pat, format!("'{rel}' has no knob '{kname}'"))
-                            .hint_closest(kname, names.iter().copied(), &format!("its knobs: {}", names.join(", "))));
+                        return Err(src.error(&pat, format!("'{rel}' has no knob '{kname}'")).hint_closest(
+                            kname,
+                            names.iter().copied(),
+                            &format!("its knobs: {}", names.join(", ")),
+                        ));
                     };
                     let (value, knob) = substitute(raw, None, knobs, src, &pat)?;
                     let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
@@ -403,7 +447,9 @@ fn expand(file: &GraphFile, prefix: &str, knobs: &BTreeMap<String, KnobValue>, b
         let at = [key("wiring"), Seg::Index(i)];
         let ends: Vec<&str> = chain.split("->").map(str::trim).collect();
         if ends.len() < 2 || ends.iter().any(|e| e.is_empty()) {
-            return Err(src.error(&at, format!("'{chain}' is not a chain")).with_hint("write 'a -> b -> c', naming ports as block.port where a block has several"));
+            return Err(src
+                .error(&at, format!("'{chain}' is not a chain"))
+                .with_hint("write 'a -> b -> c', naming ports as block.port where a block has several"));
         }
         for pair in ends.windows(2) {
             let from = output_end(&scope, pair[0], src, &at, b)?;
@@ -422,10 +468,18 @@ fn split_end(text: &str) -> (&str, Option<&str>) {
     }
 }
 
-fn lookup<'s>(scope: &'s HashMap<String, Local>, name: &str, src: &Source, at: &[Seg]) -> Result<&'s Local, GraphError> {
+fn lookup<'s>(
+    scope: &'s HashMap<String, Local>,
+    name: &str,
+    src: &Source,
+    at: &[Seg],
+) -> Result<&'s Local, GraphError> {
     scope.get(name).ok_or_else(|| {
-        src.error(at, format!("no block named '{name}' in this file"))
-            .hint_closest(name, scope.keys().map(String::as_str), "")
+        src.error(at, format!("no block named '{name}' in this file")).hint_closest(
+            name,
+            scope.keys().map(String::as_str),
+            "",
+        )
     })
 }
 
@@ -440,14 +494,20 @@ fn pick_port(
     match want {
         Some(p) => ports.iter().find(|(n, _)| n == p).map(|(_, e)| *e).ok_or_else(|| {
             let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();
-            src.error(at, format!("'{owner}' has no {side} port '{p}'"))
-                .hint_closest(p, names.iter().copied(), &format!("its {side} ports: {}", if names.is_empty() { "none".into() } else { names.join(", ") }))
+            src.error(at, format!("'{owner}' has no {side} port '{p}'")).hint_closest(
+                p,
+                names.iter().copied(),
+                &format!("its {side} ports: {}", if names.is_empty() { "none".into() } else { names.join(", ") }),
+            )
         }),
         None if ports.len() == 1 || (side == "output" && !ports.is_empty()) => Ok(ports[0].1),
         None if ports.is_empty() => Err(src.error(at, format!("'{owner}' has no {side} ports"))),
         None => {
             let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();
-            Err(src.error(at, format!("'{owner}' has {side} ports {}: name one, as {owner}.{}", names.join(", "), names[0])))
+            Err(src.error(
+                at,
+                format!("'{owner}' has {side} ports {}: name one, as {owner}.{}", names.join(", "), names[0]),
+            ))
         }
     }
 }
@@ -458,7 +518,13 @@ fn block_ports(b: &Builder, idx: usize, outputs: bool) -> Vec<(String, (usize, u
     ports.iter().enumerate().map(|(i, p)| (p.name.to_string(), (idx, i))).collect()
 }
 
-fn output_end(scope: &HashMap<String, Local>, text: &str, src: &Source, at: &[Seg], b: &Builder) -> Result<(usize, usize), GraphError> {
+fn output_end(
+    scope: &HashMap<String, Local>,
+    text: &str,
+    src: &Source,
+    at: &[Seg],
+    b: &Builder,
+) -> Result<(usize, usize), GraphError> {
     let (name, port) = split_end(text);
     match lookup(scope, name, src, at)? {
         Local::Block(idx) => pick_port(&block_ports(b, *idx, true), port, "output", name, src, at),
@@ -490,7 +556,13 @@ fn input_end(
     pick_port(&ports, port, "input", name, src, at)
 }
 
-fn connect(from: (usize, usize), to: (usize, usize), src: &Arc<Source>, at: &[Seg], b: &mut Builder) -> Result<(), GraphError> {
+fn connect(
+    from: (usize, usize),
+    to: (usize, usize),
+    src: &Arc<Source>,
+    at: &[Seg],
+    b: &mut Builder,
+) -> Result<(), GraphError> {
     let out_spec = b.blocks[from.0].spec.outputs[from.1];
     let in_spec = b.blocks[to.0].spec.inputs[to.1];
     if out_spec.kind != in_spec.kind {
@@ -512,10 +584,7 @@ fn connect(from: (usize, usize), to: (usize, usize), src: &Arc<Source>, at: &[Se
     if let Some(w) = b.wires.iter().find(|w| w.to == to) {
         return Err(src.error(
             at,
-            format!(
-                "input {}.{} is already wired from {}",
-                b.blocks[to.0].name, in_spec.name, b.blocks[w.from.0].name
-            ),
+            format!("input {}.{} is already wired from {}", b.blocks[to.0].name, in_spec.name, b.blocks[w.from.0].name),
         ));
     }
     b.wires.push(Wire { from, to });
@@ -526,7 +595,11 @@ fn connect(from: (usize, usize), to: (usize, usize), src: &Arc<Source>, at: &[Se
 fn suggest_output(b: &Builder, idx: usize, kind: ItemKind) -> String {
     match b.blocks[idx].spec.outputs.iter().find(|p| p.kind == kind) {
         Some(p) => format!("{}.{} carries {}", b.blocks[idx].name, p.name, kind.name()),
-        None => format!("a block between them must turn {} into {}", b.blocks[idx].spec.outputs.first().map(|p| p.kind.name()).unwrap_or("?"), kind.name()),
+        None => format!(
+            "a block between them must turn {} into {}",
+            b.blocks[idx].spec.outputs.first().map(|p| p.kind.name()).unwrap_or("?"),
+            kind.name()
+        ),
     }
 }
 
@@ -539,7 +612,12 @@ fn check_required_inputs(b: &Builder, exposed: &[(usize, usize)]) -> Result<(), 
                     line: blk.line,
                     column: 3,
                     message: format!("input '{}' of block '{}' ({}) is not wired", port.name, blk.name, blk.spec.kind),
-                    hint: Some(format!("add a chain ending in '{}.{}' ({})", blk.name.rsplit('/').next().unwrap_or(&blk.name), port.name, port.kind.name())),
+                    hint: Some(format!(
+                        "add a chain ending in '{}.{}' ({})",
+                        blk.name.rsplit('/').next().unwrap_or(&blk.name),
+                        port.name,
+                        port.kind.name()
+                    )),
                 });
             }
         }

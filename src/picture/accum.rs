@@ -16,32 +16,16 @@ pub struct BinWindow {
 impl BinWindow {
     /// From the Distance parameters `start` and `end` (end 0 = to the end of
     /// the sweep), at the sweep's rate and length.
-    pub fn from_params(
-        p: &Params,
-        start: &str,
-        end: &str,
-        sweep: &Sweep,
-    ) -> Result<BinWindow, BlockError> {
+    pub fn from_params(p: &Params, start: &str, end: &str, sweep: &Sweep) -> Result<BinWindow, BlockError> {
         let rate = sweep.stamp.rate;
         if !(rate > 0.0 && rate.is_finite()) {
-            return Err(BlockError::at(
-                format!("sweep has an unusable sample rate {rate}"),
-                sweep.stamp.index,
-            ));
+            return Err(BlockError::at(format!("sweep has an unusable sample rate {rate}"), sweep.stamp.index));
         }
         let first = p.bins_at(start, rate)?;
         let end_bins = p.bins_at(end, rate)?;
-        let last = if end_bins <= 0.0 {
-            sweep.iq.len() as f64
-        } else {
-            end_bins
-        };
-        BinWindow::from_bins(first, last, sweep).map_err(|e| {
-            BlockError::at(
-                format!("parameters '{start}'..'{end}': {e}"),
-                sweep.stamp.index,
-            )
-        })
+        let last = if end_bins <= 0.0 { sweep.iq.len() as f64 } else { end_bins };
+        BinWindow::from_bins(first, last, sweep)
+            .map_err(|e| BlockError::at(format!("parameters '{start}'..'{end}': {e}"), sweep.stamp.index))
     }
 
     /// From fractional bin numbers (rounded), at the sweep's rate.
@@ -58,16 +42,9 @@ impl BinWindow {
             ));
         }
         if last - first > MAX_BINS as f64 {
-            return Err(format!(
-                "range window spans {} bins; at most {MAX_BINS} can be averaged",
-                last - first
-            ));
+            return Err(format!("range window spans {} bins; at most {MAX_BINS} can be averaged", last - first));
         }
-        Ok(BinWindow {
-            first: first as usize,
-            len: (last - first) as usize,
-            rate,
-        })
+        Ok(BinWindow { first: first as usize, len: (last - first) as usize, rate })
     }
 
     pub fn bin_m(&self) -> f64 {
@@ -114,10 +91,7 @@ impl SweepAverage {
     pub fn add(&mut self, sweep: &Sweep) -> Result<(), BlockError> {
         if sweep.stamp.rate != self.window.rate {
             return Err(BlockError::at(
-                format!(
-                    "sweep sample rate changed from {} to {} S/s",
-                    self.window.rate, sweep.stamp.rate
-                ),
+                format!("sweep sample rate changed from {} to {} S/s", self.window.rate, sweep.stamp.rate),
                 sweep.stamp.index,
             ));
         }
@@ -161,23 +135,12 @@ impl SweepAverage {
 
     /// RMS amplitude per bin; NaN for bins no sweep reached.
     pub fn amplitude(&self) -> Vec<f64> {
-        (0..self.window.len)
-            .map(|k| self.power_at(k).map_or(f64::NAN, |p| p.max(0.0).sqrt()))
-            .collect()
+        (0..self.window.len).map(|k| self.power_at(k).map_or(f64::NAN, |p| p.max(0.0).sqrt())).collect()
     }
 
     /// Amplitude in dB (20 log10 of the RMS amplitude), floored at -300 dB.
     pub fn amplitude_db(&self) -> Vec<f64> {
-        self.amplitude()
-            .into_iter()
-            .map(|a| {
-                if a.is_nan() {
-                    a
-                } else {
-                    20.0 * a.max(1e-15).log10()
-                }
-            })
-            .collect()
+        self.amplitude().into_iter().map(|a| if a.is_nan() { a } else { 20.0 * a.max(1e-15).log10() }).collect()
     }
 
     /// Mean power over window bins `lo..hi` (clipped), ignoring unreached bins.
@@ -206,10 +169,7 @@ pub struct LobeAverages {
 
 impl LobeAverages {
     pub fn new(memory: u64) -> Self {
-        LobeAverages {
-            memory,
-            ..Default::default()
-        }
+        LobeAverages { memory, ..Default::default() }
     }
 
     /// Add `sweep` to the group `name` (lobe index `order`), creating it if
@@ -237,8 +197,7 @@ impl LobeAverages {
         let mut avg = SweepAverage::new(w, self.memory, sweep.stamp);
         avg.add(sweep)?;
         self.groups.push((name.to_string(), order, avg));
-        self.groups
-            .sort_by(|a, b| a.1.cmp(&b.1).then_with(|| a.0.cmp(&b.0)));
+        self.groups.sort_by(|a, b| a.1.cmp(&b.1).then_with(|| a.0.cmp(&b.0)));
         Ok(true)
     }
 
@@ -254,11 +213,7 @@ impl LobeAverages {
 /// Reduce a series to at most about `max_points` points, keeping each
 /// group's minimum and maximum (so narrow echoes survive).
 pub fn decimate_min_max(points: &[(f64, f64)], max_points: usize) -> Vec<(f64, f64)> {
-    let finite: Vec<(f64, f64)> = points
-        .iter()
-        .copied()
-        .filter(|p| p.0.is_finite() && p.1.is_finite())
-        .collect();
+    let finite: Vec<(f64, f64)> = points.iter().copied().filter(|p| p.0.is_finite() && p.1.is_finite()).collect();
     if finite.len() <= max_points.max(2) {
         return finite;
     }
@@ -298,11 +253,7 @@ mod tests {
         Sweep {
             stamp: Stamp::new(index, 4e6),
             pulse: 0,
-            iq: values
-                .iter()
-                .map(|&v| Complex32::new(v, 0.0))
-                .collect::<Vec<_>>()
-                .into(),
+            iq: values.iter().map(|&v| Complex32::new(v, 0.0)).collect::<Vec<_>>().into(),
             sync: None,
             blanked: 0,
             predicted: false,
@@ -312,15 +263,7 @@ mod tests {
 
     fn window_params(start: &str, end: &str) -> Params {
         let mut p = Params::new();
-        let spec = ParamSpec {
-            name: "x",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e7,
-            },
-            default: None,
-            doc: "",
-        };
+        let spec = ParamSpec { name: "x", ty: ParamType::Distance { min_m: 0.0, max_m: 1e7 }, default: None, doc: "" };
         p.insert("start", spec.parse(&RawValue::Text(start.into())).unwrap());
         p.insert("end", spec.parse(&RawValue::Text(end.into())).unwrap());
         p
@@ -330,14 +273,7 @@ mod tests {
     fn running_mean_and_exponential_memory() {
         let s0 = sweep(&[1.0, 2.0, 0.0, 0.0], 0);
         let w = BinWindow::from_params(&window_params("0 m", "0 m"), "start", "end", &s0).unwrap();
-        assert_eq!(
-            w,
-            BinWindow {
-                first: 0,
-                len: 4,
-                rate: 4e6
-            }
-        );
+        assert_eq!(w, BinWindow { first: 0, len: 4, rate: 4e6 });
         let mut all = SweepAverage::new(w, 0, s0.stamp);
         let mut last2 = SweepAverage::new(w, 2, s0.stamp);
         for (k, v) in [1.0f32, 3.0, 5.0].iter().enumerate() {
@@ -354,13 +290,9 @@ mod tests {
     fn window_in_metres_and_bins() {
         let s = sweep(&[0.0; 400], 0);
         // 37.47 m per bin at 4 MS/s (field notes section 5): 1.5 km starts at bin 40.
-        let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s)
-            .unwrap();
+        let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s).unwrap();
         assert_eq!((w.first, w.len), (40, 60));
-        assert!(
-            BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s)
-                .is_err()
-        );
+        assert!(BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s).is_err());
         let mut avg = SweepAverage::new(w, 0, s.stamp);
         let mut other_rate = s.clone();
         other_rate.stamp.rate = 2e6;
@@ -369,9 +301,7 @@ mod tests {
 
     #[test]
     fn decimation_keeps_narrow_peaks() {
-        let pts: Vec<(f64, f64)> = (0..100_000)
-            .map(|k| (k as f64, if k == 51_234 { 9.0 } else { 0.0 }))
-            .collect();
+        let pts: Vec<(f64, f64)> = (0..100_000).map(|k| (k as f64, if k == 51_234 { 9.0 } else { 0.0 })).collect();
         let d = decimate_min_max(&pts, 1000);
         assert!(d.len() <= 1002, "{}", d.len());
         assert!(d.iter().any(|p| p.1 == 9.0 && p.0 == 51_234.0));

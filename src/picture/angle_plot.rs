@@ -4,8 +4,8 @@
 
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
 use lobeflow_blocks::{
-    AngleEstimate, Block, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind,
-    Outputs, ParamSpec, ParamType, Params, PortSpec, Unit,
+    AngleEstimate, Block, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind, Outputs, ParamSpec,
+    ParamType, Params, PortSpec, Unit,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -15,29 +15,18 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Angle plot picture: angle error against time for each axis (one panel each), with the expected ±σ band, the \
           tracked value when present and flagged estimates marked (out of range at the panel edge); long runs are reduced \
           to min/max time buckets. Writes <path>.png and <path>.svg.",
-    inputs: &[PortSpec::required(
-        "estimates",
-        ItemKind::Estimate,
-        "angle estimates of one or more axes",
-    )],
+    inputs: &[PortSpec::required("estimates", ItemKind::Estimate, "angle estimates of one or more axes")],
     outputs: &[],
     params: &[
         ParamSpec {
             name: "max_points",
-            ty: ParamType::Integer {
-                min: 100,
-                max: 100_000,
-            },
+            ty: ParamType::Integer { min: 100, max: 100_000 },
             default: Some("4000"),
             doc: "most points drawn per axis (min/max of time buckets beyond that)",
         },
         ParamSpec {
             name: "span",
-            ty: ParamType::Number {
-                unit: Unit::Degrees,
-                min: 0.0,
-                max: 180.0,
-            },
+            ty: ParamType::Number { unit: Unit::Degrees, min: 0.0, max: 180.0 },
             default: Some("0 deg"),
             doc: "half-height of each panel (0 = fit the data)",
         },
@@ -181,14 +170,7 @@ pub struct AxisSeries {
 
 impl AxisSeries {
     pub fn new(axis: &str, cap: usize) -> AxisSeries {
-        AxisSeries {
-            axis: axis.into(),
-            buckets: Vec::new(),
-            cap: cap.max(2),
-            origin: 0.0,
-            width: 0.0,
-            count: 0,
-        }
+        AxisSeries { axis: axis.into(), buckets: Vec::new(), cap: cap.max(2), origin: 0.0, width: 0.0, count: 0 }
     }
 
     fn key(&self, t: f64) -> i64 {
@@ -204,11 +186,7 @@ impl AxisSeries {
             self.origin = t;
         }
         self.count += 1;
-        let same = self.width > 0.0
-            && self
-                .buckets
-                .last()
-                .is_some_and(|b| self.key(t) <= self.key(b.t0));
+        let same = self.width > 0.0 && self.buckets.last().is_some_and(|b| self.key(t) <= self.key(b.t0));
         match self.buckets.last_mut() {
             Some(b) if same => b.add(t, e),
             _ => {
@@ -225,11 +203,7 @@ impl AxisSeries {
     /// Double the bucket width (or set a first one) and merge buckets.
     fn coarsen(&mut self) {
         let span = self.buckets.last().map_or(0.0, |b| b.t1) - self.origin;
-        self.width = if self.width > 0.0 {
-            2.0 * self.width
-        } else {
-            (span / (self.cap / 2) as f64).max(1e-9)
-        };
+        self.width = if self.width > 0.0 { 2.0 * self.width } else { (span / (self.cap / 2) as f64).max(1e-9) };
         while self.width < span * 2.0 / self.cap as f64 {
             self.width *= 2.0;
         }
@@ -237,23 +211,16 @@ impl AxisSeries {
         for b in old {
             let k = self.key(b.t0);
             match self.buckets.last_mut() {
-                Some(last) if ((last.t0 - self.origin) / self.width).floor() as i64 >= k => {
-                    last.merge(&b)
-                }
+                Some(last) if ((last.t0 - self.origin) / self.width).floor() as i64 >= k => last.merge(&b),
                 _ => self.buckets.push(b),
             }
         }
     }
 
     fn counts(&self) -> (u64, u64, u64, u64) {
-        self.buckets.iter().fold((0, 0, 0, 0), |c, b| {
-            (
-                c.0 + b.n_ok,
-                c.1 + b.out_of_range,
-                c.2 + b.no_signal,
-                c.3 + b.outliers,
-            )
-        })
+        self.buckets
+            .iter()
+            .fold((0, 0, 0, 0), |c, b| (c.0 + b.n_ok, c.1 + b.out_of_range, c.2 + b.no_signal, c.3 + b.outliers))
     }
 }
 
@@ -282,7 +249,10 @@ impl Block for AnglePlot {
             }
             None => {
                 if self.other_axes == 0 {
-                    out.notice(e.stamp, format!("more than {MAX_AXES} axes; axis '{axis}' and later new axes are not drawn"));
+                    out.notice(
+                        e.stamp,
+                        format!("more than {MAX_AXES} axes; axis '{axis}' and later new axes are not drawn"),
+                    );
                 }
                 self.other_axes += 1;
             }
@@ -291,11 +261,7 @@ impl Block for AnglePlot {
     }
 
     fn finish(&mut self, _out: &mut Outputs) -> Result<(), BlockError> {
-        let picture = AnglePicture {
-            axes: &self.axes,
-            span: self.span,
-            other: self.other_axes,
-        };
+        let picture = AnglePicture { axes: &self.axes, span: self.span, other: self.other_axes };
         write_picture(&picture, &self.path, &self.files)?;
         Ok(())
     }
@@ -317,38 +283,21 @@ impl Picture for AnglePicture<'_> {
             "{total} estimates; shaded: expected ±σ around the tracked (or mean) value; time from capture start"
         );
         if self.other > 0 {
-            sub.push_str(&format!(
-                "; {} estimates of further axes not drawn",
-                self.other
-            ));
+            sub.push_str(&format!("; {} estimates of further axes not drawn", self.other));
         }
         let area = frame(root, "Angle error", &sub)?;
         if self.axes.is_empty() {
             return area
-                .draw(&Text::new(
-                    "no estimates arrived",
-                    (40, 80),
-                    super::text_style(18.0, palette::MUTED),
-                ))
+                .draw(&Text::new("no estimates arrived", (40, 80), super::text_style(18.0, palette::MUTED)))
                 .map_err(draw_err);
         }
         let (t0, t1) = self
             .axes
             .iter()
             .flat_map(|a| a.buckets.iter())
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), k| {
-                (a.min(k.t0), b.max(k.t1))
-            });
-        let (t0, t1) = if t1 > t0 {
-            (t0, t1)
-        } else {
-            padded(t0, t1, 0.0, 1.0)
-        };
-        for (series, cell) in self
-            .axes
-            .iter()
-            .zip(area.split_evenly((self.axes.len(), 1)))
-        {
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), k| (a.min(k.t0), b.max(k.t1)));
+        let (t0, t1) = if t1 > t0 { (t0, t1) } else { padded(t0, t1, 0.0, 1.0) };
+        for (series, cell) in self.axes.iter().zip(area.split_evenly((self.axes.len(), 1))) {
             draw_axis(series, self.span, (t0, t1), &cell)?;
         }
         Ok(())
@@ -380,10 +329,7 @@ fn draw_axis<DB: DrawingBackend>(
         padded(lo, hi, 0.08, 0.2)
     };
     let (ok, oor, nosig, outl) = s.counts();
-    let caption = format!(
-        "axis {}: {ok} ok, {oor} out of range, {nosig} no signal, {outl} outliers",
-        s.axis
-    );
+    let caption = format!("axis {}: {ok} ok, {oor} out of range, {nosig} no signal, {outl} outliers", s.axis);
     let (plot, key) = cell.split_horizontally(cell.dim_in_pixel().0 as i32 - 250);
     let mut ch = chart(&plot, &caption, t0..t1, y0..y1)?;
     let clamp = |v: f64| v.clamp(y0, y1);
@@ -411,11 +357,7 @@ fn draw_axis<DB: DrawingBackend>(
             )))
             .map_err(draw_err)?;
         } else {
-            ch.draw_series(std::iter::once(Polygon::new(
-                poly,
-                palette::BAND.mix(0.8).filled(),
-            )))
-            .map_err(draw_err)?;
+            ch.draw_series(std::iter::once(Polygon::new(poly, palette::BAND.mix(0.8).filled()))).map_err(draw_err)?;
         }
     }
     draw_mesh(&mut ch, "time (s)", "error (deg)")?;
@@ -429,30 +371,14 @@ fn draw_axis<DB: DrawingBackend>(
             pts.push((b.mid(), clamp(b.err_max)));
         }
     }
-    ch.draw_series(LineSeries::new(
-        pts.iter().copied(),
-        palette::TRACE.stroke_width(1),
-    ))
-    .map_err(draw_err)?;
+    ch.draw_series(LineSeries::new(pts.iter().copied(), palette::TRACE.stroke_width(1))).map_err(draw_err)?;
     if pts.len() <= 600 {
-        ch.draw_series(
-            pts.iter()
-                .map(|&p| Circle::new(p, 2, palette::TRACE.filled())),
-        )
-        .map_err(draw_err)?;
+        ch.draw_series(pts.iter().map(|&p| Circle::new(p, 2, palette::TRACE.filled()))).map_err(draw_err)?;
     }
-    let tracked: Vec<(f64, f64)> = s
-        .buckets
-        .iter()
-        .filter_map(|b| b.tracked().map(|t| (b.mid(), clamp(t))))
-        .collect();
-    let mut entries = vec![
-        (palette::TRACE, format!("error ({ok})")),
-        (palette::BAND, "expected ±σ".to_string()),
-    ];
+    let tracked: Vec<(f64, f64)> = s.buckets.iter().filter_map(|b| b.tracked().map(|t| (b.mid(), clamp(t)))).collect();
+    let mut entries = vec![(palette::TRACE, format!("error ({ok})")), (palette::BAND, "expected ±σ".to_string())];
     if !tracked.is_empty() {
-        ch.draw_series(LineSeries::new(tracked, palette::lobe(1).stroke_width(2)))
-            .map_err(draw_err)?;
+        ch.draw_series(LineSeries::new(tracked, palette::lobe(1).stroke_width(2))).map_err(draw_err)?;
         entries.push((palette::lobe(1), "tracked".into()));
     }
     // Flagged estimates: out of range on the top edge, no signal on the bottom, outliers where they fell.
@@ -515,16 +441,8 @@ mod tests {
         let mut s = AxisSeries::new("az", 100);
         let n = 100_000u64;
         for k in 0..n {
-            let flag = if k % 1000 == 7 {
-                Flag::OutOfRange
-            } else {
-                Flag::Ok
-            };
-            let err = if k == 77_777 {
-                5.0
-            } else {
-                ((k as f64) * 0.01).sin()
-            };
+            let flag = if k % 1000 == 7 { Flag::OutOfRange } else { Flag::Ok };
+            let err = if k == 77_777 { 5.0 } else { ((k as f64) * 0.01).sin() };
             s.add(&estimate(k, err, flag));
             assert!(s.buckets.len() <= 101);
         }

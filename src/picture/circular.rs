@@ -26,9 +26,7 @@ impl Winding {
         revolutions: f64,
     ) -> Result<Winding, String> {
         if !range_start_m.is_finite() || !range_end_m.is_finite() || range_end_m <= range_start_m {
-            return Err(format!(
-                "range window {range_start_m} m to {range_end_m} m is empty"
-            ));
+            return Err(format!("range window {range_start_m} m to {range_end_m} m is empty"));
         }
         if !(revolutions > 0.0 && revolutions.is_finite()) {
             return Err(format!("revolutions must be positive, got {revolutions}"));
@@ -36,23 +34,12 @@ impl Winding {
         if !(radius > 0.0 && radius.is_finite()) {
             return Err(format!("radius must be positive, got {radius}"));
         }
-        Ok(Winding {
-            centre,
-            radius,
-            range_start_m,
-            range_end_m,
-            revolutions,
-        })
+        Ok(Winding { centre, radius, range_start_m, range_end_m, revolutions })
     }
 
     /// The same window and place, wound once (the coarse circle).
     pub fn single_turn(&self, centre: (f64, f64), radius: f64) -> Winding {
-        Winding {
-            centre,
-            radius,
-            revolutions: 1.0,
-            ..*self
-        }
+        Winding { centre, radius, revolutions: 1.0, ..*self }
     }
 
     /// Range covered by one turn.
@@ -71,11 +58,7 @@ impl Winding {
         let t = self.turns(range_m);
         let whole = t.floor();
         let angle = ((t - whole) * TAU).clamp(0.0, TAU);
-        if angle >= TAU {
-            (whole as i64 + 1, 0.0)
-        } else {
-            (whole as i64, angle)
-        }
+        if angle >= TAU { (whole as i64 + 1, 0.0) } else { (whole as i64, angle) }
     }
 
     /// Angle of `range_m` around the circle, radians clockwise from the top.
@@ -122,20 +105,13 @@ pub fn straight_point(w: &Winding, range_m: f64) -> (f64, f64) {
 
 /// Length of a polyline.
 pub fn path_length(points: &[(f64, f64)]) -> f64 {
-    points
-        .windows(2)
-        .map(|p| (p[1].0 - p[0].0).hypot(p[1].1 - p[0].1))
-        .sum()
+    points.windows(2).map(|p| (p[1].0 - p[0].0).hypot(p[1].1 - p[0].1)).sum()
 }
 
 /// Peak of a sampled curve with sub-sample position by a parabola through
 /// the largest sample and its neighbours. Returns (fractional index, value).
 pub fn interpolated_peak(values: &[f64]) -> Option<(f64, f64)> {
-    let (k, &v) = values
-        .iter()
-        .enumerate()
-        .filter(|(_, v)| v.is_finite())
-        .max_by(|a, b| a.1.total_cmp(b.1))?;
+    let (k, &v) = values.iter().enumerate().filter(|(_, v)| v.is_finite()).max_by(|a, b| a.1.total_cmp(b.1))?;
     if k == 0 || k + 1 >= values.len() {
         return Some((k as f64, v));
     }
@@ -229,16 +205,10 @@ mod tests {
             .map(|k| {
                 let r = 30_000.0 * k as f64 / n as f64;
                 // The last point would wrap to the start angle; place it there explicitly.
-                if k == n {
-                    w.point_at_angle(TAU, w.radius)
-                } else {
-                    w.point(r, 0.0)
-                }
+                if k == n { w.point_at_angle(TAU, w.radius) } else { w.point(r, 0.0) }
             })
             .collect();
-        let straight: Vec<(f64, f64)> = (0..=n)
-            .map(|k| straight_point(&w, 30_000.0 * k as f64 / n as f64))
-            .collect();
+        let straight: Vec<(f64, f64)> = (0..=n).map(|k| straight_point(&w, 30_000.0 * k as f64 / n as f64)).collect();
         let ratio = path_length(&circ) / path_length(&straight);
         assert!((ratio - PI).abs() < 1e-6, "ratio {ratio}");
     }
@@ -247,9 +217,7 @@ mod tests {
     fn parabolic_peak_finds_a_sampled_parabola_vertex() {
         // A parabola's vertex is recovered exactly by three samples of it.
         let vertex = 7.3;
-        let v: Vec<f64> = (0..15)
-            .map(|k| 10.0 - (k as f64 - vertex).powi(2))
-            .collect();
+        let v: Vec<f64> = (0..15).map(|k| 10.0 - (k as f64 - vertex).powi(2)).collect();
         let (pos, top) = interpolated_peak(&v).unwrap();
         assert!((pos - vertex).abs() < 1e-12 && (top - 10.0).abs() < 1e-12);
         assert_eq!(interpolated_peak(&[]), None);

@@ -7,8 +7,8 @@ use super::accum::{BinWindow, SweepAverage, decimate_min_max, median};
 use super::circular::{Winding, interpolated_peak, read_range};
 use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, Cell, FileStager, Item, ItemKind, Outputs,
-    ParamSpec, ParamType, Params, PortSpec, TableRow,
+    Block, BlockError, BlockSpec, BuildContext, Cell, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType,
+    Params, PortSpec, TableRow,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -21,42 +21,24 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Circular sweep formatter: winds the averaged sweep (or a range window of it) onto a fine circle of several turns \
           with a coarse one-turn circle beside it, echoes deflecting the trace; reads the strongest echo's range from both \
           circles and writes <path>.png and <path>.svg, optionally the trace as table rows.",
-    inputs: &[PortSpec::required(
-        "sweeps",
-        ItemKind::Sweep,
-        "sweeps to average (all lobes)",
-    )],
-    outputs: &[PortSpec::optional(
-        "rows",
-        ItemKind::Row,
-        "trace points (range_m, x, y, ...) and a final readout row",
-    )],
+    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps to average (all lobes)")],
+    outputs: &[PortSpec::optional("rows", ItemKind::Row, "trace points (range_m, x, y, ...) and a final readout row")],
     params: &[
         ParamSpec {
             name: "range_start",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "start of the range window",
         },
         ParamSpec {
             name: "range_end",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "end of the range window (0 = to the end of the first sweep)",
         },
         ParamSpec {
             name: "revolutions",
-            ty: ParamType::Number {
-                unit: lobeflow_blocks::Unit::None,
-                min: 1.0,
-                max: 200.0,
-            },
+            ty: ParamType::Number { unit: lobeflow_blocks::Unit::None, min: 1.0, max: 200.0 },
             default: Some("8"),
             doc: "turns of the fine circle per window",
         },
@@ -68,29 +50,19 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "gain",
-            ty: ParamType::Number {
-                unit: lobeflow_blocks::Unit::None,
-                min: 0.01,
-                max: 100.0,
-            },
+            ty: ParamType::Number { unit: lobeflow_blocks::Unit::None, min: 0.01, max: 100.0 },
             default: Some("1"),
             doc: "deflection scale (1: the strongest echo deflects by a quarter of the radius)",
         },
         ParamSpec {
             name: "mark_every",
-            ty: ParamType::Distance {
-                min_m: 1.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 1.0, max_m: 1e8 },
             default: Some("1 km"),
             doc: "range mark spacing",
         },
         ParamSpec {
             name: "average",
-            ty: ParamType::Integer {
-                min: 0,
-                max: 1_000_000_000,
-            },
+            ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average (0 = all; N = exponential average over about the last N)",
         },
@@ -153,24 +125,17 @@ impl Block for CircularSweep {
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(avg) = self.average.as_ref() else {
-            out.notice(
-                lobeflow_blocks::Stamp::new(0, 1.0),
-                "no sweeps arrived; the circle is drawn empty",
-            );
+            out.notice(lobeflow_blocks::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
             return write_picture(&Empty, &self.path, &self.files).map(|_| ());
         };
-        let mark_m = self.params.num("mark_every").or_else(|_| {
-            self.params
-                .bins_at("mark_every", avg.window.rate)
-                .map(|b| b * avg.window.bin_m())
-        })?;
+        let mark_m = self
+            .params
+            .num("mark_every")
+            .or_else(|_| self.params.bins_at("mark_every", avg.window.rate).map(|b| b * avg.window.bin_m()))?;
         if !(mark_m > 0.0 && mark_m.is_finite()) {
-            return Err(BlockError::new(format!(
-                "parameter 'mark_every' must be a positive distance, got {mark_m} m"
-            )));
+            return Err(BlockError::new(format!("parameter 'mark_every' must be a positive distance, got {mark_m} m")));
         }
-        let scene = Scene::compute(avg, self.revolutions, self.sign, self.gain, mark_m)
-            .map_err(BlockError::new)?;
+        let scene = Scene::compute(avg, self.revolutions, self.sign, self.gain, mark_m).map_err(BlockError::new)?;
         for row in scene.rows(avg) {
             out.push(0, Item::Row(row));
         }
@@ -207,40 +172,21 @@ pub struct Readout {
 }
 
 impl Scene {
-    pub fn compute(
-        avg: &SweepAverage,
-        revolutions: f64,
-        sign: f64,
-        gain: f64,
-        mark_m: f64,
-    ) -> Result<Scene, String> {
+    pub fn compute(avg: &SweepAverage, revolutions: f64, sign: f64, gain: f64, mark_m: f64) -> Result<Scene, String> {
         let w = avg.window;
         let fine = Winding::new((400.0, 418.0), 260.0, w.start_m(), w.end_m(), revolutions)?;
         let coarse = fine.single_turn((1000.0, 300.0), 140.0);
         let amplitude = avg.amplitude();
         let floor = median(&amplitude).unwrap_or(0.0);
-        let lifted: Vec<f64> = amplitude
-            .iter()
-            .map(|a| {
-                if a.is_finite() {
-                    (a - floor).max(0.0)
-                } else {
-                    0.0
-                }
-            })
-            .collect();
+        let lifted: Vec<f64> =
+            amplitude.iter().map(|a| if a.is_finite() { (a - floor).max(0.0) } else { 0.0 }).collect();
         let (peak_bin, peak_lift) = interpolated_peak(&lifted).unwrap_or((0.0, 0.0));
         let full_scale = if peak_lift > 0.0 { peak_lift } else { 1.0 };
         let max_defl = 0.25 * fine.radius * gain;
         let trace: Vec<(f64, f64)> = lifted
             .iter()
             .enumerate()
-            .map(|(k, &l)| {
-                (
-                    w.range_m(k as f64),
-                    sign * (max_defl * l / full_scale).min(0.45 * fine.radius),
-                )
-            })
+            .map(|(k, &l)| (w.range_m(k as f64), sign * (max_defl * l / full_scale).min(0.45 * fine.radius)))
             .collect();
         // Read the echo the way a person would: its angle on each circle.
         let echo_m = w.range_m(peak_bin);
@@ -250,23 +196,14 @@ impl Scene {
         let coarse_angle = coarse.angle_of(coarse.point(echo_m, echo_defl * coarse_scale));
         let range_m = read_range(&fine, coarse_angle, fine_angle);
         let peak_amp = floor + peak_lift;
-        let above_floor_db = if floor > 0.0 && peak_amp > 0.0 {
-            20.0 * (peak_amp / floor).log10()
-        } else {
-            f64::INFINITY
-        };
+        let above_floor_db =
+            if floor > 0.0 && peak_amp > 0.0 { 20.0 * (peak_amp / floor).log10() } else { f64::INFINITY };
         Ok(Scene {
             fine,
             coarse,
             trace,
             amplitude,
-            readout: Readout {
-                range_m,
-                turn: fine.split(range_m).0,
-                fine_angle,
-                coarse_angle,
-                above_floor_db,
-            },
+            readout: Readout { range_m, turn: fine.split(range_m).0, fine_angle, coarse_angle, above_floor_db },
             mark_m,
             sweeps: avg.sweeps,
             coarse_scale,
@@ -286,23 +223,10 @@ impl Scene {
                 fields: vec![
                     (name("point"), Cell::Text(name(point))),
                     (name("range_m"), Cell::Num(range_m)),
-                    (
-                        name("amplitude"),
-                        if amp.is_finite() {
-                            Cell::Num(amp)
-                        } else {
-                            Cell::Empty
-                        },
-                    ),
+                    (name("amplitude"), if amp.is_finite() { Cell::Num(amp) } else { Cell::Empty }),
                     // Normalised: circle radius 1, centre at the origin, y up.
-                    (
-                        name("x"),
-                        Cell::Num((x - self.fine.centre.0) / self.fine.radius),
-                    ),
-                    (
-                        name("y"),
-                        Cell::Num((self.fine.centre.1 - y) / self.fine.radius),
-                    ),
+                    (name("x"), Cell::Num((x - self.fine.centre.0) / self.fine.radius)),
+                    (name("y"), Cell::Num((self.fine.centre.1 - y) / self.fine.radius)),
                     (name("turn"), Cell::Int(turn)),
                     (name("angle_deg"), Cell::Num(angle.to_degrees())),
                 ],
@@ -311,17 +235,8 @@ impl Scene {
         for (k, &(r, d)) in self.trace.iter().enumerate() {
             rows.push(make("trace", r, self.amplitude[k], d));
         }
-        let peak_amp = self
-            .amplitude
-            .iter()
-            .copied()
-            .filter(|a| a.is_finite())
-            .fold(f64::NAN, f64::max);
-        let defl = self
-            .trace
-            .iter()
-            .map(|t| t.1)
-            .fold(0.0, |m: f64, d| if d.abs() > m.abs() { d } else { m });
+        let peak_amp = self.amplitude.iter().copied().filter(|a| a.is_finite()).fold(f64::NAN, f64::max);
+        let defl = self.trace.iter().map(|t| t.1).fold(0.0, |m: f64, d| if d.abs() > m.abs() { d } else { m });
         rows.push(make("readout", self.readout.range_m, peak_amp, defl));
         rows
     }
@@ -335,14 +250,8 @@ impl Scene {
     ) -> Result<(), String> {
         let px = |p: (f64, f64)| (p.0.round() as i32, p.1.round() as i32);
         let c = px(w.centre);
-        area.draw(&Circle::new(
-            c,
-            w.radius.round() as i32,
-            palette::GRID.stroke_width(1),
-        ))
-        .map_err(draw_err)?;
-        area.draw(&Circle::new(c, 3, palette::MUTED.filled()))
-            .map_err(draw_err)?;
+        area.draw(&Circle::new(c, w.radius.round() as i32, palette::GRID.stroke_width(1))).map_err(draw_err)?;
+        area.draw(&Circle::new(c, 3, palette::MUTED.filled())).map_err(draw_err)?;
         // Range marks: ticks on the inner side (or outer, for inward deflection).
         let tick_dir = -self.sign;
         let per_turn = w.metres_per_turn();
@@ -364,55 +273,33 @@ impl Scene {
             let len = if long { 12.0 } else { 6.0 };
             let p0 = w.point_at_angle(a, w.radius);
             let p1 = w.point_at_angle(a, w.radius + tick_dir * len);
-            area.draw(&PathElement::new(
-                vec![px(p0), px(p1)],
-                palette::INK.stroke_width(1),
-            ))
-            .map_err(draw_err)?;
+            area.draw(&PathElement::new(vec![px(p0), px(p1)], palette::INK.stroke_width(1))).map_err(draw_err)?;
             // Labels: offsets within a turn on the fine circle (first turn only), turn starts on the coarse.
-            let label =
-                if fine && r < w.range_start_m + per_turn - 0.5 * step && j % label_every == 0 {
-                    Some(format!("+{}", trim_km(r - w.range_start_m)))
-                } else if !fine && turn_start {
-                    Some(trim_km(r))
-                } else {
-                    None
-                };
+            let label = if fine && r < w.range_start_m + per_turn - 0.5 * step && j % label_every == 0 {
+                Some(format!("+{}", trim_km(r - w.range_start_m)))
+            } else if !fine && turn_start {
+                Some(trim_km(r))
+            } else {
+                None
+            };
             if let Some(label) = label {
                 let q = w.point_at_angle(a, w.radius + tick_dir * (len + 16.0));
-                let style = label_style.pos(text_anchor::Pos::new(
-                    text_anchor::HPos::Center,
-                    text_anchor::VPos::Center,
-                ));
-                area.draw(&Text::new(label, px(q), style))
-                    .map_err(draw_err)?;
+                let style =
+                    label_style.pos(text_anchor::Pos::new(text_anchor::HPos::Center, text_anchor::VPos::Center));
+                area.draw(&Text::new(label, px(q), style)).map_err(draw_err)?;
             }
         }
         // The trace itself, reduced to a drawable number of points.
-        let series: Vec<(f64, f64)> = self
-            .trace
-            .iter()
-            .enumerate()
-            .map(|(k, t)| (k as f64, t.1))
-            .collect();
+        let series: Vec<(f64, f64)> = self.trace.iter().enumerate().map(|(k, t)| (k as f64, t.1)).collect();
         let points: Vec<(i32, i32)> = decimate_min_max(&series, DRAWN_POINTS)
             .into_iter()
             .map(|(k, d)| px(w.point(self.trace[k as usize].0, d * scale)))
             .collect();
-        area.draw(&PathElement::new(points, palette::TRACE.stroke_width(2)))
-            .map_err(draw_err)?;
+        area.draw(&PathElement::new(points, palette::TRACE.stroke_width(2))).map_err(draw_err)?;
         // Cursor through the echo.
-        let a = if fine {
-            self.readout.fine_angle
-        } else {
-            self.readout.coarse_angle
-        };
+        let a = if fine { self.readout.fine_angle } else { self.readout.coarse_angle };
         let tip = w.point_at_angle(a, w.radius + self.sign * 0.47 * self.fine.radius * scale);
-        area.draw(&PathElement::new(
-            vec![c, px(tip)],
-            palette::ALERT.stroke_width(1),
-        ))
-        .map_err(draw_err)?;
+        area.draw(&PathElement::new(vec![c, px(tip)], palette::ALERT.stroke_width(1))).map_err(draw_err)?;
         Ok(())
     }
 }
@@ -444,10 +331,7 @@ impl Picture for Scene {
         let muted = text_style(14.0, palette::MUTED);
         let r = &self.readout;
         let lines = [
-            (
-                format!("Echo range  {}", fmt_km(r.range_m)),
-                text_style(24.0, palette::ALERT),
-            ),
+            (format!("Echo range  {}", fmt_km(r.range_m)), text_style(24.0, palette::ALERT)),
             (
                 format!(
                     "coarse circle: turn {} of {} ({:.1}°)",
@@ -480,14 +364,10 @@ impl Picture for Scene {
                 },
                 muted.clone(),
             ),
-            (
-                format!("range marks every {}", trim_km(self.mark_m)),
-                muted.clone(),
-            ),
+            (format!("range marks every {}", trim_km(self.mark_m)), muted.clone()),
         ];
         for (i, (line, style)) in lines.into_iter().enumerate() {
-            root.draw(&Text::new(line, (760, 500 + 34 * i as i32), style))
-                .map_err(draw_err)?;
+            root.draw(&Text::new(line, (760, 500 + 34 * i as i32), style)).map_err(draw_err)?;
         }
         Ok(())
     }
@@ -502,11 +382,6 @@ impl Picture for Empty {
     }
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         frame(root, "Circular sweep", "no sweeps arrived")?;
-        root.draw(&Text::new(
-            "nothing to draw",
-            (400, 400),
-            text_style(20.0, palette::MUTED),
-        ))
-        .map_err(draw_err)
+        root.draw(&Text::new("nothing to draw", (400, 400), text_style(20.0, palette::MUTED))).map_err(draw_err)
     }
 }

@@ -6,8 +6,8 @@
 
 use super::{Picture, chart, draw_err, frame, padded, palette, text_style, write_picture};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec,
-    ParamType, Params, PortSpec,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
+    PortSpec,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -18,11 +18,7 @@ pub const SPEC: BlockSpec = BlockSpec {
           labelled sweeps), guard gaps between dwells shaded and notices marked; draws the first part of the capture \
           (span, max_dwells). Writes <path>.png and <path>.svg.",
     inputs: &[
-        PortSpec::optional(
-            "sweeps",
-            ItemKind::Sweep,
-            "sweeps, labelled with their lobe or not",
-        ),
+        PortSpec::optional("sweeps", ItemKind::Sweep, "sweeps, labelled with their lobe or not"),
         PortSpec::optional("segments", ItemKind::Segment, "lobe segments of each dwell"),
         PortSpec::optional("notices", ItemKind::Notice, "irregularities to mark"),
     ],
@@ -30,20 +26,13 @@ pub const SPEC: BlockSpec = BlockSpec {
     params: &[
         ParamSpec {
             name: "span",
-            ty: ParamType::Time {
-                min_s: 0.0,
-                max_s: 1e6,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: 0.0, max_s: 1e6, pulses: false },
             default: Some("0 s"),
             doc: "how much of the capture to draw from the first item (0 = as far as max_dwells reaches)",
         },
         ParamSpec {
             name: "max_dwells",
-            ty: ParamType::Integer {
-                min: 10,
-                max: 100_000,
-            },
+            ty: ParamType::Integer { min: 10, max: 100_000 },
             default: Some("2000"),
             doc: "most dwells drawn",
         },
@@ -118,17 +107,11 @@ impl Timeline {
     /// Extend the last bar if it is the same dwell (or touching unlabelled
     /// sweeps), else start a new bar when within the limits.
     fn add(&mut self, segments: bool, bar: Bar, limit_s: Option<f64>, max_bars: usize) {
-        let bars = if segments {
-            &mut self.segment_bars
-        } else {
-            &mut self.sweep_bars
-        };
+        let bars = if segments { &mut self.segment_bars } else { &mut self.sweep_bars };
         if let Some(last) = bars.last_mut() {
             let same_dwell = last.row == bar.row && last.dwell.is_some() && last.dwell == bar.dwell;
-            let touching = last.row == bar.row
-                && last.dwell.is_none()
-                && bar.dwell.is_none()
-                && bar.start - last.end <= 1e-9;
+            let touching =
+                last.row == bar.row && last.dwell.is_none() && bar.dwell.is_none() && bar.start - last.end <= 1e-9;
             if same_dwell || touching {
                 last.end = last.end.max(bar.end);
                 return;
@@ -170,10 +153,7 @@ impl Block for LobeTimeline {
         let stamp = item.stamp();
         if !(stamp.rate > 0.0 && stamp.rate.is_finite()) {
             return Err(BlockError::at(
-                format!(
-                    "item on port {port} has an unusable sample rate {}",
-                    stamp.rate
-                ),
+                format!("item on port {port} has an unusable sample rate {}", stamp.rate),
                 stamp.index,
             ));
         }
@@ -185,17 +165,7 @@ impl Block for LobeTimeline {
         match item {
             Item::Segment(seg) => {
                 if let Some(row) = t.row(seg.tag.lobe, &seg.tag.name) {
-                    t.add(
-                        true,
-                        Bar {
-                            start,
-                            end,
-                            row,
-                            dwell: Some(seg.tag.dwell),
-                        },
-                        limit,
-                        self.max_dwells,
-                    );
+                    t.add(true, Bar { start, end, row, dwell: Some(seg.tag.dwell) }, limit, self.max_dwells);
                 }
             }
             Item::Sweep(sweep) => {
@@ -206,12 +176,7 @@ impl Block for LobeTimeline {
                 if let Some(row) = row {
                     t.add(
                         false,
-                        Bar {
-                            start,
-                            end,
-                            row,
-                            dwell: sweep.lobe.as_ref().map(|g| g.dwell),
-                        },
+                        Bar { start, end, row, dwell: sweep.lobe.as_ref().map(|g| g.dwell) },
                         limit,
                         self.max_dwells,
                     );
@@ -221,11 +186,7 @@ impl Block for LobeTimeline {
                 let within = limit.is_none_or(|l| start < l)
                     && !(t.truncated && start > t.segment_bars.last().map_or(start, |b| b.end));
                 if within && t.notices.len() < MAX_NOTICES {
-                    let who = if n.block.is_empty() {
-                        String::new()
-                    } else {
-                        format!("{}: ", n.block)
-                    };
+                    let who = if n.block.is_empty() { String::new() } else { format!("{}: ", n.block) };
                     t.notices.push((start, format!("{who}{}", n.what)));
                 } else {
                     t.notices_left_out += 1;
@@ -237,11 +198,7 @@ impl Block for LobeTimeline {
     }
 
     fn finish(&mut self, _out: &mut Outputs) -> Result<(), BlockError> {
-        write_picture(
-            &TimelinePicture { t: &self.timeline },
-            &self.path,
-            &self.files,
-        )?;
+        write_picture(&TimelinePicture { t: &self.timeline }, &self.path, &self.files)?;
         Ok(())
     }
 }
@@ -263,12 +220,7 @@ impl Picture for TimelinePicture<'_> {
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let t = self.t;
         let first = t.first_s.unwrap_or(0.0);
-        let drawn_end = t
-            .segment_bars
-            .iter()
-            .chain(&t.sweep_bars)
-            .map(|b| b.end)
-            .fold(first, f64::max);
+        let drawn_end = t.segment_bars.iter().chain(&t.sweep_bars).map(|b| b.end).fold(first, f64::max);
         let mut sub = format!(
             "{} dwell bars from segments, {} from sweeps; upper bar: lobe segments, lower bar: sweeps; grey: guard gaps",
             t.segment_bars.len(),
@@ -285,28 +237,16 @@ impl Picture for TimelinePicture<'_> {
         let area = frame(root, "Lobe timeline", &sub)?;
         let (plot, notes) = area.split_vertically(area.dim_in_pixel().1 as i32 - 100);
         let extent = (drawn_end - first).max(1e-6);
-        let (scale, unit) = if extent < 2.0 {
-            (1e3, "ms")
-        } else {
-            (1.0, "s")
-        };
+        let (scale, unit) = if extent < 2.0 { (1e3, "ms") } else { (1.0, "s") };
         let (x0, x1) = padded(0.0, extent * scale, 0.01, 1e-9);
         let n = t.rows.len().max(1);
         let mut ch = chart(&plot, "", x0..x1, 0.0..n as f64)?;
         let x = |s: f64| (s - first) * scale;
         let y = |row: usize| (n - 1 - row) as f64;
         // Guard gaps between consecutive dwells, across all rows.
-        ch.draw_series(
-            t.segment_bars
-                .windows(2)
-                .filter(|w| w[1].start > w[0].end)
-                .map(|w| {
-                    Rectangle::new(
-                        [(x(w[0].end), 0.0), (x(w[1].start), n as f64)],
-                        palette::GUARD.mix(0.6).filled(),
-                    )
-                }),
-        )
+        ch.draw_series(t.segment_bars.windows(2).filter(|w| w[1].start > w[0].end).map(|w| {
+            Rectangle::new([(x(w[0].end), 0.0), (x(w[1].start), n as f64)], palette::GUARD.mix(0.6).filled())
+        }))
         .map_err(draw_err)?;
         let names: Vec<String> = t.rows.iter().map(|r| r.1.clone()).collect();
         ch.configure_mesh()
@@ -330,18 +270,10 @@ impl Picture for TimelinePicture<'_> {
             .disable_y_mesh()
             .draw()
             .map_err(draw_err)?;
-        let colour = |row: usize| {
-            palette::lobe(
-                t.rows
-                    .get(row)
-                    .map_or(row, |r| if r.0 == usize::MAX { 5 } else { r.0 }),
-            )
-        };
+        let colour =
+            |row: usize| palette::lobe(t.rows.get(row).map_or(row, |r| if r.0 == usize::MAX { 5 } else { r.0 }));
         ch.draw_series(t.segment_bars.iter().map(|b| {
-            Rectangle::new(
-                [(x(b.start), y(b.row) + 0.45), (x(b.end), y(b.row) + 0.85)],
-                colour(b.row).filled(),
-            )
+            Rectangle::new([(x(b.start), y(b.row) + 0.45), (x(b.end), y(b.row) + 0.85)], colour(b.row).filled())
         }))
         .map_err(draw_err)?;
         ch.draw_series(t.sweep_bars.iter().map(|b| {
@@ -351,20 +283,15 @@ impl Picture for TimelinePicture<'_> {
             )
         }))
         .map_err(draw_err)?;
-        ch.draw_series(t.notices.iter().map(|(s, _)| {
-            PathElement::new(
-                vec![(x(*s), 0.0), (x(*s), n as f64)],
-                palette::ALERT.stroke_width(2),
-            )
-        }))
+        ch.draw_series(
+            t.notices
+                .iter()
+                .map(|(s, _)| PathElement::new(vec![(x(*s), 0.0), (x(*s), n as f64)], palette::ALERT.stroke_width(2))),
+        )
         .map_err(draw_err)?;
         // Notices listed under the plot (the first few), with the count of the rest.
-        let mut lines: Vec<String> = t
-            .notices
-            .iter()
-            .take(3)
-            .map(|(s, what)| format!("▲ {:.4} s  {}", s, clip(what, 120)))
-            .collect();
+        let mut lines: Vec<String> =
+            t.notices.iter().take(3).map(|(s, what)| format!("▲ {:.4} s  {}", s, clip(what, 120))).collect();
         let more = t.notices.len().saturating_sub(3) as u64 + t.notices_left_out;
         if more > 0 {
             lines.push(format!("… and {more} more notices"));
@@ -373,18 +300,11 @@ impl Picture for TimelinePicture<'_> {
             lines.push("no notices".into());
         }
         if t.lobes_left_out > 0 {
-            lines.push(format!(
-                "{} items of lobes beyond the first {MAX_ROWS} not drawn",
-                t.lobes_left_out
-            ));
+            lines.push(format!("{} items of lobes beyond the first {MAX_ROWS} not drawn", t.lobes_left_out));
         }
         for (i, line) in lines.into_iter().enumerate() {
             notes
-                .draw(&Text::new(
-                    line,
-                    (24, 6 + 22 * i as i32),
-                    text_style(13.0, palette::ALERT),
-                ))
+                .draw(&Text::new(line, (24, 6 + 22 * i as i32), text_style(13.0, palette::ALERT)))
                 .map_err(draw_err)?;
         }
         Ok(())
@@ -392,11 +312,7 @@ impl Picture for TimelinePicture<'_> {
 }
 
 fn clip(s: &str, max: usize) -> String {
-    if s.chars().count() <= max {
-        s.to_string()
-    } else {
-        format!("{}…", s.chars().take(max).collect::<String>())
-    }
+    if s.chars().count() <= max { s.to_string() } else { format!("{}…", s.chars().take(max).collect::<String>()) }
 }
 
 #[cfg(test)]
@@ -408,58 +324,18 @@ mod tests {
         let mut t = Timeline::default();
         let r = t.row(0, "right").unwrap();
         // Two segments of one dwell become one bar.
-        t.add(
-            true,
-            Bar {
-                start: 0.0,
-                end: 1.0,
-                row: r,
-                dwell: Some(0),
-            },
-            None,
-            3,
-        );
-        t.add(
-            true,
-            Bar {
-                start: 1.0,
-                end: 2.0,
-                row: r,
-                dwell: Some(0),
-            },
-            None,
-            3,
-        );
+        t.add(true, Bar { start: 0.0, end: 1.0, row: r, dwell: Some(0) }, None, 3);
+        t.add(true, Bar { start: 1.0, end: 2.0, row: r, dwell: Some(0) }, None, 3);
         assert_eq!(t.segment_bars.len(), 1);
         assert_eq!(t.segment_bars[0].end, 2.0);
         for d in 1..6 {
-            t.add(
-                true,
-                Bar {
-                    start: 2.5 * d as f64,
-                    end: 2.5 * d as f64 + 2.0,
-                    row: r,
-                    dwell: Some(d),
-                },
-                None,
-                3,
-            );
+            t.add(true, Bar { start: 2.5 * d as f64, end: 2.5 * d as f64 + 2.0, row: r, dwell: Some(d) }, None, 3);
         }
         assert_eq!(t.segment_bars.len(), 3);
         assert!(t.truncated && t.left_out == 3);
         // Beyond the span limit nothing new starts.
         let mut u = Timeline::default();
-        u.add(
-            false,
-            Bar {
-                start: 5.0,
-                end: 6.0,
-                row: 0,
-                dwell: Some(1),
-            },
-            Some(4.0),
-            100,
-        );
+        u.add(false, Bar { start: 5.0, end: 6.0, row: 0, dwell: Some(1) }, Some(4.0), 100);
         assert!(u.sweep_bars.is_empty() && u.truncated);
     }
 }

@@ -91,11 +91,7 @@ pub fn draw_err<E: std::fmt::Display>(e: E) -> String {
 
 /// Render `picture` to `<base>.png` and `<base>.svg`, both staged with the
 /// run's other outputs. Returns the two final paths.
-pub fn write_picture<P: Picture>(
-    picture: &P,
-    base: &str,
-    files: &FileStager,
-) -> Result<Vec<PathBuf>, BlockError> {
+pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) -> Result<Vec<PathBuf>, BlockError> {
     ensure_font()?;
     let (w, h) = picture.size();
     let mut svg = String::new();
@@ -119,21 +115,13 @@ pub fn write_picture<P: Picture>(
     Ok(vec![png_path, svg_path])
 }
 
-fn write_png(
-    path: &Path,
-    w: u32,
-    h: u32,
-    rgb: &[u8],
-    files: &FileStager,
-) -> Result<(), BlockError> {
+fn write_png(path: &Path, w: u32, h: u32, rgb: &[u8], files: &FileStager) -> Result<(), BlockError> {
     let mut f = OutputFile::create(path).map_err(|e| file_err(path, e))?;
     {
         let mut encoder = png::Encoder::new(f.writer(), w, h);
         encoder.set_color(png::ColorType::Rgb);
         encoder.set_depth(png::BitDepth::Eight);
-        let enc_err = |e: png::EncodingError| {
-            BlockError::new(format!("cannot encode {}: {e}", path.display()))
-        };
+        let enc_err = |e: png::EncodingError| BlockError::new(format!("cannot encode {}: {e}", path.display()));
         let mut writer = encoder.write_header().map_err(enc_err)?;
         writer.write_image_data(rgb).map_err(enc_err)?;
         writer.finish().map_err(enc_err)?;
@@ -152,24 +140,11 @@ pub fn frame<DB: DrawingBackend>(
     subtitle: &str,
 ) -> Result<DrawingArea<DB, Shift>, String> {
     root.fill(&palette::PAPER).map_err(draw_err)?;
-    root.draw(&Text::new(
-        title.to_string(),
-        (18, 12),
-        text_style(22.0, palette::INK),
-    ))
-    .map_err(draw_err)?;
-    root.draw(&Text::new(
-        subtitle.to_string(),
-        (18, 40),
-        text_style(14.0, palette::MUTED),
-    ))
-    .map_err(draw_err)?;
+    root.draw(&Text::new(title.to_string(), (18, 12), text_style(22.0, palette::INK))).map_err(draw_err)?;
+    root.draw(&Text::new(subtitle.to_string(), (18, 40), text_style(14.0, palette::MUTED))).map_err(draw_err)?;
     let (w, _) = root.dim_in_pixel();
-    root.draw(&PathElement::new(
-        vec![(18, 62), (w as i32 - 18, 62)],
-        palette::GRID.stroke_width(2),
-    ))
-    .map_err(draw_err)?;
+    root.draw(&PathElement::new(vec![(18, 62), (w as i32 - 18, 62)], palette::GRID.stroke_width(2)))
+        .map_err(draw_err)?;
     Ok(root.margin(68, 0, 0, 0))
 }
 
@@ -180,17 +155,10 @@ pub fn fmt_km(metres: f64) -> String {
 
 /// Pad a (min, max) range so a flat series still gets a visible axis.
 pub fn padded(lo: f64, hi: f64, frac: f64, min_span: f64) -> (f64, f64) {
-    let (lo, hi) = if lo.is_finite() && hi.is_finite() && hi >= lo {
-        (lo, hi)
-    } else {
-        (0.0, 1.0)
-    };
+    let (lo, hi) = if lo.is_finite() && hi.is_finite() && hi >= lo { (lo, hi) } else { (0.0, 1.0) };
     let span = (hi - lo).max(min_span);
     let mid = 0.5 * (lo + hi);
-    (
-        mid - 0.5 * span * (1.0 + 2.0 * frac),
-        mid + 0.5 * span * (1.0 + 2.0 * frac),
-    )
+    (mid - 0.5 * span * (1.0 + 2.0 * frac), mid + 0.5 * span * (1.0 + 2.0 * frac))
 }
 
 /// A chart with f64 axes on both sides.
@@ -204,27 +172,17 @@ pub fn chart<'a, DB: DrawingBackend>(
     y: std::ops::Range<f64>,
 ) -> Result<Chart<'a, DB>, String> {
     let mut builder = ChartBuilder::on(area);
-    builder
-        .margin(14)
-        .x_label_area_size(44)
-        .y_label_area_size(70);
+    builder.margin(14).x_label_area_size(44).y_label_area_size(70);
     if !caption.is_empty() {
         builder.caption(caption, text_style(17.0, palette::INK));
     }
     let chart = builder.build_cartesian_2d(x, y).map_err(draw_err)?;
-    chart
-        .plotting_area()
-        .fill(&palette::PANEL)
-        .map_err(draw_err)?;
+    chart.plotting_area().fill(&palette::PANEL).map_err(draw_err)?;
     Ok(chart)
 }
 
 /// Grid, tick labels and axis titles (with units) in our style.
-pub fn draw_mesh<DB: DrawingBackend>(
-    chart: &mut Chart<'_, DB>,
-    x_desc: &str,
-    y_desc: &str,
-) -> Result<(), String> {
+pub fn draw_mesh<DB: DrawingBackend>(chart: &mut Chart<'_, DB>, x_desc: &str, y_desc: &str) -> Result<(), String> {
     chart
         .configure_mesh()
         .bold_line_style(palette::GRID)
@@ -248,38 +206,17 @@ pub fn legend<DB: DrawingBackend>(
     entries: &[(RGBColor, String)],
 ) -> Result<(), String> {
     let (w, _) = area.dim_in_pixel();
-    let widest = entries
-        .iter()
-        .map(|e| e.1.chars().count())
-        .max()
-        .unwrap_or(0) as i32;
+    let widest = entries.iter().map(|e| e.1.chars().count()).max().unwrap_or(0) as i32;
     let box_w = 46 + 7 * widest;
     let x0 = (w as i32 - box_w - 24).max(4);
     let y0 = top;
     let h = 22 * entries.len() as i32 + 10;
-    area.draw(&Rectangle::new(
-        [(x0, y0), (x0 + box_w, y0 + h)],
-        palette::PANEL.filled(),
-    ))
-    .map_err(draw_err)?;
-    area.draw(&Rectangle::new(
-        [(x0, y0), (x0 + box_w, y0 + h)],
-        palette::GRID.stroke_width(1),
-    ))
-    .map_err(draw_err)?;
+    area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::PANEL.filled())).map_err(draw_err)?;
+    area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::GRID.stroke_width(1))).map_err(draw_err)?;
     for (i, (colour, label)) in entries.iter().enumerate() {
         let y = y0 + 16 + 22 * i as i32;
-        area.draw(&PathElement::new(
-            vec![(x0 + 8, y), (x0 + 32, y)],
-            colour.stroke_width(3),
-        ))
-        .map_err(draw_err)?;
-        area.draw(&Text::new(
-            label.clone(),
-            (x0 + 40, y - 8),
-            text_style(13.0, palette::INK),
-        ))
-        .map_err(draw_err)?;
+        area.draw(&PathElement::new(vec![(x0 + 8, y), (x0 + 32, y)], colour.stroke_width(3))).map_err(draw_err)?;
+        area.draw(&Text::new(label.clone(), (x0 + 40, y - 8), text_style(13.0, palette::INK))).map_err(draw_err)?;
     }
     Ok(())
 }

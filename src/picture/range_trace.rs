@@ -4,8 +4,8 @@
 use super::accum::{BinWindow, LobeAverages, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec,
-    ParamType, Params, PortSpec,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
+    PortSpec,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -14,28 +14,18 @@ pub const SPEC: BlockSpec = BlockSpec {
     kind: "range_trace",
     doc: "Range trace picture: averaged echo amplitude in dB against range in km, for all lobes together or one colour \
           per lobe, with the range gate shaded; writes <path>.png and <path>.svg.",
-    inputs: &[PortSpec::required(
-        "sweeps",
-        ItemKind::Sweep,
-        "sweeps to average",
-    )],
+    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps to average")],
     outputs: &[],
     params: &[
         ParamSpec {
             name: "range_start",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "start of the range axis",
         },
         ParamSpec {
             name: "range_end",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "end of the range axis (0 = to the end of the first sweep)",
         },
@@ -47,28 +37,19 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "gate_start",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "range gate start to mark",
         },
         ParamSpec {
             name: "gate_width",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "range gate width (0 = no gate marked)",
         },
         ParamSpec {
             name: "average",
-            ty: ParamType::Integer {
-                min: 0,
-                max: 1_000_000_000,
-            },
+            ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average (0 = all; N = exponential average over about the last N)",
         },
@@ -116,9 +97,9 @@ impl Block for RangeTrace {
             (_, false) => ("all lobes".to_string(), 0),
         };
         let params = &self.params;
-        let kept = self.averages.add(&name, order, &sweep, |s| {
-            BinWindow::from_params(params, "range_start", "range_end", s)
-        })?;
+        let kept = self
+            .averages
+            .add(&name, order, &sweep, |s| BinWindow::from_params(params, "range_start", "range_end", s))?;
         if !kept && !self.dropped_noticed {
             self.dropped_noticed = true;
             out.notice(
@@ -148,26 +129,13 @@ impl Block for RangeTrace {
             .enumerate()
             .map(|(i, (name, _, avg))| {
                 let w = avg.window;
-                let pts: Vec<(f64, f64)> = avg
-                    .amplitude_db()
-                    .iter()
-                    .enumerate()
-                    .map(|(k, &db)| (w.range_m(k as f64) / 1e3, db))
-                    .collect();
-                (
-                    palette::lobe(i),
-                    format!("{name} ({} sweeps)", avg.sweeps),
-                    decimate_min_max(&pts, 4000),
-                )
+                let pts: Vec<(f64, f64)> =
+                    avg.amplitude_db().iter().enumerate().map(|(k, &db)| (w.range_m(k as f64) / 1e3, db)).collect();
+                (palette::lobe(i), format!("{name} ({} sweeps)", avg.sweeps), decimate_min_max(&pts, 4000))
             })
             .collect();
         let window = self.averages.window();
-        let picture = TracePicture {
-            traces,
-            gate,
-            window,
-            dropped: self.averages.dropped,
-        };
+        let picture = TracePicture { traces, gate, window, dropped: self.averages.dropped };
         write_picture(&picture, &self.path, &self.files)?;
         Ok(())
     }
@@ -203,10 +171,7 @@ impl Picture for TracePicture {
             None => "no sweeps arrived".to_string(),
         };
         let area = frame(root, "Range trace", &sub)?;
-        let (x0, x1) = self
-            .window
-            .map(|w| (w.start_m() / 1e3, w.end_m() / 1e3))
-            .unwrap_or((0.0, 1.0));
+        let (x0, x1) = self.window.map(|w| (w.start_m() / 1e3, w.end_m() / 1e3)).unwrap_or((0.0, 1.0));
         let all = self.traces.iter().flat_map(|t| t.2.iter().map(|p| p.1));
         let hi = all.clone().fold(f64::NEG_INFINITY, f64::max);
         // Show at most 90 dB below the strongest point, so blanked bins do not flatten the trace.
@@ -223,8 +188,7 @@ impl Picture for TracePicture {
         draw_mesh(&mut ch, "range (km)", "amplitude (dB, RMS)")?;
         for (colour, _, pts) in &self.traces {
             let clipped = pts.iter().map(|&(x, y)| (x, y.max(y0)));
-            ch.draw_series(LineSeries::new(clipped, colour.stroke_width(2)))
-                .map_err(draw_err)?;
+            ch.draw_series(LineSeries::new(clipped, colour.stroke_width(2))).map_err(draw_err)?;
         }
         if let Some((g0, g1)) = self.gate {
             ch.draw_series(std::iter::once(Text::new(
@@ -234,8 +198,7 @@ impl Picture for TracePicture {
             )))
             .map_err(draw_err)?;
         }
-        let mut entries: Vec<(RGBColor, String)> =
-            self.traces.iter().map(|t| (t.0, t.1.clone())).collect();
+        let mut entries: Vec<(RGBColor, String)> = self.traces.iter().map(|t| (t.0, t.1.clone())).collect();
         if entries.is_empty() {
             entries.push((palette::MUTED, "no sweeps".into()));
         }

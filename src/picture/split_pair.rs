@@ -3,12 +3,10 @@
 //! pair's balance in dB printed (balanced means on axis).
 
 use super::accum::{BinWindow, LobeAverages, SweepAverage, decimate_min_max};
-use super::{
-    Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture,
-};
+use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec,
-    ParamType, Params, PortSpec,
+    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
+    PortSpec,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -18,11 +16,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Split pair picture: for each lobe pair, the two lobes' averaged sweeps around the range gate drawn on two traces \
           an adjustable distance apart, with the balance (positive lobe over negative, dB) printed; writes <path>.png and \
           <path>.svg. Needs sweeps labelled with their lobe.",
-    inputs: &[PortSpec::required(
-        "sweeps",
-        ItemKind::Sweep,
-        "sweeps labelled with their lobe",
-    )],
+    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe")],
     outputs: &[],
     params: &[
         ParamSpec {
@@ -39,37 +33,25 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "gate_start",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "range gate start",
         },
         ParamSpec {
             name: "gate_width",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("0 m"),
             doc: "range gate width (0 = no gate: whole sweep, balance at the strongest echo)",
         },
         ParamSpec {
             name: "margin",
-            ty: ParamType::Distance {
-                min_m: 0.0,
-                max_m: 1e8,
-            },
+            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
             default: Some("1500 m"),
             doc: "range shown either side of the gate",
         },
         ParamSpec {
             name: "average",
-            ty: ParamType::Integer {
-                min: 0,
-                max: 1_000_000_000,
-            },
+            ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average per lobe (0 = all; N = exponential average over about the last N)",
         },
@@ -97,42 +79,23 @@ pub struct LobePair {
 /// Read `az=right/left, el=up/down`.
 pub fn parse_pairs(text: &str) -> Result<Vec<LobePair>, String> {
     let mut pairs: Vec<LobePair> = Vec::new();
-    for (i, part) in text
-        .split(',')
-        .map(str::trim)
-        .filter(|p| !p.is_empty())
-        .enumerate()
-    {
-        let (axis, lobes) = part
-            .split_once('=')
-            .ok_or_else(|| format!("pair {} '{part}': expected axis=positive/negative", i + 1))?;
-        let (pos, neg) = lobes.split_once('/').ok_or_else(|| {
-            format!(
-                "pair {} '{part}': expected two lobes as positive/negative",
-                i + 1
-            )
-        })?;
+    for (i, part) in text.split(',').map(str::trim).filter(|p| !p.is_empty()).enumerate() {
+        let (axis, lobes) =
+            part.split_once('=').ok_or_else(|| format!("pair {} '{part}': expected axis=positive/negative", i + 1))?;
+        let (pos, neg) = lobes
+            .split_once('/')
+            .ok_or_else(|| format!("pair {} '{part}': expected two lobes as positive/negative", i + 1))?;
         let (axis, pos, neg) = (axis.trim(), pos.trim(), neg.trim());
         if axis.is_empty() || pos.is_empty() || neg.is_empty() || neg.contains('/') {
-            return Err(format!(
-                "pair {} '{part}': expected axis=positive/negative",
-                i + 1
-            ));
+            return Err(format!("pair {} '{part}': expected axis=positive/negative", i + 1));
         }
         if pos == neg {
-            return Err(format!(
-                "pair {} '{part}': a lobe cannot pair with itself",
-                i + 1
-            ));
+            return Err(format!("pair {} '{part}': a lobe cannot pair with itself", i + 1));
         }
         if pairs.iter().any(|p| p.axis == axis) {
             return Err(format!("axis '{axis}' is given twice"));
         }
-        pairs.push(LobePair {
-            axis: axis.into(),
-            positive: pos.into(),
-            negative: neg.into(),
-        });
+        pairs.push(LobePair { axis: axis.into(), positive: pos.into(), negative: neg.into() });
     }
     if pairs.is_empty() {
         return Err("no lobe pairs given (expected e.g. az=right/left)".into());
@@ -151,24 +114,17 @@ pub enum Separation {
 pub fn parse_separation(text: &str) -> Result<Separation, String> {
     let t = text.trim();
     if let Some(n) = t.strip_suffix("dB") {
-        let v: f64 = n
-            .trim()
-            .parse()
-            .map_err(|_| format!("separation '{t}': expected a number of dB"))?;
+        let v: f64 = n.trim().parse().map_err(|_| format!("separation '{t}': expected a number of dB"))?;
         if !(0.0..=200.0).contains(&v) {
             return Err(format!("separation {v} dB is out of range (0 to 200 dB)"));
         }
         return Ok(Separation::Decibels(v));
     }
-    let v: f64 = t.parse().map_err(|_| {
-        format!(
-            "separation '{t}': expected dB (e.g. '12 dB') or a fraction of the plot (e.g. '0.3')"
-        )
-    })?;
+    let v: f64 = t
+        .parse()
+        .map_err(|_| format!("separation '{t}': expected dB (e.g. '12 dB') or a fraction of the plot (e.g. '0.3')"))?;
     if !(0.0..=0.9).contains(&v) {
-        return Err(format!(
-            "separation {v} as a fraction of the plot must lie between 0 and 0.9"
-        ));
+        return Err(format!("separation {v} as a fraction of the plot must lie between 0 and 0.9"));
     }
     Ok(Separation::Fraction(v))
 }
@@ -177,8 +133,7 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
     Ok(Box::new(SplitPair {
         params: p.clone(),
         pairs: parse_pairs(p.text("pairs")?).map_err(|e| format!("parameter 'pairs': {e}"))?,
-        separation: parse_separation(p.text("separation")?)
-            .map_err(|e| format!("parameter 'separation': {e}"))?,
+        separation: parse_separation(p.text("separation")?).map_err(|e| format!("parameter 'separation': {e}"))?,
         averages: LobeAverages::new(p.int("average")?.max(0) as u64),
         path: p.text("path")?.to_string(),
         files: ctx.files.clone(),
@@ -219,20 +174,18 @@ impl Block for SplitPair {
         };
         let Some(tag) = &sweep.lobe else {
             if self.untagged == 0 {
-                out.notice(sweep.stamp, "sweeps carry no lobe label; split_pair needs them labelled by a switch-sync gate");
+                out.notice(
+                    sweep.stamp,
+                    "sweeps carry no lobe label; split_pair needs them labelled by a switch-sync gate",
+                );
             }
             self.untagged += 1;
             return Ok(());
         };
         let name: &str = &tag.name;
-        if self
-            .pairs
-            .iter()
-            .any(|p| p.positive == name || p.negative == name)
-        {
+        if self.pairs.iter().any(|p| p.positive == name || p.negative == name) {
             let params = &self.params;
-            self.averages
-                .add(name, tag.lobe, &sweep, |s| SplitPair::window(params, s))?;
+            self.averages.add(name, tag.lobe, &sweep, |s| SplitPair::window(params, s))?;
         }
         Ok(())
     }
@@ -246,10 +199,8 @@ impl Block for SplitPair {
                 Some(w) => {
                     let width = self.params.bins_at("gate_width", w.rate)?;
                     let start = self.params.bins_at("gate_start", w.rate)? - w.first as f64;
-                    (width > 0.0).then_some((
-                        start.max(0.0).round() as usize,
-                        (start + width).max(0.0).round() as usize,
-                    ))
+                    (width > 0.0)
+                        .then_some((start.max(0.0).round() as usize, (start + width).max(0.0).round() as usize))
                 }
                 None => None,
             };
@@ -261,10 +212,7 @@ impl Block for SplitPair {
                         .first()
                         .map(|g| g.2.first_stamp)
                         .unwrap_or(lobeflow_blocks::Stamp::new(0, 1.0)),
-                    format!(
-                        "pair {}: no balance (a lobe is missing or has no power in the gate)",
-                        pair.axis
-                    ),
+                    format!("pair {}: no balance (a lobe is missing or has no power in the gate)", pair.axis),
                 );
             }
             panels.push(Panel {
@@ -275,11 +223,7 @@ impl Block for SplitPair {
                 gate: self.averages.window().zip(gate),
             });
         }
-        let picture = SplitPicture {
-            panels,
-            separation: self.separation,
-            untagged: self.untagged,
-        };
+        let picture = SplitPicture { panels, separation: self.separation, untagged: self.untagged };
         write_picture(&picture, &self.path, &self.files)?;
         Ok(())
     }
@@ -287,27 +231,14 @@ impl Block for SplitPair {
 
 /// Balance of a pair in dB: mean power over the gate (or a few bins around
 /// the strongest echo of the two) of the positive lobe over the negative one.
-pub fn balance_db(
-    a: Option<&SweepAverage>,
-    b: Option<&SweepAverage>,
-    gate: Option<(usize, usize)>,
-) -> Option<f64> {
+pub fn balance_db(a: Option<&SweepAverage>, b: Option<&SweepAverage>, gate: Option<(usize, usize)>) -> Option<f64> {
     let (a, b) = (a?, b?);
     let (lo, hi) = match gate {
         Some(g) => g,
         None => {
-            let both: Vec<f64> = a
-                .amplitude()
-                .iter()
-                .zip(b.amplitude())
-                .map(|(x, y)| x.max(0.0) + y.max(0.0))
-                .collect();
-            let k = both
-                .iter()
-                .enumerate()
-                .filter(|v| v.1.is_finite())
-                .max_by(|x, y| x.1.total_cmp(y.1))?
-                .0;
+            let both: Vec<f64> =
+                a.amplitude().iter().zip(b.amplitude()).map(|(x, y)| x.max(0.0) + y.max(0.0)).collect();
+            let k = both.iter().enumerate().filter(|v| v.1.is_finite()).max_by(|x, y| x.1.total_cmp(y.1))?.0;
             (k.saturating_sub(2), k + 3)
         }
     };
@@ -318,12 +249,8 @@ pub fn balance_db(
 /// Decimated (range km, dB) points of an averaged sweep.
 fn trace(avg: &SweepAverage) -> (u64, Vec<(f64, f64)>) {
     let w = avg.window;
-    let pts: Vec<(f64, f64)> = avg
-        .amplitude_db()
-        .iter()
-        .enumerate()
-        .map(|(k, &db)| (w.range_m(k as f64) / 1e3, db))
-        .collect();
+    let pts: Vec<(f64, f64)> =
+        avg.amplitude_db().iter().enumerate().map(|(k, &db)| (w.range_m(k as f64) / 1e3, db)).collect();
     (avg.sweeps, decimate_min_max(&pts, 3000))
 }
 
@@ -353,9 +280,8 @@ impl Picture for SplitPicture {
                 format!("positive lobe raised {:.0} % of the plot height", 100.0 * f)
             }
         };
-        let mut sub = format!(
-            "Averaged sweeps of each lobe pair around the gate; {sep_text}; balance = positive over negative"
-        );
+        let mut sub =
+            format!("Averaged sweeps of each lobe pair around the gate; {sep_text}; balance = positive over negative");
         if self.untagged > 0 {
             sub.push_str(&format!("; {} unlabelled sweeps ignored", self.untagged));
         }
@@ -374,11 +300,7 @@ fn draw_panel<DB: DrawingBackend>(
     cell: &DrawingArea<DB, Shift>,
 ) -> Result<(), String> {
     let p = &panel.pair;
-    let values = panel
-        .a
-        .iter()
-        .chain(&panel.b)
-        .flat_map(|t| t.1.iter().map(|v| v.1));
+    let values = panel.a.iter().chain(&panel.b).flat_map(|t| t.1.iter().map(|v| v.1));
     let hi = values.clone().fold(f64::NEG_INFINITY, f64::max);
     let lo = values.fold(f64::INFINITY, f64::min).max(hi - 80.0);
     let (lo, hi) = padded(lo, hi, 0.02, 6.0);
@@ -391,9 +313,7 @@ fn draw_panel<DB: DrawingBackend>(
         .iter()
         .chain(&panel.b)
         .flat_map(|t| t.1.iter().map(|v| v.0))
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
-            (a.min(v), b.max(v))
-        });
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(v), b.max(v)));
     let (x0, x1) = if x.0 < x.1 { x } else { (0.0, 1.0) };
     let caption = match panel.balance {
         Some(b) => format!("{}: {} − {} = {:+.2} dB", p.axis, p.positive, p.negative, b),
@@ -403,11 +323,8 @@ fn draw_panel<DB: DrawingBackend>(
     let mut ch = chart(cell, &caption, x0..x1, y0..y1)?;
     if let Some((w, (g0, g1))) = panel.gate {
         let (a, b) = (w.range_m(g0 as f64) / 1e3, w.range_m(g1 as f64) / 1e3);
-        ch.draw_series(std::iter::once(Rectangle::new(
-            [(a, y0), (b, y1)],
-            palette::GATE.mix(0.4).filled(),
-        )))
-        .map_err(draw_err)?;
+        ch.draw_series(std::iter::once(Rectangle::new([(a, y0), (b, y1)], palette::GATE.mix(0.4).filled())))
+            .map_err(draw_err)?;
     }
     draw_mesh(&mut ch, "range (km)", "amplitude (dB)")?;
     let mut entries = Vec::new();
@@ -418,17 +335,11 @@ fn draw_panel<DB: DrawingBackend>(
             palette::lobe(0).stroke_width(2),
         ))
         .map_err(draw_err)?;
-        entries.push((
-            palette::lobe(0),
-            format!("{} +{:.1} dB ({n})", p.positive, offset),
-        ));
+        entries.push((palette::lobe(0), format!("{} +{:.1} dB ({n})", p.positive, offset)));
     }
     if let Some((n, pts)) = &panel.b {
-        ch.draw_series(LineSeries::new(
-            pts.iter().map(|&(x, y)| (x, clip(y))),
-            palette::lobe(1).stroke_width(2),
-        ))
-        .map_err(draw_err)?;
+        ch.draw_series(LineSeries::new(pts.iter().map(|&(x, y)| (x, clip(y))), palette::lobe(1).stroke_width(2)))
+            .map_err(draw_err)?;
         entries.push((palette::lobe(1), format!("{} ({n})", p.negative)));
     }
     if entries.is_empty() {
@@ -451,19 +362,8 @@ mod tests {
     #[test]
     fn pairs_parse_and_explain_mistakes() {
         let p = parse_pairs("az=right/left, el=up/down").unwrap();
-        assert_eq!(
-            p[1],
-            LobePair {
-                axis: "el".into(),
-                positive: "up".into(),
-                negative: "down".into()
-            }
-        );
-        assert!(
-            parse_pairs("az=right")
-                .unwrap_err()
-                .contains("positive/negative")
-        );
+        assert_eq!(p[1], LobePair { axis: "el".into(), positive: "up".into(), negative: "down".into() });
+        assert!(parse_pairs("az=right").unwrap_err().contains("positive/negative"));
         assert!(parse_pairs("az=a/a").unwrap_err().contains("itself"));
         assert!(parse_pairs("az=a/b, az=c/d").unwrap_err().contains("twice"));
         assert!(parse_pairs(" , ").is_err());

@@ -142,26 +142,44 @@ impl Manifest {
         for (i, c) in raw.checks.iter().enumerate() {
             let at = [key("checks"), Seg::Index(i)];
             if c.min.is_none() && c.max.is_none() {
-                return Err(err(&at, format!("check {} ({}) needs a bound: min, max or both", i + 1, c.measure.name())));
+                return Err(err(
+                    &at,
+                    format!("check {} ({}) needs a bound: min, max or both", i + 1, c.measure.name()),
+                ));
             }
-            let needs_axis =
-                matches!(c.measure, Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError);
+            let needs_axis = matches!(
+                c.measure,
+                Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError
+            );
             if needs_axis && c.axis.is_none() {
                 return Err(err(&at, format!("check {} ({}) needs an axis (e.g. az)", i + 1, c.measure.name())));
             }
             if c.measure == Measure::Flags && c.flag.is_none() {
-                return Err(err(&at, format!("check {} (flags) needs a flag (ok, out_of_range, no_signal, outlier)", i + 1)));
+                return Err(err(
+                    &at,
+                    format!("check {} (flags) needs a flag (ok, out_of_range, no_signal, outlier)", i + 1),
+                ));
             }
-            if matches!(c.measure, Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma | Measure::WorstError)
-                && raw.truth.is_none()
+            if matches!(
+                c.measure,
+                Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma | Measure::WorstError
+            ) && raw.truth.is_none()
             {
-                return Err(err(&at, format!("check {} ({}) compares with the truth, but the manifest names no truth file", i + 1, c.measure.name())));
+                return Err(err(
+                    &at,
+                    format!(
+                        "check {} ({}) compares with the truth, but the manifest names no truth file",
+                        i + 1,
+                        c.measure.name()
+                    ),
+                ));
             }
         }
         let mut knobs = crate::graph::Overrides::default();
         for (name, v) in &raw.knobs {
-            let value = crate::graph::file::raw_value(v)
-                .ok_or_else(|| err(&[key("knobs"), key(name)], format!("knob '{name}' must be a number, text, true/false or a list")))?;
+            let value = crate::graph::file::raw_value(v).ok_or_else(|| {
+                err(&[key("knobs"), key(name)], format!("knob '{name}' must be a number, text, true/false or a list"))
+            })?;
             let (line, _) = locate(&text, &[key("knobs"), key(name)]);
             knobs.items.push(crate::graph::Override {
                 name: name.clone(),

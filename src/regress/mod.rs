@@ -24,7 +24,8 @@ pub struct Row {
 
 /// All manifests (`*.check.yaml`) in `dir`, sorted by name.
 pub fn find_manifests(dir: &Path) -> Result<Vec<PathBuf>, Error> {
-    let rd = std::fs::read_dir(dir).map_err(|e| Error::Input(format!("cannot read sample folder {}: {e}", dir.display())))?;
+    let rd = std::fs::read_dir(dir)
+        .map_err(|e| Error::Input(format!("cannot read sample folder {}: {e}", dir.display())))?;
     let mut out: Vec<PathBuf> = rd
         .filter_map(|e| e.ok().map(|e| e.path()))
         .filter(|p| p.file_name().is_some_and(|n| n.to_string_lossy().ends_with(manifest::SUFFIX)))
@@ -44,17 +45,17 @@ pub struct Table {
 
 impl Table {
     pub fn read(path: &Path) -> Result<Table, Error> {
-        let text = std::fs::read_to_string(path).map_err(|e| Error::Input(format!("cannot read {}: {e}", path.display())))?;
+        let text =
+            std::fs::read_to_string(path).map_err(|e| Error::Input(format!("cannot read {}: {e}", path.display())))?;
         let mut lines = text.lines().filter(|l| !l.trim().is_empty() && !l.starts_with('#'));
         let header: Vec<String> = lines.next().unwrap_or("").split(',').map(|s| s.trim().to_string()).collect();
         let rows = lines.map(|l| l.split(',').map(|s| s.trim().to_string()).collect()).collect();
         Ok(Table { header, rows })
     }
     pub fn column(&self, name: &str, path: &Path) -> Result<usize, Error> {
-        self.header
-            .iter()
-            .position(|h| h == name)
-            .ok_or_else(|| Error::Input(format!("{} has no column '{name}' (columns: {})", path.display(), self.header.join(","))))
+        self.header.iter().position(|h| h == name).ok_or_else(|| {
+            Error::Input(format!("{} has no column '{name}' (columns: {})", path.display(), self.header.join(",")))
+        })
     }
 }
 
@@ -141,7 +142,8 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
         Measure::Estimates => Some(t.rows.iter().filter(on_axis).filter(ok).count() as f64),
         Measure::Flags => {
             let flag = c.flag.as_deref().unwrap_or("");
-            Some(t.rows.iter().filter(on_axis).filter(|r| r.get(flag_c).map(String::as_str) == Some(flag)).count() as f64)
+            Some(t.rows.iter().filter(on_axis).filter(|r| r.get(flag_c).map(String::as_str) == Some(flag)).count()
+                as f64)
         }
         Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError => {
             let truth = truth.ok_or_else(|| Error::Input("no truth file".into()))?;
@@ -153,7 +155,10 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
             for r in t.rows.iter().filter(on_axis).filter(ok) {
                 let (Some(time), Some(est)) = (num(&r[time_c]), r.get(err_c).and_then(|v| num(v))) else { continue };
                 let Some(want) = truth.at(&col, time) else {
-                    return Err(Error::Input(format!("the truth file has no column '{col}' for axis {}", c.axis.as_deref().unwrap_or(""))));
+                    return Err(Error::Input(format!(
+                        "the truth file has no column '{col}' for axis {}",
+                        c.axis.as_deref().unwrap_or("")
+                    )));
                 };
                 errs.push(est - want);
                 sig2 += r.get(sig_c).and_then(|v| num(v)).unwrap_or(f64::NAN).powi(2);
@@ -224,9 +229,12 @@ fn compare_golden(m: &Manifest, g: &manifest::Golden, out: &Path, update: bool, 
         let measured = if same {
             "unchanged".to_string()
         } else {
-            let bytes = std::fs::read(&produced).map_err(|e| Error::Input(format!("cannot read {}: {e}", produced.display())))?;
+            let bytes = std::fs::read(&produced)
+                .map_err(|e| Error::Input(format!("cannot read {}: {e}", produced.display())))?;
             let tmp = lobeflow_blocks::FileStager::temp_path(&golden);
-            std::fs::write(&tmp, bytes).and_then(|_| std::fs::rename(&tmp, &golden)).map_err(|e| Error::Output(format!("cannot write {}: {e}", golden.display())))?;
+            std::fs::write(&tmp, bytes)
+                .and_then(|_| std::fs::rename(&tmp, &golden))
+                .map_err(|e| Error::Output(format!("cannot write {}: {e}", golden.display())))?;
             match diff {
                 None => "created".to_string(),
                 Some(Some(d)) => format!("updated ({d})"),
@@ -236,8 +244,17 @@ fn compare_golden(m: &Manifest, g: &manifest::Golden, out: &Path, update: bool, 
         return Ok(Row { sample: m.name.clone(), check, measured, bound, passed: true, seconds });
     }
     match diff {
-        None => Ok(Row { sample: m.name.clone(), check, measured: "no golden file (run with --update)".into(), bound, passed: false, seconds }),
-        Some(None) => Ok(Row { sample: m.name.clone(), check, measured: "matches".into(), bound, passed: true, seconds }),
+        None => Ok(Row {
+            sample: m.name.clone(),
+            check,
+            measured: "no golden file (run with --update)".into(),
+            bound,
+            passed: false,
+            seconds,
+        }),
+        Some(None) => {
+            Ok(Row { sample: m.name.clone(), check, measured: "matches".into(), bound, passed: true, seconds })
+        }
         Some(Some(d)) => Ok(Row { sample: m.name.clone(), check, measured: d, bound, passed: false, seconds }),
     }
 }

@@ -8,8 +8,8 @@ use crate::graph::ResolvedGraph;
 use crossbeam_channel::Sender;
 use futures::task::AtomicWaker;
 use lobeflow_blocks::{Block, BlockError, BuildContext, FileStager, Item, Notice, Outputs, ParamType, Value};
-use scheduler::{NodeSetup, ProgressFn, StopReason, run_nodes};
 pub use scheduler::BlockStats;
+use scheduler::{NodeSetup, ProgressFn, StopReason, run_nodes};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -149,7 +149,8 @@ pub fn run(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Result<R
         });
         edges += 1;
     }
-    let outcome = run_nodes(setups, edges, opts.threads, opts.capacity, Arc::clone(&opts.cancel), opts.progress.clone());
+    let outcome =
+        run_nodes(setups, edges, opts.threads, opts.capacity, Arc::clone(&opts.cancel), opts.progress.clone());
     match outcome.stop {
         None => {
             let written = files.commit().map_err(|e| Error::Output(format!("cannot move outputs into place: {e}")))?;

@@ -310,7 +310,8 @@ fn worker(sh: &Shared) {
             let targets: Vec<usize> = targets.clone();
             let mut item = Some(item);
             for (k, e) in targets.into_iter().enumerate() {
-                let it = if k == last { item.take().expect("moved once") } else { item.clone().expect("kept until last") };
+                let it =
+                    if k == last { item.take().expect("moved once") } else { item.clone().expect("kept until last") };
                 st.edges[e].queue.push_back(it);
             }
             items_out += 1;

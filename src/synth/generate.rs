@@ -20,8 +20,8 @@
 //! depend on the chunk size.
 
 use super::scenario::{
-    BeamKind, Degrees, Fluctuation, Metres, PhaseMode, Quantity, ScaleSpec, ScenarioFile,
-    SignalSpec, SyncMode, Toward, Track, Way,
+    BeamKind, Degrees, Fluctuation, Metres, PhaseMode, Quantity, ScaleSpec, ScenarioFile, SignalSpec, SyncMode, Toward,
+    Track, Way,
 };
 use crate::capture::write::{AuxRole, WriteFormat};
 use lobeflow_blocks::SPEED_OF_LIGHT;
@@ -135,19 +135,13 @@ impl Model {
         let c = &s.capture;
         let rate = c.sample_rate.0;
         if !(rate.is_finite() && rate > 0.0) {
-            return Err(err(
-                "capture/sample_rate",
-                format!("sample rate {rate} must be positive"),
-            ));
+            return Err(err("capture/sample_rate", format!("sample rate {rate} must be positive")));
         }
         let samples = (c.duration.0 * rate).round();
         if !(1.0..=MAX_SAMPLES).contains(&samples) {
             return Err(err(
                 "capture/duration",
-                format!(
-                    "duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})",
-                    c.duration.0
-                ),
+                format!("duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})", c.duration.0),
             ));
         }
         if !c.start.0.is_finite() {
@@ -155,10 +149,7 @@ impl Model {
         }
         let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e))?;
         if c.chunk == 0 || c.chunk > 1 << 24 {
-            return Err(err(
-                "capture/chunk",
-                format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24),
-            ));
+            return Err(err("capture/chunk", format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24)));
         }
 
         let a = &s.antenna;
@@ -167,22 +158,15 @@ impl Model {
             BeamKind::Uniform => BeamShape::Uniform,
             BeamKind::Cosine => BeamShape::Cosine,
             BeamKind::Table => {
-                let rel = a.pattern.as_deref().ok_or_else(|| {
-                    err(
-                        "antenna/beam",
-                        "a table beam needs `pattern: FILE.csv`".into(),
-                    )
-                })?;
+                let rel = a
+                    .pattern
+                    .as_deref()
+                    .ok_or_else(|| err("antenna/beam", "a table beam needs `pattern: FILE.csv`".into()))?;
                 let path = f.dir().join(rel);
-                let text = std::fs::read_to_string(&path).map_err(|e| {
-                    err(
-                        "antenna/pattern",
-                        format!("cannot read {}: {e}", path.display()),
-                    )
-                })?;
+                let text = std::fs::read_to_string(&path)
+                    .map_err(|e| err("antenna/pattern", format!("cannot read {}: {e}", path.display())))?;
                 BeamShape::Table(
-                    parse_pattern_csv(&text)
-                        .map_err(|e| err("antenna/pattern", format!("{}: {e}", path.display())))?,
+                    parse_pattern_csv(&text).map_err(|e| err("antenna/pattern", format!("{}: {e}", path.display())))?,
                 )
             }
         };
@@ -193,50 +177,28 @@ impl Model {
         };
         let beam = Beam::new(shape, bw).map_err(|e| err("antenna", e))?;
         let pulsed = matches!(s.signal, SignalSpec::Pulsed(_));
-        let way = match a
-            .way
-            .unwrap_or(if pulsed { Way::TwoWay } else { Way::OneWay })
-        {
+        let way = match a.way.unwrap_or(if pulsed { Way::TwoWay } else { Way::OneWay }) {
             Way::OneWay => 1,
             Way::TwoWay => 2,
         };
 
         if s.lobes.len() < 2 {
-            return Err(err(
-                "lobes",
-                format!(
-                    "{} lobe(s) given; lobe switching needs at least two",
-                    s.lobes.len()
-                ),
-            ));
+            return Err(err("lobes", format!("{} lobe(s) given; lobe switching needs at least two", s.lobes.len())));
         }
         let mut lobes = Vec::new();
         for (i, l) in s.lobes.iter().enumerate() {
             let at = format!("lobes/{i}");
             let name = l.name.trim();
             if name.is_empty() || name.contains(',') {
-                return Err(err(
-                    &at,
-                    format!(
-                        "lobe name '{}' must be non-empty and without commas",
-                        l.name
-                    ),
-                ));
+                return Err(err(&at, format!("lobe name '{}' must be non-empty and without commas", l.name)));
             }
             if lobes.iter().any(|o: &Lobe| o.name == name) {
                 return Err(err(&at, format!("lobe name '{name}' is used twice")));
             }
             let (az, el) = match (l.toward, l.az, l.el) {
                 (Some(t), None, None) => {
-                    let sq = a
-                        .squint
-                        .ok_or_else(|| {
-                            err(
-                                "antenna",
-                                "`squint` is needed when lobes use `toward`".into(),
-                            )
-                        })?
-                        .0;
+                    let sq =
+                        a.squint.ok_or_else(|| err("antenna", "`squint` is needed when lobes use `toward`".into()))?.0;
                     match t {
                         Toward::Right => (sq, 0.0),
                         Toward::Left => (-sq, 0.0),
@@ -244,44 +206,26 @@ impl Model {
                         Toward::Down => (0.0, -sq),
                     }
                 }
-                (None, az, el) if az.is_some() || el.is_some() => {
-                    (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0))
-                }
+                (None, az, el) if az.is_some() || el.is_some() => (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0)),
                 _ => {
                     return Err(err(
                         &at,
-                        format!(
-                            "lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)"
-                        ),
+                        format!("lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)"),
                     ));
                 }
             };
-            lobes.push(Lobe {
-                name: name.to_string(),
-                az,
-                el,
-            });
+            lobes.push(Lobe { name: name.to_string(), az, el });
         }
 
         let end = c.start.0 + samples / rate;
         let tracks = [
             ("target/az", track_numbers(&s.target.az)),
             ("target/el", track_numbers(&s.target.el)),
-            (
-                "target/range",
-                s.target
-                    .range
-                    .as_ref()
-                    .map(track_numbers)
-                    .unwrap_or_default(),
-            ),
+            ("target/range", s.target.range.as_ref().map(track_numbers).unwrap_or_default()),
         ];
         for (at, numbers) in tracks {
             if numbers.iter().any(|v| !v.is_finite()) {
-                return Err(err(
-                    at,
-                    "every value of a track must be a finite number".into(),
-                ));
+                return Err(err(at, "every value of a track must be a finite number".into()));
             }
             if numbers.len() > 2 && !(numbers[3] > 0.0) {
                 return Err(err(
@@ -295,10 +239,7 @@ impl Model {
                 let at = |k: &str| format!("signal/pulsed/{k}");
                 let pri = 1.0 / p.prf.0;
                 if !(p.prf.0 > 0.0 && pri.is_finite()) {
-                    return Err(err(
-                        &at("prf"),
-                        format!("PRF {} Hz must be positive", p.prf.0),
-                    ));
+                    return Err(err(&at("prf"), format!("PRF {} Hz must be positive", p.prf.0)));
                 }
                 if !(p.pulse_length.0 > 0.0 && p.pulse_length.0 < pri) {
                     return Err(err(
@@ -310,18 +251,12 @@ impl Model {
                     ));
                 }
                 if p.pulses_per_dwell == 0 {
-                    return Err(err(
-                        &at("pulses_per_dwell"),
-                        "at least one pulse per dwell is needed".into(),
-                    ));
+                    return Err(err(&at("pulses_per_dwell"), "at least one pulse per dwell is needed".into()));
                 }
                 if !(p.prf_jitter.0 >= 0.0 && p.prf_jitter.0 < 0.1 * pri) {
                     return Err(err(
                         &at("prf_jitter"),
-                        format!(
-                            "PRF jitter {} s must be from 0 to a tenth of the PRI",
-                            p.prf_jitter.0
-                        ),
+                        format!("PRF jitter {} s must be from 0 to a tenth of the PRI", p.prf_jitter.0),
                     ));
                 }
                 let lead = p.switch_lead.map_or(0.1 * pri, |l| l.0);
@@ -332,26 +267,19 @@ impl Model {
                     ));
                 }
                 let range = s.target.range.ok_or_else(|| {
-                    err(
-                        "target",
-                        "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into(),
-                    )
+                    err("target", "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into())
                 })?;
                 let (rmin, rmax) = range.bounds(c.start.0, end);
                 if rmax > MAX_RANGE_M {
                     return Err(err(
                         "target/range",
-                        format!(
-                            "range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m"
-                        ),
+                        format!("range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m"),
                     ));
                 }
                 if !(rmin > 0.0) {
                     return Err(err(
                         "target/range",
-                        format!(
-                            "range falls to {rmin} m during the capture; it must stay positive"
-                        ),
+                        format!("range falls to {rmin} m during the capture; it must stay positive"),
                     ));
                 }
                 if !p.first_transmit.0.is_finite() {
@@ -374,37 +302,21 @@ impl Model {
             SignalSpec::Beacon(b) => {
                 let at = |k: &str| format!("signal/beacon/{k}");
                 if !(b.dwell.0 > 0.0 && b.dwell.0 * rate >= 1.0) {
-                    return Err(err(
-                        &at("dwell"),
-                        format!("dwell {} s must hold at least one sample", b.dwell.0),
-                    ));
+                    return Err(err(&at("dwell"), format!("dwell {} s must hold at least one sample", b.dwell.0)));
                 }
                 if b.fluctuation == Fluctuation::PerPulse {
-                    return Err(err(
-                        &at("fluctuation"),
-                        "a beacon has no pulses: use none or per_dwell".into(),
-                    ));
+                    return Err(err(&at("fluctuation"), "a beacon has no pulses: use none or per_dwell".into()));
                 }
                 if s.target.range.is_some() {
-                    return Err(err(
-                        "target/range",
-                        "a beacon scenario has no range; remove `range`".into(),
-                    ));
+                    return Err(err("target/range", "a beacon scenario has no range; remove `range`".into()));
                 }
                 if c.trigger {
-                    return Err(err(
-                        "capture/trigger",
-                        "a beacon has no transmit trigger; remove `trigger`".into(),
-                    ));
+                    return Err(err("capture/trigger", "a beacon has no transmit trigger; remove `trigger`".into()));
                 }
                 if !(b.tone.0.abs() < rate / 2.0) {
                     return Err(err(
                         &at("tone"),
-                        format!(
-                            "tone {} Hz must lie within +-{} Hz (half the sample rate)",
-                            b.tone.0,
-                            rate / 2.0
-                        ),
+                        format!("tone {} Hz must lie within +-{} Hz (half the sample rate)", b.tone.0, rate / 2.0),
                     ));
                 }
                 Signal::Beacon(Beacon {
@@ -418,10 +330,7 @@ impl Model {
         };
         let transient = match &s.switch_transient {
             Some(t) if !(t.length.0 > 0.0) => {
-                return Err(err(
-                    "switch_transient/length",
-                    "length must be positive".into(),
-                ));
+                return Err(err("switch_transient/length", "length must be positive".into()));
             }
             Some(t) => Some((db_amplitude(t.level.0), t.length.0)),
             None => None,
@@ -458,18 +367,10 @@ impl Model {
     pub fn expected_peak(&self) -> f64 {
         let noise = NOISE_PEAK_SIGMAS * std::f64::consts::FRAC_1_SQRT_2;
         let (signal, fluct, leak) = match &self.signal {
-            Signal::Pulsed(p) => (
-                p.amplitude,
-                p.fluctuation,
-                p.leakage_amplitude.unwrap_or(0.0),
-            ),
+            Signal::Pulsed(p) => (p.amplitude, p.fluctuation, p.leakage_amplitude.unwrap_or(0.0)),
             Signal::Beacon(b) => (b.amplitude, b.fluctuation, 0.0),
         };
-        let f = if fluct == Fluctuation::None {
-            1.0
-        } else {
-            FLUCTUATION_PEAK
-        };
+        let f = if fluct == Fluctuation::None { 1.0 } else { FLUCTUATION_PEAK };
         noise + signal * f + leak + self.transient.map_or(0.0, |t| t.0)
     }
 
@@ -564,12 +465,8 @@ impl Model {
     fn target_factor(&self, fluct: Fluctuation, phase: PhaseMode, d: i64, k: i64) -> Complex64 {
         let amp = match fluct {
             Fluctuation::None => 1.0,
-            Fluctuation::PerDwell => sub_rng(self.seed, STREAM_FLUCT, d)
-                .complex_gaussian(1.0)
-                .norm() as f64,
-            Fluctuation::PerPulse => sub_rng(self.seed, STREAM_FLUCT, k)
-                .complex_gaussian(1.0)
-                .norm() as f64,
+            Fluctuation::PerDwell => sub_rng(self.seed, STREAM_FLUCT, d).complex_gaussian(1.0).norm() as f64,
+            Fluctuation::PerPulse => sub_rng(self.seed, STREAM_FLUCT, k).complex_gaussian(1.0).norm() as f64,
         };
         let ph = match phase {
             PhaseMode::PerDwell => sub_rng(self.seed, STREAM_PHASE_DWELL, d).uniform(),
@@ -603,10 +500,7 @@ fn mix(mut z: u64) -> u64 {
 
 /// An independent random stream for (seed, stream, index).
 fn sub_rng(seed: u64, stream: u64, index: i64) -> Rng {
-    Rng::new(mix(seed
-        ^ mix(
-            stream.wrapping_mul(0x9E37_79B9_7F4A_7C15) ^ mix(index as u64)
-        )))
+    Rng::new(mix(seed ^ mix(stream.wrapping_mul(0x9E37_79B9_7F4A_7C15) ^ mix(index as u64))))
 }
 
 /// One chunk of generated frames (buffers reused between chunks).
@@ -633,13 +527,7 @@ impl Generator {
     pub fn new(model: Model) -> Generator {
         let noise = sub_rng(model.seed, STREAM_NOISE, 0);
         let sync_noise = sub_rng(model.seed, STREAM_SYNC, 0);
-        Generator {
-            model,
-            next: 0,
-            noise,
-            sync_noise,
-            acc: Vec::new(),
-        }
+        Generator { model, next: 0, noise, sync_noise, acc: Vec::new() }
     }
 
     pub fn model(&self) -> &Model {
@@ -661,8 +549,7 @@ impl Generator {
             Complex64::new(z.re as f64, z.im as f64)
         }));
         out.trigger.clear();
-        out.trigger
-            .resize(if m.trigger_channel { n } else { 0 }, 0.0);
+        out.trigger.resize(if m.trigger_channel { n } else { 0 }, 0.0);
         out.sync.clear();
         let ta = m.time_of(n0 as f64);
         let tb = m.time_of((n0 + n as u64) as f64);
@@ -676,11 +563,7 @@ impl Generator {
             Signal::Beacon(b) => self.add_beacon(&b, n0, n),
         }
         out.iq.clear();
-        out.iq.extend(
-            self.acc
-                .iter()
-                .map(|z| Complex32::new(z.re as f32, z.im as f32)),
-        );
+        out.iq.extend(self.acc.iter().map(|z| Complex32::new(z.re as f32, z.im as f32)));
         self.next += n as u64;
         true
     }
@@ -730,8 +613,7 @@ impl Generator {
             while idx < last {
                 let dt = idx - s;
                 let env = amp * (-5.0 * dt / len_samples).exp();
-                self.acc[(idx as u64 - n0) as usize] +=
-                    Complex64::from_polar(env, 2.0 * PI * 0.125 * dt);
+                self.acc[(idx as u64 - n0) as usize] += Complex64::from_polar(env, 2.0 * PI * 0.125 * dt);
                 idx += 1.0;
             }
             d += 1;
@@ -801,9 +683,7 @@ impl Generator {
             if gain_dwell != Some(d) {
                 let mid = 0.5 * (m.switch_time(d) + m.switch_time(d + 1));
                 let fluct = match b.fluctuation {
-                    Fluctuation::PerDwell => {
-                        m.target_factor(Fluctuation::PerDwell, PhaseMode::PerDwell, d, 0)
-                    }
+                    Fluctuation::PerDwell => m.target_factor(Fluctuation::PerDwell, PhaseMode::PerDwell, d, 0),
                     _ => Complex64::new(1.0, 0.0),
                 };
                 gain = fluct * (b.amplitude * m.pattern_factor(m.lobe_of_dwell(d), mid));

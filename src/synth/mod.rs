@@ -76,11 +76,5 @@ pub fn synthesize(file: &ScenarioFile, prefix: &Path) -> Result<SynthReport, Str
     let written = commit_staged(&stager)?;
     let step = model.format.step();
     let noise_steps = (step > 0.0).then(|| model.scale * std::f64::consts::FRAC_1_SQRT_2 / step);
-    Ok(SynthReport {
-        written,
-        samples,
-        dwells,
-        scale: model.scale,
-        noise_steps,
-    })
+    Ok(SynthReport { written, samples, dwells, scale: model.scale, noise_steps })
 }

@@ -73,21 +73,12 @@ pub trait Quantity: Copy {
 }
 
 /// A number given bare or as text with a unit suffix.
-fn deserialize_quantity<'de, D: Deserializer<'de>>(
-    d: D,
-    unit: Unit,
-    what: &'static str,
-) -> Result<f64, D::Error> {
+fn deserialize_quantity<'de, D: Deserializer<'de>>(d: D, unit: Unit, what: &'static str) -> Result<f64, D::Error> {
     struct V(Unit, &'static str);
     impl<'de> Visitor<'de> for V {
         type Value = f64;
         fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-            write!(
-                f,
-                "{} (a number, or text with a unit such as \"{}\")",
-                self.1,
-                example(self.0)
-            )
+            write!(f, "{} (a number, or text with a unit such as \"{}\")", self.1, example(self.0))
         }
         fn visit_f64<E: de::Error>(self, v: f64) -> Result<f64, E> {
             Ok(v)
@@ -101,11 +92,7 @@ fn deserialize_quantity<'de, D: Deserializer<'de>>(
         fn visit_str<E: de::Error>(self, v: &str) -> Result<f64, E> {
             let spec = ParamSpec {
                 name: "",
-                ty: ParamType::Number {
-                    unit: self.0,
-                    min: f64::NEG_INFINITY,
-                    max: f64::INFINITY,
-                },
+                ty: ParamType::Number { unit: self.0, min: f64::NEG_INFINITY, max: f64::INFINITY },
                 default: None,
                 doc: "",
             };
@@ -409,8 +396,7 @@ impl<Q: Quantity + Default> Track<Q> {
     pub fn at_time(&self, t: f64) -> f64 {
         let mut v = self.at.value() + self.per_second.value() * t;
         if let Some(s) = &self.swing {
-            v += s.amplitude.value()
-                * (2.0 * std::f64::consts::PI * t / s.period.0 + s.phase.0.to_radians()).sin();
+            v += s.amplitude.value() * (2.0 * std::f64::consts::PI * t / s.period.0 + s.phase.0.to_radians()).sin();
         }
         v
     }
@@ -445,8 +431,8 @@ pub struct ScenarioFile {
 impl ScenarioFile {
     /// Read and parse `path`; errors carry `file:line:column`.
     pub fn load(path: &Path) -> Result<ScenarioFile, String> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| format!("cannot read scenario {}: {e}", path.display()))?;
+        let text =
+            std::fs::read_to_string(path).map_err(|e| format!("cannot read scenario {}: {e}", path.display()))?;
         Self::parse(path, text)
     }
 
@@ -456,21 +442,11 @@ impl ScenarioFile {
             Some(l) => {
                 let text = e.to_string();
                 let tail = format!(" at line {} column {}", l.line(), l.column());
-                format!(
-                    "{}:{}:{}: {}",
-                    path.display(),
-                    l.line(),
-                    l.column(),
-                    text.strip_suffix(&tail).unwrap_or(&text)
-                )
+                format!("{}:{}:{}: {}", path.display(), l.line(), l.column(), text.strip_suffix(&tail).unwrap_or(&text))
             }
             None => format!("{}: {e}", path.display()),
         })?;
-        Ok(ScenarioFile {
-            path: path.to_path_buf(),
-            text,
-            scenario,
-        })
+        Ok(ScenarioFile { path: path.to_path_buf(), text, scenario })
     }
 
     /// An error about the value at key path `at`, with its position.
@@ -481,23 +457,14 @@ impl ScenarioFile {
 
     /// Shorthand for a key path written as `a/b/c` (numbers are indices).
     pub fn error_at_keys(&self, at: &str, message: impl fmt::Display) -> String {
-        let segs: Vec<Seg> = at
-            .split('/')
-            .map(|s| {
-                s.parse::<usize>()
-                    .map(Seg::Index)
-                    .unwrap_or_else(|_| key(s))
-            })
-            .collect();
+        let segs: Vec<Seg> =
+            at.split('/').map(|s| s.parse::<usize>().map(Seg::Index).unwrap_or_else(|_| key(s))).collect();
         self.error_at(&segs, message)
     }
 
     /// Directory that relative paths in the scenario resolve against.
     pub fn dir(&self) -> PathBuf {
-        self.path
-            .parent()
-            .map(Path::to_path_buf)
-            .unwrap_or_default()
+        self.path.parent().map(Path::to_path_buf).unwrap_or_default()
     }
 }
 
@@ -518,9 +485,7 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
         assert!((s.capture.duration.0 - 1e-3).abs() < 1e-15);
         assert_eq!(s.capture.scale, ScaleSpec::Auto);
         assert_eq!(s.capture.sync, SyncMode::Channel);
-        let SignalSpec::Beacon(b) = &s.signal else {
-            panic!("beacon expected")
-        };
+        let SignalSpec::Beacon(b) = &s.signal else { panic!("beacon expected") };
         assert_eq!(b.tone.0, 1e4);
         assert_eq!(s.target.az.at_time(3.0), 0.5);
     }
@@ -529,10 +494,7 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
     fn errors_name_file_line_and_what() {
         let bad = MINIMAL.replace("dwell: 100 us", "dwell: 100 km");
         let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
-        assert!(
-            e.starts_with("s.yaml:6:") && e.contains("unit 'km'") && !e.contains("at line"),
-            "{e}"
-        );
+        assert!(e.starts_with("s.yaml:6:") && e.contains("unit 'km'") && !e.contains("at line"), "{e}");
         let bad = MINIMAL.replace("toward: left", "toward: west");
         let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
         assert!(e.starts_with("s.yaml:4:") && e.contains("west"), "{e}");
@@ -543,10 +505,9 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
 
     #[test]
     fn track_follows_its_formula() {
-        let t: Track<Degrees> = serde_yaml::from_str(
-            "{at: 1 deg, per_second: 0.5, swing: {amplitude: 2, period: 4 s, phase: 90 deg}}",
-        )
-        .unwrap();
+        let t: Track<Degrees> =
+            serde_yaml::from_str("{at: 1 deg, per_second: 0.5, swing: {amplitude: 2, period: 4 s, phase: 90 deg}}")
+                .unwrap();
         // 1 + 0.5*1 + 2*sin(pi/2 + pi/2) = 1.5
         assert!((t.at_time(1.0) - 1.5).abs() < 1e-12);
         let (lo, hi) = t.bounds(0.0, 2.0);

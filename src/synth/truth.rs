@@ -63,12 +63,8 @@ pub fn write_truth(model: &Model, path: &Path, stager: &FileStager) -> Result<u6
     let mut rows = 0;
     for r in truth_rows(model) {
         let range = r.range_m.map_or(String::new(), |v| format!("{v:.3}"));
-        writeln!(
-            f,
-            "{:.9},{},{:.6},{:.6},{range}",
-            r.time_s, model.lobes[r.lobe].name, r.az_deg, r.el_deg
-        )
-        .map_err(io)?;
+        writeln!(f, "{:.9},{},{:.6},{:.6},{range}", r.time_s, model.lobes[r.lobe].name, r.az_deg, r.el_deg)
+            .map_err(io)?;
         rows += 1;
     }
     f.finish(stager).map_err(io)?;

@@ -215,13 +215,17 @@ impl PairModel {
 
     /// `n ln(A/B)` for a target at `theta_deg` (A: lobe at +squint).
     pub fn log_ratio(&self, theta_deg: f64) -> f64 {
-        self.way as f64 * (self.beam.ln_voltage(theta_deg - self.squint_deg) - self.beam.ln_voltage(theta_deg + self.squint_deg))
+        self.way as f64
+            * (self.beam.ln_voltage(theta_deg - self.squint_deg) - self.beam.ln_voltage(theta_deg + self.squint_deg))
     }
 
     /// Lobe amplitudes (A, B) for a target at `theta_deg` (pattern^n).
     pub fn amplitudes(&self, theta_deg: f64) -> (f64, f64) {
         let n = self.way as i32;
-        (self.beam.voltage(theta_deg - self.squint_deg).abs().powi(n), self.beam.voltage(theta_deg + self.squint_deg).abs().powi(n))
+        (
+            self.beam.voltage(theta_deg - self.squint_deg).abs().powi(n),
+            self.beam.voltage(theta_deg + self.squint_deg).abs().powi(n),
+        )
     }
 
     /// Slope d r / d theta at `theta_deg`, per degree.
@@ -318,10 +322,12 @@ mod tests {
 
     #[test]
     fn every_model_round_trips_across_its_monotonic_region() {
-        let table: Vec<(f64, f64)> = (-300..=300).map(|i| {
-            let x = i as f64 * 0.1;
-            (x, 20.0 * Beam::new(BeamShape::Cosine, 8.0).unwrap().voltage(x).abs().max(1e-6).log10())
-        }).collect();
+        let table: Vec<(f64, f64)> = (-300..=300)
+            .map(|i| {
+                let x = i as f64 * 0.1;
+                (x, 20.0 * Beam::new(BeamShape::Cosine, 8.0).unwrap().voltage(x).abs().max(1e-6).log10())
+            })
+            .collect();
         for shape in [BeamShape::Gaussian, BeamShape::Uniform, BeamShape::Cosine, BeamShape::Table(table)] {
             for way in [1, 2] {
                 let beam = Beam::new(shape.clone(), 8.0).unwrap();

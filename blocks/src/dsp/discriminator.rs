@@ -26,17 +26,11 @@ pub fn parse_key_values(text: &str, what: &str) -> Result<Vec<(String, String)>,
             continue;
         }
         let Some((k, v)) = part.split_once('=') else {
-            return Err(format!(
-                "{what}: entry {} '{part}' is not of the form name=value",
-                i + 1
-            ));
+            return Err(format!("{what}: entry {} '{part}' is not of the form name=value", i + 1));
         };
         let (k, v) = (k.trim(), v.trim());
         if k.is_empty() || v.is_empty() {
-            return Err(format!(
-                "{what}: entry {} '{part}' has an empty name or value",
-                i + 1
-            ));
+            return Err(format!("{what}: entry {} '{part}' has an empty name or value", i + 1));
         }
         if out.iter().any(|(seen, _)| seen == k) {
             return Err(format!("{what}: '{k}' is given twice"));
@@ -57,33 +51,22 @@ pub fn parse_pairs(text: &str) -> Result<Vec<LobePair>, String> {
             None => (false, spec.as_str()),
         };
         let Some((num, den)) = body.split_once('/') else {
-            return Err(format!(
-                "pairs: '{axis}={spec}' needs two lobe names as plus/minus, e.g. right/left"
-            ));
+            return Err(format!("pairs: '{axis}={spec}' needs two lobe names as plus/minus, e.g. right/left"));
         };
         let (num, den) = (num.trim(), den.trim());
         if num.is_empty() || den.is_empty() || den.contains('/') {
-            return Err(format!(
-                "pairs: '{axis}={spec}' needs exactly two lobe names as plus/minus"
-            ));
+            return Err(format!("pairs: '{axis}={spec}' needs exactly two lobe names as plus/minus"));
         }
         if num == den {
             return Err(format!("pairs: '{axis}' pairs lobe '{num}' with itself"));
         }
         for lobe in [num, den] {
             if let Some(other) = pairs.iter().find(|p| p.plus == lobe || p.minus == lobe) {
-                return Err(format!(
-                    "pairs: lobe '{lobe}' is used by both '{}' and '{axis}'",
-                    other.axis
-                ));
+                return Err(format!("pairs: lobe '{lobe}' is used by both '{}' and '{axis}'", other.axis));
             }
         }
         let (plus, minus) = if flipped { (den, num) } else { (num, den) };
-        pairs.push(LobePair {
-            axis: Arc::from(axis.as_str()),
-            plus: plus.to_string(),
-            minus: minus.to_string(),
-        });
+        pairs.push(LobePair { axis: Arc::from(axis.as_str()), plus: plus.to_string(), minus: minus.to_string() });
     }
     if pairs.is_empty() {
         return Err("pairs: no pair given (e.g. az=right/left)".into());
@@ -106,9 +89,7 @@ impl ErrorSignal {
         match name {
             "log_ratio" => Ok(ErrorSignal::LogRatio),
             "diff_sum" => Ok(ErrorSignal::DiffSum),
-            other => Err(format!(
-                "unknown error signal '{other}' (log_ratio or diff_sum)"
-            )),
+            other => Err(format!("unknown error signal '{other}' (log_ratio or diff_sum)")),
         }
     }
 
@@ -158,17 +139,10 @@ pub fn read_pair(
 ) -> PairReading {
     let usable = |x: f64| x.is_finite() && x > 0.0;
     if !usable(a) || !usable(b) {
-        return PairReading {
-            error_deg: None,
-            sigma_deg: f64::NAN,
-            ratio_db: f64::NAN,
-            flag: Flag::NoSignal,
-        };
+        return PairReading { error_deg: None, sigma_deg: f64::NAN, ratio_db: f64::NAN, flag: Flag::NoSignal };
     }
     let ratio_db = 20.0 * (a / b).log10();
-    let theta = signal
-        .to_log_ratio(signal.measure(a, b))
-        .and_then(|r| model.angle(r));
+    let theta = signal.to_log_ratio(signal.measure(a, b)).and_then(|r| model.angle(r));
     // An estimate whose ratio cannot be told from the region's edge (within
     // `edge_sigmas` of its own spread) may as well lie beyond it.
     let r = (a / b).ln();
@@ -181,12 +155,7 @@ pub fn read_pair(
             flag: Flag::Ok,
         },
         Some(_) => PairReading { error_deg: None, sigma_deg: f64::NAN, ratio_db, flag: Flag::OutOfRange },
-        None => PairReading {
-            error_deg: None,
-            sigma_deg: f64::NAN,
-            ratio_db,
-            flag: Flag::OutOfRange,
-        },
+        None => PairReading { error_deg: None, sigma_deg: f64::NAN, ratio_db, flag: Flag::OutOfRange },
     }
 }
 
@@ -195,11 +164,7 @@ pub fn read_pair(
 pub fn angle_sigma_deg(model: &PairModel, theta_deg: f64, var_ln_a: f64, var_ln_b: f64) -> f64 {
     let slope = model.slope(theta_deg).abs();
     let spread = (var_ln_a + var_ln_b).sqrt();
-    if slope > 0.0 && spread.is_finite() {
-        spread / slope
-    } else {
-        f64::NAN
-    }
+    if slope > 0.0 && spread.is_finite() { spread / slope } else { f64::NAN }
 }
 
 #[cfg(test)]
@@ -210,31 +175,9 @@ mod tests {
     #[test]
     fn pairs_parse_with_flip_and_reject_mistakes() {
         let p = parse_pairs("az=right/left, el=-up/down").unwrap();
-        assert_eq!(
-            p[0],
-            LobePair {
-                axis: "az".into(),
-                plus: "right".into(),
-                minus: "left".into()
-            }
-        );
-        assert_eq!(
-            p[1],
-            LobePair {
-                axis: "el".into(),
-                plus: "down".into(),
-                minus: "up".into()
-            }
-        );
-        for bad in [
-            "",
-            "az=right",
-            "az=right/right",
-            "az=a/b, el=b/c",
-            "az=a/b/c",
-            "az=a/b, az=c/d",
-            "right/left",
-        ] {
+        assert_eq!(p[0], LobePair { axis: "az".into(), plus: "right".into(), minus: "left".into() });
+        assert_eq!(p[1], LobePair { axis: "el".into(), plus: "down".into(), minus: "up".into() });
+        for bad in ["", "az=right", "az=right/right", "az=a/b, el=b/c", "az=a/b/c", "az=a/b, az=c/d", "right/left"] {
             assert!(parse_pairs(bad).is_err(), "{bad}");
         }
     }

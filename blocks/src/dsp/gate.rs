@@ -139,12 +139,7 @@ impl DwellSums {
 
     /// Add one pulse: its gate samples, its noise reference samples, and the
     /// absolute index of its range bin 0.
-    pub fn add(
-        &mut self,
-        gate: &[Complex32],
-        noise: impl Iterator<Item = Complex32>,
-        sweep_index: u64,
-    ) {
+    pub fn add(&mut self, gate: &[Complex32], noise: impl Iterator<Item = Complex32>, sweep_index: u64) {
         for ((p, s), x) in self.power.iter_mut().zip(self.sum.iter_mut()).zip(gate) {
             let x = Complex64::new(x.re as f64, x.im as f64);
             *p += x.norm_sqr();
@@ -185,11 +180,7 @@ impl DwellSums {
         let corrected: Vec<f64> = match self.integration {
             Integration::Noncoherent => self.power.iter().map(|p| p / n - noise).collect(),
             // The mean of N pulses keeps the echo and carries noise power noise/N.
-            Integration::Coherent => self
-                .sum
-                .iter()
-                .map(|s| (s / n).norm_sqr() - noise / n)
-                .collect(),
+            Integration::Coherent => self.sum.iter().map(|s| (s / n).norm_sqr() - noise / n).collect(),
         };
         let energy: f64 = corrected.iter().sum();
         let e = if noise > 0.0 {
@@ -205,11 +196,7 @@ impl DwellSums {
             Integration::Noncoherent => noise * (g / n).sqrt(),
             Integration::Coherent => noise / n * g.sqrt(),
         };
-        let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std {
-            energy.sqrt()
-        } else {
-            f64::NAN
-        };
+        let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std { energy.sqrt() } else { f64::NAN };
         let var_ln_amp = if e > 0.0 {
             match self.integration {
                 // Field notes §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
@@ -231,21 +218,11 @@ impl DwellSums {
             Weighting::Power => corrected.iter().map(|c| c.max(0.0)).collect(),
         };
         let total: f64 = weights.iter().sum();
-        let centroid_bin = (total > 0.0).then(|| {
-            self.start as f64
-                + weights
-                    .iter()
-                    .enumerate()
-                    .map(|(k, w)| k as f64 * w)
-                    .sum::<f64>()
-                    / total
-        });
+        let centroid_bin = (total > 0.0)
+            .then(|| self.start as f64 + weights.iter().enumerate().map(|(k, w)| k as f64 * w).sum::<f64>() / total);
         let half = self.width() / 2;
         let early = corrected[..half].iter().map(|c| c.max(0.0)).sum();
-        let late = corrected[self.width() - half..]
-            .iter()
-            .map(|c| c.max(0.0))
-            .sum();
+        let late = corrected[self.width() - half..].iter().map(|c| c.max(0.0)).sum();
         GateSummary {
             amplitude,
             energy_ratio: e.max(0.0),
@@ -326,17 +303,11 @@ mod tests {
     fn box_echo_centroid_is_exact_without_noise() {
         // Integrate-and-dump samples of a 4-sample box at delay 10.3: weights 0.7,1,1,1,0.3.
         let mut sums = DwellSums::new(9, 7, Integration::Noncoherent);
-        let gate: Vec<Complex32> = [0.0, 0.7, 1.0, 1.0, 1.0, 0.3, 0.0]
-            .iter()
-            .map(|&a| Complex32::new(a, 0.0))
-            .collect();
+        let gate: Vec<Complex32> =
+            [0.0, 0.7, 1.0, 1.0, 1.0, 0.3, 0.0].iter().map(|&a| Complex32::new(a, 0.0)).collect();
         sums.add(&gate, std::iter::empty(), 0);
         let s = sums.summarise(0.0, 4.0, Weighting::Amplitude, 3.0);
-        assert!(
-            (s.range_bin.unwrap() - 10.3).abs() < 1e-6,
-            "{:?}",
-            s.range_bin
-        );
+        assert!((s.range_bin.unwrap() - 10.3).abs() < 1e-6, "{:?}", s.range_bin);
     }
 
     #[test]

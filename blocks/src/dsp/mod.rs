@@ -1,9 +1,9 @@
 //! Signal-processing pieces shared by several blocks (no block code here).
 pub mod beam;
 pub mod discriminator;
-pub mod rng;
 pub mod gate;
 pub mod pulse_timing;
+pub mod rng;
 pub mod spectrum;
 pub mod switch_sync;
 pub mod tracking;

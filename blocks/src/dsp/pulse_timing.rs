@@ -37,9 +37,7 @@ impl NoiseFloor {
         }
         self.block.push(power);
         if self.block.len() == FLOOR_BLOCK {
-            let (_, m, _) = self
-                .block
-                .select_nth_unstable_by(FLOOR_BLOCK / 2, f32::total_cmp);
+            let (_, m, _) = self.block.select_nth_unstable_by(FLOOR_BLOCK / 2, f32::total_cmp);
             let m = *m;
             self.block.clear();
             if self.medians.len() == FLOOR_BLOCKS {

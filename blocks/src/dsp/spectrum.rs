@@ -75,11 +75,7 @@ pub fn coherent_gain(w: &[f64]) -> f64 {
 pub fn enbw_bins(w: &[f64]) -> f64 {
     let s1: f64 = w.iter().sum();
     let s2: f64 = w.iter().map(|x| x * x).sum();
-    if s1 == 0.0 {
-        f64::NAN
-    } else {
-        w.len() as f64 * s2 / (s1 * s1)
-    }
+    if s1 == 0.0 { f64::NAN } else { w.len() as f64 * s2 / (s1 * s1) }
 }
 
 /// Smallest power of two at least `n` (1 for 0).
@@ -102,11 +98,7 @@ impl Default for FftCache {
 
 impl FftCache {
     pub fn new() -> Self {
-        FftCache {
-            planner: FftPlanner::new(),
-            forward: None,
-            scratch: Vec::new(),
-        }
+        FftCache { planner: FftPlanner::new(), forward: None, scratch: Vec::new() }
     }
 
     /// In-place forward transform of `buf` (any length; plans are cached by the planner).
@@ -186,9 +178,7 @@ impl OverlapSave {
         let inv = planner.plan_fft_inverse(size);
         let mut reference = vec![Complex32::new(0.0, 0.0); size];
         reference[..h.len()].copy_from_slice(h);
-        let scratch_len = fwd
-            .get_inplace_scratch_len()
-            .max(inv.get_inplace_scratch_len());
+        let scratch_len = fwd.get_inplace_scratch_len().max(inv.get_inplace_scratch_len());
         let mut scratch = vec![Complex32::new(0.0, 0.0); scratch_len];
         fwd.process_with_scratch(&mut reference, &mut scratch);
         let scale = gain / size as f32;
@@ -241,13 +231,11 @@ impl OverlapSave {
         let avail = self.pending.len().min(self.size);
         self.work[..avail].copy_from_slice(&self.pending[..avail]);
         self.work[avail..].fill(Complex32::new(0.0, 0.0));
-        self.planner_fwd
-            .process_with_scratch(&mut self.work, &mut self.scratch);
+        self.planner_fwd.process_with_scratch(&mut self.work, &mut self.scratch);
         for (w, r) in self.work.iter_mut().zip(&self.reference) {
             *w *= *r;
         }
-        self.planner_inv
-            .process_with_scratch(&mut self.work, &mut self.scratch);
+        self.planner_inv.process_with_scratch(&mut self.work, &mut self.scratch);
         // Circular correlation is free of wrap-around for lags 0..size-L+1.
         out.extend_from_slice(&self.work[..n]);
         self.pending.drain(..n);
@@ -291,11 +279,7 @@ pub fn lowpass_taps(count: usize, cutoff: f64) -> Vec<f64> {
     let mut taps: Vec<f64> = (0..count)
         .map(|k| {
             let x = k as f64 - centre;
-            let sinc = if x == 0.0 {
-                2.0 * cutoff
-            } else {
-                (2.0 * PI * cutoff * x).sin() / (PI * x)
-            };
+            let sinc = if x == 0.0 { 2.0 * cutoff } else { (2.0 * PI * cutoff * x).sin() / (PI * x) };
             sinc * Window::Blackman.coefficient(k, count)
         })
         .collect();
@@ -329,10 +313,7 @@ mod tests {
             for (k, yk) in y.iter().enumerate() {
                 let (re, im) = weighted_dtft(&x, &vec![1.0; n], k as f64 / n as f64);
                 let err = ((yk.re as f64 - re).powi(2) + (yk.im as f64 - im).powi(2)).sqrt();
-                assert!(
-                    err < 1e-4 * (n as f64).sqrt() + 1e-5,
-                    "n {n} k {k} err {err}"
-                );
+                assert!(err < 1e-4 * (n as f64).sqrt() + 1e-5, "n {n} k {k} err {err}");
             }
         }
     }
@@ -351,11 +332,7 @@ mod tests {
             }
             ols.flush(&mut y);
             assert_eq!(y.len(), x.len());
-            let worst = y
-                .iter()
-                .zip(&direct)
-                .map(|(a, b)| (a - b).norm())
-                .fold(0.0f32, f32::max);
+            let worst = y.iter().zip(&direct).map(|(a, b)| (a - b).norm()).fold(0.0f32, f32::max);
             assert!(worst < 2e-4 * 37f32.sqrt(), "split {split}: {worst}");
         }
     }

@@ -24,12 +24,8 @@ pub enum Irregularity {
 }
 
 impl Irregularity {
-    pub const ALL: [Irregularity; 4] = [
-        Irregularity::DwellLength,
-        Irregularity::Stuck,
-        Irregularity::Stray,
-        Irregularity::Order,
-    ];
+    pub const ALL: [Irregularity; 4] =
+        [Irregularity::DwellLength, Irregularity::Stuck, Irregularity::Stray, Irregularity::Order];
 
     pub fn label(&self) -> &'static str {
         match self {
@@ -47,19 +43,11 @@ pub enum SwitchEvent {
     /// The first sample seen: lobe active there. `switch_at` is the switch
     /// instant that began this dwell when it is known (schedules), possibly
     /// before the capture start (negative).
-    Begin {
-        at: u64,
-        lobe: usize,
-        switch_at: Option<i64>,
-    },
+    Begin { at: u64, lobe: usize, switch_at: Option<i64> },
     /// A switch instant: from sample `at` on, `lobe` is active.
     Switch { at: u64, lobe: usize },
     /// Something a person should know, at sample `at`.
-    Irregular {
-        at: u64,
-        kind: Irregularity,
-        what: String,
-    },
+    Irregular { at: u64, kind: Irregularity, what: String },
 }
 
 /// Settings of the sync-channel tracker, in samples.
@@ -104,16 +92,9 @@ const STRAY_FRACTION: f64 = 0.3;
 /// mean of the samples within a quarter spacing of it.
 pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
     const BINS: usize = 256;
-    let finite: Vec<f64> = values
-        .iter()
-        .filter(|v| v.is_finite())
-        .map(|&v| v as f64)
-        .collect();
+    let finite: Vec<f64> = values.iter().filter(|v| v.is_finite()).map(|&v| v as f64).collect();
     if finite.len() < 16 {
-        return Err(format!(
-            "too few sync samples to learn the levels ({} usable); make 'learn' longer",
-            finite.len()
-        ));
+        return Err(format!("too few sync samples to learn the levels ({} usable); make 'learn' longer", finite.len()));
     }
     let lo = finite.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max);
@@ -139,12 +120,7 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
             kernel
                 .iter()
                 .enumerate()
-                .filter_map(|(k, w)| {
-                    (i + k)
-                        .checked_sub(2)
-                        .filter(|&j| j < BINS)
-                        .map(|j| w * counts[j])
-                })
+                .filter_map(|(k, w)| (i + k).checked_sub(2).filter(|&j| j < BINS).map(|j| w * counts[j]))
                 .sum::<f64>()
                 / 9.0
         })
@@ -158,11 +134,7 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
         .collect();
     peaks.sort_by(|&a, &b| smooth[b].total_cmp(&smooth[a]));
     let min_mass = (0.05 * finite.len() as f64 / lobes as f64).max(8.0);
-    let mass = |p: usize| {
-        counts[p.saturating_sub(3)..(p + 4).min(BINS)]
-            .iter()
-            .sum::<f64>()
-    };
+    let mass = |p: usize| counts[p.saturating_sub(3)..(p + 4).min(BINS)].iter().sum::<f64>();
     let mut accepted: Vec<usize> = Vec::new();
     for p in peaks {
         if mass(p) < min_mass {
@@ -178,10 +150,7 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
         }
     }
     accepted.sort_unstable();
-    let mut levels: Vec<f64> = accepted
-        .iter()
-        .map(|&b| lo + (b as f64 + 0.5) * width)
-        .collect();
+    let mut levels: Vec<f64> = accepted.iter().map(|&b| lo + (b as f64 + 0.5) * width).collect();
     if levels.len() == 1 {
         return Err(flat_msg(levels[0]));
     }
@@ -215,10 +184,7 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
 }
 
 fn min_spacing(levels: &[f64]) -> f64 {
-    levels
-        .windows(2)
-        .map(|w| (w[1] - w[0]).abs())
-        .fold(f64::INFINITY, f64::min)
+    levels.windows(2).map(|w| (w[1] - w[0]).abs()).fold(f64::INFINITY, f64::min)
 }
 
 fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
@@ -228,18 +194,11 @@ fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
     }
     v.sort_unstable();
     let m = v.len() / 2;
-    Some(if v.len() % 2 == 1 {
-        v[m] as f64
-    } else {
-        (v[m - 1] + v[m]) as f64 / 2.0
-    })
+    Some(if v.len() % 2 == 1 { v[m] as f64 } else { (v[m - 1] + v[m]) as f64 / 2.0 })
 }
 
 fn lobe_list(names: &[Arc<str>], from: usize, count: usize) -> String {
-    (0..count)
-        .map(|k| names[(from + k) % names.len()].to_string())
-        .collect::<Vec<_>>()
-        .join(", ")
+    (0..count).map(|k| names[(from + k) % names.len()].to_string()).collect::<Vec<_>>().join(", ")
 }
 
 /// Classifies a sync channel sample by sample, after the levels are learned.
@@ -315,27 +274,19 @@ impl SyncTracker {
     }
 
     fn expected_dwell(&self) -> Option<f64> {
-        self.settings.expected_dwell.or_else(|| {
-            if self.history.len() >= 3 {
-                median(self.history.iter().copied())
-            } else {
-                None
-            }
-        })
+        self.settings
+            .expected_dwell
+            .or_else(|| if self.history.len() >= 3 { median(self.history.iter().copied()) } else { None })
     }
 
     fn irregular(&mut self, at: u64, kind: Irregularity, what: String) {
-        self.events
-            .push_back(SwitchEvent::Irregular { at, kind, what });
+        self.events.push_back(SwitchEvent::Irregular { at, kind, what });
     }
 
     /// Feed sync values starting at absolute sample `index`. Samples already
     /// seen are skipped; a jump forward is treated as a gap in the stream.
     pub fn feed(&mut self, index: u64, values: &[f32]) {
-        let skip = self
-            .next_index
-            .saturating_sub(index)
-            .min(values.len() as u64) as usize;
+        let skip = self.next_index.saturating_sub(index).min(values.len() as u64) as usize;
         if !self.started {
             self.settled_floor = index;
         }
@@ -367,11 +318,7 @@ impl SyncTracker {
     }
 
     fn step(&mut self, n: u64, v: f64) {
-        let (j, dist) = if v.is_finite() {
-            self.nearest(v)
-        } else {
-            (self.current, f64::INFINITY)
-        };
+        let (j, dist) = if v.is_finite() { self.nearest(v) } else { (self.current, f64::INFINITY) };
         self.track_stray(n, v, dist);
         if !v.is_finite() {
             return;
@@ -381,11 +328,7 @@ impl SyncTracker {
             self.current = j;
             self.pending = j;
             self.dwell_start = n;
-            self.events.push_back(SwitchEvent::Begin {
-                at: n,
-                lobe: j,
-                switch_at: None,
-            });
+            self.events.push_back(SwitchEvent::Begin { at: n, lobe: j, switch_at: None });
             return;
         }
         if j != self.pending && (v - self.levels[self.pending]).abs() - dist > self.margin {
@@ -398,19 +341,13 @@ impl SyncTracker {
                 continue;
             }
             let mid = 0.5 * (here + self.levels[k]);
-            let past = if self.levels[k] > here {
-                v > mid
-            } else {
-                v < mid
-            };
+            let past = if self.levels[k] > here { v > mid } else { v < mid };
             if past && !self.past_mid[k] {
                 self.crossed_at[k] = n;
             }
             self.past_mid[k] = past;
         }
-        if self.pending != self.current
-            && n + 1 - self.pending_since >= self.settings.min_dwell.max(1) as u64
-        {
+        if self.pending != self.current && n + 1 - self.pending_since >= self.settings.min_dwell.max(1) as u64 {
             self.confirm(n);
         }
         self.check_stuck(n);
@@ -440,11 +377,7 @@ impl SyncTracker {
 
     fn confirm(&mut self, n: u64) {
         let new = self.pending;
-        let at = if self.past_mid[new] {
-            self.crossed_at[new]
-        } else {
-            self.pending_since
-        };
+        let at = if self.past_mid[new] { self.crossed_at[new] } else { self.pending_since };
         let at = at.max(self.settled_floor).min(n);
         let old = self.current;
         let names = self.settings.names.clone();
@@ -453,11 +386,7 @@ impl SyncTracker {
             if let Some(expected) = self.expected_dwell() {
                 let tol = self.settings.tolerance;
                 if (len as f64 - expected).abs() > tol * expected {
-                    let what = if (len as f64) < expected {
-                        "short"
-                    } else {
-                        "long"
-                    };
+                    let what = if (len as f64) < expected { "short" } else { "long" };
                     self.irregular(
                         self.dwell_start,
                         Irregularity::DwellLength,
@@ -542,12 +471,7 @@ impl ScheduleTracker {
                 settings.dwell
             ));
         }
-        Ok(ScheduleTracker {
-            settings,
-            next_dwell: None,
-            next_index: 0,
-            events: VecDeque::new(),
-        })
+        Ok(ScheduleTracker { settings, next_dwell: None, next_index: 0, events: VecDeque::new() })
     }
 
     /// First sample of dwell `m` (may be negative).
@@ -592,10 +516,7 @@ impl ScheduleTracker {
         let mut m = next;
         while self.boundary(m) < end as i64 {
             let at = self.boundary(m).max(0) as u64;
-            self.events.push_back(SwitchEvent::Switch {
-                at,
-                lobe: self.lobe_of(m),
-            });
+            self.events.push_back(SwitchEvent::Switch { at, lobe: self.lobe_of(m) });
             m += 1;
         }
         self.next_dwell = Some(m);
@@ -608,10 +529,7 @@ impl ScheduleTracker {
 }
 
 enum Stage {
-    Learning {
-        settings: SyncSettings,
-        values: Vec<f32>,
-    },
+    Learning { settings: SyncSettings, values: Vec<f32> },
     Sync(Box<SyncTracker>),
     Schedule(ScheduleTracker),
 }
@@ -626,18 +544,11 @@ pub struct SwitchSync {
 impl SwitchSync {
     pub fn from_sync(settings: SyncSettings) -> SwitchSync {
         let cap = settings.learn.clamp(16, MAX_LEARN_SAMPLES);
-        SwitchSync {
-            stage: Stage::Learning {
-                settings,
-                values: Vec::with_capacity(cap.min(1 << 16)),
-            },
-        }
+        SwitchSync { stage: Stage::Learning { settings, values: Vec::with_capacity(cap.min(1 << 16)) } }
     }
 
     pub fn from_schedule(settings: ScheduleSettings) -> Result<SwitchSync, String> {
-        Ok(SwitchSync {
-            stage: Stage::Schedule(ScheduleTracker::new(settings)?),
-        })
+        Ok(SwitchSync { stage: Stage::Schedule(ScheduleTracker::new(settings)?) })
     }
 
     pub fn learning(&self) -> bool {
@@ -646,11 +557,7 @@ impl SwitchSync {
 
     /// Collect sync values for learning; returns true once enough are in.
     pub fn learn_from(&mut self, values: &[f32]) -> bool {
-        if let Stage::Learning {
-            settings,
-            values: buf,
-        } = &mut self.stage
-        {
+        if let Stage::Learning { settings, values: buf } = &mut self.stage {
             let want = settings.learn.clamp(16, MAX_LEARN_SAMPLES);
             let take = want.saturating_sub(buf.len()).min(values.len());
             buf.extend_from_slice(&values[..take]);
@@ -674,10 +581,9 @@ impl SwitchSync {
         match &mut self.stage {
             Stage::Learning { .. } => Err("switch sync fed before its levels were learned".into()),
             Stage::Sync(t) => match sync {
-                Some(s) if s.len() != len => Err(format!(
-                    "the sync channel has {} samples where the IQ has {len}, from sample {index}",
-                    s.len()
-                )),
+                Some(s) if s.len() != len => {
+                    Err(format!("the sync channel has {} samples where the IQ has {len}, from sample {index}", s.len()))
+                }
                 Some(s) => {
                     t.feed(index, s);
                     Ok(())
@@ -732,10 +638,7 @@ pub const NOTICES_SHOWN: u64 = 8;
 
 impl NoticeLimiter {
     fn slot(kind: Irregularity) -> usize {
-        Irregularity::ALL
-            .iter()
-            .position(|k| *k == kind)
-            .unwrap_or(0)
+        Irregularity::ALL.iter().position(|k| *k == kind).unwrap_or(0)
     }
     /// True when this notice should be shown.
     pub fn admit(&mut self, kind: Irregularity) -> bool {
@@ -792,18 +695,13 @@ mod tests {
     fn two_level_sync_is_not_four_lobes() {
         let v = staircase(2, 500, 5000, 2);
         let e = learn_levels(&v, 4).unwrap_err();
-        assert!(
-            e.contains("found 2 sync levels") && e.contains("expected 4"),
-            "{e}"
-        );
+        assert!(e.contains("found 2 sync levels") && e.contains("expected 4"), "{e}");
     }
 
     #[test]
     fn flat_sync_is_an_error() {
         let mut rng = Rng::new(3);
-        let v: Vec<f32> = (0..4000)
-            .map(|_| (0.3 + 0.01 * rng.gaussian()) as f32)
-            .collect();
+        let v: Vec<f32> = (0..4000).map(|_| (0.3 + 0.01 * rng.gaussian()) as f32).collect();
         let e = learn_levels(&v, 4).unwrap_err();
         assert!(e.contains("sync channel is flat"), "{e}");
         let e = learn_levels(&[0.5; 100], 2).unwrap_err();
@@ -839,12 +737,7 @@ mod tests {
 
     #[test]
     fn schedule_floors_negative_times() {
-        let t = ScheduleTracker::new(ScheduleSettings {
-            names: names(4),
-            first_start: 250.5,
-            dwell: 100.0,
-        })
-        .unwrap();
+        let t = ScheduleTracker::new(ScheduleSettings { names: names(4), first_start: 250.5, dwell: 100.0 }).unwrap();
         // Sample 250 lies before the start of lobe 0: it belongs to lobe 3 (floor of a negative).
         assert_eq!(t.lobe_of(t.dwell_of(250)), 3);
         assert_eq!(t.lobe_of(t.dwell_of(251)), 0);

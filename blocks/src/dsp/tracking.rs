@@ -69,10 +69,7 @@ impl AxisFilter {
         let p = s.p;
         let x = [s.x[0] + dt * s.x[1], s.x[1]];
         let mut pp = [
-            [
-                p[0][0] + dt * (p[0][1] + p[1][0]) + dt * dt * p[1][1],
-                p[0][1] + dt * p[1][1],
-            ],
+            [p[0][0] + dt * (p[0][1] + p[1][0]) + dt * dt * p[1][1], p[0][1] + dt * p[1][1]],
             [p[1][0] + dt * p[1][1], p[1][1]],
         ];
         if let FilterMethod::Kalman { accel_sigma } = self.method {
@@ -105,79 +102,45 @@ impl AxisFilter {
                 self.first = Some((t, z, r));
                 self.outliers_in_a_row = 0;
             }
-            return Step {
-                tracked: x[0],
-                outlier: true,
-            };
+            return Step { tracked: x[0], outlier: true };
         }
         self.outliers_in_a_row = 0;
         let dt = t - state.t;
         let k = match self.method {
-            FilterMethod::AlphaBeta { alpha, beta } => {
-                [alpha, if dt > 0.0 { beta / dt } else { 0.0 }]
-            }
+            FilterMethod::AlphaBeta { alpha, beta } => [alpha, if dt > 0.0 { beta / dt } else { 0.0 }],
             FilterMethod::Kalman { .. } if s > 0.0 => [p[0][0] / s, p[1][0] / s],
             FilterMethod::Kalman { .. } => [0.0, 0.0],
         };
         let x = [x[0] + k[0] * innovation, x[1] + k[1] * innovation];
         // Joseph form: right for any gain, so the alpha-beta variance is true too.
         let a = 1.0 - k[0];
-        let m = [
-            [a * p[0][0], a * p[0][1]],
-            [p[1][0] - k[1] * p[0][0], p[1][1] - k[1] * p[0][1]],
-        ];
+        let m = [[a * p[0][0], a * p[0][1]], [p[1][0] - k[1] * p[0][0], p[1][1] - k[1] * p[0][1]]];
         let p = [
-            [
-                m[0][0] * a + r * k[0] * k[0],
-                m[0][1] - m[0][0] * k[1] + r * k[0] * k[1],
-            ],
-            [
-                m[1][0] * a + r * k[0] * k[1],
-                m[1][1] - m[1][0] * k[1] + r * k[1] * k[1],
-            ],
+            [m[0][0] * a + r * k[0] * k[0], m[0][1] - m[0][0] * k[1] + r * k[0] * k[1]],
+            [m[1][0] * a + r * k[0] * k[1], m[1][1] - m[1][0] * k[1] + r * k[1] * k[1]],
         ];
         self.state = Some(TrackState { t, x, p });
-        Step {
-            tracked: x[0],
-            outlier: false,
-        }
+        Step { tracked: x[0], outlier: false }
     }
 
     fn start(&mut self, t: f64, z: f64, r: f64) -> Step {
         match self.first.take() {
             None => {
                 self.first = Some((t, z, r));
-                Step {
-                    tracked: z,
-                    outlier: false,
-                }
+                Step { tracked: z, outlier: false }
             }
             Some((t1, z1, r1)) if t > t1 => {
                 let dt = t - t1;
                 let p = [[r, r / dt], [r / dt, (r + r1) / (dt * dt)]];
-                self.state = Some(TrackState {
-                    t,
-                    x: [z, (z - z1) / dt],
-                    p,
-                });
-                Step {
-                    tracked: z,
-                    outlier: false,
-                }
+                self.state = Some(TrackState { t, x: [z, (z - z1) / dt], p });
+                Step { tracked: z, outlier: false }
             }
             Some((t1, z1, r1)) => {
                 // Same instant: combine by inverse variance (plain mean if unknown).
-                let (w1, w) = if r1 > 0.0 && r > 0.0 {
-                    (1.0 / r1, 1.0 / r)
-                } else {
-                    (1.0, 1.0)
-                };
+                let (w1, w) = if r1 > 0.0 && r > 0.0 { (1.0 / r1, 1.0 / r) } else { (1.0, 1.0) };
                 let zm = (w1 * z1 + w * z) / (w1 + w);
                 self.first = Some((t1.max(t), zm, 1.0 / (w1 + w)));
-                Step {
-                    tracked: zm,
-                    outlier: false,
-                }
+                Step { tracked: zm, outlier: false }
             }
         }
     }
@@ -233,10 +196,7 @@ impl Telemetry {
                 ));
             }
             let mut row = Vec::with_capacity(fields.len());
-            for (name, f) in std::iter::once("time_s")
-                .chain(cols.iter().map(String::as_str))
-                .zip(&fields)
-            {
+            for (name, f) in std::iter::once("time_s").chain(cols.iter().map(String::as_str)).zip(&fields) {
                 match f.parse::<f64>() {
                     Ok(v) if v.is_finite() => row.push(v),
                     _ => return Err(format!("{}: {name} '{f}' is not a number", at())),
@@ -248,18 +208,11 @@ impl Telemetry {
             times.push(row[0]);
             values.extend_from_slice(&row[1..]);
         }
-        let columns =
-            columns.ok_or_else(|| format!("{file}: no header line (time_s,az_deg,el_deg)"))?;
+        let columns = columns.ok_or_else(|| format!("{file}: no header line (time_s,az_deg,el_deg)"))?;
         if times.len() < 2 {
-            return Err(format!(
-                "{file}: needs at least two rows of pointing angles"
-            ));
+            return Err(format!("{file}: needs at least two rows of pointing angles"));
         }
-        Ok(Telemetry {
-            columns,
-            times,
-            values,
-        })
+        Ok(Telemetry { columns, times, values })
     }
 
     /// Index of a named column.
@@ -283,15 +236,9 @@ impl Telemetry {
             return None;
         }
         let width = self.columns.len();
-        let i = self
-            .times
-            .partition_point(|&x| x < t)
-            .clamp(1, self.times.len() - 1);
+        let i = self.times.partition_point(|&x| x < t).clamp(1, self.times.len() - 1);
         let (t0, t1) = (self.times[i - 1], self.times[i]);
-        let (v0, v1) = (
-            self.values[(i - 1) * width + col],
-            self.values[i * width + col],
-        );
+        let (v0, v1) = (self.values[(i - 1) * width + col], self.values[i * width + col]);
         Some(v0 + (v1 - v0) * (t - t0) / (t1 - t0))
     }
 }
@@ -313,23 +260,13 @@ mod tests {
         assert!(e.contains("line 3") && e.contains("increase"), "{e}");
         let e = Telemetry::parse("t,az\n", "p.csv").unwrap_err();
         assert!(e.contains("line 1"), "{e}");
-        assert!(
-            Telemetry::parse("time_s,az_deg\n0,1,2\n", "p.csv")
-                .unwrap_err()
-                .contains("line 2")
-        );
+        assert!(Telemetry::parse("time_s,az_deg\n0,1,2\n", "p.csv").unwrap_err().contains("line 2"));
     }
 
     #[test]
     fn time_going_backwards_stays_finite() {
         let mut f = AxisFilter::new(FilterMethod::Kalman { accel_sigma: 0.5 }, 4.0, 3);
-        for (t, z) in [
-            (0.0, 0.1),
-            (0.1, 0.12),
-            (0.05, 0.11),
-            (0.05, 0.11),
-            (0.2, 0.13),
-        ] {
+        for (t, z) in [(0.0, 0.1), (0.1, 0.12), (0.05, 0.11), (0.05, 0.11), (0.2, 0.13)] {
             let s = f.step(t, z, 0.01);
             assert!(s.tracked.is_finite() && !s.outlier, "{t}: {s:?}");
         }

@@ -11,23 +11,11 @@ use num_complex::Complex64;
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "dc_remove",
     doc: "Removes the receiver's DC offset (the spike at 0 Hz) with a one-pole high-pass; aux channels pass unchanged.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "baseband samples",
-    )],
-    outputs: &[PortSpec::optional(
-        "samples",
-        ItemKind::Samples,
-        "the samples without their DC offset",
-    )],
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
+    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the samples without their DC offset")],
     params: &[ParamSpec {
         name: "corner",
-        ty: ParamType::Number {
-            unit: Unit::Hertz,
-            min: 1e-6,
-            max: 1e9,
-        },
+        ty: ParamType::Number { unit: Unit::Hertz, min: 1e-6, max: 1e9 },
         default: Some("100 Hz"),
         doc: "-3 dB corner of the high-pass; keep it far below the signals of interest",
     }],
@@ -74,10 +62,7 @@ impl Block for DcRemove {
             _ => {
                 if self.corner >= rate / 2.0 {
                     return Err(BlockError::at(
-                        format!(
-                            "dc_remove: corner {} Hz is not below half the sample rate ({rate} S/s)",
-                            self.corner
-                        ),
+                        format!("dc_remove: corner {} Hz is not below half the sample rate ({rate} S/s)", self.corner),
                         chunk.stamp.index,
                     ));
                 }
@@ -91,10 +76,7 @@ impl Block for DcRemove {
         {
             self.gaps += 1;
             if self.gaps == 1 {
-                out.notice(
-                    chunk.stamp,
-                    format!("input jumps from sample {n}; the running mean carries on"),
-                );
+                out.notice(chunk.stamp, format!("input jumps from sample {n}; the running mean carries on"));
             }
         }
         self.next = Some(chunk.stamp.index + chunk.len() as u64);

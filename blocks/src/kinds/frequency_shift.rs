@@ -12,23 +12,11 @@ use std::f64::consts::TAU;
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "frequency_shift",
     doc: "Shifts the spectrum by a set frequency (phase-continuous across chunks); aux channels pass unchanged.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "baseband samples",
-    )],
-    outputs: &[PortSpec::optional(
-        "samples",
-        ItemKind::Samples,
-        "the shifted samples",
-    )],
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
+    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the shifted samples")],
     params: &[ParamSpec {
         name: "shift",
-        ty: ParamType::Number {
-            unit: Unit::Hertz,
-            min: -5e9,
-            max: 5e9,
-        },
+        ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
         default: None,
         doc: "frequency added to every component (negative moves down)",
     }],
@@ -36,11 +24,7 @@ pub const SPEC: BlockSpec = BlockSpec {
 };
 
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(FrequencyShift {
-        shift: p.num("shift")?,
-        phase: 0.0,
-        next: None,
-    }))
+    Ok(Box::new(FrequencyShift { shift: p.num("shift")?, phase: 0.0, next: None }))
 }
 
 struct FrequencyShift {

@@ -1,9 +1,7 @@
 //! Parameter handling and notice routing shared by `lobe_gate` and `sweep_gate`.
 
 use crate::block::Outputs;
-use crate::dsp::switch_sync::{
-    Irregularity, NoticeLimiter, ScheduleSettings, SwitchSync, SyncSettings,
-};
+use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchSync, SyncSettings};
 use crate::item::{Item, Notice, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
 use std::sync::Arc;
@@ -22,10 +20,7 @@ impl GateConfig {
     pub fn from_params(p: &Params) -> Result<GateConfig, String> {
         let list = p.names("lobes")?;
         if list.len() < 2 {
-            return Err(format!(
-                "'lobes' needs at least two lobe names, got '{}'",
-                list.join(",")
-            ));
+            return Err(format!("'lobes' needs at least two lobe names, got '{}'", list.join(",")));
         }
         for (i, a) in list.iter().enumerate() {
             if list[..i].contains(a) {
@@ -33,21 +28,18 @@ impl GateConfig {
             }
         }
         let sync_timing = p.text("timing")? == "sync";
-        if !sync_timing && p.get("dwell").is_some_and(|v| matches!(v, Value::Seconds(s) | Value::Samples(s) | Value::Pulses(s) if *s <= 0.0)) {
+        if !sync_timing
+            && p.get("dwell")
+                .is_some_and(|v| matches!(v, Value::Seconds(s) | Value::Samples(s) | Value::Pulses(s) if *s <= 0.0))
+        {
             return Err("timing 'schedule' needs a 'dwell' longer than zero".into());
         }
-        Ok(GateConfig {
-            names: list.iter().map(|n| Arc::from(n.as_str())).collect(),
-            sync_timing,
-            params: p.clone(),
-        })
+        Ok(GateConfig { names: list.iter().map(|n| Arc::from(n.as_str())).collect(), sync_timing, params: p.clone() })
     }
 
     /// True when a time parameter is given in pulses (the caller must know the PRI).
     pub fn needs_pri(&self) -> bool {
-        TIME_PARAMS
-            .iter()
-            .any(|n| matches!(self.params.get(n), Some(Value::Pulses(_))))
+        TIME_PARAMS.iter().any(|n| matches!(self.params.get(n), Some(Value::Pulses(_))))
     }
 
     fn samples(&self, name: &str, rate: f64, pri: Option<f64>) -> Result<f64, String> {
@@ -88,11 +80,7 @@ pub struct NoticeRouter {
 
 impl NoticeRouter {
     pub fn new(block: &str, port: usize) -> NoticeRouter {
-        NoticeRouter {
-            block: Arc::from(block),
-            port,
-            limiter: NoticeLimiter::default(),
-        }
+        NoticeRouter { block: Arc::from(block), port, limiter: NoticeLimiter::default() }
     }
 
     /// An irregularity: to the port, and to the report unless rate-limited.
@@ -105,14 +93,7 @@ impl NoticeRouter {
 
     /// A timeline mark (e.g. a switch instant): to the port only.
     pub fn timeline(&mut self, out: &mut Outputs, stamp: Stamp, what: String) {
-        out.push(
-            self.port,
-            Item::Notice(Notice {
-                stamp,
-                block: Arc::clone(&self.block),
-                what,
-            }),
-        );
+        out.push(self.port, Item::Notice(Notice { stamp, block: Arc::clone(&self.block), what }));
     }
 
     /// At finish: say how many notices were held back.
@@ -159,11 +140,7 @@ pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
         },
         ParamSpec {
             name: "hysteresis",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.0,
-                max: 0.45,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 0.45 },
             default: Some("0.2"),
             doc: "switch only when nearer another level by this fraction of the level spacing",
         },
@@ -181,11 +158,7 @@ pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
         },
         ParamSpec {
             name: "tolerance",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.01,
-                max: 10.0,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 10.0 },
             default: Some("0.25"),
             doc: "relative dwell-length deviation reported as irregular",
         },
@@ -193,9 +166,5 @@ pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
 }
 
 const fn time(min_s: f64, pulses: bool) -> ParamType {
-    ParamType::Time {
-        min_s,
-        max_s: 3600.0,
-        pulses,
-    }
+    ParamType::Time { min_s, max_s: 3600.0, pulses }
 }

@@ -17,22 +17,10 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Labels samples with the active lobe (from the sync staircase or a schedule) and hands them on as \
           per-dwell segments without the guard time after each switch; reports irregular dwells, stuck or \
           stray sync and lobes out of order.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "capture chunks (with a sync channel for sync timing)",
-    )],
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "capture chunks (with a sync channel for sync timing)")],
     outputs: &[
-        PortSpec::optional(
-            "segments",
-            ItemKind::Segment,
-            "lobe segments; the last of each dwell is marked",
-        ),
-        PortSpec::optional(
-            "notices",
-            ItemKind::Notice,
-            "switch instants and irregularities, for timelines",
-        ),
+        PortSpec::optional("segments", ItemKind::Segment, "lobe segments; the last of each dwell is marked"),
+        PortSpec::optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
     ],
     params: &PARAMS,
     build,
@@ -79,15 +67,9 @@ impl LobeGate {
         let Some(source) = self.source.as_mut() else {
             return Ok(());
         };
-        source
-            .end_learning()
-            .map_err(|e| BlockError::at(e, first.map_or(0, |s| s.index)))?;
+        source.end_learning().map_err(|e| BlockError::at(e, first.map_or(0, |s| s.index)))?;
         if let (Some(levels), Some(stamp)) = (source.levels(), first) {
-            let list: Vec<String> = levels
-                .iter()
-                .zip(&self.cfg.names)
-                .map(|(l, n)| format!("{n} {l:.3}"))
-                .collect();
+            let list: Vec<String> = levels.iter().zip(&self.cfg.names).map(|(l, n)| format!("{n} {l:.3}")).collect();
             out.notice(stamp, format!("learned sync levels: {}", list.join(", ")));
         }
         for chunk in std::mem::take(&mut self.learn_buf) {
@@ -101,16 +83,11 @@ impl LobeGate {
             return Ok(());
         };
         let index = chunk.stamp.index;
-        source
-            .feed(index, chunk.sync.as_deref(), chunk.len())
-            .map_err(|e| BlockError::at(e, index))?;
+        source.feed(index, chunk.sync.as_deref(), chunk.len()).map_err(|e| BlockError::at(e, index))?;
         self.fed_end = self.fed_end.max(index + chunk.len() as u64);
         self.pending.push_back(chunk);
         self.take_events(out);
-        let upto = self
-            .source
-            .as_ref()
-            .map_or(self.fed_end, |s| s.settled(self.fed_end));
+        let upto = self.source.as_ref().map_or(self.fed_end, |s| s.settled(self.fed_end));
         self.release(upto, out);
         Ok(())
     }
@@ -122,24 +99,12 @@ impl LobeGate {
         let rate = self.pending.back().map_or(1.0, |c| c.stamp.rate);
         while let Some(event) = source.pop_event() {
             match event {
-                SwitchEvent::Begin {
-                    at,
-                    lobe,
-                    switch_at,
-                } => {
+                SwitchEvent::Begin { at, lobe, switch_at } => {
                     let start = switch_at.map_or(at, |s| s.max(0) as u64);
-                    self.tag = Some(LobeTag {
-                        lobe,
-                        name: Arc::clone(&self.cfg.names[lobe]),
-                        dwell: 0,
-                        dwell_start: start,
-                    });
-                    self.guard_until =
-                        switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64);
-                    let what = format!(
-                        "lobe {} active at the first sample {at}",
-                        self.cfg.names[lobe]
-                    );
+                    self.tag =
+                        Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell: 0, dwell_start: start });
+                    self.guard_until = switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64);
+                    let what = format!("lobe {} active at the first sample {at}", self.cfg.names[lobe]);
                     self.router.timeline(out, Stamp::new(at, rate), what);
                 }
                 SwitchEvent::Switch { at, lobe } => {
@@ -185,12 +150,7 @@ impl LobeGate {
             self.switches.pop_front();
             self.flush(true, out);
             let dwell = self.tag.as_ref().map_or(0, |t| t.dwell + 1);
-            self.tag = Some(LobeTag {
-                lobe,
-                name: Arc::clone(&self.cfg.names[lobe]),
-                dwell,
-                dwell_start: at,
-            });
+            self.tag = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell, dwell_start: at });
             self.guard_until = at + self.guard;
             from = at;
         }
@@ -207,11 +167,7 @@ impl LobeGate {
         let base = piece.stamp.index;
         let chunk = piece.slice((start - base) as usize..(to - base) as usize);
         self.flush(false, out);
-        self.held = Some(LobeSegment {
-            tag,
-            chunk,
-            dwell_end: false,
-        });
+        self.held = Some(LobeSegment { tag, chunk, dwell_end: false });
     }
 
     fn flush(&mut self, dwell_end: bool, out: &mut Outputs) {
@@ -232,10 +188,7 @@ impl Block for LobeGate {
         }
         self.last_stamp = Some(chunk.stamp.after(chunk.len()));
         if self.source.is_none() {
-            let (source, guard) = self
-                .cfg
-                .source(chunk.stamp.rate, None)
-                .map_err(BlockError::new)?;
+            let (source, guard) = self.cfg.source(chunk.stamp.rate, None).map_err(BlockError::new)?;
             self.source = Some(source);
             self.guard = guard;
         }
@@ -251,11 +204,7 @@ impl Block for LobeGate {
         };
         self.learn_buf.push(chunk);
         let enough = self.source.as_mut().is_some_and(|s| s.learn_from(&sync));
-        if enough {
-            self.end_learning(out)
-        } else {
-            Ok(())
-        }
+        if enough { self.end_learning(out) } else { Ok(()) }
     }
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {

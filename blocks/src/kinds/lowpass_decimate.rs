@@ -15,24 +15,12 @@ pub const SPEC: BlockSpec = BlockSpec {
     kind: "lowpass_decimate",
     doc: "Low-pass filters (windowed sinc) and keeps every factor-th sample; stamps count output samples at rate/factor, \
           aux channels are picked at the kept samples.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "baseband samples",
-    )],
-    outputs: &[PortSpec::optional(
-        "samples",
-        ItemKind::Samples,
-        "filtered, decimated samples",
-    )],
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
+    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "filtered, decimated samples")],
     params: &[
         ParamSpec {
             name: "cutoff",
-            ty: ParamType::Number {
-                unit: Unit::Hertz,
-                min: 1e-6,
-                max: 5e9,
-            },
+            ty: ParamType::Number { unit: Unit::Hertz, min: 1e-6, max: 5e9 },
             default: None,
             doc: "-6 dB edge of the low-pass; keep it below half the output rate",
         },
@@ -108,22 +96,20 @@ impl LowpassDecimate {
         }
         if self.cutoff >= rate / 2.0 {
             return Err(BlockError::at(
-                format!(
-                    "lowpass_decimate: cutoff {} Hz is not below half the input rate ({rate} S/s)",
-                    self.cutoff
-                ),
+                format!("lowpass_decimate: cutoff {} Hz is not below half the input rate ({rate} S/s)", self.cutoff),
                 c.stamp.index,
             ));
         }
         if self.filter.is_empty() || self.run.as_ref().is_some_and(|r| r.rate != rate) {
-            self.filter = lowpass_taps(self.taps, self.cutoff / rate)
-                .into_iter()
-                .map(|t| t as f32)
-                .collect();
+            self.filter = lowpass_taps(self.taps, self.cutoff / rate).into_iter().map(|t| t as f32).collect();
             if self.cutoff > rate / (2.0 * self.factor as f64) {
                 out.notice(
                     c.stamp,
-                    format!("cutoff {} Hz is above half the output rate ({} S/s): the band edge will alias", self.cutoff, rate / self.factor as f64),
+                    format!(
+                        "cutoff {} Hz is above half the output rate ({} S/s): the band edge will alias",
+                        self.cutoff,
+                        rate / self.factor as f64
+                    ),
                 );
             }
         }
@@ -151,16 +137,11 @@ impl LowpassDecimate {
         let mut y = Vec::new();
         let mut sync = run.sync.as_ref().map(|_| Vec::new());
         let mut trigger = run.trigger.as_ref().map(|_| Vec::new());
-        while run.next_centre + h < run.buf_start + run.iq.len() as i64
-            && run.next_centre < run.next_in
-        {
+        while run.next_centre + h < run.buf_start + run.iq.len() as i64 && run.next_centre < run.next_in {
             let pos = (run.next_centre - run.buf_start) as usize;
             let window = &run.iq[pos - h as usize..=pos + h as usize];
             // Symmetric taps: correlation and convolution coincide.
-            let acc = window
-                .iter()
-                .zip(&self.filter)
-                .fold(Complex32::new(0.0, 0.0), |a, (x, t)| a + x * *t);
+            let acc = window.iter().zip(&self.filter).fold(Complex32::new(0.0, 0.0), |a, (x, t)| a + x * *t);
             y.push(acc);
             if let (Some(v), Some(s)) = (&mut sync, &run.sync) {
                 v.push(s[pos]);
@@ -196,8 +177,7 @@ impl LowpassDecimate {
     fn close(&mut self, out: &mut Outputs) {
         let h = self.half() as usize;
         if let Some(run) = &mut self.run {
-            run.iq
-                .extend(std::iter::repeat_n(Complex32::new(0.0, 0.0), h));
+            run.iq.extend(std::iter::repeat_n(Complex32::new(0.0, 0.0), h));
             for s in [&mut run.sync, &mut run.trigger].into_iter().flatten() {
                 s.extend(std::iter::repeat_n(0.0, h));
             }
@@ -225,7 +205,10 @@ impl Block for LowpassDecimate {
             self.close(out);
             self.restarts += 1;
             if self.restarts <= 3 {
-                out.notice(chunk.stamp, format!("input jumps from sample {from} (or its channels or rate change); the filter restarts"));
+                out.notice(
+                    chunk.stamp,
+                    format!("input jumps from sample {from} (or its channels or rate change); the filter restarts"),
+                );
             }
         }
         if self.run.is_none() {

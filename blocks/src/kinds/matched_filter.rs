@@ -19,11 +19,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     kind: "matched_filter",
     doc: "Pulse compression: correlates the samples with the transmitted pulse (rect, linear chirp or a taps file) \
           by FFT overlap-save; an echo starting at sample n peaks at sample n, noise power per sample is kept.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "baseband samples",
-    )],
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
     outputs: &[PortSpec::optional(
         "samples",
         ItemKind::Samples,
@@ -38,21 +34,13 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "pulse",
-            ty: ParamType::Time {
-                min_s: 0.0,
-                max_s: 0.1,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: 0.0, max_s: 0.1, pulses: false },
             default: Some("16 samples"),
             doc: "pulse length for rect and chirp",
         },
         ParamSpec {
             name: "bandwidth",
-            ty: ParamType::Number {
-                unit: Unit::Hertz,
-                min: -5e9,
-                max: 5e9,
-            },
+            ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
             default: Some("1 MHz"),
             doc: "chirp sweep width (negative sweeps down)",
         },
@@ -77,19 +65,12 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     } else {
         None
     };
-    Ok(Box::new(MatchedFilter {
-        params: p.clone(),
-        code,
-        reference,
-        stream: None,
-        notices: 0,
-    }))
+    Ok(Box::new(MatchedFilter { params: p.clone(), code, reference, stream: None, notices: 0 }))
 }
 
 /// Read a taps CSV: `re[,im]` per line; `#` starts a comment; the first line may be a header.
 pub fn read_taps(path: &Path) -> Result<Vec<Complex32>, String> {
-    let text =
-        std::fs::read_to_string(path).map_err(|e| format!("taps file {}: {e}", path.display()))?;
+    let text = std::fs::read_to_string(path).map_err(|e| format!("taps file {}: {e}", path.display()))?;
     let mut taps = Vec::new();
     for (i, raw) in text.lines().enumerate() {
         let line = raw.split('#').next().unwrap_or("").trim();
@@ -112,10 +93,7 @@ pub fn read_taps(path: &Path) -> Result<Vec<Complex32>, String> {
             }
         }
         if taps.len() > MAX_TAPS {
-            return Err(format!(
-                "taps file {}: more than {MAX_TAPS} taps",
-                path.display()
-            ));
+            return Err(format!("taps file {}: more than {MAX_TAPS} taps", path.display()));
         }
     }
     if taps.iter().all(|t| t.norm_sqr() == 0.0) {
@@ -146,18 +124,12 @@ struct MatchedFilter {
 impl MatchedFilter {
     fn reference(&self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
         if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::new(format!(
-                "matched_filter: chunk carries a sample rate of {rate} S/s"
-            )));
+            return Err(BlockError::new(format!("matched_filter: chunk carries a sample rate of {rate} S/s")));
         }
         if let Some(r) = &self.reference {
             return Ok(r.clone());
         }
-        let len = self
-            .params
-            .samples_at("pulse", rate, None)
-            .map_err(BlockError::new)?
-            .round();
+        let len = self.params.samples_at("pulse", rate, None).map_err(BlockError::new)?.round();
         if !(1.0..=MAX_TAPS as f64).contains(&len) {
             return Err(BlockError::new(format!(
                 "matched_filter: pulse is {len} samples at {rate} S/s (1 to {MAX_TAPS})"
@@ -226,10 +198,8 @@ impl Stream {
         if n == 0 {
             return;
         }
-        let take = |buf: &mut Option<Vec<f32>>| {
-            buf.as_mut()
-                .map(|b| b.drain(..n.min(b.len())).collect::<Vec<f32>>().into())
-        };
+        let take =
+            |buf: &mut Option<Vec<f32>>| buf.as_mut().map(|b| b.drain(..n.min(b.len())).collect::<Vec<f32>>().into());
         let chunk = SampleChunk {
             stamp: Stamp::new(self.next_out, self.rate),
             iq: std::mem::take(&mut self.out).into(),
@@ -255,7 +225,13 @@ impl Block for MatchedFilter {
             s.flush(out);
             self.notices += 1;
             if self.notices <= 3 {
-                out.notice(chunk.stamp, format!("input jumps from sample {} (or its channels or rate change); the filter restarts", s.next_in));
+                out.notice(
+                    chunk.stamp,
+                    format!(
+                        "input jumps from sample {} (or its channels or rate change); the filter restarts",
+                        s.next_in
+                    ),
+                );
             }
             self.stream = None;
         }

@@ -33,61 +33,37 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "prf",
-            ty: ParamType::Number {
-                unit: Unit::Hertz,
-                min: 0.01,
-                max: 1e8,
-            },
+            ty: ParamType::Number { unit: Unit::Hertz, min: 0.01, max: 1e8 },
             default: None,
             doc: "nominal pulse repetition frequency (hold-off, missing pulses, schedule)",
         },
         ParamSpec {
             name: "threshold",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.01,
-                max: 0.99,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 0.99 },
             default: Some("0.5"),
             doc: "trigger: rising edge through this fraction of the trigger's maximum",
         },
         ParamSpec {
             name: "threshold_db",
-            ty: ParamType::Number {
-                unit: Unit::Decibels,
-                min: 1.0,
-                max: 150.0,
-            },
+            ty: ParamType::Number { unit: Unit::Decibels, min: 1.0, max: 150.0 },
             default: Some("20 dB"),
             doc: "leakage: power this far above the running noise floor",
         },
         ParamSpec {
             name: "holdoff",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.05,
-                max: 1.4,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.05, max: 1.4 },
             default: Some("0.7"),
             doc: "no new instant within this fraction of a PRI after one",
         },
         ParamSpec {
             name: "offset",
-            ty: ParamType::Time {
-                min_s: -3600.0,
-                max_s: 3600.0,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: -3600.0, max_s: 3600.0, pulses: false },
             default: Some("0 s"),
             doc: "schedule: time of one transmit instant",
         },
         ParamSpec {
             name: "blank",
-            ty: ParamType::Time {
-                min_s: 0.0,
-                max_s: 1.0,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
             default: Some("1 us"),
             doc: "samples zeroed at the start of each sweep (transmit leakage)",
         },
@@ -236,11 +212,7 @@ impl PulseFramer {
             pri,
             holdoff: (self.holdoff_frac * pri).round().max(1.0) as u64,
             gap: (1.5 * pri).floor() as u64,
-            blank: self
-                .params
-                .samples_at("blank", rate, None)?
-                .round()
-                .max(0.0) as usize,
+            blank: self.params.samples_at("blank", rate, None)?.round().max(0.0) as usize,
             offset: self.params.samples_at("offset", rate, None)?,
             warm,
             start: first.index,
@@ -260,16 +232,10 @@ impl PulseFramer {
             match self.mode {
                 Mode::Trigger => {
                     if let Some(t) = &chunk.trigger {
-                        self.trig_max = t[..n]
-                            .iter()
-                            .copied()
-                            .filter(|v| v.is_finite())
-                            .fold(self.trig_max, f32::max);
+                        self.trig_max = t[..n].iter().copied().filter(|v| v.is_finite()).fold(self.trig_max, f32::max);
                     }
                 }
-                Mode::Leakage => chunk.iq[..n]
-                    .iter()
-                    .for_each(|x| self.noise.push(x.norm_sqr())),
+                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| self.noise.push(x.norm_sqr())),
                 Mode::Schedule => {}
             }
         }
@@ -285,8 +251,7 @@ impl PulseFramer {
             return Ok(());
         };
         let (start, len) = (chunk.stamp.index, chunk.len());
-        let (warm_end, holdoff, gap, pri, give_up) =
-            (s.start + s.warm, s.holdoff, s.gap, s.pri, s.give_up);
+        let (warm_end, holdoff, gap, pri, give_up) = (s.start + s.warm, s.holdoff, s.gap, s.pri, s.give_up);
         let trigger = match (self.mode, &chunk.trigger) {
             (Mode::Trigger, None) => {
                 return Err(BlockError::at(
@@ -296,10 +261,7 @@ impl PulseFramer {
             }
             (_, Some(t)) if t.len() != len => {
                 return Err(BlockError::at(
-                    format!(
-                        "the trigger channel has {} samples where the IQ has {len}",
-                        t.len()
-                    ),
+                    format!("the trigger channel has {} samples where the IQ has {len}", t.len()),
                     start,
                 ));
             }
@@ -324,9 +286,7 @@ impl PulseFramer {
                         if n >= warm_end {
                             self.noise.push(p);
                         }
-                        self.noise.ready()
-                            && p as f64
-                                > self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE)
+                        self.noise.ready() && p as f64 > self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE)
                     }
                 };
                 let edge = above && !self.prev_above;
@@ -367,18 +327,10 @@ impl PulseFramer {
     fn not_found(&self, end: u64) -> BlockError {
         let hint = match self.mode {
             Mode::Trigger => "is the trigger channel mapped, and is 'threshold' right?",
-            _ => {
-                "is 'threshold_db' above the leakage, or is there no leakage in this capture (try timing: schedule)?"
-            }
+            _ => "is 'threshold_db' above the leakage, or is there no leakage in this capture (try timing: schedule)?",
         };
         let from = self.setup.as_ref().map_or(0, |s| s.start);
-        BlockError::at(
-            format!(
-                "no transmit instants found in the first {} samples; {hint}",
-                end - from
-            ),
-            from,
-        )
+        BlockError::at(format!("no transmit instants found in the first {} samples; {hint}", end - from), from)
     }
 
     fn scan_schedule(&mut self, start: u64, len: usize, out: &mut Outputs) {
@@ -458,21 +410,13 @@ impl PulseFramer {
     fn emit(&mut self, from: u64, to: u64, predicted: bool, out: &mut Outputs) {
         let Some(s) = self.setup.as_ref() else { return };
         let (rate, blank) = (s.rate, s.blank);
-        let parts: Vec<&SampleChunk> = self
-            .pending
-            .iter()
-            .filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from)
-            .collect();
+        let parts: Vec<&SampleChunk> =
+            self.pending.iter().filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from).collect();
         let Some(first) = parts.first() else { return };
-        let whole = parts.len() == 1
-            && first.stamp.index <= from
-            && first.stamp.index + first.len() as u64 >= to;
+        let whole = parts.len() == 1 && first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to;
         let (mut iq, sync) = if whole {
             let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
-            (
-                first.iq.slice(r.clone()),
-                first.sync.as_ref().map(|y| y.slice(r)),
-            )
+            (first.iq.slice(r.clone()), first.sync.as_ref().map(|y| y.slice(r)))
         } else {
             let mut iq: Vec<Complex32> = Vec::with_capacity((to - from) as usize);
             let mut sync: Option<Vec<f32>> = parts.iter().all(|c| c.sync.is_some()).then(Vec::new);
@@ -490,9 +434,7 @@ impl PulseFramer {
         let blanked = blank.min(iq.len());
         if blanked > 0 {
             let mut copy = iq.to_vec();
-            copy[..blanked]
-                .iter_mut()
-                .for_each(|x| *x = Complex32::new(0.0, 0.0));
+            copy[..blanked].iter_mut().for_each(|x| *x = Complex32::new(0.0, 0.0));
             iq = Span::new(copy);
         }
         out.push(
@@ -528,11 +470,7 @@ impl Block for PulseFramer {
         }
         self.warm_have += chunk.len() as u64;
         self.warm_buf.push(chunk);
-        if self
-            .setup
-            .as_ref()
-            .is_some_and(|s| self.warm_have >= s.warm)
-        {
+        if self.setup.as_ref().is_some_and(|s| self.warm_have >= s.warm) {
             self.warm_up(out)?;
         }
         Ok(())
@@ -549,9 +487,7 @@ impl Block for PulseFramer {
             return Ok(());
         };
         match self.last {
-            Some((from, predicted)) if end.index > from => {
-                self.emit(from, end.index, predicted, out)
-            }
+            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted, out),
             Some(_) => {}
             None if self.mode != Mode::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));

@@ -10,26 +10,15 @@ use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
-const DIST: ParamType = ParamType::Distance {
-    min_m: 0.0,
-    max_m: 1e9,
-};
+const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "range_gate",
     doc: "Integrates a range gate over each lobe dwell of labelled sweeps (noncoherent power or coherent mean), \
           with noise from a reference region, sub-bin range from the gate's amplitude centroid, an optional \
           acquire-and-follow gate, and a check that the lobes share one noise floor.",
-    inputs: &[PortSpec::required(
-        "sweeps",
-        ItemKind::Sweep,
-        "sweeps labelled with their lobe and dwell",
-    )],
-    outputs: &[PortSpec::optional(
-        "dwells",
-        ItemKind::Dwell,
-        "one record per lobe dwell",
-    )],
+    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe and dwell")],
+    outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "one record per lobe dwell")],
     params: &[
         ParamSpec {
             name: "gate_start",
@@ -63,10 +52,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "acquire_dwells",
-            ty: ParamType::Integer {
-                min: 1,
-                max: 10_000,
-            },
+            ty: ParamType::Integer { min: 1, max: 10_000 },
             default: Some("4"),
             doc: "dwells (all lobes) summed to acquire; they are not reported",
         },
@@ -78,11 +64,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "pulse",
-            ty: ParamType::Time {
-                min_s: 0.0,
-                max_s: 1.0,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
             default: Some("1 samples"),
             doc: "echo length (1 sample after a matched filter); its centre offset is taken off the range",
         },
@@ -112,21 +94,13 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "detect",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.0,
-                max: 100.0,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 100.0 },
             default: Some("0"),
             doc: "echo energy must exceed this many standard deviations of noise alone in the gate, else the dwell has no signal (0: only a positive energy; 3-4 where a lobe may sit in its null, at the price of a bias near the threshold)",
         },
         ParamSpec {
             name: "noise_margin",
-            ty: ParamType::Number {
-                unit: Unit::Decibels,
-                min: 0.0,
-                max: 60.0,
-            },
+            ty: ParamType::Number { unit: Unit::Decibels, min: 0.0, max: 60.0 },
             default: Some("3 dB"),
             doc: "report lobes whose noise floors differ by more than this",
         },
@@ -137,26 +111,13 @@ pub const SPEC: BlockSpec = BlockSpec {
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let acquire = p.flag("acquire")?;
     let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
-    let integration =
-        Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
+    let integration = Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
     // Distances can only become bins once the sample rate is known; check what we can now.
-    for name in [
-        "gate_start",
-        "gate_width",
-        "search_start",
-        "search_end",
-        "noise_start",
-        "noise_width",
-        "pulse",
-    ] {
-        p.get(name)
-            .ok_or_else(|| format!("parameter '{name}' has no value"))?;
+    for name in ["gate_start", "gate_width", "search_start", "search_end", "noise_start", "noise_width", "pulse"] {
+        p.get(name).ok_or_else(|| format!("parameter '{name}' has no value"))?;
     }
     if !acquire && is_zero(p, "gate_start") {
-        return Err(
-            "range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'"
-                .into(),
-        );
+        return Err("range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'".into());
     }
     Ok(Box::new(RangeGate {
         params: p.clone(),
@@ -164,8 +125,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         acquire_dwells: p.int("acquire_dwells")?.max(1) as u64,
         follow,
         integration,
-        weighting: Weighting::from_name(p.text("centroid")?)
-            .ok_or("centroid: unknown weighting")?,
+        weighting: Weighting::from_name(p.text("centroid")?).ok_or("centroid: unknown weighting")?,
         noise_margin_db: p.num("noise_margin")?,
         detect_sigmas: p.num("detect")?,
         geometry: None,
@@ -206,9 +166,7 @@ struct Geometry {
 fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
     let b = p.bins_at(name, rate).map_err(BlockError::new)?;
     if !b.is_finite() || b < 0.0 || b > 1e8 {
-        return Err(BlockError::new(format!(
-            "range_gate: '{name}' is {b} bins at {rate} S/s; too large"
-        )));
+        return Err(BlockError::new(format!("range_gate: '{name}' is {b} bins at {rate} S/s; too large")));
     }
     Ok(b.round() as usize)
 }
@@ -216,16 +174,12 @@ fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
 impl Geometry {
     fn resolve(p: &Params, rate: f64) -> Result<Geometry, BlockError> {
         if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::new(format!(
-                "range_gate: sweeps carry a sample rate of {rate} S/s"
-            )));
+            return Err(BlockError::new(format!("range_gate: sweeps carry a sample rate of {rate} S/s")));
         }
         let noise_start = whole_bins(p, "noise_start", rate)?;
         let pulse = p.samples_at("pulse", rate, None).map_err(BlockError::new)?;
         if !(pulse.is_finite() && (0.0..=1e8).contains(&pulse)) {
-            return Err(BlockError::new(format!(
-                "range_gate: 'pulse' is {pulse} samples at {rate} S/s"
-            )));
+            return Err(BlockError::new(format!("range_gate: 'pulse' is {pulse} samples at {rate} S/s")));
         }
         let g = Geometry {
             rate,
@@ -300,13 +254,9 @@ impl RangeGate {
     fn geometry(&mut self, rate: f64, at: u64) -> Result<Geometry, BlockError> {
         match &self.geometry {
             Some(g) if g.rate == rate => Ok(g.clone()),
-            Some(g) => Err(BlockError::at(
-                format!(
-                    "range_gate: sample rate changed from {} to {rate} S/s",
-                    g.rate
-                ),
-                at,
-            )),
+            Some(g) => {
+                Err(BlockError::at(format!("range_gate: sample rate changed from {} to {rate} S/s", g.rate), at))
+            }
             None => {
                 let g = Geometry::resolve(&self.params, rate)?;
                 if !self.acquire {
@@ -351,25 +301,16 @@ impl RangeGate {
             }
             self.cycle = Follow::accumulator();
         }
-        let sums = self
-            .gate_start
-            .map(|s| DwellSums::new(s, geo.gate_width, self.integration));
+        let sums = self.gate_start.map(|s| DwellSums::new(s, geo.gate_width, self.integration));
         if sums.is_none() && self.acq.is_none() {
-            self.acq = Some(Acquisition {
-                start: geo.search_start,
-                power: Vec::new(),
-                dwells: 0,
-            });
+            self.acq = Some(Acquisition { start: geo.search_start, power: Vec::new(), dwells: 0 });
         }
         if sums.is_none()
             && let Some(acq) = &mut self.acq
         {
             acq.dwells += 1;
         }
-        self.current = Some(Current {
-            tag: tag.clone(),
-            sums,
-        });
+        self.current = Some(Current { tag: tag.clone(), sums });
     }
 
     fn add_sweep(&mut self, sweep: &Sweep, geo: &Geometry, out: &mut Outputs) {
@@ -380,11 +321,7 @@ impl RangeGate {
                 let Some(acq) = &mut self.acq else { return };
                 if acq.power.is_empty() {
                     // Size the window from the first sweep seen: constant from then on.
-                    let end = if geo.search_end > 0 {
-                        geo.search_end
-                    } else {
-                        geo.noise_range(iq.len()).start
-                    };
+                    let end = if geo.search_end > 0 { geo.search_end } else { geo.noise_range(iq.len()).start };
                     acq.power = vec![0.0; end.saturating_sub(acq.start).max(geo.gate_width)];
                 }
                 for (k, p) in acq.power.iter_mut().enumerate() {
@@ -401,7 +338,11 @@ impl RangeGate {
                     if self.skipped_short == 1 {
                         out.notice(
                             sweep.stamp,
-                            format!("sweep of {} samples is shorter than the gate (ends at bin {}); skipped", iq.len(), gate.end),
+                            format!(
+                                "sweep of {} samples is shorter than the gate (ends at bin {}); skipped",
+                                iq.len(),
+                                gate.end
+                            ),
                         );
                     }
                     return;
@@ -477,17 +418,11 @@ impl RangeGate {
         if !(noise.is_finite() && noise > 0.0) {
             return;
         }
-        let entry = self
-            .noise_floor
-            .entry(tag.lobe)
-            .or_insert((Arc::clone(&tag.name), noise, 0));
+        let entry = self.noise_floor.entry(tag.lobe).or_insert((Arc::clone(&tag.name), noise, 0));
         // Smooth over a few dwells so one noisy dwell does not trip the check.
         entry.1 += 0.25 * (noise - entry.1);
         entry.2 += 1;
-        if self.mismatch_reported
-            || self.noise_floor.len() < 2
-            || self.noise_floor.values().any(|e| e.2 < 3)
-        {
+        if self.mismatch_reported || self.noise_floor.len() < 2 || self.noise_floor.values().any(|e| e.2 < 3) {
             return;
         }
         let (lo, hi) = self.noise_floor.values().fold(
@@ -529,19 +464,13 @@ impl Block for RangeGate {
         let Some(tag) = sweep.lobe.clone() else {
             self.untagged += 1;
             if self.untagged == 1 {
-                out.notice(
-                    sweep.stamp,
-                    "sweep without a lobe label (no switch-sync gate upstream?); skipped",
-                );
+                out.notice(sweep.stamp, "sweep without a lobe label (no switch-sync gate upstream?); skipped");
             }
             return Ok(());
         };
         let geo = self.geometry(sweep.stamp.rate, sweep.stamp.index)?;
         self.last_stamp = sweep.stamp;
-        let same_dwell = self
-            .current
-            .as_ref()
-            .is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
+        let same_dwell = self.current.as_ref().is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
         if !same_dwell {
             self.close_dwell(out);
             self.open_dwell(&tag, &geo, sweep.stamp, out);
@@ -554,39 +483,18 @@ impl Block for RangeGate {
         self.close_dwell(out);
         let end = self.last_stamp;
         if self.skipped_short > 0 {
-            out.notice(
-                end,
-                format!(
-                    "{} sweeps were shorter than the range gate and were skipped",
-                    self.skipped_short
-                ),
-            );
+            out.notice(end, format!("{} sweeps were shorter than the range gate and were skipped", self.skipped_short));
         }
         if self.untagged > 1 {
-            out.notice(
-                end,
-                format!(
-                    "{} sweeps had no lobe label and were skipped",
-                    self.untagged
-                ),
-            );
+            out.notice(end, format!("{} sweeps had no lobe label and were skipped", self.untagged));
         }
         if self.no_noise > 1 {
-            out.notice(
-                end,
-                format!(
-                    "{} dwells had no noise reference samples and were skipped",
-                    self.no_noise
-                ),
-            );
+            out.notice(end, format!("{} dwells had no noise reference samples and were skipped", self.no_noise));
         }
         if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
             out.notice(
                 end,
-                format!(
-                    "acquisition did not finish: fewer than {} dwells and a cycle start",
-                    self.acquire_dwells
-                ),
+                format!("acquisition did not finish: fewer than {} dwells and a cycle start", self.acquire_dwells),
             );
         }
         Ok(())

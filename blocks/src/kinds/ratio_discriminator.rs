@@ -14,16 +14,8 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Pairs each lobe dwell with the nearest unused dwell of its opposite lobe and turns the amplitude \
           ratio into an angle error (degrees) through a beam model, with its expected spread and a flag \
           for missing signal or ratios outside the model's monotonic region.",
-    inputs: &[PortSpec::required(
-        "dwells",
-        ItemKind::Dwell,
-        "integrated lobe dwells",
-    )],
-    outputs: &[PortSpec::optional(
-        "estimates",
-        ItemKind::Estimate,
-        "one angle estimate per paired dwells",
-    )],
+    inputs: &[PortSpec::required("dwells", ItemKind::Dwell, "integrated lobe dwells")],
+    outputs: &[PortSpec::optional("estimates", ItemKind::Estimate, "one angle estimate per paired dwells")],
     params: &[
         ParamSpec {
             name: "pairs",
@@ -51,21 +43,13 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "beamwidth",
-            ty: ParamType::Number {
-                unit: Unit::Degrees,
-                min: 0.01,
-                max: 179.0,
-            },
+            ty: ParamType::Number { unit: Unit::Degrees, min: 0.01, max: 179.0 },
             default: Some("6 deg"),
             doc: "one-way 3 dB beamwidth of one lobe (ignored for table)",
         },
         ParamSpec {
             name: "squint",
-            ty: ParamType::Number {
-                unit: Unit::Degrees,
-                min: 0.001,
-                max: 89.0,
-            },
+            ty: ParamType::Number { unit: Unit::Degrees, min: 0.001, max: 89.0 },
             default: Some("2.4 deg"),
             doc: "angle of each lobe's axis from boresight",
         },
@@ -83,11 +67,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "max_gap",
-            ty: ParamType::Time {
-                min_s: 0.0,
-                max_s: f64::INFINITY,
-                pulses: false,
-            },
+            ty: ParamType::Time { min_s: 0.0, max_s: f64::INFINITY, pulses: false },
             default: Some("0 s"),
             doc: "pair only dwells whose mid times differ by at most this (0: no limit)",
         },
@@ -118,9 +98,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let mut gains = Vec::new();
     for (lobe, text) in parse_key_values(p.text("lobe_gain_db")?, "lobe_gain_db")? {
         if !pairs.iter().any(|pr| pr.plus == lobe || pr.minus == lobe) {
-            return Err(format!(
-                "lobe_gain_db: lobe '{lobe}' is not in any pair of 'pairs'"
-            ));
+            return Err(format!("lobe_gain_db: lobe '{lobe}' is not in any pair of 'pairs'"));
         }
         let db: f64 = text
             .trim_end_matches("dB")
@@ -175,27 +153,18 @@ fn pair_model(p: &Params) -> Result<PairModel, String> {
             if pattern.is_empty() {
                 return Err("beam 'table' needs a pattern file (parameter 'pattern')".into());
             }
-            let text = std::fs::read_to_string(pattern)
-                .map_err(|e| format!("cannot read pattern file {pattern}: {e}"))?;
-            BeamShape::Table(
-                parse_pattern_csv(&text).map_err(|e| format!("pattern file {pattern}: {e}"))?,
-            )
+            let text =
+                std::fs::read_to_string(pattern).map_err(|e| format!("cannot read pattern file {pattern}: {e}"))?;
+            BeamShape::Table(parse_pattern_csv(&text).map_err(|e| format!("pattern file {pattern}: {e}"))?)
         }
         other => return Err(format!("unknown beam model '{other}'")),
     };
     if !pattern.is_empty() && !matches!(shape, BeamShape::Table(_)) {
-        return Err(format!(
-            "parameter 'pattern' is set ({pattern}) but beam is not 'table'"
-        ));
+        return Err(format!("parameter 'pattern' is set ({pattern}) but beam is not 'table'"));
     }
     let from_table = matches!(shape, BeamShape::Table(_));
-    let beam = Beam::new(shape, p.num("beamwidth")?).map_err(|e| {
-        if from_table {
-            format!("pattern file {pattern}: {e}")
-        } else {
-            e
-        }
-    })?;
+    let beam = Beam::new(shape, p.num("beamwidth")?)
+        .map_err(|e| if from_table { format!("pattern file {pattern}: {e}") } else { e })?;
     let way = if p.text("way")? == "one" { 1 } else { 2 };
     PairModel::new(beam, p.num("squint")?, way)
 }
@@ -251,15 +220,7 @@ impl RatioDiscriminator {
     fn estimate(&self, slot: &PairSlot, plus: &DwellRecord, minus: &DwellRecord) -> AngleEstimate {
         let a = plus.amplitude / slot.plus_gain;
         let b = minus.amplitude / slot.minus_gain;
-        let reading = read_pair(
-            &self.model,
-            self.signal,
-            a,
-            b,
-            plus.var_ln_amp,
-            minus.var_ln_amp,
-            self.edge_sigmas,
-        );
+        let reading = read_pair(&self.model, self.signal, a, b, plus.var_ln_amp, minus.var_ln_amp, self.edge_sigmas);
         let range_m = match (plus.range_m, minus.range_m) {
             (Some(ra), Some(rb)) => Some(0.5 * (ra + rb)),
             _ => None,
@@ -267,11 +228,8 @@ impl RatioDiscriminator {
         let snr_db = 10.0 * plus.snr.min(minus.snr).log10();
         // Too weak a lobe gives a biased, noise-dominated ratio: no number.
         let weak = reading.flag == Flag::Ok && !(snr_db >= self.min_snr_db);
-        let (error_deg, sigma_deg, flag) = if weak {
-            (None, f64::NAN, Flag::NoSignal)
-        } else {
-            (reading.error_deg, reading.sigma_deg, reading.flag)
-        };
+        let (error_deg, sigma_deg, flag) =
+            if weak { (None, f64::NAN, Flag::NoSignal) } else { (reading.error_deg, reading.sigma_deg, reading.flag) };
         AngleEstimate {
             stamp: mid_stamp(plus.mid, minus.mid),
             axis: slot.pair.axis.clone(),
@@ -294,20 +252,12 @@ impl Block for RatioDiscriminator {
         };
         self.last_stamp = Some(dwell.mid);
         let name: &str = &dwell.tag.name;
-        let found = self
-            .slots
-            .iter()
-            .position(|s| s.pair.plus == name || s.pair.minus == name);
+        let found = self.slots.iter().position(|s| s.pair.plus == name || s.pair.minus == name);
         let Some(k) = found else {
-            if self.unknown_lobes.len() < UNKNOWN_LOBES_REPORTED
-                && self.unknown_lobes.insert(name.to_string())
-            {
+            if self.unknown_lobes.len() < UNKNOWN_LOBES_REPORTED && self.unknown_lobes.insert(name.to_string()) {
                 out.notice(
                     dwell.mid,
-                    format!(
-                        "dwells of lobe '{name}' (first at sample {}) belong to no pair; ignored",
-                        dwell.mid.index
-                    ),
+                    format!("dwells of lobe '{name}' (first at sample {}) belong to no pair; ignored", dwell.mid.index),
                 );
             }
             return Ok(());
@@ -315,9 +265,7 @@ impl Block for RatioDiscriminator {
         let is_plus = self.slots[k].pair.plus == name;
         self.slots[k].seen[usize::from(!is_plus)] = true;
         let partner = match self.slots[k].waiting.take() {
-            Some((w, w_plus)) if w_plus != is_plus && self.max_gap.allows(w.mid, dwell.mid) => {
-                Some(w)
-            }
+            Some((w, w_plus)) if w_plus != is_plus && self.max_gap.allows(w.mid, dwell.mid) => Some(w),
             Some(_) => {
                 // Same lobe again, or the partner is too old: the older dwell stays unused.
                 self.unpaired += 1;
@@ -338,11 +286,7 @@ impl Block for RatioDiscriminator {
                 dwell.mid.index,
             ));
         }
-        let (plus, minus) = if is_plus {
-            (&dwell, &partner)
-        } else {
-            (&partner, &dwell)
-        };
+        let (plus, minus) = if is_plus { (&dwell, &partner) } else { (&partner, &dwell) };
         let estimate = self.estimate(&self.slots[k], plus, minus);
         out.push(0, Item::Estimate(estimate));
         Ok(())
@@ -353,24 +297,12 @@ impl Block for RatioDiscriminator {
         let left_waiting = self.slots.iter().filter(|s| s.waiting.is_some()).count() as u64;
         let unpaired = self.unpaired + left_waiting;
         if unpaired > 0 {
-            out.notice(
-                at,
-                format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"),
-            );
+            out.notice(at, format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"));
         }
         for slot in &self.slots {
-            for (lobe, seen) in [
-                (&slot.pair.plus, slot.seen[0]),
-                (&slot.pair.minus, slot.seen[1]),
-            ] {
+            for (lobe, seen) in [(&slot.pair.plus, slot.seen[0]), (&slot.pair.minus, slot.seen[1])] {
                 if !seen {
-                    out.notice(
-                        at,
-                        format!(
-                            "lobe '{lobe}' of pair '{}' never appeared in the dwells",
-                            slot.pair.axis
-                        ),
-                    );
+                    out.notice(at, format!("lobe '{lobe}' of pair '{}' never appeared in the dwells", slot.pair.axis));
                 }
             }
         }

@@ -20,22 +20,10 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Labels sweeps with the lobe active at their transmit instant (sync staircase or schedule; times \
           may be given in pulses), cuts a sweep at a switch instant inside it and drops sweeps starting \
           within the guard after a switch.",
-    inputs: &[PortSpec::required(
-        "sweeps",
-        ItemKind::Sweep,
-        "sweeps from a framer (with sync spans for sync timing)",
-    )],
+    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps from a framer (with sync spans for sync timing)")],
     outputs: &[
-        PortSpec::optional(
-            "sweeps",
-            ItemKind::Sweep,
-            "the sweeps, labelled with their lobe and dwell",
-        ),
-        PortSpec::optional(
-            "notices",
-            ItemKind::Notice,
-            "switch instants and irregularities, for timelines",
-        ),
+        PortSpec::optional("sweeps", ItemKind::Sweep, "the sweeps, labelled with their lobe and dwell"),
+        PortSpec::optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
     ],
     params: &PARAMS,
     build,
@@ -90,11 +78,8 @@ fn sweep_end(s: &Sweep) -> u64 {
 
 /// Median spacing of consecutive transmit instants, in samples.
 fn pulse_interval(sweeps: &[Sweep]) -> Option<f64> {
-    let mut gaps: Vec<u64> = sweeps
-        .windows(2)
-        .map(|w| w[1].stamp.index.saturating_sub(w[0].stamp.index))
-        .filter(|&g| g > 0)
-        .collect();
+    let mut gaps: Vec<u64> =
+        sweeps.windows(2).map(|w| w[1].stamp.index.saturating_sub(w[0].stamp.index)).filter(|&g| g > 0).collect();
     if gaps.is_empty() {
         return None;
     }
@@ -114,15 +99,15 @@ impl SweepGate {
                     return Ok(());
                 }
                 Some(pulse_interval(&self.startup).ok_or_else(|| {
-                    BlockError::at("a time is given in pulses, but fewer than two sweeps arrived to measure the pulse interval", first.index)
+                    BlockError::at(
+                        "a time is given in pulses, but fewer than two sweeps arrived to measure the pulse interval",
+                        first.index,
+                    )
                 })?)
             } else {
                 None
             };
-            let (source, guard) = self
-                .cfg
-                .source(first.rate, pri)
-                .map_err(|e| BlockError::at(e, first.index))?;
+            let (source, guard) = self.cfg.source(first.rate, pri).map_err(|e| BlockError::at(e, first.index))?;
             self.source = Some(source);
             self.guard = guard;
         }
@@ -145,15 +130,10 @@ impl SweepGate {
             if !enough && !finishing {
                 return Ok(());
             }
-            source
-                .end_learning()
-                .map_err(|e| BlockError::at(e, first.index))?;
+            source.end_learning().map_err(|e| BlockError::at(e, first.index))?;
             if let Some(levels) = source.levels() {
-                let list: Vec<String> = levels
-                    .iter()
-                    .zip(&self.cfg.names)
-                    .map(|(l, n)| format!("{n} {l:.3}"))
-                    .collect();
+                let list: Vec<String> =
+                    levels.iter().zip(&self.cfg.names).map(|(l, n)| format!("{n} {l:.3}")).collect();
                 out.notice(first, format!("learned sync levels: {}", list.join(", ")));
             }
         }
@@ -169,16 +149,11 @@ impl SweepGate {
             return Ok(());
         };
         let index = sweep.stamp.index;
-        source
-            .feed(index, sweep.sync.as_deref(), sweep.iq.len())
-            .map_err(|e| BlockError::at(e, index))?;
+        source.feed(index, sweep.sync.as_deref(), sweep.iq.len()).map_err(|e| BlockError::at(e, index))?;
         self.fed_end = self.fed_end.max(sweep_end(&sweep));
         self.pending.push_back(sweep);
         self.take_events(out);
-        let upto = self
-            .source
-            .as_ref()
-            .map_or(self.fed_end, |s| s.settled(self.fed_end));
+        let upto = self.source.as_ref().map_or(self.fed_end, |s| s.settled(self.fed_end));
         self.release(upto, out);
         Ok(())
     }
@@ -190,17 +165,9 @@ impl SweepGate {
         let rate = self.pending.back().map_or(1.0, |s| s.stamp.rate);
         while let Some(event) = source.pop_event() {
             match event {
-                SwitchEvent::Begin {
-                    at,
-                    lobe,
-                    switch_at,
-                } => {
-                    self.current =
-                        Some((lobe, switch_at.map_or(at, |s| s.max(0) as u64), switch_at));
-                    let what = format!(
-                        "lobe {} active at the first sample {at}",
-                        self.cfg.names[lobe]
-                    );
+                SwitchEvent::Begin { at, lobe, switch_at } => {
+                    self.current = Some((lobe, switch_at.map_or(at, |s| s.max(0) as u64), switch_at));
+                    let what = format!("lobe {} active at the first sample {at}", self.cfg.names[lobe]);
                     self.router.timeline(out, Stamp::new(at, rate), what);
                 }
                 SwitchEvent::Switch { at, lobe } => {
@@ -255,12 +222,7 @@ impl SweepGate {
             }
             self.emitted_dwell = Some(dwell_start);
         }
-        sweep.lobe = Some(LobeTag {
-            lobe,
-            name: Arc::clone(&self.cfg.names[lobe]),
-            dwell: self.dwell,
-            dwell_start,
-        });
+        sweep.lobe = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell: self.dwell, dwell_start });
         out.push(0, Item::Sweep(sweep));
     }
 }

@@ -20,20 +20,11 @@ pub const SPEC: BlockSpec = BlockSpec {
     inputs: &[
         PortSpec::optional("estimates", ItemKind::Estimate, "angle estimates"),
         PortSpec::optional("dwells", ItemKind::Dwell, "dwell records"),
-        PortSpec::optional(
-            "rows",
-            ItemKind::Row,
-            "free-form rows (columns from the first row)",
-        ),
+        PortSpec::optional("rows", ItemKind::Row, "free-form rows (columns from the first row)"),
     ],
     outputs: &[],
     params: &[
-        ParamSpec {
-            name: "path",
-            ty: ParamType::OutputPath,
-            default: None,
-            doc: "table file to write",
-        },
+        ParamSpec { name: "path", ty: ParamType::OutputPath, default: None, doc: "table file to write" },
         ParamSpec {
             name: "format",
             ty: ParamType::Choice(&["csv", "jsonl"]),
@@ -56,34 +47,20 @@ const ESTIMATE_COLUMNS: &[&str] = &[
     "tracked_deg",
     "absolute_deg",
 ];
-const DWELL_COLUMNS: &[&str] = &[
-    "time_s",
-    "lobe",
-    "dwell",
-    "amplitude",
-    "noise_power",
-    "snr_db",
-    "range_m",
-    "used",
-];
+const DWELL_COLUMNS: &[&str] = &["time_s", "lobe", "dwell", "amplitude", "noise_power", "snr_db", "range_m", "used"];
 
 fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
     let path = p.text("path")?.trim().to_string();
     if path.is_empty() {
         return Err("parameter 'path' is empty".into());
     }
-    let file = OutputFile::create(Path::new(&path))
-        .map_err(|e| format!("cannot create table {path}: {e}"))?;
+    let file = OutputFile::create(Path::new(&path)).map_err(|e| format!("cannot create table {path}: {e}"))?;
     let json = p.text("format")? == "jsonl";
     Ok(Box::new(TableWriter {
         file: Some(file),
         files: ctx.files.clone(),
         path,
-        line: LineBuilder {
-            text: String::new(),
-            json,
-            first: true,
-        },
+        line: LineBuilder { text: String::new(), json, first: true },
         kind: None,
         row_columns: Vec::new(),
         unknown_fields: BTreeSet::new(),
@@ -217,10 +194,7 @@ struct TableWriter {
 impl TableWriter {
     fn write_line(&mut self) -> Result<(), BlockError> {
         let Some(file) = self.file.as_mut() else {
-            return Err(BlockError::new(format!(
-                "table {} was already finished",
-                self.path
-            )));
+            return Err(BlockError::new(format!("table {} was already finished", self.path)));
         };
         file.write_all(self.line.text.as_bytes())
             .map_err(|e| BlockError::new(format!("cannot write table {}: {e}", self.path)))
@@ -279,7 +253,10 @@ impl TableWriter {
                 && self.unknown_fields.len() < UNKNOWN_FIELDS_REPORTED
                 && self.unknown_fields.insert(name.clone())
             {
-                out.notice(r.stamp, format!("row field '{name}' is not among the table's columns (from the first row); left out"));
+                out.notice(
+                    r.stamp,
+                    format!("row field '{name}' is not among the table's columns (from the first row); left out"),
+                );
             }
         }
         let l = &mut self.line;
@@ -354,7 +331,6 @@ impl Block for TableWriter {
         let Some(file) = self.file.take() else {
             return Ok(());
         };
-        file.finish(&self.files)
-            .map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))
+        file.finish(&self.files).map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))
     }
 }

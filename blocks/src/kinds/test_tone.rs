@@ -12,10 +12,30 @@ pub const SPEC: BlockSpec = BlockSpec {
     inputs: &[],
     outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the tone, in chunks")],
     params: &[
-        ParamSpec { name: "samples", ty: ParamType::Integer { min: 0, max: i64::MAX }, default: Some("65536"), doc: "how many samples in all" },
-        ParamSpec { name: "rate", ty: ParamType::Number { unit: Unit::SampleRate, min: 1.0, max: 1e10 }, default: Some("1 MS/s"), doc: "sample rate" },
-        ParamSpec { name: "frequency", ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 }, default: Some("1 kHz"), doc: "tone frequency (baseband)" },
-        ParamSpec { name: "chunk", ty: ParamType::Integer { min: 1, max: 1 << 24 }, default: Some("4096"), doc: "samples per chunk" },
+        ParamSpec {
+            name: "samples",
+            ty: ParamType::Integer { min: 0, max: i64::MAX },
+            default: Some("65536"),
+            doc: "how many samples in all",
+        },
+        ParamSpec {
+            name: "rate",
+            ty: ParamType::Number { unit: Unit::SampleRate, min: 1.0, max: 1e10 },
+            default: Some("1 MS/s"),
+            doc: "sample rate",
+        },
+        ParamSpec {
+            name: "frequency",
+            ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
+            default: Some("1 kHz"),
+            doc: "tone frequency (baseband)",
+        },
+        ParamSpec {
+            name: "chunk",
+            ty: ParamType::Integer { min: 1, max: 1 << 24 },
+            default: Some("4096"),
+            doc: "samples per chunk",
+        },
     ],
     build,
 };
@@ -51,7 +71,15 @@ impl Block for TestTone {
                 Complex32::new(ph.cos() as f32, ph.sin() as f32)
             })
             .collect();
-        out.push(0, Item::Samples(SampleChunk { stamp: Stamp::new(self.next, self.rate), iq: iq.into(), sync: None, trigger: None }));
+        out.push(
+            0,
+            Item::Samples(SampleChunk {
+                stamp: Stamp::new(self.next, self.rate),
+                iq: iq.into(),
+                sync: None,
+                trigger: None,
+            }),
+        );
         self.next += n as u64;
         self.left -= n as u64;
         Ok(self.left > 0)

@@ -15,34 +15,18 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Beacon integrator: per lobe dwell, the amplitude of a known tone from a windowed FFT with the peak \
           interpolated between bins (or the whole-band power), noise from off-tone bins, and the expected \
           spread of ln(amplitude).",
-    inputs: &[PortSpec::required(
-        "segments",
-        ItemKind::Segment,
-        "lobe segments; dwell_end closes a dwell",
-    )],
-    outputs: &[PortSpec::optional(
-        "dwells",
-        ItemKind::Dwell,
-        "one record per lobe dwell",
-    )],
+    inputs: &[PortSpec::required("segments", ItemKind::Segment, "lobe segments; dwell_end closes a dwell")],
+    outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "one record per lobe dwell")],
     params: &[
         ParamSpec {
             name: "tone",
-            ty: ParamType::Number {
-                unit: Unit::Hertz,
-                min: -5e9,
-                max: 5e9,
-            },
+            ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
             default: None,
             doc: "beacon tone frequency at baseband",
         },
         ParamSpec {
             name: "search",
-            ty: ParamType::Number {
-                unit: Unit::Hertz,
-                min: 0.0,
-                max: 5e9,
-            },
+            ty: ParamType::Number { unit: Unit::Hertz, min: 0.0, max: 5e9 },
             default: Some("0 Hz"),
             doc: "extra half-width around the tone in which to look for its peak (drift)",
         },
@@ -60,19 +44,13 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "fft_size",
-            ty: ParamType::Integer {
-                min: 0,
-                max: 1 << 22,
-            },
+            ty: ParamType::Integer { min: 0, max: 1 << 22 },
             default: Some("0"),
             doc: "transform length (rounded up to a power of two; samples past it are not used); 0 = whole dwell, padded to twice its power of two",
         },
         ParamSpec {
             name: "max_samples",
-            ty: ParamType::Integer {
-                min: 16,
-                max: 1 << 22,
-            },
+            ty: ParamType::Integer { min: 16, max: 1 << 22 },
             default: Some("1048576"),
             doc: "most samples collected per dwell (the rest are left out)",
         },
@@ -84,21 +62,13 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let window = Window::from_name(p.text("window")?).ok_or("window: unknown name")?;
     let fft_size = p.int("fft_size")?.max(0) as usize;
     let max_samples = p.int("max_samples")?.max(16) as usize;
-    let cap = if fft_size > 0 {
-        max_samples.min(fft_size)
-    } else {
-        max_samples
-    };
+    let cap = if fft_size > 0 { max_samples.min(fft_size) } else { max_samples };
     Ok(Box::new(ToneDwell {
         tone_hz: p.num("tone")?,
         search_hz: p.num("search")?,
         window,
         band_power: p.text("method")? == "band_power",
-        fft_size: if fft_size > 0 {
-            Some(next_pow2(fft_size))
-        } else {
-            None
-        },
+        fft_size: if fft_size > 0 { Some(next_pow2(fft_size)) } else { None },
         cap,
         fft: FftCache::new(),
         samples: Vec::new(),
@@ -165,7 +135,13 @@ impl ToneDwell {
         if stamp.index != cur.next && !self.samples.is_empty() {
             self.gaps += 1;
             if self.gaps == 1 {
-                out.notice(stamp, format!("dwell {} has a gap of samples before this segment; joined as if contiguous", seg.tag.dwell));
+                out.notice(
+                    stamp,
+                    format!(
+                        "dwell {} has a gap of samples before this segment; joined as if contiguous",
+                        seg.tag.dwell
+                    ),
+                );
             }
         }
         let room = self.cap - self.samples.len();
@@ -220,26 +196,18 @@ impl ToneDwell {
         let sum_w: f64 = self.weights.iter().sum();
         let sum_w2: f64 = self.weights.iter().map(|w| w * w).sum();
         self.spectrum.clear();
-        self.spectrum.extend(
-            self.samples
-                .iter()
-                .zip(&self.weights)
-                .map(|(x, w)| x * *w as f32),
-        );
+        self.spectrum.extend(self.samples.iter().zip(&self.weights).map(|(x, w)| x * *w as f32));
         self.spectrum.resize(nfft, Complex32::new(0.0, 0.0));
         self.fft.forward(&mut self.spectrum);
         self.powers.clear();
-        self.powers
-            .extend(self.spectrum.iter().map(|x| x.norm_sqr() as f64));
+        self.powers.extend(self.spectrum.iter().map(|x| x.norm_sqr() as f64));
 
         // Peak near the tone: within one unpadded bin plus the search width.
         let pad = nfft as f64 / m as f64;
         // Reduced to one turn of the spectrum so far-out tones stay in range.
         let tone_bin = (self.tone_hz / rate).rem_euclid(1.0) * nfft as f64;
         // Never wider than half the transform: the search wraps around.
-        let reach = (pad + self.search_hz / rate * nfft as f64)
-            .ceil()
-            .min(nfft as f64 / 2.0) as i64;
+        let reach = (pad + self.search_hz / rate * nfft as f64).ceil().min(nfft as f64 / 2.0) as i64;
         let centre = tone_bin.round() as i64;
         let wrap = |k: i64| k.rem_euclid(nfft as i64) as usize;
         let peak = (centre - reach..=centre + reach)
@@ -277,23 +245,14 @@ impl ToneDwell {
         if self.band_power {
             // Whole-band power minus noise; the noncoherent form of field notes §4 with
             // one "pulse" and a gate of M samples: (M/E^2 + 2/E)/4, E = M P / noise.
-            let mean_power = self
-                .samples
-                .iter()
-                .map(|x| x.norm_sqr() as f64)
-                .sum::<f64>()
-                / m_f;
+            let mean_power = self.samples.iter().map(|x| x.norm_sqr() as f64).sum::<f64>() / m_f;
             let p = mean_power - noise_power;
             let e = ratio(p * m_f, noise_power);
             return ToneEstimate {
                 amplitude: if p > 0.0 { p.sqrt() } else { f64::NAN },
                 noise_power,
                 energy_ratio: e.max(0.0),
-                var_ln_amp: if e > 0.0 {
-                    (m_f / (e * e) + 2.0 / e) / 4.0
-                } else {
-                    f64::INFINITY
-                },
+                var_ln_amp: if e > 0.0 { (m_f / (e * e) + 2.0 / e) / 4.0 } else { f64::INFINITY },
             };
         }
         let (re, im) = weighted_dtft(&self.samples, &self.weights, freq);
@@ -309,11 +268,7 @@ impl ToneDwell {
             amplitude: if a2 > 0.0 { a2.sqrt() } else { f64::NAN },
             noise_power,
             energy_ratio: e.max(0.0),
-            var_ln_amp: if e > 0.0 {
-                enbw / (2.0 * e)
-            } else {
-                f64::INFINITY
-            },
+            var_ln_amp: if e > 0.0 { enbw / (2.0 * e) } else { f64::INFINITY },
         }
     }
 }
@@ -341,10 +296,7 @@ impl Block for ToneDwell {
             if self.unterminated == 1 {
                 out.notice(
                     seg.chunk.stamp,
-                    format!(
-                        "dwell {} ended without its last segment; integrated what arrived",
-                        cur.tag.dwell
-                    ),
+                    format!("dwell {} ended without its last segment; integrated what arrived", cur.tag.dwell),
                 );
             }
             self.close(out)?;
@@ -353,10 +305,7 @@ impl Block for ToneDwell {
             && cur.rate != seg.chunk.stamp.rate
         {
             return Err(BlockError::at(
-                format!(
-                    "tone_dwell: sample rate changed from {} to {} S/s",
-                    cur.rate, seg.chunk.stamp.rate
-                ),
+                format!("tone_dwell: sample rate changed from {} to {} S/s", cur.rate, seg.chunk.stamp.rate),
                 seg.chunk.stamp.index,
             ));
         }
@@ -378,34 +327,16 @@ impl Block for ToneDwell {
         self.close(out)?;
         let at = self.last_stamp;
         if self.left_out > 0 {
-            out.notice(
-                at,
-                format!(
-                    "{} samples past the per-dwell limit ({}) were left out",
-                    self.left_out, self.cap
-                ),
-            );
+            out.notice(at, format!("{} samples past the per-dwell limit ({}) were left out", self.left_out, self.cap));
         }
         if self.gaps > 1 {
-            out.notice(
-                at,
-                format!("{} segments followed a gap within their dwell", self.gaps),
-            );
+            out.notice(at, format!("{} segments followed a gap within their dwell", self.gaps));
         }
         if self.unterminated > 1 {
-            out.notice(
-                at,
-                format!("{} dwells ended without a last segment", self.unterminated),
-            );
+            out.notice(at, format!("{} dwells ended without a last segment", self.unterminated));
         }
         if self.too_short > 1 {
-            out.notice(
-                at,
-                format!(
-                    "{} dwells had fewer than 8 samples and were skipped",
-                    self.too_short
-                ),
-            );
+            out.notice(at, format!("{} dwells had fewer than 8 samples and were skipped", self.too_short));
         }
         Ok(())
     }

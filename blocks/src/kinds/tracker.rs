@@ -13,11 +13,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     doc: "Smooths the angle errors of each axis with an alpha-beta or Kalman filter, flags estimates that \
           fall outside the innovation gate as outliers (not used), and with pointing telemetry adds the \
           antenna angle to give absolute target angles.",
-    inputs: &[PortSpec::required(
-        "estimates",
-        ItemKind::Estimate,
-        "angle estimates",
-    )],
+    inputs: &[PortSpec::required("estimates", ItemKind::Estimate, "angle estimates")],
     outputs: &[PortSpec::optional(
         "estimates",
         ItemKind::Estimate,
@@ -32,60 +28,37 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "alpha",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.001,
-                max: 1.0,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.001, max: 1.0 },
             default: Some("0.4"),
             doc: "alpha_beta: angle gain",
         },
         ParamSpec {
             name: "beta",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.0,
-                max: 2.0,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 2.0 },
             default: Some("0.1"),
             doc: "alpha_beta: rate gain (stable while beta < 4 - 2 alpha)",
         },
         ParamSpec {
             name: "process_noise",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.0,
-                max: 1e6,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1e6 },
             default: Some("0.1"),
             doc: "kalman: standard deviation of the target's angular acceleration, deg/s^2",
         },
         ParamSpec {
             name: "gate_sigmas",
-            ty: ParamType::Number {
-                unit: Unit::None,
-                min: 0.0,
-                max: 1000.0,
-            },
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1000.0 },
             default: Some("4"),
             doc: "reject an estimate whose innovation exceeds this many predicted sigmas (0: no gate)",
         },
         ParamSpec {
             name: "reset_after",
-            ty: ParamType::Integer {
-                min: 1,
-                max: 1_000_000,
-            },
+            ty: ParamType::Integer { min: 1, max: 1_000_000 },
             default: Some("5"),
             doc: "restart an axis's track after this many outliers in a row",
         },
         ParamSpec {
             name: "fallback_sigma",
-            ty: ParamType::Number {
-                unit: Unit::Degrees,
-                min: 1e-9,
-                max: 180.0,
-            },
+            ty: ParamType::Number { unit: Unit::Degrees, min: 1e-9, max: 180.0 },
             default: Some("0.1 deg"),
             doc: "spread assumed for estimates that carry no usable sigma",
         },
@@ -107,15 +80,11 @@ pub const SPEC: BlockSpec = BlockSpec {
 
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let method = match p.text("method")? {
-        "kalman" => FilterMethod::Kalman {
-            accel_sigma: p.num("process_noise")?,
-        },
+        "kalman" => FilterMethod::Kalman { accel_sigma: p.num("process_noise")? },
         _ => {
             let (alpha, beta) = (p.num("alpha")?, p.num("beta")?);
             if beta >= 4.0 - 2.0 * alpha {
-                return Err(format!(
-                    "alpha {alpha} with beta {beta} is unstable (needs beta < 4 - 2 alpha)"
-                ));
+                return Err(format!("alpha {alpha} with beta {beta} is unstable (needs beta < 4 - 2 alpha)"));
             }
             FilterMethod::AlphaBeta { alpha, beta }
         }
@@ -125,12 +94,14 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let telemetry = if path.is_empty() {
         None
     } else {
-        let text = std::fs::read_to_string(&path)
-            .map_err(|e| format!("cannot read pointing file {path}: {e}"))?;
+        let text = std::fs::read_to_string(&path).map_err(|e| format!("cannot read pointing file {path}: {e}"))?;
         let t = Telemetry::parse(&text, &path)?;
         for (axis, column) in parse_key_values(p.text("axis_columns")?, "axis_columns")? {
             let col = t.column(&column).ok_or_else(|| {
-                format!("pointing file {path} has no column '{column}' (for axis '{axis}'); its columns: {}", t.columns().join(", "))
+                format!(
+                    "pointing file {path} has no column '{column}' (for axis '{axis}'); its columns: {}",
+                    t.columns().join(", ")
+                )
             })?;
             axis_columns.push((axis, col));
         }
@@ -181,23 +152,13 @@ impl Tracker {
             return Ok(i);
         }
         if self.axes.len() >= MAX_AXES {
-            return Err(BlockError::at(
-                format!("more than {MAX_AXES} axes (new axis '{}')", e.axis),
-                e.stamp.index,
-            ));
+            return Err(BlockError::at(format!("more than {MAX_AXES} axes (new axis '{}')", e.axis), e.stamp.index));
         }
-        let column = self
-            .axis_columns
-            .iter()
-            .find(|(a, _)| **a == *e.axis)
-            .map(|(_, c)| *c);
+        let column = self.axis_columns.iter().find(|(a, _)| **a == *e.axis).map(|(_, c)| *c);
         if self.telemetry.is_some() && column.is_none() {
             out.notice(
                 e.stamp,
-                format!(
-                    "axis '{}' has no pointing column (see axis_columns); no absolute angles",
-                    e.axis
-                ),
+                format!("axis '{}' has no pointing column (see axis_columns); no absolute angles", e.axis),
             );
         }
         self.axes.push(AxisTrack {
@@ -249,7 +210,9 @@ impl Block for Tracker {
                         let (a, b) = tel.span();
                         out.notice(
                             e.stamp,
-                            format!("estimate at {t:.3} s lies outside the pointing table ({a} to {b} s); no absolute angle"),
+                            format!(
+                                "estimate at {t:.3} s lies outside the pointing table ({a} to {b} s); no absolute angle"
+                            ),
                         );
                     }
                     self.outside_telemetry += 1;
@@ -265,10 +228,7 @@ impl Block for Tracker {
             let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
             out.notice(
                 at,
-                format!(
-                    "{} estimates lay outside the time span of {}",
-                    self.outside_telemetry, self.pointing_path
-                ),
+                format!("{} estimates lay outside the time span of {}", self.outside_telemetry, self.pointing_path),
             );
         }
         Ok(())

@@ -2,20 +2,14 @@
 #![allow(dead_code)]
 
 use lobeflow_blocks::dsp::rng::Rng;
-use lobeflow_blocks::{
-    Block, BlockSpec, BuildContext, Item, LobeTag, Outputs, Params, RawValue, SampleChunk, Stamp,
-};
+use lobeflow_blocks::{Block, BlockSpec, BuildContext, Item, LobeTag, Outputs, Params, RawValue, SampleChunk, Stamp};
 use num_complex::Complex32;
 use std::sync::Arc;
 
 /// Parameters from the kind's defaults with `set` applied, parsed like a graph file.
 pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     for (k, _) in set {
-        assert!(
-            spec.param(k).is_some(),
-            "{} has no parameter '{k}'",
-            spec.kind
-        );
+        assert!(spec.param(k).is_some(), "{} has no parameter '{k}'", spec.kind);
     }
     let mut p = Params::new();
     for ps in spec.params {
@@ -25,18 +19,13 @@ pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
             .map(|(_, v)| *v)
             .or(ps.default)
             .expect("test gives required params");
-        p.insert(
-            ps.name,
-            ps.parse(&RawValue::from_text(text))
-                .unwrap_or_else(|e| panic!("{}: {e}", ps.name)),
-        );
+        p.insert(ps.name, ps.parse(&RawValue::from_text(text)).unwrap_or_else(|e| panic!("{}: {e}", ps.name)));
     }
     p
 }
 
 pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Box<dyn Block> {
-    (spec.build)(&params(spec, set), &BuildContext::default())
-        .unwrap_or_else(|e| panic!("build: {e}"))
+    (spec.build)(&params(spec, set), &BuildContext::default()).unwrap_or_else(|e| panic!("build: {e}"))
 }
 
 /// Everything a block pushed (all ports) and the notice texts.
@@ -47,35 +36,23 @@ pub struct Run {
 
 pub fn run(block: &mut dyn Block, items: impl IntoIterator<Item = Item>) -> Run {
     let mut out = Outputs::new(4);
-    let mut r = Run {
-        items: Vec::new(),
-        notices: Vec::new(),
-    };
+    let mut r = Run { items: Vec::new(), notices: Vec::new() };
     let take = |out: &mut Outputs, r: &mut Run| {
         r.items.extend(out.drain().map(|(_, i)| i));
         r.notices.extend(out.drain_notices().map(|n| n.what));
     };
     for item in items {
-        block
-            .process(0, item, &mut out)
-            .unwrap_or_else(|e| panic!("process: {e}"));
+        block.process(0, item, &mut out).unwrap_or_else(|e| panic!("process: {e}"));
         take(&mut out, &mut r);
     }
-    block
-        .finish(&mut out)
-        .unwrap_or_else(|e| panic!("finish: {e}"));
+    block.finish(&mut out).unwrap_or_else(|e| panic!("finish: {e}"));
     take(&mut out, &mut r);
     r
 }
 
 pub fn tag(lobe: usize, dwell: u64, dwell_start: u64) -> LobeTag {
     let name: Arc<str> = Arc::from(if lobe == 0 { "right" } else { "left" });
-    LobeTag {
-        lobe,
-        name,
-        dwell,
-        dwell_start,
-    }
+    LobeTag { lobe, name, dwell, dwell_start }
 }
 
 /// Sample weights of a box echo `len` samples long starting at fractional
@@ -90,10 +67,5 @@ pub fn noise(rng: &mut Rng, n: usize, power: f64) -> Vec<Complex32> {
 }
 
 pub fn chunk(index: u64, rate: f64, iq: Vec<Complex32>) -> SampleChunk {
-    SampleChunk {
-        stamp: Stamp::new(index, rate),
-        iq: iq.into(),
-        sync: None,
-        trigger: None,
-    }
+    SampleChunk { stamp: Stamp::new(index, rate), iq: iq.into(), sync: None, trigger: None }
 }

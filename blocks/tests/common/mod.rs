@@ -3,8 +3,7 @@
 #![allow(dead_code)]
 
 use lobeflow_blocks::{
-    Block, BlockSpec, BuildContext, DwellRecord, Item, LobeTag, Notice, Outputs, Params, RawValue,
-    Stamp,
+    Block, BlockSpec, BuildContext, DwellRecord, Item, LobeTag, Notice, Outputs, Params, RawValue, Stamp,
 };
 use std::sync::Arc;
 
@@ -12,23 +11,13 @@ use std::sync::Arc;
 /// checked by its declaration like a graph file value.
 pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     for (name, _) in set {
-        assert!(
-            spec.param(name).is_some(),
-            "{} has no parameter {name}",
-            spec.kind
-        );
+        assert!(spec.param(name).is_some(), "{} has no parameter {name}", spec.kind);
     }
     let mut p = Params::new();
     for ps in spec.params {
-        let raw = set
-            .iter()
-            .find(|(n, _)| *n == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default);
+        let raw = set.iter().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
         let raw = raw.unwrap_or_else(|| panic!("test must set required parameter {}", ps.name));
-        let v = ps
-            .parse(&RawValue::from_text(raw))
-            .unwrap_or_else(|e| panic!("{}: {e}", ps.name));
+        let v = ps.parse(&RawValue::from_text(raw)).unwrap_or_else(|e| panic!("{}: {e}", ps.name));
         p.insert(ps.name, v);
     }
     p
@@ -39,10 +28,7 @@ pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Result<Box<dyn Block>, S
 }
 
 /// Feed `items` to port 0, then finish; returns the outputs and notices.
-pub fn run(
-    block: &mut dyn Block,
-    items: impl IntoIterator<Item = Item>,
-) -> (Vec<Item>, Vec<Notice>) {
+pub fn run(block: &mut dyn Block, items: impl IntoIterator<Item = Item>) -> (Vec<Item>, Vec<Notice>) {
     let mut out = Outputs::new(4);
     let mut items_out = Vec::new();
     let mut notices = Vec::new();
@@ -60,21 +46,9 @@ pub fn run(
 pub const RATE: f64 = 1.0e6;
 
 /// A dwell record of lobe `name` centred at sample `mid`.
-pub fn dwell(
-    name: &str,
-    count: u64,
-    mid: u64,
-    amplitude: f64,
-    var_ln_amp: f64,
-    snr: f64,
-) -> DwellRecord {
+pub fn dwell(name: &str, count: u64, mid: u64, amplitude: f64, var_ln_amp: f64, snr: f64) -> DwellRecord {
     DwellRecord {
-        tag: LobeTag {
-            lobe: 0,
-            name: Arc::from(name),
-            dwell: count,
-            dwell_start: mid.saturating_sub(500),
-        },
+        tag: LobeTag { lobe: 0, name: Arc::from(name), dwell: count, dwell_start: mid.saturating_sub(500) },
         mid: Stamp::new(mid, RATE),
         amplitude,
         noise_power: 1.0,
