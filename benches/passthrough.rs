@@ -5,9 +5,12 @@
 //! `cargo bench --bench passthrough` (set LOBEFLOW_BENCH_GIB to change the
 //! size). Prints MS/s of both, their ratio, and the peak resident set.
 
-use std::io::{Read, Write};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
+
+mod common;
+use common::{peak_rss_kib, plain_read, reset_peak_rss};
 
 fn main() {
     let gib: f64 = std::env::var("LOBEFLOW_BENCH_GIB").ok().and_then(|v| v.parse().ok()).unwrap_or(1.0);
@@ -33,8 +36,7 @@ fn main() {
         let t = Instant::now();
         plain_read(&data);
         best_read = best_read.min(t.elapsed().as_secs_f64());
-        // Linux: writing 5 to clear_refs resets the peak resident set.
-        let _ = std::fs::write("/proc/self/clear_refs", "5");
+        reset_peak_rss();
         let t = Instant::now();
         let mut s = lobeflow::Session::open(&graph).expect("graph loads");
         s.out_dir(dir.join("out"));
@@ -70,29 +72,4 @@ fn make_capture(path: &Path, bytes: u64) {
         written += buf.len() as u64;
     }
     f.flush().expect("flush");
-}
-
-/// The baseline: read the file sequentially in 1 MiB blocks and touch the bytes.
-fn plain_read(path: &Path) -> u64 {
-    let mut f = std::fs::File::open(path).expect("open");
-    let mut buf = vec![0u8; 1 << 20];
-    let mut acc = 0u64;
-    loop {
-        let n = f.read(&mut buf).expect("read");
-        if n == 0 {
-            break;
-        }
-        acc = acc.wrapping_add(buf[..n].iter().step_by(4096).map(|&b| b as u64).sum::<u64>());
-    }
-    std::hint::black_box(acc)
-}
-
-fn peak_rss_kib() -> u64 {
-    std::fs::read_to_string("/proc/self/status")
-        .unwrap_or_default()
-        .lines()
-        .find(|l| l.starts_with("VmHWM:"))
-        .and_then(|l| l.split_whitespace().nth(1))
-        .and_then(|v| v.parse().ok())
-        .unwrap_or(0)
 }

@@ -7,9 +7,11 @@
 //! Prints MS/s, the ratio to the plain read and the peak resident set of
 //! each run (the peak is reset between runs).
 
-use std::io::Read;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
+
+mod common;
+use common::{peak_rss_kib, plain_read, reset_peak_rss};
 
 fn main() {
     let gib: f64 = std::env::var("LOBEFLOW_BENCH_GIB").ok().and_then(|v| v.parse().ok()).unwrap_or(1.0);
@@ -94,33 +96,4 @@ fn best_of(n: usize, mut f: impl FnMut()) -> (f64, u64) {
         rss = rss.max(peak_rss_kib());
     }
     (best, rss)
-}
-
-fn plain_read(path: &Path) -> u64 {
-    let mut f = std::fs::File::open(path).expect("open");
-    let mut buf = vec![0u8; 1 << 20];
-    let mut acc = 0u64;
-    loop {
-        let n = f.read(&mut buf).expect("read");
-        if n == 0 {
-            break;
-        }
-        acc = acc.wrapping_add(buf[..n].iter().step_by(4096).map(|&b| b as u64).sum::<u64>());
-    }
-    std::hint::black_box(acc)
-}
-
-/// Linux: writing 5 to clear_refs resets the peak resident set (VmHWM).
-fn reset_peak_rss() {
-    let _ = std::fs::write("/proc/self/clear_refs", "5");
-}
-
-fn peak_rss_kib() -> u64 {
-    std::fs::read_to_string("/proc/self/status")
-        .unwrap_or_default()
-        .lines()
-        .find(|l| l.starts_with("VmHWM:"))
-        .and_then(|l| l.split_whitespace().nth(1))
-        .and_then(|v| v.parse().ok())
-        .unwrap_or(0)
 }

@@ -4,6 +4,7 @@
 
 use super::accum::{BinWindow, LobeAverages, SweepAverage, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
+use lobeflow_blocks::dsp::discriminator::{LobePair, parse_pairs};
 use lobeflow_blocks::{
     Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
     PortSpec,
@@ -67,41 +68,6 @@ pub const SPEC: BlockSpec = BlockSpec {
 
 const WIDTH: u32 = 1200;
 const HEIGHT: u32 = 640;
-
-/// One lobe pair: axis name, the lobe on the positive side, the negative one.
-#[derive(Clone, Debug, PartialEq)]
-pub struct LobePair {
-    pub axis: String,
-    pub positive: String,
-    pub negative: String,
-}
-
-/// Read `az=right/left, el=up/down`.
-pub fn parse_pairs(text: &str) -> Result<Vec<LobePair>, String> {
-    let mut pairs: Vec<LobePair> = Vec::new();
-    for (i, part) in text.split(',').map(str::trim).filter(|p| !p.is_empty()).enumerate() {
-        let (axis, lobes) =
-            part.split_once('=').ok_or_else(|| format!("pair {} '{part}': expected axis=positive/negative", i + 1))?;
-        let (pos, neg) = lobes
-            .split_once('/')
-            .ok_or_else(|| format!("pair {} '{part}': expected two lobes as positive/negative", i + 1))?;
-        let (axis, pos, neg) = (axis.trim(), pos.trim(), neg.trim());
-        if axis.is_empty() || pos.is_empty() || neg.is_empty() || neg.contains('/') {
-            return Err(format!("pair {} '{part}': expected axis=positive/negative", i + 1));
-        }
-        if pos == neg {
-            return Err(format!("pair {} '{part}': a lobe cannot pair with itself", i + 1));
-        }
-        if pairs.iter().any(|p| p.axis == axis) {
-            return Err(format!("axis '{axis}' is given twice"));
-        }
-        pairs.push(LobePair { axis: axis.into(), positive: pos.into(), negative: neg.into() });
-    }
-    if pairs.is_empty() {
-        return Err("no lobe pairs given (expected e.g. az=right/left)".into());
-    }
-    Ok(pairs)
-}
 
 /// How far apart the two traces of a pair are drawn.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -183,7 +149,7 @@ impl Block for SplitPair {
             return Ok(());
         };
         let name: &str = &tag.name;
-        if self.pairs.iter().any(|p| p.positive == name || p.negative == name) {
+        if self.pairs.iter().any(|p| p.plus == name || p.minus == name) {
             let params = &self.params;
             self.averages.add(name, tag.lobe, &sweep, |s| SplitPair::window(params, s))?;
         }
@@ -193,8 +159,8 @@ impl Block for SplitPair {
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         let mut panels = Vec::new();
         for pair in &self.pairs {
-            let a = self.averages.get(&pair.positive);
-            let b = self.averages.get(&pair.negative);
+            let a = self.averages.get(&pair.plus);
+            let b = self.averages.get(&pair.minus);
             let gate = match self.averages.window() {
                 Some(w) => {
                     let width = self.params.bins_at("gate_width", w.rate)?;
@@ -316,8 +282,8 @@ fn draw_panel<DB: DrawingBackend>(
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(v), b.max(v)));
     let (x0, x1) = if x.0 < x.1 { x } else { (0.0, 1.0) };
     let caption = match panel.balance {
-        Some(b) => format!("{}: {} − {} = {:+.2} dB", p.axis, p.positive, p.negative, b),
-        None => format!("{}: {} / {} — no balance", p.axis, p.positive, p.negative),
+        Some(b) => format!("{}: {} − {} = {:+.2} dB", p.axis, p.plus, p.minus, b),
+        None => format!("{}: {} / {} — no balance", p.axis, p.plus, p.minus),
     };
     let (y0, y1) = (lo, hi + offset);
     let mut ch = chart(cell, &caption, x0..x1, y0..y1)?;
@@ -335,16 +301,16 @@ fn draw_panel<DB: DrawingBackend>(
             palette::lobe(0).stroke_width(2),
         ))
         .map_err(draw_err)?;
-        entries.push((palette::lobe(0), format!("{} +{:.1} dB ({n})", p.positive, offset)));
+        entries.push((palette::lobe(0), format!("{} +{:.1} dB ({n})", p.plus, offset)));
     }
     if let Some((n, pts)) = &panel.b {
         ch.draw_series(LineSeries::new(pts.iter().map(|&(x, y)| (x, clip(y))), palette::lobe(1).stroke_width(2)))
             .map_err(draw_err)?;
-        entries.push((palette::lobe(1), format!("{} ({n})", p.negative)));
+        entries.push((palette::lobe(1), format!("{} ({n})", p.minus)));
     }
     if entries.is_empty() {
         ch.draw_series(std::iter::once(Text::new(
-            format!("no sweeps of {} or {}", p.positive, p.negative),
+            format!("no sweeps of {} or {}", p.plus, p.minus),
             (x0 + 0.05 * (x1 - x0), y0 + 0.5 * (y1 - y0)),
             text_style(15.0, palette::MUTED),
         )))
@@ -358,16 +324,6 @@ fn draw_panel<DB: DrawingBackend>(
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn pairs_parse_and_explain_mistakes() {
-        let p = parse_pairs("az=right/left, el=up/down").unwrap();
-        assert_eq!(p[1], LobePair { axis: "el".into(), positive: "up".into(), negative: "down".into() });
-        assert!(parse_pairs("az=right").unwrap_err().contains("positive/negative"));
-        assert!(parse_pairs("az=a/a").unwrap_err().contains("itself"));
-        assert!(parse_pairs("az=a/b, az=c/d").unwrap_err().contains("twice"));
-        assert!(parse_pairs(" , ").is_err());
-    }
 
     #[test]
     fn separation_in_db_or_fraction() {
