@@ -49,6 +49,12 @@ pub const SPEC: BlockSpec = BlockSpec {
 const WIDTH: u32 = 1200;
 /// Most lobe rows; more lobes are counted, not drawn.
 const MAX_ROWS: usize = 16;
+/// A gate's routine report of a switch (its wording in `lobe_gate` and
+/// `sweep_gate`), as opposed to an irregularity.
+fn is_routine(what: &str) -> bool {
+    what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
+}
+
 /// Most notices marked; later ones are counted.
 const MAX_NOTICES: usize = 200;
 
@@ -182,6 +188,9 @@ impl Block for LobeTimeline {
                     );
                 }
             }
+            // The gates also report every switch instant; the bars already
+            // show those, so only irregularities are marked.
+            Item::Notice(n) if is_routine(&n.what) => {}
             Item::Notice(n) => {
                 let within = limit.is_none_or(|l| start < l)
                     && !(t.truncated && start > t.segment_bars.last().map_or(start, |b| b.end));
