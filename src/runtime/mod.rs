@@ -61,18 +61,22 @@ pub struct Tap {
 }
 
 struct TapBlock {
-    sender: Sender<Item>,
+    /// Taken on drop, so the listener sees the channel closed before it is woken.
+    sender: Option<Sender<Item>>,
     waker: Option<Arc<AtomicWaker>>,
     cancel: Arc<AtomicBool>,
 }
 
 impl Block for TapBlock {
     fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
-        let sent = self.sender.send(item);
+        let sent = match &self.sender {
+            Some(s) => s.send(item).is_ok(),
+            None => false,
+        };
         if let Some(w) = &self.waker {
             w.wake();
         }
-        if sent.is_err() {
+        if !sent {
             // The listener went away: stop the run quietly.
             self.cancel.store(true, Ordering::SeqCst);
         }
@@ -82,6 +86,9 @@ impl Block for TapBlock {
 
 impl Drop for TapBlock {
     fn drop(&mut self) {
+        // Close the channel first: a listener woken while it is still open
+        // would find it empty, go back to sleep, and never hear the end.
+        drop(self.sender.take());
         if let Some(w) = &self.waker {
             w.wake();
         }
@@ -143,7 +150,7 @@ pub fn run(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Result<R
         setups.push(NodeSetup {
             name: format!("listener:{}", tap.port),
             kind: "listener".into(),
-            block: Box::new(TapBlock { sender: tap.sender, waker: tap.waker, cancel: Arc::clone(&opts.cancel) }),
+            block: Box::new(TapBlock { sender: Some(tap.sender), waker: tap.waker, cancel: Arc::clone(&opts.cancel) }),
             inputs: vec![Some(edges)],
             outputs: Vec::new(),
         });
