@@ -89,6 +89,12 @@ pub const SPEC: BlockSpec = BlockSpec {
             default: Some("0 dB"),
             doc: "weaker dwell's energy over noise below which a pair gives no number (flag no_signal)",
         },
+        ParamSpec {
+            name: "unbias",
+            ty: ParamType::Bool,
+            default: Some("true"),
+            doc: "remove the second-order bias of ln(amplitude) (it reads low by its own variance) before the ratio",
+        },
     ],
     build,
 };
@@ -136,6 +142,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         max_gap,
         edge_sigmas: p.num("edge_sigmas")?,
         min_snr_db: p.num("min_snr")?,
+        unbias: p.flag("unbias")?,
         unknown_lobes: BTreeSet::new(),
         unpaired: 0,
         last_stamp: None,
@@ -202,6 +209,7 @@ struct RatioDiscriminator {
     max_gap: Gap,
     edge_sigmas: f64,
     min_snr_db: f64,
+    unbias: bool,
     unknown_lobes: BTreeSet<String>,
     unpaired: u64,
     last_stamp: Option<Stamp>,
@@ -218,8 +226,12 @@ fn mid_stamp(a: Stamp, b: Stamp) -> Stamp {
 
 impl RatioDiscriminator {
     fn estimate(&self, slot: &PairSlot, plus: &DwellRecord, minus: &DwellRecord) -> AngleEstimate {
-        let a = plus.amplitude / slot.plus_gain;
-        let b = minus.amplitude / slot.minus_gain;
+        // To second order E[ln A_hat] = ln A - var(ln A_hat) for a noise-corrected
+        // amplitude (expand ln P_hat around P), so the weaker lobe's log reads
+        // low by more than the stronger's: put the expected shortfall back.
+        let unbias = |d: &DwellRecord| if self.unbias && d.var_ln_amp.is_finite() { d.var_ln_amp.exp() } else { 1.0 };
+        let a = plus.amplitude / slot.plus_gain * unbias(plus);
+        let b = minus.amplitude / slot.minus_gain * unbias(minus);
         let reading = read_pair(&self.model, self.signal, a, b, plus.var_ln_amp, minus.var_ln_amp, self.edge_sigmas);
         let range_m = match (plus.range_m, minus.range_m) {
             (Some(ra), Some(rb)) => Some(0.5 * (ra + rb)),
