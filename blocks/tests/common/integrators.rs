@@ -2,27 +2,14 @@
 #![allow(dead_code)]
 
 use lobeflow_blocks::dsp::rng::Rng;
-use lobeflow_blocks::{Block, BlockSpec, BuildContext, Item, LobeTag, Outputs, Params, RawValue, SampleChunk, Stamp};
+use lobeflow_blocks::{Block, BlockSpec, BuildContext, Item, LobeTag, Outputs, SampleChunk, Stamp};
 use num_complex::Complex32;
 use std::sync::Arc;
 
-/// Parameters from the kind's defaults with `set` applied, parsed like a graph file.
-pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    for (k, _) in set {
-        assert!(spec.param(k).is_some(), "{} has no parameter '{k}'", spec.kind);
-    }
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set
-            .iter()
-            .find(|(k, _)| *k == ps.name)
-            .map(|(_, v)| *v)
-            .or(ps.default)
-            .expect("test gives required params");
-        p.insert(ps.name, ps.parse(&RawValue::from_text(text)).unwrap_or_else(|e| panic!("{}: {e}", ps.name)));
-    }
-    p
-}
+// Parameters are made the same way for every block test.
+#[path = "mod.rs"]
+mod shared;
+pub use shared::params;
 
 pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Box<dyn Block> {
     (spec.build)(&params(spec, set), &BuildContext::default()).unwrap_or_else(|e| panic!("build: {e}"))
