@@ -77,6 +77,19 @@ impl Stamp {
     pub fn seconds(&self) -> f64 {
         self.index as f64 / self.rate
     }
+    /// The sample rate, or an error naming the block when it is not a
+    /// positive finite number (every rate-dependent block needs one).
+    pub fn checked_rate(&self, block: &str) -> Result<f64, crate::block::BlockError> {
+        if self.rate.is_finite() && self.rate > 0.0 {
+            Ok(self.rate)
+        } else {
+            Err(crate::block::BlockError::at(
+                format!("{block}: items carry a sample rate of {} S/s", self.rate),
+                self.index,
+            ))
+        }
+    }
+
     /// The stamp `n` samples later.
     pub fn after(&self, n: usize) -> Stamp {
         Stamp { index: self.index + n as u64, rate: self.rate }

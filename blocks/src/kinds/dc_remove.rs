@@ -50,13 +50,7 @@ impl Block for DcRemove {
         let Item::Samples(mut chunk) = item else {
             return Ok(());
         };
-        let rate = chunk.stamp.rate;
-        if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::at(
-                format!("dc_remove: chunk carries a sample rate of {rate} S/s"),
-                chunk.stamp.index,
-            ));
-        }
+        let rate = chunk.stamp.checked_rate("dc_remove")?;
         let a = match self.alpha {
             Some((r, a)) if r == rate => a,
             _ => {

@@ -40,13 +40,7 @@ impl Block for FrequencyShift {
         let Item::Samples(mut chunk) = item else {
             return Ok(());
         };
-        let rate = chunk.stamp.rate;
-        if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::at(
-                format!("frequency_shift: chunk carries a sample rate of {rate} S/s"),
-                chunk.stamp.index,
-            ));
-        }
+        let rate = chunk.stamp.checked_rate("frequency_shift")?;
         let cycles_per_sample = self.shift / rate;
         let step = TAU * cycles_per_sample;
         match self.next {

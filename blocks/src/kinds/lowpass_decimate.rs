@@ -87,13 +87,7 @@ impl LowpassDecimate {
     }
 
     fn open(&mut self, c: &SampleChunk, out: &mut Outputs) -> Result<Run, BlockError> {
-        let rate = c.stamp.rate;
-        if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::at(
-                format!("lowpass_decimate: chunk carries a sample rate of {rate} S/s"),
-                c.stamp.index,
-            ));
-        }
+        let rate = c.stamp.checked_rate("lowpass_decimate")?;
         if self.cutoff >= rate / 2.0 {
             return Err(BlockError::at(
                 format!("lowpass_decimate: cutoff {} Hz is not below half the input rate ({rate} S/s)", self.cutoff),

@@ -309,13 +309,7 @@ impl Block for ToneDwell {
                 seg.chunk.stamp.index,
             ));
         }
-        let rate = seg.chunk.stamp.rate;
-        if !(rate.is_finite() && rate > 0.0) {
-            return Err(BlockError::at(
-                format!("tone_dwell: segment carries a sample rate of {rate} S/s"),
-                seg.chunk.stamp.index,
-            ));
-        }
+        seg.chunk.stamp.checked_rate("tone_dwell")?;
         self.add(&seg, out);
         if seg.dwell_end {
             self.close(out)?;
