@@ -1,6 +1,7 @@
 //! Graph files: reading them, settling knobs, expanding composites and
 //! checking everything before a sample flows.
 
+mod checks;
 pub mod error;
 pub mod file;
 pub mod locate;
