@@ -235,7 +235,9 @@ impl PulseFramer {
                         self.trig_max = t[..n].iter().copied().filter(|v| v.is_finite()).fold(self.trig_max, f32::max);
                     }
                 }
-                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| self.noise.push(x.norm_sqr())),
+                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| {
+                    self.noise.push(x.norm_sqr());
+                }),
                 Mode::Schedule => {}
             }
         }
@@ -271,10 +273,13 @@ impl PulseFramer {
         if self.mode == Mode::Schedule {
             self.scan_schedule(start, len, out);
         } else {
+            let by_trigger = self.mode == Mode::Trigger && trigger.is_some();
+            // The leakage threshold changes only when the noise floor does.
+            let mut leak_limit = self.leak_limit();
             for k in 0..len {
                 let n = start + k as u64;
                 let above = match &trigger {
-                    Some(t) if self.mode == Mode::Trigger => {
+                    Some(t) if by_trigger => {
                         let v = t[k];
                         if n >= warm_end && v.is_finite() {
                             self.trig_max = self.trig_max.max(v);
@@ -283,12 +288,21 @@ impl PulseFramer {
                     }
                     _ => {
                         let p = chunk.iq[k].norm_sqr();
-                        if n >= warm_end {
-                            self.noise.push(p);
+                        if n >= warm_end && self.noise.push(p) {
+                            leak_limit = self.leak_limit();
                         }
-                        self.noise.ready() && p as f64 > self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE)
+                        p as f64 > leak_limit
                     }
                 };
+                if !above && !self.prev_above && self.rise.is_none() {
+                    // Between pulses: only a missing pulse can happen here.
+                    if let Some((l, _)) = self.last
+                        && n - l > gap
+                    {
+                        self.instant(l + pri.round() as u64, true, out);
+                    }
+                    continue;
+                }
                 let edge = above && !self.prev_above;
                 self.prev_above = above;
                 if let Some(rise) = &mut self.rise {
@@ -322,6 +336,11 @@ impl PulseFramer {
             }
         }
         Ok(())
+    }
+
+    /// Power over which a sample is transmit leakage (never, before the floor is known).
+    fn leak_limit(&self) -> f64 {
+        if self.noise.ready() { self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE) } else { f64::INFINITY }
     }
 
     fn not_found(&self, end: u64) -> BlockError {
@@ -414,9 +433,19 @@ impl PulseFramer {
             self.pending.iter().filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from).collect();
         let Some(first) = parts.first() else { return };
         let whole = parts.len() == 1 && first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to;
-        let (mut iq, sync) = if whole {
+        let zero = Complex32::new(0.0, 0.0);
+        let (iq, sync) = if whole {
             let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
-            (first.iq.slice(r.clone()), first.sync.as_ref().map(|y| y.slice(r)))
+            let iq = if blank > 0 {
+                // Blanking writes to the samples: the sweep needs its own copy.
+                let mut copy = first.iq[r.clone()].to_vec();
+                let blanked = blank.min(copy.len());
+                copy[..blanked].fill(zero);
+                Span::new(copy)
+            } else {
+                first.iq.slice(r.clone())
+            };
+            (iq, first.sync.as_ref().map(|y| y.slice(r)))
         } else {
             let mut iq: Vec<Complex32> = Vec::with_capacity((to - from) as usize);
             let mut sync: Option<Vec<f32>> = parts.iter().all(|c| c.sync.is_some()).then(Vec::new);
@@ -429,14 +458,11 @@ impl PulseFramer {
                     v.extend_from_slice(&y[r]);
                 }
             }
+            let blanked = blank.min(iq.len());
+            iq[..blanked].fill(zero);
             (Span::new(iq), sync.map(Span::new))
         };
         let blanked = blank.min(iq.len());
-        if blanked > 0 {
-            let mut copy = iq.to_vec();
-            copy[..blanked].iter_mut().for_each(|x| *x = Complex32::new(0.0, 0.0));
-            iq = Span::new(copy);
-        }
         out.push(
             0,
             Item::Sweep(Sweep {
