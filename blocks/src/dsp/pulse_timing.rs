@@ -1,6 +1,7 @@
 //! Pieces of transmit-instant detection shared by framing blocks: a running
 //! noise-floor estimate of power, robust to strong short pulses.
 
+use num_complex::Complex32;
 use std::collections::VecDeque;
 
 /// Samples per block whose median power makes one floor reading.
@@ -15,9 +16,11 @@ const FLOOR_BLOCKS: usize = 16;
 /// Leakage pulses and echoes fill a small part of each block and barely
 /// move the median.
 pub struct NoiseFloor {
-    /// The block being filled, as integer keys in `f32::total_cmp` order
-    /// (integer selection is cheaper, and picks the very same value).
-    block: Vec<i32>,
+    /// The block being filled (`filled` of it), as integer keys in
+    /// `f32::total_cmp` order (integer selection is cheaper, and picks the
+    /// very same value).
+    block: Box<[i32; FLOOR_BLOCK]>,
+    filled: usize,
     medians: VecDeque<f32>,
     floor: f64,
 }
@@ -31,7 +34,8 @@ fn total_order_key(bits: i32) -> i32 {
 impl Default for NoiseFloor {
     fn default() -> Self {
         NoiseFloor {
-            block: Vec::with_capacity(FLOOR_BLOCK),
+            block: Box::new([0; FLOOR_BLOCK]),
+            filled: 0,
             medians: VecDeque::with_capacity(FLOOR_BLOCKS),
             floor: 0.0,
         }
@@ -45,8 +49,9 @@ impl NoiseFloor {
         if !power.is_finite() {
             return false;
         }
-        self.block.push(total_order_key(power.to_bits() as i32));
-        if self.block.len() == FLOOR_BLOCK {
+        self.block[self.filled] = total_order_key(power.to_bits() as i32);
+        self.filled += 1;
+        if self.filled == FLOOR_BLOCK {
             self.close_block();
             return true;
         }
@@ -57,7 +62,7 @@ impl NoiseFloor {
     fn close_block(&mut self) {
         let (_, m, _) = self.block.select_nth_unstable(FLOOR_BLOCK / 2);
         let m = f32::from_bits(total_order_key(*m) as u32);
-        self.block.clear();
+        self.filled = 0;
         if self.medians.len() == FLOOR_BLOCKS {
             self.medians.pop_front();
         }
@@ -69,6 +74,28 @@ impl NoiseFloor {
         }
         sorted.sort_unstable_by(f32::total_cmp);
         self.floor = sorted[sorted.len() / 2] as f64 / std::f64::consts::LN_2;
+    }
+
+    /// Push the powers |x|^2 of `samples` up to the first one over `limit`
+    /// (which is left out), stopping short of completing a block, so the
+    /// floor does not move. Returns how many samples were taken; each was
+    /// pushed exactly as [`Self::push`] would.
+    #[inline]
+    pub fn push_below(&mut self, samples: &[Complex32], limit: f64) -> usize {
+        let mut filled = self.filled;
+        let mut taken = 0;
+        for x in samples {
+            let p = x.norm_sqr();
+            if filled + 1 >= FLOOR_BLOCK || p as f64 > limit {
+                break;
+            }
+            // Non-finite powers are skipped, as in `push` (branch-free).
+            self.block[filled] = total_order_key(p.to_bits() as i32);
+            filled += p.is_finite() as usize;
+            taken += 1;
+        }
+        self.filled = filled;
+        taken
     }
 
     /// Mean noise power per sample; 0 until a first block is complete.
@@ -138,5 +165,40 @@ mod tests {
             }
         }
         assert!(f.ready() && f.power() != 0.0);
+    }
+
+    #[test]
+    fn pushing_below_a_limit_matches_single_pushes() {
+        let mut rng = Rng::new(21);
+        let samples: Vec<Complex32> = (0..(9 * FLOOR_BLOCK + 77))
+            .map(|n| match n % 331 {
+                0 => Complex32::new(f32::NAN, 0.0),
+                1 => Complex32::new(30.0, 0.0), // over the limit
+                _ => rng.complex_gaussian(1.0),
+            })
+            .collect();
+        let limit = 100.0;
+        let (mut bulk, mut single) = (NoiseFloor::default(), NoiseFloor::default());
+        let mut at = 0;
+        let mut stops = 0;
+        while at < samples.len() {
+            let taken = bulk.push_below(&samples[at..], limit);
+            for x in &samples[at..at + taken] {
+                assert!(!single.push(x.norm_sqr()), "a block completed inside a bulk push");
+            }
+            at += taken;
+            if at < samples.len() {
+                // Where the bulk push stopped: a sample over the limit or the block's last slot.
+                let p = samples[at].norm_sqr();
+                let over = p as f64 > limit;
+                let moved = bulk.push(p);
+                assert_eq!(moved, single.push(p));
+                assert!(over || moved, "stopped at sample {at} for no reason");
+                stops += 1;
+                at += 1;
+            }
+            assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "sample {at}");
+        }
+        assert!(bulk.ready() && stops > 9);
     }
 }

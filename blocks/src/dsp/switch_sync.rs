@@ -347,7 +347,13 @@ impl SyncTracker {
                 let here = self.levels[self.current];
                 let radius = self.quiet_radius[self.current];
                 let until = self.stuck_from().saturating_sub(index).min(values.len() as u64) as usize;
-                while k < until && (values[k] as f64 - here).abs() <= radius {
+                let inside = |v: f32| (v as f64 - here).abs() <= radius;
+                // Whole blocks first (a branch-free test the compiler vectorises), then single samples.
+                const BLOCK: usize = 16;
+                while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
+                    k += BLOCK;
+                }
+                while k < until && inside(values[k]) {
                     k += 1;
                 }
                 if k == values.len() {

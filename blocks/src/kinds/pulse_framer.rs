@@ -276,7 +276,20 @@ impl PulseFramer {
             let by_trigger = self.mode == Mode::Trigger && trigger.is_some();
             // The leakage threshold changes only when the noise floor does.
             let mut leak_limit = self.leak_limit();
-            for k in 0..len {
+            let mut next = 0;
+            while next < len {
+                if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
+                    // Between pulses: take the run of samples under the threshold in
+                    // one go, up to where a missing pulse would be predicted.
+                    let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
+                    let until = (gap_at.saturating_sub(start).min(len as u64) as usize).max(next);
+                    next += self.noise.push_below(&chunk.iq[next..until], leak_limit);
+                    if next == len {
+                        break;
+                    }
+                }
+                let k = next;
+                next += 1;
                 let n = start + k as u64;
                 let above = match &trigger {
                     Some(t) if by_trigger => {
