@@ -62,7 +62,7 @@ pub enum StopReason {
 pub type ProgressFn = Arc<dyn Fn(u64, u64) + Send + Sync>;
 
 /// Items one step may take from a block's inputs.
-const MAX_BATCH: usize = 64;
+const MAX_BATCH: usize = 256;
 /// A batch stops growing once it holds this many samples (about one capture chunk).
 const MAX_BATCH_SAMPLES: usize = 1 << 16;
 

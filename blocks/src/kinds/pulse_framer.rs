@@ -8,6 +8,7 @@ use crate::item::{Item, ItemKind, SampleChunk, Span, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit};
 use num_complex::Complex32;
 use std::collections::VecDeque;
+use std::ops::Range;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "pulse_framer",
@@ -112,6 +113,8 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         missing_total: 0,
         next_scheduled: None,
         rise: None,
+        held: Vec::new(),
+        copies: Vec::new(),
         seen: 0,
         last_stamp: None,
     }))
@@ -189,6 +192,10 @@ struct PulseFramer {
     next_scheduled: Option<i64>,
     /// The leading edge of a leakage pulse being followed to its top.
     rise: Option<Rise>,
+    /// Sweeps cut in this step, handed on at its end.
+    held: Vec<HeldSweep>,
+    /// Blanked copies of this step's sweeps, one buffer for all of them.
+    copies: Vec<Complex32>,
     seen: u64,
     last_stamp: Option<Stamp>,
 }
@@ -393,7 +400,7 @@ impl PulseFramer {
     /// A transmit instant at `n`: close the open sweep and open a new one.
     fn instant(&mut self, n: u64, predicted: bool, out: &mut Outputs) {
         if let Some((from, was_predicted)) = self.last {
-            self.emit(from, n, was_predicted, out);
+            self.emit(from, n, was_predicted);
             self.pulse += 1;
         }
         if predicted {
@@ -438,31 +445,38 @@ impl PulseFramer {
         }
     }
 
-    /// Hand on the sweep `[from, to)` from the pending samples.
-    fn emit(&mut self, from: u64, to: u64, predicted: bool, out: &mut Outputs) {
+    /// Hand on the sweep `[from, to)` from the pending samples (held until
+    /// [`Self::release_held`], so blanked copies can share one buffer).
+    fn emit(&mut self, from: u64, to: u64, predicted: bool) {
         let Some(s) = self.setup.as_ref() else { return };
-        let (rate, blank) = (s.rate, s.blank);
-        let parts: Vec<&SampleChunk> =
-            self.pending.iter().filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from).collect();
-        let Some(first) = parts.first() else { return };
-        let whole = parts.len() == 1 && first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to;
+        let blank = s.blank;
+        let overlaps = |c: &&SampleChunk| c.stamp.index < to && c.stamp.index + c.len() as u64 > from;
+        let mut parts = self.pending.iter().filter(overlaps);
+        let Some(first) = parts.next() else { return };
+        let whole = first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to && parts.next().is_none();
         let zero = Complex32::new(0.0, 0.0);
         let (iq, sync) = if whole {
             let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
             let iq = if blank > 0 {
-                // Blanking writes to the samples: the sweep needs its own copy.
-                let mut copy = first.iq[r.clone()].to_vec();
-                let blanked = blank.min(copy.len());
-                copy[..blanked].fill(zero);
-                Span::new(copy)
+                // Blanking writes to the samples: the sweep needs its own copy,
+                // made in the buffer shared by this step's blanked sweeps.
+                if self.copies.capacity() == 0 {
+                    self.copies.reserve(first.len());
+                }
+                let at = self.copies.len();
+                self.copies.extend_from_slice(&first.iq[r.clone()]);
+                let blanked = blank.min(r.len());
+                self.copies[at..at + blanked].fill(zero);
+                HeldIq::Copied(at..self.copies.len())
             } else {
-                first.iq.slice(r.clone())
+                HeldIq::Ready(first.iq.slice(r.clone()))
             };
             (iq, first.sync.as_ref().map(|y| y.slice(r)))
         } else {
             let mut iq: Vec<Complex32> = Vec::with_capacity((to - from) as usize);
-            let mut sync: Option<Vec<f32>> = parts.iter().all(|c| c.sync.is_some()).then(Vec::new);
-            for c in &parts {
+            let mut sync: Option<Vec<f32>> =
+                self.pending.iter().filter(overlaps).all(|c| c.sync.is_some()).then(Vec::new);
+            for c in self.pending.iter().filter(overlaps) {
                 let a = from.max(c.stamp.index) - c.stamp.index;
                 let b = to.min(c.stamp.index + c.len() as u64) - c.stamp.index;
                 let r = a as usize..b as usize;
@@ -473,26 +487,70 @@ impl PulseFramer {
             }
             let blanked = blank.min(iq.len());
             iq[..blanked].fill(zero);
-            (Span::new(iq), sync.map(Span::new))
+            (HeldIq::Ready(Span::new(iq)), sync.map(Span::new))
         };
-        let blanked = blank.min(iq.len());
-        out.push(
-            0,
-            Item::Sweep(Sweep {
-                stamp: Stamp::new(from, rate),
-                pulse: self.pulse,
-                iq,
-                sync,
-                blanked,
-                predicted,
-                lobe: None,
-            }),
-        );
+        let blanked = blank.min((to - from) as usize);
+        self.held.push(HeldSweep { from, pulse: self.pulse, iq, sync, blanked, predicted });
+    }
+
+    /// Hand on the sweeps emitted so far, in order.
+    fn release_held(&mut self, out: &mut Outputs) {
+        let Some(rate) = self.setup.as_ref().map(|s| s.rate) else { return };
+        let mut copies: Option<Span<Complex32>> = None;
+        for h in self.held.drain(..) {
+            let iq = match h.iq {
+                HeldIq::Ready(span) => span,
+                HeldIq::Copied(r) => copies.get_or_insert_with(|| Span::new(std::mem::take(&mut self.copies))).slice(r),
+            };
+            out.push(
+                0,
+                Item::Sweep(Sweep {
+                    stamp: Stamp::new(h.from, rate),
+                    pulse: h.pulse,
+                    iq,
+                    sync: h.sync,
+                    blanked: h.blanked,
+                    predicted: h.predicted,
+                    lobe: None,
+                }),
+            );
+        }
     }
 }
 
+/// Where a held sweep's samples are.
+enum HeldIq {
+    /// A range of the shared buffer of blanked copies.
+    Copied(Range<usize>),
+    Ready(Span<Complex32>),
+}
+
+/// A sweep cut but not yet handed on.
+struct HeldSweep {
+    from: u64,
+    pulse: u64,
+    iq: HeldIq,
+    sync: Option<Span<f32>>,
+    blanked: usize,
+    predicted: bool,
+}
+
 impl Block for PulseFramer {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = self.take(port, item, out);
+        self.release_held(out);
+        result
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = self.flush(out);
+        self.release_held(out);
+        result
+    }
+}
+
+impl PulseFramer {
+    fn take(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Samples(chunk) = item else {
             return Ok(());
         };
@@ -515,7 +573,7 @@ impl Block for PulseFramer {
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+    fn flush(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         if !self.warmed && !self.warm_buf.is_empty() {
             self.warm_up(out)?;
         }
@@ -526,7 +584,7 @@ impl Block for PulseFramer {
             return Ok(());
         };
         match self.last {
-            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted, out),
+            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted),
             Some(_) => {}
             None if self.mode != Mode::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));
