@@ -226,6 +226,9 @@ pub struct SyncTracker {
     /// Per level: how far a value may sit from it and still be nearest to it,
     /// within the stray distance and short of every midpoint (fast path band).
     quiet_radius: Vec<f64>,
+    /// Row `c`, column `k`: the midpoint between levels `c` and `k`, and
+    /// whether `k` lies above `c` (the midpoint test of `step`).
+    midpoints: Vec<(f64, bool)>,
     stray_start: Option<u64>,
     stray_reported: bool,
     next_index: u64,
@@ -250,7 +253,14 @@ impl SyncTracker {
                 if r.is_finite() && r > 0.0 { r } else { -1.0 }
             })
             .collect();
+        let midpoints = (0..n * n)
+            .map(|ck| {
+                let (here, there) = (levels[ck / n], levels[ck % n]);
+                (0.5 * (here + there), there > here)
+            })
+            .collect();
         SyncTracker {
+            midpoints,
             expected: settings.expected_dwell,
             quiet_radius,
             margin: settings.hysteresis * spacing,
@@ -359,6 +369,32 @@ impl SyncTracker {
                 if k == values.len() {
                     break;
                 }
+            } else if self.started && self.pending != self.current && self.stray_start.is_none() {
+                // A new level is pending confirmation: while the value stays in its
+                // band only the midpoint crossings change, up to the confirming sample.
+                let there = self.levels[self.pending];
+                let radius = self.quiet_radius[self.pending];
+                let confirm_at = self.pending_since + self.settings.min_dwell.max(1) as u64 - 1;
+                let until = self.stuck_from().min(confirm_at).saturating_sub(index).min(values.len() as u64) as usize;
+                let lobes = self.levels.len();
+                let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
+                while k < until && (values[k] as f64 - there).abs() <= radius {
+                    let (n, v) = (index + k as u64, values[k] as f64);
+                    for (j, &(mid, up)) in row.iter().enumerate() {
+                        if j == self.current {
+                            continue;
+                        }
+                        let past = if up { v > mid } else { v < mid };
+                        if past && !self.past_mid[j] {
+                            self.crossed_at[j] = n;
+                        }
+                        self.past_mid[j] = past;
+                    }
+                    k += 1;
+                }
+                if k == values.len() {
+                    break;
+                }
             }
             self.step(index + k as u64, values[k] as f64);
             k += 1;
@@ -427,13 +463,13 @@ impl SyncTracker {
             self.pending = j;
             self.pending_since = n;
         }
-        let here = self.levels[self.current];
-        for k in 0..self.levels.len() {
+        let lobes = self.levels.len();
+        for k in 0..lobes {
             if k == self.current {
                 continue;
             }
-            let mid = 0.5 * (here + self.levels[k]);
-            let past = if self.levels[k] > here { v > mid } else { v < mid };
+            let (mid, up) = self.midpoints[self.current * lobes + k];
+            let past = if up { v > mid } else { v < mid };
             if past && !self.past_mid[k] {
                 self.crossed_at[k] = n;
             }
