@@ -84,7 +84,24 @@ impl NoiseFloor {
     pub fn push_below(&mut self, samples: &[Complex32], limit: f64) -> usize {
         let mut filled = self.filled;
         let mut taken = 0;
-        for x in samples {
+        // Eight at a time while all are finite and under the limit (the usual
+        // case; vectorised), then one at a time.
+        const LANES: usize = 8;
+        while taken + LANES <= samples.len() && filled + LANES < FLOOR_BLOCK {
+            let mut power = [0f32; LANES];
+            for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {
+                *p = x.norm_sqr();
+            }
+            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p as f64 <= limit)) {
+                break;
+            }
+            for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
+                *slot = total_order_key(p.to_bits() as i32);
+            }
+            filled += LANES;
+            taken += LANES;
+        }
+        for x in &samples[taken..] {
             let p = x.norm_sqr();
             if filled + 1 >= FLOOR_BLOCK || p as f64 > limit {
                 break;
