@@ -1,6 +1,7 @@
 //! Pieces of transmit-instant detection shared by framing blocks: a running
 //! noise-floor estimate of power, robust to strong short pulses.
 
+use num_complex::Complex32;
 use std::collections::VecDeque;
 
 /// Samples per block whose median power makes one floor reading.
@@ -15,15 +16,26 @@ const FLOOR_BLOCKS: usize = 16;
 /// Leakage pulses and echoes fill a small part of each block and barely
 /// move the median.
 pub struct NoiseFloor {
-    block: Vec<f32>,
+    /// The block being filled (`filled` of it), as integer keys in
+    /// `f32::total_cmp` order (integer selection is cheaper, and picks the
+    /// very same value).
+    block: Box<[i32; FLOOR_BLOCK]>,
+    filled: usize,
     medians: VecDeque<f32>,
     floor: f64,
+}
+
+/// `f32::total_cmp` order as a plain integer order; the map is its own inverse.
+#[inline]
+fn total_order_key(bits: i32) -> i32 {
+    bits ^ (((bits >> 31) as u32) >> 1) as i32
 }
 
 impl Default for NoiseFloor {
     fn default() -> Self {
         NoiseFloor {
-            block: Vec::with_capacity(FLOOR_BLOCK),
+            block: Box::new([0; FLOOR_BLOCK]),
+            filled: 0,
             medians: VecDeque::with_capacity(FLOOR_BLOCKS),
             floor: 0.0,
         }
@@ -31,23 +43,76 @@ impl Default for NoiseFloor {
 }
 
 impl NoiseFloor {
-    pub fn push(&mut self, power: f32) {
+    /// Add one power reading; true when it completed a block and the floor was updated.
+    #[inline]
+    pub fn push(&mut self, power: f32) -> bool {
         if !power.is_finite() {
-            return;
+            return false;
         }
-        self.block.push(power);
-        if self.block.len() == FLOOR_BLOCK {
-            let (_, m, _) = self.block.select_nth_unstable_by(FLOOR_BLOCK / 2, f32::total_cmp);
-            let m = *m;
-            self.block.clear();
-            if self.medians.len() == FLOOR_BLOCKS {
-                self.medians.pop_front();
+        self.block[self.filled] = total_order_key(power.to_bits() as i32);
+        self.filled += 1;
+        if self.filled == FLOOR_BLOCK {
+            self.close_block();
+            return true;
+        }
+        false
+    }
+
+    #[inline(never)]
+    fn close_block(&mut self) {
+        let (_, m, _) = self.block.select_nth_unstable(FLOOR_BLOCK / 2);
+        let m = f32::from_bits(total_order_key(*m) as u32);
+        self.filled = 0;
+        if self.medians.len() == FLOOR_BLOCKS {
+            self.medians.pop_front();
+        }
+        self.medians.push_back(m);
+        let mut sorted = [0f32; FLOOR_BLOCKS];
+        let sorted = &mut sorted[..self.medians.len()];
+        for (s, m) in sorted.iter_mut().zip(&self.medians) {
+            *s = *m;
+        }
+        sorted.sort_unstable_by(f32::total_cmp);
+        self.floor = sorted[sorted.len() / 2] as f64 / std::f64::consts::LN_2;
+    }
+
+    /// Push the powers |x|^2 of `samples` up to the first one over `limit`
+    /// (which is left out), stopping short of completing a block, so the
+    /// floor does not move. Returns how many samples were taken; each was
+    /// pushed exactly as [`Self::push`] would.
+    #[inline]
+    pub fn push_below(&mut self, samples: &[Complex32], limit: f64) -> usize {
+        let mut filled = self.filled;
+        let mut taken = 0;
+        // Eight at a time while all are finite and under the limit (the usual
+        // case; vectorised), then one at a time.
+        const LANES: usize = 8;
+        while taken + LANES <= samples.len() && filled + LANES < FLOOR_BLOCK {
+            let mut power = [0f32; LANES];
+            for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {
+                *p = x.norm_sqr();
             }
-            self.medians.push_back(m);
-            let mut sorted: Vec<f32> = self.medians.iter().copied().collect();
-            sorted.sort_unstable_by(f32::total_cmp);
-            self.floor = sorted[sorted.len() / 2] as f64 / std::f64::consts::LN_2;
+            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p as f64 <= limit)) {
+                break;
+            }
+            for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
+                *slot = total_order_key(p.to_bits() as i32);
+            }
+            filled += LANES;
+            taken += LANES;
         }
+        for x in &samples[taken..] {
+            let p = x.norm_sqr();
+            if filled + 1 >= FLOOR_BLOCK || p as f64 > limit {
+                break;
+            }
+            // Non-finite powers are skipped, as in `push` (branch-free).
+            self.block[filled] = total_order_key(p.to_bits() as i32);
+            filled += p.is_finite() as usize;
+            taken += 1;
+        }
+        self.filled = filled;
+        taken
     }
 
     /// Mean noise power per sample; 0 until a first block is complete.
@@ -78,5 +143,79 @@ mod tests {
             f.push(p);
         }
         assert!((f.power() - 2.0).abs() < 0.1, "{}", f.power());
+    }
+
+    #[test]
+    fn floor_is_the_median_of_block_medians_by_total_order() {
+        // The definition, by sorting with f32::total_cmp, on readings of
+        // mixed sign, zeros of both signs, subnormals and non-finite values
+        // (which are skipped).
+        let mut rng = Rng::new(9);
+        let mut f = NoiseFloor::default();
+        let mut block: Vec<f32> = Vec::new();
+        let mut medians: VecDeque<f32> = VecDeque::new();
+        for n in 0..(40 * FLOOR_BLOCK) {
+            let x = match n % 97 {
+                0 => f32::NAN,
+                1 => f32::INFINITY,
+                2 => -0.0,
+                3 => 0.0,
+                4 => f32::MIN_POSITIVE / 4.0,
+                _ => (1.0 + rng.gaussian() * 3.0) as f32,
+            };
+            let moved = f.push(x);
+            if x.is_finite() {
+                block.push(x);
+            }
+            assert_eq!(moved, block.len() == FLOOR_BLOCK, "sample {n}");
+            if block.len() == FLOOR_BLOCK {
+                block.sort_by(f32::total_cmp);
+                if medians.len() == FLOOR_BLOCKS {
+                    medians.pop_front();
+                }
+                medians.push_back(block[FLOOR_BLOCK / 2]);
+                block.clear();
+                let mut sorted: Vec<f32> = medians.iter().copied().collect();
+                sorted.sort_by(f32::total_cmp);
+                let want = sorted[sorted.len() / 2] as f64 / std::f64::consts::LN_2;
+                assert_eq!(f.power().to_bits(), want.to_bits(), "sample {n}");
+            }
+        }
+        assert!(f.ready() && f.power() != 0.0);
+    }
+
+    #[test]
+    fn pushing_below_a_limit_matches_single_pushes() {
+        let mut rng = Rng::new(21);
+        let samples: Vec<Complex32> = (0..(9 * FLOOR_BLOCK + 77))
+            .map(|n| match n % 331 {
+                0 => Complex32::new(f32::NAN, 0.0),
+                1 => Complex32::new(30.0, 0.0), // over the limit
+                _ => rng.complex_gaussian(1.0),
+            })
+            .collect();
+        let limit = 100.0;
+        let (mut bulk, mut single) = (NoiseFloor::default(), NoiseFloor::default());
+        let mut at = 0;
+        let mut stops = 0;
+        while at < samples.len() {
+            let taken = bulk.push_below(&samples[at..], limit);
+            for x in &samples[at..at + taken] {
+                assert!(!single.push(x.norm_sqr()), "a block completed inside a bulk push");
+            }
+            at += taken;
+            if at < samples.len() {
+                // Where the bulk push stopped: a sample over the limit or the block's last slot.
+                let p = samples[at].norm_sqr();
+                let over = p as f64 > limit;
+                let moved = bulk.push(p);
+                assert_eq!(moved, single.push(p));
+                assert!(over || moved, "stopped at sample {at} for no reason");
+                stops += 1;
+                at += 1;
+            }
+            assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "sample {at}");
+        }
+        assert!(bulk.ready() && stops > 9);
     }
 }

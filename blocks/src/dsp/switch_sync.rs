@@ -221,6 +221,14 @@ pub struct SyncTracker {
     dwell_from_switch: bool,
     stuck_reported: bool,
     history: VecDeque<u64>,
+    /// `expected_dwell` as of the last history change (it is read every sample).
+    expected: Option<f64>,
+    /// Per level: how far a value may sit from it and still be nearest to it,
+    /// within the stray distance and short of every midpoint (fast path band).
+    quiet_radius: Vec<f64>,
+    /// Row `c`, column `k`: the midpoint between levels `c` and `k`, and
+    /// whether `k` lies above `c` (the midpoint test of `step`).
+    midpoints: Vec<(f64, bool)>,
     stray_start: Option<u64>,
     stray_reported: bool,
     next_index: u64,
@@ -233,9 +241,30 @@ impl SyncTracker {
         let n = levels.len();
         let spacing = min_spacing(&levels);
         let min_dwell = settings.min_dwell.max(1) as u64;
+        let stray_distance = STRAY_FRACTION * spacing;
+        // 0.45 rather than 0.5 of the gap to each other level keeps the band
+        // clear of the midpoints whatever the rounding.
+        let quiet_radius = (0..n)
+            .map(|i| {
+                let r = (0..n)
+                    .filter(|&k| k != i)
+                    .map(|k| 0.45 * (levels[k] - levels[i]).abs())
+                    .fold(stray_distance, f64::min);
+                if r.is_finite() && r > 0.0 { r } else { -1.0 }
+            })
+            .collect();
+        let midpoints = (0..n * n)
+            .map(|ck| {
+                let (here, there) = (levels[ck / n], levels[ck % n]);
+                (0.5 * (here + there), there > here)
+            })
+            .collect();
         SyncTracker {
+            midpoints,
+            expected: settings.expected_dwell,
+            quiet_radius,
             margin: settings.hysteresis * spacing,
-            stray_distance: STRAY_FRACTION * spacing,
+            stray_distance,
             stray_limit: (min_dwell / 2).max(32),
             max_hold: min_dwell + min_dwell.max(4096),
             settings,
@@ -274,9 +303,40 @@ impl SyncTracker {
     }
 
     fn expected_dwell(&self) -> Option<f64> {
-        self.settings
+        self.expected
+    }
+
+    fn update_expected_dwell(&mut self) {
+        self.expected = self
+            .settings
             .expected_dwell
-            .or_else(|| if self.history.len() >= 3 { median(self.history.iter().copied()) } else { None })
+            .or_else(|| if self.history.len() >= 3 { median(self.history.iter().copied()) } else { None });
+    }
+
+    /// Nothing pending: the value sits at the current level, no other level's
+    /// midpoint is crossed and no stray run is open. A sample inside the
+    /// current level's quiet band then changes nothing but the stuck check.
+    fn quiet(&self) -> bool {
+        self.started && self.pending == self.current && self.stray_start.is_none() && !self.past_mid.contains(&true)
+    }
+
+    /// First sample index at which `check_stuck` could report (u64::MAX: never).
+    fn stuck_from(&self) -> u64 {
+        if self.stuck_reported {
+            return u64::MAX;
+        }
+        let Some(expected) = self.expected_dwell() else {
+            return u64::MAX;
+        };
+        let threshold = STUCK_DWELLS * expected;
+        if threshold.is_nan() || threshold >= 9.0e15 {
+            u64::MAX
+        } else if threshold < 0.0 {
+            0
+        } else {
+            // Smallest whole length strictly above the threshold.
+            self.dwell_start.saturating_add(threshold.floor() as u64 + 1)
+        }
     }
 
     fn irregular(&mut self, at: u64, kind: Irregularity, what: String) {
@@ -290,8 +350,54 @@ impl SyncTracker {
         if !self.started {
             self.settled_floor = index;
         }
-        for (k, &v) in values.iter().enumerate().skip(skip) {
-            self.step(index + k as u64, v as f64);
+        let mut k = skip;
+        while k < values.len() {
+            if self.quiet() {
+                // Fast path: skip the run of samples that stay in the current level's band.
+                let here = self.levels[self.current];
+                let radius = self.quiet_radius[self.current];
+                let until = self.stuck_from().saturating_sub(index).min(values.len() as u64) as usize;
+                let inside = |v: f32| (v as f64 - here).abs() <= radius;
+                // Whole blocks first (a branch-free test the compiler vectorises), then single samples.
+                const BLOCK: usize = 16;
+                while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
+                    k += BLOCK;
+                }
+                while k < until && inside(values[k]) {
+                    k += 1;
+                }
+                if k == values.len() {
+                    break;
+                }
+            } else if self.started && self.pending != self.current && self.stray_start.is_none() {
+                // A new level is pending confirmation: while the value stays in its
+                // band only the midpoint crossings change, up to the confirming sample.
+                let there = self.levels[self.pending];
+                let radius = self.quiet_radius[self.pending];
+                let confirm_at = self.pending_since + self.settings.min_dwell.max(1) as u64 - 1;
+                let until = self.stuck_from().min(confirm_at).saturating_sub(index).min(values.len() as u64) as usize;
+                let lobes = self.levels.len();
+                let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
+                while k < until && (values[k] as f64 - there).abs() <= radius {
+                    let (n, v) = (index + k as u64, values[k] as f64);
+                    for (j, &(mid, up)) in row.iter().enumerate() {
+                        if j == self.current {
+                            continue;
+                        }
+                        let past = if up { v > mid } else { v < mid };
+                        if past && !self.past_mid[j] {
+                            self.crossed_at[j] = n;
+                        }
+                        self.past_mid[j] = past;
+                    }
+                    k += 1;
+                }
+                if k == values.len() {
+                    break;
+                }
+            }
+            self.step(index + k as u64, values[k] as f64);
+            k += 1;
         }
         self.next_index = self.next_index.max(index + values.len() as u64);
         // Bound how far back a switch may still be placed, so callers hold bounded data.
@@ -303,6 +409,28 @@ impl SyncTracker {
             }
         }
         // Never move back: a later switch may not be placed before what callers already released.
+        self.settled_floor = self.settled();
+    }
+
+    /// `feed` without the fast path: the full step on every sample (the
+    /// reference the fast path is checked against).
+    #[cfg(test)]
+    fn feed_every_sample(&mut self, index: u64, values: &[f32]) {
+        let skip = self.next_index.saturating_sub(index).min(values.len() as u64) as usize;
+        if !self.started {
+            self.settled_floor = index;
+        }
+        for (k, &v) in values.iter().enumerate().skip(skip) {
+            self.step(index + k as u64, v as f64);
+        }
+        self.next_index = self.next_index.max(index + values.len() as u64);
+        let floor = self.next_index.saturating_sub(self.max_hold);
+        if floor > self.settled_floor {
+            self.settled_floor = floor;
+            for c in self.crossed_at.iter_mut() {
+                *c = (*c).max(floor);
+            }
+        }
         self.settled_floor = self.settled();
     }
 
@@ -335,13 +463,13 @@ impl SyncTracker {
             self.pending = j;
             self.pending_since = n;
         }
-        let here = self.levels[self.current];
-        for k in 0..self.levels.len() {
+        let lobes = self.levels.len();
+        for k in 0..lobes {
             if k == self.current {
                 continue;
             }
-            let mid = 0.5 * (here + self.levels[k]);
-            let past = if self.levels[k] > here { v > mid } else { v < mid };
+            let (mid, up) = self.midpoints[self.current * lobes + k];
+            let past = if up { v > mid } else { v < mid };
             if past && !self.past_mid[k] {
                 self.crossed_at[k] = n;
             }
@@ -403,6 +531,7 @@ impl SyncTracker {
             if self.history.len() > DWELL_HISTORY {
                 self.history.pop_front();
             }
+            self.update_expected_dwell();
         }
         let lobes = self.levels.len();
         let expected_next = (old + 1) % lobes;
@@ -733,6 +862,81 @@ mod tests {
         assert_eq!(events[0], SwitchEvent::Begin { at: 0, lobe: 0, switch_at: None });
         assert!(matches!(&events[1], SwitchEvent::Irregular { at: 1000, kind: Irregularity::Stray, .. }));
         assert_eq!(events[2], SwitchEvent::Switch { at: 2000, lobe: 1 });
+    }
+
+    /// A noisy four-level staircase with every irregularity the tracker
+    /// knows (glitches, values between levels, stray values, NaNs, a stuck
+    /// stretch, skipped lobes, a slow ramp), fed in uneven chunks.
+    fn rough_staircase(seed: u64, total: usize) -> Vec<f32> {
+        let mut rng = Rng::new(seed);
+        let level = |lobe: usize| -0.8 + 1.6 * lobe as f64 / 3.0;
+        let mut v = Vec::with_capacity(total);
+        let mut lobe = 0;
+        while v.len() < total {
+            let dwell = if rng.uniform() < 0.1 { 1500 + (rng.uniform() * 4000.0) as usize } else { 1000 };
+            lobe = (lobe + if rng.uniform() < 0.05 { 2 } else { 1 }) % 4;
+            let from = level((lobe + 3) % 4);
+            for k in 0..dwell {
+                // A short ramp at each switch, like a real sync line settling.
+                let x = if k < 6 { from + (level(lobe) - from) * k as f64 / 6.0 } else { level(lobe) };
+                v.push((x + 0.02 * rng.gaussian()) as f32);
+            }
+        }
+        v.truncate(total);
+        for _ in 0..40 {
+            let at = (rng.uniform() * (total - 300) as f64) as usize;
+            let len = 1 + (rng.uniform() * 120.0) as usize;
+            let what = rng.uniform();
+            for x in &mut v[at..at + len] {
+                *x = if what < 0.3 {
+                    f32::NAN
+                } else if what < 0.6 {
+                    (*x as f64 + 0.2) as f32 // towards a midpoint, maybe past the stray distance
+                } else {
+                    level((rng.uniform() * 4.0) as usize) as f32 // a glitch to another level
+                };
+            }
+        }
+        v
+    }
+
+    #[test]
+    fn fast_path_gives_the_same_events_and_settled_indices_as_every_sample_steps() {
+        for (seed, expected_dwell) in [(11, None), (12, Some(1000.0)), (13, None)] {
+            let settings = SyncSettings {
+                names: names(4),
+                learn: 0,
+                hysteresis: 0.2,
+                min_dwell: 20,
+                expected_dwell,
+                tolerance: 0.25,
+            };
+            let levels = vec![-0.8, -0.8 + 1.6 / 3.0, -0.8 + 3.2 / 3.0, 0.8];
+            let mut fast = SyncTracker::new(settings.clone(), levels.clone());
+            let mut reference = SyncTracker::new(settings, levels);
+            let v = rough_staircase(seed, 200_000);
+            let mut rng = Rng::new(seed + 100);
+            let (mut at, mut switches, mut notices) = (0usize, 0, 0);
+            while at < v.len() {
+                let len = (1 + (rng.uniform() * 3000.0) as usize).min(v.len() - at);
+                fast.feed(at as u64 + 5, &v[at..at + len]);
+                reference.feed_every_sample(at as u64 + 5, &v[at..at + len]);
+                assert_eq!(fast.settled(), reference.settled(), "seed {seed}, chunk at {at}");
+                loop {
+                    let (a, b) = (fast.pop_event(), reference.pop_event());
+                    assert_eq!(a, b, "seed {seed}, chunk at {at}");
+                    match a {
+                        None => break,
+                        Some(SwitchEvent::Switch { .. }) => switches += 1,
+                        Some(SwitchEvent::Irregular { .. }) => notices += 1,
+                        Some(SwitchEvent::Begin { .. }) => {}
+                    }
+                }
+                at += len;
+            }
+            // The staircase must exercise both paths: switches and irregularities.
+            assert!(switches > 100 && notices > 5, "seed {seed}: {switches} switches, {notices} notices");
+        }
     }
 
     #[test]

@@ -8,6 +8,7 @@ use crate::item::{Item, ItemKind, SampleChunk, Span, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit};
 use num_complex::Complex32;
 use std::collections::VecDeque;
+use std::ops::Range;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "pulse_framer",
@@ -112,6 +113,8 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         missing_total: 0,
         next_scheduled: None,
         rise: None,
+        held: Vec::new(),
+        copies: Vec::new(),
         seen: 0,
         last_stamp: None,
     }))
@@ -189,6 +192,10 @@ struct PulseFramer {
     next_scheduled: Option<i64>,
     /// The leading edge of a leakage pulse being followed to its top.
     rise: Option<Rise>,
+    /// Sweeps cut in this step, handed on at its end.
+    held: Vec<HeldSweep>,
+    /// Blanked copies of this step's sweeps, one buffer for all of them.
+    copies: Vec<Complex32>,
     seen: u64,
     last_stamp: Option<Stamp>,
 }
@@ -235,7 +242,9 @@ impl PulseFramer {
                         self.trig_max = t[..n].iter().copied().filter(|v| v.is_finite()).fold(self.trig_max, f32::max);
                     }
                 }
-                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| self.noise.push(x.norm_sqr())),
+                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| {
+                    self.noise.push(x.norm_sqr());
+                }),
                 Mode::Schedule => {}
             }
         }
@@ -271,10 +280,26 @@ impl PulseFramer {
         if self.mode == Mode::Schedule {
             self.scan_schedule(start, len, out);
         } else {
-            for k in 0..len {
+            let by_trigger = self.mode == Mode::Trigger && trigger.is_some();
+            // The leakage threshold changes only when the noise floor does.
+            let mut leak_limit = self.leak_limit();
+            let mut next = 0;
+            while next < len {
+                if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
+                    // Between pulses: take the run of samples under the threshold in
+                    // one go, up to where a missing pulse would be predicted.
+                    let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
+                    let until = (gap_at.saturating_sub(start).min(len as u64) as usize).max(next);
+                    next += self.noise.push_below(&chunk.iq[next..until], leak_limit);
+                    if next == len {
+                        break;
+                    }
+                }
+                let k = next;
+                next += 1;
                 let n = start + k as u64;
                 let above = match &trigger {
-                    Some(t) if self.mode == Mode::Trigger => {
+                    Some(t) if by_trigger => {
                         let v = t[k];
                         if n >= warm_end && v.is_finite() {
                             self.trig_max = self.trig_max.max(v);
@@ -283,12 +308,21 @@ impl PulseFramer {
                     }
                     _ => {
                         let p = chunk.iq[k].norm_sqr();
-                        if n >= warm_end {
-                            self.noise.push(p);
+                        if n >= warm_end && self.noise.push(p) {
+                            leak_limit = self.leak_limit();
                         }
-                        self.noise.ready() && p as f64 > self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE)
+                        p as f64 > leak_limit
                     }
                 };
+                if !above && !self.prev_above && self.rise.is_none() {
+                    // Between pulses: only a missing pulse can happen here.
+                    if let Some((l, _)) = self.last
+                        && n - l > gap
+                    {
+                        self.instant(l + pri.round() as u64, true, out);
+                    }
+                    continue;
+                }
                 let edge = above && !self.prev_above;
                 self.prev_above = above;
                 if let Some(rise) = &mut self.rise {
@@ -322,6 +356,11 @@ impl PulseFramer {
             }
         }
         Ok(())
+    }
+
+    /// Power over which a sample is transmit leakage (never, before the floor is known).
+    fn leak_limit(&self) -> f64 {
+        if self.noise.ready() { self.power_ratio * self.noise.power().max(f64::MIN_POSITIVE) } else { f64::INFINITY }
     }
 
     fn not_found(&self, end: u64) -> BlockError {
@@ -361,7 +400,7 @@ impl PulseFramer {
     /// A transmit instant at `n`: close the open sweep and open a new one.
     fn instant(&mut self, n: u64, predicted: bool, out: &mut Outputs) {
         if let Some((from, was_predicted)) = self.last {
-            self.emit(from, n, was_predicted, out);
+            self.emit(from, n, was_predicted);
             self.pulse += 1;
         }
         if predicted {
@@ -406,21 +445,38 @@ impl PulseFramer {
         }
     }
 
-    /// Hand on the sweep `[from, to)` from the pending samples.
-    fn emit(&mut self, from: u64, to: u64, predicted: bool, out: &mut Outputs) {
+    /// Hand on the sweep `[from, to)` from the pending samples (held until
+    /// [`Self::release_held`], so blanked copies can share one buffer).
+    fn emit(&mut self, from: u64, to: u64, predicted: bool) {
         let Some(s) = self.setup.as_ref() else { return };
-        let (rate, blank) = (s.rate, s.blank);
-        let parts: Vec<&SampleChunk> =
-            self.pending.iter().filter(|c| c.stamp.index < to && c.stamp.index + c.len() as u64 > from).collect();
-        let Some(first) = parts.first() else { return };
-        let whole = parts.len() == 1 && first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to;
-        let (mut iq, sync) = if whole {
+        let blank = s.blank;
+        let overlaps = |c: &&SampleChunk| c.stamp.index < to && c.stamp.index + c.len() as u64 > from;
+        let mut parts = self.pending.iter().filter(overlaps);
+        let Some(first) = parts.next() else { return };
+        let whole = first.stamp.index <= from && first.stamp.index + first.len() as u64 >= to && parts.next().is_none();
+        let zero = Complex32::new(0.0, 0.0);
+        let (iq, sync) = if whole {
             let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
-            (first.iq.slice(r.clone()), first.sync.as_ref().map(|y| y.slice(r)))
+            let iq = if blank > 0 {
+                // Blanking writes to the samples: the sweep needs its own copy,
+                // made in the buffer shared by this step's blanked sweeps.
+                if self.copies.capacity() == 0 {
+                    self.copies.reserve(first.len());
+                }
+                let at = self.copies.len();
+                self.copies.extend_from_slice(&first.iq[r.clone()]);
+                let blanked = blank.min(r.len());
+                self.copies[at..at + blanked].fill(zero);
+                HeldIq::Copied(at..self.copies.len())
+            } else {
+                HeldIq::Ready(first.iq.slice(r.clone()))
+            };
+            (iq, first.sync.as_ref().map(|y| y.slice(r)))
         } else {
             let mut iq: Vec<Complex32> = Vec::with_capacity((to - from) as usize);
-            let mut sync: Option<Vec<f32>> = parts.iter().all(|c| c.sync.is_some()).then(Vec::new);
-            for c in &parts {
+            let mut sync: Option<Vec<f32>> =
+                self.pending.iter().filter(overlaps).all(|c| c.sync.is_some()).then(Vec::new);
+            for c in self.pending.iter().filter(overlaps) {
                 let a = from.max(c.stamp.index) - c.stamp.index;
                 let b = to.min(c.stamp.index + c.len() as u64) - c.stamp.index;
                 let r = a as usize..b as usize;
@@ -429,31 +485,72 @@ impl PulseFramer {
                     v.extend_from_slice(&y[r]);
                 }
             }
-            (Span::new(iq), sync.map(Span::new))
+            let blanked = blank.min(iq.len());
+            iq[..blanked].fill(zero);
+            (HeldIq::Ready(Span::new(iq)), sync.map(Span::new))
         };
-        let blanked = blank.min(iq.len());
-        if blanked > 0 {
-            let mut copy = iq.to_vec();
-            copy[..blanked].iter_mut().for_each(|x| *x = Complex32::new(0.0, 0.0));
-            iq = Span::new(copy);
+        let blanked = blank.min((to - from) as usize);
+        self.held.push(HeldSweep { from, pulse: self.pulse, iq, sync, blanked, predicted });
+    }
+
+    /// Hand on the sweeps emitted so far, in order.
+    fn release_held(&mut self, out: &mut Outputs) {
+        let Some(rate) = self.setup.as_ref().map(|s| s.rate) else { return };
+        let mut copies: Option<Span<Complex32>> = None;
+        for h in self.held.drain(..) {
+            let iq = match h.iq {
+                HeldIq::Ready(span) => span,
+                HeldIq::Copied(r) => copies.get_or_insert_with(|| Span::new(std::mem::take(&mut self.copies))).slice(r),
+            };
+            out.push(
+                0,
+                Item::Sweep(Sweep {
+                    stamp: Stamp::new(h.from, rate),
+                    pulse: h.pulse,
+                    iq,
+                    sync: h.sync,
+                    blanked: h.blanked,
+                    predicted: h.predicted,
+                    lobe: None,
+                }),
+            );
         }
-        out.push(
-            0,
-            Item::Sweep(Sweep {
-                stamp: Stamp::new(from, rate),
-                pulse: self.pulse,
-                iq,
-                sync,
-                blanked,
-                predicted,
-                lobe: None,
-            }),
-        );
     }
 }
 
+/// Where a held sweep's samples are.
+enum HeldIq {
+    /// A range of the shared buffer of blanked copies.
+    Copied(Range<usize>),
+    Ready(Span<Complex32>),
+}
+
+/// A sweep cut but not yet handed on.
+struct HeldSweep {
+    from: u64,
+    pulse: u64,
+    iq: HeldIq,
+    sync: Option<Span<f32>>,
+    blanked: usize,
+    predicted: bool,
+}
+
 impl Block for PulseFramer {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = self.take(port, item, out);
+        self.release_held(out);
+        result
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = self.flush(out);
+        self.release_held(out);
+        result
+    }
+}
+
+impl PulseFramer {
+    fn take(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Samples(chunk) = item else {
             return Ok(());
         };
@@ -476,7 +573,7 @@ impl Block for PulseFramer {
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+    fn flush(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         if !self.warmed && !self.warm_buf.is_empty() {
             self.warm_up(out)?;
         }
@@ -487,7 +584,7 @@ impl Block for PulseFramer {
             return Ok(());
         };
         match self.last {
-            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted, out),
+            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted),
             Some(_) => {}
             None if self.mode != Mode::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));
