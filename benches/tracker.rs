@@ -66,7 +66,7 @@ fn main() {
 
 /// The reference graph without its picture blocks and their wires.
 fn without_pictures(text: &str, repo: &Path) -> String {
-    let pictures = ["angle_plot:", "circle:", "split:", "trace:", "timeline:"];
+    let pictures = ["angle_plot:", "circle:", "split:", "trace:", "timeline:", "thin:"];
     text.lines()
         .filter(|l| {
             let t = l.trim_start();
