@@ -5,5 +5,7 @@ pub mod gate;
 pub mod pulse_timing;
 pub mod rng;
 pub mod spectrum;
+pub mod switch_schedule;
 pub mod switch_sync;
+pub mod sync_levels;
 pub mod tracking;

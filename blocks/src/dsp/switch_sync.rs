@@ -10,6 +10,9 @@
 use std::collections::VecDeque;
 use std::sync::Arc;
 
+pub use super::switch_schedule::{ScheduleSettings, ScheduleTracker};
+pub use super::sync_levels::learn_levels;
+
 /// Kinds of irregularity, so callers can rate-limit each kind separately.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Irregularity {
@@ -66,16 +69,6 @@ pub struct SyncSettings {
     pub tolerance: f64,
 }
 
-/// Settings of a known switch schedule, in samples.
-#[derive(Clone, Debug)]
-pub struct ScheduleSettings {
-    pub names: Vec<Arc<str>>,
-    /// Sample position (may be fractional or negative) where lobe 0's dwell starts.
-    pub first_start: f64,
-    /// Dwell length in samples (may be fractional).
-    pub dwell: f64,
-}
-
 /// Upper bound of the learning window, so memory stays bounded.
 pub const MAX_LEARN_SAMPLES: usize = 1 << 22;
 /// A dwell longer than this many expected dwells means a stuck sync.
@@ -85,105 +78,7 @@ const DWELL_HISTORY: usize = 31;
 /// A value farther than this fraction of the level spacing from every level matches no lobe.
 const STRAY_FRACTION: f64 = 0.3;
 
-/// Learn `lobes` sync levels (ascending) from `values`.
-///
-/// Levels are the peaks of a smoothed histogram that are separated by a deep
-/// valley and hold a fair share of the samples; each is then refined to the
-/// mean of the samples within a quarter spacing of it.
-pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
-    const BINS: usize = 256;
-    let finite: Vec<f64> = values.iter().filter(|v| v.is_finite()).map(|&v| v as f64).collect();
-    if finite.len() < 16 {
-        return Err(format!("too few sync samples to learn the levels ({} usable); make 'learn' longer", finite.len()));
-    }
-    let lo = finite.iter().copied().fold(f64::INFINITY, f64::min);
-    let hi = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let flat_msg = |near: f64| {
-        format!(
-            "sync channel is flat in the learning window ({} samples, all near {near:.4}): no transitions, \
-             so no lobe levels to learn; check the channel map, or use timing: schedule",
-            finite.len()
-        )
-    };
-    if hi - lo <= 1e-6 * (1.0 + lo.abs().max(hi.abs())) {
-        return Err(flat_msg(lo));
-    }
-    let width = (hi - lo) / BINS as f64;
-    let bin_of = |v: f64| (((v - lo) / width) as usize).min(BINS - 1);
-    let mut counts = [0f64; BINS];
-    for &v in &finite {
-        counts[bin_of(v)] += 1.0;
-    }
-    let kernel = [1.0, 2.0, 3.0, 2.0, 1.0];
-    let smooth: Vec<f64> = (0..BINS)
-        .map(|i| {
-            kernel
-                .iter()
-                .enumerate()
-                .filter_map(|(k, w)| (i + k).checked_sub(2).filter(|&j| j < BINS).map(|j| w * counts[j]))
-                .sum::<f64>()
-                / 9.0
-        })
-        .collect();
-    let mut peaks: Vec<usize> = (0..BINS)
-        .filter(|&i| {
-            let left = if i == 0 { 0.0 } else { smooth[i - 1] };
-            let right = if i + 1 == BINS { 0.0 } else { smooth[i + 1] };
-            smooth[i] > left && smooth[i] >= right
-        })
-        .collect();
-    peaks.sort_by(|&a, &b| smooth[b].total_cmp(&smooth[a]));
-    let min_mass = (0.05 * finite.len() as f64 / lobes as f64).max(8.0);
-    let mass = |p: usize| counts[p.saturating_sub(3)..(p + 4).min(BINS)].iter().sum::<f64>();
-    let mut accepted: Vec<usize> = Vec::new();
-    for p in peaks {
-        if mass(p) < min_mass {
-            continue;
-        }
-        let distinct = accepted.iter().all(|&a| {
-            let (x, y) = (a.min(p), a.max(p));
-            let valley = smooth[x..=y].iter().copied().fold(f64::INFINITY, f64::min);
-            valley < 0.5 * smooth[a].min(smooth[p])
-        });
-        if distinct {
-            accepted.push(p);
-        }
-    }
-    accepted.sort_unstable();
-    let mut levels: Vec<f64> = accepted.iter().map(|&b| lo + (b as f64 + 0.5) * width).collect();
-    if levels.len() == 1 {
-        return Err(flat_msg(levels[0]));
-    }
-    if levels.len() != lobes {
-        let list: Vec<String> = levels.iter().map(|l| format!("{l:.3}")).collect();
-        return Err(format!(
-            "found {} sync levels in the learning window ({}), expected {lobes}, one per lobe; \
-             check the 'lobes' list, the sync channel, and that 'learn' covers a full lobe cycle",
-            levels.len(),
-            list.join(", ")
-        ));
-    }
-    for _ in 0..3 {
-        let spacing = min_spacing(&levels);
-        let mut refined = levels.clone();
-        for (r, &l) in refined.iter_mut().zip(&levels) {
-            let (mut sum, mut n) = (0.0, 0usize);
-            for &v in &finite {
-                if (v - l).abs() <= 0.25 * spacing {
-                    sum += v;
-                    n += 1;
-                }
-            }
-            if n > 0 {
-                *r = sum / n as f64;
-            }
-        }
-        levels = refined;
-    }
-    Ok(levels)
-}
-
-fn min_spacing(levels: &[f64]) -> f64 {
+pub(crate) fn min_spacing(levels: &[f64]) -> f64 {
     levels.windows(2).map(|w| (w[1] - w[0]).abs()).fold(f64::INFINITY, f64::min)
 }
 
@@ -576,80 +471,6 @@ impl SyncTracker {
                 );
             }
         }
-    }
-
-    pub fn pop_event(&mut self) -> Option<SwitchEvent> {
-        self.events.pop_front()
-    }
-}
-
-/// Switch instants of a known schedule: the dwell `m` starts at sample
-/// `ceil(first_start + m * dwell)` and belongs to lobe `m mod N`.
-pub struct ScheduleTracker {
-    settings: ScheduleSettings,
-    next_dwell: Option<i64>,
-    next_index: u64,
-    events: VecDeque<SwitchEvent>,
-}
-
-impl ScheduleTracker {
-    pub fn new(settings: ScheduleSettings) -> Result<ScheduleTracker, String> {
-        if settings.dwell.is_nan() || settings.dwell < 1.0 {
-            return Err(format!(
-                "schedule dwell is {:.3} samples; it must be at least one sample (set 'dwell')",
-                settings.dwell
-            ));
-        }
-        Ok(ScheduleTracker { settings, next_dwell: None, next_index: 0, events: VecDeque::new() })
-    }
-
-    /// First sample of dwell `m` (may be negative).
-    pub fn boundary(&self, m: i64) -> i64 {
-        (self.settings.first_start + m as f64 * self.settings.dwell).ceil() as i64
-    }
-
-    /// Lobe position of dwell `m`.
-    pub fn lobe_of(&self, m: i64) -> usize {
-        m.rem_euclid(self.settings.names.len() as i64) as usize
-    }
-
-    /// The dwell holding sample `n`.
-    pub fn dwell_of(&self, n: i64) -> i64 {
-        let mut m = ((n as f64 - self.settings.first_start) / self.settings.dwell).floor() as i64;
-        while self.boundary(m + 1) <= n {
-            m += 1;
-        }
-        while self.boundary(m) > n {
-            m -= 1;
-        }
-        m
-    }
-
-    pub fn feed(&mut self, index: u64, len: usize) {
-        let end = index + len as u64;
-        if len == 0 || end <= self.next_index {
-            return;
-        }
-        let next = match self.next_dwell {
-            Some(m) => m,
-            None => {
-                let m = self.dwell_of(index as i64);
-                self.events.push_back(SwitchEvent::Begin {
-                    at: index,
-                    lobe: self.lobe_of(m),
-                    switch_at: Some(self.boundary(m)),
-                });
-                m + 1
-            }
-        };
-        let mut m = next;
-        while self.boundary(m) < end as i64 {
-            let at = self.boundary(m).max(0) as u64;
-            self.events.push_back(SwitchEvent::Switch { at, lobe: self.lobe_of(m) });
-            m += 1;
-        }
-        self.next_dwell = Some(m);
-        self.next_index = end;
     }
 
     pub fn pop_event(&mut self) -> Option<SwitchEvent> {
