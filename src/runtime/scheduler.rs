@@ -9,7 +9,7 @@
 //! order (ties by port number), which is also independent of timing.
 //!
 //! A worker takes up to [`MAX_BATCH`] queued items of a block (at most about
-//! one capture chunk of samples) under one lock acquisition and runs them in
+//! four default capture chunks of samples) under one lock acquisition and runs them in
 //! order, so small items (sweeps, dwells) do not pay a lock round trip and a
 //! wake-up each; after delivering it picks its next block under the same lock.
 //! A sleeping worker is woken only when the ready work, at each block's recent
@@ -67,7 +67,7 @@ pub type ProgressFn = Arc<dyn Fn(u64, u64) + Send + Sync>;
 /// capture chunk, so a pulsed chain hands work between workers about once
 /// per chunk (64 measured slower on two workers: 2.5x the wake-ups).
 const MAX_BATCH: usize = 256;
-/// A batch stops growing once it holds this many samples (about one capture chunk).
+/// A batch stops growing once it holds this many samples (four default capture chunks).
 const MAX_BATCH_SAMPLES: usize = 1 << 16;
 /// A sleeping worker is woken only when it would save at least this much of
 /// the work ready now (see [`helper_gain`]): a wake-up, the sleep after it and
