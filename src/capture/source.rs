@@ -53,7 +53,9 @@ pub const SPEC: BlockSpec = BlockSpec {
         ParamSpec {
             name: "chunk",
             ty: ParamType::Integer { min: 1, max: 1 << 22 },
-            default: Some("65536"),
+            // Small enough that a chunk (read buffer, split channels) stays in
+            // the core's cache while the first blocks read it.
+            default: Some("16384"),
             doc: "samples per emitted chunk",
         },
         ParamSpec {

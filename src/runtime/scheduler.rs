@@ -9,9 +9,11 @@
 //! order (ties by port number), which is also independent of timing.
 //!
 //! A worker takes up to [`MAX_BATCH`] queued items of a block (at most about
-//! one capture chunk of samples) under one lock acquisition and runs them in
+//! four default capture chunks of samples) under one lock acquisition and runs them in
 //! order, so small items (sweeps, dwells) do not pay a lock round trip and a
 //! wake-up each; after delivering it picks its next block under the same lock.
+//! A sleeping worker is woken only when the ready work, at each block's recent
+//! cost per step, is enough to share; otherwise the awake one runs it alone.
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory
@@ -65,8 +67,13 @@ pub type ProgressFn = Arc<dyn Fn(u64, u64) + Send + Sync>;
 /// capture chunk, so a pulsed chain hands work between workers about once
 /// per chunk (64 measured slower on two workers: 2.5x the wake-ups).
 const MAX_BATCH: usize = 256;
-/// A batch stops growing once it holds this many samples (about one capture chunk).
+/// A batch stops growing once it holds this many samples (four default capture chunks).
 const MAX_BATCH_SAMPLES: usize = 1 << 16;
+/// A sleeping worker is woken only when it would save at least this much of
+/// the work ready now (see [`helper_gain`]): a wake-up, the sleep after it and
+/// items handed between cores cost microseconds, so sharing a pass-through
+/// (a 50 us capture read beside 0.1 us pass and discard steps) only loses time.
+const WAKE_WORTH: Duration = Duration::from_micros(3);
 
 struct Node {
     name: Arc<str>,
@@ -79,6 +86,8 @@ struct Node {
     out_edges: Vec<usize>,
     running: bool,
     done: bool,
+    /// Recent time per step (moving average); None before the first step.
+    step_cost: Option<Duration>,
     stats: BlockStats,
 }
 
@@ -145,6 +154,7 @@ pub fn run_nodes(
             outputs: s.outputs,
             running: false,
             done: false,
+            step_cost: None,
             stats: BlockStats { name: s.name, kind: s.kind, ..Default::default() },
         });
     }
@@ -218,9 +228,26 @@ fn pick(st: &mut State, capacity: usize, relax: bool, batch: &mut Vec<(usize, It
     None
 }
 
-/// True when some block could make progress (nothing is taken).
-fn any_ready(st: &State, capacity: usize) -> bool {
-    st.order.iter().any(|&i| ready(st, i, capacity))
+/// Time a second worker would save on the work ready now: the step just
+/// picked (`picked`) plus every other ready block's, at their recent cost per
+/// step. Alone one worker needs the sum; two need at least half of it and at
+/// least the longest step, so the gain is the smaller of (sum - longest) and
+/// half the sum. Quick blocks beside one long one (a pass and a discard
+/// beside a capture read) gain almost nothing, and waking a worker for them
+/// costs more than it saves.
+fn helper_gain(st: &State, picked: usize, capacity: usize) -> Duration {
+    // Before its first step a block's cost is unknown: assume it is worth sharing.
+    let cost = |i: usize| st.nodes[i].step_cost.unwrap_or(WAKE_WORTH * 4);
+    let mut sum = cost(picked);
+    let mut longest = sum;
+    for &i in &st.order {
+        if ready(st, i, capacity) {
+            let c = cost(i);
+            sum += c;
+            longest = longest.max(c);
+        }
+    }
+    (sum - longest).min(sum / 2)
 }
 
 fn ready(st: &State, i: usize, capacity: usize) -> bool {
@@ -311,8 +338,9 @@ fn worker(sh: &Shared) {
                 nd.running = true;
                 let block = nd.block.take().expect("a node not running holds its block");
                 st.running += 1;
-                // More work than this worker takes: hand it to a sleeping one.
-                if st.idle > 0 && any_ready(&st, sh.capacity) {
+                // More work than this worker takes, enough that sharing it
+                // pays for the wake-up: wake a sleeping one.
+                if st.idle > 0 && helper_gain(&st, i, sh.capacity) >= WAKE_WORTH {
                     sh.wake.notify_one();
                 }
                 break (i, step, block);
@@ -402,6 +430,7 @@ fn worker(sh: &Shared) {
         nd.stats.samples_in += samples_in;
         nd.stats.items_out += items_out;
         nd.stats.busy += busy;
+        nd.step_cost = Some(nd.step_cost.map_or(busy, |c| (c * 3 + busy) / 4));
         st.running -= 1;
         if finished {
             let State { nodes, edges, .. } = &mut *st;

@@ -273,19 +273,27 @@ impl SyncTracker {
                 let until = self.stuck_from().min(confirm_at).saturating_sub(index).min(values.len() as u64) as usize;
                 let lobes = self.levels.len();
                 let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
+                let run_start = k;
                 while k < until && (values[k] as f64 - there).abs() <= radius {
-                    let (n, v) = (index + k as u64, values[k] as f64);
-                    for (j, &(mid, up)) in row.iter().enumerate() {
-                        if j == self.current {
-                            continue;
-                        }
-                        let past = if up { v > mid } else { v < mid };
-                        if past && !self.past_mid[j] {
-                            self.crossed_at[j] = n;
-                        }
-                        self.past_mid[j] = past;
-                    }
                     k += 1;
+                }
+                // Each lobe's midpoint is independent of the others': one pass
+                // per lobe over the run keeps its state in registers.
+                for (j, &(mid, up)) in row.iter().enumerate() {
+                    if j == self.current {
+                        continue;
+                    }
+                    let (mut was_past, mut crossed) = (self.past_mid[j], self.crossed_at[j]);
+                    for (n, &v) in (index + run_start as u64..).zip(&values[run_start..k]) {
+                        let v = v as f64;
+                        let past = if up { v > mid } else { v < mid };
+                        if past && !was_past {
+                            crossed = n;
+                        }
+                        was_past = past;
+                    }
+                    self.past_mid[j] = was_past;
+                    self.crossed_at[j] = crossed;
                 }
                 if k == values.len() {
                     break;
