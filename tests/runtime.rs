@@ -67,10 +67,69 @@ impl Block for Digest {
     }
 }
 
+/// Keeps the indices of the first `keep` chunks, then wants no more input.
+struct FirstFew {
+    file: Option<OutputFile>,
+    files: FileStager,
+    keep: usize,
+    seen: Vec<u64>,
+}
+const FIRST_FEW: BlockSpec = BlockSpec {
+    kind: "first_few",
+    doc: "test: reads only the first chunks",
+    inputs: &[PortSpec::required("samples", ItemKind::Samples, "")],
+    outputs: &[],
+    params: &[ParamSpec { name: "path", ty: ParamType::OutputPath, default: Some("first.txt"), doc: "" }],
+    build: |p, ctx| {
+        let f = OutputFile::create(std::path::Path::new(p.text("path")?)).map_err(|e| e.to_string())?;
+        Ok(Box::new(FirstFew { file: Some(f), files: ctx.files.clone(), keep: 5, seen: Vec::new() }))
+    },
+};
+impl Block for FirstFew {
+    fn wants_input(&self) -> bool {
+        self.seen.len() < self.keep
+    }
+    fn process(&mut self, _: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+        if self.wants_input() {
+            self.seen.push(item.stamp().index);
+        }
+        Ok(())
+    }
+    fn finish(&mut self, _: &mut Outputs) -> Result<(), BlockError> {
+        let mut f = self.file.take().expect("open");
+        writeln!(f, "{:?}", self.seen)?;
+        f.finish(&self.files)?;
+        Ok(())
+    }
+}
+
 fn registry() -> Registry {
     let mut r = lobeflow::registry();
     r.register(DIGEST);
+    r.register(FIRST_FEW);
     r
+}
+
+#[test]
+fn a_block_that_has_enough_stops_receiving_and_outputs_stay_the_same() {
+    let d = dir("enough");
+    let g = d.join("g.yaml");
+    std::fs::write(
+        &g,
+        "blocks:\n  tone: {kind: test_tone, set: {samples: 2000000, chunk: 1000}}\n  few: {kind: first_few}\n  all: {kind: digest}\nwiring:\n  - tone -> few\n  - tone -> all\n",
+    )
+    .unwrap();
+    for threads in [1, 2, 4] {
+        let out = d.join(format!("out{threads}"));
+        let mut s = Session::with_registry(&g, registry()).unwrap();
+        s.out_dir(&out).threads(threads);
+        let report = s.run().unwrap();
+        assert_eq!(std::fs::read_to_string(out.join("first.txt")).unwrap(), "[0, 1000, 2000, 3000, 4000]\n");
+        let few = report.stats.iter().find(|b| b.name == "few").unwrap();
+        assert!(few.items_in < 1000, "threads {threads}: {} of 2000 chunks delivered", few.items_in);
+        let all = report.stats.iter().find(|b| b.name == "all").unwrap();
+        assert_eq!(all.items_in, 2000);
+    }
 }
 
 const BRANCHY: &str = "\

@@ -139,6 +139,15 @@ pub trait Block: Send {
         Ok(false)
     }
 
+    /// False once the block has all the input it will use (a picture of the
+    /// first seconds, say): the scheduler then stops delivering items to it,
+    /// and calls `finish` when its inputs end. A block must ignore any item
+    /// still handed to it after it said so, so its output does not depend on
+    /// how items were batched.
+    fn wants_input(&self) -> bool {
+        true
+    }
+
     /// Sources reading a file: (bytes done, bytes total), for progress bars.
     fn progress(&self) -> Option<(u64, u64)> {
         None

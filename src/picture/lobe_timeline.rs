@@ -155,7 +155,15 @@ impl LobeTimeline {
 }
 
 impl Block for LobeTimeline {
+    fn wants_input(&self) -> bool {
+        !self.timeline.truncated
+    }
+
     fn process(&mut self, port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        if self.timeline.truncated {
+            // The picture is full; what follows is not read (see wants_input).
+            return Ok(());
+        }
         let stamp = item.stamp();
         if !(stamp.rate > 0.0 && stamp.rate.is_finite()) {
             return Err(BlockError::at(
@@ -236,12 +244,7 @@ impl Picture for TimelinePicture<'_> {
             t.sweep_bars.len()
         );
         if t.truncated {
-            sub = format!(
-                "first {:.4} s of {:.4} s shown ({} more items left out); {sub}",
-                drawn_end - first,
-                t.last_s - first,
-                t.left_out
-            );
+            sub = format!("first {:.4} s shown (the rest of the capture is not read); {sub}", drawn_end - first);
         }
         let area = frame(root, "Lobe timeline", &sub)?;
         let (plot, notes) = area.split_vertically(area.dim_in_pixel().1 as i32 - 100);

@@ -94,6 +94,9 @@ struct Node {
 struct Edge {
     queue: VecDeque<Item>,
     closed: bool,
+    /// The consumer has all it needs (`Block::wants_input` turned false):
+    /// items for it are dropped instead of queued.
+    unwanted: bool,
 }
 
 struct State {
@@ -159,7 +162,7 @@ pub fn run_nodes(
         });
     }
     let order = downstream_first(&nodes, edge_count);
-    let edges = (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false }).collect();
+    let edges = (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false, unwanted: false }).collect();
     let shared = Arc::new(Shared {
         state: Mutex::new(State { nodes, edges, order, running: 0, idle: 0, done: 0, stop: None, notices: Vec::new() }),
         wake: Condvar::new(),
@@ -387,6 +390,7 @@ fn worker(sh: &Shared) {
         batch.clear();
         let busy = t0.elapsed();
         let progress = block.progress();
+        let satisfied = !block.wants_input();
 
         st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
         let finished = match result {
@@ -410,11 +414,15 @@ fn worker(sh: &Shared) {
             let State { nodes, edges, notices, .. } = &mut *st;
             let nd = &nodes[idx];
             for (port, item) in out.drain() {
-                if let Some((&last, others)) = nd.outputs[port].split_last() {
-                    for &e in others {
-                        edges[e].queue.push_back(item.clone());
+                let targets = &nd.outputs[port];
+                let last = targets.iter().rposition(|&e| !edges[e].unwanted);
+                if let Some(last) = last {
+                    for &e in &targets[..last] {
+                        if !edges[e].unwanted {
+                            edges[e].queue.push_back(item.clone());
+                        }
                     }
-                    edges[last].queue.push_back(item);
+                    edges[targets[last]].queue.push_back(item);
                 }
                 items_out += 1;
             }
@@ -432,6 +440,16 @@ fn worker(sh: &Shared) {
         nd.stats.busy += busy;
         nd.step_cost = Some(nd.step_cost.map_or(busy, |c| (c * 3 + busy) / 4));
         st.running -= 1;
+        if satisfied {
+            // Stop feeding a block that has what it needs; it still finishes
+            // when its inputs end. Which items it saw depends only on its
+            // own processing, so outputs stay independent of timing.
+            let State { nodes, edges, .. } = &mut *st;
+            for &(_, e) in &nodes[idx].wired {
+                edges[e].unwanted = true;
+                edges[e].queue.clear();
+            }
+        }
         if finished {
             let State { nodes, edges, .. } = &mut *st;
             nodes[idx].done = true;
