@@ -1,7 +1,7 @@
 //! Parameter handling and notice routing shared by `lobe_gate` and `sweep_gate`.
 
 use crate::block::Outputs;
-use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchSync, SyncSettings};
+use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
 use crate::item::{Item, Notice, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
 use std::sync::Arc;
@@ -97,6 +97,24 @@ impl NoticeRouter {
     }
 
     /// At finish: say how many notices were held back.
+    /// Report a switch event as both gates do: switch instants go to the
+    /// timeline port, irregularities to the person running the graph too.
+    pub fn report(&mut self, out: &mut Outputs, event: &SwitchEvent, names: &[Arc<str>], rate: f64) {
+        match event {
+            SwitchEvent::Begin { at, lobe, .. } => {
+                let what = format!("lobe {} active at the first sample {at}", names[*lobe]);
+                self.timeline(out, Stamp::new(*at, rate), what);
+            }
+            SwitchEvent::Switch { at, lobe } => {
+                let what = format!("switch to lobe {} at sample {at}", names[*lobe]);
+                self.timeline(out, Stamp::new(*at, rate), what);
+            }
+            SwitchEvent::Irregular { at, kind, what } => {
+                self.irregular(out, Stamp::new(*at, rate), *kind, what.clone())
+            }
+        }
+    }
+
     pub fn summarise(&mut self, out: &mut Outputs, stamp: Stamp) {
         for line in self.limiter.summary() {
             out.notice(stamp, line.clone());

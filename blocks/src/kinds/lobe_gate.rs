@@ -98,23 +98,16 @@ impl LobeGate {
         };
         let rate = self.pending.back().map_or(1.0, |c| c.stamp.rate);
         while let Some(event) = source.pop_event() {
+            self.router.report(out, &event, &self.cfg.names, rate);
             match event {
                 SwitchEvent::Begin { at, lobe, switch_at } => {
                     let start = switch_at.map_or(at, |s| s.max(0) as u64);
                     self.tag =
                         Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell: 0, dwell_start: start });
                     self.guard_until = switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64);
-                    let what = format!("lobe {} active at the first sample {at}", self.cfg.names[lobe]);
-                    self.router.timeline(out, Stamp::new(at, rate), what);
                 }
-                SwitchEvent::Switch { at, lobe } => {
-                    self.switches.push_back((at, lobe));
-                    let what = format!("switch to lobe {} at sample {at}", self.cfg.names[lobe]);
-                    self.router.timeline(out, Stamp::new(at, rate), what);
-                }
-                SwitchEvent::Irregular { at, kind, what } => {
-                    self.router.irregular(out, Stamp::new(at, rate), kind, what)
-                }
+                SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
+                SwitchEvent::Irregular { .. } => {}
             }
         }
     }

@@ -164,20 +164,13 @@ impl SweepGate {
         };
         let rate = self.pending.back().map_or(1.0, |s| s.stamp.rate);
         while let Some(event) = source.pop_event() {
+            self.router.report(out, &event, &self.cfg.names, rate);
             match event {
                 SwitchEvent::Begin { at, lobe, switch_at } => {
                     self.current = Some((lobe, switch_at.map_or(at, |s| s.max(0) as u64), switch_at));
-                    let what = format!("lobe {} active at the first sample {at}", self.cfg.names[lobe]);
-                    self.router.timeline(out, Stamp::new(at, rate), what);
                 }
-                SwitchEvent::Switch { at, lobe } => {
-                    self.switches.push_back((at, lobe));
-                    let what = format!("switch to lobe {} at sample {at}", self.cfg.names[lobe]);
-                    self.router.timeline(out, Stamp::new(at, rate), what);
-                }
-                SwitchEvent::Irregular { at, kind, what } => {
-                    self.router.irregular(out, Stamp::new(at, rate), kind, what)
-                }
+                SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
+                SwitchEvent::Irregular { .. } => {}
             }
         }
     }
