@@ -5,6 +5,7 @@
 //! picture stays readable and memory bounded.
 
 use super::{Picture, chart, draw_err, frame, padded, palette, text_style, write_picture};
+use lobeflow_blocks::kinds::gate_common::is_switch_report;
 use lobeflow_blocks::{
     Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
     PortSpec,
@@ -49,12 +50,6 @@ pub const SPEC: BlockSpec = BlockSpec {
 const WIDTH: u32 = 1200;
 /// Most lobe rows; more lobes are counted, not drawn.
 const MAX_ROWS: usize = 16;
-/// A gate's routine report of a switch (its wording in `lobe_gate` and
-/// `sweep_gate`), as opposed to an irregularity.
-fn is_routine(what: &str) -> bool {
-    what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
-}
-
 /// Most notices marked; later ones are counted.
 const MAX_NOTICES: usize = 200;
 
@@ -198,7 +193,7 @@ impl Block for LobeTimeline {
             }
             // The gates also report every switch instant; the bars already
             // show those, so only irregularities are marked.
-            Item::Notice(n) if is_routine(&n.what) => {}
+            Item::Notice(n) if is_switch_report(&n.what) => {}
             Item::Notice(n) => {
                 let within = limit.is_none_or(|l| start < l)
                     && !(t.truncated && start > t.segment_bars.last().map_or(start, |b| b.end));

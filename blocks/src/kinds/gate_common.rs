@@ -97,7 +97,7 @@ impl NoticeRouter {
     }
 
     /// At finish: say how many notices were held back.
-    /// Report a switch event as both gates do: switch instants go to the
+    /// Report a switch event as both gates do (see [`is_switch_report`]): switch instants go to the
     /// timeline port, irregularities to the person running the graph too.
     pub fn report(&mut self, out: &mut Outputs, event: &SwitchEvent, names: &[Arc<str>], rate: f64) {
         match event {
@@ -121,6 +121,13 @@ impl NoticeRouter {
             self.timeline(out, stamp, line);
         }
     }
+}
+
+/// Whether a notice text is a gate's routine report of a switch (written by
+/// [`NoticeRouter::report`]) rather than an irregularity; timelines draw the
+/// switches as bars and mark only the irregularities.
+pub fn is_switch_report(what: &str) -> bool {
+    what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
 }
 
 /// The parameters of both gates; `pulses` lets times be given in pulses.
