@@ -297,9 +297,8 @@ impl ParamSpec {
     /// expected (type, unit, range); the caller adds where.
     pub fn parse(&self, raw: &RawValue) -> Result<Value, String> {
         let v = match (&self.ty, raw) {
-            (ParamType::Number { unit, .. }, RawValue::Number(n)) => {
-                Value::Number(*n * if *unit == Unit::None { 1.0 } else { 1.0 })
-            }
+            // A bare number is in the canonical unit.
+            (ParamType::Number { .. }, RawValue::Number(n)) => Value::Number(*n),
             (ParamType::Number { unit, .. }, RawValue::Text(t)) => {
                 let (n, suffix) = split_number(t).ok_or_else(|| format!("expected a number, got '{t}'"))?;
                 if suffix.is_empty() {

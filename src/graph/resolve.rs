@@ -389,7 +389,6 @@ fn expand(
                         e
                     }
                 })?;
-                let (line, _) = locate(&src.text, &at);
                 let mut given = BTreeMap::new();
                 for (kname, raw) in &decl.set {
                     let pat = [key("blocks"), key(&decl.name), key("set"), key(kname)];
@@ -428,9 +427,8 @@ fn expand(
                 b.stack.pop();
                 let csrc = &child.source;
                 let mut inputs = Vec::new();
-                for (i, (pname, target)) in child.exposes.inputs.iter().enumerate() {
+                for (pname, target) in &child.exposes.inputs {
                     let pat = [key("exposes"), key("inputs"), key(pname)];
-                    let _ = i;
                     inputs.push((pname.clone(), input_end(&child_scope, target, None, csrc, &pat, b)?));
                 }
                 let mut outputs = Vec::new();
@@ -438,7 +436,6 @@ fn expand(
                     let pat = [key("exposes"), key("outputs"), key(pname)];
                     outputs.push((pname.clone(), output_end(&child_scope, target, csrc, &pat, b)?));
                 }
-                let _ = line;
                 scope.insert(decl.name.clone(), Local::Composite { inputs, outputs });
             }
         }
