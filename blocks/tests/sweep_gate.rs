@@ -147,6 +147,22 @@ fn sync_labels_truncates_at_switches_and_starts_mid_dwell() {
 }
 
 #[test]
+fn a_lead_cuts_that_much_more_before_each_switch() {
+    let total = 40_000;
+    let whole = capture(total);
+    let set = [SYNC_SET[0], SYNC_SET[1], SYNC_SET[2], ("lead", "7 samples")];
+    let (got, _, _) = run(&set, sweeps_of(&whole)).unwrap();
+    let (plain, _, _) = run(&SYNC_SET, sweeps_of(&whole)).unwrap();
+    assert_eq!(got.len(), plain.len());
+    for (a, b) in got.iter().zip(&plain) {
+        let cut_at_switch = b.iq.len() < (PRI as usize) && b.stamp.index + (b.iq.len() as u64) < total;
+        let want = if cut_at_switch { b.iq.len() - 7 } else { b.iq.len() };
+        assert_eq!(a.iq.len(), want, "sweep at {}", a.stamp.index);
+    }
+    assert_eq!(got[1].iq.len(), (PRI - LEAD - 7) as usize);
+}
+
+#[test]
 fn schedule_in_pulses_agrees_with_sync() {
     let total = 40_000;
     let whole = capture(total);

@@ -6,11 +6,31 @@ use super::gate_common::{GateConfig, NoticeRouter, gate_params};
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::switch_sync::{SwitchEvent, SwitchSync};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
-use crate::param::{ParamSpec, Params};
+use crate::param::{ParamSpec, ParamType, Params};
 use std::collections::VecDeque;
 use std::sync::Arc;
 
-const PARAMS: [ParamSpec; 9] = gate_params(true);
+/// The gates' parameters plus the cut before a switch, which only sweeps need.
+const PARAMS: [ParamSpec; 10] = {
+    let g = gate_params(true);
+    [
+        g[0],
+        g[1],
+        g[2],
+        g[3],
+        g[4],
+        g[5],
+        g[6],
+        g[7],
+        g[8],
+        ParamSpec {
+            name: "lead",
+            ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
+            default: Some("0 s"),
+            doc: "also cut this much before each switch instant: the sync edge's midpoint lags the switch, whose transient starts at once",
+        },
+    ]
+};
 
 /// Sweeps used to measure the pulse interval when a time is given in pulses.
 const PRI_SWEEPS: usize = 9;
@@ -35,6 +55,8 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
         router: NoticeRouter::new(&ctx.name, 1),
         source: None,
         guard: 0,
+        lead_param: p.clone(),
+        lead: 0,
         startup: Vec::new(),
         learned: 0,
         pending: VecDeque::new(),
@@ -56,6 +78,10 @@ struct SweepGate {
     router: NoticeRouter,
     source: Option<SwitchSync>,
     guard: u64,
+    /// Holds the `lead` time until the sample rate is known.
+    lead_param: Params,
+    /// Samples cut before each switch instant.
+    lead: u64,
     /// Sweeps held while the pulse interval or the sync levels are learned.
     startup: Vec<Sweep>,
     /// How many of `startup` went into the level learning.
@@ -110,6 +136,11 @@ impl SweepGate {
             let (source, guard) = self.cfg.source(first.rate, pri).map_err(|e| BlockError::at(e, first.index))?;
             self.source = Some(source);
             self.guard = guard;
+            self.lead = self
+                .lead_param
+                .samples_at("lead", first.rate, None)
+                .map_err(|e| BlockError::at(e, first.index))?
+                .round() as u64;
         }
         let Some(source) = self.source.as_mut() else {
             return Ok(());
@@ -200,9 +231,15 @@ impl SweepGate {
             self.dropped += 1;
             return;
         }
-        // Samples after a switch instant inside the sweep belong to no lobe.
+        // Samples after a switch instant inside the sweep (and `lead` before
+        // it) belong to no lobe.
         if let Some(&(at, _)) = self.switches.front() {
-            let keep = (at - start) as usize;
+            let cut = at.saturating_sub(self.lead);
+            if cut <= start {
+                self.dropped += 1;
+                return;
+            }
+            let keep = (cut - start) as usize;
             if keep < sweep.iq.len() {
                 sweep.iq = sweep.iq.slice(0..keep);
                 sweep.sync = sweep.sync.map(|s| s.slice(0..keep.min(s.len())));
