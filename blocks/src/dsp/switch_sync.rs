@@ -302,7 +302,12 @@ impl SyncTracker {
             self.step(index + k as u64, values[k] as f64);
             k += 1;
         }
-        self.next_index = self.next_index.max(index + values.len() as u64);
+        self.after_feed(index + values.len() as u64);
+    }
+
+    /// Bookkeeping after samples up to `end` were fed.
+    fn after_feed(&mut self, end: u64) {
+        self.next_index = self.next_index.max(end);
         // Bound how far back a switch may still be placed, so callers hold bounded data.
         let floor = self.next_index.saturating_sub(self.max_hold);
         if floor > self.settled_floor {
@@ -326,15 +331,7 @@ impl SyncTracker {
         for (k, &v) in values.iter().enumerate().skip(skip) {
             self.step(index + k as u64, v as f64);
         }
-        self.next_index = self.next_index.max(index + values.len() as u64);
-        let floor = self.next_index.saturating_sub(self.max_hold);
-        if floor > self.settled_floor {
-            self.settled_floor = floor;
-            for c in self.crossed_at.iter_mut() {
-                *c = (*c).max(floor);
-            }
-        }
-        self.settled_floor = self.settled();
+        self.after_feed(index + values.len() as u64);
     }
 
     /// Every sample before this index has its lobe decided.
