@@ -8,30 +8,85 @@
 use num_complex::Complex32;
 use std::fmt;
 use std::ops::{Deref, Range};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 
 /// A shared, immutable view of part of a sample buffer. Cloning is O(1).
 #[derive(Clone)]
 pub struct Span<T> {
-    data: Arc<Vec<T>>,
+    data: Arc<Buffer<T>>,
     range: Range<usize>,
+}
+
+/// The buffer behind spans, and the pool it goes back to when the last view
+/// of it is dropped.
+struct Buffer<T> {
+    vec: Vec<T>,
+    home: Option<Arc<BufferPool<T>>>,
+}
+
+impl<T> Drop for Buffer<T> {
+    fn drop(&mut self) {
+        if let Some(home) = self.home.take() {
+            home.put(std::mem::take(&mut self.vec));
+        }
+    }
+}
+
+/// Buffers a producer hands out in spans and gets back for refilling once
+/// every block is done with them, so a long capture runs on a few buffers
+/// (no allocation, and memory the cache has seen).
+pub struct BufferPool<T> {
+    free: Mutex<Vec<Vec<T>>>,
+    keep: usize,
+}
+
+impl<T> BufferPool<T> {
+    /// A pool holding at most `keep` idle buffers (more are freed).
+    pub fn new(keep: usize) -> Arc<Self> {
+        Arc::new(BufferPool { free: Mutex::new(Vec::with_capacity(keep)), keep })
+    }
+
+    /// An idle buffer, emptied (a new one when none is idle).
+    pub fn take(&self) -> Vec<T> {
+        let mut v = self.free.lock().unwrap_or_else(|e| e.into_inner()).pop().unwrap_or_default();
+        v.clear();
+        v
+    }
+
+    fn put(&self, v: Vec<T>) {
+        if v.capacity() == 0 {
+            return;
+        }
+        let mut free = self.free.lock().unwrap_or_else(|e| e.into_inner());
+        if free.len() < self.keep {
+            free.push(v);
+        }
+    }
 }
 
 impl<T> Span<T> {
     /// Take ownership of a buffer without copying it.
     pub fn new(data: Vec<T>) -> Self {
-        let len = data.len();
-        Span { data: Arc::new(data), range: 0..len }
+        Self::with_home(data, None)
     }
 
-    /// The whole buffer back, when no other view of it is alive (so a
-    /// producer can refill it instead of allocating a new one).
-    pub fn reclaim(self) -> Result<Vec<T>, Span<T>> {
-        if self.range.start != 0 || self.range.end != self.data.len() {
-            return Err(self);
-        }
-        let range = self.range;
-        Arc::try_unwrap(self.data).map_err(|data| Span { data, range })
+    /// Like [`Span::new`], and the buffer goes back to `pool` when the last
+    /// view of it is dropped.
+    pub fn pooled(data: Vec<T>, pool: &Arc<BufferPool<T>>) -> Self {
+        Self::with_home(data, Some(Arc::clone(pool)))
+    }
+
+    fn with_home(vec: Vec<T>, home: Option<Arc<BufferPool<T>>>) -> Self {
+        let len = vec.len();
+        Span { data: Arc::new(Buffer { vec, home }), range: 0..len }
+    }
+
+    /// The viewed samples for writing, when this is the only view of the
+    /// buffer (a block that is the sole reader of a chunk may then change it
+    /// in place instead of copying it).
+    pub fn get_mut(&mut self) -> Option<&mut [T]> {
+        let range = self.range.clone();
+        Arc::get_mut(&mut self.data).map(|b| &mut b.vec[range])
     }
 
     /// A sub-view, relative to this view. Panics if out of bounds, like slicing.
@@ -44,7 +99,7 @@ impl<T> Span<T> {
 impl<T> Deref for Span<T> {
     type Target = [T];
     fn deref(&self) -> &[T] {
-        &self.data[self.range.clone()]
+        &self.data.vec[self.range.clone()]
     }
 }
 
@@ -329,5 +384,30 @@ impl Item {
             Item::Segment(s) => s.chunk.len(),
             _ => 0,
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_buffer_goes_back_to_its_pool_after_its_last_view() {
+        let pool = BufferPool::new(2);
+        let mut v = pool.take();
+        v.extend([1.0f32, 2.0, 3.0]);
+        let ptr = v.as_ptr();
+        let mut span = Span::pooled(v, &pool);
+        span.get_mut().expect("the only view")[0] = 5.0;
+        let part = span.slice(1..3);
+        assert!(span.get_mut().is_none(), "a second view exists");
+        drop(span);
+        assert_eq!(&part[..], &[2.0, 3.0]);
+        drop(part);
+        let again = pool.take();
+        assert_eq!((again.as_ptr(), again.len()), (ptr, 0), "the same buffer, emptied");
+        // Without a pool a buffer is simply freed.
+        let plain = Span::new(vec![1u8]);
+        drop(plain);
     }
 }

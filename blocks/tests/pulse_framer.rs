@@ -57,6 +57,26 @@ fn capture(transmitted: &[u64], total: u64, seed: u64) -> SampleChunk {
 }
 
 fn run(set: &[(&str, &str)], whole: &SampleChunk, sizes: &[usize]) -> Result<(Vec<Sweep>, Vec<Notice>), BlockError> {
+    run_chunks(set, whole, sizes, |c| c)
+}
+
+/// A copy of `c` in buffers of its own: the framer is then its only reader.
+fn owned(c: SampleChunk) -> SampleChunk {
+    SampleChunk {
+        stamp: c.stamp,
+        iq: c.iq.to_vec().into(),
+        sync: c.sync.map(|s| s.to_vec().into()),
+        trigger: c.trigger.map(|s| s.to_vec().into()),
+    }
+}
+
+/// Feed `whole` in chunks of `sizes` (cycled), each passed through `prepare`.
+fn run_chunks(
+    set: &[(&str, &str)],
+    whole: &SampleChunk,
+    sizes: &[usize],
+    prepare: impl Fn(SampleChunk) -> SampleChunk,
+) -> Result<(Vec<Sweep>, Vec<Notice>), BlockError> {
     let mut block = (pulse_framer::SPEC.build)(&params(set), &BuildContext::default()).expect("builds");
     let mut out = Outputs::new(1);
     let (mut sweeps, mut notices) = (Vec::new(), Vec::new());
@@ -72,7 +92,7 @@ fn run(set: &[(&str, &str)], whole: &SampleChunk, sizes: &[usize]) -> Result<(Ve
     let (mut at, mut k) = (0, 0);
     while at < whole.len() {
         let n = sizes[k % sizes.len()].min(whole.len() - at);
-        block.process(0, Item::Samples(whole.slice(at..at + n)), &mut out)?;
+        block.process(0, Item::Samples(prepare(whole.slice(at..at + n))), &mut out)?;
         collect(&mut out);
         at += n;
         k += 1;
@@ -163,6 +183,42 @@ fn chunking_does_not_change_sweeps_and_one_chunk_is_zero_copy() {
         }
     }
     assert_eq!(a.iter().map(|s| s.stamp.index).collect::<Vec<_>>(), truth);
+}
+
+#[test]
+fn leakage_blanked_in_place_matches_blanked_copies() {
+    // A chunk the framer alone reads is blanked in place; one shared with
+    // another reader is copied first. Both give the same sweeps, and the
+    // shared capture is left as it was.
+    let total = 30_000;
+    let mut sent = instants(90, 6.0, total, 11);
+    sent.remove(31); // a predicted instant too
+    let whole = capture(&sent, total, 12);
+    let before = whole.iq.to_vec();
+    let set = [("prf", "2 kHz"), ("blank", "6 us")];
+    for sizes in [&[4096usize][..], &[1, 499, 501], &[250, 7, 4000]] {
+        let (copied, _) = run_chunks(&set, &whole, sizes, |c| c).unwrap();
+        let buffers = std::cell::RefCell::new(Vec::new());
+        let (in_place, _) = run_chunks(&set, &whole, sizes, |c| {
+            let c = owned(c);
+            buffers.borrow_mut().push(c.iq.as_ptr_range());
+            c
+        })
+        .unwrap();
+        if sizes == [4096] {
+            // No copy for sweeps inside one chunk.
+            let buffers = buffers.borrow();
+            let shared = in_place.iter().filter(|s| buffers.iter().any(|b| b.contains(&s.iq.as_ptr()))).count();
+            assert!(shared * 10 > in_place.len() * 8, "{shared} of {} sweeps in the chunks' buffers", in_place.len());
+        }
+        assert_eq!(copied.len(), in_place.len());
+        for (x, y) in copied.iter().zip(&in_place) {
+            assert_eq!((x.stamp, x.pulse, x.predicted, x.blanked), (y.stamp, y.pulse, y.predicted, y.blanked));
+            assert_eq!(&x.iq[..], &y.iq[..], "sweep {}", x.pulse);
+        }
+        check_tiling(&in_place, &whole, 6);
+    }
+    assert_eq!(&whole.iq[..], &before[..], "a shared chunk is never written");
 }
 
 #[test]

@@ -3,8 +3,9 @@
 //! the assembly of decoded frames into [`SampleChunk`]s.
 
 use super::reader::CaptureInfo;
-use lobeflow_blocks::{BlockError, SampleChunk, Stamp};
+use lobeflow_blocks::{BlockError, BufferPool, SampleChunk, Span, Stamp};
 use num_complex::Complex32;
+use std::sync::Arc;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Role {
@@ -175,7 +176,8 @@ impl RoleMap {
 
     /// Build a chunk from `frames` (decoded, interleaved) starting at sample
     /// `first`. Non-finite values in used components follow `policy`. Plain
-    /// (I, Q) frames with every value finite are taken over without a copy.
+    /// (I, Q) frames are taken over without a copy; other layouts are split
+    /// into buffers from `pools`.
     pub fn chunk(
         &self,
         frames: &mut Vec<f32>,
@@ -183,56 +185,121 @@ impl RoleMap {
         info: &CaptureInfo,
         policy: NonFinite,
         replaced: &mut Replaced,
+        pools: &ChunkPools,
     ) -> Result<SampleChunk, BlockError> {
-        let n = frames.len() / self.stride;
-        // Fast path, taken almost always: every value finite (or integer
-        // data), so the chunk is a plain gather the compiler vectorises.
-        if !info.encoding.is_float() || all_finite(frames) {
-            if self.is_plain_iq() && frames.len() % 2 == 0 && frames.capacity() % 2 == 0 {
-                let iq = into_complex(std::mem::take(frames));
-                return Ok(SampleChunk {
-                    stamp: Stamp::new(first, info.rate),
-                    iq: iq.into(),
-                    sync: None,
-                    trigger: None,
-                });
-            }
-            let rows = frames.chunks_exact(self.stride);
-            let iq: Vec<Complex32> = match self.q {
-                Some(q) => rows.map(|f| Complex32::new(f[self.i], f[q])).collect(),
-                None => rows.map(|f| Complex32::new(f[self.i], 0.0)).collect(),
-            };
-            let column = |c: Option<usize>| {
-                c.map(|c| frames.chunks_exact(self.stride).map(|f| f[c]).collect::<Vec<f32>>().into())
-            };
-            return Ok(SampleChunk {
-                stamp: Stamp::new(first, info.rate),
-                iq: iq.into(),
-                sync: column(self.sync),
-                trigger: column(self.trigger),
-            });
-        }
-        let mut iq = Vec::with_capacity(n);
-        let mut sync = self.sync.map(|_| Vec::with_capacity(n));
-        let mut trigger = self.trigger.map(|_| Vec::with_capacity(n));
         let check = info.encoding.is_float();
+        // Fast path, taken almost always: every value finite (or integer data).
+        if self.is_plain_iq() && frames.len() % 2 == 0 && frames.capacity() % 2 == 0 && (!check || all_finite(frames)) {
+            let iq = Span::pooled(into_complex(std::mem::take(frames)), &pools.iq);
+            return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq, sync: None, trigger: None });
+        }
+        let mut iq = pools.iq.take();
+        let mut sync = self.sync.map(|_| pools.real.take());
+        let mut trigger = self.trigger.map(|_| pools.real.take());
+        let (y, t) = (sync.as_mut(), trigger.as_mut());
+        // The usual layouts get a loop of their own; any other the general one.
+        let finite = match (self.stride, self.i, self.q, self.sync, self.trigger) {
+            (2, 0, Some(1), None, None) => Self::split::<2, 0, 1, NONE, NONE>(frames, &mut iq, y, t),
+            (3, 0, Some(1), Some(2), None) => Self::split::<3, 0, 1, 2, NONE>(frames, &mut iq, y, t),
+            (4, 0, Some(1), Some(2), None) => Self::split::<4, 0, 1, 2, NONE>(frames, &mut iq, y, t),
+            (4, 0, Some(1), Some(2), Some(3)) => Self::split::<4, 0, 1, 2, 3>(frames, &mut iq, y, t),
+            (6, 0, Some(1), Some(2), Some(4)) => Self::split::<6, 0, 1, 2, 4>(frames, &mut iq, y, t),
+            _ => self.split_any(frames, &mut iq, y, t),
+        };
+        if check && !finite {
+            self.replace_nonfinite(frames, first, info, policy, replaced, &mut iq, sync.as_mut(), trigger.as_mut())?;
+        }
+        Ok(SampleChunk {
+            stamp: Stamp::new(first, info.rate),
+            iq: Span::pooled(iq, &pools.iq),
+            sync: sync.map(|v| Span::pooled(v, &pools.real)),
+            trigger: trigger.map(|v| Span::pooled(v, &pools.real)),
+        })
+    }
+
+    /// The signal, sync and trigger columns of frames of `S` components, with
+    /// every position fixed at compile time (`NONE`: no such column) so each
+    /// column is a tight loop. Returns whether every value taken was finite.
+    fn split<const S: usize, const I: usize, const Q: usize, const Y: usize, const T: usize>(
+        frames: &[f32],
+        iq: &mut Vec<Complex32>,
+        sync: Option<&mut Vec<f32>>,
+        trigger: Option<&mut Vec<f32>>,
+    ) -> bool {
+        let rows = frames.as_chunks::<S>().0;
+        iq.clear();
+        if Q == NONE {
+            iq.extend(rows.iter().map(|f| Complex32::new(f[I], 0.0)));
+        } else {
+            iq.extend(rows.iter().map(|f| Complex32::new(f[I], f[Q])));
+        }
+        let mut finite = all_finite(from_complex_slice(iq));
+        for (column, c) in [(sync, Y), (trigger, T)] {
+            if let Some(out) = column
+                && c != NONE
+            {
+                out.clear();
+                out.extend(rows.iter().map(|f| f[c]));
+                finite &= all_finite(out);
+            }
+        }
+        finite
+    }
+
+    /// [`Self::split`] for any frame width.
+    fn split_any(
+        &self,
+        frames: &[f32],
+        iq: &mut Vec<Complex32>,
+        sync: Option<&mut Vec<f32>>,
+        trigger: Option<&mut Vec<f32>>,
+    ) -> bool {
+        let rows = frames.chunks_exact(self.stride);
+        iq.clear();
+        iq.extend(rows.clone().map(|f| Complex32::new(f[self.i], self.q.map_or(0.0, |q| f[q]))));
+        let mut finite = iq.iter().all(|z| z.re.is_finite() && z.im.is_finite());
+        for (column, c) in [(sync, self.sync), (trigger, self.trigger)] {
+            if let (Some(out), Some(c)) = (column, c) {
+                out.clear();
+                out.extend(rows.clone().map(|f| f[c]));
+                finite &= out.iter().all(|v| v.is_finite());
+            }
+        }
+        finite
+    }
+
+    /// The rare path: find the non-finite values of the split columns again,
+    /// and replace them by 0 or stop with an error naming the first one.
+    #[allow(clippy::too_many_arguments)]
+    fn replace_nonfinite(
+        &self,
+        frames: &[f32],
+        first: u64,
+        info: &CaptureInfo,
+        policy: NonFinite,
+        replaced: &mut Replaced,
+        iq: &mut [Complex32],
+        mut sync: Option<&mut Vec<f32>>,
+        mut trigger: Option<&mut Vec<f32>>,
+    ) -> Result<(), BlockError> {
         for (k, f) in frames.chunks_exact(self.stride).enumerate() {
-            let mut take = |c: usize| -> Result<f32, BlockError> {
-                let v = f[c];
-                if !check || v.is_finite() {
-                    return Ok(v);
+            let sample = first + k as u64;
+            let mut fix = |c: usize, v: &mut f32| -> Result<(), BlockError> {
+                if v.is_finite() {
+                    return Ok(());
                 }
-                let sample = first + k as u64;
                 match policy {
                     NonFinite::Zero => {
                         replaced.count += 1;
                         replaced.first_sample.get_or_insert(sample);
-                        Ok(0.0)
+                        *v = 0.0;
+                        Ok(())
                     }
                     NonFinite::Error => Err(BlockError::at(
                         format!(
-                            "{}: non-finite value ({v}) at sample {sample}, channel {}, byte offset {}; set nonfinite: zero to replace such values by 0",
+                            "{}: non-finite value ({}) at sample {sample}, channel {}, byte offset {}; set nonfinite: zero to replace such values by 0",
                             info.path,
+                            f[c],
                             c / info.components_per_channel() + 1,
                             info.byte_offset(sample, c)
                         ),
@@ -240,26 +307,46 @@ impl RoleMap {
                     )),
                 }
             };
-            let re = take(self.i)?;
-            let im = match self.q {
-                Some(c) => take(c)?,
-                None => 0.0,
-            };
-            iq.push(Complex32::new(re, im));
-            if let (Some(c), Some(s)) = (self.sync, sync.as_mut()) {
-                s.push(take(c)?);
+            fix(self.i, &mut iq[k].re)?;
+            if let Some(q) = self.q {
+                fix(q, &mut iq[k].im)?;
             }
-            if let (Some(c), Some(t)) = (self.trigger, trigger.as_mut()) {
-                t.push(take(c)?);
+            if let (Some(c), Some(s)) = (self.sync, sync.as_deref_mut()) {
+                fix(c, &mut s[k])?;
+            }
+            if let (Some(c), Some(t)) = (self.trigger, trigger.as_deref_mut()) {
+                fix(c, &mut t[k])?;
             }
         }
-        Ok(SampleChunk {
-            stamp: Stamp::new(first, info.rate),
-            iq: iq.into(),
-            sync: sync.map(Into::into),
-            trigger: trigger.map(Into::into),
-        })
+        Ok(())
     }
+}
+
+/// Where chunk buffers come from and go back to once no block holds them:
+/// a long capture runs on a few buffers, refilled rather than allocated.
+#[derive(Clone)]
+pub struct ChunkPools {
+    pub iq: Arc<BufferPool<Complex32>>,
+    /// Sync and trigger columns.
+    pub real: Arc<BufferPool<f32>>,
+}
+
+/// Idle buffers kept per pool: a few more than the queues hold.
+const POOL_KEEP: usize = 32;
+
+impl Default for ChunkPools {
+    fn default() -> Self {
+        ChunkPools { iq: BufferPool::new(POOL_KEEP), real: BufferPool::new(2 * POOL_KEEP) }
+    }
+}
+
+/// Position of a column a layout does not have.
+const NONE: usize = usize::MAX;
+
+/// Complex samples as their interleaved (re, im) floats.
+fn from_complex_slice(v: &[Complex32]) -> &[f32] {
+    // SAFETY: Complex<f32> is #[repr(C)] { re: f32, im: f32 }: 2 len floats, same alignment.
+    unsafe { std::slice::from_raw_parts(v.as_ptr().cast::<f32>(), v.len() * 2) }
 }
 
 /// Whether every value is finite; blocks of 1024 without early exit inside,

@@ -2,7 +2,7 @@
 //! and emits its samples in chunks, stamped from sample 0 at the file's rate.
 
 use super::reader::{CaptureReader, Format, OpenOptions, open};
-use super::roles::{NonFinite, Replaced, RoleMap};
+use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
 use lobeflow_blocks::{
     Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec, Stamp,
     Unit,
@@ -97,9 +97,8 @@ pub struct CaptureSource {
     next: u64,
     frames: Vec<f32>,
     part: Vec<f32>,
-    /// Buffers of chunks handed out, oldest first; once every block is done
-    /// with one, it is refilled instead of a new one being allocated.
-    recycle: std::collections::VecDeque<lobeflow_blocks::Span<num_complex::Complex32>>,
+    /// Chunk buffers come back here once every block is done with them.
+    pools: ChunkPools,
     /// SigMF capture segments after the first: (first sample, centre frequency).
     segments: Vec<(u64, Option<f64>)>,
     segments_seen: usize,
@@ -126,7 +125,7 @@ impl CaptureSource {
             next: 0,
             frames: Vec::new(),
             part: Vec::new(),
-            recycle: std::collections::VecDeque::new(),
+            pools: ChunkPools::default(),
             segments: later_segments(reader.as_ref()),
             segments_seen: 0,
             reader,
@@ -161,25 +160,11 @@ impl CaptureSource {
     }
 }
 
-/// Chunk buffers remembered for reuse: a few more than the queues hold.
-const RECYCLE_DEPTH: usize = 16;
-
-impl CaptureSource {
-    /// Take back the oldest handed-out buffer if no block holds it any more.
-    fn reuse_buffer(&mut self) {
-        if let Some(span) = self.recycle.pop_front() {
-            match span.reclaim() {
-                Ok(v) => self.frames = crate::capture::roles::from_complex(v),
-                Err(span) => self.recycle.push_front(span),
-            }
-        }
-    }
-}
-
 impl Block for CaptureSource {
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
-        if self.frames.is_empty() {
-            self.reuse_buffer();
+        if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
+            // Plain (I, Q) chunks take the read buffer over: read into a returned one.
+            self.frames = from_complex(self.pools.iq.take());
         }
         // A reader may return fewer frames than asked; fill the chunk.
         let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
@@ -218,16 +203,15 @@ impl Block for CaptureSource {
             }
             return Ok(false);
         }
-        let chunk =
-            self.roles.chunk(&mut self.frames, self.next, self.reader.info(), self.nonfinite, &mut self.replaced)?;
+        let chunk = self.roles.chunk(
+            &mut self.frames,
+            self.next,
+            self.reader.info(),
+            self.nonfinite,
+            &mut self.replaced,
+            &self.pools,
+        )?;
         self.next += n as u64;
-        if self.frames.is_empty() {
-            // The chunk took the buffer over: remember it for reuse.
-            self.recycle.push_back(chunk.iq.clone());
-            if self.recycle.len() > RECYCLE_DEPTH {
-                self.recycle.pop_front();
-            }
-        }
         out.push(0, Item::Samples(chunk));
         Ok(true)
     }

@@ -4,7 +4,7 @@
 //! rate and the PRF). Streams the file with constant memory.
 
 use crate::capture::reader::{CaptureInfo, Format, OpenOptions, open};
-use crate::capture::roles::{NonFinite, Replaced, Role, RoleMap};
+use crate::capture::roles::{ChunkPools, NonFinite, Replaced, Role, RoleMap};
 use crate::error::Error;
 use lobeflow_blocks::{RawValue, Value};
 use num_complex::Complex32;
@@ -199,6 +199,7 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
     let mut frames = Vec::new();
     let mut seen = 0u64;
     let mut replaced = Replaced::default();
+    let pools = ChunkPools::default();
     let limited = loop {
         if seen >= max_frames {
             break info.frames().is_none_or(|total| total > seen);
@@ -226,7 +227,7 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
             }
         }
         let chunk = roles
-            .chunk(&mut frames, seen, &info, NonFinite::Zero, &mut replaced)
+            .chunk(&mut frames, seen, &info, NonFinite::Zero, &mut replaced, &pools)
             .map_err(|e| Error::Input(e.to_string()))?;
         for z in chunk.iq.iter() {
             magnitude.push(z.norm());

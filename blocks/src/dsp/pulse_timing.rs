@@ -4,23 +4,33 @@
 use num_complex::Complex32;
 use std::collections::VecDeque;
 
-/// Samples per block whose median power makes one floor reading.
+/// Readings per block whose median power makes one floor reading.
 pub const FLOOR_BLOCK: usize = 1024;
 /// Block medians kept; the floor is their median.
 const FLOOR_BLOCKS: usize = 16;
+/// After the first block, one reading in this many is kept: the median of
+/// 1024 readings is as good wherever they come from, and selecting it is
+/// the costly part (every sample of a capture passes here).
+pub const FLOOR_STRIDE: usize = 8;
 
 /// Running noise power per sample from the median of |x|^2 in blocks.
 ///
 /// For complex Gaussian noise |x|^2 is exponential, whose median is
 /// `ln 2` times its mean, so the mean noise power is `median / ln 2`.
 /// Leakage pulses and echoes fill a small part of each block and barely
-/// move the median.
+/// move the median. The first block takes every reading, so a floor is
+/// known after [`FLOOR_BLOCK`] samples; later blocks take one in
+/// [`FLOOR_STRIDE`].
 pub struct NoiseFloor {
     /// The block being filled (`filled` of it), as integer keys in
     /// `f32::total_cmp` order (integer selection is cheaper, and picks the
     /// very same value).
     block: Box<[i32; FLOOR_BLOCK]>,
     filled: usize,
+    /// 1 for the first block, then [`FLOOR_STRIDE`].
+    stride: usize,
+    /// Finite readings since the last kept one, modulo `stride`.
+    phase: usize,
     medians: VecDeque<f32>,
     floor: f64,
 }
@@ -36,6 +46,8 @@ impl Default for NoiseFloor {
         NoiseFloor {
             block: Box::new([0; FLOOR_BLOCK]),
             filled: 0,
+            stride: 1,
+            phase: 0,
             medians: VecDeque::with_capacity(FLOOR_BLOCKS),
             floor: 0.0,
         }
@@ -47,6 +59,11 @@ impl NoiseFloor {
     #[inline]
     pub fn push(&mut self, power: f32) -> bool {
         if !power.is_finite() {
+            return false;
+        }
+        let keep = self.phase == 0;
+        self.phase = (self.phase + 1) % self.stride;
+        if !keep {
             return false;
         }
         self.block[self.filled] = total_order_key(power.to_bits() as i32);
@@ -63,6 +80,7 @@ impl NoiseFloor {
         let (_, m, _) = self.block.select_nth_unstable(FLOOR_BLOCK / 2);
         let m = f32::from_bits(total_order_key(*m) as u32);
         self.filled = 0;
+        self.stride = FLOOR_STRIDE;
         if self.medians.len() == FLOOR_BLOCKS {
             self.medians.pop_front();
         }
@@ -85,33 +103,52 @@ impl NoiseFloor {
         let mut filled = self.filled;
         let mut taken = 0;
         // Eight at a time while all are finite and under the limit (the usual
-        // case; vectorised), then one at a time.
+        // case; vectorised), then one at a time. Eight finite readings are
+        // one whole stride, so the phase stays where it is.
         const LANES: usize = 8;
-        while taken + LANES <= samples.len() && filled + LANES < FLOOR_BLOCK {
+        const _: () = assert!(FLOOR_STRIDE == LANES);
+        let per_group = if self.stride == 1 { LANES } else { 1 };
+        // The one lane of a group kept once the stride applies.
+        let lane = (LANES - self.phase) % LANES;
+        // The same test in float32: the largest float32 not above the limit.
+        let limit = {
+            let t = limit as f32;
+            if (t as f64) > limit { t.next_down() } else { t }
+        };
+        while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
             let mut power = [0f32; LANES];
             for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {
                 *p = x.norm_sqr();
             }
-            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p as f64 <= limit)) {
+            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit)) {
                 break;
             }
-            for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
-                *slot = total_order_key(p.to_bits() as i32);
+            if per_group == LANES {
+                for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
+                    *slot = total_order_key(p.to_bits() as i32);
+                }
+            } else {
+                self.block[filled] = total_order_key(power[lane].to_bits() as i32);
             }
-            filled += LANES;
+            filled += per_group;
             taken += LANES;
         }
+        let mut phase = self.phase;
         for x in &samples[taken..] {
             let p = x.norm_sqr();
-            if filled + 1 >= FLOOR_BLOCK || p as f64 > limit {
+            let finite = p.is_finite();
+            let keep = finite & (phase == 0);
+            if (keep && filled + 1 >= FLOOR_BLOCK) || p > limit {
                 break;
             }
             // Non-finite powers are skipped, as in `push` (branch-free).
             self.block[filled] = total_order_key(p.to_bits() as i32);
-            filled += p.is_finite() as usize;
+            filled += keep as usize;
+            phase = (phase + finite as usize) % self.stride;
             taken += 1;
         }
         self.filled = filled;
+        self.phase = phase;
         taken
     }
 
@@ -154,7 +191,8 @@ mod tests {
         let mut f = NoiseFloor::default();
         let mut block: Vec<f32> = Vec::new();
         let mut medians: VecDeque<f32> = VecDeque::new();
-        for n in 0..(40 * FLOOR_BLOCK) {
+        let mut kept = 0usize;
+        for n in 0..(40 * FLOOR_STRIDE * FLOOR_BLOCK) {
             let x = match n % 97 {
                 0 => f32::NAN,
                 1 => f32::INFINITY,
@@ -165,7 +203,13 @@ mod tests {
             };
             let moved = f.push(x);
             if x.is_finite() {
-                block.push(x);
+                // Every reading for the first block, then one in FLOOR_STRIDE.
+                if medians.is_empty() || kept % FLOOR_STRIDE == 0 {
+                    block.push(x);
+                }
+                if !medians.is_empty() {
+                    kept += 1;
+                }
             }
             assert_eq!(moved, block.len() == FLOOR_BLOCK, "sample {n}");
             if block.len() == FLOOR_BLOCK {
@@ -187,7 +231,7 @@ mod tests {
     #[test]
     fn pushing_below_a_limit_matches_single_pushes() {
         let mut rng = Rng::new(21);
-        let samples: Vec<Complex32> = (0..(9 * FLOOR_BLOCK + 77))
+        let samples: Vec<Complex32> = (0..(9 * FLOOR_STRIDE * FLOOR_BLOCK + 77))
             .map(|n| match n % 331 {
                 0 => Complex32::new(f32::NAN, 0.0),
                 1 => Complex32::new(30.0, 0.0), // over the limit

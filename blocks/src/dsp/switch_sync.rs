@@ -82,6 +82,70 @@ pub(crate) fn min_spacing(levels: &[f64]) -> f64 {
     levels.windows(2).map(|w| (w[1] - w[0]).abs()).fold(f64::INFINITY, f64::min)
 }
 
+/// A band no value falls in.
+const EMPTY_BAND: (f32, f32) = (f32::INFINITY, f32::NEG_INFINITY);
+
+/// The float32 values inside `[lo, hi]`, as float32 bounds rounded inwards
+/// (the sync channel arrives as float32; comparing in its own type lets the
+/// test run eight or more samples per instruction).
+fn float32_band(lo: f64, hi: f64) -> (f32, f32) {
+    let (mut a, mut b) = (lo as f32, hi as f32);
+    if (a as f64) < lo {
+        a = a.next_up();
+    }
+    if (b as f64) > hi {
+        b = b.next_down();
+    }
+    if a.is_finite() && b.is_finite() && a <= b { (a, b) } else { EMPTY_BAND }
+}
+
+/// The largest float32 `t` with `t <= x`: for float32 `v`, `v > t` exactly
+/// when `v as f64 > x`.
+fn float32_above(x: f64) -> f32 {
+    let t = x as f32;
+    if (t as f64) > x { t.next_down() } else { t }
+}
+
+/// The smallest float32 `t` with `t >= x`: `v < t` exactly when `v as f64 < x`.
+fn float32_below(x: f64) -> f32 {
+    let t = x as f32;
+    if (t as f64) < x { t.next_up() } else { t }
+}
+
+/// Follow "past the midpoint" (`v > t` when `UP`, else `v < t`) over `values`
+/// (the first at absolute index `first`) from `(past, crossed)`: returns
+/// whether the last value is past, and where past last turned true. The
+/// same as stepping value by value, 32 values per bit mask.
+fn last_rising<const UP: bool>(
+    values: &[f32],
+    first: u64,
+    t: f32,
+    (mut past, mut crossed): (bool, u64),
+) -> (bool, u64) {
+    let is_past = |v: f32| if UP { v > t } else { v < t };
+    let (blocks, tail) = values.as_chunks::<32>();
+    for (b, block) in blocks.iter().enumerate() {
+        let mut mask = 0u32;
+        for (i, &v) in block.iter().enumerate() {
+            mask |= (is_past(v) as u32) << i;
+        }
+        let rising = mask & !((mask << 1) | past as u32);
+        if rising != 0 {
+            crossed = first + (b * 32) as u64 + (31 - rising.leading_zeros()) as u64;
+        }
+        past = mask >> 31 == 1;
+    }
+    let tail_first = first + (blocks.len() * 32) as u64;
+    for (n, &v) in (tail_first..).zip(tail) {
+        let p = is_past(v);
+        if p && !past {
+            crossed = n;
+        }
+        past = p;
+    }
+    (past, crossed)
+}
+
 fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
     let mut v: Vec<u64> = values.collect();
     if v.is_empty() {
@@ -118,9 +182,10 @@ pub struct SyncTracker {
     history: VecDeque<u64>,
     /// `expected_dwell` as of the last history change (it is read every sample).
     expected: Option<f64>,
-    /// Per level: how far a value may sit from it and still be nearest to it,
-    /// within the stray distance and short of every midpoint (fast path band).
-    quiet_radius: Vec<f64>,
+    /// Per level: the float32 values that sit close enough to it to be nearest
+    /// to it, within the stray distance and short of every midpoint (the fast
+    /// path's band; empty as (inf, -inf)).
+    quiet_band: Vec<(f32, f32)>,
     /// Row `c`, column `k`: the midpoint between levels `c` and `k`, and
     /// whether `k` lies above `c` (the midpoint test of `step`).
     midpoints: Vec<(f64, bool)>,
@@ -139,13 +204,13 @@ impl SyncTracker {
         let stray_distance = STRAY_FRACTION * spacing;
         // 0.45 rather than 0.5 of the gap to each other level keeps the band
         // clear of the midpoints whatever the rounding.
-        let quiet_radius = (0..n)
+        let quiet_band = (0..n)
             .map(|i| {
                 let r = (0..n)
                     .filter(|&k| k != i)
                     .map(|k| 0.45 * (levels[k] - levels[i]).abs())
                     .fold(stray_distance, f64::min);
-                if r.is_finite() && r > 0.0 { r } else { -1.0 }
+                if r.is_finite() && r > 0.0 { float32_band(levels[i] - r, levels[i] + r) } else { EMPTY_BAND }
             })
             .collect();
         let midpoints = (0..n * n)
@@ -157,7 +222,7 @@ impl SyncTracker {
         SyncTracker {
             midpoints,
             expected: settings.expected_dwell,
-            quiet_radius,
+            quiet_band,
             margin: settings.hysteresis * spacing,
             stray_distance,
             stray_limit: (min_dwell / 2).max(32),
@@ -249,10 +314,9 @@ impl SyncTracker {
         while k < values.len() {
             if self.quiet() {
                 // Fast path: skip the run of samples that stay in the current level's band.
-                let here = self.levels[self.current];
-                let radius = self.quiet_radius[self.current];
+                let (lo, hi) = self.quiet_band[self.current];
                 let until = self.stuck_from().saturating_sub(index).min(values.len() as u64) as usize;
-                let inside = |v: f32| (v as f64 - here).abs() <= radius;
+                let inside = |v: f32| (v >= lo) & (v <= hi);
                 // Whole blocks first (a branch-free test the compiler vectorises), then single samples.
                 const BLOCK: usize = 16;
                 while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
@@ -267,14 +331,13 @@ impl SyncTracker {
             } else if self.started && self.pending != self.current && self.stray_start.is_none() {
                 // A new level is pending confirmation: while the value stays in its
                 // band only the midpoint crossings change, up to the confirming sample.
-                let there = self.levels[self.pending];
-                let radius = self.quiet_radius[self.pending];
+                let (lo, hi) = self.quiet_band[self.pending];
                 let confirm_at = self.pending_since + self.settings.min_dwell.max(1) as u64 - 1;
                 let until = self.stuck_from().min(confirm_at).saturating_sub(index).min(values.len() as u64) as usize;
                 let lobes = self.levels.len();
                 let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
                 let run_start = k;
-                while k < until && (values[k] as f64 - there).abs() <= radius {
+                while k < until && (values[k] >= lo) & (values[k] <= hi) {
                     k += 1;
                 }
                 // Each lobe's midpoint is independent of the others': one pass
@@ -283,16 +346,15 @@ impl SyncTracker {
                     if j == self.current {
                         continue;
                     }
-                    let (mut was_past, mut crossed) = (self.past_mid[j], self.crossed_at[j]);
-                    for (n, &v) in (index + run_start as u64..).zip(&values[run_start..k]) {
-                        let v = v as f64;
-                        let past = if up { v > mid } else { v < mid };
-                        if past && !was_past {
-                            crossed = n;
-                        }
-                        was_past = past;
-                    }
-                    self.past_mid[j] = was_past;
+                    let state = (self.past_mid[j], self.crossed_at[j]);
+                    let run = &values[run_start..k];
+                    let first = index + run_start as u64;
+                    let (past, crossed) = if up {
+                        last_rising::<true>(run, first, float32_above(mid), state)
+                    } else {
+                        last_rising::<false>(run, first, float32_below(mid), state)
+                    };
+                    self.past_mid[j] = past;
                     self.crossed_at[j] = crossed;
                 }
                 if k == values.len() {
@@ -774,5 +836,51 @@ mod tests {
         assert_eq!(t.lobe_of(t.dwell_of(0)), 1);
         assert_eq!(t.boundary(-3), -49);
         assert_eq!(t.boundary(1), 351);
+    }
+
+    #[test]
+    fn float32_thresholds_decide_exactly_as_the_float64_comparison() {
+        let mut rng = Rng::new(17);
+        for _ in 0..2000 {
+            let x = rng.gaussian() * 2.0;
+            let (above, below) = (float32_above(x), float32_below(x));
+            let near = x as f32;
+            let mut v = near.next_down().next_down();
+            for _ in 0..5 {
+                assert_eq!(v > above, v as f64 > x, "{v} against {x}");
+                assert_eq!(v < below, (v as f64) < x, "{v} against {x}");
+                v = v.next_up();
+            }
+            let (lo, hi) = float32_band(x - 0.25, x + 0.25);
+            assert!((lo as f64) >= x - 0.25 && (hi as f64) <= x + 0.25);
+            assert!((lo.next_down() as f64) < x - 0.25 && (hi.next_up() as f64) > x + 0.25);
+        }
+        assert_eq!(float32_band(1.0, 0.5), EMPTY_BAND);
+        assert_eq!(float32_band(f64::NEG_INFINITY, 0.0), EMPTY_BAND);
+    }
+
+    #[test]
+    fn bit_mask_crossings_match_value_by_value_stepping() {
+        let mut rng = Rng::new(23);
+        for len in [0usize, 1, 31, 32, 33, 64, 95, 200] {
+            let values: Vec<f32> =
+                (0..len).map(|n| if n % 17 == 5 { f32::NAN } else { (rng.gaussian() * 0.3 + 0.1) as f32 }).collect();
+            for start in [(false, 7u64), (true, 3)] {
+                let t = 0.1f32;
+                let reference = |up: bool| {
+                    let (mut past, mut crossed) = start;
+                    for (n, &v) in (1000u64..).zip(&values) {
+                        let p = if up { v > t } else { v < t };
+                        if p && !past {
+                            crossed = n;
+                        }
+                        past = p;
+                    }
+                    (past, crossed)
+                };
+                assert_eq!(last_rising::<true>(&values, 1000, t, start), reference(true), "len {len}");
+                assert_eq!(last_rising::<false>(&values, 1000, t, start), reference(false), "len {len}");
+            }
+        }
     }
 }

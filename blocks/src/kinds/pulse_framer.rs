@@ -106,6 +106,9 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         noise: NoiseFloor::default(),
         last_real: None,
         last: None,
+        found: Vec::new(),
+        open: None,
+        blanked_in_place: 0..0,
         pulse: 0,
         pending: VecDeque::new(),
         missing_run: None,
@@ -179,8 +182,14 @@ struct PulseFramer {
     prev_above: bool,
     noise: NoiseFloor,
     last_real: Option<u64>,
-    /// Start of the open sweep, and whether it was predicted.
+    /// The latest transmit instant found, and whether it was predicted.
     last: Option<(u64, bool)>,
+    /// Instants found in this step, not yet cut into sweeps (see [`PulseFramer::cut_found`]).
+    found: Vec<(u64, bool)>,
+    /// The open sweep (the latest instant cut).
+    open: Option<Opening>,
+    /// Samples of this step's chunk whose instants had their leakage blanked in place.
+    blanked_in_place: Range<u64>,
     /// Number of the open sweep.
     pulse: u64,
     /// Samples from the open sweep's start on.
@@ -276,7 +285,6 @@ impl PulseFramer {
             }
             (_, t) => t.clone(),
         };
-        self.pending.push_back(chunk.clone());
         if self.mode == Mode::Schedule {
             self.scan_schedule(start, len, out);
         } else {
@@ -348,6 +356,9 @@ impl PulseFramer {
                 }
             }
         }
+        drop(trigger);
+        self.blank_in_place(chunk);
+        self.cut_found();
         let end = start + len as u64;
         if self.last.is_none() {
             self.pending.clear();
@@ -397,12 +408,9 @@ impl PulseFramer {
         self.next_scheduled = Some(k);
     }
 
-    /// A transmit instant at `n`: close the open sweep and open a new one.
+    /// A transmit instant at `n`. The sweeps are cut once the step's chunk
+    /// is blanked ([`Self::cut_found`]); the detection state moves on now.
     fn instant(&mut self, n: u64, predicted: bool, out: &mut Outputs) {
-        if let Some((from, was_predicted)) = self.last {
-            self.emit(from, n, was_predicted);
-            self.pulse += 1;
-        }
         if predicted {
             self.missing_total += 1;
             match &mut self.missing_run {
@@ -414,7 +422,38 @@ impl PulseFramer {
             self.last_real = Some(n);
         }
         self.last = Some((n, predicted));
-        self.trim(n);
+        self.found.push((n, predicted));
+    }
+
+    /// Zero the transmit leakage after this step's instants in the chunk
+    /// itself when this block is its only reader (no copy), then keep it.
+    fn blank_in_place(&mut self, mut chunk: SampleChunk) {
+        self.blanked_in_place = 0..0;
+        let blank = self.setup.as_ref().map_or(0, |s| s.blank);
+        let (start, end) = (chunk.stamp.index, chunk.stamp.index + chunk.len() as u64);
+        if blank > 0
+            && let Some(iq) = chunk.iq.get_mut()
+        {
+            for &(n, _) in self.found.iter().filter(|(n, _)| (start..end).contains(n)) {
+                let a = (n - start) as usize;
+                let b = (a + blank).min(iq.len());
+                iq[a..b].fill(Complex32::new(0.0, 0.0));
+            }
+            self.blanked_in_place = start..end;
+        }
+        self.pending.push_back(chunk);
+    }
+
+    /// Cut the sweeps between the instants found so far.
+    fn cut_found(&mut self) {
+        for (n, predicted) in std::mem::take(&mut self.found) {
+            if let Some(open) = self.open {
+                self.emit(open, n);
+                self.pulse += 1;
+            }
+            self.open = Some(Opening { at: n, predicted, blanked: self.blanked_in_place.contains(&n) });
+            self.trim(n);
+        }
     }
 
     fn report_missing(&mut self, out: &mut Outputs) {
@@ -445,10 +484,11 @@ impl PulseFramer {
         }
     }
 
-    /// Hand on the sweep `[from, to)` from the pending samples (held until
-    /// [`Self::release_held`], so blanked copies can share one buffer).
-    fn emit(&mut self, from: u64, to: u64, predicted: bool) {
+    /// Hand on the sweep from `open` to `to` from the pending samples (held
+    /// until [`Self::release_held`], so blanked copies can share one buffer).
+    fn emit(&mut self, open: Opening, to: u64) {
         let Some(s) = self.setup.as_ref() else { return };
+        let Opening { at: from, predicted, blanked: blanked_already } = open;
         let blank = s.blank;
         let overlaps = |c: &&SampleChunk| c.stamp.index < to && c.stamp.index + c.len() as u64 > from;
         let mut parts = self.pending.iter().filter(overlaps);
@@ -457,7 +497,7 @@ impl PulseFramer {
         let zero = Complex32::new(0.0, 0.0);
         let (iq, sync) = if whole {
             let r = (from - first.stamp.index) as usize..(to - first.stamp.index) as usize;
-            let iq = if blank > 0 {
+            let iq = if blank > 0 && !blanked_already {
                 // Blanking writes to the samples: the sweep needs its own copy,
                 // made in the buffer shared by this step's blanked sweeps.
                 if self.copies.capacity() == 0 {
@@ -516,6 +556,15 @@ impl PulseFramer {
             );
         }
     }
+}
+
+/// A transmit instant that opened a sweep.
+#[derive(Clone, Copy)]
+struct Opening {
+    at: u64,
+    predicted: bool,
+    /// Its leakage was zeroed in the capture chunk itself.
+    blanked: bool,
 }
 
 /// Where a held sweep's samples are.
@@ -580,11 +629,13 @@ impl PulseFramer {
         if let Some(rise) = self.rise.take() {
             self.instant(rise.instant(), false, out);
         }
+        self.blanked_in_place = 0..0;
+        self.cut_found();
         let Some(end) = self.last_stamp else {
             return Ok(());
         };
-        match self.last {
-            Some((from, predicted)) if end.index > from => self.emit(from, end.index, predicted),
+        match self.open {
+            Some(open) if end.index > open.at => self.emit(open, end.index),
             Some(_) => {}
             None if self.mode != Mode::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));
