@@ -327,7 +327,7 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
                 truth + 0.3 * (t * 0.5).sin() + 0.05 * rng.gaussian() + if flag == Flag::Outlier { 1.5 } else { 0.0 };
             out.push((
                 0,
-                Item::Estimate(AngleEstimate {
+                Item::Estimate(Box::new(AngleEstimate {
                     stamp: Stamp::new(k * 8000, RATE),
                     axis: Arc::from(axis),
                     error_deg: matches!(flag, Flag::Ok | Flag::Outlier).then_some(err),
@@ -338,7 +338,7 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
                     flag,
                     tracked_deg: Some(truth + 0.3 * (t * 0.5).sin()),
                     absolute_deg: None,
-                }),
+                })),
             ));
         }
     }
@@ -376,7 +376,7 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
                 sync: None,
                 trigger: None,
             };
-            items.push((1, Item::Segment(LobeSegment { tag: tag.clone(), chunk, dwell_end: half == 1 })));
+            items.push((1, Item::Segment(Box::new(LobeSegment { tag: tag.clone(), chunk, dwell_end: half == 1 }))));
         }
         for p in 0..4u64 {
             let mut rng = Rng::new(d * 4 + p);

@@ -203,8 +203,9 @@ pub struct Sweep {
     pub iq: Span<Complex32>,
     /// The sync channel over the same samples, when the capture has one.
     pub sync: Option<Span<f32>>,
-    /// Samples blanked at the start for transmit leakage.
-    pub blanked: usize,
+    /// Samples blanked at the start for transmit leakage (32 bits keep the
+    /// item small enough to be moved without a call to `memcpy`).
+    pub blanked: u32,
     /// True when no transmit instant was seen and this one was predicted.
     pub predicted: bool,
     /// Set by a switch-sync gate.
@@ -313,16 +314,22 @@ pub struct Notice {
 }
 
 /// Everything that can travel along a wire.
+///
+/// Items are moved through queues millions of times a run; the rarer large
+/// kinds are boxed so an item stays within 128 bytes, which the compiler
+/// moves inline instead of calling `memcpy`.
 #[derive(Clone, Debug)]
 pub enum Item {
     Samples(SampleChunk),
     Sweep(Sweep),
-    Segment(LobeSegment),
+    Segment(Box<LobeSegment>),
     Dwell(DwellRecord),
-    Estimate(AngleEstimate),
+    Estimate(Box<AngleEstimate>),
     Row(TableRow),
     Notice(Notice),
 }
+
+const _: () = assert!(std::mem::size_of::<Item>() <= 128, "an item no longer moves inline");
 
 /// The kind of item a port carries; ports only connect to the same kind.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]

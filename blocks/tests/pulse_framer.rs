@@ -108,9 +108,10 @@ fn check_tiling(sweeps: &[Sweep], whole: &SampleChunk, blank: usize) {
         let a = s.stamp.index as usize;
         let end = sweeps.get(i + 1).map_or(whole.len(), |n| n.stamp.index as usize);
         assert_eq!(s.iq.len(), end - a, "sweep {i} runs to the next instant");
-        assert_eq!(s.blanked, blank.min(s.iq.len()));
-        assert!(s.iq[..s.blanked].iter().all(|x| x.norm_sqr() == 0.0), "sweep {i} blanked");
-        assert_eq!(&s.iq[s.blanked..], &whole.iq[a + s.blanked..end], "sweep {i} samples");
+        let blanked = s.blanked as usize;
+        assert_eq!(blanked, blank.min(s.iq.len()));
+        assert!(s.iq[..blanked].iter().all(|x| x.norm_sqr() == 0.0), "sweep {i} blanked");
+        assert_eq!(&s.iq[blanked..], &whole.iq[a + blanked..end], "sweep {i} samples");
         let sync = s.sync.as_ref().expect("sync span carried");
         assert_eq!(&sync[..], &whole.sync.as_ref().unwrap()[a..end], "sweep {i} sync span");
         assert_eq!(s.pulse, i as u64);

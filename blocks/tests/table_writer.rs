@@ -63,7 +63,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         tracked_deg: None,
         absolute_deg: None,
     };
-    vec![(0, Item::Estimate(a)), (0, Item::Estimate(b))]
+    vec![(0, Item::Estimate(Box::new(a))), (0, Item::Estimate(Box::new(b)))]
 }
 
 #[test]

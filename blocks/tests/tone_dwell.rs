@@ -31,11 +31,11 @@ fn dwell_items(dwells: u64, m: usize, pieces: usize, freq: f64, amp: f64, noise_
         let whole = chunk(start, RATE, iq);
         for (i, s) in (0..m).step_by(step).enumerate() {
             let e = (s + step).min(m);
-            items.push(Item::Segment(LobeSegment {
+            items.push(Item::Segment(Box::new(LobeSegment {
                 tag: tag((d % 2) as usize, d, start),
                 chunk: whole.slice(s..e),
                 dwell_end: e == m && i < pieces,
-            }));
+            })));
         }
     }
     items

@@ -36,8 +36,8 @@ fn drifting(seed: u64, seconds: f64) -> (Vec<Item>, Vec<f64>) {
         let t = k as f64 / 20.0;
         let th = 0.3 + 0.02 * t;
         truth.push(th);
-        items.push(Item::Estimate(estimate("az", t, th + 0.1 * rng.gaussian(), 0.1)));
-        items.push(Item::Estimate(estimate("el", t + 0.01, -th, 0.1)));
+        items.push(Item::Estimate(Box::new(estimate("az", t, th + 0.1 * rng.gaussian(), 0.1))));
+        items.push(Item::Estimate(Box::new(estimate("el", t + 0.01, -th, 0.1))));
     }
     (items, truth)
 }
@@ -91,7 +91,7 @@ fn outliers_are_flagged_kept_and_not_used() {
     let mut out_of_range = estimate("az", 15.02, 0.0, 0.3);
     out_of_range.error_deg = None;
     out_of_range.flag = Flag::OutOfRange;
-    items.insert(k + 1, Item::Estimate(out_of_range.clone()));
+    items.insert(k + 1, Item::Estimate(Box::new(out_of_range.clone())));
     for method in ["alpha_beta", "kalman"] {
         let mut blk = build(&SPEC, &[("method", method)]).unwrap();
         let (out, _) = run(blk.as_mut(), items.clone());
@@ -111,7 +111,7 @@ fn track_restarts_after_repeated_outliers() {
     for k in 0..100 {
         let t = k as f64 * 0.05;
         let th = if k < 50 { 0.1 } else { 2.0 }; // re-acquired on another target
-        items.push(Item::Estimate(estimate("az", t, th, 0.05)));
+        items.push(Item::Estimate(Box::new(estimate("az", t, th, 0.05))));
     }
     let mut blk = build(&SPEC, &[("reset_after", "3")]).unwrap();
     let (out, _) = run(blk.as_mut(), items);
@@ -133,7 +133,7 @@ fn telemetry_gives_absolute_angles() {
         .map(|k| {
             let t = k as f64 * 0.5;
             let axis = ["az", "el", "h"][k % 3];
-            Item::Estimate(estimate(axis, t, 0.25, 0.05))
+            Item::Estimate(Box::new(estimate(axis, t, 0.25, 0.05)))
         })
         .collect();
     let mut blk = build(&SPEC, &[("pointing", path), ("axis_columns", "az=az_deg, el=el_deg")]).unwrap();

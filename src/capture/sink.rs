@@ -229,7 +229,7 @@ mod tests {
 
     fn segment(lobe: &str, dwell: u64, index: u64, n: usize, rate: f64, end: bool) -> Item {
         let iq: Vec<Complex32> = (0..n).map(|k| Complex32::new((index + k as u64) as f32 * 1e-3, 0.25)).collect();
-        Item::Segment(LobeSegment {
+        Item::Segment(Box::new(LobeSegment {
             tag: LobeTag { lobe: 0, name: Arc::from(lobe), dwell, dwell_start: index },
             chunk: SampleChunk {
                 stamp: Stamp::new(index, rate),
@@ -238,7 +238,7 @@ mod tests {
                 trigger: None,
             },
             dwell_end: end,
-        })
+        }))
     }
 
     fn params(path: &std::path::Path, format: &str, lobe: &str, annotate: bool) -> Params {

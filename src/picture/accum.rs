@@ -95,7 +95,7 @@ impl SweepAverage {
                 sweep.stamp.index,
             ));
         }
-        let first = self.window.first.max(sweep.blanked);
+        let first = self.window.first.max(sweep.blanked as usize);
         let end = (self.window.first + self.window.len).min(sweep.iq.len());
         if first < end {
             let src = &sweep.iq[first..end];

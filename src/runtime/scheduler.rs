@@ -25,7 +25,7 @@
 use lobeflow_blocks::{Block, BlockError, Item, Notice, Outputs};
 use std::collections::VecDeque;
 use std::panic::{AssertUnwindSafe, catch_unwind};
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, Condvar, Mutex};
 use std::time::{Duration, Instant};
 
@@ -74,6 +74,9 @@ const MAX_BATCH_SAMPLES: usize = 1 << 16;
 /// items handed between cores cost microseconds, so sharing a pass-through
 /// (a 50 us capture read beside 0.1 us pass and discard steps) only loses time.
 const WAKE_WORTH: Duration = Duration::from_micros(3);
+/// How long a worker that found nothing to do watches for work before it
+/// sleeps: about one capture read, the usual wait in a chain.
+const SPIN_FOR: Duration = Duration::from_micros(50);
 
 struct Node {
     name: Arc<str>,
@@ -122,6 +125,11 @@ enum Step {
 struct Shared {
     state: Mutex<State>,
     wake: Condvar,
+    /// Bumped whenever a step ends (new work may be ready), so a worker that
+    /// found nothing can watch for work without the lock.
+    changes: AtomicU64,
+    /// Workers in the pool; a lone worker has no one to wait for.
+    threads: usize,
     cancel: Arc<AtomicBool>,
     capacity: usize,
     progress: Option<ProgressFn>,
@@ -166,6 +174,8 @@ pub fn run_nodes(
     let shared = Arc::new(Shared {
         state: Mutex::new(State { nodes, edges, order, running: 0, idle: 0, done: 0, stop: None, notices: Vec::new() }),
         wake: Condvar::new(),
+        changes: AtomicU64::new(0),
+        threads: threads.max(1),
         cancel,
         capacity: capacity.max(1),
         progress,
@@ -319,6 +329,7 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
 
 fn worker(sh: &Shared) {
     let mut batch: Vec<(usize, Item)> = Vec::with_capacity(MAX_BATCH);
+    let mut spun = false;
     let mut st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
     loop {
         let (idx, step, mut block) = loop {
@@ -359,10 +370,28 @@ fn worker(sh: &Shared) {
                 sh.wake.notify_all();
                 return;
             }
+            if sh.threads > 1 && !spun {
+                // Work usually turns up within a step of another worker:
+                // watching for it briefly costs less than sleeping and being
+                // woken (a system call each side, and the wake-up latency).
+                let seen = sh.changes.load(Ordering::Acquire);
+                drop(st);
+                spun = true;
+                let t0 = Instant::now();
+                while sh.changes.load(Ordering::Acquire) == seen && t0.elapsed() < SPIN_FOR {
+                    for _ in 0..64 {
+                        std::hint::spin_loop();
+                    }
+                }
+                st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
+                continue;
+            }
+            spun = false;
             st.idle += 1;
             st = sh.wake.wait_timeout(st, Duration::from_millis(100)).unwrap_or_else(|e| e.into_inner()).0;
             st.idle -= 1;
         };
+        spun = false;
         let n_out = st.nodes[idx].outputs.len();
         drop(st);
 
@@ -440,6 +469,7 @@ fn worker(sh: &Shared) {
         nd.stats.busy += busy;
         nd.step_cost = Some(nd.step_cost.map_or(busy, |c| (c * 3 + busy) / 4));
         st.running -= 1;
+        sh.changes.fetch_add(1, Ordering::Release);
         if satisfied {
             // Stop feeding a block that has what it needs; it still finishes
             // when its inputs end. Which items it saw depends only on its

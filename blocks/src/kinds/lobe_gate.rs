@@ -166,7 +166,7 @@ impl LobeGate {
     fn flush(&mut self, dwell_end: bool, out: &mut Outputs) {
         if let Some(mut seg) = self.held.take() {
             seg.dwell_end = dwell_end;
-            out.push(0, Item::Segment(seg));
+            out.push(0, Item::Segment(Box::new(seg)));
         }
     }
 }

@@ -549,7 +549,7 @@ impl PulseFramer {
                     pulse: h.pulse,
                     iq,
                     sync: h.sync,
-                    blanked: h.blanked,
+                    blanked: h.blanked.try_into().unwrap_or(u32::MAX),
                     predicted: h.predicted,
                     lobe: None,
                 }),

@@ -347,7 +347,7 @@ impl RangeGate {
                     }
                     return;
                 }
-                if sweep.blanked > gate.start && !self.blank_reported {
+                if sweep.blanked as usize > gate.start && !self.blank_reported {
                     self.blank_reported = true;
                     out.notice(
                         sweep.stamp,

@@ -300,7 +300,7 @@ impl Block for RatioDiscriminator {
         }
         let (plus, minus) = if is_plus { (&dwell, &partner) } else { (&partner, &dwell) };
         let estimate = self.estimate(&self.slots[k], plus, minus);
-        out.push(0, Item::Estimate(estimate));
+        out.push(0, Item::Estimate(Box::new(estimate)));
         Ok(())
     }
 

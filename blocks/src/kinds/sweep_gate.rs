@@ -243,7 +243,7 @@ impl SweepGate {
             if keep < sweep.iq.len() {
                 sweep.iq = sweep.iq.slice(0..keep);
                 sweep.sync = sweep.sync.map(|s| s.slice(0..keep.min(s.len())));
-                sweep.blanked = sweep.blanked.min(keep);
+                sweep.blanked = sweep.blanked.min(keep.try_into().unwrap_or(u32::MAX));
             }
         }
         if self.emitted_dwell != Some(dwell_start) {

@@ -63,7 +63,7 @@ pub fn estimates(items: &[Item]) -> Vec<lobeflow_blocks::AngleEstimate> {
     items
         .iter()
         .filter_map(|i| match i {
-            Item::Estimate(e) => Some(e.clone()),
+            Item::Estimate(e) => Some(lobeflow_blocks::AngleEstimate::clone(e)),
             _ => None,
         })
         .collect()
