@@ -12,6 +12,7 @@
 //! ```
 
 pub mod block;
+pub mod decimal;
 pub mod dsp;
 pub mod item;
 pub mod kinds;

@@ -118,11 +118,13 @@ impl LineBuilder {
             return self.empty(key);
         };
         self.key(key);
-        let _ = match style {
-            NumStyle::Fixed(d) => write!(self.text, "{v:.d$}"),
-            NumStyle::Sci(d) => write!(self.text, "{v:.d$e}"),
-            NumStyle::Shortest => write!(self.text, "{v}"),
-        };
+        match style {
+            NumStyle::Fixed(d) => crate::decimal::push_fixed(&mut self.text, v, d),
+            NumStyle::Sci(d) => crate::decimal::push_sci(&mut self.text, v, d),
+            NumStyle::Shortest => {
+                let _ = write!(self.text, "{v}");
+            }
+        }
     }
 
     fn int(&mut self, key: &str, v: i128) {
