@@ -129,7 +129,17 @@ fn sci_digits(v: f64, decimals: usize) -> Option<(u128, i32)> {
 fn push_point(out: &mut String, q: u128, decimals: usize) {
     let mut digits = [0u8; 40];
     let mut n = digits.len();
-    let mut rest = q;
+    // 64-bit division where the value allows (128-bit division is a call).
+    let (mut wide, mut rest) = if q > u64::MAX as u128 { (q, 0) } else { (0, q as u64) };
+    while wide != 0 {
+        n -= 1;
+        digits[n] = b'0' + (wide % 10) as u8;
+        wide /= 10;
+        if wide <= u64::MAX as u128 {
+            rest = wide as u64;
+            wide = 0;
+        }
+    }
     loop {
         n -= 1;
         digits[n] = b'0' + (rest % 10) as u8;
