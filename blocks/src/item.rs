@@ -48,9 +48,15 @@ impl<T> BufferPool<T> {
 
     /// An idle buffer, emptied (a new one when none is idle).
     pub fn take(&self) -> Vec<T> {
-        let mut v = self.free.lock().unwrap_or_else(|e| e.into_inner()).pop().unwrap_or_default();
+        let mut v = self.take_as_left();
         v.clear();
         v
+    }
+
+    /// An idle buffer with whatever its last user left in it (a new, empty
+    /// one when none is idle): for a producer that overwrites it anyway.
+    pub fn take_as_left(&self) -> Vec<T> {
+        self.free.lock().unwrap_or_else(|e| e.into_inner()).pop().unwrap_or_default()
     }
 
     fn put(&self, v: Vec<T>) {

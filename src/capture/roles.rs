@@ -193,9 +193,9 @@ impl RoleMap {
             let iq = Span::pooled(into_complex(std::mem::take(frames)), &pools.iq);
             return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq, sync: None, trigger: None });
         }
-        let mut iq = pools.iq.take();
-        let mut sync = self.sync.map(|_| pools.real.take());
-        let mut trigger = self.trigger.map(|_| pools.real.take());
+        let mut iq = pools.iq.take_as_left();
+        let mut sync = self.sync.map(|_| pools.real.take_as_left());
+        let mut trigger = self.trigger.map(|_| pools.real.take_as_left());
         let (y, t) = (sync.as_mut(), trigger.as_mut());
         // The usual layouts get a loop of their own; any other the general one.
         let finite = match (self.stride, self.i, self.q, self.sync, self.trigger) {
@@ -218,8 +218,8 @@ impl RoleMap {
     }
 
     /// The signal, sync and trigger columns of frames of `S` components, with
-    /// every position fixed at compile time (`NONE`: no such column) so each
-    /// column is a tight loop. Returns whether every value taken was finite.
+    /// every position fixed at compile time (`NONE`: no such column), in one
+    /// pass. Returns whether every value of the frames was finite.
     fn split<const S: usize, const I: usize, const Q: usize, const Y: usize, const T: usize>(
         frames: &[f32],
         iq: &mut Vec<Complex32>,
@@ -227,23 +227,36 @@ impl RoleMap {
         trigger: Option<&mut Vec<f32>>,
     ) -> bool {
         let rows = frames.as_chunks::<S>().0;
-        iq.clear();
-        if Q == NONE {
-            iq.extend(rows.iter().map(|f| Complex32::new(f[I], 0.0)));
-        } else {
-            iq.extend(rows.iter().map(|f| Complex32::new(f[I], f[Q])));
-        }
-        let mut finite = all_finite(from_complex_slice(iq));
-        for (column, c) in [(sync, Y), (trigger, T)] {
-            if let Some(out) = column
-                && c != NONE
-            {
-                out.clear();
-                out.extend(rows.iter().map(|f| f[c]));
-                finite &= all_finite(out);
+        let n = rows.len();
+        // Buffers come back from the pool at their last length: resizing
+        // then writes nothing, and every element is overwritten below.
+        iq.resize(n, Complex32::new(0.0, 0.0));
+        let mut none_y = Vec::new();
+        let mut none_t = Vec::new();
+        let y = match sync {
+            Some(v) if Y != NONE => {
+                v.resize(n, 0.0);
+                &mut v[..]
+            }
+            _ => &mut none_y[..],
+        };
+        let t = match trigger {
+            Some(v) if T != NONE => {
+                v.resize(n, 0.0);
+                &mut v[..]
+            }
+            _ => &mut none_t[..],
+        };
+        for (k, (f, z)) in rows.iter().zip(iq.iter_mut()).enumerate() {
+            *z = Complex32::new(f[I], if Q == NONE { 0.0 } else { f[Q] });
+            if Y != NONE {
+                y[k] = f[Y];
+            }
+            if T != NONE {
+                t[k] = f[T];
             }
         }
-        finite
+        all_finite(frames)
     }
 
     /// [`Self::split`] for any frame width.
@@ -342,12 +355,6 @@ impl Default for ChunkPools {
 
 /// Position of a column a layout does not have.
 const NONE: usize = usize::MAX;
-
-/// Complex samples as their interleaved (re, im) floats.
-fn from_complex_slice(v: &[Complex32]) -> &[f32] {
-    // SAFETY: Complex<f32> is #[repr(C)] { re: f32, im: f32 }: 2 len floats, same alignment.
-    unsafe { std::slice::from_raw_parts(v.as_ptr().cast::<f32>(), v.len() * 2) }
-}
 
 /// Whether every value is finite; blocks of 1024 without early exit inside,
 /// so the test vectorises (a plain short-circuiting `all` does not).

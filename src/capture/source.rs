@@ -164,7 +164,7 @@ impl Block for CaptureSource {
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
         if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
             // Plain (I, Q) chunks take the read buffer over: read into a returned one.
-            self.frames = from_complex(self.pools.iq.take());
+            self.frames = from_complex(self.pools.iq.take_as_left());
         }
         // A reader may return fewer frames than asked; fill the chunk.
         let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;

@@ -291,6 +291,19 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
     // Overfilling to break a stall moves a single item.
     let max_items = if relax { 1 } else { MAX_BATCH };
     let mut samples = 0;
+    if let [(port, e)] = nd.wired[..] {
+        // One input: no merge to decide, take items in queue order.
+        let queue = &mut edges[e].queue;
+        if queue.is_empty() {
+            return edges[e].closed.then_some(Step::Finish);
+        }
+        while batch.len() < max_items && samples < MAX_BATCH_SAMPLES {
+            let Some(item) = queue.pop_front() else { break };
+            samples += item.sample_count();
+            batch.push((port, item));
+        }
+        return Some(Step::Process);
+    }
     while batch.len() < max_items && samples < MAX_BATCH_SAMPLES {
         let mut earliest: Option<(usize, usize, f64)> = None;
         let mut waiting = false;
