@@ -42,6 +42,14 @@ pub fn push_sci(out: &mut String, v: f64, decimals: usize) {
     }
 }
 
+/// Append an integer, as `{v}` would.
+pub fn push_int(out: &mut String, v: i128) {
+    if v < 0 {
+        out.push('-');
+    }
+    push_point(out, v.unsigned_abs(), 0);
+}
+
 /// Largest number of decimals handled here (10^9 keeps the products small).
 const MAX_DECIMALS: usize = 9;
 
@@ -84,7 +92,9 @@ fn scaled(m: u64, e: i32, s: i32) -> Option<u128> {
     if num >> 126 != 0 {
         return None;
     }
-    let (q, r) = (num / den, num % den);
+    // Dividing by a power of two (every fixed-point case) is a shift.
+    let (q, r) =
+        if den.is_power_of_two() { (num >> den.trailing_zeros(), num & (den - 1)) } else { (num / den, num % den) };
     let twice = r << 1;
     Some(if twice > den || (twice == den && q & 1 == 1) { q + 1 } else { q })
 }
@@ -179,6 +189,29 @@ mod tests {
             s.clear();
             push_sci(&mut s, v, d);
             assert_eq!(s, format!("{v:.d$e}"), "sci {v:e} with {d} decimals");
+        }
+    }
+
+    #[test]
+    fn integers_as_the_standard_formatter() {
+        for v in [
+            0i128,
+            1,
+            -1,
+            9,
+            10,
+            -10,
+            99,
+            100,
+            i64::MAX as i128,
+            u64::MAX as i128,
+            u64::MAX as i128 + 1,
+            i128::MIN,
+            i128::MAX,
+        ] {
+            let mut s = String::new();
+            push_int(&mut s, v);
+            assert_eq!(s, v.to_string());
         }
     }
 

@@ -129,7 +129,7 @@ impl LineBuilder {
 
     fn int(&mut self, key: &str, v: i128) {
         self.key(key);
-        let _ = write!(self.text, "{v}");
+        crate::decimal::push_int(&mut self.text, v);
     }
 
     fn text(&mut self, key: &str, v: &str) {
