@@ -62,7 +62,7 @@ impl NoiseFloor {
             return false;
         }
         let keep = self.phase == 0;
-        self.phase = (self.phase + 1) % self.stride;
+        self.phase = (self.phase + 1) & (self.stride - 1);
         if !keep {
             return false;
         }
@@ -106,7 +106,7 @@ impl NoiseFloor {
         // case; vectorised), then one at a time. Eight finite readings are
         // one whole stride, so the phase stays where it is.
         const LANES: usize = 8;
-        const _: () = assert!(FLOOR_STRIDE == LANES);
+        const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
         let per_group = if self.stride == 1 { LANES } else { 1 };
         // The one lane of a group kept once the stride applies.
         let lane = (LANES - self.phase) % LANES;
@@ -144,7 +144,8 @@ impl NoiseFloor {
             // Non-finite powers are skipped, as in `push` (branch-free).
             self.block[filled] = total_order_key(p.to_bits() as i32);
             filled += keep as usize;
-            phase = (phase + finite as usize) % self.stride;
+            // The stride is a power of two: a mask, not a division.
+            phase = (phase + finite as usize) & (self.stride - 1);
             taken += 1;
         }
         self.filled = filled;

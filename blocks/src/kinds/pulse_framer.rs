@@ -116,6 +116,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         missing_total: 0,
         next_scheduled: None,
         rise: None,
+        rise_spare: Vec::new(),
         held: Vec::new(),
         copies: Vec::new(),
         seen: 0,
@@ -136,8 +137,12 @@ struct Rise {
 }
 
 impl Rise {
-    fn new(n: u64, p: f32) -> Rise {
-        Rise { samples: vec![(n, p)], top: p }
+    /// A rise from sample `n`, kept in `buf` (a buffer of an earlier rise,
+    /// so following a pulse allocates nothing).
+    fn new(mut buf: Vec<(u64, f32)>, n: u64, p: f32) -> Rise {
+        buf.clear();
+        buf.push((n, p));
+        Rise { samples: buf, top: p }
     }
     fn push(&mut self, n: u64, p: f32) {
         self.samples.push((n, p));
@@ -201,6 +206,8 @@ struct PulseFramer {
     next_scheduled: Option<i64>,
     /// The leading edge of a leakage pulse being followed to its top.
     rise: Option<Rise>,
+    /// The samples buffer of the last rise, for the next one.
+    rise_spare: Vec<(u64, f32)>,
     /// Sweeps cut in this step, handed on at its end.
     held: Vec<HeldSweep>,
     /// Blanked copies of this step's sweeps, one buffer for all of them.
@@ -340,12 +347,15 @@ impl PulseFramer {
                         continue;
                     }
                     let at = rise.instant();
-                    self.rise = None;
+                    if let Some(done) = self.rise.take() {
+                        self.rise_spare = done.samples;
+                    }
                     self.instant(at, false, out);
                 }
                 if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
                     if self.mode == Mode::Leakage {
-                        self.rise = Some(Rise::new(n, chunk.iq[k].norm_sqr()));
+                        let buf = std::mem::take(&mut self.rise_spare);
+                        self.rise = Some(Rise::new(buf, n, chunk.iq[k].norm_sqr()));
                     } else {
                         self.instant(n, false, out);
                     }
