@@ -114,6 +114,21 @@ pub struct DwellSums {
     last_index: u64,
 }
 
+/// Sum of |x|^2 in double precision, over four running sums so the adds
+/// do not wait on each other (the noise region is most of what a range
+/// gate reads).
+pub fn power_sum(x: &[Complex32]) -> f64 {
+    let (quads, rest) = x.as_chunks::<4>();
+    let mut acc = [0f64; 4];
+    for q in quads {
+        for (a, z) in acc.iter_mut().zip(q) {
+            *a += z.norm_sqr() as f64;
+        }
+    }
+    let tail: f64 = rest.iter().map(|z| z.norm_sqr() as f64).sum();
+    (acc[0] + acc[1]) + (acc[2] + acc[3]) + tail
+}
+
 impl DwellSums {
     pub fn new(start: usize, width: usize, integration: Integration) -> DwellSums {
         let width = width.max(1);
@@ -139,15 +154,15 @@ impl DwellSums {
 
     /// Add one pulse: its gate samples, its noise reference samples, and the
     /// absolute index of its range bin 0.
-    pub fn add(&mut self, gate: &[Complex32], noise: impl Iterator<Item = Complex32>, sweep_index: u64) {
+    pub fn add(&mut self, gate: &[Complex32], noise: &[&[Complex32]], sweep_index: u64) {
         for ((p, s), x) in self.power.iter_mut().zip(self.sum.iter_mut()).zip(gate) {
             let x = Complex64::new(x.re as f64, x.im as f64);
             *p += x.norm_sqr();
             *s += x;
         }
-        for x in noise {
-            self.noise_sum += x.norm_sqr() as f64;
-            self.noise_count += 1;
+        for part in noise {
+            self.noise_sum += power_sum(part);
+            self.noise_count += part.len() as u64;
         }
         self.pulses += 1;
         let first = sweep_index + self.start as u64;
@@ -297,6 +312,16 @@ pub fn best_gate_start(power: &[f64], width: usize) -> Option<usize> {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn power_sum_matches_a_plain_sum() {
+        let mut rng = crate::dsp::rng::Rng::new(4);
+        for n in [0usize, 1, 3, 4, 5, 53, 200] {
+            let x: Vec<Complex32> = (0..n).map(|_| rng.complex_gaussian(2.0)).collect();
+            let plain: f64 = x.iter().map(|z| z.norm_sqr() as f64).sum();
+            assert!((power_sum(&x) - plain).abs() <= 1e-12 * plain.max(1.0), "{n}");
+        }
+    }
+
     use super::*;
 
     #[test]
@@ -305,7 +330,7 @@ mod tests {
         let mut sums = DwellSums::new(9, 7, Integration::Noncoherent);
         let gate: Vec<Complex32> =
             [0.0, 0.7, 1.0, 1.0, 1.0, 0.3, 0.0].iter().map(|&a| Complex32::new(a, 0.0)).collect();
-        sums.add(&gate, std::iter::empty(), 0);
+        sums.add(&gate, &[], 0);
         let s = sums.summarise(0.0, 4.0, Weighting::Amplitude, 3.0);
         assert!((s.range_bin.unwrap() - 10.3).abs() < 1e-6, "{:?}", s.range_bin);
     }

@@ -357,13 +357,11 @@ impl RangeGate {
                         ),
                     );
                 }
+                // The noise region, less any part the gate covers.
                 let noise = geo.noise_range(iq.len());
-                let noise_iter = iq[noise.clone()]
-                    .iter()
-                    .enumerate()
-                    .filter(|(k, _)| !gate.contains(&(noise.start + k)))
-                    .map(|(_, x)| *x);
-                sums.add(&iq[gate.clone()], noise_iter, sweep.stamp.index);
+                let before = noise.start..noise.end.min(gate.start).max(noise.start);
+                let after = noise.start.max(gate.end).min(noise.end)..noise.end;
+                sums.add(&iq[gate.clone()], &[&iq[before], &iq[after]], sweep.stamp.index);
             }
         }
     }
