@@ -137,13 +137,23 @@ fn sci_digits(v: f64, decimals: usize) -> Option<(u128, i32)> {
 
 /// `q / 10^decimals` with its fraction: "12.340" for (12340, 3).
 fn push_point(out: &mut String, q: u128, decimals: usize) {
-    let mut digits = [0u8; 40];
-    let mut n = digits.len();
+    // Digits are written from the right, the point among them.
+    let mut text = [0u8; 48];
+    let mut n = text.len();
+    let mut put = |digit: u8, written: &mut usize| {
+        if *written == decimals && decimals > 0 {
+            n -= 1;
+            text[n] = b'.';
+        }
+        n -= 1;
+        text[n] = b'0' + digit;
+        *written += 1;
+    };
+    let mut written = 0;
     // 64-bit division where the value allows (128-bit division is a call).
     let (mut wide, mut rest) = if q > u64::MAX as u128 { (q, 0) } else { (0, q as u64) };
     while wide != 0 {
-        n -= 1;
-        digits[n] = b'0' + (wide % 10) as u8;
+        put((wide % 10) as u8, &mut written);
         wide /= 10;
         if wide <= u64::MAX as u128 {
             rest = wide as u64;
@@ -151,29 +161,14 @@ fn push_point(out: &mut String, q: u128, decimals: usize) {
         }
     }
     loop {
-        n -= 1;
-        digits[n] = b'0' + (rest % 10) as u8;
+        put((rest % 10) as u8, &mut written);
         rest /= 10;
-        if rest == 0 {
+        // At least one digit before the point.
+        if rest == 0 && written > decimals {
             break;
         }
     }
-    // At least one digit before the point.
-    while digits.len() - n <= decimals {
-        n -= 1;
-        digits[n] = b'0';
-    }
-    let text = &digits[n..];
-    let point = text.len() - decimals;
-    for &c in &text[..point] {
-        out.push(c as char);
-    }
-    if decimals > 0 {
-        out.push('.');
-        for &c in &text[point..] {
-            out.push(c as char);
-        }
-    }
+    out.push_str(std::str::from_utf8(&text[n..]).unwrap_or_default());
 }
 
 #[cfg(test)]

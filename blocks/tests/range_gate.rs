@@ -64,7 +64,8 @@ fn centroid_range_of_fractional_box_echoes_within_0_15_bin_rms() {
     // 4-sample box echoes at 100.0..101.0 bins, per-sample SNR 10 dB, 8 pulses per dwell.
     let scene = Scene { sweep_len: 300, pulses: 8, dwells: 60, noise: [1.0, 1.0] };
     let delays: Vec<f64> = (0..60).map(|d| 100.0 + (d as f64 * 0.618_034).fract()).collect();
-    let items = sweeps(&scene, 11, |d, _, rng| (delays[d as usize], 4.0, 10f64.sqrt(), rng.uniform() * 6.283));
+    let items =
+        sweeps(&scene, 11, |d, _, rng| (delays[d as usize], 4.0, 10f64.sqrt(), rng.uniform() * std::f64::consts::TAU));
     let mut block = build(&SPEC, &[("gate_start", "100 bins"), ("gate_width", "5 bins"), ("pulse", "4 samples")]);
     let out = dwells(&run(block.as_mut(), items));
     assert_eq!(out.len(), 60);
@@ -84,7 +85,7 @@ fn noncoherent_spread_matches_field_notes_formula_by_monte_carlo() {
     // One-bin gate, E = 16 per pulse, N = 4; field notes §4: var(ln A) = (G/E^2 + 2/E)/(4N).
     // A wide noise region keeps the noise estimate's own spread negligible.
     let scene = Scene { sweep_len: 700, pulses: 4, dwells: 1500, noise: [1.0, 1.0] };
-    let items = sweeps(&scene, 5, |_, _, rng| (150.0, 1.0, 4.0, rng.uniform() * 6.283));
+    let items = sweeps(&scene, 5, |_, _, rng| (150.0, 1.0, 4.0, rng.uniform() * std::f64::consts::TAU));
     let mut block = build(&SPEC, &[("gate_start", "150 bins"), ("gate_width", "1 bins"), ("noise_width", "512 bins")]);
     let out = dwells(&run(block.as_mut(), items));
     let ln: Vec<f64> = out.iter().map(|r| r.amplitude.ln()).collect();
@@ -134,7 +135,7 @@ fn acquire_finds_a_planted_echo_and_follow_tracks_it() {
         let delay = |d: u64| {
             if d < 10 { 230.25 } else { 230.25 + (d - 10) as f64 * 0.2 }
         };
-        let items = sweeps(&scene, 21, |d, _, rng| (delay(d), 3.0, 5.0, rng.uniform() * 6.283));
+        let items = sweeps(&scene, 21, |d, _, rng| (delay(d), 3.0, 5.0, rng.uniform() * std::f64::consts::TAU));
         let mut block = build(
             &SPEC,
             &[
@@ -231,7 +232,7 @@ fn centroid_range_after_a_matched_filter_uses_a_one_sample_pulse() {
     use lobeflow_blocks::dsp::spectrum::correlate_direct;
     let scene = Scene { sweep_len: 300, pulses: 8, dwells: 40, noise: [1.0, 1.0] };
     let delays: Vec<f64> = (0..40).map(|d| 140.0 + (d as f64 * 0.37).fract()).collect();
-    let raw = sweeps(&scene, 31, |d, _, rng| (delays[d as usize], 8.0, 4.0, rng.uniform() * 6.283));
+    let raw = sweeps(&scene, 31, |d, _, rng| (delays[d as usize], 8.0, 4.0, rng.uniform() * std::f64::consts::TAU));
     let reference = vec![Complex32::new(1.0, 0.0); 8];
     let scale = 1.0 / 8f32.sqrt();
     let items: Vec<Item> = raw

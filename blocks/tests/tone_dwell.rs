@@ -20,7 +20,7 @@ fn dwell_items(dwells: u64, m: usize, pieces: usize, freq: f64, amp: f64, noise_
     let gap = 100u64; // switch guard between dwells
     for d in 0..dwells {
         let start = d * (m as u64 + gap);
-        let phase0 = rng.uniform() * 6.283;
+        let phase0 = rng.uniform() * std::f64::consts::TAU;
         let iq: Vec<Complex32> = (0..m)
             .map(|n| {
                 let ph = phase0 + 2.0 * std::f64::consts::PI * freq * (start + n as u64) as f64 / RATE;

@@ -189,7 +189,11 @@ impl RoleMap {
     ) -> Result<SampleChunk, BlockError> {
         let check = info.encoding.is_float();
         // Fast path, taken almost always: every value finite (or integer data).
-        if self.is_plain_iq() && frames.len() % 2 == 0 && frames.capacity() % 2 == 0 && (!check || all_finite(frames)) {
+        if self.is_plain_iq()
+            && frames.len().is_multiple_of(2)
+            && frames.capacity().is_multiple_of(2)
+            && (!check || all_finite(frames))
+        {
             let iq = Span::pooled(into_complex(std::mem::take(frames)), &pools.iq);
             return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq, sync: None, trigger: None });
         }
@@ -374,7 +378,7 @@ pub fn from_complex(v: Vec<Complex32>) -> Vec<f32> {
 
 /// Reinterpret interleaved (re, im) floats as complex samples, in place.
 fn into_complex(v: Vec<f32>) -> Vec<Complex32> {
-    debug_assert!(v.len() % 2 == 0 && v.capacity() % 2 == 0);
+    debug_assert!(v.len().is_multiple_of(2) && v.capacity().is_multiple_of(2));
     let mut v = std::mem::ManuallyDrop::new(v);
     let (ptr, len, cap) = (v.as_mut_ptr(), v.len(), v.capacity());
     // SAFETY: Complex<f32> is #[repr(C)] { re: f32, im: f32 }: size 8, align 4,
