@@ -75,8 +75,10 @@ const MAX_BATCH_SAMPLES: usize = 1 << 16;
 /// (a 50 us capture read beside 0.1 us pass and discard steps) only loses time.
 const WAKE_WORTH: Duration = Duration::from_micros(3);
 /// How long a worker that found nothing to do watches for work before it
-/// sleeps: about one capture read, the usual wait in a chain.
-const SPIN_FOR: Duration = Duration::from_micros(50);
+/// sleeps: a few capture reads, the usual wait in a chain. (Waking a sleeping
+/// worker took up to 4 ms on a virtual machine; at 50 us a worker often fell
+/// asleep just before a read ended.)
+const SPIN_FOR: Duration = Duration::from_micros(200);
 
 struct Node {
     name: Arc<str>,
