@@ -200,15 +200,14 @@ impl RoleMap {
         let mut iq = pools.iq.take_as_left();
         let mut sync = self.sync.map(|_| pools.real.take_as_left());
         let mut trigger = self.trigger.map(|_| pools.real.take_as_left());
-        let (y, t) = (sync.as_mut(), trigger.as_mut());
         // The usual layouts get a loop of their own; any other the general one.
-        let finite = match (self.stride, self.i, self.q, self.sync, self.trigger) {
-            (2, 0, Some(1), None, None) => Self::split::<2, 0, 1, NONE, NONE>(frames, &mut iq, y, t),
-            (3, 0, Some(1), Some(2), None) if y.is_some() => split_iq_sync(frames, &mut iq, y),
-            (4, 0, Some(1), Some(2), None) => Self::split::<4, 0, 1, 2, NONE>(frames, &mut iq, y, t),
-            (4, 0, Some(1), Some(2), Some(3)) => Self::split::<4, 0, 1, 2, 3>(frames, &mut iq, y, t),
-            (6, 0, Some(1), Some(2), Some(4)) => Self::split::<6, 0, 1, 2, 4>(frames, &mut iq, y, t),
-            _ => self.split_any(frames, &mut iq, y, t),
+        let finite = match (self.stride, self.i, self.q, self.sync, self.trigger, sync.as_mut(), trigger.as_mut()) {
+            (2, 0, Some(1), None, None, y, t) => Self::split::<2, 0, 1, NONE, NONE>(frames, &mut iq, y, t),
+            (3, 0, Some(1), Some(2), None, Some(y), None) => split_iq_sync(frames, &mut iq, y),
+            (4, 0, Some(1), Some(2), None, y, t) => Self::split::<4, 0, 1, 2, NONE>(frames, &mut iq, y, t),
+            (4, 0, Some(1), Some(2), Some(3), y, t) => Self::split::<4, 0, 1, 2, 3>(frames, &mut iq, y, t),
+            (6, 0, Some(1), Some(2), Some(4), y, t) => Self::split::<6, 0, 1, 2, 4>(frames, &mut iq, y, t),
+            (.., y, t) => self.split_any(frames, &mut iq, y, t),
         };
         if check && !finite {
             self.replace_nonfinite(frames, first, info, policy, replaced, &mut iq, sync.as_mut(), trigger.as_mut())?;
@@ -360,8 +359,7 @@ impl Default for ChunkPools {
 /// The usual WAV layout, (I, Q, sync) frames, four at a time by vector
 /// shuffles where the machine has them (it is most of a capture read's own
 /// work). Returns whether every value of the frames was finite.
-fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: Option<&mut Vec<f32>>) -> bool {
-    let Some(sync) = sync else { return RoleMap::split::<3, 0, 1, NONE, NONE>(frames, iq, None, None) };
+fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -> bool {
     let rows = frames.as_chunks::<3>().0;
     iq.resize(rows.len(), Complex32::new(0.0, 0.0));
     sync.resize(rows.len(), 0.0);
@@ -457,13 +455,13 @@ mod tests {
         for n in [0usize, 1, 3, 4, 5, 7, 8, 9, 64, 1001] {
             let frames: Vec<f32> = (0..3 * n).map(|k| k as f32 + 0.25).collect();
             let (mut iq, mut sync) = (Vec::new(), Vec::new());
-            assert!(split_iq_sync(&frames, &mut iq, Some(&mut sync)));
+            assert!(split_iq_sync(&frames, &mut iq, &mut sync));
             let (mut iq2, mut sync2) = (Vec::new(), Vec::new());
             RoleMap::split::<3, 0, 1, 2, NONE>(&frames, &mut iq2, Some(&mut sync2), None);
             assert_eq!((iq, sync), (iq2, sync2), "{n} frames");
         }
         let mut bad: Vec<f32> = (0..30).map(|k| k as f32).collect();
         bad[13] = f32::NAN;
-        assert!(!split_iq_sync(&bad, &mut Vec::new(), Some(&mut Vec::new())));
+        assert!(!split_iq_sync(&bad, &mut Vec::new(), &mut Vec::new()));
     }
 }
