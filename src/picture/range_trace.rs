@@ -91,15 +91,15 @@ impl Block for RangeTrace {
         let Item::Sweep(sweep) = item else {
             return Ok(());
         };
-        let (name, order) = match (&sweep.lobe, self.separate) {
-            (Some(tag), true) => (tag.name.to_string(), tag.lobe),
-            (None, true) => ("untagged".to_string(), usize::MAX),
-            (_, false) => ("all lobes".to_string(), 0),
+        let (name, order): (&str, usize) = match (&sweep.lobe, self.separate) {
+            (Some(tag), true) => (&tag.name, tag.lobe),
+            (None, true) => ("untagged", usize::MAX),
+            (_, false) => ("all lobes", 0),
         };
         let params = &self.params;
         let kept = self
             .averages
-            .add(&name, order, &sweep, |s| BinWindow::from_params(params, "range_start", "range_end", s))?;
+            .add(name, order, &sweep, |s| BinWindow::from_params(params, "range_start", "range_end", s))?;
         if !kept && !self.dropped_noticed {
             self.dropped_noticed = true;
             out.notice(
