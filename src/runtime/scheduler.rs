@@ -14,6 +14,8 @@
 //! wake-up each; after delivering it picks its next block under the same lock.
 //! A sleeping worker is woken only when the ready work, at each block's recent
 //! cost per step, is enough to share; otherwise the awake one runs it alone.
+//! A worker that finds nothing to do watches for new work for a moment
+//! ([`SPIN_FOR`]) before it sleeps.
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory

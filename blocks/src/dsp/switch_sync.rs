@@ -86,8 +86,8 @@ pub(crate) fn min_spacing(levels: &[f64]) -> f64 {
 const EMPTY_BAND: (f32, f32) = (f32::INFINITY, f32::NEG_INFINITY);
 
 /// The float32 values inside `[lo, hi]`, as float32 bounds rounded inwards
-/// (the sync channel arrives as float32; comparing in its own type lets the
-/// test run eight or more samples per instruction).
+/// (the sync channel arrives as float32; comparing in its own type tests
+/// twice as many samples per vector instruction, with no conversion).
 fn float32_band(lo: f64, hi: f64) -> (f32, f32) {
     let (mut a, mut b) = (lo as f32, hi as f32);
     if (a as f64) < lo {
