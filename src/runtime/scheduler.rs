@@ -8,14 +8,14 @@
 //! any number of workers. Several inputs of one block are merged in time
 //! order (ties by port number), which is also independent of timing.
 //!
-//! A worker takes up to [`MAX_BATCH`] queued items of a block (at most about
+//! A worker takes up to `MAX_BATCH` queued items of a block (at most about
 //! four default capture chunks of samples) under one lock acquisition and runs them in
 //! order, so small items (sweeps, dwells) do not pay a lock round trip and a
 //! wake-up each; after delivering it picks its next block under the same lock.
 //! A sleeping worker is woken only when the ready work, at each block's recent
 //! cost per step, is enough to share; otherwise the awake one runs it alone.
 //! A worker that finds nothing to do watches for new work for a moment
-//! ([`SPIN_FOR`]) before it sleeps.
+//! (`SPIN_FOR`) before it sleeps.
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory
