@@ -419,7 +419,7 @@ fn all_finite(v: &[f32]) -> bool {
 }
 
 /// Complex samples back to interleaved (re, im) floats, in place (the
-/// inverse of `into_complex`, for refilling a reclaimed buffer).
+/// inverse of `into_complex`, for reading into a returned chunk buffer).
 pub fn from_complex(v: Vec<Complex32>) -> Vec<f32> {
     let mut v = std::mem::ManuallyDrop::new(v);
     let (ptr, len, cap) = (v.as_mut_ptr(), v.len(), v.capacity());
