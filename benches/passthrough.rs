@@ -1,5 +1,5 @@
 //! Pass-through benchmark: a cf32_le capture of at least 1 GiB read by
-//! `capture_source`, handed through `pass`, dropped by `discard`, against a
+//! `capture_reader`, handed through `pass`, dropped by `discard`, against a
 //! plain sequential read of the same file in the same run.
 //!
 //! `cargo bench --bench passthrough` (set LOBEFLOW_BENCH_GIB to change the
@@ -24,7 +24,7 @@ fn main() {
     std::fs::write(
         &graph,
         format!(
-            "title: pass-through benchmark\nblocks:\n  read: {{kind: capture_source, set: {{path: {}, format: raw, datatype: cf32_le, rate: 10 MS/s}}}}\n  hand: {{kind: pass}}\n  drop: {{kind: discard}}\nwiring:\n  - read -> hand -> drop\n",
+            "title: pass-through benchmark\nblocks:\n  read: {{kind: capture_reader, set: {{path: {}, format: raw, datatype: cf32_le, rate: 10 MS/s}}}}\n  hand: {{kind: pass}}\n  drop: {{kind: discard}}\nwiring:\n  - read -> hand -> drop\n",
             data.display()
         ),
     )

@@ -1,4 +1,4 @@
-//! The embedding API: load a graph, set knobs, run it, or listen to one of
+//! The embedding API: load a graph, set settings, run it, or listen to one of
 //! its ports as a `futures::Stream` while it runs.
 
 use crate::error::Error;

@@ -479,13 +479,13 @@ fn standard_input_is_read_through_the_command() {
 }
 
 #[test]
-fn capture_source_runs_in_a_graph() {
+fn capture_reader_runs_in_a_graph() {
     // scipy-written float32 capture through the registered kind, a graph file and the scheduler
     let dir = std::env::temp_dir().join(format!("lobeflow-graph-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let graph = dir.join("read.yaml");
     let yaml = format!(
-        "title: read a capture\nknobs:\n  input: {{default: {}, doc: capture}}\nblocks:\n  read: {{kind: capture_source, set: {{path: $input, chunk: 50}}}}\n  sink: {{kind: discard}}\nwiring:\n  - read -> sink\n",
+        "title: read a capture\nknobs:\n  input: {{default: {}, doc: capture}}\nblocks:\n  read: {{kind: capture_reader, set: {{path: $input, chunk: 50}}}}\n  sink: {{kind: discard}}\nwiring:\n  - read -> sink\n",
         good("scipy_f32_iqst.wav")
     );
     std::fs::write(&graph, yaml).unwrap();

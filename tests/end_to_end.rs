@@ -25,13 +25,13 @@ fn dir(name: &str) -> PathBuf {
     d
 }
 
-/// Synthesize `scenario` (YAML text) and run `graph` on it with `knobs`.
+/// Synthesize `scenario` (YAML text) and run `graph` on it with `settings`.
 fn synth_and_run(
     name: &str,
     scenario: &str,
     capture_suffix: &str,
     graph: &str,
-    knobs: &[(&str, &str)],
+    settings: &[(&str, &str)],
 ) -> (Table, Table) {
     let d = dir(name);
     let sc = d.join("scenario.yaml");
@@ -40,7 +40,7 @@ fn synth_and_run(
     synthesize(&file, &d.join("cap")).unwrap();
     let mut s = Session::open(repo(graph)).unwrap();
     s.set("input", d.join(format!("cap{capture_suffix}")).to_str().unwrap());
-    for (k, v) in knobs {
+    for (k, v) in settings {
         s.set(k, v);
     }
     s.out_dir(d.join("out")).threads(2);
@@ -196,9 +196,9 @@ lobes:\n  - {{name: left, toward: left}}\n  - {{name: right, toward: right}}\n\
 signal:\n  beacon: {{tone: 5 kHz, snr: {snr} dB, dwell: 4 ms, first_lobe_start: 0 ms}}\n\
 target:\n  az: {{at: 1.5 deg}}\n  el: {{at: 0 deg}}\n"
         );
-        let knobs = [("dwell", "4 ms"), ("first_start", "-1 ms"), ("guard", "0.2 ms"), ("tone", "5 kHz")];
+        let settings = [("dwell", "4 ms"), ("first_start", "-1 ms"), ("guard", "0.2 ms"), ("tone", "5 kHz")];
         let (angles, truth) =
-            synth_and_run(&format!("beacon{snr}"), &sc, ".sigmf-meta", "graphs/two-lobe-beacon.yaml", &knobs);
+            synth_and_run(&format!("beacon{snr}"), &sc, ".sigmf-meta", "graphs/two-lobe-beacon.yaml", &settings);
         let s = score(&angles, &truth, "az");
         assert!(s.n >= 950, "snr {snr}: only {} estimates", s.n);
         assert!(s.rms <= 1.10 * s.sigma, "snr {snr}: RMS {:.4} deg vs predicted {:.4} deg", s.rms, s.sigma);
@@ -219,7 +219,7 @@ fn targets_outside_the_usable_region_are_flagged_not_reported() {
         )
         .replace("  - {name: up, toward: up}\n", "")
         .replace("  - {name: down, toward: down}\n", "");
-    let knobs = [
+    let settings = [
         ("lobe_order", "right,left"),
         ("pairs", "az=right/left"),
         ("beam", "uniform"),
@@ -227,13 +227,13 @@ fn targets_outside_the_usable_region_are_flagged_not_reported() {
         ("squint", "3.5 deg"),
         ("detect", "4"),
     ];
-    let (angles, truth) = synth_and_run("outside", &base, ".wav", "graphs/four-lobe-pulsed.yaml", &knobs);
+    let (angles, truth) = synth_and_run("outside", &base, ".wav", "graphs/four-lobe-pulsed.yaml", &settings);
     let s = score(&angles, &truth, "az");
     assert_eq!(s.n, 0, "a target 5 deg off must give no numbers: {s:?}");
     assert!(s.flagged >= 60, "{s:?}");
     // The same rig with the target inside its region reads it.
     let inside = base.replace("az: {at: 5.0 deg}", "az: {at: 3.0 deg}");
-    let (angles, truth) = synth_and_run("inside", &inside, ".wav", "graphs/four-lobe-pulsed.yaml", &knobs);
+    let (angles, truth) = synth_and_run("inside", &inside, ".wav", "graphs/four-lobe-pulsed.yaml", &settings);
     let s = score(&angles, &truth, "az");
     assert!(s.n >= 60 && s.rms <= 1.5 * s.sigma + 0.01, "{s:?}");
 }

@@ -62,7 +62,7 @@ fn expect(name: &str, text: &str, line: usize, needle: &str) -> GraphError {
 
 const GOOD: &str = "\
 title: good
-knobs:
+settings:
   n: {default: 1000, doc: samples}
   rate: {default: 2, unit: MS/s, doc: sample rate}
 blocks:
@@ -83,7 +83,7 @@ fn a_good_graph_resolves_with_units_from_knobs() {
     assert_eq!(g.wires.len(), 2);
     // The knob's unit (MS/s) applied to the bare number 2.
     assert_eq!(g.blocks[0].params.num("rate").unwrap(), 2e6);
-    assert!(matches!(g.knobs[0].origin, Origin::Default { line: 3, .. }));
+    assert!(matches!(g.settings[0].origin, Origin::Default { line: 3, .. }));
 }
 
 #[test]
@@ -186,8 +186,8 @@ fn overrides_apply_in_order_and_unknown_ones_are_refused() {
     let g = resolve(&p, &o, &registry()).unwrap();
     assert_eq!(g.blocks[0].params.int("samples").unwrap(), 5000);
     assert_eq!(g.blocks[0].params.num("rate").unwrap(), 1e6);
-    assert!(matches!(g.knobs[1].origin, Origin::ParamsFile { line: 3, .. }));
-    assert_eq!(g.knobs[0].origin, Origin::CommandLine);
+    assert!(matches!(g.settings[1].origin, Origin::ParamsFile { line: 3, .. }));
+    assert_eq!(g.settings[0].origin, Origin::CommandLine);
 
     std::fs::write(&params, "n: 4000\nrte: 1\n").unwrap();
     let mut o = Overrides::default();

@@ -96,7 +96,7 @@ fn regress_passes_then_catches_a_flipped_sign_and_a_wrong_squint() {
     // A flipped sign convention in the beacon graph: azimuth reads mirrored.
     edit(&d.join("graphs/two-lobe-beacon.yaml"), "default: \"az=right/left\"", "default: \"az=left/right\"");
     // A wrong squint for the pulsed sample: the angle scale is off.
-    edit(&d.join("samples/four-lobe-pulsed.check.yaml"), "checks:", "knobs: {squint: 3.4 deg}\nchecks:");
+    edit(&d.join("samples/four-lobe-pulsed.check.yaml"), "checks:", "settings: {squint: 3.4 deg}\nchecks:");
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(1), "{}", String::from_utf8_lossy(&out.stdout));
     let table = String::from_utf8_lossy(&out.stdout);

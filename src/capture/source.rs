@@ -1,4 +1,4 @@
-//! `capture_source`: reads a capture (WAV, SigMF, raw file or standard input)
+//! `capture_reader`: reads a capture (WAV, SigMF, raw file or standard input)
 //! and emits its samples in chunks, stamped from sample 0 at the file's rate.
 
 use super::reader::{CaptureReader, Format, OpenOptions, open};
@@ -9,7 +9,7 @@ use lobeflow_blocks::{
 };
 
 pub const SPEC: BlockSpec = BlockSpec {
-    kind: "capture_source",
+    kind: "capture_reader",
     doc: "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
     inputs: &[],
     outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the capture's samples, from sample 0")],

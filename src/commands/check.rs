@@ -6,7 +6,7 @@ use lobeflow_blocks::{ParamType, Value};
 use std::fmt::Write;
 use std::path::Path;
 
-/// Resolve `path` and describe it: knobs (value and origin), blocks with
+/// Resolve `path` and describe it: settings (value and origin), blocks with
 /// every parameter and where it came from, and the wires.
 pub fn check(path: &Path, overrides: &Overrides) -> Result<String, Error> {
     let g = resolve(path, overrides, &crate::registry())?;
@@ -22,7 +22,7 @@ pub fn describe(g: &ResolvedGraph) -> String {
         if g.title.is_empty() { String::new() } else { format!(": {}", g.title) }
     );
     let _ = writeln!(s, "\nknobs:");
-    for k in &g.knobs {
+    for k in &g.settings {
         let unit = k.unit.as_deref().map(|u| format!(" [{u}]")).unwrap_or_default();
         let _ = writeln!(s, "  {} = {}{unit}    ({})", k.name, k.value, k.origin);
     }

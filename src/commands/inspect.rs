@@ -34,7 +34,7 @@ pub struct InspectArgs {
 }
 
 /// Arguments as typed on the command line; the rate takes units like the
-/// `rate` parameter of `capture_source` (e.g. `2.4 MS/s`).
+/// `rate` parameter of `capture_reader` (e.g. `2.4 MS/s`).
 pub fn args_from_text(
     path: String,
     format: &str,

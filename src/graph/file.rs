@@ -5,10 +5,10 @@
 //! ```yaml
 //! title: two-lobe beacon tracker
 //! about: one paragraph for `lobeflow check`
-//! knobs:                      # the installation's numbers, overridable
+//! settings:                      # the installation's numbers, overridable
 //!   beamwidth: {default: 12, unit: deg, doc: one-way 3 dB beamwidth}
 //! blocks:                     # named instances
-//!   read:  {kind: capture_source, set: {path: $input}}
+//!   read:  {kind: capture_reader, set: {path: $input}}
 //!   front: {use: parts/front-end.yaml, set: {rate: $rate}}   # a composite
 //! wiring:                     # chains of ports, left to right
 //!   - read -> front -> pairs.dwells
@@ -75,13 +75,13 @@ pub struct GraphFile {
     pub source: Arc<Source>,
     pub title: String,
     pub about: String,
-    pub knobs: Vec<KnobDecl>,
+    pub settings: Vec<KnobDecl>,
     pub blocks: Vec<BlockDecl>,
     pub wiring: Vec<String>,
     pub exposes: Exposes,
 }
 
-const TOP_KEYS: &[&str] = &["title", "about", "knobs", "blocks", "wiring", "exposes"];
+const TOP_KEYS: &[&str] = &["title", "about", "settings", "blocks", "wiring", "exposes"];
 const KNOB_KEYS: &[&str] = &["default", "unit", "doc"];
 const BLOCK_KEYS: &[&str] = &["kind", "use", "set", "doc"];
 
@@ -192,11 +192,11 @@ impl GraphFile {
             None => String::new(),
         };
 
-        let mut knobs = Vec::new();
-        if let Some(v) = get("knobs") {
-            for (k, body) in mapping(&src, &[key("knobs")], v, "knobs")? {
+        let mut settings = Vec::new();
+        if let Some(v) = get("settings") {
+            for (k, body) in mapping(&src, &[key("settings")], v, "settings")? {
                 let name = k.as_str().unwrap_or_default().to_string();
-                let at = [key("knobs"), key(&name)];
+                let at = [key("settings"), key(&name)];
                 check_name(&src, &at, &name, "knob")?;
                 let decl = match body {
                     Value::Mapping(m) => {
@@ -204,7 +204,7 @@ impl GraphFile {
                         let default = match m.get("default") {
                             Some(d) => Some(raw_value(d).ok_or_else(|| {
                                 src.error(
-                                    &[key("knobs"), key(&name), key("default")],
+                                    &[key("settings"), key(&name), key("default")],
                                     "default must be a number, text, true/false or a list",
                                 )
                             })?),
@@ -226,7 +226,7 @@ impl GraphFile {
                         }
                     }
                 };
-                knobs.push(decl);
+                settings.push(decl);
             }
         }
 
@@ -305,7 +305,7 @@ impl GraphFile {
             }
         }
 
-        Ok(GraphFile { source: src, title, about, knobs, blocks, wiring, exposes })
+        Ok(GraphFile { source: src, title, about, settings, blocks, wiring, exposes })
     }
 }
 

@@ -1,4 +1,4 @@
-//! Graph files: reading them, settling knobs, expanding composites and
+//! Graph files: reading them, settling settings, expanding composites and
 //! checking everything before a sample flows.
 
 mod checks;

@@ -144,7 +144,7 @@ pub struct ResolvedGraph {
     pub path: PathBuf,
     pub title: String,
     pub about: String,
-    pub knobs: Vec<KnobValue>,
+    pub settings: Vec<KnobValue>,
     pub blocks: Vec<ResolvedBlock>,
     pub wires: Vec<Wire>,
 }
@@ -173,10 +173,10 @@ pub(super) struct Builder<'r> {
 /// Load `path`, apply `overrides`, expand and check everything.
 pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Result<ResolvedGraph, GraphError> {
     let file = GraphFile::load(path)?;
-    let mut knobs = settle_knobs(&file, BTreeMap::new())?;
+    let mut settings = settle_knobs(&file, BTreeMap::new())?;
     for o in &overrides.items {
-        let Some(k) = knobs.get_mut(&o.name) else {
-            let names: Vec<&str> = file.knobs.iter().map(|k| k.name.as_str()).collect();
+        let Some(k) = settings.get_mut(&o.name) else {
+            let names: Vec<&str> = file.settings.iter().map(|k| k.name.as_str()).collect();
             let (f, line) = match &o.origin {
                 Origin::ParamsFile { file, line } => (file.clone(), *line),
                 _ => (PathBuf::from("--set"), 0),
@@ -188,23 +188,23 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
                 message: format!("knob '{}' is not defined by {}", o.name, path.display()),
                 hint: None,
             }
-            .hint_closest(&o.name, names.iter().copied(), &format!("its knobs: {}", names.join(", "))));
+            .hint_closest(&o.name, names.iter().copied(), &format!("its settings: {}", names.join(", "))));
         };
         k.value = o.value.clone();
         k.origin = o.origin.clone();
         k.base = o.base.clone();
     }
-    for decl in &file.knobs {
-        if matches!(knobs[&decl.name].value, RawValue::List(ref l) if l.is_empty()) {
+    for decl in &file.settings {
+        if matches!(settings[&decl.name].value, RawValue::List(ref l) if l.is_empty()) {
             return Err(file
                 .source
-                .error(&[key("knobs"), key(&decl.name)], format!("knob '{}' has no value", decl.name))
+                .error(&[key("settings"), key(&decl.name)], format!("knob '{}' has no value", decl.name))
                 .with_hint(format!("give it a default, or set it: --set {}=VALUE", decl.name)));
         }
     }
     let mut b =
         Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
-    let scope = expand(&file, "", &knobs, &mut b)?;
+    let scope = expand(&file, "", &settings, &mut b)?;
     // A composite checked on its own: the inputs it exposes are wired by
     // whoever uses it, so they count as wired here.
     let mut exposed = Vec::new();
@@ -214,12 +214,12 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
     }
     super::checks::required_inputs(&b, &exposed)?;
     super::checks::no_cycles(&b)?;
-    let ordered: Vec<KnobValue> = file.knobs.iter().map(|d| knobs[&d.name].clone()).collect();
+    let ordered: Vec<KnobValue> = file.settings.iter().map(|d| settings[&d.name].clone()).collect();
     Ok(ResolvedGraph {
         path: path.to_path_buf(),
         title: file.title.clone(),
         about: file.about.clone(),
-        knobs: ordered,
+        settings: ordered,
         blocks: b.blocks,
         wires: b.wires,
     })
@@ -237,8 +237,8 @@ fn settle_knobs(
 ) -> Result<BTreeMap<String, KnobValue>, GraphError> {
     let src = &file.source;
     let mut out = BTreeMap::new();
-    for d in &file.knobs {
-        let (line, _) = locate(&src.text, &[key("knobs"), key(&d.name)]);
+    for d in &file.settings {
+        let (line, _) = locate(&src.text, &[key("settings"), key(&d.name)]);
         let mut v = KnobValue {
             name: d.name.clone(),
             value: d.default.clone().unwrap_or(RawValue::List(Vec::new())),
@@ -262,17 +262,17 @@ fn settle_knobs(
 fn substitute(
     raw: &RawValue,
     ty: Option<&ParamType>,
-    knobs: &BTreeMap<String, KnobValue>,
+    settings: &BTreeMap<String, KnobValue>,
     src: &Source,
     at: &[Seg],
 ) -> Result<(RawValue, Option<KnobValue>), GraphError> {
     let RawValue::Text(t) = raw else { return Ok((raw.clone(), None)) };
     let Some(name) = t.strip_prefix('$') else { return Ok((raw.clone(), None)) };
-    let Some(k) = knobs.get(name) else {
+    let Some(k) = settings.get(name) else {
         return Err(src.error(at, format!("knob '{name}' is referenced but not defined")).hint_closest(
             name,
-            knobs.keys().map(String::as_str),
-            "declare it under 'knobs:'",
+            settings.keys().map(String::as_str),
+            "declare it under 'settings:'",
         ));
     };
     if matches!(k.value, RawValue::List(ref l) if l.is_empty()) {
@@ -292,7 +292,7 @@ fn substitute(
 fn expand(
     file: &GraphFile,
     prefix: &str,
-    knobs: &BTreeMap<String, KnobValue>,
+    settings: &BTreeMap<String, KnobValue>,
     b: &mut Builder,
 ) -> Result<HashMap<String, Local>, GraphError> {
     let src = &file.source;
@@ -322,7 +322,7 @@ fn expand(
                                 &format!("its parameters: {}", names.join(", ")),
                             ));
                     };
-                    let (value, knob) = substitute(raw, Some(&ps.ty), knobs, src, &pat)?;
+                    let (value, knob) = substitute(raw, Some(&ps.ty), settings, src, &pat)?;
                     let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
                     let mut parsed = ps.parse(&value).map_err(|m| {
                         let via = knob
@@ -392,15 +392,15 @@ fn expand(
                 let mut given = BTreeMap::new();
                 for (kname, raw) in &decl.set {
                     let pat = [key("blocks"), key(&decl.name), key("set"), key(kname)];
-                    let Some(cd) = child.knobs.iter().find(|k| &k.name == kname) else {
-                        let names: Vec<&str> = child.knobs.iter().map(|k| k.name.as_str()).collect();
+                    let Some(cd) = child.settings.iter().find(|k| &k.name == kname) else {
+                        let names: Vec<&str> = child.settings.iter().map(|k| k.name.as_str()).collect();
                         return Err(src.error(&pat, format!("'{rel}' has no knob '{kname}'")).hint_closest(
                             kname,
                             names.iter().copied(),
-                            &format!("its knobs: {}", names.join(", ")),
+                            &format!("its settings: {}", names.join(", ")),
                         ));
                     };
-                    let (value, knob) = substitute(raw, None, knobs, src, &pat)?;
+                    let (value, knob) = substitute(raw, None, settings, src, &pat)?;
                     let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
                     given.insert(
                         kname.clone(),
@@ -415,7 +415,7 @@ fn expand(
                     );
                 }
                 let child_knobs = settle_knobs(&child, given)?;
-                for cd in &child.knobs {
+                for cd in &child.settings {
                     if matches!(child_knobs[&cd.name].value, RawValue::List(ref l) if l.is_empty()) {
                         return Err(src
                             .error(&at, format!("composite '{}' needs knob '{}' set", decl.name, cd.name))

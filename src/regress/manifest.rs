@@ -1,4 +1,4 @@
-//! Sample manifests: which graph a sample runs through, with which knobs,
+//! Sample manifests: which graph a sample runs through, with which settings,
 //! and what must hold afterwards.
 //!
 //! ```yaml
@@ -6,7 +6,7 @@
 //! graph: ../graphs/four-lobe-pulsed.yaml
 //! capture: ridge-four-lobe.wav
 //! truth: ridge-four-lobe.truth.csv
-//! knobs: {guard: 12 us}
+//! settings: {guard: 12 us}
 //! checks:
 //!   - {measure: estimates, axis: az, min: 40}
 //!   - {measure: rms_error, axis: az, max: 0.05}        # degrees
@@ -99,7 +99,7 @@ struct Raw {
     capture: String,
     truth: Option<String>,
     #[serde(default)]
-    knobs: BTreeMap<String, serde_yaml::Value>,
+    settings: BTreeMap<String, serde_yaml::Value>,
     #[serde(default)]
     checks: Vec<Check>,
     #[serde(default)]
@@ -117,7 +117,7 @@ pub struct Manifest {
     pub capture: PathBuf,
     pub truth: Option<PathBuf>,
     /// Knob overrides, as a params file would give them.
-    pub knobs: crate::graph::Overrides,
+    pub settings: crate::graph::Overrides,
     pub checks: Vec<Check>,
     pub golden: Vec<Golden>,
 }
@@ -175,13 +175,13 @@ impl Manifest {
                 ));
             }
         }
-        let mut knobs = crate::graph::Overrides::default();
-        for (name, v) in &raw.knobs {
+        let mut settings = crate::graph::Overrides::default();
+        for (name, v) in &raw.settings {
             let value = crate::graph::file::raw_value(v).ok_or_else(|| {
-                err(&[key("knobs"), key(name)], format!("knob '{name}' must be a number, text, true/false or a list"))
+                err(&[key("settings"), key(name)], format!("knob '{name}' must be a number, text, true/false or a list"))
             })?;
-            let (line, _) = locate(&text, &[key("knobs"), key(name)]);
-            knobs.items.push(crate::graph::Override {
+            let (line, _) = locate(&text, &[key("settings"), key(name)]);
+            settings.items.push(crate::graph::Override {
                 name: name.clone(),
                 value,
                 origin: crate::graph::Origin::ParamsFile { file: path.to_path_buf(), line },
@@ -196,7 +196,7 @@ impl Manifest {
             graph: dir.join(&raw.graph),
             capture: dir.join(&raw.capture),
             truth: raw.truth.as_ref().map(|t| dir.join(t)),
-            knobs,
+            settings,
             checks: raw.checks,
             golden: raw.golden,
         })

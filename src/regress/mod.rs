@@ -109,7 +109,7 @@ fn truth_column(axis: &str) -> String {
 /// Run one sample and evaluate its checks. `out` receives the run's files.
 pub fn run_sample(m: &Manifest, out: &Path, update: bool) -> Result<Vec<Row>, Error> {
     let start = Instant::now();
-    let mut overrides = m.knobs.clone();
+    let mut overrides = m.settings.clone();
     overrides.set("input", RawValue::Text(m.capture.to_string_lossy().into_owned()));
     let graph = resolve(&m.graph, &overrides, &crate::registry())?;
     let opts = RunOptions { threads: 1, out_dir: out.to_path_buf(), ..RunOptions::default() };

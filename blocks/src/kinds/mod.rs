@@ -5,7 +5,7 @@ pub mod dc_remove;
 pub mod discard;
 pub mod frequency_shift;
 pub mod gate_common;
-pub mod keep_every;
+pub mod thin;
 pub mod lobe_gate;
 pub mod lowpass_decimate;
 pub mod matched_filter;
@@ -26,7 +26,7 @@ pub const ALL: &[BlockSpec] = &[
     dc_remove::SPEC,
     discard::SPEC,
     frequency_shift::SPEC,
-    keep_every::SPEC,
+    thin::SPEC,
     lobe_gate::SPEC,
     lowpass_decimate::SPEC,
     matched_filter::SPEC,

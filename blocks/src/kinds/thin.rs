@@ -1,4 +1,4 @@
-//! `keep_every`: hands on one sweep in N. Pictures and other consumers that
+//! `thin`: hands on one sweep in N. Pictures and other consumers that
 //! only need a fair sample of a long capture read a thinned stream, so the
 //! full-rate work stays with the blocks that need every sweep.
 
@@ -7,12 +7,12 @@ use crate::item::{Item, ItemKind};
 use crate::param::{ParamSpec, ParamType, Params};
 
 pub const SPEC: BlockSpec = BlockSpec {
-    kind: "keep_every",
+    kind: "thin",
     doc: "Hands on one sweep in N (the first, then every Nth). Pick N coprime with the pulses of a lobe cycle so every lobe keeps its share.",
     inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps")],
     outputs: &[PortSpec::optional("sweeps", ItemKind::Sweep, "one sweep in N")],
     params: &[ParamSpec {
-        name: "every",
+        name: "stride",
         ty: ParamType::Integer { min: 1, max: 1_000_000 },
         default: Some("1"),
         doc: "keep one sweep in this many",
@@ -21,17 +21,17 @@ pub const SPEC: BlockSpec = BlockSpec {
 };
 
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(KeepEvery { every: p.int("every")? as u64, seen: 0 }))
+    Ok(Box::new(Thin { stride: p.int("stride")? as u64, seen: 0 }))
 }
 
-struct KeepEvery {
-    every: u64,
+struct Thin {
+    stride: u64,
     seen: u64,
 }
 
-impl Block for KeepEvery {
+impl Block for Thin {
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        if self.seen % self.every == 0 {
+        if self.seen % self.stride == 0 {
             out.push(0, item);
         }
         self.seen += 1;
@@ -46,7 +46,7 @@ mod tests {
 
     #[test]
     fn keeps_the_first_and_every_nth() {
-        let mut b = KeepEvery { every: 3, seen: 0 };
+        let mut b = Thin { stride: 3, seen: 0 };
         let mut out = Outputs::new(1);
         for k in 0..10u64 {
             let sweep = Sweep {
