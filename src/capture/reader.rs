@@ -223,9 +223,7 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
             // A reused buffer of the right length is overwritten as it is:
             // only growth pays for zero-filling.
             out.resize(want / 4, 0.0);
-            // SAFETY: f32 has no invalid bit patterns and alignment 4 >= 1; the
-            // byte view covers exactly the vector's initialised elements.
-            let bytes = unsafe { std::slice::from_raw_parts_mut(out.as_mut_ptr().cast::<u8>(), out.len() * 4) };
+            let bytes: &mut [u8] = bytemuck::cast_slice_mut(&mut out[..]);
             let whole = self.fill(bytes, frame_bytes)?;
             out.truncate(whole / 4);
             whole

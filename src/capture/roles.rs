@@ -373,6 +373,7 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
 
 /// Whole groups of four (I, Q, sync) frames; returns the frames done.
 #[cfg(target_arch = "x86_64")]
+#[allow(unsafe_code)] // SSE shuffles; the one `unsafe` of the workspace.
 fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> usize {
     use std::arch::x86_64::{_mm_loadu_ps, _mm_shuffle_ps, _mm_storeu_ps};
     let groups = frames.as_chunks::<12>().0;
@@ -421,22 +422,16 @@ fn all_finite(v: &[f32]) -> bool {
 /// Complex samples back to interleaved (re, im) floats, in place (the
 /// inverse of `into_complex`, for reading into a returned chunk buffer).
 pub fn from_complex(v: Vec<Complex32>) -> Vec<f32> {
-    let mut v = std::mem::ManuallyDrop::new(v);
-    let (ptr, len, cap) = (v.as_mut_ptr(), v.len(), v.capacity());
-    // SAFETY: as in `into_complex`: cap Complex32 is exactly the allocation
-    // of 2 cap f32 (size 4, align 4), and every bit pattern is a valid f32.
-    unsafe { Vec::from_raw_parts(ptr.cast::<f32>(), len * 2, cap * 2) }
+    // Same alignment (4) and a byte length and capacity that always divide
+    // by 4, so the checked cast cannot fail.
+    bytemuck::allocation::cast_vec(v)
 }
 
 /// Reinterpret interleaved (re, im) floats as complex samples, in place.
 fn into_complex(v: Vec<f32>) -> Vec<Complex32> {
-    debug_assert!(v.len().is_multiple_of(2) && v.capacity().is_multiple_of(2));
-    let mut v = std::mem::ManuallyDrop::new(v);
-    let (ptr, len, cap) = (v.as_mut_ptr(), v.len(), v.capacity());
-    // SAFETY: Complex<f32> is #[repr(C)] { re: f32, im: f32 }: size 8, align 4,
-    // so an allocation of `cap` f32 (cap even) is exactly the allocation of
-    // cap/2 Complex32 with the same alignment, and every bit pattern is valid.
-    unsafe { Vec::from_raw_parts(ptr.cast::<Complex32>(), len / 2, cap / 2) }
+    // The checked cast needs an even length and capacity (whole byte
+    // multiples of a complex sample); the callers keep both even.
+    bytemuck::allocation::cast_vec(v)
 }
 
 fn channel_listing(channels: usize, complex: bool) -> String {

@@ -21,7 +21,7 @@ pub fn describe(g: &ResolvedGraph) -> String {
         g.path.display(),
         if g.title.is_empty() { String::new() } else { format!(": {}", g.title) }
     );
-    let _ = writeln!(s, "\nknobs:");
+    let _ = writeln!(s, "\nsettings:");
     for k in &g.settings {
         let unit = k.unit.as_deref().map(|u| format!(" [{u}]")).unwrap_or_default();
         let _ = writeln!(s, "  {} = {}{unit}    ({})", k.name, k.value, k.origin);

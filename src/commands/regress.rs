@@ -16,12 +16,15 @@ pub struct RegressArgs {
     pub jobs: usize,
 }
 
+/// Each sample's rows, tagged with its place in the manifest list.
+type SampleResults = Vec<(usize, Result<Vec<Row>, Error>)>;
+
 /// Run all samples; Ok(rows) whatever the verdicts (the caller decides the exit).
 pub fn regress(args: &RegressArgs) -> Result<Vec<Row>, Error> {
     let manifests: Vec<Manifest> =
         find_manifests(&args.dir)?.iter().map(|p| Manifest::load(p).map_err(Error::from)).collect::<Result<_, _>>()?;
     let next = Mutex::new(0usize);
-    let results: Mutex<Vec<(usize, Result<Vec<Row>, Error>)>> = Mutex::new(Vec::new());
+    let results: Mutex<SampleResults> = Mutex::new(Vec::new());
     std::thread::scope(|s| {
         for _ in 0..args.jobs.clamp(1, manifests.len().max(1)) {
             s.spawn(|| {

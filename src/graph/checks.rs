@@ -39,10 +39,10 @@ pub(super) fn no_cycles(b: &Builder) -> Result<(), GraphError> {
                 let start = path.iter().position(|&x| x == u).unwrap_or(0);
                 return Some((path[start..].to_vec(), wi));
             }
-            if colour[u] == 0 {
-                if let Some(c) = visit(u, b, colour, path) {
-                    return Some(c);
-                }
+            if colour[u] == 0
+                && let Some(c) = visit(u, b, colour, path)
+            {
+                return Some(c);
             }
         }
         path.pop();

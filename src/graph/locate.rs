@@ -83,12 +83,13 @@ fn locate_exact(text: &str, path: &[Seg]) -> Option<(usize, usize)> {
                 return Some((ln + 1, indent + 1));
             }
             // A flow mapping on the same line: `set: {a: 1, b: 2}`.
-            if let (Some(Seg::Key(last)), true) = (path.last(), path.len() == stack.len() + 1) {
-                if path_is(&stack, &path[..path.len() - 1]) && value.trim_start().starts_with('{') {
-                    let col_base = line.len() - value.len();
-                    if let Some(off) = find_flow_key(value, last) {
-                        return Some((ln + 1, col_base + off + 1));
-                    }
+            if let (Some(Seg::Key(last)), true) = (path.last(), path.len() == stack.len() + 1)
+                && path_is(&stack, &path[..path.len() - 1])
+                && value.trim_start().starts_with('{')
+            {
+                let col_base = line.len() - value.len();
+                if let Some(off) = find_flow_key(value, last) {
+                    return Some((ln + 1, col_base + off + 1));
                 }
             }
         }
@@ -151,7 +152,7 @@ fn find_flow_key(value: &str, key: &str) -> Option<usize> {
 mod tests {
     use super::*;
 
-    const DOC: &str = "title: x\nknobs:\n  bw: {default: 6 deg, doc: beam}\nblocks:\n  read:\n    kind: capture_reader\n    set:\n      path: $input\n  gate:\n    kind: lobe_gate\n    set: {lobes: a, guard: 2 us}\nwiring:\n  - read -> gate\n  # comment\n  - gate -> out\n";
+    const DOC: &str = "title: x\nsettings:\n  bw: {default: 6 deg, doc: beam}\nblocks:\n  read:\n    kind: capture_reader\n    set:\n      path: $input\n  gate:\n    kind: lobe_gate\n    set: {lobes: a, guard: 2 us}\nwiring:\n  - read -> gate\n  # comment\n  - gate -> out\n";
 
     #[test]
     fn finds_nested_keys() {

@@ -332,10 +332,12 @@ fn expand(
                         src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
                             .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
                     })?;
-                    if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed) {
-                        if p != "-" && !p.is_empty() && Path::new(p).is_relative() {
-                            parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
-                        }
+                    if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed)
+                        && p != "-"
+                        && !p.is_empty()
+                        && Path::new(p).is_relative()
+                    {
+                        parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
                     }
                     let from = match &knob {
                         Some(k) => format!("knob {} ({})", k.name, k.origin),
