@@ -58,18 +58,50 @@ enum Command {
         /// Folder of samples with their `*.check.yaml` manifests.
         #[arg(default_value = "samples")]
         dir: PathBuf,
-        /// Also write the table as JSON to this file.
+        /// Also write every row as JSON to this file ('-': standard output).
         #[arg(long)]
         report: Option<PathBuf>,
-        /// Rewrite golden files from this run and say what changed.
+        /// Also write a JUnit XML report to this file ('-': standard output).
+        #[arg(long)]
+        junit: Option<PathBuf>,
+        /// Rewrite the golden files of samples whose other checks all pass, and say what moved.
         #[arg(long)]
         update: bool,
-        /// Where each sample's outputs go (one folder per sample).
-        #[arg(long, default_value = "target/regress")]
-        out: PathBuf,
+        /// Where each sample's outputs go, one folder per sample (default: a new folder under the system's temporary folder).
+        #[arg(long)]
+        out: Option<PathBuf>,
         /// Samples run at once (default: one per core).
         #[arg(long)]
         jobs: Option<usize>,
+    },
+    /// Run a graph over many captures, each into its own folder, with a summary row per capture.
+    #[command(args_conflicts_with_subcommands = true)]
+    Batch {
+        #[command(subcommand)]
+        merge: Option<BatchMerge>,
+        /// The graph file.
+        #[arg(required = true)]
+        graph: Option<PathBuf>,
+        /// Captures to run (or give --list).
+        captures: Vec<PathBuf>,
+        /// A file naming one capture per line (relative paths from the file's folder).
+        #[arg(long)]
+        list: Option<PathBuf>,
+        /// Batch folder: a folder per capture, summary.csv and timings.csv.
+        #[arg(long, required = true)]
+        out: Option<PathBuf>,
+        /// A YAML file of setting values.
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Override a setting: name=value (repeatable).
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
+        /// Captures run at once (default: one per core).
+        #[arg(long)]
+        jobs: Option<usize>,
+        /// Run only share K of N (K from 0 to N-1), e.g. a job array's index.
+        #[arg(long, value_name = "K/N")]
+        shard: Option<String>,
     },
     /// Write a synthetic capture with known truth from a scenario file.
     Synth {
@@ -104,6 +136,23 @@ enum Command {
     },
 }
 
+#[derive(Subcommand)]
+enum BatchMerge {
+    /// Combine the summaries of a list's shards into one, in list order.
+    Merge {
+        /// The shards' batch folders.
+        #[arg(required = true)]
+        dirs: Vec<PathBuf>,
+        /// Folder for the merged summary.csv and timings.csv.
+        #[arg(long)]
+        out: PathBuf,
+    },
+}
+
+fn cores() -> usize {
+    std::thread::available_parallelism().map(|n| n.get()).unwrap_or(2)
+}
+
 fn main() {
     let cli = Cli::parse();
     if let Err(e) = dispatch(cli) {
@@ -124,15 +173,40 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             print!("{}", commands::check::check(&graph, &overrides)?);
             Ok(())
         }
-        Command::Regress { dir, report, update, out, jobs } => {
-            let jobs = jobs.unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(2));
-            let args = commands::regress::RegressArgs { dir, report, update, out, jobs };
-            let rows = commands::regress::regress(&args)?;
-            print!("{}", commands::regress::table(&rows));
-            match rows.iter().filter(|r| !r.passed).count() {
-                0 => Ok(()),
-                n => Err(Error::Failed(format!("{n} regression checks failed"))),
+        Command::Regress { dir, report, junit, update, out, jobs } => {
+            let out = out.unwrap_or_else(commands::regress::default_out);
+            let to_stdout = [&report, &junit].iter().any(|p| p.as_deref() == Some(std::path::Path::new("-")));
+            let args =
+                commands::regress::RegressArgs { dir, report, junit, update, out, jobs: jobs.unwrap_or_else(cores) };
+            let regression = commands::regress::regress(&args)?;
+            // With a report on standard output, the table a person reads goes to standard error.
+            let mut text = commands::regress::table(&regression.rows);
+            for moved in &regression.updates {
+                text.push_str(&format!("golden {moved}"));
             }
+            text.push_str(&format!("outputs in {}\n", args.out.display()));
+            if to_stdout {
+                eprint!("{text}")
+            } else {
+                print!("{text}")
+            }
+            regression.outcome()
+        }
+        Command::Batch { merge: Some(BatchMerge::Merge { dirs, out }), .. } => {
+            commands::batch::batch_merge(&dirs, &out)
+        }
+        Command::Batch { merge: None, graph, captures, list, out, params, set, jobs, shard } => {
+            let cmd = commands::batch::BatchCommand {
+                graph: graph.unwrap_or_default(),
+                captures,
+                list,
+                out: out.unwrap_or_default(),
+                params,
+                sets: set,
+                jobs: jobs.unwrap_or_else(cores),
+                shard,
+            };
+            commands::batch::batch(&cmd)
         }
         Command::Inspect { capture, format, datatype, rate, channels, roles, seconds } => {
             let args = commands::inspect::args_from_text(

@@ -106,6 +106,11 @@ fn regress_passes_then_catches_a_flipped_sign_and_a_wrong_squint() {
     assert!(failing.iter().any(|l| l.contains("golden angles.csv")), "{table}");
 }
 
+/// What a run said: its table (where error rows carry their message) and stderr.
+fn said(out: &Output) -> String {
+    format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr))
+}
+
 #[test]
 fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     let d = scratch("malformed");
@@ -116,13 +121,13 @@ fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     );
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
-    let err = String::from_utf8_lossy(&out.stderr);
+    let err = said(&out);
     assert!(err.contains("two-lobe-beacon.check.yaml:8:") && err.contains("unknown field `axsi`"), "{err}");
 
     edit(&d.join("samples/two-lobe-beacon.check.yaml"), "axsi: az, ", "");
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
-    let err = String::from_utf8_lossy(&out.stderr);
+    let err = said(&out);
     assert!(err.contains("two-lobe-beacon.check.yaml:8:") && err.contains("needs an axis"), "{err}");
 
     std::fs::remove_file(d.join("samples/two-lobe-beacon.sigmf-data")).unwrap();
@@ -133,9 +138,5 @@ fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     );
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
-    assert!(
-        String::from_utf8_lossy(&out.stderr).contains("two-lobe-beacon.sigmf-data"),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    assert!(said(&out).contains("two-lobe-beacon.sigmf-data"), "{}", said(&out));
 }

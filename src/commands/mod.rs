@@ -2,6 +2,7 @@
 //! the command line and calls one of these; each returns an [`Error`] that
 //! `main` prints once.
 
+pub mod batch;
 pub mod catalog;
 pub mod check;
 pub mod inspect;
@@ -27,4 +28,22 @@ pub fn overrides(params: Option<&Path>, sets: &[String], input: Option<&PathBuf>
         o.set("input", lobeflow_blocks::RawValue::Text(i.to_string_lossy().into_owned()));
     }
     Ok(o)
+}
+
+/// Write a report or table: to standard output for `-`, else through a
+/// temporary file beside `path` renamed into place (never half a file).
+pub fn write_output(path: &Path, text: &str) -> Result<(), Error> {
+    use std::io::Write;
+    if path == Path::new("-") {
+        let mut out = std::io::stdout().lock();
+        return out
+            .write_all(text.as_bytes())
+            .and_then(|_| out.flush())
+            .map_err(|e| Error::Output(format!("cannot write to standard output: {e}")));
+    }
+    let tmp = lobeflow_blocks::FileStager::temp_path(path);
+    std::fs::write(&tmp, text).and_then(|_| std::fs::rename(&tmp, path)).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        Error::Output(format!("cannot write {}: {e}", path.display()))
+    })
 }

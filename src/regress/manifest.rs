@@ -15,6 +15,8 @@
 //!   - {measure: worst_error, axis: az, max: 0.5}       # degrees
 //!   - {measure: range_rms, max: 15}                    # metres
 //!   - {measure: flags, flag: out_of_range, min: 1}
+//!   - {measure: notices, max: 3}                       # every notice of the run
+//!   - {measure: notices, block: sweep_gate, max: 1}    # those of one block kind or instance
 //! golden:
 //!   - {output: angles.csv, file: ridge-four-lobe.golden.csv, tolerance: 1e-6}
 //! ```
@@ -45,6 +47,9 @@ pub enum Measure {
     RangeRms,
     /// Number of estimates with flag `flag` (any axis unless `axis` is given).
     Flags,
+    /// Notices the blocks raised to the run (all, or those of `block`, a
+    /// block kind or instance name), counting the ones held back.
+    Notices,
 }
 
 impl Measure {
@@ -57,16 +62,33 @@ impl Measure {
             Measure::WorstError => "worst_error",
             Measure::RangeRms => "range_rms",
             Measure::Flags => "flags",
+            Measure::Notices => "notices",
         }
     }
+    /// Unit of the measured value and its bounds ("" for counts and ratios).
     pub fn unit(&self) -> &'static str {
         match self {
-            Measure::RmsError | Measure::Bias | Measure::WorstError => " deg",
-            Measure::RangeRms => " m",
+            Measure::RmsError | Measure::Bias | Measure::WorstError => "deg",
+            Measure::RangeRms => "m",
             _ => "",
         }
     }
+    fn needs_axis(&self) -> bool {
+        matches!(
+            self,
+            Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError
+        )
+    }
+    fn needs_truth(&self) -> bool {
+        matches!(
+            self,
+            Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma | Measure::WorstError
+        )
+    }
 }
+
+/// Flags an estimate can carry in `angles.csv`.
+pub const FLAGS: [&str; 4] = ["ok", "out_of_range", "no_signal", "outlier"];
 
 #[derive(Clone, Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -74,8 +96,21 @@ pub struct Check {
     pub measure: Measure,
     pub axis: Option<String>,
     pub flag: Option<String>,
+    /// Block kind or instance name whose notices a `notices` check counts.
+    pub block: Option<String>,
     pub min: Option<f64>,
     pub max: Option<f64>,
+    /// Line of the check in its manifest.
+    #[serde(skip)]
+    pub line: usize,
+}
+
+impl Check {
+    /// The check as the table names it, e.g. `rms_error az`.
+    pub fn label(&self) -> String {
+        let parts = [Some(self.measure.name()), self.axis.as_deref(), self.flag.as_deref(), self.block.as_deref()];
+        parts.into_iter().flatten().collect::<Vec<_>>().join(" ")
+    }
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -88,6 +123,9 @@ pub struct Golden {
     /// Largest absolute difference allowed in numeric cells.
     #[serde(default)]
     pub tolerance: f64,
+    /// Line of the entry in its manifest.
+    #[serde(skip)]
+    pub line: usize,
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -130,7 +168,7 @@ impl Manifest {
         let text = read_text(path)?;
         // Syntax first (with position), then shape (serde keeps the position too).
         parse_yaml(path, &text)?;
-        let raw: Raw = serde_yaml::from_str(&text).map_err(|e| {
+        let mut raw: Raw = serde_yaml::from_str(&text).map_err(|e| {
             let (line, column) = e.location().map(|l| (l.line(), l.column())).unwrap_or((1, 1));
             GraphError { file: path.to_path_buf(), line, column, message: format!("bad manifest: {e}"), hint: None }
         })?;
@@ -139,41 +177,19 @@ impl Manifest {
             let (line, column) = locate(&text, at);
             GraphError { file: path.to_path_buf(), line, column, message: msg, hint: None }
         };
-        for (i, c) in raw.checks.iter().enumerate() {
+        let name = sample_name(path).map_err(|msg| err(&[], msg))?;
+        for (i, c) in raw.checks.iter_mut().enumerate() {
             let at = [key("checks"), Seg::Index(i)];
-            if c.min.is_none() && c.max.is_none() {
-                return Err(err(
-                    &at,
-                    format!("check {} ({}) needs a bound: min, max or both", i + 1, c.measure.name()),
-                ));
-            }
-            let needs_axis = matches!(
-                c.measure,
-                Measure::Estimates | Measure::RmsError | Measure::Bias | Measure::RmsOverSigma | Measure::WorstError
-            );
-            if needs_axis && c.axis.is_none() {
-                return Err(err(&at, format!("check {} ({}) needs an axis (e.g. az)", i + 1, c.measure.name())));
-            }
-            if c.measure == Measure::Flags && c.flag.is_none() {
-                return Err(err(
-                    &at,
-                    format!("check {} (flags) needs a flag (ok, out_of_range, no_signal, outlier)", i + 1),
-                ));
-            }
-            if matches!(
-                c.measure,
-                Measure::RmsError | Measure::Bias | Measure::RangeRms | Measure::RmsOverSigma | Measure::WorstError
-            ) && raw.truth.is_none()
-            {
-                return Err(err(
-                    &at,
-                    format!(
-                        "check {} ({}) compares with the truth, but the manifest names no truth file",
-                        i + 1,
-                        c.measure.name()
-                    ),
-                ));
-            }
+            c.line = locate(&text, &at).0;
+            validate_check(c, i, raw.truth.is_some()).map_err(|(field, msg)| {
+                let field_at = [key("checks"), Seg::Index(i), key(field)];
+                err(if field.is_empty() { &at } else { &field_at }, msg)
+            })?;
+        }
+        for (i, g) in raw.golden.iter_mut().enumerate() {
+            let at = [key("golden"), Seg::Index(i)];
+            g.line = locate(&text, &at).0;
+            validate_golden(g, i).map_err(|(field, msg)| err(&[key("golden"), Seg::Index(i), key(field)], msg))?;
         }
         let mut settings = crate::graph::Overrides::default();
         for (name, v) in &raw.settings {
@@ -191,10 +207,9 @@ impl Manifest {
                 base: dir.clone(),
             });
         }
-        let file_name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
         Ok(Manifest {
             path: path.to_path_buf(),
-            name: file_name.strip_suffix(SUFFIX).unwrap_or(&file_name).to_string(),
+            name,
             about: raw.about,
             graph: dir.join(&raw.graph),
             capture: dir.join(&raw.capture),
@@ -204,4 +219,102 @@ impl Manifest {
             golden: raw.golden,
         })
     }
+}
+
+/// The sample name: the manifest's file name before `.check.yaml`. It names
+/// the sample's output folder inside `--out`, so it must be a plain name.
+pub fn sample_name(path: &Path) -> Result<String, String> {
+    let file_name = path.file_name().and_then(|n| n.to_str()).unwrap_or_default();
+    let name = file_name.strip_suffix(SUFFIX).unwrap_or_default();
+    if is_plain_name(name) {
+        Ok(name.to_string())
+    } else {
+        Err(format!(
+            "the sample name '{name}' (the file name before {SUFFIX}) must be a plain file name: \
+             not empty, not '.' or '..', no path separators"
+        ))
+    }
+}
+
+/// A name that stays one level inside the folder it is joined to.
+pub fn is_plain_name(name: &str) -> bool {
+    !name.is_empty() && name != "." && name != ".." && !name.contains(['/', '\\', '\0'])
+}
+
+/// A relative path that stays inside the folder it is joined to.
+fn stays_inside(path: &str) -> bool {
+    let p = Path::new(path);
+    !path.is_empty()
+        && p.components().all(|c| matches!(c, std::path::Component::Normal(_) | std::path::Component::CurDir))
+}
+
+/// Why a check is malformed: (field to point at, message).
+fn validate_check(c: &Check, i: usize, has_truth: bool) -> Result<(), (&'static str, String)> {
+    let n = i + 1;
+    let what = c.measure.name();
+    if c.min.is_none() && c.max.is_none() {
+        return Err(("", format!("check {n} ({what}) needs a bound: min, max or both")));
+    }
+    for (field, bound) in [("min", c.min), ("max", c.max)] {
+        let Some(v) = bound else { continue };
+        if !v.is_finite() {
+            return Err((field, format!("check {n} ({what}): {field} must be a finite number, not {v}")));
+        }
+        if v < 0.0 {
+            return Err((field, format!("check {n} ({what}): {field} is {v}, but {what} is never negative")));
+        }
+    }
+    if let (Some(lo), Some(hi)) = (c.min, c.max)
+        && lo > hi
+    {
+        return Err(("min", format!("check {n} ({what}): min {lo} is above max {hi}, so nothing could pass")));
+    }
+    if c.measure.needs_axis() && c.axis.is_none() {
+        return Err(("", format!("check {n} ({what}) needs an axis (e.g. az)")));
+    }
+    if c.measure == Measure::Notices && c.axis.is_some() {
+        return Err(("axis", format!("check {n} (notices) counts notices of the whole run; it takes no axis")));
+    }
+    match (&c.flag, c.measure) {
+        (None, Measure::Flags) => {
+            return Err(("", format!("check {n} (flags) needs a flag ({})", FLAGS.join(", "))));
+        }
+        (Some(f), Measure::Flags) if !FLAGS.contains(&f.as_str()) => {
+            return Err(("flag", format!("check {n}: unknown flag '{f}' (flags: {})", FLAGS.join(", "))));
+        }
+        (Some(_), m) if m != Measure::Flags => {
+            return Err(("flag", format!("check {n} ({what}) takes no flag (only the flags measure does)")));
+        }
+        _ => {}
+    }
+    if c.block.is_some() && c.measure != Measure::Notices {
+        return Err(("block", format!("check {n} ({what}) takes no block (only the notices measure does)")));
+    }
+    if c.measure.needs_truth() && !has_truth {
+        return Err(("", format!("check {n} ({what}) compares with the truth, but the manifest names no truth file")));
+    }
+    Ok(())
+}
+
+fn validate_golden(g: &Golden, i: usize) -> Result<(), (&'static str, String)> {
+    let n = i + 1;
+    if !g.tolerance.is_finite() || g.tolerance < 0.0 {
+        return Err((
+            "tolerance",
+            format!("golden {n}: tolerance must be a finite number of at least 0, not {}", g.tolerance),
+        ));
+    }
+    if !stays_inside(&g.output) {
+        return Err((
+            "output",
+            format!("golden {n}: output '{}' must be a relative path inside the run's folder", g.output),
+        ));
+    }
+    if !stays_inside(&g.file) {
+        return Err((
+            "file",
+            format!("golden {n}: file '{}' must be a relative path inside the manifest's folder", g.file),
+        ));
+    }
+    Ok(())
 }

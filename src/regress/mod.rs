@@ -1,25 +1,137 @@
 //! The regression runner: run every sample's graph, compare the results with
-//! the sample's truth and bounds, and say which checks hold.
+//! the sample's truth and bounds, and say which checks hold. Every sample
+//! gets its rows: one that cannot run is a row with verdict `error`.
 
+pub mod golden;
 pub mod manifest;
+pub mod notices;
+pub mod report;
 
 use crate::error::Error;
-use crate::graph::resolve;
-use crate::runtime::{RunOptions, run};
-use lobeflow_blocks::RawValue;
+use crate::graph::{ResolvedGraph, resolve};
+use crate::runtime::{RunOptions, RunReport, run};
+use golden::GoldenDiff;
+use lobeflow_blocks::{RawValue, Value};
 pub use manifest::{Check, Manifest, Measure};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-/// One line of the regression table.
+/// What became of a check.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Verdict {
+    Pass,
+    Fail,
+    /// The check could not be evaluated (the sample did not run, or the
+    /// manifest is wrong).
+    Error,
+}
+
+impl Verdict {
+    pub fn name(&self) -> &'static str {
+        match self {
+            Verdict::Pass => "pass",
+            Verdict::Fail => "fail",
+            Verdict::Error => "error",
+        }
+    }
+}
+
+/// One line of the regression table. Each sample has a `run` row (the graph
+/// ran; its time) followed by a row per check and per golden file.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Row {
     pub sample: String,
+    /// The check as the table names it, e.g. `rms_error az`.
     pub check: String,
-    pub measured: String,
-    pub bound: String,
-    pub passed: bool,
+    /// `run`, a measure name, or `golden`.
+    pub measure: String,
+    pub axis: Option<String>,
+    pub flag: Option<String>,
+    pub block: Option<String>,
+    /// The output file a golden row compares.
+    pub output: Option<String>,
+    pub measured: Option<f64>,
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+    /// Unit of `measured`, `min` and `max` ("" for counts and ratios).
+    pub unit: &'static str,
+    pub verdict: Verdict,
+    /// Seconds spent: the run for a `run` row, the evaluation for a check.
     pub seconds: f64,
+    /// Why a check failed or errored, or what `--update` did.
+    pub message: Option<String>,
+}
+
+impl Row {
+    fn new(sample: &str, check: String, measure: &str) -> Row {
+        Row {
+            sample: sample.to_string(),
+            check,
+            measure: measure.to_string(),
+            axis: None,
+            flag: None,
+            block: None,
+            output: None,
+            measured: None,
+            min: None,
+            max: None,
+            unit: "",
+            verdict: Verdict::Pass,
+            seconds: 0.0,
+            message: None,
+        }
+    }
+
+    /// A row saying the sample (or one check of it) could not be evaluated.
+    pub fn error(sample: &str, check: &str, message: String) -> Row {
+        Row { verdict: Verdict::Error, message: Some(message), ..Row::new(sample, check.to_string(), check) }
+    }
+
+    fn with_check(sample: &str, c: &Check) -> Row {
+        Row {
+            axis: c.axis.clone(),
+            flag: c.flag.clone(),
+            block: c.block.clone(),
+            min: c.min,
+            max: c.max,
+            unit: c.measure.unit(),
+            ..Row::new(sample, c.label(), c.measure.name())
+        }
+    }
+
+    /// The measured value with its unit, as the table shows it.
+    pub fn measured_text(&self) -> String {
+        match self.measured {
+            Some(v) if v.fract() == 0.0 && v.abs() < 1e9 => with_unit(format!("{v}"), self.unit),
+            Some(v) if self.measure == "golden" => format!("{v:.3e}"),
+            Some(v) => with_unit(format!("{v:.4}"), self.unit),
+            None if self.measure == "run" => "-".into(),
+            None => "no data".into(),
+        }
+    }
+
+    /// The bounds, as the table shows them.
+    pub fn bound_text(&self) -> String {
+        let what = if self.measure == "golden" { "|diff| " } else { "" };
+        match (self.min, self.max) {
+            (Some(lo), Some(hi)) => with_unit(format!("{what}{lo}..{hi}"), self.unit),
+            (Some(lo), None) => with_unit(format!("{what}>= {lo}"), self.unit),
+            (None, Some(hi)) => with_unit(format!("{what}<= {hi}"), self.unit),
+            (None, None) => "-".into(),
+        }
+    }
+}
+
+fn with_unit(text: String, unit: &str) -> String {
+    if unit.is_empty() { text } else { format!("{text} {unit}") }
+}
+
+/// A sample's rows, and what `--update` moved in its golden files.
+#[derive(Debug, Default)]
+pub struct SampleResult {
+    pub rows: Vec<Row>,
+    /// One entry per golden file rewritten: a heading line and what moved.
+    pub updates: Vec<String>,
 }
 
 /// All manifests (`*.check.yaml`) in `dir`, sorted by name.
@@ -106,33 +218,123 @@ fn truth_column(axis: &str) -> String {
     format!("{axis}_deg")
 }
 
-/// Run one sample and evaluate its checks. `out` receives the run's files.
-pub fn run_sample(m: &Manifest, out: &Path, update: bool) -> Result<Vec<Row>, Error> {
+/// The axes a graph measures: those named by the `pairs` of its blocks.
+pub fn graph_axes(graph: &ResolvedGraph) -> Vec<String> {
+    let mut axes: Vec<String> = Vec::new();
+    for b in &graph.blocks {
+        let Some(Value::Text(text)) = b.params.get("pairs") else { continue };
+        for pair in lobeflow_blocks::dsp::discriminator::parse_pairs(text).unwrap_or_default() {
+            if !axes.iter().any(|a| **a == *pair.axis) {
+                axes.push(pair.axis.to_string());
+            }
+        }
+    }
+    axes
+}
+
+/// The sample's output folder: `out/<name>`, for a name that is a plain file name.
+pub fn sample_dir(out: &Path, name: &str) -> Result<PathBuf, Error> {
+    if manifest::is_plain_name(name) {
+        Ok(out.join(name))
+    } else {
+        Err(Error::Usage(format!(
+            "'{name}' is not a plain file name; it cannot name a folder inside {}",
+            out.display()
+        )))
+    }
+}
+
+/// Run one sample into `out` and evaluate its checks; never fails: what
+/// goes wrong is an `error` row. With `update`, golden files are rewritten
+/// only when every other check of the sample passes.
+pub fn run_sample(m: &Manifest, out: &Path, update: bool) -> SampleResult {
     let start = Instant::now();
+    let ran = run_graph(m, out);
+    let seconds = start.elapsed().as_secs_f64();
+    let (graph, report, angles, truth) = match ran {
+        Ok(r) => r,
+        Err(e) => {
+            return SampleResult {
+                rows: vec![Row { seconds, ..Row::error(&m.name, "run", e.to_string()) }],
+                updates: vec![],
+            };
+        }
+    };
+    let mut rows = vec![Row { seconds, ..Row::new(&m.name, "run".into(), "run") }];
+    let angles_path = out.join("angles.csv");
+    let mut axes = graph_axes(&graph);
+    if axes.is_empty() {
+        // A graph without pairs: accept the axes its table shows.
+        if let Ok(c) = angles.column("axis", &angles_path) {
+            axes = angles.rows.iter().filter_map(|r| r.get(c).cloned()).collect();
+        }
+    }
+    for c in &m.checks {
+        let started = Instant::now();
+        let mut row = Row::with_check(&m.name, c);
+        let value = match &c.axis {
+            Some(a) if !axes.contains(a) => Err(Error::Input(format!(
+                "{}:{}: check on axis '{a}', but the graph measures {}",
+                m.path.display(),
+                c.line,
+                if axes.is_empty() { "no axes".to_string() } else { axes.join(", ") }
+            ))),
+            _ => {
+                let count = |block: Option<&str>| notices::count(&report.notices, &graph, block);
+                measure(c, &angles, &angles_path, truth.as_ref(), &count)
+            }
+        };
+        match value {
+            Ok(v) => {
+                row.measured = v;
+                let within = v.is_some_and(|v| c.min.is_none_or(|lo| v >= lo) && c.max.is_none_or(|hi| v <= hi));
+                row.verdict = if within { Verdict::Pass } else { Verdict::Fail };
+            }
+            Err(e) => {
+                row.verdict = Verdict::Error;
+                row.message = Some(e.to_string());
+            }
+        }
+        row.seconds = started.elapsed().as_secs_f64();
+        rows.push(row);
+    }
+    let blocking = rows.iter().filter(|r| r.verdict != Verdict::Pass).count();
+    let mut updates = Vec::new();
+    for g in &m.golden {
+        let started = Instant::now();
+        let (mut row, moved) = golden_row(m, g, out, update, blocking);
+        row.seconds = started.elapsed().as_secs_f64();
+        updates.extend(moved);
+        rows.push(row);
+    }
+    SampleResult { rows, updates }
+}
+
+type Ran = (ResolvedGraph, RunReport, Table, Option<Truth>);
+
+fn run_graph(m: &Manifest, out: &Path) -> Result<Ran, Error> {
     let mut overrides = m.settings.clone();
     overrides.set("input", RawValue::Text(m.capture.to_string_lossy().into_owned()));
     let graph = resolve(&m.graph, &overrides, &crate::registry())?;
     let opts = RunOptions { threads: 1, out_dir: out.to_path_buf(), ..RunOptions::default() };
-    run(&graph, &opts, Vec::new()).map_err(|e| match e {
-        Error::Block { block, kind, message } => Error::Block { block: format!("{}: {block}", m.name), kind, message },
-        other => other,
-    })?;
-    let seconds = start.elapsed().as_secs_f64();
-    let angles_path = out.join("angles.csv");
-    let angles = Table::read(&angles_path)?;
+    let report = run(&graph, &opts, Vec::new())?;
+    let angles = Table::read(&out.join("angles.csv"))?;
     let truth = m.truth.as_ref().map(|p| Truth::read(p)).transpose()?;
-    let mut rows = Vec::new();
-    for c in &m.checks {
-        let value = measure(c, &angles, &angles_path, truth.as_ref())?;
-        rows.push(verdict(&m.name, c, value, seconds));
-    }
-    for g in &m.golden {
-        rows.push(compare_golden(m, g, out, update, seconds)?);
-    }
-    Ok(rows)
+    Ok((graph, report, angles, truth))
 }
 
-fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<Option<f64>, Error> {
+/// The value a check bounds; `notices` counts the run's notices of a block
+/// (all blocks for None).
+fn measure(
+    c: &Check,
+    t: &Table,
+    path: &Path,
+    truth: Option<&Truth>,
+    notices: &dyn Fn(Option<&str>) -> u64,
+) -> Result<Option<f64>, Error> {
+    if c.measure == Measure::Notices {
+        return Ok(Some(notices(c.block.as_deref()) as f64));
+    }
     let axis_c = t.column("axis", path)?;
     let flag_c = t.column("flag", path)?;
     let time_c = t.column("time_s", path)?;
@@ -191,99 +393,70 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
             }
             (n > 0).then(|| (sum / n as f64).sqrt())
         }
+        Measure::Notices => None,
     })
 }
 
-fn verdict(sample: &str, c: &Check, value: Option<f64>, seconds: f64) -> Row {
-    let unit = c.measure.unit();
-    let mut what = c.measure.name().to_string();
-    if let Some(a) = &c.axis {
-        what.push_str(&format!(" {a}"));
-    }
-    if let Some(f) = &c.flag {
-        what.push_str(&format!(" {f}"));
-    }
-    let bound = match (c.min, c.max) {
-        (Some(lo), Some(hi)) => format!("{lo}..{hi}{unit}"),
-        (Some(lo), None) => format!(">= {lo}{unit}"),
-        (None, Some(hi)) => format!("<= {hi}{unit}"),
-        (None, None) => "-".into(),
+/// Compare (or with `update` and no `blocking` rows, rewrite) one golden
+/// file; the second value says what moved when it was rewritten.
+fn golden_row(m: &Manifest, g: &manifest::Golden, out: &Path, update: bool, blocking: usize) -> (Row, Option<String>) {
+    let mut row = Row {
+        output: Some(g.output.clone()),
+        max: Some(g.tolerance),
+        ..Row::new(&m.name, format!("golden {}", g.output), "golden")
     };
-    let passed = value.is_some_and(|v| c.min.is_none_or(|lo| v >= lo) && c.max.is_none_or(|hi| v <= hi));
-    let measured = match value {
-        Some(v) if v.fract() == 0.0 && v.abs() < 1e9 => format!("{v}{unit}"),
-        Some(v) => format!("{v:.4}{unit}"),
-        None => "no data".into(),
+    let produced_path = out.join(&g.output);
+    let golden_path = m.path.parent().unwrap_or(Path::new(".")).join(&g.file);
+    let produced = match Table::read(&produced_path) {
+        Ok(t) => t,
+        Err(e) => {
+            return (Row { verdict: Verdict::Error, message: Some(e.to_string()), ..row }, None);
+        }
     };
-    Row { sample: sample.to_string(), check: what, measured, bound, passed, seconds }
-}
-
-fn compare_golden(m: &Manifest, g: &manifest::Golden, out: &Path, update: bool, seconds: f64) -> Result<Row, Error> {
-    let produced = out.join(&g.output);
-    let golden = m.path.parent().unwrap_or(Path::new(".")).join(&g.file);
-    let check = format!("golden {}", g.output);
-    let bound = format!("|diff| <= {}", g.tolerance);
-    let diff = if golden.exists() { Some(table_diff(&produced, &golden, g.tolerance)?) } else { None };
-    if update {
-        let same = diff.as_ref().is_some_and(|d| d.is_none());
-        let measured = if same {
-            "unchanged".to_string()
-        } else {
-            let bytes = std::fs::read(&produced)
-                .map_err(|e| Error::Input(format!("cannot read {}: {e}", produced.display())))?;
-            let tmp = lobeflow_blocks::FileStager::temp_path(&golden);
-            std::fs::write(&tmp, bytes)
-                .and_then(|_| std::fs::rename(&tmp, &golden))
-                .map_err(|e| Error::Output(format!("cannot write {}: {e}", golden.display())))?;
-            match diff {
-                None => "created".to_string(),
-                Some(Some(d)) => format!("updated ({d})"),
-                Some(None) => unreachable!("same handled above"),
-            }
+    let diff = if golden_path.exists() {
+        match Table::read(&golden_path) {
+            Ok(old) => Some(GoldenDiff::between(&produced, &old, g.tolerance)),
+            Err(e) => return (Row { verdict: Verdict::Error, message: Some(e.to_string()), ..row }, None),
+        }
+    } else {
+        None
+    };
+    row.measured = diff.as_ref().and_then(GoldenDiff::largest_change);
+    if diff.as_ref().is_some_and(GoldenDiff::matches) {
+        return (row, None);
+    }
+    if update && blocking == 0 {
+        if let Err(e) = replace_file(&produced_path, &golden_path) {
+            return (Row { verdict: Verdict::Error, message: Some(e.to_string()), ..row }, None);
+        }
+        let (message, moved) = match &diff {
+            None => (
+                format!("created ({} rows)", produced.rows.len()),
+                format!("  created with {} rows\n", produced.rows.len()),
+            ),
+            Some(d) => (format!("updated: {}", d.summary()), d.moved()),
         };
-        return Ok(Row { sample: m.name.clone(), check, measured, bound, passed: true, seconds });
+        row.message = Some(message);
+        return (row, Some(format!("{}: {} ({})\n{moved}", m.name, golden_path.display(), g.output)));
     }
-    match diff {
-        None => Ok(Row {
-            sample: m.name.clone(),
-            check,
-            measured: "no golden file (run with --update)".into(),
-            bound,
-            passed: false,
-            seconds,
-        }),
-        Some(None) => {
-            Ok(Row { sample: m.name.clone(), check, measured: "matches".into(), bound, passed: true, seconds })
-        }
-        Some(Some(d)) => Ok(Row { sample: m.name.clone(), check, measured: d, bound, passed: false, seconds }),
+    row.verdict = Verdict::Fail;
+    let mut message = match &diff {
+        None => "no golden file (run with --update)".to_string(),
+        Some(d) => d.summary(),
+    };
+    if update {
+        message.push_str(&format!("; not updated: {blocking} other checks of this sample did not pass"));
     }
+    row.message = Some(message);
+    (row, None)
 }
 
-/// None when the tables agree within `tol`; else a description of the first difference.
-fn table_diff(produced: &Path, golden: &Path, tol: f64) -> Result<Option<String>, Error> {
-    let a = Table::read(produced)?;
-    let b = Table::read(golden)?;
-    if a.header != b.header {
-        return Ok(Some(format!("columns differ: {} vs {}", a.header.join(","), b.header.join(","))));
-    }
-    if a.rows.len() != b.rows.len() {
-        return Ok(Some(format!("{} rows, golden has {}", a.rows.len(), b.rows.len())));
-    }
-    let mut worst = 0.0f64;
-    let mut changed = 0;
-    for (ra, rb) in a.rows.iter().zip(&b.rows) {
-        let mut row_changed = false;
-        for (ca, cb) in ra.iter().zip(rb) {
-            match (num(ca), num(cb)) {
-                (Some(x), Some(y)) => {
-                    let d = (x - y).abs();
-                    worst = worst.max(d);
-                    row_changed |= d > tol;
-                }
-                _ => row_changed |= ca != cb,
-            }
-        }
-        changed += usize::from(row_changed);
-    }
-    Ok((changed > 0).then(|| format!("{changed} rows differ, max |diff| {worst:.3e}")))
+/// Copy `from` over `to` through a temporary file beside `to`.
+fn replace_file(from: &Path, to: &Path) -> Result<(), Error> {
+    let bytes = std::fs::read(from).map_err(|e| Error::Input(format!("cannot read {}: {e}", from.display())))?;
+    let tmp = lobeflow_blocks::FileStager::temp_path(to);
+    std::fs::write(&tmp, bytes).and_then(|_| std::fs::rename(&tmp, to)).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        Error::Output(format!("cannot write {}: {e}", to.display()))
+    })
 }
