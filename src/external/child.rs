@@ -192,7 +192,7 @@ impl ExternalBlock {
                 i if i == send_op => {
                     return match op.send(&tx, frame) {
                         Ok(()) => Ok(()),
-                        Err(_) => Err(self.failure("stopped reading its input")),
+                        Err(_) => Err(self.failure("stopped reading before its input ended")),
                     };
                 }
                 i if i == recv_op => match op.recv(&self.from_child) {
@@ -321,7 +321,7 @@ impl ExternalBlock {
             return Err(self.failure("failed"));
         }
         if self.input_broken.load(Ordering::SeqCst) {
-            return Err(self.failure("exited without reading all its input"));
+            return Err(self.failure("stopped reading before its input ended"));
         }
         let deadline = Instant::now() + Duration::from_millis(500);
         while !self.errors.lock().unwrap_or_else(|e| e.into_inner()).done && Instant::now() < deadline {

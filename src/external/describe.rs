@@ -23,6 +23,9 @@ use std::time::{Duration, Instant, SystemTime};
 
 /// The flag a program is started with to print its description.
 pub const DESCRIBE_FLAG: &str = "--describe";
+/// Longest wait for a description (an interpreter loading its libraries on
+/// a busy machine can take seconds; the block's own timeout may be shorter).
+const DESCRIBE_WAIT: Duration = Duration::from_secs(60);
 
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -115,9 +118,7 @@ fn param_type(p: &ParamDescription) -> Result<ParamType, String> {
         "text" => ParamType::Text,
         "names" => ParamType::Names,
         "file" => ParamType::InputPath,
-        "choice" if !p.choices.is_empty() => {
-            ParamType::Choice(leak_slice(p.choices.iter().map(|c| leak(c)).collect()))
-        }
+        "choice" if !p.choices.is_empty() => ParamType::Choice(leak_slice(p.choices.iter().map(|c| leak(c)).collect())),
         "choice" => return Err(format!("parameter '{}': a choice needs 'choices'", p.name)),
         other => {
             return Err(format!(
@@ -173,10 +174,16 @@ fn spec_from(d: &Description, launch: &Launch) -> Result<BlockSpec, String> {
         }
         let default = match &p.default {
             None => None,
-            Some(v) => Some(default_text(v).ok_or_else(|| format!("parameter '{}': default {v:?} is not a value", p.name))?),
+            Some(v) => {
+                Some(default_text(v).ok_or_else(|| format!("parameter '{}': default {v:?} is not a value", p.name))?)
+            }
         };
-        let spec =
-            ParamSpec { name: leak(&p.name), ty: param_type(p)?, default: default.as_deref().map(leak), doc: leak(&p.doc) };
+        let spec = ParamSpec {
+            name: leak(&p.name),
+            ty: param_type(p)?,
+            default: default.as_deref().map(leak),
+            doc: leak(&p.doc),
+        };
         if let Some(d) = spec.default {
             spec.parse(&RawValue::from_text(d)).map_err(|e| format!("parameter '{}': default '{d}': {e}", p.name))?;
         }
@@ -196,10 +203,7 @@ fn spec_from(d: &Description, launch: &Launch) -> Result<BlockSpec, String> {
 /// The program's file (the first of the command and its arguments naming a
 /// file in the folder), for its description file and its version.
 fn program_file(launch: &Launch) -> Option<PathBuf> {
-    std::iter::once(&launch.command)
-        .chain(&launch.args)
-        .map(|a| launch.folder.join(a))
-        .find(|p| p.is_file())
+    std::iter::once(&launch.command).chain(&launch.args).map(|a| launch.folder.join(a)).find(|p| p.is_file())
 }
 
 /// `dos.py` -> `dos.block.yaml` beside it.
@@ -261,7 +265,7 @@ fn ask_program(launch: &Launch) -> Result<String, String> {
     let (stdout, stderr) = (child.stdout.take(), child.stderr.take());
     let out = std::thread::spawn(move || read_all(stdout));
     let err = std::thread::spawn(move || read_all(stderr));
-    let deadline = Instant::now() + launch.timeout;
+    let deadline = Instant::now() + DESCRIBE_WAIT.max(launch.timeout);
     let status = loop {
         match child.try_wait().map_err(|e| e.to_string())? {
             Some(s) => break s,
@@ -271,7 +275,7 @@ fn ask_program(launch: &Launch) -> Result<String, String> {
                 return Err(format!(
                     "`{} {DESCRIBE_FLAG}` did not finish within {} s",
                     launch.command_line(),
-                    launch.timeout.as_secs_f64()
+                    DESCRIBE_WAIT.max(launch.timeout).as_secs_f64()
                 ));
             }
             None => std::thread::sleep(Duration::from_millis(5)),

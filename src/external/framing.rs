@@ -66,6 +66,9 @@ fn tag_json(t: &LobeTag) -> Value {
     json!({"lobe": t.lobe, "name": &*t.name, "dwell": t.dwell, "dwell_start": t.dwell_start})
 }
 
+/// The samples a frame carries after its header: I/Q, sync, trigger.
+type Payload<'a> = (&'a [Complex32], Option<&'a [f32]>, Option<&'a [f32]>);
+
 /// Append one item as a frame for input port `port` to `buf`.
 pub fn encode(port: &str, item: &Item, buf: &mut Vec<u8>) {
     let stamp = item.stamp();
@@ -74,7 +77,7 @@ pub fn encode(port: &str, item: &Item, buf: &mut Vec<u8>) {
     head.insert("port".into(), json!(port));
     head.insert("index".into(), json!(stamp.index));
     head.insert("rate".into(), num(stamp.rate));
-    let mut payload: Option<(&[Complex32], Option<&[f32]>, Option<&[f32]>)> = None;
+    let mut payload: Option<Payload> = None;
     match item {
         Item::Samples(c) => {
             payload = Some((&c.iq, c.sync.as_deref(), c.trigger.as_deref()));
@@ -277,10 +280,7 @@ pub fn parse_header(line: &[u8], outputs: &[(String, ItemKind)]) -> Result<Heade
 }
 
 /// Read the samples a header announced from `input`.
-pub fn read_samples(
-    input: &mut impl BufRead,
-    count: usize,
-) -> std::io::Result<Vec<Complex32>> {
+pub fn read_samples(input: &mut impl BufRead, count: usize) -> std::io::Result<Vec<Complex32>> {
     let mut raw = vec![0u8; count * 8];
     input.read_exact(&mut raw)?;
     Ok(raw
@@ -307,12 +307,8 @@ pub fn build_item(
 ) -> Result<Item, String> {
     let h = Head(&header.head);
     let stamp = h.stamp()?;
-    let chunk = |stamp| SampleChunk {
-        stamp,
-        iq: Span::new(iq),
-        sync: sync.map(Span::new),
-        trigger: trigger.map(Span::new),
-    };
+    let chunk =
+        |stamp| SampleChunk { stamp, iq: Span::new(iq), sync: sync.map(Span::new), trigger: trigger.map(Span::new) };
     Ok(match header.kind {
         ItemKind::Samples => Item::Samples(chunk(stamp)),
         ItemKind::Sweep => {

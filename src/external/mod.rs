@@ -83,16 +83,13 @@ impl Launch {
         Ok(Launch { command, args: words, folder, timeout: Duration::from_secs_f64(timeout) })
     }
 
-    /// A program started from its own file (`./my_block.py`), described
-    /// from the current folder (`lobeflow blocks PROGRAM`).
+    /// A program started from its own file (`./my_block`; a `.py` file by
+    /// `python3`), described from the current folder (`lobeflow blocks PROGRAM`).
     pub fn program(path: &Path) -> Launch {
-        let abs = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf());
-        Launch {
-            command: abs.to_string_lossy().into_owned(),
-            args: Vec::new(),
-            folder: std::env::current_dir().unwrap_or_default(),
-            timeout: Duration::from_secs(30),
-        }
+        let abs = std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf()).to_string_lossy().into_owned();
+        let (command, args) =
+            if path.extension().is_some_and(|e| e == "py") { ("python3".into(), vec![abs]) } else { (abs, Vec::new()) };
+        Launch { command, args, folder: std::env::current_dir().unwrap_or_default(), timeout: Duration::from_secs(30) }
     }
 
     /// The command as a person would type it.

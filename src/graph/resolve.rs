@@ -451,26 +451,21 @@ fn set_params(
             let names: Vec<&str> = spec.params.iter().map(|p| p.name).collect();
             return Err(src
                 .error(&pat, format!("block kind '{}' has no parameter '{pname}'", spec.kind))
-                .hint_closest(
-                    pname,
-                    names.iter().copied(),
-                    &format!("its parameters: {}", names.join(", ")),
-                ));
+                .hint_closest(pname, names.iter().copied(), &format!("its parameters: {}", names.join(", "))));
         };
         let (value, knob) = substitute(raw, Some(&ps.ty), settings, src, &pat)?;
         let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
         let mut parsed = ps.parse(&value).map_err(|m| {
-            let via = knob
-                .as_ref()
-                .map(|k| format!(" (from knob '{}', {})", k.name, k.origin))
-                .unwrap_or_default();
+            let via = knob.as_ref().map(|k| format!(" (from knob '{}', {})", k.name, k.origin)).unwrap_or_default();
             src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
                 .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
         })?;
-        if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed) {
-            if p != "-" && !p.is_empty() && Path::new(p).is_relative() {
-                parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
-            }
+        if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed)
+            && p != "-"
+            && !p.is_empty()
+            && Path::new(p).is_relative()
+        {
+            parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
         }
         let from = match &knob {
             Some(k) => format!("knob {} ({})", k.name, k.origin),
