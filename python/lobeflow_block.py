@@ -34,10 +34,19 @@ import json
 import math
 import sys
 
-try:
-    import numpy as _np
-except ImportError:  # the framing works without it, only slower
-    _np = None
+_NUMPY = []  # [module or None], filled on the first sample frame
+
+
+def _numpy():
+    """numpy when installed (imported only once samples arrive: it takes a
+    while to load, and record-level blocks do not need it), else None."""
+    if not _NUMPY:
+        try:
+            import numpy
+        except ImportError:  # the framing works without it, only slower
+            numpy = None
+        _NUMPY.append(numpy)
+    return _NUMPY[0]
 
 DESCRIBE_FLAG = "--describe"
 
@@ -63,8 +72,9 @@ def _read_exact(stream, n):
 
 
 def _complex_from(data):
-    if _np is not None:
-        return _np.frombuffer(data, dtype="<c8").copy()
+    np = _numpy()
+    if np is not None:
+        return np.frombuffer(data, dtype="<c8").copy()
     a = array.array("f", data)
     if not _LITTLE:
         a.byteswap()
@@ -72,8 +82,9 @@ def _complex_from(data):
 
 
 def _real_from(data):
-    if _np is not None:
-        return _np.frombuffer(data, dtype="<f4").copy()
+    np = _numpy()
+    if np is not None:
+        return np.frombuffer(data, dtype="<f4").copy()
     a = array.array("f", data)
     if not _LITTLE:
         a.byteswap()
@@ -81,8 +92,9 @@ def _real_from(data):
 
 
 def _complex_bytes(iq):
-    if _np is not None:
-        return _np.asarray(iq, dtype="<c8").tobytes()
+    np = _numpy()
+    if np is not None:
+        return np.asarray(iq, dtype="<c8").tobytes()
     a = array.array("f")
     for x in iq:
         a.append(x.real)
@@ -93,8 +105,9 @@ def _complex_bytes(iq):
 
 
 def _real_bytes(values):
-    if _np is not None:
-        return _np.asarray(values, dtype="<f4").tobytes()
+    np = _numpy()
+    if np is not None:
+        return np.asarray(values, dtype="<f4").tobytes()
     a = array.array("f", values)
     if not _LITTLE:
         a.byteswap()

@@ -299,3 +299,57 @@ fn a_slow_program_keeps_memory_flat_on_a_long_capture() {
     let peak_mib = peak / 1024;
     assert!(peak > 0 && peak_mib < BOUND_MIB, "peak resident set {peak_mib} MiB (bound {BOUND_MIB} MiB)");
 }
+
+#[test]
+fn a_described_block_is_checked_like_a_built_in_one() {
+    // The description is a file beside the program: no Python needed here.
+    let fixture = root().join("tests/fixtures/external/file-described.yaml");
+    let g = resolve(&fixture, &Overrides::default(), &lobeflow::registry()).unwrap();
+    let scale = &g.blocks[g.block_index("scale").unwrap()];
+    assert_eq!(scale.params.get("gain"), Some(&lobeflow_blocks::Value::Number(2.0)));
+    assert_eq!(scale.spec.inputs[0].name, "samples");
+    // --set reaches the program's parameter through the knob, with its range.
+    let mut o = Overrides::default();
+    o.set_text("factor=50").unwrap();
+    let e = resolve(&fixture, &o, &lobeflow::registry()).unwrap_err().to_string();
+    assert!(e.contains("file-described.yaml:6"), "{e}");
+    assert!(e.contains("parameter 'gain' of block 'scale': 50 dB is out of range"), "{e}");
+    assert!(e.contains("from knob 'factor', --set") && e.contains("number [dB], -40 to 40"), "{e}");
+    // Misspelt names and wrong units say where and what would fit.
+    let d = temp_dir("check");
+    let program = root().join("tests/fixtures/external/described_by_file.py");
+    for (set, want) in [
+        ("gian: 3 dB", "has no parameter 'gian'"),
+        ("gain: 3 us", "unit 'us' does not fit this parameter"),
+        ("shape: round", "'round' is not one of flat, tapered"),
+    ] {
+        let graph = d.join("g.yaml");
+        std::fs::write(
+            &graph,
+            format!(
+                "blocks:\n  tone: {{kind: test_tone}}\n  scale:\n    kind: external_program\n    set:\n      command: [python3, '{}']\n      {set}\nwiring:\n  - tone -> scale\n",
+                program.display()
+            ),
+        )
+        .unwrap();
+        let e = resolve(&graph, &Overrides::default(), &lobeflow::registry()).unwrap_err();
+        let text = format!("{e}{}", e.hint.clone().unwrap_or_default());
+        assert_eq!(e.line, 7, "{text}");
+        assert!(text.contains(want), "{text}");
+    }
+    let listing = lobeflow::commands::catalog::catalog(&lobeflow::registry(), fixture.to_str()).unwrap();
+    assert!(listing.contains("block scale") && listing.contains("param gain = 0 dB"), "{listing}");
+}
+
+#[test]
+fn the_program_hears_its_parameters_and_its_standard_error_becomes_notices() {
+    needs_python!(false, "the_program_hears_its_parameters_and_its_standard_error_becomes_notices");
+    let fixture = root().join("tests/fixtures/external/file-described.yaml");
+    let mut o = Overrides::default();
+    o.set_text("factor=-6.5").unwrap();
+    let g = resolve(&fixture, &o, &lobeflow::registry()).unwrap();
+    let opts = RunOptions { threads: 2, out_dir: temp_dir("notices"), ..RunOptions::default() };
+    let report = run(&g, &opts, Vec::new()).unwrap();
+    let said: Vec<_> = report.notices.iter().filter(|n| &*n.block == "scale").map(|n| n.what.as_str()).collect();
+    assert_eq!(said, ["gain -6.5 dB"]);
+}
