@@ -353,3 +353,121 @@ fn the_program_hears_its_parameters_and_its_standard_error_becomes_notices() {
     let said: Vec<_> = report.notices.iter().filter(|n| &*n.block == "scale").map(|n| n.what.as_str()).collect();
     assert_eq!(said, ["gain -6.5 dB"]);
 }
+
+/// Emits `count` dwell records of four lobes, 256 per call.
+struct DwellSource {
+    left: u64,
+    next: u64,
+}
+
+impl lobeflow_blocks::Block for DwellSource {
+    fn generate(&mut self, out: &mut lobeflow_blocks::Outputs) -> Result<bool, lobeflow_blocks::BlockError> {
+        for _ in 0..256.min(self.left) {
+            let lobe = (self.next % 4) as usize;
+            let name = ["right", "up", "left", "down"][lobe];
+            out.push(
+                0,
+                Item::Dwell(lobeflow_blocks::DwellRecord {
+                    tag: lobeflow_blocks::LobeTag {
+                        lobe,
+                        name: name.into(),
+                        dwell: self.next,
+                        dwell_start: self.next * 400,
+                    },
+                    mid: lobeflow_blocks::Stamp::new(self.next * 400 + 200, 1e6),
+                    amplitude: 1.0 + (self.next % 7) as f64 * 0.01,
+                    noise_power: 0.01,
+                    snr: 100.0,
+                    var_ln_amp: 0.001,
+                    range_m: Some(8000.0),
+                    used: 4,
+                }),
+            );
+            self.next += 1;
+            self.left -= 1;
+        }
+        Ok(self.left > 0)
+    }
+}
+
+/// Counts what reaches it.
+struct Count;
+impl lobeflow_blocks::Block for Count {}
+
+fn hop_registry() -> lobeflow_blocks::Registry {
+    use lobeflow_blocks::{BlockSpec, ItemKind, ParamSpec, ParamType, PortSpec};
+    let mut r = lobeflow::registry();
+    r.register(BlockSpec {
+        kind: "dwell_source",
+        doc: "test: many dwell records, fast",
+        inputs: &[],
+        outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "")],
+        params: &[ParamSpec {
+            name: "count",
+            ty: ParamType::Integer { min: 1, max: 1 << 40 },
+            default: Some("1000"),
+            doc: "",
+        }],
+        build: |p, _| Ok(Box::new(DwellSource { left: p.int("count")? as u64, next: 0 })),
+    });
+    for (kind, item) in [("count_dwells", ItemKind::Dwell), ("count_samples", ItemKind::Samples)] {
+        r.register(BlockSpec {
+            kind,
+            doc: "test: consumes its input",
+            inputs: &[PortSpec { name: "in", kind: item, required: true, doc: "" }],
+            outputs: &[],
+            params: &[],
+            build: |_, _| Ok(Box::new(Count)),
+        });
+    }
+    r
+}
+
+/// The cost of the external hop, for the figures in docs/external-blocks.md:
+/// `cargo test --release --test external_block -- --ignored --nocapture external_hop`.
+#[test]
+#[ignore = "a measurement, not a check: run it by name with --release"]
+fn external_hop_cost() {
+    needs_python!(true, "external_hop_cost");
+    let d = temp_dir("hop");
+    let pass = root().join("python/examples/pass_through.py");
+    let cases = [
+        ("dwells", "dwell_source", "count: 200000", "dwell", "count_dwells", 200_000.0),
+        ("samples", "test_tone", "samples: 100000000, chunk: 16384", "samples", "count_samples", 100e6),
+    ];
+    for (what, source, size, kind, sink, n) in cases {
+        for hop in [false, true] {
+            let graph = d.join(format!("{what}-{hop}.yaml"));
+            let middle = if hop {
+                format!(
+                    "  hop: {{kind: external_program, set: {{command: [python3, '{}', {kind}]}}}}\n",
+                    pass.display()
+                )
+            } else {
+                String::new()
+            };
+            let chain = if hop { "src -> hop -> sink" } else { "src -> sink" };
+            std::fs::write(
+                &graph,
+                format!("blocks:\n  src: {{kind: {source}, set: {{{size}}}}}\n{middle}  sink: {{kind: {sink}}}\nwiring:\n  - {chain}\n"),
+            )
+            .unwrap();
+            let g = resolve(&graph, &Overrides::default(), &hop_registry()).unwrap();
+            let opts = RunOptions { threads: 2, out_dir: d.clone(), ..RunOptions::default() };
+            let start = Instant::now();
+            let report = run(&g, &opts, Vec::new()).unwrap();
+            let secs = start.elapsed().as_secs_f64();
+            let sink_in = report.stats.last().unwrap().items_in;
+            let rate = if what == "dwells" {
+                format!("{:.0} items/s", n / secs)
+            } else {
+                format!("{:.1} MS/s", n / secs / 1e6)
+            };
+            let _ = writeln!(
+                std::io::stderr(),
+                "{what:8} {:18} {secs:7.2} s  {rate}  ({sink_in} items reached the sink)",
+                if hop { "through Python" } else { "built-in only" }
+            );
+        }
+    }
+}
