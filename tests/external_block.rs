@@ -394,32 +394,40 @@ impl lobeflow_blocks::Block for DwellSource {
 struct Count;
 impl lobeflow_blocks::Block for Count {}
 
-fn hop_registry() -> lobeflow_blocks::Registry {
-    use lobeflow_blocks::{BlockSpec, ItemKind, ParamSpec, ParamType, PortSpec};
-    let mut r = lobeflow::registry();
-    r.register(BlockSpec {
-        kind: "dwell_source",
-        doc: "test: many dwell records, fast",
-        inputs: &[],
-        outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "")],
-        params: &[ParamSpec {
-            name: "count",
-            ty: ParamType::Integer { min: 1, max: 1 << 40 },
-            default: Some("1000"),
-            doc: "",
-        }],
-        build: |p, _| Ok(Box::new(DwellSource { left: p.int("count")? as u64, next: 0 })),
-    });
-    for (kind, item) in [("count_dwells", ItemKind::Dwell), ("count_samples", ItemKind::Samples)] {
-        r.register(BlockSpec {
-            kind,
-            doc: "test: consumes its input",
-            inputs: &[PortSpec { name: "in", kind: item, required: true, doc: "" }],
-            outputs: &[],
-            params: &[],
-            build: |_, _| Ok(Box::new(Count)),
-        });
+const DWELL_SOURCE: lobeflow_blocks::BlockSpec = lobeflow_blocks::BlockSpec {
+    kind: "dwell_source",
+    doc: "test: many dwell records, fast",
+    inputs: &[],
+    outputs: &[lobeflow_blocks::PortSpec::optional("dwells", lobeflow_blocks::ItemKind::Dwell, "")],
+    params: &[lobeflow_blocks::ParamSpec {
+        name: "count",
+        ty: lobeflow_blocks::ParamType::Integer { min: 1, max: 1 << 40 },
+        default: Some("1000"),
+        doc: "",
+    }],
+    build: |p, _| Ok(Box::new(DwellSource { left: p.int("count")? as u64, next: 0 })),
+};
+
+/// A sink of `kind` items.
+const fn counter(kind: &'static str, inputs: &'static [lobeflow_blocks::PortSpec]) -> lobeflow_blocks::BlockSpec {
+    lobeflow_blocks::BlockSpec {
+        kind,
+        doc: "test: consumes its input",
+        inputs,
+        outputs: &[],
+        params: &[],
+        build: |_, _| Ok(Box::new(Count)),
     }
+}
+
+fn hop_registry() -> lobeflow_blocks::Registry {
+    use lobeflow_blocks::{ItemKind, PortSpec};
+    let mut r = lobeflow::registry();
+    r.register(DWELL_SOURCE);
+    const DWELLS_IN: &[PortSpec] = &[PortSpec::required("in", ItemKind::Dwell, "")];
+    const SAMPLES_IN: &[PortSpec] = &[PortSpec::required("in", ItemKind::Samples, "")];
+    r.register(counter("count_dwells", DWELLS_IN));
+    r.register(counter("count_samples", SAMPLES_IN));
     r
 }
 
