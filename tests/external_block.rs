@@ -479,3 +479,27 @@ fn external_hop_cost() {
         }
     }
 }
+
+#[test]
+fn a_program_without_inputs_is_a_source() {
+    needs_python!(false, "a_program_without_inputs_is_a_source");
+    let d = temp_dir("source");
+    std::fs::write(
+        d.join("count.py"),
+        format!(
+            "import sys\nsys.path.insert(0, {:?})\nimport lobeflow_block\nD = {{'name': 'count', 'outputs': [{{'name': 'rows', 'kind': 'row'}}], 'params': [{{'name': 'n', 'type': 'integer', 'default': 3, 'min': 0}}]}}\nb = lobeflow_block.Block(D)\nfor k in range(b.params['n']):\n    b.emit({{'kind': 'row', 'index': 10 * k, 'rate': 100.0, 'fields': [['k', k], ['half', k / 2], ['nan', float('nan')]]}})\n",
+            root().join("python").display().to_string()
+        ),
+    )
+    .unwrap();
+    let graph = d.join("g.yaml");
+    std::fs::write(&graph, "blocks:\n  count: {kind: external_program, set: {command: [python3, count.py], n: 4}}\n")
+        .unwrap();
+    let rows = run_tapped(&graph, &["count"], 2, &d.join("out")).unwrap().remove(0);
+    assert_eq!(rows.len(), 4);
+    let Item::Row(last) = &rows[3] else { panic!("expected rows") };
+    assert_eq!(last.stamp, lobeflow_blocks::Stamp::new(30, 100.0));
+    assert_eq!(last.fields[0].1, lobeflow_blocks::Cell::Int(3));
+    assert_eq!(last.fields[1].1, lobeflow_blocks::Cell::Num(1.5));
+    assert!(matches!(last.fields[2].1, lobeflow_blocks::Cell::Num(x) if x.is_nan()));
+}
