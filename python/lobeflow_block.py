@@ -30,8 +30,11 @@ Only the standard library is needed; numpy is used when it is installed.
 """
 
 import array
+import atexit
 import json
 import math
+import os
+import select
 import sys
 
 _NUMPY = []  # [module or None], filled on the first sample frame
@@ -143,7 +146,12 @@ class Block:
             sys.stdout.flush()
             sys.exit(0)
         self._in = stdin if stdin is not None else sys.stdin.buffer
-        self._out = stdout if stdout is not None else sys.stdout.buffer
+        if stdout is None:
+            # A buffer of our own: standard output may be unbuffered
+            # (PYTHONUNBUFFERED, -u), which costs a system call per write.
+            stdout = os.fdopen(sys.stdout.fileno(), "wb", buffering=1 << 16, closefd=False)
+            atexit.register(stdout.flush)
+        self._out = stdout
         start = self._read_header()
         if start is None or start.get("kind") != "start":
             raise FramingError("expected the start line from lobeflow (run this script from a graph)")
@@ -163,10 +171,13 @@ class Block:
     def items(self):
         """Every input item, in order, as a dict; ends when the inputs do."""
         while True:
-            # Whatever was emitted goes out before waiting for more input.
-            self._out.flush()
+            # Whatever was emitted goes out before waiting for more input
+            # (while more is already waiting, output is sent in larger writes).
+            if not self._input_waiting():
+                self._out.flush()
             item = self._read_header()
             if item is None:
+                self._out.flush()
                 return
             for key in FLOAT_FIELDS.intersection(item):
                 if item[key] is not None:
@@ -179,6 +190,12 @@ class Block:
                 for channel in ("sync", "trigger"):
                     item[channel] = _real_from(_read_exact(self._in, 4 * n)) if item.get(channel) else None
             yield item
+
+    def _input_waiting(self):
+        try:
+            return bool(select.select([self._in], [], [], 0)[0])
+        except (OSError, ValueError, TypeError):  # not a pollable stream
+            return False
 
     def emit(self, item, port=None):
         """Write one item on output `port` (needed when there are several;
