@@ -23,6 +23,7 @@ pub mod batch;
 pub mod capture;
 pub mod commands;
 pub mod error;
+pub mod external;
 pub mod graph;
 pub mod picture;
 pub mod regress;
@@ -41,6 +42,8 @@ pub fn registry() -> lobeflow_blocks::Registry {
     for spec in FILE_KINDS {
         r.register(*spec);
     }
+    // Declared per instance by the program it runs.
+    r.register_described(external::SPEC, external::describe_instance);
     r
 }
 

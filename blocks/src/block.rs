@@ -242,10 +242,17 @@ impl BlockSpec {
     }
 }
 
+/// Declares one instance of a kind whose ports and parameters depend on the
+/// instance (an external program describes itself): given the parameters of
+/// the kind's own declaration that the graph set, and the folder of the
+/// graph file declaring the instance, it returns the instance's declaration.
+pub type DescribeFn = fn(&Params, &Path) -> Result<BlockSpec, String>;
+
 /// The block kinds a graph may use, by name.
 #[derive(Clone, Default)]
 pub struct Registry {
     kinds: BTreeMap<&'static str, BlockSpec>,
+    described: BTreeMap<&'static str, DescribeFn>,
 }
 
 impl Registry {
@@ -254,7 +261,18 @@ impl Registry {
     }
     /// Add a kind; a later registration of the same name replaces it.
     pub fn register(&mut self, spec: BlockSpec) {
+        self.described.remove(spec.kind);
         self.kinds.insert(spec.kind, spec);
+    }
+    /// Add a kind whose instances are declared by `describe`; `spec` holds
+    /// the parameters every instance has (those `describe` reads).
+    pub fn register_described(&mut self, spec: BlockSpec, describe: DescribeFn) {
+        self.kinds.insert(spec.kind, spec);
+        self.described.insert(spec.kind, describe);
+    }
+    /// How instances of `kind` are declared, when they declare themselves.
+    pub fn describer(&self, kind: &str) -> Option<DescribeFn> {
+        self.described.get(kind).copied()
     }
     pub fn get(&self, kind: &str) -> Option<&BlockSpec> {
         self.kinds.get(kind)

@@ -19,7 +19,9 @@ pub mod kinds;
 pub mod output_file;
 pub mod param;
 
-pub use block::{Block, BlockError, BlockSpec, BuildContext, BuildFn, FileStager, Outputs, PortSpec, Registry};
+pub use block::{
+    Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
+};
 pub use item::*;
 pub use output_file::OutputFile;
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};

@@ -29,7 +29,7 @@ pub fn run_graph(args: &RunArgs) -> Result<RunReport, Error> {
     let cancel = Arc::new(AtomicBool::new(false));
     {
         let c = Arc::clone(&cancel);
-        // Ctrl-C raises the flag; the scheduler stops within a step and the
+        // Ctrl-C (and SIGTERM) raises the flag; the scheduler stops within a step and the
         // staged outputs are discarded. A second handler install (in tests
         // running several graphs in one process) is harmless to skip.
         let _ = ctrlc::set_handler(move || c.store(true, Ordering::SeqCst));

@@ -6,7 +6,7 @@
 //! ports and checks the whole: nothing runs until all of it holds.
 
 use super::error::GraphError;
-use super::file::{BlockBody, GraphFile, Source, parse_yaml, raw_value, read_text};
+use super::file::{BlockBody, BlockDecl, GraphFile, Source, parse_yaml, raw_value, read_text};
 use super::locate::{Seg, key, locate};
 use lobeflow_blocks::{BlockSpec, ItemKind, ParamType, Params, RawValue, Registry, Value};
 use std::collections::{BTreeMap, HashMap};
@@ -307,45 +307,15 @@ fn expand(
                         .error(&[key("blocks"), key(&decl.name), key("kind")], format!("unknown block kind '{kind}'"))
                         .hint_closest(kind, b.registry.kinds().map(|s| s.kind), "`lobeflow blocks` lists the kinds"));
                 };
-                let spec = *spec;
-                let mut params = Params::new();
-                let mut sources = BTreeMap::new();
-                for (pname, raw) in &decl.set {
-                    let pat = [key("blocks"), key(&decl.name), key("set"), key(pname)];
-                    let Some(ps) = spec.param(pname) else {
-                        let names: Vec<&str> = spec.params.iter().map(|p| p.name).collect();
-                        return Err(src
-                            .error(&pat, format!("block kind '{}' has no parameter '{pname}'", spec.kind))
-                            .hint_closest(
-                                pname,
-                                names.iter().copied(),
-                                &format!("its parameters: {}", names.join(", ")),
-                            ));
-                    };
-                    let (value, knob) = substitute(raw, Some(&ps.ty), settings, src, &pat)?;
-                    let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
-                    let mut parsed = ps.parse(&value).map_err(|m| {
-                        let via = knob
-                            .as_ref()
-                            .map(|k| format!(" (from knob '{}', {})", k.name, k.origin))
-                            .unwrap_or_default();
-                        src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
-                            .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
-                    })?;
-                    if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed)
-                        && p != "-"
-                        && !p.is_empty()
-                        && Path::new(p).is_relative()
-                    {
-                        parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
-                    }
-                    let from = match &knob {
-                        Some(k) => format!("knob {} ({})", k.name, k.origin),
-                        None => format!("{}:{}", src.path.display(), locate(&src.text, &pat).0),
-                    };
-                    sources.insert(pname.clone(), from);
-                    params.insert(pname, parsed);
+                let mut spec = *spec;
+                if let Some(describe) = b.registry.describer(kind) {
+                    // The instance declares itself from the parameters its kind
+                    // always has (a program and its arguments).
+                    let (launch, _) = set_params(&spec, decl, settings, src, true)?;
+                    spec = describe(&launch, &src.dir())
+                        .map_err(|m| src.error(&at, format!("block '{}' ({}): {m}", decl.name, spec.kind)))?;
                 }
+                let (mut params, mut sources) = set_params(&spec, decl, settings, src, false)?;
                 for ps in spec.params {
                     if params.get(ps.name).is_some() {
                         continue;
@@ -458,6 +428,53 @@ fn expand(
         }
     }
     Ok(scope)
+}
+
+/// Check the parameters a block declaration sets against `spec`, with where
+/// each came from. With `declared_only`, names `spec` does not declare are
+/// passed over instead of refused (a self-declaring kind reads its own first).
+fn set_params(
+    spec: &BlockSpec,
+    decl: &BlockDecl,
+    settings: &BTreeMap<String, KnobValue>,
+    src: &Source,
+    declared_only: bool,
+) -> Result<(Params, BTreeMap<String, String>), GraphError> {
+    let mut params = Params::new();
+    let mut sources = BTreeMap::new();
+    for (pname, raw) in &decl.set {
+        let pat = [key("blocks"), key(&decl.name), key("set"), key(pname)];
+        let Some(ps) = spec.param(pname) else {
+            if declared_only {
+                continue;
+            }
+            let names: Vec<&str> = spec.params.iter().map(|p| p.name).collect();
+            return Err(src
+                .error(&pat, format!("block kind '{}' has no parameter '{pname}'", spec.kind))
+                .hint_closest(pname, names.iter().copied(), &format!("its parameters: {}", names.join(", "))));
+        };
+        let (value, knob) = substitute(raw, Some(&ps.ty), settings, src, &pat)?;
+        let base = knob.as_ref().map(|k| k.base.clone()).unwrap_or_else(|| src.dir());
+        let mut parsed = ps.parse(&value).map_err(|m| {
+            let via = knob.as_ref().map(|k| format!(" (from knob '{}', {})", k.name, k.origin)).unwrap_or_default();
+            src.error(&pat, format!("parameter '{pname}' of block '{}': {m}{via}", decl.name))
+                .with_hint(format!("'{pname}' takes {}", ps.ty.describe()))
+        })?;
+        if let (ParamType::InputPath, Value::Text(p)) = (&ps.ty, &parsed)
+            && p != "-"
+            && !p.is_empty()
+            && Path::new(p).is_relative()
+        {
+            parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
+        }
+        let from = match &knob {
+            Some(k) => format!("knob {} ({})", k.name, k.origin),
+            None => format!("{}:{}", src.path.display(), locate(&src.text, &pat).0),
+        };
+        sources.insert(pname.clone(), from);
+        params.insert(pname, parsed);
+    }
+    Ok((params, sources))
 }
 
 fn split_end(text: &str) -> (&str, Option<&str>) {
