@@ -290,6 +290,8 @@ pub struct AngleEstimate {
     pub flag: Flag,
     /// Smoothed error from a tracker, degrees.
     pub tracked_deg: Option<f64>,
+    /// Expected one-sigma spread of `tracked_deg`, degrees.
+    pub tracked_sigma_deg: Option<f64>,
     /// Absolute target angle (pointing + tracked error), degrees.
     pub absolute_deg: Option<f64>,
 }

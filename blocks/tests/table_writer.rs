@@ -49,6 +49,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         range_m: Some(10_003.75),
         flag: Flag::Ok,
         tracked_deg: Some(0.1),
+        tracked_sigma_deg: None,
         absolute_deg: Some(121.1),
     };
     let b = AngleEstimate {
@@ -61,6 +62,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         range_m: None,
         flag: Flag::OutOfRange,
         tracked_deg: None,
+        tracked_sigma_deg: None,
         absolute_deg: None,
     };
     vec![(0, Item::Estimate(Box::new(a))), (0, Item::Estimate(Box::new(b)))]

@@ -23,6 +23,7 @@ fn estimate(axis: &str, t: f64, error: f64, sigma: f64) -> AngleEstimate {
         range_m: None,
         flag: Flag::Ok,
         tracked_deg: None,
+        tracked_sigma_deg: None,
         absolute_deg: None,
     }
 }

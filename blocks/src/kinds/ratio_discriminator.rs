@@ -252,6 +252,7 @@ impl RatioDiscriminator {
             range_m,
             flag,
             tracked_deg: None,
+            tracked_sigma_deg: None,
             absolute_deg: None,
         }
     }
