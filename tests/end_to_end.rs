@@ -2,7 +2,7 @@
 //! graphs must reproduce the truth within the spread each estimate carries.
 //!
 //! Outside references: the expected spread sigma_theta is the first-order
-//! formula of the field notes (section 4: var(ln A) = (G/E^2 + 2/E)/(4N) for
+//! formula of docs/derivations.md (§3-4: var(ln A) = (G/E^2 + 2/E)/(4N) for
 //! noncoherent gates, 1/(2 N s) for coherent tones; sigma = BW^2/(8 n ln2 SQ)
 //! * sqrt(var ln A + var ln B) for Gaussian beams, Skolnik, Introduction to
 //! Radar Systems, tracking-radar chapter, from memory), which holds where the

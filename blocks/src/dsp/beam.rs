@@ -1,5 +1,5 @@
 //! Beam models: the one-way voltage pattern of one lobe, and the ratio of a
-//! squinted pair as a function of target angle (field notes sections 2-3).
+//! squinted pair as a function of target angle (docs/derivations.md §2-3).
 //!
 //! For a pair with lobe axes at `+squint` and `-squint` and a target at
 //! `theta`, the log ratio is `r(theta) = n ln(g(theta - squint) / g(theta + squint))`
@@ -288,7 +288,7 @@ impl PairModel {
 mod tests {
     use super::*;
 
-    // Check values of field notes section 3, computed there from the
+    // Check values of docs/derivations.md §3, worked by hand from the
     // Gaussian formula (Skolnik, Introduction to Radar Systems, tracking-radar
     // chapter, from memory, for the Gaussian main-lobe model itself).
     #[test]

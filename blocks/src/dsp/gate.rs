@@ -1,5 +1,5 @@
 //! Range-gate arithmetic for one lobe dwell: sums over pulses, noise
-//! correction, amplitude, expected spread and sub-bin range (field notes §4-5).
+//! correction, amplitude, expected spread and sub-bin range (docs/derivations.md §4-5).
 //!
 //! Range comes from a centroid of the noise-corrected gate, amplitude-weighted
 //! by default ([`Weighting`]). Why amplitude and not power: a rectangular echo of `L` samples whose
@@ -214,7 +214,7 @@ impl DwellSums {
         let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std { energy.sqrt() } else { f64::NAN };
         let var_ln_amp = if e > 0.0 {
             match self.integration {
-                // Field notes §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
+                // docs/derivations.md §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
                 Integration::Noncoherent => (g / (e * e) + 2.0 / e) / (4.0 * n),
                 // The coherent mean is one "pulse" whose echo energy over its own
                 // noise (noise/N) is N E; put E -> N E, N -> 1 in the same form:

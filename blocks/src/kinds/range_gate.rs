@@ -1,6 +1,6 @@
 //! `range_gate`: integrates the echo inside a range gate over each lobe dwell
 //! of a pulsed tracker, with a fixed gate or one that acquires and follows the
-//! strongest echo. Formulas: field notes sections 4 and 5; the per-dwell
+//! strongest echo. Formulas: docs/derivations.md §4-5; the per-dwell
 //! arithmetic lives in [`crate::dsp::gate`].
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};

@@ -1,6 +1,6 @@
 //! `ratio_discriminator`: pairs the dwells of opposite lobes and turns their
 //! amplitude ratio into an angle error in degrees through a beam model
-//! (field notes sections 3 and 4).
+//! (docs/derivations.md §3-4).
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::beam::{Beam, BeamShape, PairModel, parse_pattern_csv};
