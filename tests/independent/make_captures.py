@@ -214,8 +214,19 @@ def make_beacon(name, seconds, seed):
     return dict(dwells=int(len(starts)), noise_power=(p["lsb_per_unit"] / 32768.0) ** 2)
 
 
+def write_pattern(path, bw_deg):
+    """The pulsed rig's true one-way pattern as a measured-pattern table."""
+    x = np.round(np.arange(-15.0, 15.0001, 0.1), 1)
+    gain_db = 20.0 * np.log10(gaussian_voltage(x, bw_deg))
+    with open(path, "w") as f:
+        f.write("angle_deg,gain_db\n")
+        for a, g in zip(x, gain_db):
+            f.write(f"{a:.1f},{g:.5f}\n")
+
+
 def main():
     os.makedirs(OUT, exist_ok=True)
+    write_pattern(os.path.join(OUT, "pulsed-pattern.csv"), PULSED["beamwidth"])
     info = {
         "pulsed_switch_at_transmit": make_pulsed("pulsed-switch-at-transmit", 2.6, 0, 101),
         "pulsed_switch_in_tail": make_pulsed("pulsed-switch-in-tail", 2.6, -4, 102),
