@@ -144,12 +144,8 @@ fn forward(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> (Vec
                 }
                 updates += 1;
                 let k: V3 = [p_pred[0][0] / s, p_pred[1][0] / s, p_pred[2][0] / s];
-                for i in 0..3 {
-                    step.x[i] = x_pred[i] + k[i] * nu;
-                    for j in 0..3 {
-                        step.p[i][j] = p_pred[i][j] - k[i] * p_pred[0][j];
-                    }
-                }
+                step.x = [0, 1, 2].map(|i| x_pred[i] + k[i] * nu);
+                step.p = [0, 1, 2].map(|i| [0, 1, 2].map(|j| p_pred[i][j] - k[i] * p_pred[0][j]));
             }
         }
         x = step.x;

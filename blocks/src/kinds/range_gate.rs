@@ -165,7 +165,7 @@ struct Geometry {
 
 fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
     let b = p.bins_at(name, rate).map_err(BlockError::new)?;
-    if !b.is_finite() || b < 0.0 || b > 1e8 {
+    if !b.is_finite() || !(0.0..=1e8).contains(&b) {
         return Err(BlockError::new(format!("range_gate: '{name}' is {b} bins at {rate} S/s; too large")));
     }
     Ok(b.round() as usize)
