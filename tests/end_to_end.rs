@@ -2,12 +2,13 @@
 //! graphs must reproduce the truth within the spread each estimate carries.
 //!
 //! Outside references: the expected spread sigma_theta is the first-order
-//! formula of docs/derivations.md (§3-4: var(ln A) = (G/E^2 + 2/E)/(4N) for
-//! noncoherent gates, 1/(2 N s) for coherent tones; sigma = BW^2/(8 n ln2 SQ)
-//! * sqrt(var ln A + var ln B) for Gaussian beams, Skolnik, Introduction to
-//! Radar Systems, tracking-radar chapter, from memory), which holds where the
-//! per-dwell energy over noise is above about 10; every capture here keeps
-//! both lobes above that. The range bin is c/(2 fs) (SI value of c).
+//! formula of docs/derivations.md §3-4 (var(ln A) = (G/E^2 + 2/E)/(4N) for
+//! noncoherent gates; for Gaussian beams sigma = BW^2/(8 n ln2 s) times
+//! sqrt(var ln A + var ln B); Skolnik, Introduction to Radar Systems,
+//! tracking-radar chapter, from memory), which holds where the per-dwell
+//! energy over noise is above about 10; every capture here keeps both lobes
+//! above that. The range bin is c/(2 fs) (SI value of c). The tests on
+//! `tests/independent/` captures use truth this project's code did not make.
 
 use lobeflow::Session;
 use lobeflow::synth::scenario::ScenarioFile;
