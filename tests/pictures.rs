@@ -337,6 +337,7 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
                     range_m: Some(33_700.0),
                     flag,
                     tracked_deg: Some(truth + 0.3 * (t * 0.5).sin()),
+                    tracked_sigma_deg: None,
                     absolute_deg: None,
                 })),
             ));

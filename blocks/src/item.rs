@@ -240,7 +240,7 @@ pub struct DwellRecord {
     pub noise_power: f64,
     /// Per-pulse (or per-dwell, for beacons) signal energy over noise power, linear.
     pub snr: f64,
-    /// Expected variance of ln(amplitude) (field notes section 4).
+    /// Expected variance of ln(amplitude) (docs/derivations.md §4).
     pub var_ln_amp: f64,
     /// Target range in metres, where the integrator measured one.
     pub range_m: Option<f64>,
@@ -290,6 +290,8 @@ pub struct AngleEstimate {
     pub flag: Flag,
     /// Smoothed error from a tracker, degrees.
     pub tracked_deg: Option<f64>,
+    /// Expected one-sigma spread of `tracked_deg`, degrees.
+    pub tracked_sigma_deg: Option<f64>,
     /// Absolute target angle (pointing + tracked error), degrees.
     pub absolute_deg: Option<f64>,
 }

@@ -1,4 +1,4 @@
-//! The ratio discriminator against outside references: the field notes'
+//! The ratio discriminator against outside references: docs/derivations.md's
 //! Gaussian check values, Monte Carlo of the noncoherent estimator against
 //! the first-order spread formula, and numpy/scipy fixtures
 //! (`tests/fixtures/make_discriminator_fixtures.py`).
@@ -17,7 +17,7 @@ fn fixture(name: &str) -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures").join(name)
 }
 
-/// Gaussian one-way voltage, written out here from field notes section 2.
+/// Gaussian one-way voltage, written out here from docs/derivations.md §2.
 fn gaussian(x: f64, bw: f64) -> f64 {
     (-2.0 * LN_2 * x * x / (bw * bw)).exp()
 }
@@ -26,10 +26,10 @@ fn pair_items(a: f64, b: f64, var: f64) -> Vec<Item> {
     vec![Item::Dwell(dwell("right", 0, 1000, a, var, 20.0)), Item::Dwell(dwell("left", 1, 2000, b, var, 20.0))]
 }
 
-// (a) Field notes section 3, computed from the Gaussian formula (Skolnik,
+// (a) docs/derivations.md §3, computed from the Gaussian formula (Skolnik,
 // Introduction to Radar Systems, from memory).
 #[test]
-fn field_notes_check_values_come_through() {
+fn derivation_check_values_come_through() {
     let cases = [
         ("10 deg", "5 deg", "one", 10.0, 5.0, 1, 1.0, 2.4082, 0.137748),
         ("6 deg", "2.4 deg", "two", 6.0, 2.4, 2, 0.5, 3.2110, 0.182763),
@@ -47,7 +47,7 @@ fn field_notes_check_values_come_through() {
             assert_eq!(e.flag, Flag::Ok);
             assert!((e.error_deg.unwrap() - th).abs() < 1e-9, "{signal} {th}: {:?}", e.error_deg);
             assert!((e.ratio_db - sign * ratio_db).abs() < 1e-4, "{}", e.ratio_db);
-            // sigma = BW^2/(8 n ln2 SQ) sqrt(var A + var B), field notes section 4.
+            // sigma = BW^2/(8 n ln2 SQ) sqrt(var A + var B), docs/derivations.md §3.
             let want = bw * bw / (8.0 * n as f64 * LN_2 * sq) * (2.0 * var).sqrt();
             assert!((e.sigma_deg - want).abs() < 1e-12, "{} vs {want}", e.sigma_deg);
             let d = ErrorSignal::DiffSum.measure(a, b);
@@ -75,7 +75,7 @@ fn simulated_amplitude(rng: &mut Rng, energy: f64, pulses: usize, gate: usize) -
     if p > 0.0 { (p / pulses as f64).sqrt() } else { f64::NAN }
 }
 
-/// First-order var(ln A) of field notes section 4.
+/// First-order var(ln A) of docs/derivations.md §4.
 fn first_order_var(energy: f64, pulses: usize, gate: usize) -> f64 {
     (gate as f64 / (energy * energy) + 2.0 / energy) / (4.0 * pulses as f64)
 }
@@ -142,7 +142,7 @@ fn rms(v: &[f64]) -> f64 {
     (v.iter().map(|x| x * x).sum::<f64>() / v.len() as f64).sqrt()
 }
 
-// (b) At E >= 12 per pulse the first-order formula holds (field notes section 4).
+// (b) At E >= 12 per pulse the first-order formula holds (docs/derivations.md §4).
 #[test]
 fn monte_carlo_spread_matches_first_order_sigma() {
     let (pulses, gate) = (16, 4);

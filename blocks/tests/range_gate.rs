@@ -1,4 +1,4 @@
-//! `range_gate` on synthesized sweeps: sub-bin range, the field-notes spread
+//! `range_gate` on synthesized sweeps: sub-bin range, the derived spread
 //! formula against a Monte Carlo of the same estimator, coherent bias,
 //! acquisition, following and the noise-floor check.
 
@@ -82,7 +82,7 @@ fn centroid_range_of_fractional_box_echoes_within_0_15_bin_rms() {
 
 #[test]
 fn noncoherent_spread_matches_field_notes_formula_by_monte_carlo() {
-    // One-bin gate, E = 16 per pulse, N = 4; field notes §4: var(ln A) = (G/E^2 + 2/E)/(4N).
+    // One-bin gate, E = 16 per pulse, N = 4; docs/derivations.md §4: var(ln A) = (G/E^2 + 2/E)/(4N).
     // A wide noise region keeps the noise estimate's own spread negligible.
     let scene = Scene { sweep_len: 700, pulses: 4, dwells: 1500, noise: [1.0, 1.0] };
     let items = sweeps(&scene, 5, |_, _, rng| (150.0, 1.0, 4.0, rng.uniform() * std::f64::consts::TAU));
@@ -119,7 +119,7 @@ fn coherent_amplitude_is_unbiased_and_spread_as_derived() {
     let mean = amps.iter().sum::<f64>() / amps.len() as f64;
     assert!((mean - 1.0).abs() < 0.02, "mean amplitude {mean}");
     eprintln!("measured: coherent mean amplitude {mean:.4}");
-    // Field notes §4 coherent: var(ln A) ~= 1/(2 N s) = 1/32 to first order.
+    // docs/derivations.md §4 coherent: var(ln A) ~= 1/(2 N s) = 1/32 to first order.
     let measured = variance(&amps.iter().map(|a| a.ln()).collect::<Vec<_>>());
     let reported = out.iter().map(|r| r.var_ln_amp).sum::<f64>() / out.len() as f64;
     eprintln!("measured: coherent var(ln A) {measured:.5}, 1/(2Ns) {:.5}, reported {reported:.5}", 1.0 / 32.0);

@@ -219,3 +219,49 @@ fn framer_then_gate_with_a_trigger_channel() {
     assert_eq!(summary(&got), expected(total, FIRST_TX));
     assert!(report.iter().all(|n| n.what.starts_with("learned sync levels")), "{report:?}");
 }
+
+#[test]
+fn a_guard_before_the_range_window_blanks_the_head_instead_of_dropping() {
+    // Guard 60 us after a switch 50 samples before the transmit instant: it
+    // covers the first 10 samples of the dwell's first sweep, short of the
+    // window starting at bin 100, so that sweep is kept with its head blanked.
+    let total = 40_000;
+    let whole = capture(total);
+    let mut set = SYNC_SET.to_vec();
+    set.extend([("guard", "60 us"), ("window_start", "100 bins"), ("window_end", "440 bins")]);
+    let (got, _, report) = run(&set, sweeps_of(&whole)).unwrap();
+    let want = expected(total, FIRST_TX);
+    assert_eq!(got.len(), want.len(), "every sweep is kept: {report:?}");
+    for (s, w) in got.iter().zip(&want) {
+        let t = s.lobe.as_ref().unwrap();
+        assert_eq!((s.stamp.index, s.iq.len(), t.lobe, t.dwell, t.dwell_start), *w);
+        let first_of_dwell = t.dwell > 0 && s.stamp.index == switch_of(t.dwell) + LEAD;
+        let blanked = if first_of_dwell { 10 } else { 0 };
+        assert_eq!(s.blanked, blanked, "sweep at {}", s.stamp.index);
+        assert!(s.iq[..blanked as usize].iter().all(|z| z.re == 0.0));
+        assert_eq!(s.iq[blanked as usize].re as u64, s.stamp.index + blanked as u64);
+    }
+    assert!(!report.iter().any(|n| n.what.starts_with("dropped")), "{report:?}");
+}
+
+#[test]
+fn a_switch_inside_the_range_window_drops_the_sweep_and_says_why() {
+    // The window reaches bin 480; switches sit at bin 450 of the last sweep of
+    // each dwell, so exactly those sweeps go, one per switch.
+    let total = 40_000;
+    let whole = capture(total);
+    let mut set = SYNC_SET.to_vec();
+    set.extend([("window_start", "20 bins"), ("window_end", "480 bins")]);
+    let (got, _, report) = run(&set, sweeps_of(&whole)).unwrap();
+    let want: Vec<_> =
+        expected(total, FIRST_TX).into_iter().filter(|w| w.1 == PRI as usize || w.0 + w.1 as u64 >= total).collect();
+    assert_eq!(summary(&got), want);
+    let dropped = (1..).take_while(|&d| switch_of(d) < total).count();
+    let note = report.iter().find(|n| n.what.starts_with("dropped")).expect("summary notice");
+    assert!(
+        note.what.starts_with(&format!("dropped {dropped} sweeps: a switch transient"))
+            && note.what.contains("range window"),
+        "{}",
+        note.what
+    );
+}

@@ -49,6 +49,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         range_m: Some(10_003.75),
         flag: Flag::Ok,
         tracked_deg: Some(0.1),
+        tracked_sigma_deg: None,
         absolute_deg: Some(121.1),
     };
     let b = AngleEstimate {
@@ -61,6 +62,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         range_m: None,
         flag: Flag::OutOfRange,
         tracked_deg: None,
+        tracked_sigma_deg: None,
         absolute_deg: None,
     };
     vec![(0, Item::Estimate(Box::new(a))), (0, Item::Estimate(Box::new(b)))]
@@ -71,9 +73,9 @@ fn estimates_csv_bytes_are_exact_and_repeatable() {
     let dir = scratch("csv");
     let path = dir.join("angles.csv");
     let (bytes, _) = write_all(&path, "csv", sample_estimates());
-    let want = "time_s,axis,error_deg,sigma_deg,snr_db,range_m,flag,ratio_db,tracked_deg,absolute_deg\n\
-                0.617283,az,0.12346,0.04210,17.250,10003.750,ok,-1.5000,0.10000,121.10000\n\
-                0.650000,el,,,3.000,,out_of_range,25.0000,,\n";
+    let want = "time_s,axis,error_deg,sigma_deg,snr_db,range_m,flag,ratio_db,tracked_deg,tracked_sigma_deg,absolute_deg\n\
+                0.617283,az,0.12346,0.04210,17.250,10003.750,ok,-1.5000,0.10000,,121.10000\n\
+                0.650000,el,,,3.000,,out_of_range,25.0000,,,\n";
     assert_eq!(String::from_utf8(bytes.clone()).unwrap(), want);
     std::fs::remove_file(&path).unwrap();
     let (again, _) = write_all(&path, "csv", sample_estimates());
@@ -91,7 +93,7 @@ fn json_lines_carry_the_same_keys_with_nulls() {
     assert_eq!(lines.len(), 2);
     assert_eq!(
         lines[1],
-        r#"{"time_s":0.650000,"axis":"el","error_deg":null,"sigma_deg":null,"snr_db":3.000,"range_m":null,"flag":"out_of_range","ratio_db":25.0000,"tracked_deg":null,"absolute_deg":null}"#
+        r#"{"time_s":0.650000,"axis":"el","error_deg":null,"sigma_deg":null,"snr_db":3.000,"range_m":null,"flag":"out_of_range","ratio_db":25.0000,"tracked_deg":null,"tracked_sigma_deg":null,"absolute_deg":null}"#
     );
     let _ = std::fs::remove_dir_all(&dir);
 }

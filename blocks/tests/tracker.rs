@@ -23,6 +23,7 @@ fn estimate(axis: &str, t: f64, error: f64, sigma: f64) -> AngleEstimate {
         range_m: None,
         flag: Flag::Ok,
         tracked_deg: None,
+        tracked_sigma_deg: None,
         absolute_deg: None,
     }
 }
@@ -171,4 +172,36 @@ fn telemetry_gives_absolute_angles() {
     assert!(err.contains("bad.csv line 3"), "{err}");
     assert!(build(&SPEC, &[("alpha", "1"), ("beta", "2")]).is_err());
     let _ = std::fs::remove_dir_all(&dir);
+}
+
+#[test]
+fn auto_smooths_recordings_at_the_end_and_filters_live_input_as_it_comes() {
+    let (items, truth) = drifting(9, 30.0);
+    let first = |capture: &str| {
+        let mut blk = build(&SPEC, &[("method", "auto"), ("capture", capture)]).unwrap();
+        let mut out = lobeflow_blocks::Outputs::new(1);
+        blk.process(0, items[0].clone(), &mut out).unwrap();
+        let early = out.drain().count();
+        let (rest, _) = run(blk.as_mut(), items[1..].to_vec());
+        (early, rest)
+    };
+    // Live (standard input): the causal filter answers at once.
+    let (early, _) = first("-");
+    assert_eq!(early, 1);
+    // A recording: held to the end, then every estimate in its order,
+    // smoothed, with a sigma of its own.
+    let (early, out) = first("capture.wav");
+    assert_eq!(early, 0);
+    let az = axis_values(&out, "az");
+    assert_eq!(az.len(), truth.len(), "the first, held before the run, comes out too");
+    let stamps: Vec<u64> = estimates(&out).iter().map(|e| e.stamp.index).collect();
+    assert!(stamps.windows(2).all(|w| w[0] <= w[1]), "order kept");
+    let (mut e2, mut s2) = (0.0, 0.0);
+    for (e, t) in az.iter().zip(&truth) {
+        e2 += (e.tracked_deg.unwrap() - t).powi(2);
+        s2 += e.tracked_sigma_deg.unwrap().powi(2);
+    }
+    let (rms, sigma) = ((e2 / az.len() as f64).sqrt(), (s2 / az.len() as f64).sqrt());
+    eprintln!("smoothed drift: RMS {rms:.4} (raw 0.1), own sigma {sigma:.4}");
+    assert!(rms < 0.03 && rms < 1.5 * sigma, "RMS {rms} sigma {sigma}");
 }

@@ -432,6 +432,7 @@ mod tests {
             range_m: None,
             flag,
             tracked_deg: Some(0.0),
+            tracked_sigma_deg: None,
             absolute_deg: None,
         }
     }

@@ -1,5 +1,5 @@
 //! Beam models: the one-way voltage pattern of one lobe, and the ratio of a
-//! squinted pair as a function of target angle (field notes sections 2-3).
+//! squinted pair as a function of target angle (docs/derivations.md §2-3).
 //!
 //! For a pair with lobe axes at `+squint` and `-squint` and a target at
 //! `theta`, the log ratio is `r(theta) = n ln(g(theta - squint) / g(theta + squint))`
@@ -64,7 +64,10 @@ impl Beam {
     /// A beam of `shape` with one-way 3 dB beamwidth `beamwidth_deg`. For a
     /// table the beamwidth is measured from the table and the argument ignored.
     pub fn new(shape: BeamShape, beamwidth_deg: f64) -> Result<Beam, String> {
-        if !(beamwidth_deg > 0.0 && beamwidth_deg < 180.0) && !matches!(shape, BeamShape::Table(_)) {
+        let table = matches!(shape, BeamShape::Table(_));
+        // NaN fails the range test too.
+        let in_range = beamwidth_deg > 0.0 && beamwidth_deg < 180.0;
+        if !table && !in_range {
             return Err(format!("beamwidth {beamwidth_deg} deg is not between 0 and 180"));
         }
         let half = (beamwidth_deg / 2.0).to_radians().sin();
@@ -184,7 +187,7 @@ pub struct PairModel {
 
 impl PairModel {
     pub fn new(beam: Beam, squint_deg: f64, way: u32) -> Result<PairModel, String> {
-        if !(squint_deg > 0.0) {
+        if squint_deg.is_nan() || squint_deg <= 0.0 {
             return Err(format!("squint {squint_deg} deg must be positive"));
         }
         if way != 1 && way != 2 {
@@ -199,7 +202,7 @@ impl PairModel {
         loop {
             let next = theta + step;
             let r = m.log_ratio(next);
-            if next > max || !(r > r_prev) || !r.is_finite() {
+            if next > max || !r.is_finite() || r <= r_prev {
                 break;
             }
             theta = next;
@@ -288,7 +291,7 @@ impl PairModel {
 mod tests {
     use super::*;
 
-    // Check values of field notes section 3, computed there from the
+    // Check values of docs/derivations.md §3, worked by hand from the
     // Gaussian formula (Skolnik, Introduction to Radar Systems, tracking-radar
     // chapter, from memory, for the Gaussian main-lobe model itself).
     #[test]

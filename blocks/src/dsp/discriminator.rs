@@ -1,4 +1,4 @@
-//! Amplitude-ratio angle extraction (field notes sections 3 and 4): which
+//! Amplitude-ratio angle extraction (docs/derivations.md §3-4): which
 //! lobes form a pair, the error signal of a pair's two amplitudes, the angle
 //! through the beam model, and the spread to expect.
 
@@ -159,7 +159,7 @@ pub fn read_pair(
     }
 }
 
-/// Field notes section 4: `sigma = sqrt(var ln A + var ln B) / |dr/dtheta|`,
+/// docs/derivations.md §3: `sigma = sqrt(var ln A + var ln B) / |dr/dtheta|`,
 /// degrees. For a Gaussian beam the slope is `8 n ln2 SQ / BW^2` everywhere.
 pub fn angle_sigma_deg(model: &PairModel, theta_deg: f64, var_ln_a: f64, var_ln_b: f64) -> f64 {
     let slope = model.slope(theta_deg).abs();

@@ -1,5 +1,5 @@
 //! Range-gate arithmetic for one lobe dwell: sums over pulses, noise
-//! correction, amplitude, expected spread and sub-bin range (field notes §4-5).
+//! correction, amplitude, expected spread and sub-bin range (docs/derivations.md §4-5).
 //!
 //! Range comes from a centroid of the noise-corrected gate, amplitude-weighted
 //! by default ([`Weighting`]). Why amplitude and not power: a rectangular echo of `L` samples whose
@@ -105,6 +105,10 @@ pub struct DwellSums {
     /// First gate bin.
     pub start: usize,
     integration: Integration,
+    /// Amplitude, energy and spread from the centre bin alone (the range
+    /// still from the whole gate): after a matched filter one sample holds
+    /// the echo's energy, and its neighbours share its noise.
+    peak_amplitude: bool,
     power: Vec<f64>,
     sum: Vec<Complex64>,
     noise_sum: f64,
@@ -135,6 +139,7 @@ impl DwellSums {
         DwellSums {
             start,
             integration,
+            peak_amplitude: false,
             power: vec![0.0; width],
             sum: vec![Complex64::new(0.0, 0.0); width],
             noise_sum: 0.0,
@@ -143,6 +148,12 @@ impl DwellSums {
             first_index: None,
             last_index: 0,
         }
+    }
+
+    /// Take the amplitude from the centre bin only (see `peak_amplitude`).
+    pub fn with_peak_amplitude(mut self, on: bool) -> DwellSums {
+        self.peak_amplitude = on;
+        self
     }
 
     pub fn width(&self) -> usize {
@@ -190,14 +201,15 @@ impl DwellSums {
     /// fluctuate up, and that ratio would read as an angle.
     pub fn summarise(&self, noise: f64, pulse_samples: f64, weighting: Weighting, detect_sigmas: f64) -> GateSummary {
         let n = self.pulses.max(1) as f64;
-        let g = self.width() as f64;
+        let amplitude_bins = if self.peak_amplitude { self.width() / 2..self.width() / 2 + 1 } else { 0..self.width() };
+        let g = amplitude_bins.len() as f64;
         // Noise-corrected per-pulse echo energy in each gate bin.
         let corrected: Vec<f64> = match self.integration {
             Integration::Noncoherent => self.power.iter().map(|p| p / n - noise).collect(),
             // The mean of N pulses keeps the echo and carries noise power noise/N.
             Integration::Coherent => self.sum.iter().map(|s| (s / n).norm_sqr() - noise / n).collect(),
         };
-        let energy: f64 = corrected.iter().sum();
+        let energy: f64 = corrected[amplitude_bins].iter().sum();
         let e = if noise > 0.0 {
             energy / noise
         } else if energy > 0.0 {
@@ -214,7 +226,7 @@ impl DwellSums {
         let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std { energy.sqrt() } else { f64::NAN };
         let var_ln_amp = if e > 0.0 {
             match self.integration {
-                // Field notes §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
+                // docs/derivations.md §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
                 Integration::Noncoherent => (g / (e * e) + 2.0 / e) / (4.0 * n),
                 // The coherent mean is one "pulse" whose echo energy over its own
                 // noise (noise/N) is N E; put E -> N E, N -> 1 in the same form:
@@ -333,6 +345,20 @@ mod tests {
         sums.add(&gate, &[], 0);
         let s = sums.summarise(0.0, 4.0, Weighting::Amplitude, 3.0);
         assert!((s.range_bin.unwrap() - 10.3).abs() < 1e-6, "{:?}", s.range_bin);
+    }
+
+    #[test]
+    fn peak_amplitude_reads_the_centre_bin_and_ranges_over_the_gate() {
+        // A matched-filter triangle 0.5, 1, 0.5 (amplitudes) at bins 4..7, no noise.
+        let mut sums = DwellSums::new(4, 3, Integration::Noncoherent).with_peak_amplitude(true);
+        let gate: Vec<Complex32> = [0.5, 1.0, 0.5].iter().map(|&a| Complex32::new(a, 0.0)).collect();
+        sums.add(&gate, &[], 0);
+        // Noise 0.25 per bin: the outer bins correct to 0, the centre to 0.75.
+        let s = sums.summarise(0.25, 1.0, Weighting::Power, 0.0);
+        assert!((s.amplitude - 0.75f64.sqrt()).abs() < 1e-6 && (s.energy_ratio - 3.0).abs() < 1e-6, "{s:?}");
+        // One bin: var(ln A) = (1/E^2 + 2/E)/(4N) at E = 3, N = 1.
+        assert!((s.var_ln_amp - (1.0 / 9.0 + 2.0 / 3.0) / 4.0).abs() < 1e-6);
+        assert!((s.range_bin.unwrap() - 5.0).abs() < 1e-12);
     }
 
     #[test]

@@ -4,6 +4,7 @@ pub mod discriminator;
 pub mod gate;
 pub mod pulse_timing;
 pub mod rng;
+pub mod smoother;
 pub mod spectrum;
 pub mod switch_schedule;
 pub mod switch_sync;

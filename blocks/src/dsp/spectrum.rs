@@ -21,7 +21,7 @@ pub enum Window {
 }
 
 impl Window {
-    pub const NAMES: &'static [&'static str] = &["hann", "blackman", "rect"];
+    pub const NAMES: &'static [&'static str] = &["rect", "hann", "blackman"];
 
     pub fn from_name(name: &str) -> Option<Window> {
         match name {
@@ -59,6 +59,17 @@ impl Window {
             Window::Rect => 1.0,
             Window::Hann => 2.0,
             Window::Blackman => 3.0,
+        }
+    }
+
+    /// Bins (unpadded) either side of a tone left out of a noise estimate:
+    /// beyond them the tone's leakage is under a hundredth of its peak power
+    /// (rect sidelobes fall as 1/(pi k)^2, so it needs the widest margin).
+    pub fn noise_exclusion(&self) -> f64 {
+        match self {
+            Window::Rect => 8.0,
+            Window::Hann => 4.0,
+            Window::Blackman => 5.0,
         }
     }
 }
@@ -135,6 +146,35 @@ pub fn weighted_dtft(x: &[Complex32], w: &[f64], cycles_per_sample: f64) -> (f64
         im += xr * s + xi * c;
     }
     (re, im)
+}
+
+/// The frequency (cycles per sample) within `lo..hi` where `|weighted_dtft|`
+/// peaks, by golden-section search: for a rect window this is the
+/// least-squares fit of one complex tone (e.g. Kay, Fundamentals of
+/// Statistical Signal Processing: Estimation Theory, 1993, sec. 7.10,
+/// from memory). `lo..hi` must bracket a single maximum.
+pub fn dtft_peak(x: &[Complex32], w: &[f64], mut lo: f64, mut hi: f64) -> f64 {
+    let power = |f: f64| {
+        let (re, im) = weighted_dtft(x, w, f);
+        re * re + im * im
+    };
+    let ratio = (5f64.sqrt() - 1.0) / 2.0;
+    let (mut a, mut b) = (hi - ratio * (hi - lo), lo + ratio * (hi - lo));
+    let (mut pa, mut pb) = (power(a), power(b));
+    for _ in 0..40 {
+        if pa < pb {
+            lo = a;
+            (a, pa) = (b, pb);
+            b = lo + ratio * (hi - lo);
+            pb = power(b);
+        } else {
+            hi = b;
+            (b, pb) = (a, pa);
+            a = hi - ratio * (hi - lo);
+            pa = power(a);
+        }
+    }
+    0.5 * (lo + hi)
 }
 
 /// Vertex offset (in bins, within -0.5..0.5) of a parabola through three

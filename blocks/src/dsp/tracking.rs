@@ -21,6 +21,8 @@ pub struct Step {
     pub tracked: f64,
     /// Rejected by the gate and not used.
     pub outlier: bool,
+    /// Variance of `tracked` (deg^2).
+    pub variance: f64,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -102,7 +104,7 @@ impl AxisFilter {
                 self.first = Some((t, z, r));
                 self.outliers_in_a_row = 0;
             }
-            return Step { tracked: x[0], outlier: true };
+            return Step { tracked: x[0], outlier: true, variance: p[0][0] };
         }
         self.outliers_in_a_row = 0;
         let dt = t - state.t;
@@ -120,27 +122,27 @@ impl AxisFilter {
             [m[1][0] * a + r * k[0] * k[1], m[1][1] - m[1][0] * k[1] + r * k[1] * k[1]],
         ];
         self.state = Some(TrackState { t, x, p });
-        Step { tracked: x[0], outlier: false }
+        Step { tracked: x[0], outlier: false, variance: p[0][0] }
     }
 
     fn start(&mut self, t: f64, z: f64, r: f64) -> Step {
         match self.first.take() {
             None => {
                 self.first = Some((t, z, r));
-                Step { tracked: z, outlier: false }
+                Step { tracked: z, outlier: false, variance: r }
             }
             Some((t1, z1, r1)) if t > t1 => {
                 let dt = t - t1;
                 let p = [[r, r / dt], [r / dt, (r + r1) / (dt * dt)]];
                 self.state = Some(TrackState { t, x: [z, (z - z1) / dt], p });
-                Step { tracked: z, outlier: false }
+                Step { tracked: z, outlier: false, variance: r }
             }
             Some((t1, z1, r1)) => {
                 // Same instant: combine by inverse variance (plain mean if unknown).
                 let (w1, w) = if r1 > 0.0 && r > 0.0 { (1.0 / r1, 1.0 / r) } else { (1.0, 1.0) };
                 let zm = (w1 * z1 + w * z) / (w1 + w);
                 self.first = Some((t1.max(t), zm, 1.0 / (w1 + w)));
-                Step { tracked: zm, outlier: false }
+                Step { tracked: zm, outlier: false, variance: 1.0 / (w1 + w) }
             }
         }
     }

@@ -1,6 +1,6 @@
 //! `range_gate`: integrates the echo inside a range gate over each lobe dwell
 //! of a pulsed tracker, with a fixed gate or one that acquires and follows the
-//! strongest echo. Formulas: field notes sections 4 and 5; the per-dwell
+//! strongest echo. Formulas: docs/derivations.md §4-5; the per-dwell
 //! arithmetic lives in [`crate::dsp::gate`].
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
@@ -81,6 +81,12 @@ pub const SPEC: BlockSpec = BlockSpec {
             doc: "range centroid weights: amplitude (exact for any box echo) or power (less spread in wide gates, e.g. after a matched filter)",
         },
         ParamSpec {
+            name: "amplitude_from",
+            ty: ParamType::Choice(&["gate", "peak"]),
+            default: Some("gate"),
+            doc: "gate: echo energy summed over the gate; peak: the centre bin alone, after a matched filter (the single-sample limit; neighbouring bins share noise); range still from the whole gate",
+        },
+        ParamSpec {
             name: "noise_start",
             ty: DIST,
             default: Some("0 bins"),
@@ -126,6 +132,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         follow,
         integration,
         weighting: Weighting::from_name(p.text("centroid")?).ok_or("centroid: unknown weighting")?,
+        peak_amplitude: p.text("amplitude_from")? == "peak",
         noise_margin_db: p.num("noise_margin")?,
         detect_sigmas: p.num("detect")?,
         geometry: None,
@@ -230,6 +237,7 @@ struct RangeGate {
     follow: Follow,
     integration: Integration,
     weighting: Weighting,
+    peak_amplitude: bool,
     noise_margin_db: f64,
     detect_sigmas: f64,
     geometry: Option<Geometry>,
@@ -301,7 +309,9 @@ impl RangeGate {
             }
             self.cycle = Follow::accumulator();
         }
-        let sums = self.gate_start.map(|s| DwellSums::new(s, geo.gate_width, self.integration));
+        let sums = self
+            .gate_start
+            .map(|s| DwellSums::new(s, geo.gate_width, self.integration).with_peak_amplitude(self.peak_amplitude));
         if sums.is_none() && self.acq.is_none() {
             self.acq = Some(Acquisition { start: geo.search_start, power: Vec::new(), dwells: 0 });
         }

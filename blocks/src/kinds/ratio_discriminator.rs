@@ -1,6 +1,6 @@
 //! `ratio_discriminator`: pairs the dwells of opposite lobes and turns their
 //! amplitude ratio into an angle error in degrees through a beam model
-//! (field notes sections 3 and 4).
+//! (docs/derivations.md §3-4).
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::beam::{Beam, BeamShape, PairModel, parse_pattern_csv};
@@ -239,7 +239,7 @@ impl RatioDiscriminator {
         };
         let snr_db = 10.0 * plus.snr.min(minus.snr).log10();
         // Too weak a lobe gives a biased, noise-dominated ratio: no number.
-        let weak = reading.flag == Flag::Ok && !(snr_db >= self.min_snr_db);
+        let weak = reading.flag == Flag::Ok && (snr_db.is_nan() || snr_db < self.min_snr_db);
         let (error_deg, sigma_deg, flag) =
             if weak { (None, f64::NAN, Flag::NoSignal) } else { (reading.error_deg, reading.sigma_deg, reading.flag) };
         AngleEstimate {
@@ -252,6 +252,7 @@ impl RatioDiscriminator {
             range_m,
             flag,
             tracked_deg: None,
+            tracked_sigma_deg: None,
             absolute_deg: None,
         }
     }

@@ -1,6 +1,9 @@
 //! `sweep_gate`: labels each sweep (one PRI from the framer) with the lobe
-//! active at its transmit instant, cuts sweeps at switch instants inside
-//! them and drops sweeps that start within the guard after a switch.
+//! active over its range window. A switch's transient (from `lead` before the
+//! switch instant to `guard` after it) is blanked where it covers the head of
+//! a sweep and cut off where it covers the tail, like the transmit blanking;
+//! only a transient that reaches into the range window the integrator uses
+//! drops the sweep, and every such drop is counted with its reason.
 
 use super::gate_common::{GateConfig, NoticeRouter, gate_params};
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
@@ -11,7 +14,7 @@ use std::collections::VecDeque;
 use std::sync::Arc;
 
 /// The gates' parameters plus the cut before a switch, which only sweeps need.
-const PARAMS: [ParamSpec; 10] = {
+const PARAMS: [ParamSpec; 12] = {
     let g = gate_params(true);
     [
         g[0],
@@ -29,17 +32,32 @@ const PARAMS: [ParamSpec; 10] = {
             default: Some("0 s"),
             doc: "also cut this much before each switch instant: the sync edge's midpoint lags the switch, whose transient starts at once",
         },
+        ParamSpec {
+            name: "window_start",
+            ty: WINDOW,
+            default: Some("0 bins"),
+            doc: "start of the range window the integrator uses (search or gate window and noise region); a switch transient before it is blanked",
+        },
+        ParamSpec {
+            name: "window_end",
+            ty: WINDOW,
+            default: Some("0 bins"),
+            doc: "end of that range window; a switch transient after it is cut off (0: no window end, every switch in the tail cuts)",
+        },
     ]
 };
+
+const WINDOW: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
 
 /// Sweeps used to measure the pulse interval when a time is given in pulses.
 const PRI_SWEEPS: usize = 9;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "sweep_gate",
-    doc: "Labels sweeps with the lobe active at their transmit instant (sync staircase or schedule; times \
-          may be given in pulses), cuts a sweep at a switch instant inside it and drops sweeps starting \
-          within the guard after a switch.",
+    doc: "Labels sweeps with the lobe active over their range window (sync staircase or schedule; times \
+          may be given in pulses); a switch transient (lead before to guard after the switch instant) is \
+          blanked at a sweep's head or cut off its tail, and drops the sweep only when it reaches into the \
+          range window.",
     inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps from a framer (with sync spans for sync timing)")],
     outputs: &[
         PortSpec::optional("sweeps", ItemKind::Sweep, "the sweeps, labelled with their lobe and dwell"),
@@ -57,6 +75,7 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
         guard: 0,
         lead_param: p.clone(),
         lead: 0,
+        window: (0, None),
         startup: Vec::new(),
         learned: 0,
         pending: VecDeque::new(),
@@ -65,7 +84,7 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
         current: None,
         emitted_dwell: None,
         dwell: 0,
-        dropped: 0,
+        counts: Counts::default(),
         last_stamp: None,
     }))
 }
@@ -82,6 +101,8 @@ struct SweepGate {
     lead_param: Params,
     /// Samples cut before each switch instant.
     lead: u64,
+    /// The integrator's range window in bins from the transmit instant (end None: no end).
+    window: (u64, Option<u64>),
     /// Sweeps held while the pulse interval or the sync levels are learned.
     startup: Vec<Sweep>,
     /// How many of `startup` went into the level learning.
@@ -94,8 +115,21 @@ struct SweepGate {
     /// Dwell start of the last sweep handed on.
     emitted_dwell: Option<u64>,
     dwell: u64,
-    dropped: u64,
+    counts: Counts,
     last_stamp: Option<Stamp>,
+}
+
+/// What the gate did to sweeps because of switch transients.
+#[derive(Default)]
+struct Counts {
+    /// Dropped: a transient reached into the range window.
+    in_window: u64,
+    /// Dropped: before the first lobe was known.
+    unlabelled: u64,
+    /// Kept with the transient blanked at their head.
+    blanked: u64,
+    /// Kept with the transient cut off their tail.
+    cut: u64,
 }
 
 fn sweep_end(s: &Sweep) -> u64 {
@@ -136,11 +170,15 @@ impl SweepGate {
             let (source, guard) = self.cfg.source(first.rate, pri).map_err(|e| BlockError::at(e, first.index))?;
             self.source = Some(source);
             self.guard = guard;
-            self.lead = self
-                .lead_param
-                .samples_at("lead", first.rate, None)
-                .map_err(|e| BlockError::at(e, first.index))?
-                .round() as u64;
+            let p = &self.lead_param;
+            let at = |e: String| BlockError::at(e, first.index);
+            self.lead = p.samples_at("lead", first.rate, None).map_err(at)?.round() as u64;
+            let start = p.bins_at("window_start", first.rate).map_err(at)?.round() as u64;
+            let end = p.bins_at("window_end", first.rate).map_err(at)?.round() as u64;
+            if end > 0 && end <= start {
+                return Err(at(format!("window_end ({end} bins) must lie after window_start ({start} bins)")));
+            }
+            self.window = (start, (end > 0).then_some(end));
         }
         let Some(source) = self.source.as_mut() else {
             return Ok(());
@@ -208,7 +246,8 @@ impl SweepGate {
 
     /// Hand on every pending sweep that ends at or before `upto`.
     fn release(&mut self, upto: u64, out: &mut Outputs) {
-        while self.pending.front().is_some_and(|s| sweep_end(s) <= upto) {
+        let lead = self.lead;
+        while self.pending.front().is_some_and(|s| sweep_end(s).saturating_add(lead) <= upto) {
             if let Some(sweep) = self.pending.pop_front() {
                 self.label(sweep, out);
             }
@@ -217,34 +256,42 @@ impl SweepGate {
 
     fn label(&mut self, mut sweep: Sweep, out: &mut Outputs) {
         let start = sweep.stamp.index;
+        let end = sweep_end(&sweep);
+        let window_start = start + self.window.0;
+        let window_end = self.window.1.map(|w| start + w);
+        // Switches whose transient begins before the window decide the lobe.
         while let Some(&(at, lobe)) = self.switches.front() {
-            if at > start {
+            if at.saturating_sub(self.lead) >= window_start.max(start + 1) {
                 break;
             }
             self.switches.pop_front();
             self.current = Some((lobe, at, Some(at as i64)));
         }
         let Some((lobe, dwell_start, switch_at)) = self.current else {
+            self.counts.unlabelled += 1;
             return;
         };
-        if switch_at.is_some_and(|s| (start as i64) < s + self.guard as i64) {
-            self.dropped += 1;
+        let guard_end = switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64);
+        let next_cut = self.switches.front().map(|&(at, _)| at.saturating_sub(self.lead));
+        // The last switch's guard runs into the window, or the next switch's
+        // transient starts inside it.
+        let guard_in_window = guard_end > window_start;
+        let next_in_window = next_cut.is_some_and(|c| c < end && window_end.is_some_and(|w| c < w));
+        if guard_in_window || next_in_window {
+            self.counts.in_window += 1;
             return;
         }
-        // Samples after a switch instant inside the sweep (and `lead` before
-        // it) belong to no lobe.
-        if let Some(&(at, _)) = self.switches.front() {
-            let cut = at.saturating_sub(self.lead);
-            if cut <= start {
-                self.dropped += 1;
-                return;
-            }
+        if guard_end > start {
+            blank_head(&mut sweep, (guard_end - start) as usize);
+            self.counts.blanked += 1;
+        }
+        // Samples from `lead` before a switch instant in the tail on belong to no lobe.
+        if let Some(cut) = next_cut.filter(|&c| c < end) {
             let keep = (cut - start) as usize;
-            if keep < sweep.iq.len() {
-                sweep.iq = sweep.iq.slice(0..keep);
-                sweep.sync = sweep.sync.map(|s| s.slice(0..keep.min(s.len())));
-                sweep.blanked = sweep.blanked.min(keep.try_into().unwrap_or(u32::MAX));
-            }
+            sweep.iq = sweep.iq.slice(0..keep);
+            sweep.sync = sweep.sync.map(|s| s.slice(0..keep.min(s.len())));
+            sweep.blanked = sweep.blanked.min(keep.try_into().unwrap_or(u32::MAX));
+            self.counts.cut += 1;
         }
         if self.emitted_dwell != Some(dwell_start) {
             if self.emitted_dwell.is_some() {
@@ -255,6 +302,53 @@ impl SweepGate {
         sweep.lobe = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell: self.dwell, dwell_start });
         out.push(0, Item::Sweep(sweep));
     }
+
+    /// The end-of-run account of what switch transients did to sweeps.
+    /// Drops go to the run report; routine blanking and cutting to the notices port only.
+    fn report_counts(&mut self, out: &mut Outputs, stamp: Stamp) {
+        let c = &self.counts;
+        let (lead, guard) = (self.lead, self.guard);
+        let window = match self.window {
+            (s, Some(e)) => format!("bins {s}..{e}"),
+            (s, None) => format!("bins {s} to the sweep end"),
+        };
+        if c.in_window > 0 {
+            out.notice(
+                stamp,
+                format!(
+                    "dropped {} sweeps: a switch transient ({lead} samples before to {guard} after the switch instant) \
+                     reached into the range window ({window})",
+                    c.in_window
+                ),
+            );
+        }
+        if c.unlabelled > 0 {
+            out.notice(stamp, format!("dropped {} sweeps before the first lobe was known", c.unlabelled));
+        }
+        let (blanked, cut) = (c.blanked, c.cut);
+        if blanked > 0 {
+            self.router.timeline(out, stamp, format!("blanked the switch guard at the head of {blanked} sweeps"));
+        }
+        if cut > 0 {
+            self.router.timeline(out, stamp, format!("cut {cut} sweeps short of a switch instant in their tail"));
+        }
+    }
+}
+
+/// Zero the first `n` samples of a sweep (a copy unless this is the only
+/// reader) and count them as blanked.
+fn blank_head(sweep: &mut Sweep, n: usize) {
+    let n = n.min(sweep.iq.len());
+    let zero = num_complex::Complex32::new(0.0, 0.0);
+    match sweep.iq.get_mut() {
+        Some(iq) => iq[..n].fill(zero),
+        None => {
+            let mut copy = sweep.iq[..].to_vec();
+            copy[..n].fill(zero);
+            sweep.iq = copy.into();
+        }
+    }
+    sweep.blanked = sweep.blanked.max(n.try_into().unwrap_or(u32::MAX));
 }
 
 impl Block for SweepGate {
@@ -278,15 +372,7 @@ impl Block for SweepGate {
         self.take_events(out);
         self.release(u64::MAX, out);
         if let Some(stamp) = self.last_stamp {
-            if self.dropped > 0 {
-                out.notice(
-                    stamp,
-                    format!(
-                        "dropped {} sweeps that started within the guard ({} samples) after a switch instant",
-                        self.dropped, self.guard
-                    ),
-                );
-            }
+            self.report_counts(out, stamp);
             self.router.summarise(out, stamp);
         }
         Ok(())

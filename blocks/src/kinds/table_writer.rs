@@ -45,6 +45,7 @@ const ESTIMATE_COLUMNS: &[&str] = &[
     "flag",
     "ratio_db",
     "tracked_deg",
+    "tracked_sigma_deg",
     "absolute_deg",
 ];
 const DWELL_COLUMNS: &[&str] = &["time_s", "lobe", "dwell", "amplitude", "noise_power", "snr_db", "range_m", "used"];
@@ -229,6 +230,7 @@ impl TableWriter {
         l.text("flag", e.flag.as_str());
         l.num("ratio_db", Some(e.ratio_db), NumStyle::Fixed(4));
         l.num("tracked_deg", e.tracked_deg, NumStyle::Fixed(5));
+        l.num("tracked_sigma_deg", e.tracked_sigma_deg, NumStyle::Fixed(5));
         l.num("absolute_deg", e.absolute_deg, NumStyle::Fixed(5));
         l.end();
         self.write_line()

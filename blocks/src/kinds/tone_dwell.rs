@@ -1,14 +1,21 @@
 //! `tone_dwell`: the beacon-mode integrator. Per lobe dwell, the amplitude of
-//! a known tone from a windowed FFT (peak refined between bins, then read off
-//! the windowed transform at the refined frequency, so the window's scalloping
-//! does not bias it), the noise from the off-tone bins, and the expected
-//! spread (field notes sections 4-5). Shared math: [`crate::dsp::spectrum`].
+//! a known tone from a windowed transform: the peak is found in an FFT and
+//! refined to where the windowed DTFT peaks; the amplitude is read off at the
+//! median frequency of the last few dwells (the tone is one oscillator for
+//! every lobe, and a frequency fitted to the same noise would bias the
+//! amplitude up). With the default rect window this is the least-squares fit
+//! of a tone and reaches the white-noise limit; Hann and Blackman cost their
+//! noise bandwidth but keep a strong interferer's leakage out. The noise
+//! comes from bins well away from the tone, and the expected spread includes
+//! each window's noise bandwidth (docs/derivations.md). Shared math:
+//! [`crate::dsp::spectrum`].
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::dsp::spectrum::{FftCache, Window, next_pow2, parabolic_offset, weighted_dtft};
+use crate::dsp::spectrum::{FftCache, Window, dtft_peak, next_pow2, parabolic_offset, weighted_dtft};
 use crate::item::{DwellRecord, Item, ItemKind, LobeSegment, LobeTag, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit};
 use num_complex::Complex32;
+use std::collections::VecDeque;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "tone_dwell",
@@ -33,8 +40,8 @@ pub const SPEC: BlockSpec = BlockSpec {
         ParamSpec {
             name: "window",
             ty: ParamType::Choice(Window::NAMES),
-            default: Some("hann"),
-            doc: "data window: hann, blackman or rect (rect leaks a strong tone into the noise bins)",
+            default: Some("rect"),
+            doc: "data window: rect (white-noise limit), or hann / blackman against strong interferers at the cost of their noise bandwidth (1.5 and 1.73 bins)",
         },
         ParamSpec {
             name: "method",
@@ -75,6 +82,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         weights: Vec::new(),
         spectrum: Vec::new(),
         powers: Vec::new(),
+        recent_hz: VecDeque::new(),
         current: None,
         left_out: 0,
         gaps: 0,
@@ -106,6 +114,8 @@ struct ToneDwell {
     weights: Vec<f64>,
     spectrum: Vec<Complex32>,
     powers: Vec<f64>,
+    /// Tone frequencies (Hz) fitted in the last dwells with a clear peak.
+    recent_hz: VecDeque<f64>,
     current: Option<Open>,
     left_out: u64,
     gaps: u64,
@@ -195,12 +205,7 @@ impl ToneDwell {
         self.window.fill(&mut self.weights);
         let sum_w: f64 = self.weights.iter().sum();
         let sum_w2: f64 = self.weights.iter().map(|w| w * w).sum();
-        self.spectrum.clear();
-        self.spectrum.extend(self.samples.iter().zip(&self.weights).map(|(x, w)| x * *w as f32));
-        self.spectrum.resize(nfft, Complex32::new(0.0, 0.0));
-        self.fft.forward(&mut self.spectrum);
-        self.powers.clear();
-        self.powers.extend(self.spectrum.iter().map(|x| x.norm_sqr() as f64));
+        self.windowed_powers(nfft, None);
 
         // Peak near the tone: within one unpadded bin plus the search width.
         let pad = nfft as f64 / m as f64;
@@ -215,35 +220,25 @@ impl ToneDwell {
             .unwrap_or(centre);
         let ln = |k: i64| self.powers[wrap(k)].max(1e-300).ln();
         let offset = parabolic_offset(ln(peak - 1), ln(peak), ln(peak + 1));
-        let freq = (peak as f64 + offset) / nfft as f64;
+        let peak_power = self.powers[wrap(peak)];
+        let rough = (peak as f64 + offset) / nfft as f64;
+        let half_bin = 0.5 / nfft as f64;
+        let fitted = dtft_peak(&self.samples, &self.weights, rough - half_bin, rough + half_bin);
+        let exclude = (self.window.main_lobe_half_width() + self.window.noise_exclusion()) * pad;
+        let rough_noise_bin = self.off_tone_noise(fitted * nfft as f64, exclude);
+        let freq = self.readout_frequency(fitted, rate, peak_power, rough_noise_bin);
+        let (re, im) = weighted_dtft(&self.samples, &self.weights, freq);
 
-        // Noise from the bins outside the tone's main lobe (plus one bin of margin).
-        // The median of |X|^2 over ln 2 is the mean of the exponential
-        // distribution noise bins follow, and ignores spurs (a DC spike).
-        let exclude = ((self.window.main_lobe_half_width() + 1.0) * pad).ceil() as i64;
-        let tone_pos = peak as f64 + offset;
-        let mut off: Vec<f64> = std::mem::take(&mut self.powers);
-        let n = nfft as i64;
-        off.retain({
-            let mut k = -1i64;
-            move |_| {
-                k += 1;
-                let d = (k as f64 - tone_pos).rem_euclid(n as f64);
-                d.min(n as f64 - d) > exclude as f64
-            }
-        });
-        let noise_power = if off.is_empty() {
-            f64::NAN
-        } else {
-            let mid = off.len() / 2;
-            let (_, median, _) = off.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
-            *median / std::f64::consts::LN_2 / sum_w2
-        };
-        self.powers = off;
+        // Noise from the bins well away from the tone, with the fitted tone
+        // taken out first: a strong tone's leakage (rect sidelobes fall only
+        // as 1/k^2) would otherwise raise them.
+        let fit = num_complex::Complex64::new(re, im) / sum_w;
+        self.windowed_powers(nfft, Some((freq, fit)));
+        let noise_power = self.off_tone_noise(freq * nfft as f64, exclude) / sum_w2;
 
         let m_f = m as f64;
         if self.band_power {
-            // Whole-band power minus noise; the noncoherent form of field notes §4 with
+            // Whole-band power minus noise; the noncoherent gate form (docs/derivations.md) with
             // one "pulse" and a gate of M samples: (M/E^2 + 2/E)/4, E = M P / noise.
             let mean_power = self.samples.iter().map(|x| x.norm_sqr() as f64).sum::<f64>() / m_f;
             let p = mean_power - noise_power;
@@ -259,17 +254,92 @@ impl ToneDwell {
         // E|Y|^2 = A^2 (sum w)^2 + noise * sum w^2: take the noise part off.
         let a2 = (re * re + im * im - noise_power * sum_w2) / (sum_w * sum_w);
         let e = ratio(a2 * m_f, noise_power);
-        // Y = A sum(w) + noise of variance noise*sum(w^2); the in-phase part of the
-        // noise moves ln|Y| by var = noise*sum(w^2) / (2 A^2 sum(w)^2)
-        // = 1 / (2 s M_eff) with M_eff = sum(w)^2/sum(w^2) = M / ENBW(bins),
-        // i.e. ENBW / (2 E). A rect window gives 1/(2 M s), field notes §4.
+        // Y = A sum(w) + noise of variance noise*sum(w^2): the window sees an
+        // energy ratio E' = E / ENBW, and ln|Y|^2 less the noise has
+        // var(ln A) = (1/E'^2 + 2/E') / 4 (docs/derivations.md); a rect
+        // window (ENBW 1 bin) gives the white-noise limit.
         let enbw = m_f * sum_w2 / (sum_w * sum_w);
+        let e_window = e / enbw;
         ToneEstimate {
             amplitude: if a2 > 0.0 { a2.sqrt() } else { f64::NAN },
             noise_power,
             energy_ratio: e.max(0.0),
-            var_ln_amp: if e > 0.0 { enbw / (2.0 * e) } else { f64::INFINITY },
+            var_ln_amp: if e > 0.0 { (1.0 / (e_window * e_window) + 2.0 / e_window) / 4.0 } else { f64::INFINITY },
         }
+    }
+
+    /// `powers` = |FFT|^2 of the windowed samples, less `tone` (frequency in
+    /// cycles per sample, complex amplitude) when given, zero-padded to `nfft`.
+    fn windowed_powers(&mut self, nfft: usize, tone: Option<(f64, num_complex::Complex64)>) {
+        self.spectrum.clear();
+        let step = tone.map_or(0.0, |(f, _)| 2.0 * std::f64::consts::PI * f);
+        let amp = tone.map_or(num_complex::Complex64::new(0.0, 0.0), |(_, a)| a);
+        self.spectrum.extend(self.samples.iter().zip(&self.weights).enumerate().map(|(n, (x, w))| {
+            let fit = amp * num_complex::Complex64::from_polar(1.0, step * n as f64);
+            Complex32::new(((x.re as f64 - fit.re) * w) as f32, ((x.im as f64 - fit.im) * w) as f32)
+        }));
+        self.spectrum.resize(nfft, Complex32::new(0.0, 0.0));
+        self.fft.forward(&mut self.spectrum);
+        self.powers.clear();
+        self.powers.extend(self.spectrum.iter().map(|x| x.norm_sqr() as f64));
+    }
+
+    /// Mean noise power per bin of `powers`, from the bins more than
+    /// `exclude` bins from `tone_pos`: their median over ln 2 is the mean of
+    /// the exponential distribution noise bins follow, and ignores spurs (a
+    /// DC spike). Reorders `powers`.
+    fn off_tone_noise(&mut self, tone_pos: f64, exclude: f64) -> f64 {
+        let n = self.powers.len() as f64;
+        let mut k = -1.0;
+        self.powers.retain(|_| {
+            k += 1.0;
+            let d = (k - tone_pos).rem_euclid(n);
+            d.min(n - d) > exclude
+        });
+        if self.powers.is_empty() {
+            return f64::NAN;
+        }
+        let mid = self.powers.len() / 2;
+        let (_, median, _) = self.powers.select_nth_unstable_by(mid, |a, b| a.total_cmp(b));
+        *median / std::f64::consts::LN_2
+    }
+
+    /// The frequency (cycles per sample) to read the amplitude at: the median
+    /// of the last dwells' fitted frequencies, so this dwell's noise does not
+    /// pick it. A dwell whose peak stands clearly over the noise (`peak_power`
+    /// over `noise_bin` ten times) adds its own fit first.
+    fn readout_frequency(&mut self, fitted: f64, rate: f64, peak_power: f64, noise_bin: f64) -> f64 {
+        const KEEP: usize = 15;
+        let shared = self.median_recent_hz().map(|hz| hz / rate);
+        if peak_power > 10.0 * noise_bin {
+            if self.recent_hz.len() == KEEP {
+                self.recent_hz.pop_front();
+            }
+            // Unwrapped to the side of the turn nearest the tone setting.
+            let hz = fitted * rate;
+            let turns = ((self.tone_hz - hz) / rate).round();
+            self.recent_hz.push_back(hz + turns * rate);
+        }
+        // Too few dwells yet, or the tone moved away from the shared value: own fit.
+        match shared {
+            Some(f)
+                if self.recent_hz.len() >= 3
+                    && (f - fitted).rem_euclid(1.0).min((fitted - f).rem_euclid(1.0))
+                        < 2.0 / self.samples.len() as f64 =>
+            {
+                f
+            }
+            _ => fitted,
+        }
+    }
+
+    fn median_recent_hz(&self) -> Option<f64> {
+        let mut v: Vec<f64> = self.recent_hz.iter().copied().collect();
+        if v.is_empty() {
+            return None;
+        }
+        v.sort_by(f64::total_cmp);
+        Some(v[v.len() / 2])
     }
 }
 

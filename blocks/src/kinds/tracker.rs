@@ -1,8 +1,12 @@
 //! `tracker`: smooths angle estimates per axis, flags outliers, and adds the
 //! antenna's pointing angle from telemetry to give absolute target angles.
+//! On a recording the whole capture is known, so a fixed-interval smoother
+//! ([`crate::dsp::smoother`]) gives the tracked value; live input (standard
+//! input) keeps a causal filter, whose output does not wait for the end.
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::discriminator::parse_key_values;
+use crate::dsp::smoother::{Measurement, Model, smooth};
 use crate::dsp::tracking::{AxisFilter, FilterMethod, Telemetry};
 use crate::item::{AngleEstimate, Flag, Item, ItemKind, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit};
@@ -10,9 +14,10 @@ use std::sync::Arc;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "tracker",
-    doc: "Smooths the angle errors of each axis with an alpha-beta or Kalman filter, flags estimates that \
-          fall outside the innovation gate as outliers (not used), and with pointing telemetry adds the \
-          antenna angle to give absolute target angles.",
+    doc: "Smooths the angle errors of each axis (a fixed-interval Kalman + Rauch-Tung-Striebel smoother on \
+          recordings, a causal alpha-beta or Kalman filter on live input), gives each tracked angle its \
+          sigma, flags estimates that fall outside the innovation gate as outliers (not used), and with \
+          pointing telemetry adds the antenna angle to give absolute target angles.",
     inputs: &[PortSpec::required("estimates", ItemKind::Estimate, "angle estimates")],
     outputs: &[PortSpec::optional(
         "estimates",
@@ -22,9 +27,27 @@ pub const SPEC: BlockSpec = BlockSpec {
     params: &[
         ParamSpec {
             name: "method",
-            ty: ParamType::Choice(&["alpha_beta", "kalman"]),
+            ty: ParamType::Choice(&["alpha_beta", "kalman", "smoother", "auto"]),
             default: Some("alpha_beta"),
-            doc: "fixed-gain alpha-beta filter, or a Kalman filter weighting each estimate by its sigma",
+            doc: "causal: fixed-gain alpha_beta, or kalman weighting each estimate by its sigma; smoother: fixed-interval (output at the end of input); auto: smoother unless 'capture' is '-' (live), then alpha_beta",
+        },
+        ParamSpec {
+            name: "capture",
+            ty: ParamType::Text,
+            default: Some(""),
+            doc: "auto: the capture being read; '-' (standard input) means live input and a causal filter",
+        },
+        ParamSpec {
+            name: "model",
+            ty: ParamType::Choice(Model::NAMES),
+            default: Some("constant_velocity"),
+            doc: "smoother: motion model of the angle",
+        },
+        ParamSpec {
+            name: "smoother_noise",
+            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1e12 },
+            default: Some("0"),
+            doc: "smoother: process noise density per axis (deg^2/s^3 constant velocity, deg^2/s^5 constant acceleration); 0 = the most likely value for the data",
         },
         ParamSpec {
             name: "alpha",
@@ -79,6 +102,19 @@ pub const SPEC: BlockSpec = BlockSpec {
 };
 
 fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+    let live = p.text("capture")?.trim() == "-";
+    let smoothing = match p.text("method")? {
+        "smoother" => true,
+        "auto" => !live,
+        _ => false,
+    };
+    let smoother = if smoothing {
+        let model = Model::from_name(p.text("model")?).ok_or("model: unknown name")?;
+        let q = p.num("smoother_noise")?;
+        Some(SmootherSetup { model, q: (q > 0.0).then_some(q), held: Vec::new(), pieces: 0 })
+    } else {
+        None
+    };
     let method = match p.text("method")? {
         "kalman" => FilterMethod::Kalman { accel_sigma: p.num("process_noise")? },
         _ => {
@@ -108,6 +144,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         Some(t)
     };
     Ok(Box::new(Tracker {
+        smoother,
         method,
         gate_sigmas: p.num("gate_sigmas")?,
         reset_after: u32::try_from(p.int("reset_after")?).unwrap_or(u32::MAX),
@@ -132,7 +169,22 @@ struct AxisTrack {
     column: Option<usize>,
 }
 
+/// Estimates held for the fixed-interval smoother.
+struct SmootherSetup {
+    model: Model,
+    /// None: the most likely value.
+    q: Option<f64>,
+    held: Vec<AngleEstimate>,
+    /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
+    pieces: u64,
+}
+
+/// Most estimates held for smoothing at once (about 25 MB); a longer run is
+/// smoothed in pieces of this many, so memory stays bounded.
+const MAX_HELD: usize = 100_000;
+
 struct Tracker {
+    smoother: Option<SmootherSetup>,
     method: FilterMethod,
     gate_sigmas: f64,
     reset_after: u32,
@@ -170,60 +222,143 @@ impl Tracker {
     }
 }
 
+impl Tracker {
+    /// The estimate's angle and sigma when it is usable (a notice once when
+    /// the sigma is missing and the fallback is used).
+    fn measurement(&mut self, e: &AngleEstimate, out: &mut Outputs) -> Option<(f64, f64)> {
+        let z = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite())?;
+        if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
+            return Some((z, e.sigma_deg));
+        }
+        if !self.warned_sigma {
+            self.warned_sigma = true;
+            out.notice(
+                e.stamp,
+                format!(
+                    "estimates without a usable sigma (first at sample {}); assuming {} deg",
+                    e.stamp.index, self.fallback_sigma
+                ),
+            );
+        }
+        Some((z, self.fallback_sigma))
+    }
+
+    /// Add the antenna's pointing (when telemetry maps axis `k`) to the tracked angle.
+    fn point(&mut self, e: &mut AngleEstimate, k: usize, out: &mut Outputs) {
+        let (Some(tel), Some(col), Some(tracked)) = (&self.telemetry, self.axes[k].column, e.tracked_deg) else {
+            return;
+        };
+        let t = e.stamp.seconds();
+        match tel.at(col, t) {
+            Some(pointing) => e.absolute_deg = Some(pointing + tracked),
+            None => {
+                if self.outside_telemetry == 0 {
+                    let (a, b) = tel.span();
+                    out.notice(
+                        e.stamp,
+                        format!(
+                            "estimate at {t:.3} s lies outside the pointing table ({a} to {b} s); no absolute angle"
+                        ),
+                    );
+                }
+                self.outside_telemetry += 1;
+            }
+        }
+    }
+
+    /// Smooth the held estimates axis by axis and hand them on in their order.
+    fn flush_smoother(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(setup) = self.smoother.as_mut().filter(|s| !s.held.is_empty()) else {
+            return Ok(());
+        };
+        let mut held = std::mem::take(&mut setup.held);
+        let (model, q) = (setup.model, setup.q);
+        setup.pieces += 1;
+        let mut axis_of = Vec::with_capacity(held.len());
+        for e in &held {
+            axis_of.push(self.axis_index(e, out)?);
+        }
+        let mut measured = Vec::with_capacity(held.len());
+        for e in &held {
+            measured.push(self.measurement(e, out));
+        }
+        for k in 0..self.axes.len() {
+            let rows: Vec<usize> = (0..held.len()).filter(|&i| axis_of[i] == k).collect();
+            let data: Vec<Measurement> = rows
+                .iter()
+                .map(|&i| {
+                    let m = measured[i];
+                    Measurement { t: held[i].stamp.seconds(), z: m.map(|m| m.0), r: m.map_or(1.0, |m| m.1 * m.1) }
+                })
+                .collect();
+            if data.iter().all(|m| m.z.is_none()) {
+                continue;
+            }
+            let (smoothed, q_used) = smooth(&data, model, q, self.gate_sigmas);
+            if q.is_none()
+                && let Some(&i) = rows.first()
+            {
+                let axis = self.axes[k].axis.clone();
+                out.notice(
+                    held[i].stamp,
+                    format!("smoother for axis '{axis}': process noise {q_used:.3e} (most likely for the data)"),
+                );
+            }
+            for (&i, s) in rows.iter().zip(&smoothed) {
+                let e = &mut held[i];
+                if s.outlier {
+                    e.flag = Flag::Outlier;
+                }
+                e.tracked_deg = Some(s.angle);
+                e.tracked_sigma_deg = Some(s.variance.sqrt());
+            }
+        }
+        for (e, k) in held.into_iter().zip(axis_of) {
+            let mut e = e;
+            self.point(&mut e, k, out);
+            out.push(0, Item::Estimate(Box::new(e)));
+        }
+        Ok(())
+    }
+}
+
 impl Block for Tracker {
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Estimate(mut e) = item else {
             return Ok(());
         };
         self.last_stamp = Some(e.stamp);
-        let Some(z) = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite()) else {
+        if let Some(setup) = self.smoother.as_mut() {
+            setup.held.push(*e);
+            if setup.held.len() >= MAX_HELD {
+                self.flush_smoother(out)?;
+            }
+            return Ok(());
+        }
+        let Some((z, sigma)) = self.measurement(&e, out) else {
             out.push(0, Item::Estimate(e));
             return Ok(());
         };
-        let sigma = if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
-            e.sigma_deg
-        } else {
-            if !self.warned_sigma {
-                self.warned_sigma = true;
-                out.notice(
-                    e.stamp,
-                    format!(
-                        "estimates without a usable sigma (first at sample {}); assuming {} deg",
-                        e.stamp.index, self.fallback_sigma
-                    ),
-                );
-            }
-            self.fallback_sigma
-        };
         let k = self.axis_index(&e, out)?;
-        let t = e.stamp.seconds();
-        let step = self.axes[k].filter.step(t, z, sigma);
+        let step = self.axes[k].filter.step(e.stamp.seconds(), z, sigma);
         if step.outlier {
             e.flag = Flag::Outlier;
         }
         e.tracked_deg = Some(step.tracked);
-        if let (Some(tel), Some(col)) = (&self.telemetry, self.axes[k].column) {
-            match tel.at(col, t) {
-                Some(pointing) => e.absolute_deg = Some(pointing + step.tracked),
-                None => {
-                    if self.outside_telemetry == 0 {
-                        let (a, b) = tel.span();
-                        out.notice(
-                            e.stamp,
-                            format!(
-                                "estimate at {t:.3} s lies outside the pointing table ({a} to {b} s); no absolute angle"
-                            ),
-                        );
-                    }
-                    self.outside_telemetry += 1;
-                }
-            }
-        }
+        e.tracked_sigma_deg = Some(step.variance.max(0.0).sqrt());
+        self.point(&mut e, k, out);
         out.push(0, Item::Estimate(e));
         Ok(())
     }
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.flush_smoother(out)?;
+        if let Some(setup) = &self.smoother
+            && setup.pieces > 1
+        {
+            let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
+            out.notice(at, format!("smoothed in {} pieces of up to {MAX_HELD} estimates (memory bound)", setup.pieces));
+        }
         if self.outside_telemetry > 1 {
             let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
             out.notice(
