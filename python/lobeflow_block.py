@@ -57,7 +57,7 @@ DESCRIBE_FLAG = "--describe"
 # travel as the strings "NaN", "Infinity" and "-Infinity".
 FLOAT_FIELDS = frozenset(
     "rate amplitude noise_power snr var_ln_amp range_m error_deg sigma_deg snr_db ratio_db "
-    "tracked_deg absolute_deg".split()
+    "tracked_deg tracked_sigma_deg absolute_deg".split()
 )
 SAMPLE_KINDS = frozenset(("samples", "sweep", "segment"))
 _LITTLE = sys.byteorder == "little"

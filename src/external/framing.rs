@@ -112,6 +112,7 @@ pub fn encode(port: &str, item: &Item, buf: &mut Vec<u8>) {
             head.insert("range_m".into(), opt_num(e.range_m));
             head.insert("flag".into(), json!(e.flag.as_str()));
             head.insert("tracked_deg".into(), opt_num(e.tracked_deg));
+            head.insert("tracked_sigma_deg".into(), opt_num(e.tracked_sigma_deg));
             head.insert("absolute_deg".into(), opt_num(e.absolute_deg));
         }
         Item::Row(r) => {
@@ -361,6 +362,7 @@ pub fn build_item(
                 range_m: h.opt_f64("range_m")?,
                 flag,
                 tracked_deg: h.opt_f64("tracked_deg")?,
+                tracked_sigma_deg: h.opt_f64("tracked_sigma_deg")?,
                 absolute_deg: h.opt_f64("absolute_deg")?,
             }))
         }
@@ -438,6 +440,7 @@ mod tests {
             range_m: None,
             flag: Flag::Outlier,
             tracked_deg: None,
+            tracked_sigma_deg: None,
             absolute_deg: Some(3.0),
         };
         match round_trip(Item::Estimate(Box::new(est.clone()))) {
