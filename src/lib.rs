@@ -19,6 +19,7 @@
 //! schedules blocks, `capture` reads and writes recordings, `picture` draws,
 //! `commands` holds the entry points of the `lobeflow` command.
 
+pub mod calibrate;
 pub mod capture;
 pub mod commands;
 pub mod error;

@@ -2,6 +2,7 @@
 //! the command line and calls one of these; each returns an [`Error`] that
 //! `main` prints once.
 
+pub mod calibrate;
 pub mod catalog;
 pub mod check;
 pub mod inspect;
