@@ -21,13 +21,17 @@ fn dir(name: &str) -> PathBuf {
     d
 }
 
-/// A number from beacon-truth.yaml (`key: value` lines).
-fn truth(key: &str) -> f64 {
-    let text = std::fs::read_to_string(repo("tests/calibration/beacon-truth.yaml")).unwrap();
+/// A number from a truth file of make_scans.py (`key: value` lines).
+fn truth_in(file: &str, key: &str) -> f64 {
+    let text = std::fs::read_to_string(repo(&format!("tests/calibration/{file}"))).unwrap();
     text.lines()
         .find_map(|l| l.strip_prefix(&format!("{key}: ")))
         .and_then(|v| v.trim().parse().ok())
-        .unwrap_or_else(|| panic!("no number '{key}' in beacon-truth.yaml"))
+        .unwrap_or_else(|| panic!("no number '{key}' in {file}"))
+}
+
+fn truth(key: &str) -> f64 {
+    truth_in("beacon-truth.yaml", key)
 }
 
 fn beacon_args(seed: usize, out: &Path) -> CalibrateArgs {
@@ -57,7 +61,7 @@ fn beacon_scan_recovers_the_imbalance_slope_and_pattern() {
     let l = &p.local;
     let imbalance = truth("imbalance_db");
     assert!((l.ratio0_db - imbalance).abs() < 0.05, "imbalance {} vs {imbalance} dB", l.ratio0_db);
-    let [(plus, gp), (minus, gm)] = p.lobe_gains_db();
+    let [(plus, gp), (minus, gm)] = cal.lobe_gains_db(0);
     assert_eq!((plus.as_str(), minus.as_str()), ("right", "left"));
     assert!((gp - gm - imbalance).abs() < 0.05);
     let (ti, _) = p.table_imbalance_db();
@@ -91,15 +95,16 @@ fn beacon_scan_recovers_the_imbalance_slope_and_pattern() {
     let _ = std::fs::remove_dir_all(&out);
 }
 
-/// Mean and standard deviation of (estimate - truth) of the ok estimates.
-fn bias_and_spread(angles: &Path) -> (f64, f64, usize) {
-    let truth_text = std::fs::read_to_string(repo("tests/calibration/beacon-track.truth.csv")).unwrap();
+/// Mean and standard deviation of (estimate - truth) of the ok estimates
+/// of `axis`, the truth in column `column` of `truth_file`.
+fn bias_and_spread(angles: &Path, truth_file: &str, axis: &str, column: usize) -> (f64, f64, usize) {
+    let truth_text = std::fs::read_to_string(repo(truth_file)).unwrap();
     let truth: Vec<(f64, f64)> = truth_text
         .lines()
         .skip(1)
         .map(|l| {
-            let (t, a) = l.split_once(',').unwrap();
-            (t.parse().unwrap(), a.parse().unwrap())
+            let f: Vec<f64> = l.split(',').map(|x| x.parse().unwrap()).collect();
+            (f[0], f[column])
         })
         .collect();
     let at = |t: f64| {
@@ -111,10 +116,10 @@ fn bias_and_spread(angles: &Path) -> (f64, f64, usize) {
     let mut lines = text.lines();
     let header: Vec<&str> = lines.next().unwrap().split(',').collect();
     let col = |n: &str| header.iter().position(|h| *h == n).unwrap();
-    let (t, e, f) = (col("time_s"), col("error_deg"), col("flag"));
+    let (t, e, f, a) = (col("time_s"), col("error_deg"), col("flag"), col("axis"));
     let errors: Vec<f64> = lines
         .map(|l| l.split(',').collect::<Vec<_>>())
-        .filter(|r| r[f] == "ok")
+        .filter(|r| r[f] == "ok" && r[a] == axis)
         .map(|r| r[e].parse::<f64>().unwrap() - at(r[t].parse().unwrap()))
         .collect();
     let n = errors.len() as f64;
@@ -123,13 +128,17 @@ fn bias_and_spread(angles: &Path) -> (f64, f64, usize) {
     (mean, sd, errors.len())
 }
 
-fn run_track(params: &Path, out: &Path) -> (f64, f64, usize) {
-    let mut s = lobeflow::Session::open(repo("graphs/two-lobe-beacon.yaml")).unwrap();
+fn run_graph(graph: &str, input: &str, params: &Path, out: &Path) {
+    let mut s = lobeflow::Session::open(repo(graph)).unwrap();
     s.params_file(params).unwrap();
-    s.set("input", repo("tests/calibration/beacon-track.sigmf-meta").to_str().unwrap());
+    s.set("input", repo(input).to_str().unwrap());
     s.out_dir(out).threads(1);
     s.run().unwrap();
-    bias_and_spread(&out.join("angles.csv"))
+}
+
+fn run_track(params: &Path, out: &Path) -> (f64, f64, usize) {
+    run_graph("graphs/two-lobe-beacon.yaml", "tests/calibration/beacon-track.sigmf-meta", params, out);
+    bias_and_spread(&out.join("angles.csv"), "tests/calibration/beacon-track.truth.csv", "az", 1)
 }
 
 #[test]
@@ -244,5 +253,57 @@ fn a_synthesized_scan_with_telemetry_calibrates_to_its_scenario() {
     let l = &cal.pairs[0].local;
     assert!((l.ratio0_db - 0.6).abs() < 0.05, "{}", l.ratio0_db);
     assert!((cal.joint.fit.squint - 5.0).abs() < 0.05, "{}", cal.joint.fit.squint);
+    let _ = std::fs::remove_dir_all(&d);
+}
+
+#[test]
+fn pulsed_four_lobe_scan_calibrates_both_axes() {
+    // Four-lobe pulsed installation (WAV I, Q, sync; two-way): an azimuth
+    // leg, a slew (a telemetry jump), an elevation leg; lobe paths right
+    // +0.40, up +0.30, left -0.35, down -0.35 dB.
+    let d = dir("pulsed");
+    let site = repo("tests/calibration/pulsed-site.yaml");
+    let scan = repo("tests/calibration/pulsed-scan-s00.wav");
+    let args = CalibrateArgs {
+        graph: repo("graphs/four-lobe-pulsed.yaml"),
+        overrides: overrides(Some(&site), &[], Some(&scan)).unwrap(),
+        pointing: repo("tests/calibration/pulsed-scan-s00.pointing.csv"),
+        source: (74.0, 8.0),
+        clock_offset_s: 0.0,
+        cross_limit_deg: None,
+        out_dir: d.join("cal"),
+        threads: Some(1),
+    };
+    let cal = calibrate(&args).unwrap().0;
+    assert!(cal.telemetry_notes.iter().any(|n| n.contains("jump")), "{:?}", cal.telemetry_notes);
+    let t = |k: &str| truth_in("pulsed-truth.yaml", k);
+    for (k, axis) in ["az", "el"].iter().enumerate() {
+        let p = &cal.pairs[k];
+        assert_eq!(&p.axis, axis);
+        let imbalance = t(&format!("{axis}_imbalance_db"));
+        let [(_, gp), (_, gm)] = cal.lobe_gains_db(k);
+        assert!((gp - gm - imbalance).abs() < 0.05, "{axis}: written imbalance {} vs {imbalance}", gp - gm);
+        assert!((p.local.ratio0_db - imbalance).abs() < 0.05, "{axis}: ratio at boresight {}", p.local.ratio0_db);
+        let slope = t(&format!("{axis}_slope_db_per_deg"));
+        assert!(
+            (p.local.slope_db_per_deg / slope - 1.0).abs() < 0.02,
+            "{axis}: slope {} vs {slope}",
+            p.local.slope_db_per_deg
+        );
+    }
+    assert!((cal.joint.fit.squint - t("squint_deg")).abs() < 0.02, "{}", cal.joint.fit.squint);
+    assert!((cal.joint.fit.beam.beamwidth_deg - t("beamwidth_deg")).abs() < 0.1);
+    // The separate tracking capture, through the params file as written.
+    let track = "tests/calibration/pulsed-track.wav";
+    run_graph("graphs/four-lobe-pulsed.yaml", track, &d.join("cal/calibration.yaml"), &d.join("calibrated"));
+    run_graph("graphs/four-lobe-pulsed.yaml", track, &site, &d.join("textbook"));
+    for (axis, column) in [("az", 1), ("el", 2)] {
+        let truth = "tests/calibration/pulsed-track.truth.csv";
+        let (bias, sigma, n) = bias_and_spread(&d.join("calibrated/angles.csv"), truth, axis, column);
+        let (raw, raw_sigma, _) = bias_and_spread(&d.join("textbook/angles.csv"), truth, axis, column);
+        assert!(n > 500, "{axis}: {n} estimates");
+        assert!(raw.abs() > 3.0 * raw_sigma, "{axis} textbook: bias {raw}, sigma {raw_sigma}");
+        assert!(bias.abs() <= 0.1 * sigma, "{axis} calibrated: bias {bias}, sigma {sigma}");
+    }
     let _ = std::fs::remove_dir_all(&d);
 }

@@ -274,14 +274,20 @@ fn calibrate_pair(
     })
 }
 
-impl PairCalibration {
-    /// Per-lobe gains (dB) from the ratio at boresight, split evenly: only
-    /// their difference is measurable.
-    pub fn lobe_gains_db(&self) -> [(String, f64); 2] {
-        let half = 0.5 * self.local.ratio0_db;
-        [(self.plus.clone(), half), (self.minus.clone(), -half)]
+impl Calibration {
+    /// Per-lobe gains (dB) of pair `k` for the params file: the difference
+    /// of the two lobes' gains in the pattern written (the same imbalance
+    /// as the ratio at boresight for mirror-image lobes, but measured from
+    /// every main-lobe dwell, not only those near boresight), split evenly:
+    /// only the difference is measurable.
+    pub fn lobe_gains_db(&self, k: usize) -> [(String, f64); 2] {
+        let p = &self.pairs[k];
+        let half = 0.5 * self.joint.fit.gain_difference(2 * k, 2 * k + 1).0 * DB_PER_NEPER;
+        [(p.plus.clone(), half), (p.minus.clone(), -half)]
     }
+}
 
+impl PairCalibration {
     /// Imbalance of the table fit in dB with its sigma.
     pub fn table_imbalance_db(&self) -> (f64, f64) {
         (self.table.imbalance.0 * DB_PER_NEPER, self.table.imbalance.1 * DB_PER_NEPER)

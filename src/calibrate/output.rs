@@ -124,7 +124,7 @@ pub fn params_yaml(cal: &Calibration, args: &CalibrateArgs) -> String {
         let _ = writeln!(s, "# Measured:");
     }
     let gains: Vec<String> =
-        cal.pairs.iter().flat_map(|p| p.lobe_gains_db()).map(|(lobe, db)| format!("{lobe}={db:.3}")).collect();
+        (0..cal.pairs.len()).flat_map(|k| cal.lobe_gains_db(k)).map(|(lobe, db)| format!("{lobe}={db:.3}")).collect();
     let mut missing = Vec::new();
     let mut value = |name: &str, v: String, s: &mut String| {
         if has(name) {

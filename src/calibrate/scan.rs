@@ -88,6 +88,8 @@ pub fn collect_dwells(
 /// Where one dwell was, seen from the antenna.
 #[derive(Clone, Debug)]
 pub struct LocatedDwell {
+    /// Position among all dwells of the pair's two lobes (dropped ones too).
+    pub seq: u64,
     pub time_s: f64,
     pub pair: usize,
     pub plus: bool,
@@ -111,6 +113,12 @@ pub struct RatioPoint {
     pub plus_y: f64,
     pub minus_y: f64,
 }
+
+/// Dwells whose ln(amplitude) is less certain than this (sigma 0.5, a
+/// dwell energy over noise near 2) are left out as without signal: they
+/// carry almost no weight, and the second-order bias correction no longer
+/// holds for them.
+const MAX_VAR_LN_AMP: f64 = 0.25;
 
 /// Why dwells were left out.
 #[derive(Clone, Debug, Default)]
@@ -155,6 +163,7 @@ pub fn locate(
 ) -> (Vec<LocatedDwell>, Dropped) {
     let mut out = Vec::new();
     let mut dropped = Dropped::default();
+    let mut seq = vec![0u64; disc.pairs.len()];
     for d in dwells {
         let name: &str = &d.tag.name;
         let Some((pair, plus)) = disc.pairs.iter().enumerate().find_map(|(k, p)| {
@@ -169,7 +178,8 @@ pub fn locate(
             dropped.other_lobes += 1;
             continue;
         };
-        if d.amplitude.is_nan() || d.amplitude <= 0.0 || !d.var_ln_amp.is_finite() {
+        seq[pair] += 1;
+        if d.amplitude.is_nan() || d.amplitude <= 0.0 || d.var_ln_amp.is_nan() || d.var_ln_amp > MAX_VAR_LN_AMP {
             dropped.no_signal += 1;
             continue;
         }
@@ -186,13 +196,23 @@ pub fn locate(
             continue;
         }
         let unbias = if disc.unbias { d.var_ln_amp } else { 0.0 };
-        out.push(LocatedDwell { time_s: t, pair, plus, theta, cross, y: d.amplitude.ln() + unbias, var: d.var_ln_amp });
+        out.push(LocatedDwell {
+            seq: seq[pair],
+            time_s: t,
+            pair,
+            plus,
+            theta,
+            cross,
+            y: d.amplitude.ln() + unbias,
+            var: d.var_ln_amp,
+        });
     }
     (out, dropped)
 }
 
 /// Pair each dwell with the next dwell of the opposite lobe, as the
-/// discriminator does; the ratio's angle is taken at the pair's mid time.
+/// discriminator does, but only when no dwell of the pair was left out
+/// between them; the ratio's angle is taken at the pair's mid time.
 pub fn ratios(
     located: &[LocatedDwell],
     disc: &Discriminator,
@@ -203,7 +223,7 @@ pub fn ratios(
     let mut out = Vec::new();
     for d in located {
         match waiting[d.pair].take() {
-            Some(w) if w.plus != d.plus => {
+            Some(w) if w.plus != d.plus && d.seq == w.seq + 1 => {
                 let (p, m) = if d.plus { (d, w) } else { (w, d) };
                 let t = 0.5 * (p.time_s + m.time_s);
                 let at = pointing

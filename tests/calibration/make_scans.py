@@ -12,7 +12,12 @@ Writes, beside this script:
   beacon-track.truth.csv             time_s,az_deg of the target off boresight
   beacon-truth.yaml                  the true installation numbers
 
-Run: python3 tests/calibration/make_scans.py   (numpy only)
+  pulsed-scan-s00.wav/.pointing.csv  four-lobe pulsed installation: an
+                                     azimuth leg, a slew, an elevation leg
+  pulsed-track.wav, .truth.csv       its tracking capture
+  pulsed-truth.yaml                  its true numbers
+
+Run: python3 tests/calibration/make_scans.py [--pulsed-only]   (numpy only)
 
 Geometry: azimuth is measured clockwise from north, elevation up from the
 horizon. The off-axis angle of a source in the antenna frame is computed
@@ -218,10 +223,182 @@ def true_numbers():
     }
 
 
+# ---------------------------------------------------------------------------
+# The pulsed four-lobe installation (invented): Tollgate Sands four-lobe
+# tracker. WAV 16-bit, channels I, Q and the sync staircase (the level of
+# the lobe at position i of N is -0.8 + 1.6 i/(N-1)); lobes switch
+# `P_LEAD` before the first transmit of each dwell; the echo is a
+# rectangular pulse 2R/c after each transmit; transmit leakage at each
+# transmit instant (60 dB over the noise). Lobes see the target through a circular pattern of the
+# angle from their own axis, two-way, with their own path gains.
+P_RATE = 125000.0
+P_PRF = 2000.0
+P_PULSE = 3            # samples (24 us)
+P_PER_DWELL = 4
+P_LEAD = 5             # samples before the first transmit of a dwell
+P_T0 = 40              # sample of transmit 0 (first pulse of a 'right' dwell)
+P_LOBES = ["right", "up", "left", "down"]
+P_AXES = {"right": (2.4, 0.0), "up": (0.0, 2.4), "left": (-2.4, 0.0), "down": (0.0, -2.4)}
+P_GAIN_DB = {"right": 0.40, "up": 0.30, "left": -0.35, "down": -0.35}
+P_RANGE_M = 30000.0
+P_SOURCE = (74.0, 8.0)
+P_SHOULDER, P_WIDE = 0.10, 2.4
+
+
+def p_voltage(r, sigma):
+    return (np.exp(-0.5 * (r / sigma) ** 2) + P_SHOULDER * np.exp(-0.5 * (r / (P_WIDE * sigma)) ** 2)) / (1 + P_SHOULDER)
+
+
+def p_sigma():
+    lo, hi = 0.5, 10.0
+    for _ in range(200):
+        mid = 0.5 * (lo + hi)
+        if p_voltage(3.0, mid) ** 2 > 0.5:
+            hi = mid
+        else:
+            lo = mid
+    return 0.5 * (lo + hi)
+
+
+P_SIGMA = p_sigma()
+
+
+def frame_offsets(az_p, el_p):
+    """Source offset (traverse right, elevation up) in the antenna frame, deg."""
+    v = rot_y(np.radians(el_p)) @ rot_z(np.radians(az_p)) @ unit(*P_SOURCE)
+    return np.degrees(np.arcsin(np.clip(v[1], -1, 1))), np.degrees(np.arctan2(v[2], v[0]))
+
+
+def pulsed_capture(path, offsets_at, n, snr_db, rng):
+    """offsets_at(t) -> (az_off, el_off) of the target; writes the WAV."""
+    pri = P_RATE / P_PRF  # 62.5 samples
+    delay = 2 * P_RANGE_M / 299792458.0 * P_RATE
+    iq = (rng.standard_normal(n) + 1j * rng.standard_normal(n)) / np.sqrt(2)
+    sync = np.zeros(n)
+    amp0 = np.sqrt(10 ** (snr_db / 10))
+    leak = np.sqrt(10 ** (60 / 10))
+    k = 0
+    while True:
+        tx = P_T0 + k * pri
+        if tx - pri > n:
+            break
+        d = k // P_PER_DWELL
+        lobe = P_LOBES[d % 4]
+        if k % P_PER_DWELL == 0:
+            sw = int(np.floor(tx - P_LEAD))
+            sync[max(sw, 0):] = -0.8 + 1.6 * (d % 4) / 3
+        i0 = int(np.ceil(tx))
+        if 0 <= i0 and i0 + P_PULSE <= n:
+            iq[i0:i0 + P_PULSE] += leak
+        e0 = int(round(tx + delay))
+        if 0 <= e0 and e0 + P_PULSE <= n:
+            az, el = offsets_at((tx + delay) / P_RATE)
+            ax, ay = P_AXES[lobe]
+            g = p_voltage(np.hypot(az - ax, el - ay), P_SIGMA) ** 2 * 10 ** (P_GAIN_DB[lobe] / 20)
+            iq[e0:e0 + P_PULSE] += amp0 * g * np.exp(1j * rng.uniform(0, 2 * np.pi))
+        k += 1
+    # Before the first switch the previous lobe ('down') is on.
+    first = int(np.floor(P_T0 - P_LEAD))
+    sync[:first] = 0.8
+    sync += 0.01 * rng.standard_normal(n)
+    scale = 0.8 / (leak + 5)
+    data = np.stack([iq.real * scale, iq.imag * scale, sync * 0.9], axis=1)
+    pcm = np.clip(np.round(data * 32767), -32768, 32767).astype("<i2")
+    import wave
+    with wave.open(path, "wb") as w:
+        w.setnchannels(3)
+        w.setsampwidth(2)
+        w.setframerate(int(P_RATE))
+        w.writeframes(pcm.tobytes())
+
+
+def pulsed_scan(seed=0, span=7.0, rate=10.0):
+    """An azimuth leg, a slew, then an elevation leg across the source."""
+    rng = np.random.default_rng(2000 + seed)
+    leg = 2 * span / rate
+    slew = 0.2
+    duration = 2 * leg + slew
+
+    def pointing(t):
+        if t < leg:  # az leg: the source from `span` right to `span` left
+            return pointing_az(span - rate * t), P_SOURCE[1]
+        if t < leg + slew:
+            return P_SOURCE[0], P_SOURCE[1] - span
+        return P_SOURCE[0], P_SOURCE[1] - (span - rate * (t - leg - slew))
+
+    def pointing_az(theta):
+        lo, hi = P_SOURCE[0] - 40, P_SOURCE[0] + 40
+        for _ in range(80):
+            mid = 0.5 * (lo + hi)
+            if frame_offsets(mid, P_SOURCE[1])[0] > theta:
+                lo = mid
+            else:
+                hi = mid
+        return 0.5 * (lo + hi)
+
+    n = int(duration * P_RATE)
+    prefix = os.path.join(HERE, f"pulsed-scan-s{seed:02d}")
+    pulsed_capture(prefix + ".wav", lambda t: frame_offsets(*pointing(t)), n, 38.0, rng)
+    rows = ["time_s,az_deg,el_deg"]
+    for k in range(int(duration * 20) + 1):
+        t = k * 0.05
+        az, el = pointing(t)
+        rows.append(f"{t:.3f},{az:.4f},{el:.4f}")
+    with open(prefix + ".pointing.csv", "w") as f:
+        f.write("\n".join(rows) + "\n")
+
+
+def pulsed_track(duration=5.0):
+    rng = np.random.default_rng(77)
+
+    def offsets(t):
+        return 0.4 - 0.15 * t + 0.2 * np.sin(2 * np.pi * t / 1.3), -0.4 + 0.15 * t
+
+    n = int(duration * P_RATE)
+    pulsed_capture(os.path.join(HERE, "pulsed-track.wav"), offsets, n, 27.0, rng)
+    rows = ["time_s,az_deg,el_deg"]
+    for k in range(int(duration * 200) + 1):
+        t = k * 0.005
+        az, el = offsets(t)
+        rows.append(f"{t:.4f},{az:.6f},{el:.6f}")
+    with open(os.path.join(HERE, "pulsed-track.truth.csv"), "w") as f:
+        f.write("\n".join(rows) + "\n")
+
+
+def pulsed_truth():
+    def ratio_db(theta, plus, minus, axis):
+        def g(lobe):
+            ax, ay = P_AXES[lobe]
+            x, y = (theta, 0.0) if axis == 0 else (0.0, theta)
+            return p_voltage(np.hypot(x - ax, y - ay), P_SIGMA) ** 2 * 10 ** (P_GAIN_DB[lobe] / 20)
+        return 20 * np.log10(g(plus) / g(minus))
+
+    out = {}
+    for name, plus, minus, axis in [("az", "right", "left", 0), ("el", "up", "down", 1)]:
+        h = 1e-4
+        out[f"{name}_imbalance_db"] = P_GAIN_DB[plus] - P_GAIN_DB[minus]
+        out[f"{name}_slope_db_per_deg"] = (ratio_db(h, plus, minus, axis) - ratio_db(-h, plus, minus, axis)) / (2 * h)
+    x = np.linspace(0, 20, 200001)
+    out["beamwidth_deg"] = 2 * x[np.argmax(p_voltage(x, P_SIGMA) ** 2 < 0.5)]
+    out["squint_deg"] = 2.4
+    return out
+
+
 def main():
-    for seed in range(24):
-        beacon_scan(seed)
-    beacon_track()
+    import sys
+    if "--pulsed-only" not in sys.argv:
+        for seed in range(24):
+            beacon_scan(seed)
+        beacon_track()
+    pulsed_scan(0)
+    pulsed_track()
+    with open(os.path.join(HERE, "pulsed-truth.yaml"), "w") as f:
+        f.write("# True numbers of the four-lobe pulsed test installation (make_scans.py)\n")
+        f.write("lobe_gain_db: \"%s\"\n" % ", ".join(f"{a}={b}" for a, b in P_GAIN_DB.items()))
+        for k, v in pulsed_truth().items():
+            f.write(f"{k}: {v:.6f}\n")
+    if "--pulsed-only" in sys.argv:
+        return
     truth = true_numbers()
     with open(os.path.join(HERE, "beacon-truth.yaml"), "w") as f:
         f.write("# True numbers of the two-lobe beacon test installation (make_scans.py)\n")
