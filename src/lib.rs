@@ -20,6 +20,7 @@
 //! `commands` holds the entry points of the `lobeflow` command.
 
 pub mod batch;
+pub mod calibrate;
 pub mod capture;
 pub mod commands;
 pub mod error;

@@ -111,6 +111,36 @@ enum Command {
         #[arg(long)]
         out: PathBuf,
     },
+    /// Measure the discriminator from a scan across a known source; writes a params file for GRAPH.
+    Calibrate {
+        /// The graph whose chain makes the dwell records (the one to calibrate).
+        graph: PathBuf,
+        /// The scan capture (sets the knob `input`).
+        #[arg(long)]
+        input: Option<PathBuf>,
+        /// Pointing telemetry CSV: time_s,az_deg,el_deg.
+        #[arg(long)]
+        pointing: PathBuf,
+        /// Source position AZ,EL in degrees.
+        #[arg(long)]
+        source: String,
+        /// Added to the telemetry's time_s to put it on the capture's clock (e.g. -0.25s).
+        #[arg(long, default_value = "0", allow_hyphen_values = true)]
+        clock_offset: String,
+        /// Dwells further than this (deg) off the pair's axis across it are not used (default: a tenth of the beamwidth setting).
+        #[arg(long)]
+        cross_limit: Option<f64>,
+        #[arg(long = "set", value_name = "NAME=VALUE")]
+        set: Vec<String>,
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Output directory.
+        #[arg(long)]
+        out: PathBuf,
+        /// Worker threads (default: one per core).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
     /// Describe a capture: format, rate, channels and roles, levels, envelope periodicities.
     Inspect {
         /// WAV, SigMF recording (either file or base name), raw file, or '-' for standard input.
@@ -223,6 +253,20 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
         }
         Command::Blocks { kind } => {
             print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);
+            Ok(())
+        }
+        Command::Calibrate { graph, input, pointing, source, clock_offset, cross_limit, set, params, out, threads } => {
+            let args = lobeflow::calibrate::CalibrateArgs {
+                graph,
+                overrides: commands::overrides(params.as_deref(), &set, input.as_ref())?,
+                pointing,
+                source: commands::calibrate::parse_source(&source)?,
+                clock_offset_s: commands::calibrate::parse_seconds(&clock_offset, "--clock-offset")?,
+                cross_limit_deg: cross_limit,
+                out_dir: out,
+                threads,
+            };
+            eprint!("{}", commands::calibrate::run(&args)?);
             Ok(())
         }
         Command::Synth { scenario, out } => {

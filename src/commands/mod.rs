@@ -3,6 +3,7 @@
 //! `main` prints once.
 
 pub mod batch;
+pub mod calibrate;
 pub mod catalog;
 pub mod check;
 pub mod inspect;

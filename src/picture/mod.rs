@@ -9,6 +9,7 @@ pub mod accum;
 pub mod angle_plot;
 pub mod circular;
 pub mod circular_sweep;
+pub mod discriminator_curve;
 pub mod lobe_timeline;
 pub mod range_trace;
 pub mod split_pair;

@@ -56,6 +56,8 @@ pub struct Lobe {
     pub name: String,
     pub az: f64,
     pub el: f64,
+    /// Amplitude factor of the lobe's own path (switch, cable, amplifier).
+    pub gain: f64,
 }
 
 #[derive(Clone, Debug)]
@@ -214,7 +216,8 @@ impl Model {
                     ));
                 }
             };
-            lobes.push(Lobe { name: name.to_string(), az, el });
+            let gain = db_amplitude(l.gain_db.map_or(0.0, |g| g.0));
+            lobes.push(Lobe { name: name.to_string(), az, el, gain });
         }
 
         let end = c.start.0 + samples / rate;
@@ -417,7 +420,7 @@ impl Model {
     pub fn pattern_factor(&self, l: usize, t: f64) -> f64 {
         let lobe = &self.lobes[l];
         let x = (self.az.at_time(t) - lobe.az).hypot(self.el.at_time(t) - lobe.el);
-        self.beam.voltage(x).powi(self.way)
+        lobe.gain * self.beam.voltage(x).powi(self.way)
     }
 
     /// Transmit instant of pulse `k` (scenario time), with its jitter.

@@ -2,6 +2,7 @@
 //! file (see [`scenario`] for the syntax, [`generate`] for the signal model).
 
 pub mod generate;
+pub mod scan;
 pub mod scenario;
 pub mod truth;
 
@@ -30,7 +31,8 @@ pub fn with_suffix(prefix: &Path, suffix: &str) -> PathBuf {
     PathBuf::from(s)
 }
 
-/// Write the capture and `PREFIX.truth.csv`; all files appear together at
+/// Write the capture and `PREFIX.truth.csv` (and for scans
+/// `PREFIX.pointing.csv`); all files appear together at
 /// the end, or none on error.
 pub fn synthesize(file: &ScenarioFile, prefix: &Path) -> Result<SynthReport, String> {
     let model = Model::from_file(file)?;
@@ -50,6 +52,9 @@ pub fn synthesize(file: &ScenarioFile, prefix: &Path) -> Result<SynthReport, Str
     let stager = FileStager::default();
     let result = (|| {
         let dwells = truth::write_truth(&model, &with_suffix(prefix, ".truth.csv"), &stager)?;
+        if let Some(scan) = &file.scenario.scan {
+            scan::write_pointing(&model, scan, &with_suffix(prefix, ".pointing.csv"), &stager)?;
+        }
         let mut generator = Generator::new(model.clone());
         let mut frames = Frames::default();
         while generator.next_chunk(&mut frames) {

@@ -31,6 +31,7 @@
 //! lobes:                            # in switching order, at least two
 //!   - {name: right, toward: right}  # toward: right (+az) | left (-az) | up (+el) | down (-el)
 //!   - {name: odd, az: 1 deg, el: -0.5 deg}   # or explicit axis offsets
+//!   - {name: weak, toward: left, gain_db: -0.3 dB}   # optional path gain of the lobe
 //! signal:                           # exactly one of pulsed / beacon
 //!   pulsed:
 //!     prf: 2 kHz                    # PRI = 1/PRF
@@ -58,6 +59,11 @@
 //!   az: {at: 0.4 deg, per_second: -0.5 deg, swing: {amplitude: 0.2 deg, period: 2 s, phase: 0 deg}}
 //!   el: {at: -0.2 deg}              # value(t) = at + per_second*t + amplitude*sin(2 pi t/period + phase)
 //!   range: {at: 12 km, per_second: -150 m}   # pulsed only (required there)
+//! scan:                             # optional: a calibration scan across a fixed source;
+//!   source_az: 131.4 deg            # the target track is the source's offset from
+//!   source_el: 23 deg               # boresight (az: across, el: up, antenna frame),
+//!   interval: 0.1 s                 # and PREFIX.pointing.csv gets the antenna pointing
+//!   clock_lead: 0 s                 # that makes it (time_s on a clock this far ahead)
 //! ```
 
 use crate::graph::locate::{Seg, key, locate};
@@ -158,6 +164,8 @@ pub struct Scenario {
     #[serde(default)]
     pub switch_transient: Option<TransientSpec>,
     pub target: TargetSpec,
+    #[serde(default)]
+    pub scan: Option<ScanSpec>,
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -284,6 +292,29 @@ pub struct LobeSpec {
     pub az: Option<Degrees>,
     #[serde(default)]
     pub el: Option<Degrees>,
+    /// Gain of this lobe's own path (switch, cable, amplifier), dB.
+    #[serde(default)]
+    pub gain_db: Option<Decibels>,
+}
+
+/// `scan:`: the antenna sweeps across a fixed source; the target track is
+/// the source's offset from boresight, and the pointing that produces it
+/// is written as telemetry beside the capture.
+#[derive(Clone, Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ScanSpec {
+    pub source_az: Degrees,
+    pub source_el: Degrees,
+    /// Telemetry row interval.
+    #[serde(default = "default_telemetry_interval")]
+    pub interval: Seconds,
+    /// Telemetry clock minus capture clock.
+    #[serde(default)]
+    pub clock_lead: Seconds,
+}
+
+fn default_telemetry_interval() -> Seconds {
+    Seconds(0.1)
 }
 
 /// `signal:` holds exactly one of `pulsed:` or `beacon:`.
