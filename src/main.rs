@@ -180,11 +180,16 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 stream,
                 stream_format,
             };
-            let (_, exit) = commands::run::run_with_exit(&args)?;
-            if let Some(code) = exit {
-                std::process::exit(code);
+            match commands::run::run_with_exit(&args) {
+                (Ok(_), None) => Ok(()),
+                (result, Some(code)) => {
+                    if let Err(e) = result {
+                        eprintln!("error: {e}");
+                    }
+                    std::process::exit(code)
+                }
+                (Err(e), None) => Err(e),
             }
-            Ok(())
         }
         Command::Check { graph, input, out, set, params } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;

@@ -56,12 +56,19 @@ pub fn set_capture_options(graph: &mut ResolvedGraph, params: &[(&'static str, S
 
 /// Run, print the summary to stderr, and return the report.
 pub fn run_graph(args: &RunArgs) -> Result<RunReport, Error> {
-    run_with_exit(args).map(|(report, _)| report)
+    run_with_exit(args).0
 }
 
-/// Run as [`run_graph`] does; also returns the exit code a stopped live run
-/// should end with (128 + the signal, e.g. 130 for Ctrl-C), if any.
-pub fn run_with_exit(args: &RunArgs) -> Result<(RunReport, Option<i32>), Error> {
+/// Run as [`run_graph`] does; also returns the exit code a run stopped by a
+/// signal ends with (128 + the signal, e.g. 130 for Ctrl-C, 143 for SIGTERM).
+pub fn run_with_exit(args: &RunArgs) -> (Result<RunReport, Error>, Option<i32>) {
+    let mut signal = None;
+    let result = run_watched(args, &mut signal);
+    let stopped = matches!(result, Err(Error::Cancelled) | Ok(RunReport { ending: Ending::CutShort { .. }, .. }));
+    (result, signal.filter(|_| stopped).map(|sig| 128 + sig))
+}
+
+fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Error> {
     let mut graph = resolve(&args.graph, &args.overrides, &crate::registry())?;
     set_capture_options(&mut graph, &args.capture)?;
     let mut opts = RunOptions {
@@ -80,16 +87,12 @@ pub fn run_with_exit(args: &RunArgs) -> Result<(RunReport, Option<i32>), Error> 
     let live = prepared.is_live();
     let watch = Watch::start(&opts, live, progress, args.stats && !args.quiet);
     let result = prepared.execute();
-    let signal = watch.stop();
+    *signal = watch.stop();
     let report = result?;
     if !args.quiet {
         eprint!("{}", summary(&report, args.stats));
     }
-    let exit = match (report.ending, signal) {
-        (Ending::CutShort { .. }, Some(sig)) => Some(128 + sig),
-        _ => None,
-    };
-    Ok((report, exit))
+    Ok(report)
 }
 
 /// Watches for signals while a run goes, and keeps the progress line of a
