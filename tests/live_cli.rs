@@ -69,7 +69,7 @@ fn signal(child: &Child, sig: i32) {
 #[test]
 fn first_rows_arrive_before_a_slow_producer_finishes() {
     let out = scratch("slow");
-    let mut child = beacon_live(&out, &[]);
+    let mut child = beacon_live(&out, &["--stats"]);
     let lines = lines_with_times(&mut child);
     let mut stdin = child.stdin.take().unwrap();
     // 6 s of capture in 12 pieces, 0.25 s apart: the producer needs 2.75 s.
@@ -96,6 +96,40 @@ fn first_rows_arrive_before_a_slow_producer_finishes() {
     let printed: String = got.iter().map(|(_, l)| format!("{l}\n")).collect();
     assert_eq!(printed, std::fs::read_to_string(out.join("angles.csv")).unwrap());
     assert!(err.contains("the live input ended at sample 1500000"), "{err}");
+    // --stats tells how far behind the input processing is, as it goes and at the end.
+    assert!(err.contains("live: ") && err.contains(" s behind"), "{err}");
+    assert!(err.contains("live input: processing was at most"), "{err}");
+    assert!(!err.contains("fell behind"), "{err}");
+    let _ = std::fs::remove_dir_all(&out);
+}
+
+#[test]
+fn a_run_that_falls_behind_a_real_time_input_says_so() {
+    let out = scratch("behind");
+    // The beacon bytes said to be 100 MS/s and written at that pace: 0.3 s
+    // of capture that takes seconds to process.
+    let mut child = Command::new(env!("CARGO_BIN_EXE_lobeflow"))
+        .current_dir(root())
+        .args(["run", "graphs/two-lobe-beacon.yaml", "--input", "-", "--datatype", "cu8", "--rate", "100MS/s"])
+        .args(["--set", "dwell=2ms", "--set", "first_start=0", "--set", "guard=0.1ms", "--stats", "--out"])
+        .arg(&out)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut stdin = child.stdin.take().unwrap();
+    let bytes = beacon_bytes();
+    let start = Instant::now();
+    for k in 0..20 {
+        // 1.5 M samples: 15 ms at the stated rate.
+        std::thread::sleep((start + Duration::from_millis(15 * k)).saturating_duration_since(Instant::now()));
+        stdin.write_all(&bytes).unwrap();
+    }
+    drop(stdin);
+    let err = stderr_text(&mut child);
+    assert!(child.wait().unwrap().success(), "{err}");
+    assert!(err.contains("note: processing fell behind the live input by up to"), "{err}");
     let _ = std::fs::remove_dir_all(&out);
 }
 
@@ -245,7 +279,9 @@ fn stream_format_prints_json_lines_and_a_dash_path_needs_no_flag() {
 #[ignore = "measurement: prints row latency figures"]
 fn row_latency_figures() {
     let pulsed_wav = std::fs::read(root().join("samples/four-lobe-pulsed.wav")).unwrap();
-    let cases: [(&str, Vec<u8>, f64, usize, Vec<&str>, f64); 2] = [
+    // (graph, raw bytes, rate, bytes per frame, capture flags, stamp to last sample)
+    type Case<'a> = (&'a str, Vec<u8>, f64, usize, Vec<&'a str>, f64);
+    let cases: [Case; 2] = [
         ("two-lobe-beacon", beacon_bytes(), 250e3, 2, vec!["--datatype", "cu8", "--rate", "250kS/s"], 0.0195),
         (
             "four-lobe-pulsed",

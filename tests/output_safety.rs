@@ -226,3 +226,19 @@ fn sigterm_sighup_and_sigint_on_a_file_run_leave_nothing() {
     }
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+#[test]
+fn synth_into_a_folder_name_writes_nothing_and_cleans_stale_staging() {
+    let dir = scratch("synth");
+    std::fs::create_dir_all(dir.join("cap.sigmf-data")).unwrap();
+    let stale = dir.join(".lobeflow-staging-1-0");
+    std::fs::create_dir_all(&stale).unwrap();
+    std::fs::write(stale.join("lock"), "").unwrap();
+    std::fs::write(stale.join("0000-cap.sigmf-data"), vec![0u8; 1000]).unwrap();
+    let scenario = root().join("samples/two-lobe-beacon.scenario.yaml");
+    let o = lobeflow(&["synth", scenario.to_str().unwrap(), "--out", dir.join("cap").to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("cap.sigmf-data is a folder"), "{}", stderr(&o));
+    assert_eq!(names(&dir), ["cap.sigmf-data"], "no truth file, no staging left, the stale one removed");
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -4,8 +4,8 @@
 //! frames have arrived instead of waiting for a full chunk, so results follow
 //! the input closely.
 //!
-//! Lag: whenever the source finds nothing waiting it has caught up with the
-//! input. From that moment on, a real-time input has delivered as many capture
+//! Lag: whenever the source has to wait for the input (10 ms or more) it has
+//! caught up with it. From that moment on, a real-time input has delivered as many capture
 //! seconds as wall-clock seconds passed; the samples taken since fall short of
 //! that by the lag.
 
@@ -33,6 +33,9 @@ pub enum Feed {
 /// most 64 KiB each): enough to ride out a slow step, small enough to say
 /// memory is bounded.
 const QUEUED_FEEDS: usize = 16;
+/// A wait for input at least this long means the reader had caught up with
+/// it (a full pipe hands over its next bytes within a thread switch).
+const CAUGHT_UP_WAIT: Duration = Duration::from_millis(10);
 /// Bytes one pipe read takes.
 const PIPE_READ: usize = 1 << 16;
 
@@ -207,13 +210,23 @@ impl LiveReader {
                     if self.components_ready() >= per_frame {
                         break;
                     }
-                    // Nothing waiting: processing has caught up with the input.
-                    self.caught_up = Some((Instant::now(), self.done_frames));
-                    self.monitor.set_lag(Duration::ZERO);
+                    let asked = Instant::now();
                     match self.rx.recv_timeout(wait) {
-                        Ok(feed) => self.accept(feed)?,
+                        Ok(feed) => {
+                            // A wait this long was for the input itself, not
+                            // for the pipe's reader thread: caught up.
+                            if self.caught_up.is_none() || asked.elapsed() >= CAUGHT_UP_WAIT {
+                                self.caught_up = Some((Instant::now(), self.done_frames));
+                                self.monitor.set_lag(Duration::ZERO);
+                            }
+                            self.accept(feed)?
+                        }
                         Err(RecvTimeoutError::Disconnected) => self.closed = true,
-                        Err(RecvTimeoutError::Timeout) => return Ok(None),
+                        Err(RecvTimeoutError::Timeout) => {
+                            self.caught_up = Some((Instant::now(), self.done_frames));
+                            self.monitor.set_lag(Duration::ZERO);
+                            return Ok(None);
+                        }
                     }
                 }
             }
@@ -232,11 +245,26 @@ impl CaptureReader for LiveReader {
         &self.info
     }
 
-    /// Blocks until frames arrive or the input ends.
+    /// Blocks until frames arrive or the input ends. Readers of whole
+    /// captures (`inspect`) are strict: an input ending inside a frame is an
+    /// error here, while a live run only warns (see `trailing_bytes`).
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
         loop {
-            if let Some(n) = self.read_available(max_frames, out, Duration::from_secs(1))? {
-                return Ok(n);
+            match self.read_available(max_frames, out, Duration::from_secs(1))? {
+                Some(0) if !self.partial.is_empty() => {
+                    let frame = self.info.frame_bytes();
+                    return Err(BlockError::at(
+                        format!(
+                            "{}: the data ends inside a frame: {} byte(s) left over at byte offset {} (a frame is {frame} bytes)",
+                            self.info.path,
+                            self.partial.len(),
+                            self.done_bytes - self.partial.len() as u64
+                        ),
+                        self.done_frames,
+                    ));
+                }
+                Some(n) => return Ok(n),
+                None => {}
             }
         }
     }
@@ -391,7 +419,7 @@ impl SampleFeeder {
 
     /// Push whole frames of decoded components, channel-interleaved.
     pub fn push_frames(&self, components: Vec<f32>) -> Result<(), String> {
-        if components.len() % self.components_per_frame != 0 {
+        if !components.len().is_multiple_of(self.components_per_frame) {
             return Err(format!(
                 "{} values are not whole frames of {} component(s)",
                 components.len(),

@@ -83,9 +83,12 @@ fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Er
     let show = !args.quiet && terminal::stderr_is_terminal();
     let progress = terminal::Progress::new(show);
     opts.progress = progress.callback();
+    // Handlers first: a signal while the blocks are built is acted on as
+    // soon as the watch starts.
+    let before = signals::install();
     let prepared = prepare(&graph, &opts, Vec::new())?;
     let live = prepared.is_live();
-    let watch = Watch::start(&opts, live, progress, args.stats && !args.quiet);
+    let watch = Watch::start(&opts, live, progress, args.stats && !args.quiet, before);
     let result = prepared.execute();
     *signal = watch.stop();
     let report = result?;
@@ -110,8 +113,8 @@ const LAG_EVERY: Duration = Duration::from_millis(250);
 const LAG_LINE_EVERY: Duration = Duration::from_secs(1);
 
 impl Watch {
-    fn start(opts: &RunOptions, live: bool, progress: terminal::Progress, stats: bool) -> Watch {
-        let before = signals::install();
+    /// `before`: signals counted before this run's handlers were installed.
+    fn start(opts: &RunOptions, live: bool, progress: terminal::Progress, stats: bool, before: u64) -> Watch {
         let done = Arc::new(AtomicBool::new(false));
         let (d, cancel, end_input, monitor) =
             (Arc::clone(&done), Arc::clone(&opts.cancel), Arc::clone(&opts.end_input), Arc::clone(&opts.live));

@@ -195,7 +195,7 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
         opts.out_dir.clone()
     } else {
         // Outputs are computed and dropped: stage them where nobody looks.
-        outputs::check_outputs(graph, &std::env::temp_dir(), opts.stream_table.as_deref())?;
+        outputs::check_printed_tables(graph, opts.stream_table.as_deref())?;
         std::env::temp_dir()
     };
     let staging = Staging::create(&staging_root)

@@ -113,20 +113,8 @@ pub fn check_outputs(graph: &ResolvedGraph, out_dir: &Path, stream_table: Option
             }
         }
     }
+    check_printed_tables(graph, stream_table)?;
     let mut outputs: Vec<(PathBuf, &str, &str)> = Vec::new();
-    let mut to_stdout = Vec::new();
-    if let Some(name) = stream_table {
-        let Some(i) = graph.block_index(name) else {
-            return Err(Error::Usage(format!("--stream {name}: the graph has no block named '{name}'")));
-        };
-        if graph.blocks[i].spec.kind != lobeflow_blocks::kinds::table_writer::SPEC.kind {
-            return Err(Error::Usage(format!(
-                "--stream {name}: block '{name}' is a {}, not a table_writer",
-                graph.blocks[i].spec.kind
-            )));
-        }
-        to_stdout.push(name.to_string());
-    }
     for b in &graph.blocks {
         for ps in b.spec.params {
             let (ParamType::OutputPath, Some(Value::Text(p))) = (&ps.ty, b.params.get(ps.name)) else {
@@ -135,10 +123,7 @@ pub fn check_outputs(graph: &ResolvedGraph, out_dir: &Path, stream_table: Option
             let place = |what: String| {
                 Error::Usage(format!("block '{}' ({}), parameter '{}' = '{p}': {what}", b.name, b.spec.kind, ps.name))
             };
-            if p.trim() == STDOUT_PATH && b.spec.kind == lobeflow_blocks::kinds::table_writer::SPEC.kind {
-                if !to_stdout.contains(&b.name) {
-                    to_stdout.push(b.name.clone());
-                }
+            if p.trim() == STDOUT_PATH && b.spec.kind == TABLE_KIND {
                 continue;
             }
             let resolved = PathBuf::from(output_path(out_dir, p));
@@ -168,6 +153,35 @@ pub fn check_outputs(graph: &ResolvedGraph, out_dir: &Path, stream_table: Option
                 }
                 outputs.push((file, b.name.as_str(), ps.name));
             }
+        }
+    }
+    Ok(())
+}
+
+const TABLE_KIND: &str = lobeflow_blocks::kinds::table_writer::SPEC.kind;
+
+/// `stream_table` names a table writer, and at most one table prints on
+/// standard output (it and those whose path is `-`).
+pub fn check_printed_tables(graph: &ResolvedGraph, stream_table: Option<&str>) -> Result<(), Error> {
+    let mut to_stdout = Vec::new();
+    if let Some(name) = stream_table {
+        let Some(i) = graph.block_index(name) else {
+            return Err(Error::Usage(format!("--stream {name}: the graph has no block named '{name}'")));
+        };
+        if graph.blocks[i].spec.kind != TABLE_KIND {
+            return Err(Error::Usage(format!(
+                "--stream {name}: block '{name}' is a {}, not a {TABLE_KIND}",
+                graph.blocks[i].spec.kind
+            )));
+        }
+        to_stdout.push(name.to_string());
+    }
+    for b in graph.blocks.iter().filter(|b| b.spec.kind == TABLE_KIND) {
+        let dash = b.spec.params.iter().any(|ps| {
+            matches!((&ps.ty, b.params.get(ps.name)), (ParamType::OutputPath, Some(Value::Text(p))) if p.trim() == STDOUT_PATH)
+        });
+        if dash && !to_stdout.contains(&b.name) {
+            to_stdout.push(b.name.clone());
         }
     }
     if to_stdout.len() > 1 {
