@@ -4,8 +4,10 @@
 //! frames have arrived instead of waiting for a full chunk, so results follow
 //! the input closely.
 //!
-//! Lag: whenever the source has to wait for the input (10 ms or more) it has
-//! caught up with it. From that moment on, a real-time input has delivered as many capture
+//! Lag: a pipe's reader thread marks each moment the pipe ran empty (the
+//! system's count of waiting bytes is 0); pushed samples count a wait for
+//! the application instead. At such a moment everything delivered was in
+//! hand, and from then on, a real-time input has delivered as many capture
 //! seconds as wall-clock seconds passed; the samples taken since fall short of
 //! that by the lag.
 
@@ -27,14 +29,17 @@ pub enum Feed {
     Frames(Vec<f32>),
     /// The input broke; the message says how.
     Failed(String),
+    /// The pipe held nothing more at this moment: everything the producer
+    /// had written by then came before this mark.
+    Drained(Instant),
 }
 
 /// Deliveries waiting between the pipe's reader thread and the source (at
 /// most 64 KiB each): enough to ride out a slow step, small enough to say
 /// memory is bounded.
 const QUEUED_FEEDS: usize = 16;
-/// A wait for input at least this long means the reader had caught up with
-/// it (a full pipe hands over its next bytes within a thread switch).
+/// Pushed samples: a wait for them at least this long means the reader had
+/// caught up with the application.
 const CAUGHT_UP_WAIT: Duration = Duration::from_millis(10);
 /// Bytes one pipe read takes.
 const PIPE_READ: usize = 1 << 16;
@@ -105,8 +110,12 @@ pub struct LiveReader {
     done_bytes: u64,
     done_frames: u64,
     closed: bool,
-    /// When the reader last found the input empty, and the frames taken then.
+    /// The last moment the input was known to be all in hand, and the
+    /// frames it had delivered by then.
     caught_up: Option<(Instant, u64)>,
+    /// The input marks when its pipe ran empty ([`Feed::Drained`]); without
+    /// marks (pushed samples), a wait for input is taken as being caught up.
+    marked: bool,
     monitor: Arc<LiveMonitor>,
 }
 
@@ -122,6 +131,7 @@ impl LiveReader {
             done_frames: 0,
             closed: false,
             caught_up: None,
+            marked: false,
             monitor: Arc::new(LiveMonitor::default()),
         }
     }
@@ -140,9 +150,24 @@ impl LiveReader {
         self.ready.len() - self.taken
     }
 
+    /// Frames delivered so far, handed out or not.
+    fn frames_received(&self) -> u64 {
+        self.done_frames + (self.components_ready() / self.info.components_per_frame().max(1)) as u64
+    }
+
     /// Take in one delivery.
     fn accept(&mut self, feed: Feed) -> Result<(), BlockError> {
+        if self.caught_up.is_none() {
+            // The input's start: from here a real-time input delivers a
+            // capture second per second.
+            self.caught_up = Some((Instant::now(), 0));
+        }
         match feed {
+            Feed::Drained(at) => {
+                self.marked = true;
+                self.caught_up = Some((at, self.frames_received()));
+                Ok(())
+            }
             Feed::Bytes(bytes) => {
                 self.done_bytes += bytes.len() as u64;
                 self.partial.extend_from_slice(&bytes);
@@ -183,8 +208,10 @@ impl LiveReader {
         self.done_frames += frames as u64;
         self.monitor.frames.store(self.done_frames, Ordering::Relaxed);
         if let Some((since, frames_then)) = self.caught_up {
+            // Input delivered since then at the real-time pace, less what
+            // was taken since (negative while a backlog from before remains).
             let arrived = since.elapsed().as_secs_f64();
-            let taken = (self.done_frames - frames_then) as f64 / self.info.rate;
+            let taken = (self.done_frames as f64 - frames_then as f64) / self.info.rate;
             self.monitor.set_lag(Duration::from_secs_f64((arrived - taken).max(0.0)));
         }
         frames
@@ -213,17 +240,18 @@ impl LiveReader {
                     let asked = Instant::now();
                     match self.rx.recv_timeout(wait) {
                         Ok(feed) => {
-                            // A wait this long was for the input itself, not
-                            // for the pipe's reader thread: caught up.
-                            if self.caught_up.is_none() || asked.elapsed() >= CAUGHT_UP_WAIT {
-                                self.caught_up = Some((Instant::now(), self.done_frames));
-                                self.monitor.set_lag(Duration::ZERO);
+                            // Pushed samples carry no marks: a wait this long
+                            // was for the application, so it was caught up.
+                            if !self.marked && asked.elapsed() >= CAUGHT_UP_WAIT {
+                                self.caught_up = Some((Instant::now(), self.frames_received()));
                             }
                             self.accept(feed)?
                         }
                         Err(RecvTimeoutError::Disconnected) => self.closed = true,
                         Err(RecvTimeoutError::Timeout) => {
-                            self.caught_up = Some((Instant::now(), self.done_frames));
+                            if !self.marked {
+                                self.caught_up = Some((Instant::now(), self.frames_received()));
+                            }
                             self.monitor.set_lag(Duration::ZERO);
                             return Ok(None);
                         }
@@ -282,7 +310,7 @@ impl CaptureReader for LiveReader {
 /// `open` runs on that thread too (opening a FIFO waits for its writer).
 pub fn read_on_thread<R, F>(open: F) -> Receiver<Feed>
 where
-    R: Read,
+    R: Read + PipeLevel,
     F: FnOnce() -> std::io::Result<R> + Send + 'static,
 {
     let (tx, rx) = bounded(QUEUED_FEEDS);
@@ -295,7 +323,29 @@ where
     rx
 }
 
-fn pump<R: Read, F: FnOnce() -> std::io::Result<R>>(open: F, tx: &Sender<Feed>) {
+/// Bytes waiting in a pipe, where the system can tell.
+pub trait PipeLevel {
+    fn waiting_bytes(&self) -> Option<usize>;
+}
+
+#[cfg(unix)]
+impl<T: std::os::fd::AsRawFd> PipeLevel for T {
+    fn waiting_bytes(&self) -> Option<usize> {
+        let mut n: libc::c_int = 0;
+        // SAFETY: FIONREAD writes one int through the pointer we pass.
+        let ok = unsafe { libc::ioctl(self.as_raw_fd(), libc::FIONREAD, &mut n) } == 0;
+        ok.then_some(n.max(0) as usize)
+    }
+}
+
+#[cfg(not(unix))]
+impl<T> PipeLevel for T {
+    fn waiting_bytes(&self) -> Option<usize> {
+        None
+    }
+}
+
+fn pump<R: Read + PipeLevel, F: FnOnce() -> std::io::Result<R>>(open: F, tx: &Sender<Feed>) {
     let mut input = match open() {
         Ok(r) => r,
         Err(e) => {
@@ -308,8 +358,13 @@ fn pump<R: Read, F: FnOnce() -> std::io::Result<R>>(open: F, tx: &Sender<Feed>) 
         match input.read(&mut buf) {
             Ok(0) => return,
             Ok(n) => {
+                let drained = input.waiting_bytes() == Some(0);
+                let at = Instant::now();
                 if tx.send(Feed::Bytes(buf[..n].to_vec())).is_err() {
                     return; // the run ended
+                }
+                if drained && tx.send(Feed::Drained(at)).is_err() {
+                    return;
                 }
             }
             Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
