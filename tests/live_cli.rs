@@ -106,27 +106,26 @@ fn first_rows_arrive_before_a_slow_producer_finishes() {
 #[test]
 fn a_run_that_falls_behind_a_real_time_input_says_so() {
     let out = scratch("behind");
-    // The beacon bytes said to be 100 MS/s and written at that pace: 0.3 s
-    // of capture that takes seconds to process.
+    // The beacon bytes said to be 100 MS/s, from a receiver faster than the
+    // graph: standard input is a file of them, which never runs dry before
+    // its end, so 0.3 s of capture takes seconds to process.
+    let capture = out.join("fast.cu8");
+    let bytes = beacon_bytes();
+    let mut f = std::fs::File::create(&capture).unwrap();
+    for _ in 0..20 {
+        f.write_all(&bytes).unwrap();
+    }
+    drop(f);
     let mut child = Command::new(env!("CARGO_BIN_EXE_lobeflow"))
         .current_dir(root())
         .args(["run", "graphs/two-lobe-beacon.yaml", "--input", "-", "--datatype", "cu8", "--rate", "100MS/s"])
         .args(["--set", "dwell=2ms", "--set", "first_start=0", "--set", "guard=0.1ms", "--stats", "--out"])
-        .arg(&out)
-        .stdin(Stdio::piped())
+        .arg(out.join("out"))
+        .stdin(std::fs::File::open(&capture).unwrap())
         .stdout(Stdio::null())
         .stderr(Stdio::piped())
         .spawn()
         .unwrap();
-    let mut stdin = child.stdin.take().unwrap();
-    let bytes = beacon_bytes();
-    let start = Instant::now();
-    for k in 0..20 {
-        // 1.5 M samples: 15 ms at the stated rate.
-        std::thread::sleep((start + Duration::from_millis(15 * k)).saturating_duration_since(Instant::now()));
-        stdin.write_all(&bytes).unwrap();
-    }
-    drop(stdin);
     let err = stderr_text(&mut child);
     assert!(child.wait().unwrap().success(), "{err}");
     assert!(err.contains("note: processing fell behind the live input by up to"), "{err}");

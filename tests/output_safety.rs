@@ -166,7 +166,12 @@ fn staging_left_by_a_killed_run_is_removed_by_the_next_and_a_live_one_is_not() {
         .spawn()
         .unwrap();
     let mut waited = 0;
-    while !names(&out).iter().any(|n| n.starts_with(".lobeflow-staging-")) {
+    // Wait until its blocks are built: the staging folder holds its lock and
+    // the tables' unfinished files.
+    let staged = |out: &Path| {
+        names(out).iter().filter(|n| n.starts_with(".lobeflow-staging-")).any(|n| names(&out.join(n)).len() >= 3)
+    };
+    while !staged(&out) {
         std::thread::sleep(Duration::from_millis(20));
         waited += 1;
         assert!(waited < 500, "the run made its staging folder");

@@ -4,8 +4,8 @@
 //! frames have arrived instead of waiting for a full chunk, so results follow
 //! the input closely.
 //!
-//! Lag: a pipe's reader thread marks each moment the pipe ran empty (the
-//! system's count of waiting bytes is 0); pushed samples count a wait for
+//! Lag: a pipe's reader thread marks each moment it finds the pipe empty
+//! before a read (the system's count of waiting bytes is 0); pushed samples count a wait for
 //! the application instead. At such a moment everything delivered was in
 //! hand, and from then on, a real-time input has delivered as many capture
 //! seconds as wall-clock seconds passed; the samples taken since fall short of
@@ -355,16 +355,18 @@ fn pump<R: Read + PipeLevel, F: FnOnce() -> std::io::Result<R>>(open: F, tx: &Se
     };
     let mut buf = vec![0u8; PIPE_READ];
     loop {
+        // Checked before the read: right after one, a writer that was blocked
+        // on the full pipe may not have refilled it yet. Here the thread has
+        // just handed its last bytes on (waiting while the run was behind),
+        // so an empty pipe means the producer had nothing more.
+        if input.waiting_bytes() == Some(0) && tx.send(Feed::Drained(Instant::now())).is_err() {
+            return;
+        }
         match input.read(&mut buf) {
             Ok(0) => return,
             Ok(n) => {
-                let drained = input.waiting_bytes() == Some(0);
-                let at = Instant::now();
                 if tx.send(Feed::Bytes(buf[..n].to_vec())).is_err() {
                     return; // the run ended
-                }
-                if drained && tx.send(Feed::Drained(at)).is_err() {
-                    return;
                 }
             }
             Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
