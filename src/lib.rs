@@ -32,9 +32,10 @@ pub mod runtime;
 pub mod session;
 pub mod synth;
 
+pub use capture::live::{PushFormat, SampleFeeder};
 pub use error::Error;
 pub use lobeflow_blocks as blocks;
-pub use session::{ItemStream, Session};
+pub use session::{ItemStream, PortStream, Session};
 
 /// Every block kind the `lobeflow` command knows: the standard DSP blocks of
 /// `lobeflow-blocks` plus the file readers, writers and pictures of this crate.

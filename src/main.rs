@@ -13,6 +13,47 @@ struct Cli {
     command: Command,
 }
 
+/// How to read the capture, for every capture reader of the graph.
+#[derive(clap::Args)]
+struct CaptureFlags {
+    /// Capture container: auto, wav, sigmf or raw (standard input and FIFOs are raw).
+    #[arg(long)]
+    format: Option<String>,
+    /// SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, ...).
+    #[arg(long)]
+    datatype: Option<String>,
+    /// Sample rate, e.g. 1.024MS/s (needed for raw data).
+    #[arg(long)]
+    rate: Option<String>,
+    /// Channels in raw data.
+    #[arg(long)]
+    channels: Option<usize>,
+    /// Channel roles, comma-separated (i,q,sync,trigger,- or iq,sync,trigger,-).
+    #[arg(long)]
+    roles: Option<String>,
+}
+
+impl CaptureFlags {
+    /// The capture reader parameters these flags set, as (name, value).
+    fn params(self) -> Vec<(&'static str, String)> {
+        let mut p = Vec::new();
+        // A datatype alone means raw data: the format need not be said too.
+        let format = self.format.or_else(|| self.datatype.as_ref().map(|_| "raw".to_string()));
+        for (name, value) in [
+            ("format", format),
+            ("datatype", self.datatype),
+            ("rate", self.rate),
+            ("channels", self.channels.map(|c| c.to_string())),
+            ("roles", self.roles),
+        ] {
+            if let Some(v) = value {
+                p.push((name, v));
+            }
+        }
+        p
+    }
+}
+
 #[derive(Subcommand)]
 enum Command {
     /// Run a graph on a capture and write its outputs.
@@ -40,12 +81,24 @@ enum Command {
         /// Worker threads (default: one per core).
         #[arg(long)]
         threads: Option<usize>,
+        #[command(flatten)]
+        capture: CaptureFlags,
+        /// Print the rows of this table writer block on standard output as
+        /// they are made (e.g. --stream angles); the table file is still written.
+        #[arg(long, value_name = "TABLE")]
+        stream: Option<String>,
+        /// Format of the printed table: csv or jsonl (default: the table's own).
+        #[arg(long, value_name = "FORMAT", requires = "stream")]
+        stream_format: Option<String>,
     },
     /// Validate a graph and print it resolved: blocks, wires, knob values and their origins.
     Check {
         graph: PathBuf,
         #[arg(long)]
         input: Option<PathBuf>,
+        /// The output folder a run would use (outputs are checked against it).
+        #[arg(long, default_value = "out")]
+        out: PathBuf,
         #[arg(long = "set", value_name = "NAME=VALUE")]
         set: Vec<String>,
         #[arg(long)]
@@ -193,14 +246,33 @@ fn main() {
 
 fn dispatch(cli: Cli) -> Result<(), Error> {
     match cli.command {
-        Command::Run { graph, input, out, set, params, stats, quiet, threads } => {
+        Command::Run { graph, input, out, set, params, stats, quiet, threads, capture, stream, stream_format } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            let args = commands::run::RunArgs { graph, overrides, out_dir: out, threads, quiet, stats };
-            commands::run::run_graph(&args).map(|_| ())
+            let args = commands::run::RunArgs {
+                graph,
+                overrides,
+                out_dir: out,
+                threads,
+                quiet,
+                stats,
+                capture: capture.params(),
+                stream,
+                stream_format,
+            };
+            match commands::run::run_with_exit(&args) {
+                (Ok(_), None) => Ok(()),
+                (result, Some(code)) => {
+                    if let Err(e) = result {
+                        eprintln!("error: {e}");
+                    }
+                    std::process::exit(code)
+                }
+                (Err(e), None) => Err(e),
+            }
         }
-        Command::Check { graph, input, set, params } => {
+        Command::Check { graph, input, out, set, params } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            print!("{}", commands::check::check(&graph, &overrides)?);
+            print!("{}", commands::check::check_with_out(&graph, &overrides, &out)?);
             Ok(())
         }
         Command::Regress { dir, report, junit, update, out, jobs } => {

@@ -56,12 +56,12 @@ fn run_tapped(graph: &Path, ports: &[&str], threads: usize, out: &Path) -> Resul
     let mut receivers = Vec::new();
     for p in ports {
         let (tx, rx) = crossbeam_channel::unbounded();
-        taps.push(Tap { port: p.to_string(), sender: tx, waker: None });
+        taps.push(Tap { port: p.to_string(), sender: tx, index: 0, waker: None });
         receivers.push(rx);
     }
     let opts = RunOptions { threads, out_dir: out.to_path_buf(), ..RunOptions::default() };
     run(&g, &opts, taps)?;
-    Ok(receivers.into_iter().map(|rx| rx.try_iter().collect()).collect())
+    Ok(receivers.into_iter().map(|rx| rx.try_iter().map(|(_, item)| item).collect()).collect())
 }
 
 fn estimates(items: &[Item]) -> Vec<AngleEstimate> {

@@ -38,11 +38,12 @@
 //! ```
 
 use crate::item::{Item, ItemKind, Notice, Stamp};
+pub use crate::output_file::FileStager;
 use crate::param::{ParamSpec, Params};
 use std::collections::BTreeMap;
 use std::fmt;
-use std::path::{Path, PathBuf};
-use std::sync::{Arc, Mutex};
+use std::path::PathBuf;
+use std::sync::Arc;
 
 /// What went wrong inside a block; the scheduler adds the block's name.
 #[derive(Debug, Clone, PartialEq)]
@@ -173,44 +174,6 @@ impl PortSpec {
     }
 }
 
-/// Files a run writes: each is written under a temporary name and renamed
-/// into place only when the whole graph has succeeded, so a failed or
-/// interrupted run never leaves output that looks complete.
-#[derive(Clone, Default)]
-pub struct FileStager {
-    staged: Arc<Mutex<Vec<(PathBuf, PathBuf)>>>,
-}
-
-impl FileStager {
-    /// The temporary path to write instead of `final_path`.
-    pub fn temp_path(final_path: &Path) -> PathBuf {
-        let mut name = final_path.file_name().map(|n| n.to_os_string()).unwrap_or_default();
-        name.push(format!(".{}.tmp-lobeflow", std::process::id()));
-        final_path.with_file_name(name)
-    }
-    /// Record that `temp` is complete and should become `final_path`.
-    pub fn stage(&self, temp: PathBuf, final_path: PathBuf) {
-        self.staged.lock().unwrap_or_else(|e| e.into_inner()).push((temp, final_path));
-    }
-    /// Rename every staged file into place (on success).
-    pub fn commit(&self) -> std::io::Result<Vec<PathBuf>> {
-        let staged = std::mem::take(&mut *self.staged.lock().unwrap_or_else(|e| e.into_inner()));
-        let mut done = Vec::new();
-        for (tmp, fin) in staged {
-            std::fs::rename(&tmp, &fin)?;
-            done.push(fin);
-        }
-        Ok(done)
-    }
-    /// Delete every staged file (on failure).
-    pub fn discard(&self) {
-        let staged = std::mem::take(&mut *self.staged.lock().unwrap_or_else(|e| e.into_inner()));
-        for (tmp, _) in staged {
-            let _ = std::fs::remove_file(tmp);
-        }
-    }
-}
-
 /// What a block's constructor may need besides its parameters.
 #[derive(Clone, Default)]
 pub struct BuildContext {
@@ -246,7 +209,7 @@ impl BlockSpec {
 /// instance (an external program describes itself): given the parameters of
 /// the kind's own declaration that the graph set, and the folder of the
 /// graph file declaring the instance, it returns the instance's declaration.
-pub type DescribeFn = fn(&Params, &Path) -> Result<BlockSpec, String>;
+pub type DescribeFn = fn(&Params, &std::path::Path) -> Result<BlockSpec, String>;
 
 /// The block kinds a graph may use, by name.
 #[derive(Clone, Default)]

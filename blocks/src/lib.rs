@@ -23,7 +23,7 @@ pub use block::{
     Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
 };
 pub use item::*;
-pub use output_file::OutputFile;
+pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
 
 /// A registry holding every standard block kind of this crate.

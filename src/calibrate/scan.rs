@@ -72,11 +72,11 @@ pub fn collect_dwells(
     opts: &RunOptions,
 ) -> Result<(Vec<DwellRecord>, RunReport), Error> {
     let (tx, rx) = crossbeam_channel::bounded(1024);
-    let tap = Tap { port: disc.dwell_port.clone(), sender: tx, waker: None };
+    let tap = Tap { port: disc.dwell_port.clone(), sender: tx, index: 0, waker: None };
     let (g, o) = (graph.clone(), opts.clone());
     let handle = std::thread::spawn(move || run(&g, &o, vec![tap]));
     let mut dwells = Vec::new();
-    for item in rx.iter() {
+    for (_, item) in rx.iter() {
         if let Item::Dwell(d) = item {
             dwells.push(d);
         }

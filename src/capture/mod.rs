@@ -2,13 +2,13 @@
 //! input) in chunks, and writing derived streams.
 
 pub mod datatype;
+pub mod live;
 pub mod raw;
 pub mod reader;
 pub mod roles;
 pub mod sigmf;
 pub mod sigmf_meta;
 pub mod source;
-pub mod stdin;
 pub mod wav;
 
 pub use datatype::{DataType, SampleFormat};

@@ -178,6 +178,11 @@ pub trait CaptureReader: Send {
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError>;
     /// Bytes of sample data read so far.
     fn bytes_read(&self) -> u64;
+    /// A live input (a pipe, a FIFO, pushed samples): read without waiting
+    /// for whole chunks.
+    fn as_live(&mut self) -> Option<&mut super::live::LiveReader> {
+        None
+    }
 }
 
 /// Most bytes one read takes in, so wide frames with a large `max_frames`
@@ -299,25 +304,46 @@ pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, Bl
         Format::Auto => guess_format(path, opts)?,
         f => f,
     };
-    if path == "-" && format != Format::Raw {
+    if is_pipe(path) && format != Format::Raw {
+        let what = if path == "-" { "standard input".to_string() } else { format!("{path} (a FIFO or device)") };
         return Err(BlockError::new(format!(
-            "standard input can only be read as raw data (format raw with a datatype and a rate), not as {}",
+            "{what} can only be read as a stream of raw data (format raw with a datatype and a rate), not as {}",
             format.name()
         )));
     }
     match format {
         Format::Wav => super::wav::open_wav(path, opts),
         Format::Sigmf => super::sigmf::open_sigmf(path, opts),
-        Format::Raw if path == "-" => super::stdin::open_stdin(opts),
+        Format::Raw if is_pipe(path) => Ok(Box::new(super::live::open_pipe(path, opts)?)),
         Format::Raw | Format::Auto => super::raw::open_raw(path, opts),
     }
 }
 
-fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
+/// Standard input, a FIFO or a character device: read as a live stream
+/// (no length, no seeking, nothing read ahead to guess a format).
+pub fn is_pipe(path: &str) -> bool {
     if path == "-" {
-        return Err(BlockError::new(
-            "standard input ('-') needs format raw, a datatype (e.g. cu8) and a rate; the format cannot be guessed from a pipe",
-        ));
+        return true;
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileTypeExt;
+        std::fs::metadata(path).is_ok_and(|m| m.file_type().is_fifo() || m.file_type().is_char_device())
+    }
+    #[cfg(not(unix))]
+    false
+}
+
+fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
+    if is_pipe(path) {
+        let ext = Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();
+        if opts.datatype.is_some() || DataType::parse(&ext).is_ok() {
+            return Ok(Format::Raw);
+        }
+        let what = if path == "-" { "standard input ('-')".to_string() } else { format!("{path} (a FIFO or device)") };
+        return Err(BlockError::new(format!(
+            "{what} needs format raw, a datatype (e.g. cu8) and a rate; the format cannot be guessed from a stream"
+        )));
     }
     let p = Path::new(path);
     let ext = p.extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();

@@ -373,7 +373,7 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
 
 /// Whole groups of four (I, Q, sync) frames; returns the frames done.
 #[cfg(target_arch = "x86_64")]
-#[allow(unsafe_code)] // SSE shuffles; the one `unsafe` of the workspace.
+#[allow(unsafe_code)] // SSE shuffles
 fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> usize {
     use std::arch::x86_64::{_mm_loadu_ps, _mm_shuffle_ps, _mm_storeu_ps};
     let groups = frames.as_chunks::<12>().0;

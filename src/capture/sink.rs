@@ -113,7 +113,8 @@ impl CaptureSink {
             let mut cfg = WriterConfig::new(self.format, stamp.rate);
             cfg.aux = self.aux.clone();
             cfg.description = Some("derived stream written by lobeflow capture_writer".into());
-            let w = CaptureWriter::create(&self.path, cfg).map_err(|e| BlockError::at(e, stamp.index))?;
+            let w = CaptureWriter::create_staged(&self.path, cfg, &self.files)
+                .map_err(|e| BlockError::at(e, stamp.index))?;
             self.writer = Some(w);
         }
         let Some(writer) = self.writer.as_mut() else {

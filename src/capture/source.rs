@@ -1,12 +1,16 @@
 //! `capture_reader`: reads a capture (WAV, SigMF, raw file or standard input)
 //! and emits its samples in chunks, stamped from sample 0 at the file's rate.
 
+use super::live::{LiveEnd, LiveMonitor, PushedInput};
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
 use lobeflow_blocks::{
     Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec, Stamp,
     Unit,
 };
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Duration;
 
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "capture_reader",
@@ -81,12 +85,39 @@ pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
     })
 }
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let path = p.text("path")?;
-    let reader = open(path, &open_options(p)?).map_err(|e| e.to_string())?;
-    let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
-    Ok(Box::new(CaptureSource::new(reader, roles, p.int("chunk")? as usize, NonFinite::parse(p.text("nonfinite")?)?)))
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+    build_in_run(p, ctx, &RunHooks::default())
 }
+
+/// What a run gives its capture readers besides the parameters.
+#[derive(Clone, Default)]
+pub struct RunHooks {
+    /// Samples pushed from memory instead of the file the path names.
+    pub pushed: Option<PushedInput>,
+    /// Progress and lag of a live input.
+    pub monitor: Option<Arc<LiveMonitor>>,
+}
+
+/// Build a capture reader for a run: a pushed input when there is one, the
+/// path otherwise. A live input ends early when the run's `end_input` is raised.
+pub fn build_in_run(p: &Params, ctx: &BuildContext, hooks: &RunHooks) -> Result<Box<dyn Block>, String> {
+    let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
+        Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
+        None => open(p.text("path")?, &open_options(p)?).map_err(|e| e.to_string())?,
+    };
+    if let (Some(live), Some(monitor)) = (reader.as_live(), &hooks.monitor) {
+        live.watch(Arc::clone(monitor));
+    }
+    let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
+    let mut source =
+        CaptureSource::new(reader, roles, p.int("chunk")? as usize, NonFinite::parse(p.text("nonfinite")?)?);
+    source.end_input = Some(Arc::clone(&ctx.files.policy().end_input));
+    Ok(Box::new(source))
+}
+
+/// How long a live source waits for input before it lets the scheduler look
+/// at a stop request.
+const LIVE_WAIT: Duration = Duration::from_millis(20);
 
 pub struct CaptureSource {
     reader: Box<dyn CaptureReader>,
@@ -102,6 +133,8 @@ pub struct CaptureSource {
     /// SigMF capture segments after the first: (first sample, centre frequency).
     segments: Vec<(u64, Option<f64>)>,
     segments_seen: usize,
+    /// Raised to end a live input early (Ctrl-C on a live run).
+    end_input: Option<Arc<AtomicBool>>,
 }
 
 /// Segment-start notices shown one by one before the rest are only counted.
@@ -128,6 +161,7 @@ impl CaptureSource {
             pools: ChunkPools::default(),
             segments: later_segments(reader.as_ref()),
             segments_seen: 0,
+            end_input: None,
             reader,
         }
     }
@@ -160,8 +194,89 @@ impl CaptureSource {
     }
 }
 
+impl CaptureSource {
+    /// Notices due when the data has ended.
+    fn end_notices(&mut self, out: &mut Outputs) {
+        let unseen = self.segments.len() - self.segments_seen;
+        if self.segments_seen > SEGMENT_NOTICES || unseen > 0 {
+            let info = self.reader.info();
+            out.notice(
+                Stamp::new(self.next, info.rate),
+                format!(
+                    "{}: {} capture segments after the first ({unseen} starting at or past the end of the data)",
+                    info.meta_path.as_deref().unwrap_or(&info.path),
+                    self.segments.len()
+                ),
+            );
+        }
+        if self.replaced.count > 0 {
+            let info = self.reader.info();
+            let first = self.replaced.first_sample.unwrap_or(0);
+            out.notice(
+                Stamp::new(first, info.rate),
+                format!(
+                    "{}: replaced {} non-finite value(s) by 0, the first at sample {first}",
+                    info.path, self.replaced.count
+                ),
+            );
+        }
+    }
+
+    /// Emit the `n` frames read into `self.frames` as one chunk.
+    fn emit(&mut self, n: usize, out: &mut Outputs) -> Result<(), BlockError> {
+        self.segment_notices(n as u64, out);
+        let chunk = self.roles.chunk(
+            &mut self.frames,
+            self.next,
+            self.reader.info(),
+            self.nonfinite,
+            &mut self.replaced,
+            &self.pools,
+        )?;
+        self.next += n as u64;
+        out.push(0, Item::Samples(chunk));
+        Ok(())
+    }
+
+    /// A live input: emit whatever whole frames have arrived.
+    fn generate_live(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        let stop = self.end_input.as_ref().is_some_and(|f| f.load(Ordering::SeqCst));
+        let next = self.next;
+        let live = self.reader.as_live().expect("a live reader");
+        if stop {
+            live.monitor().end(LiveEnd::Stopped, next);
+            self.end_notices(out);
+            return Ok(false);
+        }
+        match live.read_available(self.chunk, &mut self.frames, LIVE_WAIT)? {
+            None => Ok(true),
+            Some(0) => {
+                let partial = live.trailing_bytes();
+                live.monitor().end(LiveEnd::Closed, next);
+                let info = self.reader.info();
+                if partial > 0 {
+                    out.notice(
+                        Stamp::new(next, info.rate),
+                        format!(
+                            "{}: the input ended inside a frame: the last {partial} byte(s), after sample {next}, were left out (a frame is {} bytes)",
+                            info.path,
+                            info.frame_bytes()
+                        ),
+                    );
+                }
+                self.end_notices(out);
+                Ok(false)
+            }
+            Some(n) => self.emit(n, out).map(|_| true),
+        }
+    }
+}
+
 impl Block for CaptureSource {
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        if self.reader.as_live().is_some() {
+            return self.generate_live(out);
+        }
         if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
             // Plain (I, Q) chunks take the read buffer over: read into a returned one.
             self.frames = from_complex(self.pools.iq.take_as_left());
@@ -176,43 +291,12 @@ impl Block for CaptureSource {
             self.frames.extend_from_slice(&self.part);
             n += more;
         }
-        self.segment_notices(n as u64, out);
         if n == 0 {
-            let unseen = self.segments.len() - self.segments_seen;
-            if self.segments_seen > SEGMENT_NOTICES || unseen > 0 {
-                let info = self.reader.info();
-                out.notice(
-                    Stamp::new(self.next, info.rate),
-                    format!(
-                        "{}: {} capture segments after the first ({unseen} starting at or past the end of the data)",
-                        info.meta_path.as_deref().unwrap_or(&info.path),
-                        self.segments.len()
-                    ),
-                );
-            }
-            if self.replaced.count > 0 {
-                let info = self.reader.info();
-                let first = self.replaced.first_sample.unwrap_or(0);
-                out.notice(
-                    Stamp::new(first, info.rate),
-                    format!(
-                        "{}: replaced {} non-finite value(s) by 0, the first at sample {first}",
-                        info.path, self.replaced.count
-                    ),
-                );
-            }
+            self.segment_notices(0, out);
+            self.end_notices(out);
             return Ok(false);
         }
-        let chunk = self.roles.chunk(
-            &mut self.frames,
-            self.next,
-            self.reader.info(),
-            self.nonfinite,
-            &mut self.replaced,
-            &self.pools,
-        )?;
-        self.next += n as u64;
-        out.push(0, Item::Samples(chunk));
+        self.emit(n, out)?;
         Ok(true)
     }
 

@@ -198,13 +198,18 @@ impl CaptureWriter {
     /// Start writing to `path` (for SigMF: the `.sigmf-data` path; the meta
     /// file goes beside it with the `.sigmf-meta` extension).
     pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, String> {
+        Self::create_staged(path, config, &FileStager::default())
+    }
+
+    /// As [`CaptureWriter::create`], the files kept by `stager` until its commit.
+    pub fn create_staged(path: &Path, config: WriterConfig, stager: &FileStager) -> Result<CaptureWriter, String> {
         if !(config.rate.is_finite() && config.rate > 0.0) {
             return Err(format!("sample rate {} is not a positive number", config.rate));
         }
         if !(config.scale.is_finite() && config.scale > 0.0) {
             return Err(format!("IQ scale {} is not a positive number", config.scale));
         }
-        let open = |p: &Path| OutputFile::create(p).map_err(|e| format!("cannot write {}: {e}", p.display()));
+        let open = |p: &Path| stager.create(p).map_err(|e| format!("cannot write {}: {e}", p.display()));
         let sink = match config.format {
             WriteFormat::WavF32 | WriteFormat::WavI16 => {
                 let rate = config.rate.round();
@@ -353,7 +358,7 @@ impl CaptureWriter {
             }
             Sink::Sigmf { data, meta_path, .. } => {
                 data.finish(stager).map_err(|e| io_err(&path, e))?;
-                let mut meta_file = OutputFile::create(&meta_path).map_err(|e| io_err(&meta_path, e))?;
+                let mut meta_file = stager.create(&meta_path).map_err(|e| io_err(&meta_path, e))?;
                 let json = serde_json::to_string_pretty(&meta).map_err(|e| format!("SigMF metadata: {e}"))?;
                 meta_file
                     .write_all(json.as_bytes())

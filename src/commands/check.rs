@@ -9,7 +9,14 @@ use std::path::Path;
 /// Resolve `path` and describe it: settings (value and origin), blocks with
 /// every parameter and where it came from, and the wires.
 pub fn check(path: &Path, overrides: &Overrides) -> Result<String, Error> {
+    check_with_out(path, overrides, Path::new("out"))
+}
+
+/// As [`check`], the outputs checked as a run with `--out out_dir` would
+/// write them (inside the folder, none the same as an input or another output).
+pub fn check_with_out(path: &Path, overrides: &Overrides, out_dir: &Path) -> Result<String, Error> {
     let g = resolve(path, overrides, &crate::registry())?;
+    crate::runtime::outputs::check_outputs(&g, out_dir, None)?;
     Ok(describe(&g))
 }
 

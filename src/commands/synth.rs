@@ -15,6 +15,9 @@ pub fn synth(scenario: &Path, prefix: &Path) -> Result<(SynthReport, String), Er
     let report = synthesize(&file, prefix)
         .map_err(|e| if e.starts_with(&scenario.display().to_string()) { Error::Input(e) } else { Error::Output(e) })?;
     let mut s = String::new();
+    for r in &report.remarks {
+        let _ = writeln!(s, "note: {r}");
+    }
     let _ = writeln!(s, "{} samples, {} dwells; IQ scaled by {:e}", report.samples, report.dwells, report.scale);
     if let Some(steps) = report.noise_steps.filter(|&st| st < FEW_STEPS) {
         let _ = writeln!(

@@ -14,7 +14,7 @@ pub mod lobe_timeline;
 pub mod range_trace;
 pub mod split_pair;
 
-use lobeflow_blocks::{BlockError, FileStager, OutputFile};
+use lobeflow_blocks::{BlockError, FileStager};
 use plotters::coord::Shift;
 use plotters::coord::types::RangedCoordf64;
 use plotters::prelude::*;
@@ -110,14 +110,14 @@ pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) ->
     let png_path = PathBuf::from(format!("{base}.png"));
     let svg_path = PathBuf::from(format!("{base}.svg"));
     write_png(&png_path, w, h, &rgb, files)?;
-    let mut f = OutputFile::create(&svg_path).map_err(|e| file_err(&svg_path, e))?;
+    let mut f = files.create(&svg_path).map_err(|e| file_err(&svg_path, e))?;
     std::io::Write::write_all(&mut f, svg.as_bytes()).map_err(|e| file_err(&svg_path, e))?;
     f.finish(files).map_err(|e| file_err(&svg_path, e))?;
     Ok(vec![png_path, svg_path])
 }
 
 fn write_png(path: &Path, w: u32, h: u32, rgb: &[u8], files: &FileStager) -> Result<(), BlockError> {
-    let mut f = OutputFile::create(path).map_err(|e| file_err(path, e))?;
+    let mut f = files.create(path).map_err(|e| file_err(path, e))?;
     {
         let mut encoder = png::Encoder::new(f.writer(), w, h);
         encoder.set_color(png::ColorType::Rgb);

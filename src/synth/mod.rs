@@ -7,8 +7,9 @@ pub mod scenario;
 pub mod truth;
 
 use crate::capture::write::{CaptureWriter, WriterConfig, commit_staged};
+use crate::runtime::staging;
 use generate::{Frames, Generator, Model};
-use lobeflow_blocks::FileStager;
+use lobeflow_blocks::{DeliveryPolicy, FileStager};
 use scenario::ScenarioFile;
 use std::path::{Path, PathBuf};
 
@@ -22,6 +23,8 @@ pub struct SynthReport {
     pub scale: f64,
     /// Noise rms per component in quantisation steps, for integer formats.
     pub noise_steps: Option<f64>,
+    /// Staging folders of earlier runs that did not finish, removed.
+    pub remarks: Vec<String>,
 }
 
 /// `PREFIX` plus `suffix`, keeping any dots already in the prefix.
@@ -48,8 +51,17 @@ pub fn synthesize(file: &ScenarioFile, prefix: &Path) -> Result<SynthReport, Str
         model.scale,
         model.scale * model.scale
     ));
-    let mut writer = CaptureWriter::create(&paths[0], cfg)?;
-    let stager = FileStager::default();
+    // Files are staged in a private folder beside the prefix, as a run's are
+    // inside its output folder, and committed together.
+    let folder = match prefix.parent().filter(|p| !p.as_os_str().is_empty()) {
+        Some(p) => p.to_path_buf(),
+        None => PathBuf::from("."),
+    };
+    std::fs::create_dir_all(&folder).map_err(|e| format!("cannot create {}: {e}", folder.display()))?;
+    let remarks = staging::remove_stale(&folder);
+    let staged = staging::Staging::create(&folder).map_err(|e| format!("cannot stage the outputs: {e}"))?;
+    let stager = FileStager::in_folder(staged.dir().to_path_buf(), DeliveryPolicy::default());
+    let mut writer = CaptureWriter::create_staged(&paths[0], cfg, &stager)?;
     let result = (|| {
         let dwells = truth::write_truth(&model, &with_suffix(prefix, ".truth.csv"), &stager)?;
         if let Some(scan) = &file.scenario.scan {
@@ -81,5 +93,6 @@ pub fn synthesize(file: &ScenarioFile, prefix: &Path) -> Result<SynthReport, Str
     let written = commit_staged(&stager)?;
     let step = model.format.step();
     let noise_steps = (step > 0.0).then(|| model.scale * std::f64::consts::FRAC_1_SQRT_2 / step);
-    Ok(SynthReport { written, samples, dwells, scale: model.scale, noise_steps })
+    drop(staged);
+    Ok(SynthReport { written, samples, dwells, scale: model.scale, noise_steps, remarks })
 }

@@ -4,7 +4,7 @@
 //! (range empty for beacons).
 
 use super::generate::{Model, Signal};
-use lobeflow_blocks::{FileStager, OutputFile};
+use lobeflow_blocks::FileStager;
 use std::io::Write;
 use std::path::Path;
 
@@ -58,7 +58,7 @@ pub fn truth_rows(model: &Model) -> impl Iterator<Item = TruthRow> + '_ {
 /// Write the truth CSV to `path` through `stager`; returns the row count.
 pub fn write_truth(model: &Model, path: &Path, stager: &FileStager) -> Result<u64, String> {
     let io = |e: std::io::Error| format!("writing {}: {e}", path.display());
-    let mut f = OutputFile::create(path).map_err(io)?;
+    let mut f = stager.create(path).map_err(io)?;
     writeln!(f, "{TRUTH_HEADER}").map_err(io)?;
     let mut rows = 0;
     for r in truth_rows(model) {

@@ -55,10 +55,22 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
     if path.is_empty() {
         return Err("parameter 'path' is empty".into());
     }
-    let file = OutputFile::create(Path::new(&path)).map_err(|e| format!("cannot create table {path}: {e}"))?;
     let json = p.text("format")? == "jsonl";
+    let policy = ctx.files.policy();
+    let mut sinks = Vec::new();
+    if path != STDOUT_PATH {
+        let file = ctx.files.create(Path::new(&path)).map_err(|e| format!("cannot create table {path}: {e}"))?;
+        sinks.push(Sink { target: Target::File(file), json });
+    }
+    if path == STDOUT_PATH || policy.echo_table.as_deref() == Some(ctx.name.as_str()) {
+        let json = match policy.echo_format.as_deref() {
+            Some(f) => f == "jsonl",
+            None => json,
+        };
+        sinks.push(Sink { target: Target::Stdout, json });
+    }
     Ok(Box::new(TableWriter {
-        file: Some(file),
+        sinks,
         files: ctx.files.clone(),
         path,
         line: LineBuilder { text: String::new(), json, first: true },
@@ -67,6 +79,23 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
         unknown_fields: BTreeSet::new(),
         last_stamp: None,
     }))
+}
+
+/// A table path that means standard output.
+pub const STDOUT_PATH: &str = "-";
+
+/// Where a table's lines go.
+enum Target {
+    /// Staged, committed with the run's other outputs.
+    File(OutputFile),
+    /// Printed as they come; `Closed` once the reader went away.
+    Stdout,
+    Closed,
+}
+
+struct Sink {
+    target: Target,
+    json: bool,
 }
 
 /// How a number is written.
@@ -183,8 +212,8 @@ fn push_json_string(out: &mut String, v: &str) {
 const UNKNOWN_FIELDS_REPORTED: usize = 16;
 
 struct TableWriter {
-    /// Present until `finish` hands it to the stager.
-    file: Option<OutputFile>,
+    /// The file (until `finish` hands it to the stager) and standard output.
+    sinks: Vec<Sink>,
     files: FileStager,
     path: String,
     line: LineBuilder,
@@ -195,60 +224,90 @@ struct TableWriter {
 }
 
 impl TableWriter {
-    fn write_line(&mut self) -> Result<(), BlockError> {
-        let Some(file) = self.file.as_mut() else {
-            return Err(BlockError::new(format!("table {} was already finished", self.path)));
-        };
-        file.write_all(self.line.text.as_bytes())
-            .map_err(|e| BlockError::new(format!("cannot write table {}: {e}", self.path)))
+    /// Build one record with `fill` in each sink's format and write it.
+    fn record(&mut self, fill: &dyn Fn(&mut LineBuilder), stamp: Stamp, out: &mut Outputs) -> Result<(), BlockError> {
+        let live = self.files.policy().live;
+        for i in 0..self.sinks.len() {
+            self.line.json = self.sinks[i].json;
+            fill(&mut self.line);
+            let text = self.line.text.as_bytes();
+            match &mut self.sinks[i].target {
+                Target::File(file) => {
+                    let written = file.write_all(text).and_then(|_| if live { file.flush() } else { Ok(()) });
+                    written.map_err(|e| BlockError::new(format!("cannot write table {}: {e}", self.path)))?;
+                }
+                Target::Stdout => {
+                    let mut stdout = std::io::stdout().lock();
+                    if let Err(e) = stdout.write_all(text).and_then(|_| stdout.flush()) {
+                        // The reader went away (`| head`): stop printing, and
+                        // let a live input end as if it had closed.
+                        self.sinks[i].target = Target::Closed;
+                        self.files.policy().end_input.store(true, std::sync::atomic::Ordering::SeqCst);
+                        out.notice(
+                            stamp,
+                            format!("standard output closed ({e}); rows of table {} no longer printed", self.path),
+                        );
+                    }
+                }
+                Target::Closed => {}
+            }
+        }
+        Ok(())
     }
 
-    fn header(&mut self, columns: &[&str]) -> Result<(), BlockError> {
-        if self.line.json {
+    fn header(&mut self, columns: &[&str], stamp: Stamp, out: &mut Outputs) -> Result<(), BlockError> {
+        if self.sinks.iter().all(|s| s.json) {
             return Ok(());
         }
-        self.line.text.clear();
-        for (i, c) in columns.iter().enumerate() {
-            if i > 0 {
-                self.line.text.push(',');
+        let fill = |l: &mut LineBuilder| {
+            l.text.clear();
+            if l.json {
+                return;
             }
-            push_csv_field(&mut self.line.text, c);
-        }
-        self.line.text.push('\n');
-        self.write_line()
+            for (i, c) in columns.iter().enumerate() {
+                if i > 0 {
+                    l.text.push(',');
+                }
+                push_csv_field(&mut l.text, c);
+            }
+            l.text.push('\n');
+        };
+        self.record(&fill, stamp, out)
     }
 
-    fn estimate(&mut self, e: &AngleEstimate) -> Result<(), BlockError> {
-        let l = &mut self.line;
-        l.begin();
-        l.num("time_s", Some(e.stamp.seconds()), NumStyle::Fixed(6));
-        l.text("axis", &e.axis);
-        l.num("error_deg", e.error_deg, NumStyle::Fixed(5));
-        l.num("sigma_deg", Some(e.sigma_deg), NumStyle::Fixed(5));
-        l.num("snr_db", Some(e.snr_db), NumStyle::Fixed(3));
-        l.num("range_m", e.range_m, NumStyle::Fixed(3));
-        l.text("flag", e.flag.as_str());
-        l.num("ratio_db", Some(e.ratio_db), NumStyle::Fixed(4));
-        l.num("tracked_deg", e.tracked_deg, NumStyle::Fixed(5));
-        l.num("tracked_sigma_deg", e.tracked_sigma_deg, NumStyle::Fixed(5));
-        l.num("absolute_deg", e.absolute_deg, NumStyle::Fixed(5));
-        l.end();
-        self.write_line()
+    fn estimate(&mut self, e: &AngleEstimate, out: &mut Outputs) -> Result<(), BlockError> {
+        let fill = |l: &mut LineBuilder| {
+            l.begin();
+            l.num("time_s", Some(e.stamp.seconds()), NumStyle::Fixed(6));
+            l.text("axis", &e.axis);
+            l.num("error_deg", e.error_deg, NumStyle::Fixed(5));
+            l.num("sigma_deg", Some(e.sigma_deg), NumStyle::Fixed(5));
+            l.num("snr_db", Some(e.snr_db), NumStyle::Fixed(3));
+            l.num("range_m", e.range_m, NumStyle::Fixed(3));
+            l.text("flag", e.flag.as_str());
+            l.num("ratio_db", Some(e.ratio_db), NumStyle::Fixed(4));
+            l.num("tracked_deg", e.tracked_deg, NumStyle::Fixed(5));
+            l.num("tracked_sigma_deg", e.tracked_sigma_deg, NumStyle::Fixed(5));
+            l.num("absolute_deg", e.absolute_deg, NumStyle::Fixed(5));
+            l.end();
+        };
+        self.record(&fill, e.stamp, out)
     }
 
-    fn dwell(&mut self, d: &DwellRecord) -> Result<(), BlockError> {
-        let l = &mut self.line;
-        l.begin();
-        l.num("time_s", Some(d.mid.seconds()), NumStyle::Fixed(6));
-        l.text("lobe", &d.tag.name);
-        l.int("dwell", d.tag.dwell.into());
-        l.num("amplitude", Some(d.amplitude), NumStyle::Sci(6));
-        l.num("noise_power", Some(d.noise_power), NumStyle::Sci(6));
-        l.num("snr_db", Some(10.0 * d.snr.log10()), NumStyle::Fixed(3));
-        l.num("range_m", d.range_m, NumStyle::Fixed(3));
-        l.int("used", d.used.into());
-        l.end();
-        self.write_line()
+    fn dwell(&mut self, d: &DwellRecord, out: &mut Outputs) -> Result<(), BlockError> {
+        let fill = |l: &mut LineBuilder| {
+            l.begin();
+            l.num("time_s", Some(d.mid.seconds()), NumStyle::Fixed(6));
+            l.text("lobe", &d.tag.name);
+            l.int("dwell", d.tag.dwell.into());
+            l.num("amplitude", Some(d.amplitude), NumStyle::Sci(6));
+            l.num("noise_power", Some(d.noise_power), NumStyle::Sci(6));
+            l.num("snr_db", Some(10.0 * d.snr.log10()), NumStyle::Fixed(3));
+            l.num("range_m", d.range_m, NumStyle::Fixed(3));
+            l.int("used", d.used.into());
+            l.end();
+        };
+        self.record(&fill, d.mid, out)
     }
 
     fn row(&mut self, r: &TableRow, out: &mut Outputs) -> Result<(), BlockError> {
@@ -263,18 +322,22 @@ impl TableWriter {
                 );
             }
         }
-        let l = &mut self.line;
-        l.begin();
-        for column in &self.row_columns {
-            match r.fields.iter().find(|(n, _)| n == column).map(|(_, c)| c) {
-                Some(Cell::Num(v)) => l.num(column, Some(*v), NumStyle::Shortest),
-                Some(Cell::Int(i)) => l.int(column, (*i).into()),
-                Some(Cell::Text(t)) => l.text(column, t),
-                Some(Cell::Empty) | None => l.empty(column),
+        let columns = std::mem::take(&mut self.row_columns);
+        let fill = |l: &mut LineBuilder| {
+            l.begin();
+            for column in &columns {
+                match r.fields.iter().find(|(n, _)| n == column).map(|(_, c)| c) {
+                    Some(Cell::Num(v)) => l.num(column, Some(*v), NumStyle::Shortest),
+                    Some(Cell::Int(i)) => l.int(column, (*i).into()),
+                    Some(Cell::Text(t)) => l.text(column, t),
+                    Some(Cell::Empty) | None => l.empty(column),
+                }
             }
-        }
-        l.end();
-        self.write_line()
+            l.end();
+        };
+        let written = self.record(&fill, r.stamp, out);
+        self.row_columns = columns;
+        written
     }
 }
 
@@ -301,8 +364,8 @@ impl Block for TableWriter {
             None => {
                 self.kind = Some(kind);
                 match &item {
-                    Item::Estimate(_) => self.header(ESTIMATE_COLUMNS)?,
-                    Item::Dwell(_) => self.header(DWELL_COLUMNS)?,
+                    Item::Estimate(_) => self.header(ESTIMATE_COLUMNS, item.stamp(), out)?,
+                    Item::Dwell(_) => self.header(DWELL_COLUMNS, item.stamp(), out)?,
                     Item::Row(r) => {
                         for (name, _) in &r.fields {
                             if !self.row_columns.contains(name) {
@@ -311,15 +374,15 @@ impl Block for TableWriter {
                         }
                         let columns = self.row_columns.clone();
                         let names: Vec<&str> = columns.iter().map(|c| &**c).collect();
-                        self.header(&names)?;
+                        self.header(&names, item.stamp(), out)?;
                     }
                     _ => {}
                 }
             }
         }
         match &item {
-            Item::Estimate(e) => self.estimate(e),
-            Item::Dwell(d) => self.dwell(d),
+            Item::Estimate(e) => self.estimate(e, out),
+            Item::Dwell(d) => self.dwell(d, out),
             Item::Row(r) => self.row(r, out),
             _ => Ok(()),
         }
@@ -332,9 +395,12 @@ impl Block for TableWriter {
                 format!("no items arrived; table {} is empty", self.path),
             );
         }
-        let Some(file) = self.file.take() else {
-            return Ok(());
-        };
-        file.finish(&self.files).map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))
+        for sink in self.sinks.drain(..) {
+            if let Target::File(file) = sink.target {
+                file.finish(&self.files)
+                    .map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))?;
+            }
+        }
+        Ok(())
     }
 }
