@@ -164,7 +164,7 @@ fn circular_sweep_draws_and_reads_the_echo() {
 #[test]
 fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
     // The readout interpolates between range samples; its step is one range
-    // bin (c / 2 fs, field notes section 5), so half a bin is the tolerance.
+    // bin (c / 2 fs, docs/derivations.md section 5), so half a bin is the tolerance.
     let bin = range_bin_m(RATE);
     let spec = lobeflow::picture::circular_sweep::SPEC;
     let p = params(&spec, &[("range_start", "2 km"), ("range_end", "72 km"), ("revolutions", "7")]);
@@ -273,7 +273,7 @@ fn split_pair_prints_the_balance_of_each_pair() {
     let (_, written) = assert_repeatable(&spec, &set, items, "split");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 640));
-    // Field notes check value: A/B = 1.447269, 3.2110 dB, for 0.5 deg off axis.
+    // Check value computed by hand from the two-way Gaussian ratio: A/B = 1.447269, 3.2110 dB, for 0.5 deg off axis.
     let texts = svg_texts(&base.with_extension("svg"));
     assert!(texts.iter().any(|t| t.starts_with("az: right") && t.ends_with("= +3.21 dB")), "{texts:?}");
     assert!(texts.iter().any(|t| t.starts_with("el: up") && t.ends_with("= +3.21 dB")), "{texts:?}");

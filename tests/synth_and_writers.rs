@@ -1,7 +1,7 @@
 //! Capture writers read back independently (hound's reader, our own JSON
 //! parse plus datatype decoding, byte fixtures from numpy and Python's
 //! `wave`), and synthesizer output checked against its scenario and the
-//! field-note check values.
+//! check values computed by hand from the beam formulas.
 
 use lobeflow::capture::datatype::DataType;
 use lobeflow::capture::sigmf_meta::Annotation;
@@ -207,7 +207,7 @@ fn range_for_delay(samples: f64) -> f64 {
     C * samples * 1e-6 / 2.0
 }
 
-/// One-way Gaussian voltage, field notes section 2 (Skolnik, Introduction
+/// One-way Gaussian voltage, docs/derivations.md section 2 (Skolnik, Introduction
 /// to Radar Systems, tracking-radar chapter, from memory).
 fn gaussian(x: f64, bw: f64) -> f64 {
     (-2.0 * std::f64::consts::LN_2 * x * x / (bw * bw)).exp()
@@ -253,9 +253,10 @@ fn fractional_delay_spreads_the_pulse_by_coverage() {
 }
 
 #[test]
-fn two_lobe_ratio_matches_the_field_note_check_value() {
+fn two_lobe_ratio_matches_the_hand_computed_check_value() {
     // Gaussian BW 6 deg, SQ 2.4 deg, two-way, theta 0.5 deg: A/B = 1.447269,
-    // 3.2110 dB ("computed from the Gaussian formula, field notes section 3").
+    // 3.2110 dB (computed by hand from the two-way Gaussian ratio, docs/derivations.md
+    // section 3).
     let (iq, _, _) = generate_all(model(&pulsed(120.0, 0.5, range_for_delay(30.0), ", phase: per_dwell")));
     // Dwell d covers pulses 5d..5d+4; even dwells are `right` (A), odd `left` (B).
     for d in [0usize, 4, 10] {
@@ -322,9 +323,10 @@ fn jittered_transmit_instants_average_to_the_pri() {
 }
 
 #[test]
-fn beacon_one_way_ratio_matches_the_field_note_check_value() {
+fn beacon_one_way_ratio_matches_the_hand_computed_check_value() {
     // BW 10 deg, SQ 5 deg, one-way, theta 1 deg: A/B = 1.319508
-    // ("computed from the Gaussian formula, field notes section 3").
+    // (computed by hand from the one-way Gaussian ratio, docs/derivations.md
+    // section 3).
     let yaml = "name: mast beacon\nseed: 3\n\
 capture: {sample_rate: 1 MS/s, duration: 8 ms, format: sigmf_cf32_le, scale: 1, sync: schedule}\n\
 antenna: {beam: gaussian, beamwidth: 10 deg, squint: 5 deg}\n\

@@ -563,7 +563,7 @@ mod tests {
 
     #[test]
     fn range_bin_matches_field_values() {
-        // c/(2 fs): 37.47 m at 4 MS/s, 62.46 m at 2.4 MS/s (field notes section 5).
+        // c/(2 fs): 37.47 m at 4 MS/s, 62.46 m at 2.4 MS/s (docs/derivations.md section 5).
         assert!((range_bin_m(4e6) - 37.47).abs() < 0.005);
         assert!((range_bin_m(2.4e6) - 62.46).abs() < 0.005);
     }

@@ -81,7 +81,7 @@ fn centroid_range_of_fractional_box_echoes_within_0_15_bin_rms() {
 }
 
 #[test]
-fn noncoherent_spread_matches_field_notes_formula_by_monte_carlo() {
+fn noncoherent_spread_matches_the_first_order_formula_by_monte_carlo() {
     // One-bin gate, E = 16 per pulse, N = 4; docs/derivations.md §4: var(ln A) = (G/E^2 + 2/E)/(4N).
     // A wide noise region keeps the noise estimate's own spread negligible.
     let scene = Scene { sweep_len: 700, pulses: 4, dwells: 1500, noise: [1.0, 1.0] };

@@ -289,7 +289,7 @@ mod tests {
     #[test]
     fn window_in_metres_and_bins() {
         let s = sweep(&[0.0; 400], 0);
-        // 37.47 m per bin at 4 MS/s (field notes section 5): 1.5 km starts at bin 40.
+        // 37.47 m per bin at 4 MS/s (docs/derivations.md, section 5): 1.5 km starts at bin 40.
         let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s).unwrap();
         assert_eq!((w.first, w.len), (40, 60));
         assert!(BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s).is_err());

@@ -1,4 +1,5 @@
-//! Geometry of the circular sweep formatter (field notes section 6).
+//! Geometry of the circular sweep formatter (derived in docs/derivations.md,
+//! section 10).
 //!
 //! A range window is wound onto a circle: `revolutions` turns per window, so
 //! the angle around the circle is proportional to range within one turn. An
@@ -197,7 +198,7 @@ mod tests {
 
     #[test]
     fn circular_trace_is_pi_times_the_straight_one() {
-        // Field notes section 6 (geometry): for one turn, the circle's
+        // docs/derivations.md section 10: for one turn, the circle's
         // circumference over its diameter.
         let w = Winding::new((0.0, 0.0), 150.0, 0.0, 30_000.0, 1.0).unwrap();
         let n = 20_000;
