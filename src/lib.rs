@@ -22,6 +22,8 @@
 pub mod capture;
 pub mod commands;
 pub mod error;
+#[doc(hidden)]
+pub mod fuzzing;
 pub mod graph;
 pub mod picture;
 pub mod regress;

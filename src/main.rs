@@ -4,6 +4,7 @@
 use clap::{Parser, Subcommand};
 use lobeflow::Error;
 use lobeflow::commands;
+use std::io::Write;
 use std::path::PathBuf;
 
 #[derive(Parser)]
@@ -37,9 +38,9 @@ enum Command {
         /// No progress bar, no summary.
         #[arg(long)]
         quiet: bool,
-        /// Worker threads (default: one per core).
-        #[arg(long)]
-        threads: Option<usize>,
+        /// Worker threads (default: one per core; at most 256).
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..=MAX_THREADS))]
+        threads: Option<u16>,
     },
     /// Validate a graph and print it resolved: blocks, wires, knob values and their origins.
     Check {
@@ -104,31 +105,70 @@ enum Command {
     },
 }
 
+/// Most worker threads `run` starts: more only cost memory and start-up
+/// (each worker has its own stack), and thousands fail to spawn at all.
+const MAX_THREADS: i64 = 256;
+
 fn main() {
     let cli = Cli::parse();
-    if let Err(e) = dispatch(cli) {
-        eprintln!("error: {e}");
-        std::process::exit(e.exit_code());
+    let code = match dispatch(cli) {
+        Ok(()) => 0,
+        Err(e) => {
+            // If standard error itself is gone there is no one to tell.
+            let _ = write_all(&mut std::io::stderr(), &format!("error: {e}\n"));
+            e.exit_code()
+        }
+    };
+    std::process::exit(code);
+}
+
+/// Write `text` to standard output. A reader that went away (`| head -1`)
+/// is not an error: the rest is dropped quietly and the command ends with
+/// its own status. Any other failure (a full disk) is reported.
+fn print_out(text: &str) -> Result<(), Error> {
+    write_quietly(&mut std::io::stdout(), text, "standard output")
+}
+
+/// As [`print_out`], for messages and summaries on standard error.
+fn print_err(text: &str) -> Result<(), Error> {
+    write_quietly(&mut std::io::stderr(), text, "standard error")
+}
+
+fn write_quietly(w: &mut dyn Write, text: &str, what: &str) -> Result<(), Error> {
+    match write_all(w, text) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Error::Output(format!("cannot write to {what}: {e}")))
+        }
+        _ => Ok(()),
     }
+}
+
+fn write_all(w: &mut dyn Write, text: &str) -> std::io::Result<()> {
+    w.write_all(text.as_bytes())?;
+    w.flush()
 }
 
 fn dispatch(cli: Cli) -> Result<(), Error> {
     match cli.command {
         Command::Run { graph, input, out, set, params, stats, quiet, threads } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
+            let threads = threads.map(usize::from);
             let args = commands::run::RunArgs { graph, overrides, out_dir: out, threads, quiet, stats };
-            commands::run::run_graph(&args).map(|_| ())
+            let report = commands::run::run_graph(&args)?;
+            if !quiet {
+                print_err(&commands::run::summary(&report, stats))?;
+            }
+            Ok(())
         }
         Command::Check { graph, input, set, params } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            print!("{}", commands::check::check(&graph, &overrides)?);
-            Ok(())
+            print_out(&commands::check::check(&graph, &overrides)?)
         }
         Command::Regress { dir, report, update, out, jobs } => {
             let jobs = jobs.unwrap_or_else(|| std::thread::available_parallelism().map(|n| n.get()).unwrap_or(2));
             let args = commands::regress::RegressArgs { dir, report, update, out, jobs };
             let rows = commands::regress::regress(&args)?;
-            print!("{}", commands::regress::table(&rows));
+            print_out(&commands::regress::table(&rows))?;
             match rows.iter().filter(|r| !r.passed).count() {
                 0 => Ok(()),
                 n => Err(Error::Failed(format!("{n} regression checks failed"))),
@@ -144,17 +184,12 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 roles.as_deref(),
                 seconds,
             )?;
-            print!("{}", commands::inspect::inspect(&args)?);
-            Ok(())
+            print_out(&commands::inspect::inspect(&args)?)
         }
-        Command::Blocks { kind } => {
-            print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);
-            Ok(())
-        }
+        Command::Blocks { kind } => print_out(&commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?),
         Command::Synth { scenario, out } => {
             let (_, summary) = commands::synth::synth(&scenario, &out)?;
-            eprint!("{summary}");
-            Ok(())
+            print_err(&summary)
         }
     }
 }

@@ -4,7 +4,7 @@
 //! Outside references: the expected spread sigma_theta is the first-order
 //! formula of the field notes (section 4: var(ln A) = (G/E^2 + 2/E)/(4N) for
 //! noncoherent gates, 1/(2 N s) for coherent tones; sigma = BW^2/(8 n ln2 SQ)
-//! * sqrt(var ln A + var ln B) for Gaussian beams, Skolnik, Introduction to
+//! times sqrt(var ln A + var ln B) for Gaussian beams, Skolnik, Introduction to
 //! Radar Systems, tracking-radar chapter, from memory), which holds where the
 //! per-dwell energy over noise is above about 10; every capture here keeps
 //! both lobes above that. The range bin is c/(2 fs) (SI value of c).
@@ -118,11 +118,9 @@ fn score(angles: &Table, truth: &Table, axis: &str) -> Scores {
             t2 += (tr - want).powi(2);
             nt += 1;
         }
-        if has_range {
-            if let Some(r) = angles.num(i, "range_m") {
-                r2 += (r - truth.at("range_m", t)).powi(2);
-                nr += 1;
-            }
+        if has_range && let Some(r) = angles.num(i, "range_m") {
+            r2 += (r - truth.at("range_m", t)).powi(2);
+            nr += 1;
         }
     }
     let nf = n.max(1) as f64;

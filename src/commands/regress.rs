@@ -21,6 +21,7 @@ pub fn regress(args: &RegressArgs) -> Result<Vec<Row>, Error> {
     let manifests: Vec<Manifest> =
         find_manifests(&args.dir)?.iter().map(|p| Manifest::load(p).map_err(Error::from)).collect::<Result<_, _>>()?;
     let next = Mutex::new(0usize);
+    #[allow(clippy::type_complexity)]
     let results: Mutex<Vec<(usize, Result<Vec<Row>, Error>)>> = Mutex::new(Vec::new());
     std::thread::scope(|s| {
         for _ in 0..args.jobs.clamp(1, manifests.len().max(1)) {

@@ -23,7 +23,7 @@ pub struct RunArgs {
 /// Notices printed in full; the rest are counted.
 const NOTICES_SHOWN: usize = 20;
 
-/// Run, print the summary to stderr, and return the report.
+/// Run with a progress bar (unless quiet) and return the report.
 pub fn run_graph(args: &RunArgs) -> Result<RunReport, Error> {
     let graph = resolve(&args.graph, &args.overrides, &crate::registry())?;
     let cancel = Arc::new(AtomicBool::new(false));
@@ -54,11 +54,9 @@ pub fn run_graph(args: &RunArgs) -> Result<RunReport, Error> {
     }));
     let result = run(&graph, &opts, Vec::new());
     bar.finish_and_clear();
-    let report = result?;
-    if !args.quiet {
-        eprint!("{}", summary(&report, args.stats));
-    }
-    Ok(report)
+    // The caller prints `summary`, so a closed or full standard error is
+    // handled in one place (main.rs).
+    result
 }
 
 /// Notices, written files and (with `stats`) the per-block table.

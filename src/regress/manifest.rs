@@ -178,7 +178,10 @@ impl Manifest {
         let mut settings = crate::graph::Overrides::default();
         for (name, v) in &raw.settings {
             let value = crate::graph::file::raw_value(v).ok_or_else(|| {
-                err(&[key("settings"), key(name)], format!("knob '{name}' must be a number, text, true/false or a list"))
+                err(
+                    &[key("settings"), key(name)],
+                    format!("knob '{name}' must be a number, text, true/false or a list"),
+                )
             })?;
             let (line, _) = locate(&text, &[key("settings"), key(name)]);
             settings.items.push(crate::graph::Override {

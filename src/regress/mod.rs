@@ -182,11 +182,11 @@ fn measure(c: &Check, t: &Table, path: &Path, truth: Option<&Truth>) -> Result<O
             let mut sum = 0.0;
             let mut n = 0usize;
             for r in t.rows.iter().filter(on_axis).filter(ok) {
-                if let (Some(time), Some(range)) = (num(&r[time_c]), r.get(rc).and_then(|v| num(v))) {
-                    if let Some(want) = truth.at("range_m", time) {
-                        sum += (range - want).powi(2);
-                        n += 1;
-                    }
+                if let (Some(time), Some(range)) = (num(&r[time_c]), r.get(rc).and_then(|v| num(v)))
+                    && let Some(want) = truth.at("range_m", time)
+                {
+                    sum += (range - want).powi(2);
+                    n += 1;
                 }
             }
             (n > 0).then(|| (sum / n as f64).sqrt())

@@ -64,7 +64,7 @@ impl Beam {
     /// A beam of `shape` with one-way 3 dB beamwidth `beamwidth_deg`. For a
     /// table the beamwidth is measured from the table and the argument ignored.
     pub fn new(shape: BeamShape, beamwidth_deg: f64) -> Result<Beam, String> {
-        if !(beamwidth_deg > 0.0 && beamwidth_deg < 180.0) && !matches!(shape, BeamShape::Table(_)) {
+        if !(matches!(shape, BeamShape::Table(_)) || beamwidth_deg > 0.0 && beamwidth_deg < 180.0) {
             return Err(format!("beamwidth {beamwidth_deg} deg is not between 0 and 180"));
         }
         let half = (beamwidth_deg / 2.0).to_radians().sin();
@@ -184,7 +184,7 @@ pub struct PairModel {
 
 impl PairModel {
     pub fn new(beam: Beam, squint_deg: f64, way: u32) -> Result<PairModel, String> {
-        if !(squint_deg > 0.0) {
+        if squint_deg.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return Err(format!("squint {squint_deg} deg must be positive"));
         }
         if way != 1 && way != 2 {
@@ -199,7 +199,7 @@ impl PairModel {
         loop {
             let next = theta + step;
             let r = m.log_ratio(next);
-            if next > max || !(r > r_prev) || !r.is_finite() {
+            if next > max || r.partial_cmp(&r_prev) != Some(std::cmp::Ordering::Greater) || !r.is_finite() {
                 break;
             }
             theta = next;

@@ -205,7 +205,7 @@ mod tests {
             let moved = f.push(x);
             if x.is_finite() {
                 // Every reading for the first block, then one in FLOOR_STRIDE.
-                if medians.is_empty() || kept % FLOOR_STRIDE == 0 {
+                if medians.is_empty() || kept.is_multiple_of(FLOOR_STRIDE) {
                     block.push(x);
                 }
                 if !medians.is_empty() {

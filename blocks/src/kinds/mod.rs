@@ -5,7 +5,6 @@ pub mod dc_remove;
 pub mod discard;
 pub mod frequency_shift;
 pub mod gate_common;
-pub mod thin;
 pub mod lobe_gate;
 pub mod lowpass_decimate;
 pub mod matched_filter;
@@ -16,6 +15,7 @@ pub mod ratio_discriminator;
 pub mod sweep_gate;
 pub mod table_writer;
 pub mod test_tone;
+pub mod thin;
 pub mod tone_dwell;
 pub mod tracker;
 

@@ -239,7 +239,7 @@ impl RatioDiscriminator {
         };
         let snr_db = 10.0 * plus.snr.min(minus.snr).log10();
         // Too weak a lobe gives a biased, noise-dominated ratio: no number.
-        let weak = reading.flag == Flag::Ok && !(snr_db >= self.min_snr_db);
+        let weak = reading.flag == Flag::Ok && snr_db.partial_cmp(&self.min_snr_db).is_none_or(|o| o.is_lt());
         let (error_deg, sigma_deg, flag) =
             if weak { (None, f64::NAN, Flag::NoSignal) } else { (reading.error_deg, reading.sigma_deg, reading.flag) };
         AngleEstimate {

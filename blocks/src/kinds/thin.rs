@@ -31,7 +31,7 @@ struct Thin {
 
 impl Block for Thin {
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        if self.seen % self.stride == 0 {
+        if self.seen.is_multiple_of(self.stride) {
             out.push(0, item);
         }
         self.seen += 1;
