@@ -485,7 +485,7 @@ fn capture_reader_runs_in_a_graph() {
     std::fs::create_dir_all(&dir).unwrap();
     let graph = dir.join("read.yaml");
     let yaml = format!(
-        "title: read a capture\nknobs:\n  input: {{default: {}, doc: capture}}\nblocks:\n  read: {{kind: capture_reader, set: {{path: $input, chunk: 50}}}}\n  sink: {{kind: discard}}\nwiring:\n  - read -> sink\n",
+        "title: read a capture\nsettings:\n  input: {{default: {}, doc: capture}}\nblocks:\n  read: {{kind: capture_reader, set: {{path: $input, chunk: 50}}}}\n  sink: {{kind: discard}}\nwiring:\n  - read -> sink\n",
         good("scipy_f32_iqst.wav")
     );
     std::fs::write(&graph, yaml).unwrap();

@@ -208,7 +208,7 @@ fn composites_expand_with_prefixed_names_and_their_own_errors() {
     std::fs::create_dir_all(d.join("parts")).unwrap();
     std::fs::write(
         d.join("parts/chain.yaml"),
-        "title: two passes\nknobs:\n  unused: {default: 1}\nblocks:\n  first: {kind: pass}\n  second: {kind: pass}\nwiring:\n  - first -> second\nexposes:\n  inputs: {samples: first.samples}\n  outputs: {samples: second.samples}\n",
+        "title: two passes\nsettings:\n  unused: {default: 1}\nblocks:\n  first: {kind: pass}\n  second: {kind: pass}\nwiring:\n  - first -> second\nexposes:\n  inputs: {samples: first.samples}\n  outputs: {samples: second.samples}\n",
     )
     .unwrap();
     let parent = "blocks:\n  tone: {kind: test_tone}\n  mid: {use: parts/chain.yaml, set: {unused: 2}}\n  drop: {kind: discard}\nwiring:\n  - tone -> mid -> drop\n";

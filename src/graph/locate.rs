@@ -232,7 +232,7 @@ fn split_key(s: &str) -> Option<(&str, &str)> {
 mod tests {
     use super::*;
 
-    const DOC: &str = "title: x\nknobs:\n  bw: {default: 6 deg, doc: beam}\nblocks:\n  read:\n    kind: capture_reader\n    set:\n      path: $input\n  gate:\n    kind: lobe_gate\n    set: {lobes: a, guard: 2 us}\nwiring:\n  - read -> gate\n  # comment\n  - gate -> out\n";
+    const DOC: &str = "title: x\nsettings:\n  bw: {default: 6 deg, doc: beam}\nblocks:\n  read:\n    kind: capture_reader\n    set:\n      path: $input\n  gate:\n    kind: lobe_gate\n    set: {lobes: a, guard: 2 us}\nwiring:\n  - read -> gate\n  # comment\n  - gate -> out\n";
 
     #[test]
     fn finds_nested_keys() {

@@ -61,9 +61,9 @@ struct LobeGate {
     /// The latest segment, held until we know whether it ends its dwell.
     held: Option<LobeSegment>,
     last_stamp: Option<Stamp>,
-    /// Switches passed and segments handed on: a run of switches with no
-    /// segment means the guard swallows every dwell (an error, not an
-    /// empty table).
+    /// Switches passed and segments handed on after the first switch: a run
+    /// of switches with no segment means the guard swallows every dwell
+    /// (an error, not an empty table).
     switches_seen: u64,
     segments_out: u64,
 }
@@ -148,8 +148,8 @@ impl LobeGate {
             let at = at.max(from);
             self.emit(&piece, from, at, out);
             self.switches.pop_front();
-            self.switches_seen += 1;
             self.flush(true, out);
+            self.switches_seen += 1;
             let dwell = self.tag.as_ref().map_or(0, |t| t.dwell + 1);
             self.tag = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell, dwell_start: at });
             self.guard_until = at + self.guard;
@@ -173,7 +173,8 @@ impl LobeGate {
 
     fn flush(&mut self, dwell_end: bool, out: &mut Outputs) {
         if let Some(mut seg) = self.held.take() {
-            self.segments_out += 1;
+            // The dwell before the first switch seen is not cut by a guard.
+            self.segments_out += u64::from(self.switches_seen > 0);
             seg.dwell_end = dwell_end;
             out.push(0, Item::Segment(Box::new(seg)));
         }
