@@ -70,11 +70,11 @@ fn without_pictures(text: &str, repo: &Path) -> String {
     text.lines()
         .filter(|l| {
             let t = l.trim_start();
-            !pictures.iter().any(|p| t.starts_with(p))
-                && !(t.starts_with("- ")
-                    && ["angle_plot", "circle", "split", "trace", "timeline"]
-                        .iter()
-                        .any(|p| t.ends_with(p) || t.contains(&format!("> {p}"))))
+            let picture_wire = t.starts_with("- ")
+                && ["angle_plot", "circle", "split", "trace", "timeline"]
+                    .iter()
+                    .any(|p| t.ends_with(p) || t.contains(&format!("> {p}")));
+            !pictures.iter().any(|p| t.starts_with(p)) && !picture_wire
         })
         .map(|l| {
             l.replace("../samples/", &format!("{}/samples/", repo.display()))

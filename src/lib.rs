@@ -25,6 +25,8 @@ pub mod capture;
 pub mod commands;
 pub mod error;
 pub mod external;
+#[doc(hidden)]
+pub mod fuzzing;
 pub mod graph;
 pub mod picture;
 pub mod regress;

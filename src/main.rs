@@ -4,6 +4,7 @@
 use clap::{Parser, Subcommand};
 use lobeflow::Error;
 use lobeflow::commands;
+use std::io::Write;
 use std::path::PathBuf;
 
 #[derive(Parser)]
@@ -78,9 +79,9 @@ enum Command {
         /// No progress bar, no summary.
         #[arg(long)]
         quiet: bool,
-        /// Worker threads (default: one per core).
-        #[arg(long)]
-        threads: Option<usize>,
+        /// Worker threads (default: one per core; at most 256).
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..=MAX_THREADS))]
+        threads: Option<u16>,
         #[command(flatten)]
         capture: CaptureFlags,
         /// Print the rows of this table writer block on standard output as
@@ -236,18 +237,54 @@ fn cores() -> usize {
     std::thread::available_parallelism().map(|n| n.get()).unwrap_or(2)
 }
 
+/// Most worker threads `run` starts: more only cost memory and start-up
+/// (each worker has its own stack), and thousands fail to spawn at all.
+const MAX_THREADS: i64 = 256;
+
 fn main() {
     let cli = Cli::parse();
-    if let Err(e) = dispatch(cli) {
-        eprintln!("error: {e}");
-        std::process::exit(e.exit_code());
+    let code = match dispatch(cli) {
+        Ok(()) => 0,
+        Err(e) => {
+            // If standard error itself is gone there is no one to tell.
+            let _ = write_all(&mut std::io::stderr(), &format!("error: {e}\n"));
+            e.exit_code()
+        }
+    };
+    std::process::exit(code);
+}
+
+/// Write `text` to standard output. A reader that went away (`| head -1`)
+/// is not an error: the rest is dropped quietly and the command ends with
+/// its own status. Any other failure (a full disk) is reported.
+fn print_out(text: &str) -> Result<(), Error> {
+    write_quietly(&mut std::io::stdout(), text, "standard output")
+}
+
+/// As [`print_out`], for messages and summaries on standard error.
+fn print_err(text: &str) -> Result<(), Error> {
+    write_quietly(&mut std::io::stderr(), text, "standard error")
+}
+
+fn write_quietly(w: &mut dyn Write, text: &str, what: &str) -> Result<(), Error> {
+    match write_all(w, text) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            Err(Error::Output(format!("cannot write to {what}: {e}")))
+        }
+        _ => Ok(()),
     }
+}
+
+fn write_all(w: &mut dyn Write, text: &str) -> std::io::Result<()> {
+    w.write_all(text.as_bytes())?;
+    w.flush()
 }
 
 fn dispatch(cli: Cli) -> Result<(), Error> {
     match cli.command {
         Command::Run { graph, input, out, set, params, stats, quiet, threads, capture, stream, stream_format } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
+            let threads = threads.map(usize::from);
             let args = commands::run::RunArgs {
                 graph,
                 overrides,
@@ -259,11 +296,19 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 stream,
                 stream_format,
             };
-            match commands::run::run_with_exit(&args) {
+            let (result, code) = commands::run::run_with_exit(&args);
+            // The summary is printed here, so a closed or full standard error
+            // is handled in one place.
+            if let Ok(report) = &result
+                && !quiet
+            {
+                print_err(&commands::run::summary(report, stats))?;
+            }
+            match (result, code) {
                 (Ok(_), None) => Ok(()),
                 (result, Some(code)) => {
                     if let Err(e) = result {
-                        eprintln!("error: {e}");
+                        let _ = print_err(&format!("error: {e}\n"));
                     }
                     std::process::exit(code)
                 }
@@ -272,8 +317,7 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
         }
         Command::Check { graph, input, out, set, params } => {
             let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            print!("{}", commands::check::check_with_out(&graph, &overrides, &out)?);
-            Ok(())
+            print_out(&commands::check::check_with_out(&graph, &overrides, &out)?)
         }
         Command::Regress { dir, report, junit, update, out, jobs } => {
             let out = out.unwrap_or_else(commands::regress::default_out);
@@ -288,9 +332,9 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             }
             text.push_str(&format!("outputs in {}\n", args.out.display()));
             if to_stdout {
-                eprint!("{text}")
+                print_err(&text)?
             } else {
-                print!("{text}")
+                print_out(&text)?
             }
             regression.outcome()
         }
@@ -320,12 +364,7 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 roles.as_deref(),
                 seconds,
             )?;
-            print!("{}", commands::inspect::inspect(&args)?);
-            Ok(())
-        }
-        Command::Blocks { kind } => {
-            print!("{}", commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?);
-            Ok(())
+            print_out(&commands::inspect::inspect(&args)?)
         }
         Command::Calibrate { graph, input, pointing, source, clock_offset, cross_limit, set, params, out, threads } => {
             let args = lobeflow::calibrate::CalibrateArgs {
@@ -338,13 +377,12 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 out_dir: out,
                 threads,
             };
-            eprint!("{}", commands::calibrate::run(&args)?);
-            Ok(())
+            print_err(&commands::calibrate::run(&args)?)
         }
+        Command::Blocks { kind } => print_out(&commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?),
         Command::Synth { scenario, out } => {
             let (_, summary) = commands::synth::synth(&scenario, &out)?;
-            eprint!("{summary}");
-            Ok(())
+            print_err(&summary)
         }
     }
 }

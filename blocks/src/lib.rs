@@ -16,6 +16,7 @@ pub mod decimal;
 pub mod dsp;
 pub mod item;
 pub mod kinds;
+pub mod limits;
 pub mod output_file;
 pub mod param;
 
@@ -23,6 +24,7 @@ pub use block::{
     Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
 };
 pub use item::*;
+pub use limits::{MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
 

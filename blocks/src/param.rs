@@ -5,6 +5,7 @@
 //! overrides all read the same declaration, and all values go through
 //! [`ParamSpec::parse`].
 
+use crate::limits::{MAX_PRF, MAX_SAMPLE_RATE};
 use std::collections::BTreeMap;
 use std::fmt;
 
@@ -161,12 +162,20 @@ impl ParamType {
 }
 
 fn range_text(min: f64, max: f64) -> String {
+    let (lo, hi) = (num_text(min), num_text(max));
     match (min.is_finite(), max.is_finite()) {
-        (true, true) => format!(", {min} to {max}"),
-        (true, false) => format!(", at least {min}"),
-        (false, true) => format!(", at most {max}"),
+        (true, true) => format!(", {lo} to {hi}"),
+        (true, false) => format!(", at least {lo}"),
+        (false, true) => format!(", at most {hi}"),
         _ => String::new(),
     }
+}
+
+/// A number for a message: plain, or in exponent form when very large or
+/// very small (`1e30`, not thirty-one digits).
+pub fn num_text(x: f64) -> String {
+    let a = x.abs();
+    if a != 0.0 && a.is_finite() && !(1e-4..1e15).contains(&a) { format!("{x:e}") } else { format!("{x}") }
 }
 
 /// One parameter's declaration.
@@ -250,10 +259,10 @@ impl fmt::Display for Value {
                 };
                 write!(f, "{} {u}", short(v))
             }
-            Value::Samples(n) => write!(f, "{n} samples"),
-            Value::Pulses(n) => write!(f, "{n} pulses"),
-            Value::Metres(m) => write!(f, "{m} m"),
-            Value::Bins(b) => write!(f, "{b} bins"),
+            Value::Samples(n) => write!(f, "{} samples", num_text(*n)),
+            Value::Pulses(n) => write!(f, "{} pulses", num_text(*n)),
+            Value::Metres(m) => write!(f, "{} m", num_text(*m)),
+            Value::Bins(b) => write!(f, "{} bins", num_text(*b)),
             Value::Int(i) => write!(f, "{i}"),
             Value::Bool(b) => write!(f, "{b}"),
             Value::Text(t) => write!(f, "{t}"),
@@ -379,25 +388,61 @@ impl ParamSpec {
         let (x, min, max, unit) = match (&self.ty, v) {
             (ParamType::Number { min, max, unit }, Value::Number(x)) => (*x, *min, *max, unit.symbol()),
             (ParamType::Time { min_s, max_s, .. }, Value::Seconds(x)) => (*x, *min_s, *max_s, "s"),
-            (ParamType::Time { .. }, Value::Samples(x) | Value::Pulses(x)) => (*x, 0.0, f64::INFINITY, ""),
+            (ParamType::Time { min_s, max_s, .. }, Value::Samples(x)) => {
+                (*x, count_floor(*min_s) * MAX_SAMPLE_RATE, max_s * MAX_SAMPLE_RATE, "samples")
+            }
+            (ParamType::Time { min_s, max_s, .. }, Value::Pulses(x)) => {
+                (*x, count_floor(*min_s) * MAX_PRF, max_s * MAX_PRF, "pulses")
+            }
             (ParamType::Distance { min_m, max_m }, Value::Metres(x)) => (*x, *min_m, *max_m, "m"),
-            (ParamType::Distance { .. }, Value::Bins(x)) => (*x, 0.0, f64::INFINITY, ""),
+            (ParamType::Distance { min_m, max_m }, Value::Bins(x)) => {
+                let per_m = 1.0 / range_bin_m(MAX_SAMPLE_RATE);
+                (*x, count_floor(*min_m) * per_m, max_m * per_m, "bins")
+            }
             (ParamType::Integer { min, max }, Value::Int(i)) => (*i as f64, *min as f64, *max as f64, ""),
             (ParamType::Names, Value::Names(n)) if n.is_empty() => return Err("expected at least one name".into()),
             _ => return Ok(()),
         };
         if !x.is_finite() || x < min || x > max {
             let u = if unit.is_empty() { String::new() } else { format!(" {unit}") };
-            return Err(format!("{x}{u} is out of range (allowed{})", range_text(min, max).trim_start_matches(',')));
+            // Counts are bounded through the seconds or metres limit at the
+            // highest rate; say so, since the limit is not written anywhere.
+            let why = match v {
+                Value::Samples(_) => {
+                    format!(" {unit}: its limit in seconds at {} S/s, the highest rate", num_text(MAX_SAMPLE_RATE))
+                }
+                Value::Pulses(_) => {
+                    format!(" {unit}: its limit in seconds at {} Hz, the highest PRF", num_text(MAX_PRF))
+                }
+                Value::Bins(_) => {
+                    format!(" {unit}: its limit in metres at {} S/s, the highest rate", num_text(MAX_SAMPLE_RATE))
+                }
+                _ => String::new(),
+            };
+            return Err(format!(
+                "{}{u} is out of range (allowed{}{why})",
+                num_text(x),
+                range_text(min, max).trim_start_matches(',')
+            ));
         }
         Ok(())
     }
+}
+
+/// The lower bound of a count whose time or distance form starts at `min`:
+/// counts are never negative unless the time may be (an offset).
+fn count_floor(min: f64) -> f64 {
+    min.min(0.0)
 }
 
 /// The checked parameters of one block instance, by name.
 #[derive(Clone, Debug, Default)]
 pub struct Params {
     values: BTreeMap<String, Value>,
+    /// The declared types, where known, so counts of samples, pulses and bins
+    /// are held to the limits of their seconds or metres form once the rate
+    /// is known.
+    types: BTreeMap<String, ParamType>,
 }
 
 impl Params {
@@ -406,6 +451,12 @@ impl Params {
     }
     pub fn insert(&mut self, name: &str, v: Value) {
         self.values.insert(name.to_string(), v);
+    }
+    /// Insert a value checked by `spec`, keeping its limits for
+    /// [`Params::samples_at`] and [`Params::bins_at`].
+    pub fn insert_declared(&mut self, spec: &ParamSpec, v: Value) {
+        self.types.insert(spec.name.to_string(), spec.ty);
+        self.insert(spec.name, v);
     }
     pub fn get(&self, name: &str) -> Option<&Value> {
         self.values.get(name)
@@ -457,25 +508,59 @@ impl Params {
             None => Err(Self::missing(name)),
         }
     }
-    /// A time parameter as a count of samples at `rate` (pulses use `pri_samples`).
+    /// A time parameter as a count of samples at `rate` (pulses use
+    /// `pri_samples`). A count is held to the limits of its seconds form at
+    /// this rate, so `1e30 samples` is refused like `1e24 s` would be.
     pub fn samples_at(&self, name: &str, rate: f64, pri_samples: Option<f64>) -> Result<f64, String> {
-        match self.get(name) {
-            Some(Value::Seconds(s)) => Ok(s * rate),
-            Some(Value::Samples(n)) => Ok(*n),
+        let n = match self.get(name) {
+            Some(Value::Seconds(s)) => return Ok(s * rate),
+            Some(Value::Number(n)) => return Ok(n * rate),
+            Some(Value::Samples(n)) => *n,
             Some(Value::Pulses(p)) => match pri_samples {
-                Some(pri) => Ok(p * pri),
-                None => Err(format!("parameter '{name}' is given in pulses, but this stream has no pulse interval")),
+                Some(pri) => p * pri,
+                None => {
+                    return Err(format!(
+                        "parameter '{name}' is given in pulses, but this stream has no pulse interval"
+                    ));
+                }
             },
-            Some(Value::Number(n)) => Ok(n * rate),
-            Some(v) => Err(format!("parameter '{name}' is {v}, not a time")),
-            None => Err(Self::missing(name)),
+            Some(v) => return Err(format!("parameter '{name}' is {v}, not a time")),
+            None => return Err(Self::missing(name)),
+        };
+        if let Some(ParamType::Time { min_s, max_s, .. }) = self.types.get(name) {
+            let s = n / rate;
+            if !s.is_finite() || s < *min_s || s > *max_s {
+                return Err(format!(
+                    "parameter '{name}' is {} = {} at {} S/s, out of range (allowed{} s)",
+                    self.values[name],
+                    Value::Seconds(s),
+                    num_text(rate),
+                    range_text(*min_s, *max_s).trim_start_matches(',')
+                ));
+            }
         }
+        Ok(n)
     }
-    /// A distance parameter as a (fractional) count of range bins at `rate`.
+    /// A distance parameter as a (fractional) count of range bins at `rate`;
+    /// a count of bins is held to the limits of its metres form.
     pub fn bins_at(&self, name: &str, rate: f64) -> Result<f64, String> {
         match self.get(name) {
             Some(Value::Metres(m)) | Some(Value::Number(m)) => Ok(m / range_bin_m(rate)),
-            Some(Value::Bins(b)) => Ok(*b),
+            Some(Value::Bins(b)) => {
+                if let Some(ParamType::Distance { min_m, max_m }) = self.types.get(name) {
+                    let m = b * range_bin_m(rate);
+                    if !m.is_finite() || m < *min_m || m > *max_m {
+                        return Err(format!(
+                            "parameter '{name}' is {} bins = {} m at {} S/s, out of range (allowed{} m)",
+                            num_text(*b),
+                            num_text(m),
+                            num_text(rate),
+                            range_text(*min_m, *max_m).trim_start_matches(',')
+                        ));
+                    }
+                }
+                Ok(*b)
+            }
             Some(v) => Err(format!("parameter '{name}' is {v}, not a distance")),
             None => Err(Self::missing(name)),
         }

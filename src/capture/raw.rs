@@ -3,7 +3,8 @@
 
 use super::datatype::DataType;
 use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions};
-use lobeflow_blocks::BlockError;
+use lobeflow_blocks::param::num_text;
+use lobeflow_blocks::{BlockError, MAX_SAMPLE_RATE};
 use std::fs::File;
 use std::io::BufReader;
 use std::path::Path;
@@ -25,7 +26,7 @@ pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, B
 /// The rate of a raw capture, which only the caller can know.
 pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError> {
     match opts.rate {
-        Some(r) if r.is_finite() && r > 0.0 => Ok(r),
+        Some(r) if r.is_finite() && r > 0.0 => check_rate(path, r, "the given rate"),
         _ => Err(BlockError::new(format!("{path}: raw data carries no sample rate; set rate (e.g. 2.4 MS/s)"))),
     }
 }
@@ -33,7 +34,7 @@ pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError
 pub(crate) fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, BlockError> {
     let datatype = raw_datatype(path, opts)?;
     let rate = raw_rate(path, opts)?;
-    let channels = opts.channels.unwrap_or(1).max(1);
+    let channels = check_channels(path, opts.channels.unwrap_or(1).max(1) as u64, "channels")?;
     Ok(CaptureInfo {
         path: path.to_string(),
         meta_path: None,
@@ -52,10 +53,47 @@ pub(crate) fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) 
 
 pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
     let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the raw capture: {e}")))?;
-    let len = file.metadata().map_err(|e| BlockError::new(format!("{path}: {e}")))?.len();
-    let info = raw_info(path, opts, Some(len))?;
-    check_whole_frames(&info, len)?;
+    let len = regular_file_len(&file, path)?;
+    let info = raw_info(path, opts, len)?;
+    if let Some(len) = len {
+        check_whole_frames(&info, len)?;
+    }
     Ok(Box::new(FrameStream::new(info, BufReader::with_capacity(1 << 16, file))))
+}
+
+/// The length of a regular file; None for a FIFO, socket or character
+/// device, which is read as a stream to its end like standard input.
+pub(crate) fn regular_file_len(file: &File, path: &str) -> Result<Option<u64>, BlockError> {
+    let meta = file.metadata().map_err(|e| BlockError::new(format!("{path}: {e}")))?;
+    if meta.is_dir() {
+        return Err(BlockError::new(format!("{path}: is a folder, not a capture file")));
+    }
+    Ok(meta.is_file().then_some(meta.len()))
+}
+
+/// Most channels a raw or SigMF capture may interleave (the `channels`
+/// parameter's limit too).
+pub const MAX_CHANNELS: u64 = 64;
+
+pub(crate) fn check_channels(path: &str, n: u64, what: &str) -> Result<usize, BlockError> {
+    if n > MAX_CHANNELS {
+        return Err(BlockError::new(format!(
+            "{path}: {what} {n} is more than lobeflow reads (at most {MAX_CHANNELS} interleaved channels)"
+        )));
+    }
+    Ok(n as usize)
+}
+
+/// A sample rate lobeflow can work with: finite, positive and at most
+/// [`MAX_SAMPLE_RATE`] (beyond it sample counts and times lose their meaning).
+pub(crate) fn check_rate(path: &str, rate: f64, what: &str) -> Result<f64, BlockError> {
+    if !(rate.is_finite() && rate > 0.0 && rate <= MAX_SAMPLE_RATE) {
+        return Err(BlockError::new(format!(
+            "{path}: {what} {} S/s is unusable; a sample rate must be above 0 and at most {MAX_SAMPLE_RATE:e} S/s",
+            num_text(rate)
+        )));
+    }
+    Ok(rate)
 }
 
 /// A data file must hold whole frames; say where the partial one starts.

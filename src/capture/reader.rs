@@ -243,6 +243,13 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
             self.buf = buf;
             whole?
         };
+        if whole == 0 && self.done_bytes == 0 && max_frames > 0 {
+            let found = match self.info.data_bytes {
+                Some(_) => "its sample data is 0 bytes long",
+                None => "the stream ended before its first sample",
+            };
+            return Err(BlockError::at(format!("{}: the capture holds no samples: {found}", self.info.path), 0));
+        }
         self.done_bytes += whole as u64;
         Ok(whole / frame_bytes.max(1))
     }
@@ -382,9 +389,8 @@ pub(crate) fn agree_rate(
         (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => Err(BlockError::new(format!(
             "{path}: rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
         ))),
-        (_, Some(f)) if f.is_finite() && f > 0.0 => Ok(f),
-        (_, Some(f)) => Err(BlockError::new(format!("{path}: {what} gives an unusable sample rate {f}"))),
-        (Some(g), None) => Ok(g),
+        (_, Some(f)) => super::raw::check_rate(path, f, what),
+        (Some(g), None) => super::raw::check_rate(path, g, "the given rate"),
         (None, None) => Err(BlockError::new(format!("{path}: the sample rate is not in the file; set rate"))),
     }
 }

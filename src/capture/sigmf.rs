@@ -3,7 +3,7 @@
 //! sample by sample; see `sigmf_meta.rs` for how sample indices are counted.
 
 use super::datatype::DataType;
-use super::raw::check_whole_frames;
+use super::raw::{check_channels, check_whole_frames, regular_file_len};
 use super::reader::{
     CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
@@ -11,13 +11,15 @@ use super::sigmf_meta::SigmfMeta;
 use lobeflow_blocks::BlockError;
 use serde_json::Value;
 use std::fs::File;
-use std::io::{BufReader, Seek, SeekFrom};
+use std::io::{BufReader, Read};
 use std::path::{Path, PathBuf};
 
 const META_EXT: &str = ".sigmf-meta";
 const DATA_EXT: &str = ".sigmf-data";
-/// Metadata files beyond this are refused rather than read into memory.
-const MAX_META_BYTES: u64 = 64 << 20;
+/// Metadata files beyond this are refused rather than read into memory: the
+/// parsed JSON takes about 17 times the file's size, so 8 MiB stays well
+/// inside the memory ceiling (README, "Limits").
+pub const MAX_META_BYTES: u64 = 8 << 20;
 
 fn base_of(path: &str) -> &str {
     path.strip_suffix(META_EXT).or_else(|| path.strip_suffix(DATA_EXT)).unwrap_or(path)
@@ -41,12 +43,25 @@ pub fn read_meta(meta_path: &Path) -> Result<SigmfMeta, BlockError> {
         .len();
     if len > MAX_META_BYTES {
         return Err(BlockError::new(format!(
-            "{m}: metadata file of {len} bytes is too large (limit {MAX_META_BYTES})"
+            "{m}: metadata file of {len} bytes is too large (lobeflow reads SigMF metadata of at most {MAX_META_BYTES} bytes, 8 MiB)"
         )));
     }
-    let text = std::fs::read_to_string(meta_path)
+    // Read through a limit too: a FIFO has no length to check beforehand.
+    let mut text = String::new();
+    std::fs::File::open(meta_path)
+        .and_then(|f| f.take(MAX_META_BYTES + 1).read_to_string(&mut text))
         .map_err(|e| BlockError::new(format!("{m}: cannot read the SigMF metadata: {e}")))?;
-    let json: Value = serde_json::from_str(&text).map_err(|e| {
+    if text.len() as u64 > MAX_META_BYTES {
+        return Err(BlockError::new(format!(
+            "{m}: the metadata is longer than {MAX_META_BYTES} bytes, more than lobeflow reads"
+        )));
+    }
+    parse_meta(&m.to_string(), &text)
+}
+
+/// Check the text of a `.sigmf-meta` file; errors name `m` and the field.
+pub fn parse_meta(m: &str, text: &str) -> Result<SigmfMeta, BlockError> {
+    let json: Value = serde_json::from_str(text).map_err(|e| {
         BlockError::new(format!("{m}: not valid JSON at line {}, column {}: {e}", e.line(), e.column()))
     })?;
     let Some(top) = json.as_object() else {
@@ -114,8 +129,7 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
         Some(0) => {
             return Err(BlockError::new(format!("{m}: global core:num_channels is 0")));
         }
-        Some(n) => usize::try_from(n)
-            .map_err(|_| BlockError::new(format!("{m}: global core:num_channels {n} is too large")))?,
+        Some(n) => check_channels(&m, n, "global core:num_channels")?,
     };
     let channels = agree_channels(&m, opts.channels, channels, "global core:num_channels")?;
     let rate = agree_rate(&m, opts.rate, g.sample_rate, "global core:sample_rate")?;
@@ -146,11 +160,22 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
     let d = data_path.display().to_string();
     let file = File::open(&data_path)
         .map_err(|e| BlockError::new(format!("{d}: cannot open the data file of the recording {m}: {e}")))?;
-    let len = file.metadata().map_err(|e| BlockError::new(format!("{d}: {e}")))?.len();
-    let Some(data_bytes) = len.checked_sub(data_offset + trailing) else {
-        return Err(BlockError::new(format!(
-            "{d}: the file has {len} bytes, fewer than the {data_offset} header and {trailing} trailing bytes the metadata declares"
-        )));
+    let data_bytes = match regular_file_len(&file, &d)? {
+        Some(len) => match len.checked_sub(data_offset.saturating_add(trailing)) {
+            Some(n) => Some(n),
+            None => {
+                return Err(BlockError::new(format!(
+                    "{d}: the file has {len} bytes, fewer than the {data_offset} header and {trailing} trailing bytes the metadata declares"
+                )));
+            }
+        },
+        // A FIFO streams to its end; trailing bytes cannot be told apart.
+        None if trailing > 0 => {
+            return Err(BlockError::new(format!(
+                "{d}: is not a regular file, so the {trailing} trailing bytes the metadata declares cannot be found; read it from a file"
+            )));
+        }
+        None => None,
     };
     let info = CaptureInfo {
         path: d,
@@ -162,12 +187,22 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
         channels,
         rate,
         data_offset,
-        data_bytes: Some(data_bytes),
+        data_bytes,
         frequency: meta.captures.first().and_then(|c| c.frequency),
         sigmf: Some(meta),
     };
-    check_whole_frames(&info, data_bytes)?;
+    if let Some(n) = data_bytes {
+        check_whole_frames(&info, n)?;
+    }
+    // Skip the header by reading, not seeking, so a FIFO works too.
     let mut input = BufReader::with_capacity(1 << 16, file);
-    input.seek(SeekFrom::Start(data_offset)).map_err(|e| BlockError::new(format!("{}: {e}", info.path)))?;
+    let skipped = std::io::copy(&mut (&mut input).take(data_offset), &mut std::io::sink())
+        .map_err(|e| BlockError::new(format!("{}: {e}", info.path)))?;
+    if skipped < data_offset {
+        return Err(BlockError::new(format!(
+            "{}: the stream ended at byte offset {skipped}, inside the {data_offset} header bytes the metadata declares",
+            info.path
+        )));
+    }
     Ok(Box::new(FrameStream::new(info, input)))
 }

@@ -1,78 +1,54 @@
-//! WAV (RIFF) captures: hound parses and validates the header, including
-//! WAVE_FORMAT_EXTENSIBLE; the data is then read in large blocks and decoded
-//! here (hound's per-sample iterator is much slower).
+//! WAV (RIFF) captures: the header (including WAVE_FORMAT_EXTENSIBLE) is
+//! read front to back without seeking, so a FIFO streams like a file; the
+//! data is then read in large blocks and decoded here.
 
 use super::datatype::{DataType, SampleFormat};
+use super::raw::check_whole_frames;
 use super::reader::{
     CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
 use lobeflow_blocks::BlockError;
 use std::fs::File;
-use std::io::{BufReader, Read, Seek, SeekFrom};
+use std::io::{BufReader, Read};
 
 /// Most channels a WAV capture may have (I, Q, sync, trigger and spares).
 pub const MAX_WAV_CHANNELS: usize = 8;
 
 pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
     let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the WAV file: {e}")))?;
-    let file_len = file.metadata().map(|m| m.len()).unwrap_or(0);
+    // A FIFO or a device has no length: its header is read as it comes and
+    // the data runs to the end of the stream.
+    let file_len = file.metadata().ok().filter(|m| m.is_file()).map(|m| m.len());
     let mut input = BufReader::with_capacity(1 << 16, file);
-    let spec = match hound::WavReader::new(&mut input) {
-        Ok(r) => (r.spec(), u64::from(r.len())),
-        Err(e) => return Err(BlockError::new(explain_header_error(path, e))),
-    };
-    let (spec, values) = spec;
-    let data_offset = input.stream_position().map_err(|e| BlockError::new(format!("{path}: {e}")))?;
-    // hound knows, but does not tell, the container size of a sample (24 valid
-    // bits may sit in 4 bytes); the data chunk's length field just before the
-    // data gives it.
-    let data_bytes = u64::from(
-        read_u32_at(&mut input, data_offset.saturating_sub(4)).map_err(|e| BlockError::new(format!("{path}: {e}")))?,
-    );
-    input.seek(SeekFrom::Start(data_offset)).map_err(|e| BlockError::new(format!("{path}: {e}")))?;
-    let container = data_bytes
-        .checked_div(values)
-        .map(|b| b as usize)
-        .unwrap_or_else(|| usize::from(spec.bits_per_sample).div_ceil(8));
-
-    let channels = usize::from(spec.channels);
+    let header = read_header(&mut input, path, file_len)?;
+    let (encoding, text) = header.encoding(path)?;
+    let channels = usize::from(header.channels);
     if channels > MAX_WAV_CHANNELS {
         return Err(BlockError::new(format!(
             "{path}: {channels} channels; lobeflow reads WAV captures of 1 to {MAX_WAV_CHANNELS} channels"
         )));
     }
-    let bits = spec.bits_per_sample;
-    // The combinations hound itself decodes.
-    let (encoding, text) = match (spec.sample_format, container, bits) {
-        (hound::SampleFormat::Float, 4, 32) => {
-            (Encoding::Type(real(SampleFormat::F32)), "IEEE float 32-bit".to_string())
-        }
-        (hound::SampleFormat::Int, 1, 8) => (Encoding::Type(real(SampleFormat::U8)), "PCM unsigned 8-bit".to_string()),
-        (hound::SampleFormat::Int, 2, 16) => {
-            (Encoding::Type(real(SampleFormat::I16)), "PCM integer 16-bit".to_string())
-        }
-        (hound::SampleFormat::Int, 3, 24) | (hound::SampleFormat::Int, 4, 24 | 32) => {
-            (Encoding::IntLe { bytes: container, bits: u32::from(bits) }, container_text(bits, container))
-        }
-        (fmt, _, _) => {
-            return Err(BlockError::new(format!(
-                "{path}: unsupported WAV sample format: {} {bits}-bit in {container}-byte containers (supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit)",
-                if fmt == hound::SampleFormat::Float { "IEEE float" } else { "integer" }
-            )));
-        }
+    let data_offset = header.data_offset;
+    let data_bytes = match (header.data_bytes, file_len) {
+        (Some(n), _) => Some(n),
+        // The streaming placeholder: the data runs to the end of the file.
+        (None, Some(len)) => Some(len.saturating_sub(data_offset)),
+        (None, None) => None,
     };
-    let end = data_offset + data_bytes;
-    if file_len < end {
-        let frame_bytes = (container * channels) as u64;
-        return Err(BlockError::at(
-            format!(
-                "{path}: truncated: the header says the data runs from byte offset {data_offset} to {end}, but the file ends at byte offset {file_len} ({} bytes missing)",
-                end - file_len
-            ),
-            file_len.saturating_sub(data_offset) / frame_bytes.max(1),
-        ));
+    if let (Some(n), Some(file_len)) = (data_bytes, file_len) {
+        let end = data_offset + n;
+        if file_len < end {
+            let frame_bytes = (encoding.component_bytes() * channels) as u64;
+            return Err(BlockError::at(
+                format!(
+                    "{path}: truncated: the header says the data runs from byte offset {data_offset} to {end}, but the file ends at byte offset {file_len} ({} bytes missing)",
+                    end - file_len
+                ),
+                file_len.saturating_sub(data_offset) / frame_bytes.max(1),
+            ));
+        }
     }
-    let rate = agree_rate(path, opts.rate, Some(f64::from(spec.sample_rate)), "the WAV header")?;
+    let rate = agree_rate(path, opts.rate, Some(f64::from(header.rate)), "the WAV header")?;
     agree_channels(path, opts.channels, channels, "the WAV header")?;
     if let Some(dt) = &opts.datatype {
         return Err(BlockError::new(format!(
@@ -89,11 +65,212 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
         channels,
         rate,
         data_offset,
-        data_bytes: Some(data_bytes),
+        data_bytes,
         frequency: None,
         sigmf: None,
     };
+    if let Some(n) = data_bytes {
+        check_whole_frames(&info, n)?;
+    }
     Ok(Box::new(FrameStream::new(info, input)))
+}
+
+/// What the RIFF header of a WAV file says, read front to back without
+/// seeking (so a FIFO works too).
+#[derive(Clone, Debug, PartialEq)]
+pub struct WavHeader {
+    /// The format tag, the sub-format's for WAVE_FORMAT_EXTENSIBLE.
+    pub tag: u16,
+    pub channels: u16,
+    pub rate: u32,
+    pub block_align: u16,
+    /// Bits per sample of the container (`wBitsPerSample`).
+    pub container_bits: u16,
+    /// Valid bits per sample (fewer than the container's in extensible files).
+    pub valid_bits: u16,
+    /// Byte offset of the first sample.
+    pub data_offset: u64,
+    /// Bytes of sample data; None for the streaming placeholder 0xFFFFFFFF
+    /// (a file still being written, or a pipe): the data runs to the end.
+    pub data_bytes: Option<u64>,
+}
+
+/// Most bytes a `fmt ` chunk may take (the extensible form needs 40).
+const MAX_FMT_BYTES: u32 = 1024;
+const TAG_PCM: u16 = 0x0001;
+const TAG_FLOAT: u16 = 0x0003;
+const TAG_EXTENSIBLE: u16 = 0xfffe;
+
+/// Read the RIFF header up to the first byte of the `data` chunk. Chunks
+/// other than `fmt ` are skipped, each with its pad byte when its size is
+/// odd (RIFF aligns chunks to 2 bytes). `file_len`, when known, explains a
+/// header cut short.
+pub fn read_header<R: Read>(r: &mut R, path: &str, file_len: Option<u64>) -> Result<WavHeader, BlockError> {
+    let mut at = 0u64;
+    let cut_short = |at: u64| {
+        let len = file_len.map(|l| format!(" (file of {l} bytes)")).unwrap_or_default();
+        BlockError::new(format!("{path}: the WAV header is cut short at byte offset {at}{len}"))
+    };
+    let read = |r: &mut R, buf: &mut [u8], at: &mut u64| -> Result<(), BlockError> {
+        r.read_exact(buf).map_err(|e| match e.kind() {
+            std::io::ErrorKind::UnexpectedEof => cut_short(*at),
+            _ => BlockError::new(format!("{path}: cannot read the WAV header at byte offset {at}: {e}")),
+        })?;
+        *at += buf.len() as u64;
+        Ok(())
+    };
+    let mut riff = [0u8; 12];
+    read(r, &mut riff, &mut at)?;
+    match &riff[0..4] {
+        b"RIFF" => {}
+        b"RIFX" => {
+            return Err(BlockError::new(format!(
+                "{path}: a big-endian RIFX file; lobeflow reads little-endian RIFF WAV files (convert it, e.g. to 16-bit or float PCM WAV)"
+            )));
+        }
+        b"RF64" | b"BW64" => {
+            return Err(BlockError::new(format!(
+                "{path}: an RF64/BW64 file (WAV with 64-bit sizes, for data over 4 GiB); lobeflow reads RIFF WAV files: split it, or convert it to SigMF or raw samples"
+            )));
+        }
+        other => {
+            return Err(BlockError::new(format!(
+                "{path}: not a WAV file: it starts with {:?}, not 'RIFF'",
+                String::from_utf8_lossy(other)
+            )));
+        }
+    }
+    if &riff[8..12] != b"WAVE" {
+        return Err(BlockError::new(format!(
+            "{path}: a RIFF file of form {:?}, not 'WAVE'",
+            String::from_utf8_lossy(&riff[8..12])
+        )));
+    }
+    let mut fmt: Option<(WavHeader, u64)> = None;
+    loop {
+        let mut head = [0u8; 8];
+        if let Err(e) = read(r, &mut head, &mut at) {
+            return Err(if fmt.is_none() {
+                e
+            } else {
+                BlockError::new(format!("{path}: no 'data' chunk in the WAV file"))
+            });
+        }
+        let id = [head[0], head[1], head[2], head[3]];
+        let size = u32::from_le_bytes([head[4], head[5], head[6], head[7]]);
+        let chunk_at = at - 8;
+        match &id {
+            b"fmt " => {
+                if !(16..=MAX_FMT_BYTES).contains(&size) {
+                    return Err(BlockError::new(format!(
+                        "{path}: the 'fmt ' chunk at byte offset {chunk_at} has {size} bytes; it must have 16 to {MAX_FMT_BYTES}"
+                    )));
+                }
+                let mut body = vec![0u8; (size + (size & 1)) as usize];
+                read(r, &mut body, &mut at)?;
+                fmt = Some((parse_fmt(&body[..size as usize], path, chunk_at)?, chunk_at));
+            }
+            b"data" => {
+                let Some((mut h, _)) = fmt else {
+                    return Err(BlockError::new(format!(
+                        "{path}: the 'data' chunk at byte offset {chunk_at} comes before any 'fmt ' chunk"
+                    )));
+                };
+                h.data_offset = at;
+                h.data_bytes = (size != u32::MAX).then_some(u64::from(size));
+                return Ok(h);
+            }
+            _ => {
+                let skip = u64::from(size) + u64::from(size & 1);
+                let skipped = std::io::copy(&mut r.by_ref().take(skip), &mut std::io::sink()).map_err(|e| {
+                    BlockError::new(format!("{path}: cannot read the WAV file at byte offset {at}: {e}"))
+                })?;
+                at += skipped;
+                if skipped < skip {
+                    return Err(BlockError::new(format!(
+                        "{path}: the '{}' chunk at byte offset {chunk_at} claims {size} bytes but the file ends at byte offset {at}, before any 'data' chunk",
+                        String::from_utf8_lossy(&id).escape_debug()
+                    )));
+                }
+            }
+        }
+    }
+}
+
+/// The fields of a `fmt ` chunk body.
+fn parse_fmt(b: &[u8], path: &str, chunk_at: u64) -> Result<WavHeader, BlockError> {
+    let u16_at = |i: usize| u16::from_le_bytes([b[i], b[i + 1]]);
+    let u32_at = |i: usize| u32::from_le_bytes([b[i], b[i + 1], b[i + 2], b[i + 3]]);
+    let mut h = WavHeader {
+        tag: u16_at(0),
+        channels: u16_at(2),
+        rate: u32_at(4),
+        block_align: u16_at(12),
+        container_bits: u16_at(14),
+        valid_bits: u16_at(14),
+        data_offset: 0,
+        data_bytes: None,
+    };
+    if h.tag == TAG_EXTENSIBLE {
+        if b.len() < 40 {
+            return Err(BlockError::new(format!(
+                "{path}: the 'fmt ' chunk at byte offset {chunk_at} says WAVE_FORMAT_EXTENSIBLE but has {} bytes, not 40",
+                b.len()
+            )));
+        }
+        let valid = u16_at(18);
+        if valid != 0 {
+            h.valid_bits = valid;
+        }
+        h.tag = u16_at(24);
+    }
+    let bad =
+        |what: String| Err(BlockError::new(format!("{path}: the 'fmt ' chunk at byte offset {chunk_at}: {what}")));
+    if h.channels == 0 {
+        return bad("0 channels".into());
+    }
+    if h.rate == 0 {
+        return bad("a sample rate of 0".into());
+    }
+    if h.valid_bits == 0 || h.valid_bits > h.container_bits {
+        return bad(format!("{} valid bits in {}-bit samples", h.valid_bits, h.container_bits));
+    }
+    Ok(h)
+}
+
+impl WavHeader {
+    /// The sample encoding and its description; the combinations lobeflow
+    /// decodes, others named with their format tag.
+    pub fn encoding(&self, path: &str) -> Result<(Encoding, String), BlockError> {
+        // The container is what a frame gives each channel: 24 valid bits may
+        // sit in 4 bytes, with or without the extensible form saying so.
+        let container = usize::from(self.block_align) / usize::from(self.channels.max(1));
+        let bits = self.valid_bits;
+        let supported = "supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit, also as WAVE_FORMAT_EXTENSIBLE";
+        let unsupported = || {
+            BlockError::new(format!(
+                "{path}: unsupported WAV sample format (format tag 0x{:04x} {}, {bits} bits per sample in {container}-byte containers); {supported}",
+                self.tag,
+                tag_name(self.tag)
+            ))
+        };
+        let encoding = match (self.tag, container, bits) {
+            (TAG_FLOAT, 4, 32) => (Encoding::Type(real(SampleFormat::F32)), "IEEE float 32-bit".to_string()),
+            (TAG_PCM, 1, 8) => (Encoding::Type(real(SampleFormat::U8)), "PCM unsigned 8-bit".to_string()),
+            (TAG_PCM, 2, 16) => (Encoding::Type(real(SampleFormat::I16)), "PCM integer 16-bit".to_string()),
+            (TAG_PCM, 3, 24) | (TAG_PCM, 4, 24 | 32) => {
+                (Encoding::IntLe { bytes: container, bits: u32::from(bits) }, container_text(bits, container))
+            }
+            _ => return Err(unsupported()),
+        };
+        if usize::from(self.block_align) % usize::from(self.channels) != 0 {
+            return Err(BlockError::new(format!(
+                "{path}: the WAV header's block align of {} bytes does not split into {} channel(s)",
+                self.block_align, self.channels
+            )));
+        }
+        Ok(encoding)
+    }
 }
 
 fn real(format: SampleFormat) -> DataType {
@@ -105,39 +282,6 @@ fn container_text(bits: u16, container: usize) -> String {
         format!("PCM integer {bits}-bit")
     } else {
         format!("PCM integer {bits}-bit in {container}-byte containers")
-    }
-}
-
-fn read_u32_at<R: Read + Seek>(r: &mut R, at: u64) -> std::io::Result<u32> {
-    r.seek(SeekFrom::Start(at))?;
-    let mut b = [0u8; 4];
-    r.read_exact(&mut b)?;
-    Ok(u32::from_le_bytes(b))
-}
-
-/// hound's header errors, with the format tag spelled out when it is one we
-/// do not read (the usual case: A-law, mu-law, 64-bit float, ADPCM).
-fn explain_header_error(path: &str, e: hound::Error) -> String {
-    let tag = format_tag(path);
-    let tag_text = tag
-        .map(|(t, bits)| format!(" (format tag 0x{t:04x} {}, {bits} bits per sample)", tag_name(t)))
-        .unwrap_or_default();
-    let supported = "supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit, also as WAVE_FORMAT_EXTENSIBLE";
-    match e {
-        hound::Error::Unsupported => {
-            format!("{path}: unsupported WAV sample format{tag_text}; {supported}")
-        }
-        hound::Error::FormatError(m) if tag.is_some_and(|(t, bits)| t == 3 && bits != 32) => {
-            format!("{path}: unsupported WAV sample format{tag_text}: {m}; {supported}")
-        }
-        hound::Error::FormatError(m) => format!("{path}: not a readable WAV file: {m}{tag_text}"),
-        hound::Error::IoError(io) if io.kind() == std::io::ErrorKind::UnexpectedEof => {
-            format!(
-                "{path}: the WAV header is cut short (file of {} bytes): {io}",
-                std::fs::metadata(path).map(|m| m.len()).unwrap_or(0)
-            )
-        }
-        other => format!("{path}: cannot read the WAV header: {other}"),
     }
 }
 
@@ -153,27 +297,4 @@ fn tag_name(tag: u16) -> &'static str {
         0xfffe => "extensible",
         _ => "unknown",
     }
-}
-
-/// The fmt chunk's format tag and bits per sample, found by walking the RIFF
-/// chunks of the first few kilobytes (only used to explain an error).
-fn format_tag(path: &str) -> Option<(u16, u16)> {
-    let mut head = Vec::new();
-    File::open(path).ok()?.take(1 << 16).read_to_end(&mut head).ok()?;
-    if head.get(0..4)? != b"RIFF" || head.get(8..12)? != b"WAVE" {
-        return None;
-    }
-    let mut at = 12usize;
-    while at + 8 <= head.len() {
-        let id = &head[at..at + 4];
-        let len = u32::from_le_bytes(head[at + 4..at + 8].try_into().ok()?) as usize;
-        if id == b"fmt " {
-            let body = head.get(at + 8..at + 8 + 16)?;
-            let tag = u16::from_le_bytes([body[0], body[1]]);
-            let bits = u16::from_le_bytes([body[14], body[15]]);
-            return Some((tag, bits));
-        }
-        at = at.checked_add(8 + len + (len & 1))?;
-    }
-    None
 }

@@ -47,7 +47,7 @@ pub fn set_capture_options(graph: &mut ResolvedGraph, params: &[(&'static str, S
             let parsed = spec
                 .parse(&RawValue::from_text(value))
                 .map_err(|m| Error::Usage(format!("--{name} {value}: {m} ({})", spec.ty.describe())))?;
-            b.params.insert(name, parsed);
+            b.params.insert_declared(spec, parsed);
             b.sources.insert(name.to_string(), format!("--{name}"));
         }
     }
@@ -91,11 +91,9 @@ fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Er
     let watch = Watch::start(&opts, live, progress, args.stats && !args.quiet, before);
     let result = prepared.execute();
     *signal = watch.stop();
-    let report = result?;
-    if !args.quiet {
-        eprint!("{}", summary(&report, args.stats));
-    }
-    Ok(report)
+    // The caller prints `summary`, so a closed or full standard error is
+    // handled in one place (main.rs).
+    result
 }
 
 /// Watches for signals while a run goes, and keeps the progress line of a
@@ -143,7 +141,9 @@ impl Watch {
                 }
                 if live && stats && !progress.shown() && last_line.elapsed() >= LAG_LINE_EVERY {
                     last_line = Instant::now();
-                    eprintln!("{}", live_line(&monitor));
+                    // Nowhere to report a failed write of a progress line.
+                    let line = format!("{}\n", live_line(&monitor));
+                    let _ = std::io::Write::write_all(&mut std::io::stderr(), line.as_bytes());
                 }
             }
             progress.finish();

@@ -18,7 +18,7 @@
 //! ```
 
 use super::error::GraphError;
-use super::locate::{Seg, key, locate};
+use super::locate::{Positions, Seg, key};
 use lobeflow_blocks::RawValue;
 use serde_yaml::Value;
 use std::path::{Path, PathBuf};
@@ -29,12 +29,21 @@ use std::sync::Arc;
 pub struct Source {
     pub path: PathBuf,
     pub text: String,
+    /// Key positions, indexed on first use.
+    positions: std::sync::OnceLock<Positions>,
 }
 
 impl Source {
+    pub fn new(path: PathBuf, text: String) -> Source {
+        Source { path, text, positions: std::sync::OnceLock::new() }
+    }
+    /// 1-based (line, column) of the key path `at` (or its deepest ancestor).
+    pub fn locate(&self, at: &[Seg]) -> (usize, usize) {
+        self.positions.get_or_init(|| Positions::of(&self.text)).find(at)
+    }
     /// An error at the key path `at`.
     pub fn error(&self, at: &[Seg], message: impl Into<String>) -> GraphError {
-        let (line, column) = locate(&self.text, at);
+        let (line, column) = self.locate(at);
         GraphError { file: self.path.clone(), line, column, message: message.into(), hint: None }
     }
     /// Directory relative paths in this file resolve against.
@@ -125,9 +134,29 @@ fn second_occurrence(text: &str, message: &str, first_line: usize) -> Option<(us
     None
 }
 
+/// Most bytes a graph, params, manifest or scenario file may have: real
+/// ones are kilobytes, a graph of 20 000 blocks about 1.5 MB, and the parsed
+/// YAML takes tens of times the text, so this keeps parsing far below the
+/// memory ceiling (and a path naming a device or FIFO cannot fill memory).
+pub const MAX_TEXT_BYTES: u64 = 4 << 20;
+
+/// Read at most [`MAX_TEXT_BYTES`] of text from `path`.
+pub fn read_limited(path: &Path) -> std::io::Result<String> {
+    use std::io::Read;
+    let mut text = String::new();
+    std::fs::File::open(path)?.take(MAX_TEXT_BYTES + 1).read_to_string(&mut text)?;
+    if text.len() as u64 > MAX_TEXT_BYTES {
+        return Err(std::io::Error::new(
+            std::io::ErrorKind::InvalidData,
+            format!("longer than {MAX_TEXT_BYTES} bytes (4 MiB), more than lobeflow reads as a text file"),
+        ));
+    }
+    Ok(text)
+}
+
 /// Read a file's text, or an error naming it.
 pub fn read_text(path: &Path) -> Result<String, GraphError> {
-    std::fs::read_to_string(path).map_err(|e| GraphError {
+    read_limited(path).map_err(|e| GraphError {
         file: path.to_path_buf(),
         line: 0,
         column: 0,
@@ -178,7 +207,7 @@ impl GraphFile {
 
     pub fn parse(path: &Path, text: String) -> Result<GraphFile, GraphError> {
         let doc = parse_yaml(path, &text)?;
-        let src = Arc::new(Source { path: path.to_path_buf(), text });
+        let src = Arc::new(Source::new(path.to_path_buf(), text));
         let top = mapping(&src, &[], &doc, "a graph file")?;
         check_keys(&src, &[], top, TOP_KEYS, "a graph file")?;
         let get = |k: &str| top.get(k);

@@ -7,8 +7,10 @@
 //! block-style mappings and sequences, and flow mappings written on one line,
 //! which is how graph files are written.
 
+use std::collections::HashMap;
+
 /// One step of a key path: a mapping key or a sequence index.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, PartialEq, Eq, Hash)]
 pub enum Seg {
     Key(String),
     Index(usize),
@@ -19,86 +21,178 @@ pub fn key(k: &str) -> Seg {
 }
 
 /// 1-based (line, column) of the last segment of `path`; falls back to the
-/// deepest ancestor found, then to (1, 1).
+/// deepest ancestor found, then to (1, 1). Scans the whole text: for many
+/// look-ups in one file build [`Positions`] once.
 pub fn locate(text: &str, path: &[Seg]) -> (usize, usize) {
-    let mut best = (1, 1);
-    for depth in 1..=path.len() {
-        match locate_exact(text, &path[..depth]) {
-            Some(p) => best = p,
-            None => break,
-        }
-    }
-    best
+    Positions::of(text).find(path)
 }
 
-fn locate_exact(text: &str, path: &[Seg]) -> Option<(usize, usize)> {
-    // Stack of (indent, segment) describing the path of the current line.
-    let mut stack: Vec<(usize, Seg)> = Vec::new();
-    // Sequence counters: (indent of the dash, path depth) -> next index.
-    let mut seq_count: Vec<(usize, usize, usize)> = Vec::new();
-    for (ln, raw) in text.lines().enumerate() {
-        let line = strip_comment(raw);
-        if line.trim().is_empty() {
-            continue;
-        }
-        let mut indent = line.len() - line.trim_start().len();
-        let mut rest = line.trim_start();
-        // A sequence item: "- value" or "- key: value".
-        while let Some(after) = rest.strip_prefix("- ").or_else(|| if rest == "-" { Some("") } else { None }) {
-            // Leave deeper entries and the previous item of this sequence.
-            while stack.last().is_some_and(|(i, s)| *i > indent || (*i == indent && matches!(s, Seg::Index(_)))) {
-                stack.pop();
+/// Every key path of a YAML text with its first position, from one scan, so
+/// a file of many thousand blocks is located in linear time.
+#[derive(Debug, Default)]
+pub struct Positions {
+    at: HashMap<Vec<Seg>, (usize, usize)>,
+}
+
+impl Positions {
+    pub fn of(text: &str) -> Positions {
+        let mut p = Positions::default();
+        p.scan(text);
+        p
+    }
+
+    /// As [`locate`]: the deepest ancestor of `path` found, else (1, 1).
+    pub fn find(&self, path: &[Seg]) -> (usize, usize) {
+        let mut best = (1, 1);
+        for depth in 1..=path.len() {
+            match self.at.get(&path[..depth]) {
+                Some(&p) => best = p,
+                None => break,
             }
-            let depth = stack.len();
-            let idx = match seq_count.iter_mut().find(|(i, d, _)| *i == indent && *d == depth) {
-                Some(entry) => {
-                    entry.2 += 1;
-                    entry.2 - 1
+        }
+        best
+    }
+
+    fn record(&mut self, path: Vec<Seg>, pos: (usize, usize)) {
+        self.at.entry(path).or_insert(pos);
+    }
+
+    fn scan(&mut self, text: &str) {
+        // Stack of (indent, segment) describing the path of the current line.
+        let mut stack: Vec<(usize, Seg)> = Vec::new();
+        // Sequence counters: (indent of the dash, path depth) -> next index.
+        let mut seq_count: Vec<(usize, usize, usize)> = Vec::new();
+        let path_of = |stack: &[(usize, Seg)]| stack.iter().map(|(_, s)| s.clone()).collect::<Vec<Seg>>();
+        for (ln, raw) in text.lines().enumerate() {
+            let line = strip_comment(raw);
+            if line.trim().is_empty() {
+                continue;
+            }
+            let mut indent = line.len() - line.trim_start().len();
+            let mut rest = line.trim_start();
+            // A sequence item: "- value" or "- key: value".
+            while let Some(after) = rest.strip_prefix("- ").or_else(|| if rest == "-" { Some("") } else { None }) {
+                // Leave deeper entries and the previous item of this sequence.
+                while stack.last().is_some_and(|(i, s)| *i > indent || (*i == indent && matches!(s, Seg::Index(_)))) {
+                    stack.pop();
                 }
-                None => {
-                    seq_count.push((indent, depth, 1));
-                    0
+                let depth = stack.len();
+                let idx = match seq_count.iter_mut().find(|(i, d, _)| *i == indent && *d == depth) {
+                    Some(entry) => {
+                        entry.2 += 1;
+                        entry.2 - 1
+                    }
+                    None => {
+                        seq_count.push((indent, depth, 1));
+                        0
+                    }
+                };
+                stack.push((indent, Seg::Index(idx)));
+                self.record(path_of(&stack), (ln + 1, indent + 1));
+                indent += 2;
+                rest = after.trim_start();
+                if rest.is_empty() {
+                    break;
+                }
+            }
+            if rest.is_empty() {
+                continue;
+            }
+            if let Some((k, value)) = split_key(rest) {
+                while stack.last().is_some_and(|(i, _)| *i >= indent) {
+                    stack.pop();
+                }
+                seq_count.retain(|(i, _, _)| *i < indent);
+                stack.push((indent, Seg::Key(k.to_string())));
+                let mut path = path_of(&stack);
+                self.record(path.clone(), (ln + 1, indent + 1));
+                // A flow mapping on the same line: `set: {a: 1, b: {c: 2}}`.
+                let flow = value.trim_start();
+                if flow.starts_with('{') {
+                    let col = line.len() - flow.len();
+                    self.scan_flow(flow, col, ln + 1, &mut path);
+                }
+            }
+        }
+    }
+
+    /// Record the keys of the flow mapping `s` starts with, nested ones too;
+    /// `col` is the 0-based column of `s` in its line. Returns the bytes
+    /// the mapping takes, its closing brace included.
+    fn scan_flow(&mut self, s: &str, col: usize, line: usize, path: &mut Vec<Seg>) -> usize {
+        let b = s.as_bytes();
+        let mut i = 1;
+        loop {
+            while i < b.len() && (b[i] == b' ' || b[i] == b'\t' || b[i] == b',') {
+                i += 1;
+            }
+            match b.get(i) {
+                None => return b.len(),
+                Some(b'}') => return i + 1,
+                _ => {}
+            }
+            let key_at = i;
+            let k = match b[i] {
+                q @ (b'"' | b'\'') => {
+                    let end = s[i + 1..].find(q as char).map_or(b.len(), |e| i + 1 + e);
+                    let k = &s[i + 1..end];
+                    i = (end + 1).min(b.len());
+                    k
+                }
+                b'{' | b'[' => {
+                    i += skip_balanced(&s[i..]);
+                    continue;
+                }
+                _ => {
+                    let end = s[i..].find([':', ',', '}', '{', '[']).map_or(b.len(), |e| i + e);
+                    let k = s[i..end].trim();
+                    i = end;
+                    k
                 }
             };
-            stack.push((indent, Seg::Index(idx)));
-            if path_is(&stack, path) {
-                return Some((ln + 1, indent + 1));
+            while i < b.len() && b[i] == b' ' {
+                i += 1;
             }
-            indent += 2;
-            rest = after.trim_start();
-            if rest.is_empty() {
-                break;
+            if b.get(i) != Some(&b':') {
+                continue;
             }
-        }
-        if rest.is_empty() {
-            continue;
-        }
-        if let Some((k, value)) = split_key(rest) {
-            while stack.last().is_some_and(|(i, _)| *i >= indent) {
-                stack.pop();
+            path.push(Seg::Key(k.to_string()));
+            self.record(path.clone(), (line, col + key_at + 1));
+            i += 1;
+            while i < b.len() && b[i] == b' ' {
+                i += 1;
             }
-            seq_count.retain(|(i, _, _)| *i < indent);
-            stack.push((indent, Seg::Key(k.to_string())));
-            if path_is(&stack, path) {
-                return Some((ln + 1, indent + 1));
+            match b.get(i) {
+                Some(b'{') => i += self.scan_flow(&s[i..], col + i, line, path),
+                Some(b'[') => i += skip_balanced(&s[i..]),
+                Some(&q @ (b'"' | b'\'')) => i = s[i + 1..].find(q as char).map_or(b.len(), |e| i + 1 + e + 1),
+                _ => i = s[i..].find([',', '}']).map_or(b.len(), |e| i + e),
             }
-            // A flow mapping on the same line: `set: {a: 1, b: 2}`.
-            if let (Some(Seg::Key(last)), true) = (path.last(), path.len() == stack.len() + 1)
-                && path_is(&stack, &path[..path.len() - 1])
-                && value.trim_start().starts_with('{')
-            {
-                let col_base = line.len() - value.len();
-                if let Some(off) = find_flow_key(value, last) {
-                    return Some((ln + 1, col_base + off + 1));
-                }
-            }
+            path.pop();
         }
     }
-    None
 }
 
-fn path_is(stack: &[(usize, Seg)], path: &[Seg]) -> bool {
-    stack.len() == path.len() && stack.iter().zip(path).all(|((_, a), b)| a == b)
+/// Bytes of the bracketed collection `s` starts with, quotes respected.
+fn skip_balanced(s: &str) -> usize {
+    let mut depth = 0usize;
+    let mut quote: Option<char> = None;
+    for (i, c) in s.char_indices() {
+        match (quote, c) {
+            (Some(q), c) if c == q => quote = None,
+            (Some(_), _) => {}
+            (None, '"' | '\'') => quote = Some(c),
+            (None, '{' | '[') => depth += 1,
+            (None, '}' | ']') => {
+                depth = depth.saturating_sub(1);
+                if depth == 0 {
+                    return i + 1;
+                }
+            }
+            _ => {}
+        }
+    }
+    s.len()
 }
 
 fn strip_comment(line: &str) -> &str {
@@ -134,20 +228,6 @@ fn split_key(s: &str) -> Option<(&str, &str)> {
     Some((k.trim(), v))
 }
 
-fn find_flow_key(value: &str, key: &str) -> Option<usize> {
-    let mut from = 0;
-    while let Some(pos) = value[from..].find(key) {
-        let at = from + pos;
-        let before = value[..at].trim_end().chars().last();
-        let after = value[at + key.len()..].trim_start();
-        if matches!(before, Some('{') | Some(',')) && after.starts_with(':') {
-            return Some(at);
-        }
-        from = at + key.len();
-    }
-    None
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -166,6 +246,15 @@ mod tests {
         assert_eq!(locate(DOC, &[key("blocks"), key("gate"), key("set"), key("guard")]), (11, 21));
         assert_eq!(locate(DOC, &[key("settings"), key("bw"), key("doc")]), (3, 24));
         assert_eq!(locate(DOC, &[key("wiring"), Seg::Index(1)]), (15, 3));
+    }
+
+    #[test]
+    fn finds_keys_in_nested_one_line_mappings() {
+        let doc = "blocks:\n  gate: {kind: lobe_gate, set: {lobes: 'a,b', guard: 1e30 samples}}\n  x: {kind: k, set: {a: [1, {b: 2}], c: 3}}\n";
+        assert_eq!(locate(doc, &[key("blocks"), key("gate"), key("set"), key("guard")]), (2, 47));
+        assert_eq!(locate(doc, &[key("blocks"), key("gate"), key("set"), key("lobes")]), (2, 33));
+        assert_eq!(locate(doc, &[key("blocks"), key("x"), key("set"), key("c")]), (3, 38));
+        assert_eq!(locate(doc, &[key("blocks"), key("x"), key("set"), key("b")]), (3, 16));
     }
 
     #[test]

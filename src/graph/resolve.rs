@@ -7,7 +7,7 @@
 
 use super::error::GraphError;
 use super::file::{BlockBody, BlockDecl, GraphFile, Source, parse_yaml, raw_value, read_text};
-use super::locate::{Seg, key, locate};
+use super::locate::{Positions, Seg, key};
 use lobeflow_blocks::{BlockSpec, ItemKind, ParamType, Params, RawValue, Registry, Value};
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
@@ -86,9 +86,10 @@ impl Overrides {
                 hint: None,
             });
         };
+        let positions = Positions::of(&text);
         for (k, v) in map {
             let name = k.as_str().unwrap_or_default().to_string();
-            let (line, column) = locate(&text, &[key(&name)]);
+            let (line, column) = positions.find(&[key(&name)]);
             let value = raw_value(v).ok_or_else(|| GraphError {
                 file: path.to_path_buf(),
                 line,
@@ -161,11 +162,17 @@ enum Local {
     Composite { inputs: Vec<(String, (usize, usize))>, outputs: Vec<(String, (usize, usize))> },
 }
 
+/// Most graph files nested through `use:` (each level costs stack; real
+/// graphs nest two or three deep).
+pub const MAX_USE_DEPTH: usize = 64;
+
 pub(super) struct Builder<'r> {
     registry: &'r Registry,
     pub(super) blocks: Vec<ResolvedBlock>,
     pub(super) wires: Vec<Wire>,
     pub(super) wire_at: Vec<(Arc<Source>, Vec<Seg>)>,
+    /// The wire into each connected input, to find a second one at once.
+    pub(super) wire_into: HashMap<(usize, usize), usize>,
     /// Files being expanded, to catch a file that includes itself.
     stack: Vec<PathBuf>,
 }
@@ -202,8 +209,14 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
                 .with_hint(format!("give it a default, or set it: --set {}=VALUE", decl.name)));
         }
     }
-    let mut b =
-        Builder { registry, blocks: Vec::new(), wires: Vec::new(), wire_at: Vec::new(), stack: vec![canonical(path)] };
+    let mut b = Builder {
+        registry,
+        blocks: Vec::new(),
+        wires: Vec::new(),
+        wire_at: Vec::new(),
+        wire_into: HashMap::new(),
+        stack: vec![canonical(path)],
+    };
     let scope = expand(&file, "", &settings, &mut b)?;
     // A composite checked on its own: the inputs it exposes are wired by
     // whoever uses it, so they count as wired here.
@@ -214,6 +227,7 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
     }
     super::checks::required_inputs(&b, &exposed)?;
     super::checks::no_cycles(&b)?;
+    super::checks::physical_sanity(&b)?;
     let ordered: Vec<KnobValue> = file.settings.iter().map(|d| settings[&d.name].clone()).collect();
     Ok(ResolvedGraph {
         path: path.to_path_buf(),
@@ -238,7 +252,7 @@ fn settle_knobs(
     let src = &file.source;
     let mut out = BTreeMap::new();
     for d in &file.settings {
-        let (line, _) = locate(&src.text, &[key("settings"), key(&d.name)]);
+        let (line, _) = src.locate(&[key("settings"), key(&d.name)]);
         let mut v = KnobValue {
             name: d.name.clone(),
             value: d.default.clone().unwrap_or(RawValue::List(Vec::new())),
@@ -328,7 +342,7 @@ fn expand(
                                     format!("built-in default of '{}' on kind '{}' is bad: {m}", ps.name, spec.kind),
                                 )
                             })?;
-                            params.insert(ps.name, v);
+                            params.insert_declared(ps, v);
                             sources.insert(ps.name.to_string(), "block default".into());
                         }
                         None => {
@@ -341,7 +355,7 @@ fn expand(
                         }
                     }
                 }
-                let (line, _) = locate(&src.text, &at);
+                let (line, _) = src.locate(&at);
                 b.blocks.push(ResolvedBlock { name: full, spec, params, sources, file: src.path.clone(), line });
                 scope.insert(decl.name.clone(), Local::Block(b.blocks.len() - 1));
             }
@@ -352,6 +366,15 @@ fn expand(
                     return Err(src.error(
                         &[key("blocks"), key(&decl.name), key("use")],
                         format!("'{rel}' includes itself (directly or through other files)"),
+                    ));
+                }
+                if b.stack.len() >= MAX_USE_DEPTH {
+                    return Err(src.error(
+                        &[key("blocks"), key(&decl.name), key("use")],
+                        format!(
+                            "'{rel}' would be composite number {} in a chain of 'use:' files; at most {MAX_USE_DEPTH} may nest",
+                            b.stack.len() + 1
+                        ),
                     ));
                 }
                 let child = GraphFile::load(&child_path).map_err(|e| {
@@ -381,7 +404,7 @@ fn expand(
                             value,
                             unit: cd.unit.clone(),
                             doc: cd.doc.clone(),
-                            origin: Origin::Parent { file: src.path.clone(), line: locate(&src.text, &pat).0 },
+                            origin: Origin::Parent { file: src.path.clone(), line: src.locate(&pat).0 },
                             base,
                         },
                     );
@@ -469,10 +492,10 @@ fn set_params(
         }
         let from = match &knob {
             Some(k) => format!("knob {} ({})", k.name, k.origin),
-            None => format!("{}:{}", src.path.display(), locate(&src.text, &pat).0),
+            None => format!("{}:{}", src.path.display(), src.locate(&pat).0),
         };
         sources.insert(pname.clone(), from);
-        params.insert(pname, parsed);
+        params.insert_declared(ps, parsed);
     }
     Ok((params, sources))
 }
@@ -597,12 +620,13 @@ fn connect(
             )
             .with_hint(suggest_output(b, from.0, in_spec.kind)));
     }
-    if let Some(w) = b.wires.iter().find(|w| w.to == to) {
+    if let Some(w) = b.wire_into.get(&to).map(|&wi| &b.wires[wi]) {
         return Err(src.error(
             at,
             format!("input {}.{} is already wired from {}", b.blocks[to.0].name, in_spec.name, b.blocks[w.from.0].name),
         ));
     }
+    b.wire_into.insert(to, b.wires.len());
     b.wires.push(Wire { from, to });
     b.wire_at.push((Arc::clone(src), at.to_vec()));
     Ok(())

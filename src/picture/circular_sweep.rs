@@ -97,6 +97,11 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
     }))
 }
 
+/// Memory one range bin of the window takes by the end of a run: the
+/// average (16 bytes), the trace (16) and its table row (about 700: seven
+/// cells with their names), estimated generously.
+const BYTES_PER_BIN: f64 = 768.0;
+
 struct CircularSweep {
     params: Params,
     revolutions: f64,
@@ -115,6 +120,13 @@ impl Block for CircularSweep {
         };
         if self.average.is_none() {
             let window = BinWindow::from_params(&self.params, "range_start", "range_end", &sweep)?;
+            // Each bin becomes an averaged value, a trace point and a table
+            // row of seven named cells at the end.
+            lobeflow_blocks::check_memory(
+                &format!("a range window ('range_start'..'range_end') of {} bins", window.len),
+                window.len as f64 * BYTES_PER_BIN,
+            )
+            .map_err(|e| BlockError::at(e, sweep.stamp.index))?;
             self.average = Some(SweepAverage::new(window, self.memory, sweep.stamp));
         }
         if let Some(avg) = self.average.as_mut() {

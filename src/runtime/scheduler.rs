@@ -69,6 +69,9 @@ pub type ProgressFn = Arc<dyn Fn(u64, u64) + Send + Sync>;
 /// capture chunk, so a pulsed chain hands work between workers about once
 /// per chunk (64 measured slower on two workers: 2.5x the wake-ups).
 const MAX_BATCH: usize = 256;
+/// A merge waits for a starved input until another of its queues holds this
+/// many times the queue bound (see `take_step`).
+const STARVED_MERGE_FACTOR: usize = 64;
 /// A batch stops growing once it holds this many samples (four default capture chunks).
 const MAX_BATCH_SAMPLES: usize = 1 << 16;
 /// A sleeping worker is woken only when it would save at least this much of
@@ -308,6 +311,12 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
         }
         return Some(Step::Process);
     }
+    // Breaking a stall, a merge whose other inputs have piled up far past
+    // their bound stops waiting for a starved input (one that may never
+    // produce, e.g. notices that never come): otherwise the stall breaker
+    // would overfill the piled-up queue one item at a time without end.
+    // Only this pathological case gives up the strict time order.
+    let starved_ok = relax && nd.wired.iter().any(|&(_, e)| edges[e].queue.len() >= capacity * STARVED_MERGE_FACTOR);
     while batch.len() < max_items && samples < MAX_BATCH_SAMPLES {
         let mut earliest: Option<(usize, usize, f64)> = None;
         let mut waiting = false;
@@ -320,7 +329,7 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
                         earliest = Some((port, e, t));
                     }
                 }
-                None if ed.closed => {}
+                None if ed.closed || starved_ok => {}
                 None => {
                     waiting = true; // wait for every open input, so the merge is by time
                     break;
@@ -331,6 +340,9 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
             break;
         }
         let Some((port, e, _)) = earliest else {
+            if starved_ok && nd.wired.iter().any(|&(_, e)| !edges[e].closed) {
+                break;
+            }
             // Every input has ended and is drained.
             if batch.is_empty() {
                 return Some(Step::Finish);

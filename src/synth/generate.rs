@@ -125,6 +125,11 @@ fn track_numbers<Q: Quantity + Default>(t: &Track<Q>) -> Vec<f64> {
     v
 }
 
+/// Above zero (false for NaN).
+fn positive(x: f64) -> bool {
+    x.partial_cmp(&0.0) == Some(std::cmp::Ordering::Greater)
+}
+
 fn db_amplitude(db: f64) -> f64 {
     10f64.powf(db / 20.0)
 }
@@ -230,7 +235,7 @@ impl Model {
             if numbers.iter().any(|v| !v.is_finite()) {
                 return Err(err(at, "every value of a track must be a finite number".into()));
             }
-            if numbers.len() > 2 && !(numbers[3] > 0.0) {
+            if numbers.len() > 2 && !positive(numbers[3]) {
                 return Err(err(
                     &format!("{at}/swing/period"),
                     format!("swing period {} s must be positive", numbers[3]),
@@ -279,7 +284,7 @@ impl Model {
                         format!("range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m"),
                     ));
                 }
-                if !(rmin > 0.0) {
+                if !positive(rmin) {
                     return Err(err(
                         "target/range",
                         format!("range falls to {rmin} m during the capture; it must stay positive"),
@@ -316,7 +321,7 @@ impl Model {
                 if c.trigger {
                     return Err(err("capture/trigger", "a beacon has no transmit trigger; remove `trigger`".into()));
                 }
-                if !(b.tone.0.abs() < rate / 2.0) {
+                if b.tone.0.abs().partial_cmp(&(rate / 2.0)) != Some(std::cmp::Ordering::Less) {
                     return Err(err(
                         &at("tone"),
                         format!("tone {} Hz must lie within +-{} Hz (half the sample rate)", b.tone.0, rate / 2.0),
@@ -332,7 +337,7 @@ impl Model {
             }
         };
         let transient = match &s.switch_transient {
-            Some(t) if !(t.length.0 > 0.0) => {
+            Some(t) if !positive(t.length.0) => {
                 return Err(err("switch_transient/length", "length must be positive".into()));
             }
             Some(t) => Some((db_amplitude(t.level.0), t.length.0)),

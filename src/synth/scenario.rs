@@ -462,8 +462,8 @@ pub struct ScenarioFile {
 impl ScenarioFile {
     /// Read and parse `path`; errors carry `file:line:column`.
     pub fn load(path: &Path) -> Result<ScenarioFile, String> {
-        let text =
-            std::fs::read_to_string(path).map_err(|e| format!("cannot read scenario {}: {e}", path.display()))?;
+        let text = crate::graph::file::read_limited(path)
+            .map_err(|e| format!("cannot read scenario {}: {e}", path.display()))?;
         Self::parse(path, text)
     }
 

@@ -4,6 +4,31 @@
 
 use super::switch_sync::min_spacing;
 
+/// Spread (standard deviation) below which one sync level is called flat:
+/// a few percent of the usual staircase spacing (levels 0.5 apart or more).
+const FLAT_SPREAD: f64 = 0.05;
+
+/// Why a single level (or none) was found: a flat channel, or one that
+/// wanders like noise (which a flat message would misdescribe).
+fn one_level_msg(finite: &[f64], lo: f64, hi: f64, level: Option<f64>) -> String {
+    let n = finite.len() as f64;
+    let mean = finite.iter().sum::<f64>() / n;
+    let spread = (finite.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
+    if spread <= FLAT_SPREAD {
+        return format!(
+            "sync channel is flat in the learning window ({} samples, all near {:.4}, spread {spread:.4}): no transitions, \
+             so no lobe levels to learn; check the channel map, or use timing: schedule",
+            finite.len(),
+            level.unwrap_or(mean)
+        );
+    }
+    format!(
+        "sync channel looks like noise in the learning window ({} samples from {lo:.4} to {hi:.4}, mean {mean:.4}, \
+         spread {spread:.4}, no separate levels): no lobe staircase to learn; check the channel map, or use timing: schedule",
+        finite.len()
+    )
+}
+
 /// Learn `lobes` sync levels (ascending) from `values`.
 ///
 /// Levels are the peaks of a smoothed histogram that are separated by a deep
@@ -70,8 +95,8 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
     }
     accepted.sort_unstable();
     let mut levels: Vec<f64> = accepted.iter().map(|&b| lo + (b as f64 + 0.5) * width).collect();
-    if levels.len() == 1 {
-        return Err(flat_msg(levels[0]));
+    if levels.len() <= 1 {
+        return Err(one_level_msg(&finite, lo, hi, levels.first().copied()));
     }
     if levels.len() != lobes {
         let list: Vec<String> = levels.iter().map(|l| format!("{l:.3}")).collect();
@@ -100,4 +125,21 @@ pub fn learn_levels(values: &[f32], lobes: usize) -> Result<Vec<f64>, String> {
         levels = refined;
     }
     Ok(levels)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dsp::rng::Rng;
+
+    #[test]
+    fn noise_on_the_sync_channel_is_not_called_flat() {
+        let mut rng = Rng::new(17);
+        let noise: Vec<f32> = (0..20_000).map(|_| (0.3 * rng.gaussian()) as f32).collect();
+        let e = learn_levels(&noise, 4).unwrap_err();
+        assert!(e.contains("looks like noise") && !e.contains("flat"), "{e}");
+        let steady: Vec<f32> = (0..20_000).map(|_| (0.2 + 0.01 * rng.gaussian()) as f32).collect();
+        let e = learn_levels(&steady, 4).unwrap_err();
+        assert!(e.contains("sync channel is flat"), "{e}");
+    }
 }

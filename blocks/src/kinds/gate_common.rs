@@ -50,6 +50,11 @@ impl GateConfig {
     pub fn source(&self, rate: f64, pri: Option<f64>) -> Result<(SwitchSync, u64), String> {
         let guard = self.samples("guard", rate, pri)?.round().max(0.0) as u64;
         let dwell = self.samples("dwell", rate, pri)?;
+        if dwell > 0.0 && guard as f64 >= dwell {
+            return Err(format!(
+                "guard of {guard} samples is not shorter than the dwell of {dwell} samples at {rate} S/s; every sample would be left out"
+            ));
+        }
         let source = if self.sync_timing {
             SwitchSync::from_sync(SyncSettings {
                 names: self.names.clone(),

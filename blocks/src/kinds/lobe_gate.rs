@@ -40,6 +40,8 @@ fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
         guard_until: 0,
         held: None,
         last_stamp: None,
+        switches_seen: 0,
+        segments_out: 0,
     }))
 }
 
@@ -59,6 +61,11 @@ struct LobeGate {
     /// The latest segment, held until we know whether it ends its dwell.
     held: Option<LobeSegment>,
     last_stamp: Option<Stamp>,
+    /// Switches passed and segments handed on after the first switch: a run
+    /// of switches with no segment means the guard swallows every dwell
+    /// (an error, not an empty table).
+    switches_seen: u64,
+    segments_out: u64,
 }
 
 impl LobeGate {
@@ -142,6 +149,7 @@ impl LobeGate {
             self.emit(&piece, from, at, out);
             self.switches.pop_front();
             self.flush(true, out);
+            self.switches_seen += 1;
             let dwell = self.tag.as_ref().map_or(0, |t| t.dwell + 1);
             self.tag = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell, dwell_start: at });
             self.guard_until = at + self.guard;
@@ -165,6 +173,8 @@ impl LobeGate {
 
     fn flush(&mut self, dwell_end: bool, out: &mut Outputs) {
         if let Some(mut seg) = self.held.take() {
+            // The dwell before the first switch seen is not cut by a guard.
+            self.segments_out += u64::from(self.switches_seen > 0);
             seg.dwell_end = dwell_end;
             out.push(0, Item::Segment(Box::new(seg)));
         }
@@ -207,6 +217,15 @@ impl Block for LobeGate {
         self.take_events(out);
         self.release(u64::MAX, out);
         self.flush(true, out);
+        if self.segments_out == 0 && self.switches_seen >= 2 {
+            return Err(BlockError::at(
+                format!(
+                    "all {} dwells lay inside the guard of {} samples after their switch: no samples were handed on; make 'guard' shorter than a dwell",
+                    self.switches_seen, self.guard
+                ),
+                self.last_stamp.map_or(0, |s| s.index),
+            ));
+        }
         if let Some(stamp) = self.last_stamp {
             self.router.summarise(out, stamp);
         }

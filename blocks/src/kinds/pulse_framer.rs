@@ -226,6 +226,13 @@ impl PulseFramer {
                 self.prf
             )));
         }
+        // The warm-up buffers 2.5 intervals and every sweep is one interval
+        // of complex samples: a very low PRF would need gigabytes.
+        crate::limits::check_memory(
+            &format!("prf {} Hz at {rate} S/s (a pulse interval of {pri:.0} samples; 2.5 intervals of 8-byte samples are buffered)", self.prf),
+            2.5 * pri * 8.0,
+        )
+        .map_err(BlockError::new)?;
         let warm = match self.mode {
             Mode::Schedule => 0,
             _ => ((2.5 * pri).ceil() as u64).max(4 * FLOOR_BLOCK as u64),

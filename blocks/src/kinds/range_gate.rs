@@ -144,6 +144,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         skipped_short: 0,
         untagged: 0,
         no_noise: 0,
+        before_transmit: 0,
         noise_floor: BTreeMap::new(),
         mismatch_reported: false,
         blank_reported: false,
@@ -251,6 +252,8 @@ struct RangeGate {
     skipped_short: u64,
     untagged: u64,
     no_noise: u64,
+    /// Dwells whose range came out negative (see `close_dwell`).
+    before_transmit: u64,
     /// Running noise power per lobe: (name, smoothed power, dwells seen).
     noise_floor: BTreeMap<usize, (Arc<str>, f64, u64)>,
     mismatch_reported: bool,
@@ -407,6 +410,24 @@ impl RangeGate {
         self.cycle.add(&summary, sums.start);
         let mid = Stamp::new(sums.mid_index(), geo.rate);
         self.check_noise_floor(&cur.tag, noise, mid, out);
+        // A centroid less than half a pulse past the transmit instant means
+        // the echo cannot be as long as `pulse` says: no range is given
+        // rather than a negative one.
+        let mut range_m = summary.range_bin.map(|b| b * range_bin_m(geo.rate));
+        if range_m.is_some_and(|r| r < 0.0) {
+            self.before_transmit += 1;
+            if self.before_transmit == 1 {
+                out.notice(
+                    mid,
+                    format!(
+                        "the echo's range comes out at {:.0} m, before the transmit instant: 'pulse' ({} samples) is longer than the echo; ranges like this are left empty",
+                        range_m.unwrap_or(0.0),
+                        geo.pulse_samples
+                    ),
+                );
+            }
+            range_m = None;
+        }
         out.push(
             0,
             Item::Dwell(DwellRecord {
@@ -416,7 +437,7 @@ impl RangeGate {
                 noise_power: noise,
                 snr: summary.energy_ratio,
                 var_ln_amp: summary.var_ln_amp,
-                range_m: summary.range_bin.map(|b| b * range_bin_m(geo.rate)),
+                range_m,
                 used: sums.pulses(),
             }),
         );
@@ -498,6 +519,12 @@ impl Block for RangeGate {
         }
         if self.no_noise > 1 {
             out.notice(end, format!("{} dwells had no noise reference samples and were skipped", self.no_noise));
+        }
+        if self.before_transmit > 1 {
+            out.notice(
+                end,
+                format!("{} dwells gave a range before the transmit instant; left empty", self.before_transmit),
+            );
         }
         if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
             out.notice(

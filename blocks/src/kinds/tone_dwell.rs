@@ -379,7 +379,19 @@ impl Block for ToneDwell {
                 seg.chunk.stamp.index,
             ));
         }
-        seg.chunk.stamp.checked_rate("tone_dwell")?;
+        let rate = seg.chunk.stamp.checked_rate("tone_dwell")?;
+        // Complex baseband holds tones within ±rate/2; one beyond would be
+        // measured at its alias and look like a good beacon.
+        if !self.band_power && self.tone_hz.abs() > rate / 2.0 {
+            return Err(BlockError::at(
+                format!(
+                    "tone_dwell: tone {} Hz lies outside the band of ±{} Hz that a stream of {rate} S/s holds",
+                    self.tone_hz,
+                    rate / 2.0
+                ),
+                seg.chunk.stamp.index,
+            ));
+        }
         self.add(&seg, out);
         if seg.dwell_end {
             self.close(out)?;

@@ -1,0 +1,8 @@
+#![no_main]
+//! Fuzz target: see `lobeflow::fuzzing::manifest`.
+
+use libfuzzer_sys::fuzz_target;
+
+fuzz_target!(|data: &[u8]| {
+    let _ = lobeflow::fuzzing::manifest(data);
+});
