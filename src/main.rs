@@ -199,21 +199,8 @@ enum Command {
     Inspect {
         /// WAV, SigMF recording (either file or base name), raw file, or '-' for standard input.
         capture: String,
-        /// auto, wav, sigmf or raw.
-        #[arg(long, default_value = "auto")]
-        format: String,
-        /// SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, ...).
-        #[arg(long)]
-        datatype: Option<String>,
-        /// Sample rate, e.g. 2.4MS/s (needed for raw data).
-        #[arg(long)]
-        rate: Option<String>,
-        /// Channels in a raw file.
-        #[arg(long)]
-        channels: Option<usize>,
-        /// Channel roles, comma-separated (i,q,sync,trigger,- or iq,sync,trigger,-).
-        #[arg(long)]
-        roles: Option<String>,
+        #[command(flatten)]
+        how: CaptureFlags,
         /// Look at no more than this many seconds from the start.
         #[arg(long, default_value_t = 60.0)]
         seconds: f64,
@@ -354,14 +341,14 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             };
             commands::batch::batch(&cmd)
         }
-        Command::Inspect { capture, format, datatype, rate, channels, roles, seconds } => {
+        Command::Inspect { capture, how, seconds } => {
             let args = commands::inspect::args_from_text(
                 capture,
-                &format,
-                datatype,
-                rate.as_deref(),
-                channels,
-                roles.as_deref(),
+                how.format.as_deref().unwrap_or("auto"),
+                how.datatype,
+                how.rate.as_deref(),
+                how.channels,
+                how.roles.as_deref(),
                 seconds,
             )?;
             print_out(&commands::inspect::inspect(&args)?)

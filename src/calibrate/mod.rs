@@ -65,6 +65,24 @@ pub struct FittedPattern {
     pub residual_count: usize,
 }
 
+impl FittedPattern {
+    /// One line for a person: beamwidth and squint with their sigmas, and
+    /// the angle residual (shared by the console summary and the params
+    /// file's comments).
+    pub fn summary_line(&self, best: bool) -> String {
+        format!(
+            "{:<8} beamwidth {:7.3} +- {:.3} deg  squint {:6.3} +- {:.3} deg  residual {:.4} deg rms{}",
+            self.fit.name,
+            self.fit.beam.beamwidth_deg,
+            self.fit.beamwidth_sigma,
+            self.fit.squint,
+            self.fit.squint_sigma,
+            self.residual_rms_deg,
+            if best { "  (best model)" } else { "" }
+        )
+    }
+}
+
 /// Everything measured for one lobe pair.
 #[derive(Clone, Debug)]
 pub struct PairCalibration {

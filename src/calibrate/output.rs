@@ -90,17 +90,7 @@ pub fn params_yaml(cal: &Calibration, args: &CalibrateArgs) -> String {
             l.crossover_deg, l.crossover_sigma
         );
         for (i, m) in p.models.iter().enumerate() {
-            let _ = writeln!(
-                s,
-                "#   {:<8} beamwidth {:.3} +- {:.3} deg, squint {:.3} +- {:.3} deg, residual {:.4} deg rms{}",
-                m.fit.name,
-                m.fit.beam.beamwidth_deg,
-                m.fit.beamwidth_sigma,
-                m.fit.squint,
-                m.fit.squint_sigma,
-                m.residual_rms_deg,
-                if i == p.best { "  (best model)" } else { "" }
-            );
+            let _ = writeln!(s, "#   {}", m.summary_line(i == p.best));
         }
         let t = &p.table;
         let _ = writeln!(

@@ -85,17 +85,7 @@ pub fn summary(cal: &Calibration) -> String {
             l.crossover_deg, l.crossover_sigma
         );
         for (i, m) in p.models.iter().chain(std::iter::once(&p.table)).enumerate() {
-            let _ = writeln!(
-                s,
-                "  {:<8} beamwidth {:7.3} +- {:.3} deg  squint {:6.3} +- {:.3} deg  residual {:.4} deg rms{}",
-                m.fit.name,
-                m.fit.beam.beamwidth_deg,
-                m.fit.beamwidth_sigma,
-                m.fit.squint,
-                m.fit.squint_sigma,
-                m.residual_rms_deg,
-                if i == p.best { "  best model" } else { "" }
-            );
+            let _ = writeln!(s, "  {}", m.summary_line(i == p.best));
         }
     }
     let _ = writeln!(s, "usable region of the measured pattern: +-{:.2} deg", cal.joint.usable_deg);
