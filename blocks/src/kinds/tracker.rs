@@ -29,7 +29,7 @@ pub const SPEC: BlockSpec = BlockSpec {
             name: "method",
             ty: ParamType::Choice(&["alpha_beta", "kalman", "smoother", "auto"]),
             default: Some("alpha_beta"),
-            doc: "causal: fixed-gain alpha_beta, or kalman weighting each estimate by its sigma; smoother: fixed-interval (output at the end of input); auto: smoother unless 'capture' is '-' (live), then alpha_beta",
+            doc: "causal: fixed-gain alpha_beta, or kalman weighting each estimate by its sigma; smoother: fixed-interval (output at the end of input); auto: smoother on recordings; on live input (capture '-', a FIFO, pushed samples) alpha_beta",
         },
         ParamSpec {
             name: "capture",
@@ -101,8 +101,10 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let live = p.text("capture")?.trim() == "-";
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+    // Live: standard input named in the graph, or a run the engine knows is
+    // fed as it goes (a FIFO, `--input -`, samples pushed from memory).
+    let live = p.text("capture")?.trim() == "-" || ctx.files.policy().live;
     let smoothing = match p.text("method")? {
         "smoother" => true,
         "auto" => !live,
