@@ -86,7 +86,10 @@ fn first_rows_arrive_before_a_slow_producer_finishes() {
     let err = stderr_text(&mut child);
     assert!(status.success(), "{status}: {err}");
     let got: Vec<(Instant, String)> = lines.iter().collect();
-    assert_eq!(got[0].1, "time_s,axis,error_deg,sigma_deg,snr_db,range_m,flag,ratio_db,tracked_deg,absolute_deg");
+    assert_eq!(
+        got[0].1,
+        "time_s,axis,error_deg,sigma_deg,snr_db,range_m,flag,ratio_db,tracked_deg,tracked_sigma_deg,absolute_deg"
+    );
     let first_row = got.get(1).expect("rows were printed");
     assert!(
         first_row.0 + Duration::from_secs(1) < producer_done,

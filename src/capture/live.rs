@@ -291,6 +291,15 @@ impl CaptureReader for LiveReader {
                         self.done_frames,
                     ));
                 }
+                Some(0) if self.done_bytes == 0 && max_frames > 0 => {
+                    return Err(BlockError::at(
+                        format!(
+                            "{}: the capture holds no samples: the stream ended before its first sample",
+                            self.info.path
+                        ),
+                        0,
+                    ));
+                }
                 Some(n) => return Ok(n),
                 None => {}
             }

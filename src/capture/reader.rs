@@ -311,10 +311,14 @@ pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, Bl
         Format::Auto => guess_format(path, opts)?,
         f => f,
     };
-    if is_pipe(path) && format != Format::Raw {
+    // A named FIFO may carry WAV (its header is read front to back); any
+    // other stream is raw data.
+    let wav_fifo = format == Format::Wav && path != "-";
+    if is_pipe(path) && format != Format::Raw && !wav_fifo {
         let what = if path == "-" { "standard input".to_string() } else { format!("{path} (a FIFO or device)") };
         return Err(BlockError::new(format!(
-            "{what} can only be read as a stream of raw data (format raw with a datatype and a rate), not as {}",
+            "{what} can only be read as a stream of raw data (format raw with a datatype and a rate){}, not as {}",
+            if path == "-" { "" } else { " or WAV" },
             format.name()
         )));
     }
@@ -346,6 +350,9 @@ fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
         let ext = Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();
         if opts.datatype.is_some() || DataType::parse(&ext).is_ok() {
             return Ok(Format::Raw);
+        }
+        if path != "-" && matches!(ext.as_str(), "wav" | "wave") {
+            return Ok(Format::Wav);
         }
         let what = if path == "-" { "standard input ('-')".to_string() } else { format!("{path} (a FIFO or device)") };
         return Err(BlockError::new(format!(
