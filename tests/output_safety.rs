@@ -98,17 +98,11 @@ fn an_output_that_is_an_input_is_refused_by_run_and_check() {
     std::fs::write(&capture, &bytes).unwrap();
     let g = graph_with_table_path(&dir, "$input");
     let g = g.to_str().unwrap();
+    let run_into = |out: &Path| {
+        lobeflow(&["run", g, "--input", capture.to_str().unwrap(), "--rate", "250kS/s", "--out", out.to_str().unwrap()])
+    };
     // The capture's own folder as --out: the table would be the capture.
-    let o = lobeflow(&[
-        "run",
-        g,
-        "--input",
-        capture.to_str().unwrap(),
-        "--rate",
-        "250kS/s",
-        "--out",
-        dir.to_str().unwrap(),
-    ]);
+    let o = run_into(&dir);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(stderr(&o).contains("is an input of the run"), "{}", stderr(&o));
     assert!(stderr(&o).contains("block 'angles' (table_writer), parameter 'path'"), "{}", stderr(&o));
@@ -118,16 +112,7 @@ fn an_output_that_is_an_input_is_refused_by_run_and_check() {
     assert!(stderr(&o).contains("is an input of the run"), "{}", stderr(&o));
     // Elsewhere the same path lies outside --out, which is refused too.
     let out = dir.join("out");
-    let o = lobeflow(&[
-        "run",
-        g,
-        "--input",
-        capture.to_str().unwrap(),
-        "--rate",
-        "250kS/s",
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    let o = run_into(&out);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("not inside the output folder"), "{}", stderr(&o));
     assert_eq!(std::fs::read(&capture).unwrap(), bytes);
