@@ -23,6 +23,7 @@ pub mod batch;
 pub mod calibrate;
 pub mod capture;
 pub mod commands;
+pub mod config;
 pub mod error;
 pub mod external;
 #[doc(hidden)]

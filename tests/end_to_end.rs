@@ -143,9 +143,9 @@ fn score(angles: &Table, truth: &Table, axis: &str) -> Scores {
 fn pulsed_scenario(snr_db: f64, seed: u64, az: &str, el: &str) -> String {
     format!(
         "name: e2e pulsed\nseed: {seed}\ncapture: {{sample_rate: 1 MS/s, duration: 4 s, format: wav_f32, sync: channel}}\n\
-antenna: {{beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg, way: two_way}}\n\
+antenna: {{beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg, way: two}}\n\
 lobes:\n  - {{name: right, toward: right}}\n  - {{name: up, toward: up}}\n  - {{name: left, toward: left}}\n  - {{name: down, toward: down}}\n\
-signal:\n  pulsed: {{prf: 4 kHz, pulse_length: 3 us, pulses_per_dwell: 4, first_transmit: 0.1 ms, switch_lead: 40 us, snr: {snr_db} dB, leakage: 40 dB, fluctuation: none, phase: per_pulse}}\n\
+signal:\n  pulsed: {{prf: 4 kHz, pulse: 3 us, pulses_per_dwell: 4, first_transmit: 0.1 ms, switch_lead: 40 us, snr: {snr_db} dB, leakage: 40 dB, fluctuation: none, phase: per_pulse}}\n\
 switch_transient: {{level: 20 dB, length: 10 us}}\n\
 target:\n  az: {az}\n  el: {el}\n  range: {{at: 9 km, per_second: -20 m}}\n"
     )
@@ -194,9 +194,9 @@ fn two_lobe_beacon_chain_meets_its_predicted_spread_at_two_snrs() {
     for (snr, seed) in [(0.0, 31), (6.0, 32)] {
         let sc = format!(
             "name: e2e beacon\nseed: {seed}\ncapture: {{sample_rate: 50 kS/s, duration: 8 s, start: 1 ms, format: sigmf_cf32_le, sync: schedule}}\n\
-antenna: {{beam: cosine, beamwidth: 12 deg, squint: 5 deg, way: one_way}}\n\
+antenna: {{beam: cosine, beamwidth: 12 deg, squint: 5 deg, way: one}}\n\
 lobes:\n  - {{name: left, toward: left}}\n  - {{name: right, toward: right}}\n\
-signal:\n  beacon: {{tone: 5 kHz, snr: {snr} dB, dwell: 4 ms, first_lobe_start: 0 ms}}\n\
+signal:\n  beacon: {{tone: 5 kHz, snr: {snr} dB, dwell: 4 ms, first_start: 0 ms}}\n\
 target:\n  az: {{at: 1.5 deg}}\n  el: {{at: 0 deg}}\n"
         );
         let settings = [("dwell", "4 ms"), ("first_start", "-1 ms"), ("guard", "0.2 ms"), ("tone", "5 kHz")];

@@ -6,8 +6,8 @@ use lobeflow::blocks::{MAX_SAMPLE_RATE, ParamSpec, ParamType, Params, RawValue, 
 use lobeflow::capture::DataType;
 use lobeflow::capture::sigmf::parse_meta;
 use lobeflow::capture::wav::read_header;
+use lobeflow::config::Seg;
 use lobeflow::graph::file::GraphFile;
-use lobeflow::graph::locate::{Seg, locate};
 use proptest::prelude::*;
 use std::path::Path;
 
@@ -164,6 +164,9 @@ proptest! {
                 prop_assert!(e.line >= 1, "{}", e);
             }
         }
-        let _ = locate(&text, &[Seg::Key("blocks".into()), Seg::Key("a".into()), Seg::Key("set".into())]);
+        if let Ok(root) = lobeflow::config::parse(&text) {
+            let at = root.locate(&[Seg::Key("blocks".into()), Seg::Key("a".into()), Seg::Key("set".into())]);
+            prop_assert!(at.line >= 1 && at.column >= 1);
+        }
     }
 }

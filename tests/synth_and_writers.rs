@@ -195,9 +195,9 @@ fn pulsed(snr_db: f64, az_deg: f64, range_m: f64, extra: &str) -> String {
     format!(
         "name: bench two-lobe\nseed: 11\n\
 capture: {{sample_rate: 1 MS/s, duration: 100 ms, format: sigmf_cf32_le, scale: 1, sync: channel, trigger: true}}\n\
-antenna: {{beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg, way: two_way}}\n\
+antenna: {{beam: gaussian, beamwidth: 6 deg, squint: 2.4 deg, way: two}}\n\
 lobes: [{{name: right, toward: right}}, {{name: left, toward: left}}]\n\
-signal:\n  pulsed: {{prf: 1 kHz, pulse_length: 3 us, pulses_per_dwell: 5, first_transmit: 0.2 ms, snr: {snr_db} dB{extra}}}\n\
+signal:\n  pulsed: {{prf: 1 kHz, pulse: 3 us, pulses_per_dwell: 5, first_transmit: 0.2 ms, snr: {snr_db} dB{extra}}}\n\
 target: {{az: {{at: {az_deg} deg}}, range: {{at: {range_m} m}}}}\n"
     )
 }
@@ -331,7 +331,7 @@ fn beacon_one_way_ratio_matches_the_hand_computed_check_value() {
 capture: {sample_rate: 1 MS/s, duration: 8 ms, format: sigmf_cf32_le, scale: 1, sync: schedule}\n\
 antenna: {beam: gaussian, beamwidth: 10 deg, squint: 5 deg}\n\
 lobes: [{name: right, toward: right}, {name: left, toward: left}]\n\
-signal:\n  beacon: {tone: 12.5 kHz, snr: 100 dB, dwell: 1 ms, first_lobe_start: 0.5 ms}\n\
+signal:\n  beacon: {tone: 12.5 kHz, snr: 100 dB, dwell: 1 ms, first_start: 0.5 ms}\n\
 target: {az: {at: 1 deg}}\n";
     let (iq, sync, trig) = generate_all(model(yaml));
     assert!(sync.is_empty() && trig.is_empty());
@@ -351,7 +351,7 @@ target: {az: {at: 1 deg}}\n";
         assert!((a / b - 1.319508).abs() < 2e-5, "A/B = {}", a / b);
         assert!((a / 1e5 - gaussian(4.0, 10.0)).abs() < 1e-5, "one-way gain of the right lobe");
     }
-    // Samples before first_lobe_start belong to the previous (left) dwell.
+    // Samples before first_start belong to the previous (left) dwell.
     let early: num_complex::Complex64 = (0..400)
         .map(|n| {
             let ph = -2.0 * std::f64::consts::PI * 12_500.0 * n as f64 / 1e6;
@@ -471,11 +471,7 @@ fn bad_scenarios_are_refused_with_positions() {
             "used twice",
             ":5:",
         ),
-        (
-            pulsed(10.0, 0.0, 9000.0, "").replace("pulse_length: 3 us", "pulse_length: 3 ms"),
-            "shorter than the PRI",
-            ":7:",
-        ),
+        (pulsed(10.0, 0.0, 9000.0, "").replace("pulse: 3 us", "pulse: 3 ms"), "shorter than the PRI", ":7:"),
         (
             pulsed(10.0, 0.0, 9000.0, "").replace("range: {at: 9000 m}", "range: {at: 9000 m, per_second: -100 km}"),
             "must stay positive",

@@ -18,33 +18,33 @@
 //! ```
 
 use super::error::GraphError;
-use super::locate::{Positions, Seg, key};
+use crate::config::{Document, Entries, Located, ParamValue, Pos, Seg};
 use lobeflow_blocks::RawValue;
-use serde_yaml::Value;
+use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-/// A graph file's text, kept for positions in later messages.
+/// A graph file's text and tree, kept for positions in later messages.
 #[derive(Debug)]
 pub struct Source {
     pub path: PathBuf,
     pub text: String,
-    /// Key positions, indexed on first use.
-    positions: std::sync::OnceLock<Positions>,
+    doc: Document,
 }
 
 impl Source {
-    pub fn new(path: PathBuf, text: String) -> Source {
-        Source { path, text, positions: std::sync::OnceLock::new() }
-    }
     /// 1-based (line, column) of the key path `at` (or its deepest ancestor).
     pub fn locate(&self, at: &[Seg]) -> (usize, usize) {
-        self.positions.get_or_init(|| Positions::of(&self.text)).find(at)
+        let p = self.doc.locate(at);
+        (p.line, p.column)
     }
     /// An error at the key path `at`.
     pub fn error(&self, at: &[Seg], message: impl Into<String>) -> GraphError {
-        let (line, column) = self.locate(at);
-        GraphError { file: self.path.clone(), line, column, message: message.into(), hint: None }
+        self.doc.error(at, message)
+    }
+    /// An error at a position read with the value.
+    pub fn error_at(&self, at: Pos, message: impl Into<String>) -> GraphError {
+        crate::config::Error::at(at, message).in_file(&self.path)
     }
     /// Directory relative paths in this file resolve against.
     pub fn dir(&self) -> PathBuf {
@@ -58,6 +58,8 @@ pub struct KnobDecl {
     pub default: Option<RawValue>,
     pub unit: Option<String>,
     pub doc: String,
+    /// Where the knob's name is written.
+    pub at: Pos,
 }
 
 #[derive(Debug, Clone)]
@@ -71,6 +73,10 @@ pub struct BlockDecl {
     pub name: String,
     pub body: BlockBody,
     pub set: Vec<(String, RawValue)>,
+    /// The block's own description (`doc:`), shown by `check`.
+    pub doc: String,
+    /// Where the block's name is written.
+    pub at: Pos,
 }
 
 #[derive(Debug, Clone, Default)]
@@ -90,48 +96,90 @@ pub struct GraphFile {
     pub exposes: Exposes,
 }
 
-const TOP_KEYS: &[&str] = &["title", "about", "settings", "blocks", "wiring", "exposes"];
-const KNOB_KEYS: &[&str] = &["default", "unit", "doc"];
-const BLOCK_KEYS: &[&str] = &["kind", "use", "set", "doc"];
-
-/// YAML scalar or list → the raw value every parameter parser takes.
-pub fn raw_value(v: &Value) -> Option<RawValue> {
-    match v {
-        Value::Number(n) => n.as_f64().map(RawValue::Number),
-        Value::Bool(b) => Some(RawValue::Bool(*b)),
-        Value::String(s) => Some(RawValue::Text(s.clone())),
-        Value::Sequence(items) => items.iter().map(raw_value).collect::<Option<Vec<_>>>().map(RawValue::List),
-        _ => None,
-    }
+/// The file as serde reads it; [`GraphFile::parse`] then checks names and
+/// the choice between `kind` and `use`.
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawGraph {
+    #[serde(default)]
+    title: String,
+    #[serde(default)]
+    about: String,
+    #[serde(default)]
+    settings: Entries<Located<String>, RawKnob>,
+    blocks: Option<Entries<Located<String>, RawBlock>>,
+    #[serde(default)]
+    wiring: Vec<String>,
+    #[serde(default)]
+    exposes: RawExposes,
 }
 
-/// Parse YAML text, turning syntax errors into file:line:column errors.
-pub fn parse_yaml(path: &Path, text: &str) -> Result<Value, GraphError> {
-    serde_yaml::from_str(text).map_err(|e| {
-        let (mut line, mut column) = e.location().map(|l| (l.line(), l.column())).unwrap_or((1, 1));
-        if let Some(at) = second_occurrence(text, &e.to_string(), line) {
-            (line, column) = at;
-        }
-        GraphError { file: path.to_path_buf(), line, column, message: format!("not valid YAML: {e}"), hint: None }
-    })
+/// A knob: `name: value`, or a mapping with default, unit, doc.
+enum RawKnob {
+    Value(RawValue),
+    Full(FullKnob),
 }
 
-/// The parser places a duplicate key at its first occurrence; point at the
-/// repeat instead, which is the line to change.
-fn second_occurrence(text: &str, message: &str, first_line: usize) -> Option<(usize, usize)> {
-    let start = message.find("duplicate entry with key \"")? + "duplicate entry with key \"".len();
-    let key = &message[start..start + message[start..].find('"')?];
-    let mut seen = 0;
-    for (i, line) in text.lines().enumerate().skip(first_line.saturating_sub(1)) {
-        let t = line.trim_start();
-        if t.strip_prefix(key).is_some_and(|rest| rest.trim_start().starts_with(':')) {
-            seen += 1;
-            if seen == 2 {
-                return Some((i + 1, line.len() - t.len() + 1));
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct FullKnob {
+    default: Option<ParamValue>,
+    unit: Option<String>,
+    #[serde(default)]
+    doc: String,
+}
+
+impl<'de> Deserialize<'de> for RawKnob {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        // A mapping is the full form; anything else is the value itself.
+        struct V;
+        impl<'de> serde::de::Visitor<'de> for V {
+            type Value = RawKnob;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("a value, or a mapping with default, unit, doc")
+            }
+            fn visit_map<A: serde::de::MapAccess<'de>>(self, map: A) -> Result<RawKnob, A::Error> {
+                FullKnob::deserialize(serde::de::value::MapAccessDeserializer::new(map)).map(RawKnob::Full)
+            }
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(self, seq: A) -> Result<RawKnob, A::Error> {
+                ParamValue::deserialize(serde::de::value::SeqAccessDeserializer::new(seq)).map(|p| RawKnob::Value(p.0))
+            }
+            fn visit_bool<E: serde::de::Error>(self, v: bool) -> Result<RawKnob, E> {
+                Ok(RawKnob::Value(RawValue::Bool(v)))
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<RawKnob, E> {
+                Ok(RawKnob::Value(RawValue::Number(v as f64)))
+            }
+            fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<RawKnob, E> {
+                Ok(RawKnob::Value(RawValue::Number(v)))
+            }
+            fn visit_str<E: serde::de::Error>(self, v: &str) -> Result<RawKnob, E> {
+                Ok(RawKnob::Value(RawValue::Text(v.to_string())))
             }
         }
+        d.deserialize_any(V)
     }
-    None
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawBlock {
+    kind: Option<String>,
+    #[serde(rename = "use")]
+    use_file: Option<String>,
+    #[serde(default)]
+    set: Entries<String, ParamValue>,
+    #[serde(default)]
+    doc: String,
+}
+
+#[derive(Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+struct RawExposes {
+    #[serde(default)]
+    inputs: Entries<String, String>,
+    #[serde(default)]
+    outputs: Entries<String, String>,
 }
 
 /// Most bytes a graph, params, manifest or scenario file may have: real
@@ -165,40 +213,6 @@ pub fn read_text(path: &Path) -> Result<String, GraphError> {
     })
 }
 
-fn check_keys(
-    src: &Source,
-    at: &[Seg],
-    map: &serde_yaml::Mapping,
-    allowed: &[&str],
-    what: &str,
-) -> Result<(), GraphError> {
-    for k in map.keys() {
-        let name = k.as_str().unwrap_or("");
-        if !allowed.contains(&name) {
-            let mut path = at.to_vec();
-            path.push(key(name));
-            return Err(src.error(&path, format!("unknown key '{name}' in {what}")).hint_closest(
-                name,
-                allowed.iter().copied(),
-                &format!("allowed: {}", allowed.join(", ")),
-            ));
-        }
-    }
-    Ok(())
-}
-
-fn text_of(src: &Source, at: &[Seg], v: &Value, what: &str) -> Result<String, GraphError> {
-    match v {
-        Value::String(s) => Ok(s.clone()),
-        Value::Number(n) => Ok(n.to_string()),
-        _ => Err(src.error(at, format!("{what} must be text"))),
-    }
-}
-
-fn mapping<'a>(src: &Source, at: &[Seg], v: &'a Value, what: &str) -> Result<&'a serde_yaml::Mapping, GraphError> {
-    v.as_mapping().ok_or_else(|| src.error(at, format!("{what} must be a mapping (name: value)")))
-}
-
 impl GraphFile {
     pub fn load(path: &Path) -> Result<GraphFile, GraphError> {
         let text = read_text(path)?;
@@ -206,143 +220,79 @@ impl GraphFile {
     }
 
     pub fn parse(path: &Path, text: String) -> Result<GraphFile, GraphError> {
-        let doc = parse_yaml(path, &text)?;
-        let src = Arc::new(Source::new(path.to_path_buf(), text));
-        let top = mapping(&src, &[], &doc, "a graph file")?;
-        check_keys(&src, &[], top, TOP_KEYS, "a graph file")?;
-        let get = |k: &str| top.get(k);
-
-        let title = match get("title") {
-            Some(v) => text_of(&src, &[key("title")], v, "title")?,
-            None => String::new(),
-        };
-        let about = match get("about") {
-            Some(v) => text_of(&src, &[key("about")], v, "about")?,
-            None => String::new(),
-        };
-
-        let mut settings = Vec::new();
-        if let Some(v) = get("settings") {
-            for (k, body) in mapping(&src, &[key("settings")], v, "settings")? {
-                let name = k.as_str().unwrap_or_default().to_string();
-                let at = [key("settings"), key(&name)];
-                check_name(&src, &at, &name, "knob")?;
-                let decl = match body {
-                    Value::Mapping(m) => {
-                        check_keys(&src, &at, m, KNOB_KEYS, &format!("knob '{name}'"))?;
-                        let default = match m.get("default") {
-                            Some(d) => Some(raw_value(d).ok_or_else(|| {
-                                src.error(
-                                    &[key("settings"), key(&name), key("default")],
-                                    "default must be a number, text, true/false or a list",
-                                )
-                            })?),
-                            None => None,
-                        };
-                        let unit = m.get("unit").map(|u| text_of(&src, &at, u, "unit")).transpose()?;
-                        let doc = m.get("doc").map(|d| text_of(&src, &at, d, "doc")).transpose()?.unwrap_or_default();
-                        KnobDecl { name, default, unit, doc }
+        let doc = Document::parse(path, text)?;
+        if !matches!(doc.root.value, crate::config::NodeValue::Map(_)) {
+            return Err(doc.error(&[], "a graph file must be a mapping (title, settings, blocks, wiring, exposes)"));
+        }
+        let raw: RawGraph = doc.read()?;
+        let settings = raw
+            .settings
+            .0
+            .into_iter()
+            .map(|(name, body)| {
+                check_name(path, &name, "knob")?;
+                Ok(match body {
+                    RawKnob::Value(v) => {
+                        KnobDecl { name: name.value, default: Some(v), unit: None, doc: String::new(), at: name.at }
                     }
-                    // Shorthand: `name: value`.
-                    other => {
-                        KnobDecl {
-                            name,
-                            default: Some(raw_value(other).ok_or_else(|| {
-                                src.error(&at, "a knob is a value or a mapping with default, unit, doc")
-                            })?),
-                            unit: None,
-                            doc: String::new(),
-                        }
-                    }
-                };
-                settings.push(decl);
-            }
-        }
-
-        let mut blocks = Vec::new();
-        let block_map = match get("blocks") {
-            Some(v) => mapping(&src, &[key("blocks")], v, "blocks")?,
-            None => return Err(src.error(&[], "a graph file needs a 'blocks' mapping")),
+                    RawKnob::Full(k) => KnobDecl {
+                        name: name.value,
+                        default: k.default.map(|p| p.0),
+                        unit: k.unit,
+                        doc: k.doc,
+                        at: name.at,
+                    },
+                })
+            })
+            .collect::<Result<Vec<_>, GraphError>>()?;
+        let Some(raw_blocks) = raw.blocks else {
+            return Err(doc.error(&[], "a graph file needs a 'blocks' mapping"));
         };
-        for (k, body) in block_map {
-            let name = k.as_str().unwrap_or_default().to_string();
-            let at = [key("blocks"), key(&name)];
-            check_name(&src, &at, &name, "block")?;
-            let m = mapping(&src, &at, body, &format!("block '{name}'"))?;
-            check_keys(&src, &at, m, BLOCK_KEYS, &format!("block '{name}'"))?;
-            let body = match (m.get("kind"), m.get("use")) {
-                (Some(kind), None) => {
-                    BlockBody::Kind(text_of(&src, &[key("blocks"), key(&name), key("kind")], kind, "kind")?)
-                }
-                (None, Some(file)) => {
-                    BlockBody::Use(text_of(&src, &[key("blocks"), key(&name), key("use")], file, "use")?)
-                }
-                (Some(_), Some(_)) => {
-                    return Err(src.error(&at, format!("block '{name}' has both 'kind' and 'use'; give one")));
-                }
-                (None, None) => {
-                    return Err(src
-                        .error(
-                            &at,
-                            format!("block '{name}' needs a 'kind' (a block kind) or 'use' (a graph file to include)"),
-                        )
-                        .with_hint("`lobeflow blocks` lists the kinds"));
-                }
-            };
-            let mut set = Vec::new();
-            if let Some(s) = m.get("set") {
-                let set_at = [key("blocks"), key(&name), key("set")];
-                for (pk, pv) in mapping(&src, &set_at, s, "set")? {
-                    let pname = pk.as_str().unwrap_or_default().to_string();
-                    let value = raw_value(pv).ok_or_else(|| {
-                        src.error(
-                            &[key("blocks"), key(&name), key("set"), key(&pname)],
-                            "a parameter value must be a number, text, true/false or a list",
-                        )
-                    })?;
-                    set.push((pname, value));
-                }
-            }
-            blocks.push(BlockDecl { name, body, set });
-        }
-
-        let mut wiring = Vec::new();
-        if let Some(v) = get("wiring") {
-            let items = v
-                .as_sequence()
-                .ok_or_else(|| src.error(&[key("wiring")], "wiring must be a list of chains like 'a -> b -> c'"))?;
-            for (i, item) in items.iter().enumerate() {
-                wiring.push(text_of(&src, &[key("wiring"), Seg::Index(i)], item, "a wiring chain")?);
-            }
-        }
-
-        let mut exposes = Exposes::default();
-        if let Some(v) = get("exposes") {
-            let m = mapping(&src, &[key("exposes")], v, "exposes")?;
-            check_keys(&src, &[key("exposes")], m, &["inputs", "outputs"], "exposes")?;
-            for (side, list) in [("inputs", &mut exposes.inputs), ("outputs", &mut exposes.outputs)] {
-                if let Some(ports) = m.get(side) {
-                    let at = [key("exposes"), key(side)];
-                    for (pk, pv) in mapping(&src, &at, ports, side)? {
-                        let pname = pk.as_str().unwrap_or_default().to_string();
-                        list.push((
-                            pname.clone(),
-                            text_of(&src, &[key("exposes"), key(side), key(&pname)], pv, "an exposed port")?,
-                        ));
-                    }
-                }
-            }
-        }
-
-        Ok(GraphFile { source: src, title, about, settings, blocks, wiring, exposes })
+        let blocks = raw_blocks
+            .0
+            .into_iter()
+            .map(|(name, b)| block_decl(path, name, b))
+            .collect::<Result<Vec<_>, GraphError>>()?;
+        let exposes = Exposes { inputs: raw.exposes.inputs.0, outputs: raw.exposes.outputs.0 };
+        let text = doc.text.clone();
+        let source = Arc::new(Source { path: path.to_path_buf(), text, doc });
+        Ok(GraphFile { source, title: raw.title, about: raw.about, settings, blocks, wiring: raw.wiring, exposes })
     }
 }
 
-fn check_name(src: &Source, at: &[Seg], name: &str, what: &str) -> Result<(), GraphError> {
+fn block_decl(path: &Path, name: Located<String>, b: RawBlock) -> Result<BlockDecl, GraphError> {
+    check_name(path, &name, "block")?;
+    let at = name.at;
+    let name = name.value;
+    let body = match (b.kind, b.use_file) {
+        (Some(kind), None) => BlockBody::Kind(kind),
+        (None, Some(file)) => BlockBody::Use(file),
+        (Some(_), Some(_)) => {
+            return Err(crate::config::Error::at(at, format!("block '{name}' has both 'kind' and 'use'; give one"))
+                .in_file(path));
+        }
+        (None, None) => {
+            return Err(crate::config::Error::at(
+                at,
+                format!("block '{name}' needs a 'kind' (a block kind) or 'use' (a graph file to include)"),
+            )
+            .with_hint("`lobeflow blocks` lists the kinds")
+            .in_file(path));
+        }
+    };
+    let set = b.set.0.into_iter().map(|(k, v)| (k, v.0)).collect();
+    Ok(BlockDecl { name, body, set, doc: b.doc, at })
+}
+
+fn check_name(path: &Path, name: &Located<String>, what: &str) -> Result<(), GraphError> {
     let ok = !name.is_empty() && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-');
     if ok {
         Ok(())
     } else {
-        Err(src.error(at, format!("{what} name '{name}' may use only letters, digits, '_' and '-'")))
+        Err(crate::config::Error::at(
+            name.at,
+            format!("{what} name '{}' may use only letters, digits, '_' and '-'", name.value),
+        )
+        .in_file(path))
     }
 }

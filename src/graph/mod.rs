@@ -4,7 +4,6 @@
 mod checks;
 pub mod error;
 pub mod file;
-pub mod locate;
 pub mod resolve;
 
 pub use error::GraphError;

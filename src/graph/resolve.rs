@@ -6,8 +6,8 @@
 //! ports and checks the whole: nothing runs until all of it holds.
 
 use super::error::GraphError;
-use super::file::{BlockBody, BlockDecl, GraphFile, Source, parse_yaml, raw_value, read_text};
-use super::locate::{Positions, Seg, key};
+use super::file::{BlockBody, BlockDecl, GraphFile, Source};
+use crate::config::{Entries, Located, ParamValue, Seg, key};
 use lobeflow_blocks::{BlockSpec, ItemKind, ParamType, Params, RawValue, Registry, Value};
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
@@ -74,33 +74,17 @@ impl Overrides {
 
     /// Read a params file: a YAML mapping of knob names to values.
     pub fn add_params_file(&mut self, path: &Path) -> Result<(), GraphError> {
-        let text = read_text(path)?;
-        let doc = parse_yaml(path, &text)?;
+        let doc = crate::config::Document::load(path)?;
+        if !matches!(doc.root.value, crate::config::NodeValue::Map(_)) {
+            return Err(doc.error(&[], "a params file is a mapping of knob names to values"));
+        }
+        let entries: Entries<Located<String>, ParamValue> = doc.read()?;
         let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
-        let Some(map) = doc.as_mapping() else {
-            return Err(GraphError {
-                file: path.to_path_buf(),
-                line: 1,
-                column: 1,
-                message: "a params file is a mapping of knob names to values".into(),
-                hint: None,
-            });
-        };
-        let positions = Positions::of(&text);
-        for (k, v) in map {
-            let name = k.as_str().unwrap_or_default().to_string();
-            let (line, column) = positions.find(&[key(&name)]);
-            let value = raw_value(v).ok_or_else(|| GraphError {
-                file: path.to_path_buf(),
-                line,
-                column,
-                message: format!("'{name}' must be a number, text, true/false or a list"),
-                hint: None,
-            })?;
+        for (name, value) in entries.0 {
             self.items.push(Override {
-                name,
-                value,
-                origin: Origin::ParamsFile { file: path.to_path_buf(), line },
+                name: name.value,
+                value: value.0,
+                origin: Origin::ParamsFile { file: path.to_path_buf(), line: name.at.line },
                 base: base.clone(),
             });
         }

@@ -21,11 +21,9 @@
 //!   - {output: angles.csv, file: ridge-four-lobe.golden.csv, tolerance: 1e-6}
 //! ```
 
+use crate::config::{Document, Entries, Located, ParamValue, Seg, key};
 use crate::graph::GraphError;
-use crate::graph::file::{parse_yaml, read_text};
-use crate::graph::locate::{Seg, key, locate};
 use serde::Deserialize;
-use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
 /// What a check measures on the run's `angles.csv`.
@@ -137,11 +135,11 @@ struct Raw {
     capture: String,
     truth: Option<String>,
     #[serde(default)]
-    settings: BTreeMap<String, serde_yaml::Value>,
+    settings: Entries<Located<String>, ParamValue>,
     #[serde(default)]
-    checks: Vec<Check>,
+    checks: Vec<Located<Check>>,
     #[serde(default)]
-    golden: Vec<Golden>,
+    golden: Vec<Located<Golden>>,
 }
 
 /// A manifest with its paths resolved against its own folder.
@@ -165,45 +163,40 @@ pub const SUFFIX: &str = ".check.yaml";
 
 impl Manifest {
     pub fn load(path: &Path) -> Result<Manifest, GraphError> {
-        let text = read_text(path)?;
-        // Syntax first (with position), then shape (serde keeps the position too).
-        parse_yaml(path, &text)?;
-        let mut raw: Raw = serde_yaml::from_str(&text).map_err(|e| {
-            let (line, column) = e.location().map(|l| (l.line(), l.column())).unwrap_or((1, 1));
-            GraphError { file: path.to_path_buf(), line, column, message: format!("bad manifest: {e}"), hint: None }
-        })?;
+        let doc = Document::load(path)?;
+        let raw: Raw = doc.read()?;
         let dir = path.parent().map(Path::to_path_buf).unwrap_or_default();
-        let err = |at: &[Seg], msg: String| {
-            let (line, column) = locate(&text, at);
-            GraphError { file: path.to_path_buf(), line, column, message: msg, hint: None }
-        };
-        let name = sample_name(path).map_err(|msg| err(&[], msg))?;
-        for (i, c) in raw.checks.iter_mut().enumerate() {
-            let at = [key("checks"), Seg::Index(i)];
-            c.line = locate(&text, &at).0;
-            validate_check(c, i, raw.truth.is_some()).map_err(|(field, msg)| {
-                let field_at = [key("checks"), Seg::Index(i), key(field)];
-                err(if field.is_empty() { &at } else { &field_at }, msg)
-            })?;
-        }
-        for (i, g) in raw.golden.iter_mut().enumerate() {
-            let at = [key("golden"), Seg::Index(i)];
-            g.line = locate(&text, &at).0;
-            validate_golden(g, i).map_err(|(field, msg)| err(&[key("golden"), Seg::Index(i), key(field)], msg))?;
-        }
+        let name = sample_name(path).map_err(|msg| doc.error(&[], msg))?;
+        let has_truth = raw.truth.is_some();
+        let checks = raw
+            .checks
+            .into_iter()
+            .enumerate()
+            .map(|(i, c)| {
+                let at = [key("checks"), Seg::Index(i)];
+                validate_check(&c, i, has_truth).map_err(|(field, msg)| {
+                    let field_at = [key("checks"), Seg::Index(i), key(field)];
+                    doc.error(if field.is_empty() { &at } else { &field_at }, msg)
+                })?;
+                Ok(Check { line: c.at.line, ..c.value })
+            })
+            .collect::<Result<Vec<_>, GraphError>>()?;
+        let golden = raw
+            .golden
+            .into_iter()
+            .enumerate()
+            .map(|(i, g)| {
+                validate_golden(&g, i)
+                    .map_err(|(field, msg)| doc.error(&[key("golden"), Seg::Index(i), key(field)], msg))?;
+                Ok(Golden { line: g.at.line, ..g.value })
+            })
+            .collect::<Result<Vec<_>, GraphError>>()?;
         let mut settings = crate::graph::Overrides::default();
-        for (name, v) in &raw.settings {
-            let value = crate::graph::file::raw_value(v).ok_or_else(|| {
-                err(
-                    &[key("settings"), key(name)],
-                    format!("knob '{name}' must be a number, text, true/false or a list"),
-                )
-            })?;
-            let (line, _) = locate(&text, &[key("settings"), key(name)]);
+        for (name, value) in raw.settings.0 {
             settings.items.push(crate::graph::Override {
-                name: name.clone(),
-                value,
-                origin: crate::graph::Origin::ParamsFile { file: path.to_path_buf(), line },
+                name: name.value,
+                value: value.0,
+                origin: crate::graph::Origin::ParamsFile { file: path.to_path_buf(), line: name.at.line },
                 base: dir.clone(),
             });
         }
@@ -215,8 +208,8 @@ impl Manifest {
             capture: dir.join(&raw.capture),
             truth: raw.truth.as_ref().map(|t| dir.join(t)),
             settings,
-            checks: raw.checks,
-            golden: raw.golden,
+            checks,
+            golden,
         })
     }
 }

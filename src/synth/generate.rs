@@ -184,9 +184,9 @@ impl Model {
         };
         let beam = Beam::new(shape, bw).map_err(|e| err("antenna", e))?;
         let pulsed = matches!(s.signal, SignalSpec::Pulsed(_));
-        let way = match a.way.unwrap_or(if pulsed { Way::TwoWay } else { Way::OneWay }) {
-            Way::OneWay => 1,
-            Way::TwoWay => 2,
+        let way = match a.way.unwrap_or(if pulsed { Way::Two } else { Way::One }) {
+            Way::One => 1,
+            Way::Two => 2,
         };
 
         if s.lobes.len() < 2 {
@@ -249,13 +249,10 @@ impl Model {
                 if !(p.prf.0 > 0.0 && pri.is_finite()) {
                     return Err(err(&at("prf"), format!("PRF {} Hz must be positive", p.prf.0)));
                 }
-                if !(p.pulse_length.0 > 0.0 && p.pulse_length.0 < pri) {
+                if !(p.pulse.0 > 0.0 && p.pulse.0 < pri) {
                     return Err(err(
-                        &at("pulse_length"),
-                        format!(
-                            "pulse length {} s must be positive and shorter than the PRI {pri} s",
-                            p.pulse_length.0
-                        ),
+                        &at("pulse"),
+                        format!("pulse length {} s must be positive and shorter than the PRI {pri} s", p.pulse.0),
                     ));
                 }
                 if p.pulses_per_dwell == 0 {
@@ -296,7 +293,7 @@ impl Model {
                 Signal::Pulsed(Pulsed {
                     pri,
                     t0: p.first_transmit.0,
-                    pulse_length: p.pulse_length.0,
+                    pulse_length: p.pulse.0,
                     pulses_per_dwell: p.pulses_per_dwell as i64,
                     jitter_rms: p.prf_jitter.0,
                     switch_lead: lead,
@@ -331,7 +328,7 @@ impl Model {
                     tone_hz: b.tone.0,
                     amplitude: db_amplitude(b.snr.0),
                     dwell: b.dwell.0,
-                    t0: b.first_lobe_start.0,
+                    t0: b.first_start.0,
                     fluctuation: b.fluctuation,
                 })
             }

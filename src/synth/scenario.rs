@@ -27,7 +27,8 @@
 //!   beamwidth: 6 deg                # one-way 3 dB beamwidth (not for table)
 //!   pattern: dish.csv               # table only: angle_deg,gain_db CSV, relative to this file
 //!   squint: 2.4 deg                 # lobe offset used by `toward`
-//!   way: two_way                    # one_way | two_way (default: two_way pulsed, one_way beacon)
+//!   way: two                        # one | two (default: two pulsed, one beacon), as the
+//!                                   # ratio discriminator's `way`
 //! lobes:                            # in switching order, at least two
 //!   - {name: right, toward: right}  # toward: right (+az) | left (-az) | up (+el) | down (-el)
 //!   - {name: odd, az: 1 deg, el: -0.5 deg}   # or explicit axis offsets
@@ -35,7 +36,7 @@
 //! signal:                           # exactly one of pulsed / beacon
 //!   pulsed:
 //!     prf: 2 kHz                    # PRI = 1/PRF
-//!     pulse_length: 2 us
+//!     pulse: 2 us                   # pulse length
 //!     pulses_per_dwell: 4
 //!     first_transmit: 0.1 ms        # t0: transmit instant of pulse 0, the first pulse of a
 //!                                   # dwell of the first lobe (default 0)
@@ -50,7 +51,7 @@
 //!   #   tone: 25 kHz                # baseband offset of the CW tone
 //!   #   snr: 10 dB                  # tone power per sample at beam peak over noise power 1
 //!   #   dwell: 5 ms                 # dwell length
-//!   #   first_lobe_start: 1 ms      # t0: a dwell of the first lobe starts here (default 0)
+//!   #   first_start: 1 ms           # t0: a dwell of the first lobe starts here (default 0)
 //!   #   fluctuation: none           # none | per_dwell
 //! switch_transient:                 # optional: a decaying burst at each switch instant
 //!   level: 25 dB                    # peak power over the noise
@@ -66,7 +67,7 @@
 //!   clock_lead: 0 s                 # that makes it (time_s on a clock this far ahead)
 //! ```
 
-use crate::graph::locate::{Seg, key, locate};
+use crate::config::{Document, Seg, key};
 use lobeflow_blocks::{ParamSpec, ParamType, RawValue, Unit, Value};
 use serde::Deserialize;
 use serde::de::{self, Deserializer, Visitor};
@@ -252,11 +253,14 @@ pub enum BeamKind {
     Table,
 }
 
+/// Which way the beam pattern applies, as the ratio discriminator's `way`.
 #[derive(Clone, Copy, Debug, Deserialize, PartialEq, Eq)]
 #[serde(rename_all = "snake_case")]
 pub enum Way {
-    OneWay,
-    TwoWay,
+    /// Receive only: the pattern once.
+    One,
+    /// Transmit and receive: the pattern squared.
+    Two,
 }
 
 #[derive(Clone, Debug, Deserialize)]
@@ -366,7 +370,8 @@ pub enum PhaseMode {
 #[serde(deny_unknown_fields)]
 pub struct PulsedSpec {
     pub prf: Hertz,
-    pub pulse_length: Seconds,
+    /// Pulse length, as the range gate's and matched filter's `pulse`.
+    pub pulse: Seconds,
     pub pulses_per_dwell: u32,
     #[serde(default)]
     pub first_transmit: Seconds,
@@ -390,7 +395,8 @@ pub struct BeaconSpec {
     pub snr: Decibels,
     pub dwell: Seconds,
     #[serde(default)]
-    pub first_lobe_start: Seconds,
+    /// As the gates' `first_start`.
+    pub first_start: Seconds,
     #[serde(default)]
     pub fluctuation: Fluctuation,
 }
@@ -457,6 +463,8 @@ pub struct ScenarioFile {
     pub path: PathBuf,
     pub text: String,
     pub scenario: Scenario,
+    /// The parsed tree, for the positions of later messages.
+    root: std::sync::Arc<crate::config::Node>,
 }
 
 impl ScenarioFile {
@@ -469,21 +477,16 @@ impl ScenarioFile {
 
     /// Parse scenario text; `path` names it in messages and anchors relative paths.
     pub fn parse(path: &Path, text: String) -> Result<ScenarioFile, String> {
-        let scenario: Scenario = serde_yaml::from_str(&text).map_err(|e| match e.location() {
-            Some(l) => {
-                let text = e.to_string();
-                let tail = format!(" at line {} column {}", l.line(), l.column());
-                format!("{}:{}:{}: {}", path.display(), l.line(), l.column(), text.strip_suffix(&tail).unwrap_or(&text))
-            }
-            None => format!("{}: {e}", path.display()),
-        })?;
-        Ok(ScenarioFile { path: path.to_path_buf(), text, scenario })
+        let doc = Document::parse(path, text).map_err(|e| e.to_string())?;
+        let scenario: Scenario = doc.read().map_err(|e| e.to_string())?;
+        let Document { text, root, .. } = doc;
+        Ok(ScenarioFile { path: path.to_path_buf(), text, scenario, root: std::sync::Arc::new(root) })
     }
 
     /// An error about the value at key path `at`, with its position.
     pub fn error_at(&self, at: &[Seg], message: impl fmt::Display) -> String {
-        let (line, column) = locate(&self.text, at);
-        format!("{}:{line}:{column}: {message}", self.path.display())
+        let p = self.root.locate(at);
+        format!("{}:{}:{}: {message}", self.path.display(), p.line, p.column)
     }
 
     /// Shorthand for a key path written as `a/b/c` (numbers are indices).
@@ -536,9 +539,10 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
 
     #[test]
     fn track_follows_its_formula() {
-        let t: Track<Degrees> =
-            serde_yaml::from_str("{at: 1 deg, per_second: 0.5, swing: {amplitude: 2, period: 4 s, phase: 90 deg}}")
+        let node =
+            crate::config::parse("{at: 1 deg, per_second: 0.5, swing: {amplitude: 2, period: 4 s, phase: 90 deg}}")
                 .unwrap();
+        let t: Track<Degrees> = crate::config::from_node(&node).unwrap();
         // 1 + 0.5*1 + 2*sin(pi/2 + pi/2) = 1.5
         assert!((t.at_time(1.0) - 1.5).abs() < 1e-12);
         let (lo, hi) = t.bounds(0.0, 2.0);
