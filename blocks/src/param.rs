@@ -774,6 +774,73 @@ mod tests {
         assert!(e.contains("out of range") && e.contains("0.1 to 90"), "{e}");
     }
 
+    fn with_default(ty: ParamType, default: &'static str) -> ParamSpec {
+        ParamSpec { name: "p", ty, default: Some(default), doc: "" }
+    }
+
+    #[test]
+    fn a_bare_number_takes_the_unit_of_the_default() {
+        let time = ParamType::Time { min_s: 0.0, max_s: 10.0, pulses: true };
+        let dist = ParamType::Distance { min_m: 0.0, max_m: 1e6 };
+        assert_eq!(with_default(time, "4 pulses").parse(&RawValue::Number(5.0)), Ok(Value::Pulses(5.0)));
+        assert_eq!(with_default(time, "4 pulses").parse(&RawValue::Text("5".into())), Ok(Value::Pulses(5.0)));
+        assert_eq!(with_default(time, "20 us").parse(&RawValue::Number(3.0)), Ok(Value::Seconds(3e-6)));
+        assert_eq!(with_default(dist, "5 bins").parse(&RawValue::Number(7.0)), Ok(Value::Bins(7.0)));
+        assert_eq!(with_default(dist, "1 km").parse(&RawValue::Number(2.0)), Ok(Value::Metres(2000.0)));
+        // A unit written out wins over the default's.
+        assert_eq!(with_default(dist, "5 bins").parse(&RawValue::Text("7 m".into())), Ok(Value::Metres(7.0)));
+        let rate = ParamType::Number { unit: Unit::Hertz, min: 0.0, max: 1e9 };
+        assert_eq!(with_default(rate, "1 MHz").parse(&RawValue::Number(2.0)), Ok(Value::Number(2e6)));
+        // A default without a unit word leaves a bare number in the canonical unit.
+        assert_eq!(with_default(rate, "0").parse(&RawValue::Number(2.0)), Ok(Value::Number(2.0)));
+    }
+
+    #[test]
+    fn a_bare_number_no_default_decides_is_refused_with_the_units() {
+        let e =
+            spec(ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: true }).parse(&RawValue::Number(5.0)).unwrap_err();
+        assert!(e.contains("ambiguous") && e.contains("one of s, ms, us, ns, samples, pulses"), "{e}");
+        let e = spec(ParamType::Distance { min_m: 0.0, max_m: 1e6 }).parse(&RawValue::Number(7.0)).unwrap_err();
+        assert!(e.contains("one of m, km, bins"), "{e}");
+        // One canonical unit: no doubt.
+        let deg = spec(ParamType::Number { unit: Unit::Degrees, min: 0.0, max: 90.0 });
+        assert_eq!(deg.parse(&RawValue::Number(5.0)), Ok(Value::Number(5.0)));
+    }
+
+    #[test]
+    fn unit_words_are_read_from_defaults() {
+        assert_eq!(unit_word("4 pulses"), Some("pulses"));
+        assert_eq!(unit_word("5 bins"), Some("bins"));
+        assert_eq!(unit_word("2.4 MS/s"), Some("MS/s"));
+        assert_eq!(unit_word("6"), None);
+        assert_eq!(unit_word("3,4"), None);
+        assert_eq!(unit_word("../x.wav"), None);
+        assert_eq!(unit_word("az=right/left"), None);
+    }
+
+    #[test]
+    fn lobe_pairs_and_gains_are_read_once() {
+        let pairs = spec(ParamType::LobePairs);
+        match pairs.parse(&RawValue::Text("az=right/left, el=-up/down".into())) {
+            Ok(Value::LobePairs { pairs, text }) => {
+                assert_eq!(text, "az=right/left, el=-up/down");
+                assert_eq!((pairs[1].plus.as_str(), pairs[1].minus.as_str()), ("down", "up"));
+            }
+            other => panic!("{other:?}"),
+        }
+        let e = pairs.parse(&RawValue::Text("az=right-left; el".into())).unwrap_err();
+        assert!(e.contains("needs two lobe names"), "{e}");
+        let gains = spec(ParamType::LobeGains);
+        let v = gains.parse(&RawValue::Text("right=0.4, left=-0.2 dB".into())).unwrap();
+        let mut p = Params::new();
+        p.insert("g", v);
+        assert_eq!(p.lobe_gains_db("g").unwrap(), &[("right".to_string(), 0.4), ("left".to_string(), -0.2)]);
+        assert_eq!(p.text("g").unwrap(), "right=0.4, left=-0.2 dB");
+        let e = gains.parse(&RawValue::Text("right=loud".into())).unwrap_err();
+        assert!(e.contains("'right=loud' is not a gain in dB"), "{e}");
+        assert!(gains.parse(&RawValue::Text(String::new())).is_ok(), "no gains is fine");
+    }
+
     #[test]
     fn choices_hint_the_closest() {
         let c = spec(ParamType::Choice(&["gaussian", "uniform", "cosine"]));
