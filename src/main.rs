@@ -6,6 +6,7 @@ use lobeflow::Error;
 use lobeflow::commands;
 use std::io::Write;
 use std::path::PathBuf;
+use std::process::ExitCode;
 
 #[derive(Parser)]
 #[command(name = "lobeflow", version, about = "Lobe-switching angle trackers from recorded IQ and WAV captures")]
@@ -92,7 +93,9 @@ enum Command {
         #[arg(long, value_name = "FORMAT", requires = "stream")]
         stream_format: Option<String>,
     },
-    /// Validate a graph and print it resolved: blocks, wires, knob values and their origins.
+    /// Validate a graph as a run would up to its first sample (inputs opened,
+    /// blocks built, nothing written) and print it resolved: blocks, wires,
+    /// every value with its unit and origin.
     Check {
         graph: PathBuf,
         #[arg(long)]
@@ -104,6 +107,8 @@ enum Command {
         set: Vec<String>,
         #[arg(long)]
         params: Option<PathBuf>,
+        #[command(flatten)]
+        capture: CaptureFlags,
     },
     /// List block kinds with their ports and parameters (or one kind in full).
     Blocks { kind: Option<String> },
@@ -228,17 +233,23 @@ fn cores() -> usize {
 /// (each worker has its own stack), and thousands fail to spawn at all.
 const MAX_THREADS: i64 = 256;
 
-fn main() {
-    let cli = Cli::parse();
-    let code = match dispatch(cli) {
-        Ok(()) => 0,
+fn main() -> ExitCode {
+    match dispatch(Cli::parse()) {
+        Ok(code) => code,
         Err(e) => {
-            // If standard error itself is gone there is no one to tell.
-            let _ = write_all(&mut std::io::stderr(), &format!("error: {e}\n"));
-            e.exit_code()
+            report(&e);
+            exit_code(e.exit_code())
         }
-    };
-    std::process::exit(code);
+    }
+}
+
+/// Print an error once. If standard error itself is gone there is no one to tell.
+fn report(e: &Error) {
+    let _ = write_all(&mut std::io::stderr(), &format!("error: {e}\n"));
+}
+
+fn exit_code(code: i32) -> ExitCode {
+    ExitCode::from(u8::try_from(code).unwrap_or(2))
 }
 
 /// Write `text` to standard output. A reader that went away (`| head -1`)
@@ -267,66 +278,38 @@ fn write_all(w: &mut dyn Write, text: &str) -> std::io::Result<()> {
     w.flush()
 }
 
-fn dispatch(cli: Cli) -> Result<(), Error> {
+/// Run the command; Ok carries the exit code of a command that ended
+/// without an error of its own (a run stopped by a signal).
+fn dispatch(cli: Cli) -> Result<ExitCode, Error> {
     match cli.command {
         Command::Run { graph, input, out, set, params, stats, quiet, threads, capture, stream, stream_format } => {
-            let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            let threads = threads.map(usize::from);
             let args = commands::run::RunArgs {
                 graph,
-                overrides,
+                overrides: commands::overrides(params.as_deref(), &set, input.as_ref())?,
                 out_dir: out,
-                threads,
+                threads: threads.map(usize::from),
                 quiet,
                 stats,
                 capture: capture.params(),
                 stream,
                 stream_format,
             };
-            let (result, code) = commands::run::run_with_exit(&args);
-            // The summary is printed here, so a closed or full standard error
-            // is handled in one place.
-            if let Ok(report) = &result
-                && !quiet
-            {
-                print_err(&commands::run::summary(report, stats))?;
-            }
-            match (result, code) {
-                (Ok(_), None) => Ok(()),
-                (result, Some(code)) => {
-                    if let Err(e) = result {
-                        let _ = print_err(&format!("error: {e}\n"));
-                    }
-                    std::process::exit(code)
-                }
-                (Err(e), None) => Err(e),
-            }
+            run(&args)
         }
-        Command::Check { graph, input, out, set, params } => {
-            let overrides = commands::overrides(params.as_deref(), &set, input.as_ref())?;
-            print_out(&commands::check::check_with_out(&graph, &overrides, &out)?)
+        Command::Check { graph, input, out, set, params, capture } => {
+            let args = commands::check::CheckArgs {
+                graph,
+                overrides: commands::overrides(params.as_deref(), &set, input.as_ref())?,
+                out_dir: out,
+                capture: capture.params(),
+            };
+            done(print_out(&commands::check::check_graph(&args)?))
         }
         Command::Regress { dir, report, junit, update, out, jobs } => {
-            let out = out.unwrap_or_else(commands::regress::default_out);
-            let to_stdout = [&report, &junit].iter().any(|p| p.as_deref() == Some(std::path::Path::new("-")));
-            let args =
-                commands::regress::RegressArgs { dir, report, junit, update, out, jobs: jobs.unwrap_or_else(cores) };
-            let regression = commands::regress::regress(&args)?;
-            // With a report on standard output, the table a person reads goes to standard error.
-            let mut text = commands::regress::table(&regression.rows);
-            for moved in &regression.updates {
-                text.push_str(&format!("golden {moved}"));
-            }
-            text.push_str(&format!("outputs in {}\n", args.out.display()));
-            if to_stdout {
-                print_err(&text)?
-            } else {
-                print_out(&text)?
-            }
-            regression.outcome()
+            done(regress(dir, report, junit, update, out, jobs))
         }
         Command::Batch { merge: Some(BatchMerge::Merge { dirs, out }), .. } => {
-            commands::batch::batch_merge(&dirs, &out)
+            done(commands::batch::batch_merge(&dirs, &out))
         }
         Command::Batch { merge: None, graph, captures, list, out, params, set, jobs, shard } => {
             let cmd = commands::batch::BatchCommand {
@@ -339,7 +322,7 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 jobs: jobs.unwrap_or_else(cores),
                 shard,
             };
-            commands::batch::batch(&cmd)
+            done(commands::batch::batch(&cmd))
         }
         Command::Inspect { capture, how, seconds } => {
             let args = commands::inspect::args_from_text(
@@ -351,7 +334,7 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 how.roles.as_deref(),
                 seconds,
             )?;
-            print_out(&commands::inspect::inspect(&args)?)
+            done(print_out(&commands::inspect::inspect(&args)?))
         }
         Command::Calibrate { graph, input, pointing, source, clock_offset, cross_limit, set, params, out, threads } => {
             let args = lobeflow::calibrate::CalibrateArgs {
@@ -364,12 +347,68 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 out_dir: out,
                 threads,
             };
-            print_err(&commands::calibrate::run(&args)?)
+            done(print_err(&commands::calibrate::run(&args)?))
         }
-        Command::Blocks { kind } => print_out(&commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?),
+        Command::Blocks { kind } => {
+            done(print_out(&commands::catalog::catalog(&lobeflow::registry(), kind.as_deref())?))
+        }
         Command::Synth { scenario, out } => {
             let (_, summary) = commands::synth::synth(&scenario, &out)?;
-            print_err(&summary)
+            done(print_err(&summary))
         }
     }
+}
+
+/// A command that has no exit code of its own: 0 when it succeeded.
+fn done(result: Result<(), Error>) -> Result<ExitCode, Error> {
+    result.map(|()| ExitCode::SUCCESS)
+}
+
+/// `run`: the summary is printed here, so a closed or full standard error
+/// is handled in one place. A run stopped by a signal ends with 128 + the
+/// signal, whether it kept its outputs (a live input cut short) or not.
+fn run(args: &commands::run::RunArgs) -> Result<ExitCode, Error> {
+    let (result, signal_code) = commands::run::run_with_exit(args);
+    if let Ok(report) = &result
+        && !args.quiet
+    {
+        print_err(&commands::run::summary(report, args.stats))?;
+    }
+    match (result, signal_code) {
+        (Ok(_), None) => Ok(ExitCode::SUCCESS),
+        (result, Some(code)) => {
+            if let Err(e) = result {
+                report(&e);
+            }
+            Ok(exit_code(code))
+        }
+        (Err(e), None) => Err(e),
+    }
+}
+
+/// `regress`: with a report on standard output, the table a person reads
+/// goes to standard error.
+fn regress(
+    dir: PathBuf,
+    report: Option<PathBuf>,
+    junit: Option<PathBuf>,
+    update: bool,
+    out: Option<PathBuf>,
+    jobs: Option<usize>,
+) -> Result<(), Error> {
+    let out = out.unwrap_or_else(commands::regress::default_out);
+    let to_stdout = [&report, &junit].iter().any(|p| p.as_deref() == Some(std::path::Path::new("-")));
+    let args = commands::regress::RegressArgs { dir, report, junit, update, out, jobs: jobs.unwrap_or_else(cores) };
+    let regression = commands::regress::regress(&args)?;
+    let mut text = commands::regress::table(&regression.rows);
+    for moved in &regression.updates {
+        text.push_str(&format!("golden {moved}"));
+    }
+    text.push_str(&format!("outputs in {}\n", args.out.display()));
+    if to_stdout {
+        print_err(&text)?
+    } else {
+        print_out(&text)?
+    }
+    regression.outcome()
 }

@@ -105,7 +105,7 @@ fn an_output_that_is_an_input_is_refused_by_run_and_check() {
     let o = run_into(&dir);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     assert!(stderr(&o).contains("is an input of the run"), "{}", stderr(&o));
-    assert!(stderr(&o).contains("block 'angles' (table_writer), parameter 'path'"), "{}", stderr(&o));
+    assert!(stderr(&o).contains("block 'angles' (table_writer): parameter 'path'"), "{}", stderr(&o));
     assert_eq!(std::fs::read(&capture).unwrap(), bytes, "the capture is untouched");
     let o = lobeflow(&["check", g, "--input", capture.to_str().unwrap(), "--out", dir.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));

@@ -5,7 +5,9 @@
 //! overrides all read the same declaration, and all values go through
 //! [`ParamSpec::parse`].
 
+use crate::dsp::discriminator::{LobePair, parse_key_values, parse_pairs};
 use crate::limits::{MAX_PRF, MAX_SAMPLE_RATE};
+use std::borrow::Cow;
 use std::collections::BTreeMap;
 use std::fmt;
 
@@ -128,6 +130,12 @@ pub enum ParamType {
     Choice(&'static [&'static str]),
     /// A comma-separated list of names (e.g. a lobe order).
     Names,
+    /// Opposite lobe pairs, `axis=plus/minus` separated by commas
+    /// (`az=right/left, el=-up/down`), checked when the graph is read.
+    LobePairs,
+    /// Per-lobe gains in dB, `lobe=gain` separated by commas
+    /// (`right=0.4, left=-0.2 dB`); may be empty.
+    LobeGains,
     /// A file to read; relative paths resolve against the file that set it.
     InputPath,
     /// A file to write; relative paths resolve against the output directory.
@@ -155,6 +163,8 @@ impl ParamType {
             ParamType::Text => "text".into(),
             ParamType::Choice(c) => format!("one of {}", c.join(", ")),
             ParamType::Names => "comma-separated names".into(),
+            ParamType::LobePairs => "lobe pairs: axis=plus/minus, comma-separated (e.g. az=right/left)".into(),
+            ParamType::LobeGains => "per-lobe gains: lobe=dB, comma-separated (e.g. right=0.4, left=-0.2)".into(),
             ParamType::InputPath => "input file path".into(),
             ParamType::OutputPath => "output file path".into(),
         }
@@ -240,6 +250,16 @@ pub enum Value {
     Bool(bool),
     Text(String),
     Names(Vec<String>),
+    /// Lobe pairs, with the text they were read from.
+    LobePairs {
+        text: String,
+        pairs: Vec<LobePair>,
+    },
+    /// Per-lobe gains in dB, with the text they were read from.
+    LobeGains {
+        text: String,
+        gains_db: Vec<(String, f64)>,
+    },
 }
 
 impl fmt::Display for Value {
@@ -267,6 +287,14 @@ impl fmt::Display for Value {
             Value::Bool(b) => write!(f, "{b}"),
             Value::Text(t) => write!(f, "{t}"),
             Value::Names(n) => write!(f, "{}", n.join(",")),
+            Value::LobePairs { pairs, .. } => {
+                let parts: Vec<String> = pairs.iter().map(|p| format!("{}={}/{}", p.axis, p.plus, p.minus)).collect();
+                write!(f, "{}", parts.join(", "))
+            }
+            Value::LobeGains { gains_db, .. } => {
+                let parts: Vec<String> = gains_db.iter().map(|(l, g)| format!("{l}={} dB", short(*g))).collect();
+                write!(f, "{}", parts.join(", "))
+            }
         }
     }
 }
@@ -301,10 +329,89 @@ fn split_number(text: &str) -> Option<(f64, &str)> {
     Some((n, t[end..].trim()))
 }
 
+/// Words naming a count rather than a physical unit.
+const COUNT_WORDS: &[&str] = &["samples", "sample", "pulses", "pulse", "bins", "bin"];
+
+/// The unit word of a number written with one (`"4 pulses"` gives
+/// `pulses`, `"20 us"` gives `us`); None for a bare number or other text.
+pub fn unit_word(text: &str) -> Option<&str> {
+    let (_, suffix) = split_number(text)?;
+    let dims = [Unit::Seconds, Unit::Hertz, Unit::Degrees, Unit::Metres, Unit::Decibels];
+    let known = COUNT_WORDS.contains(&suffix) || dims.iter().any(|u| u.scale(suffix).is_some());
+    (!suffix.is_empty() && known).then_some(suffix)
+}
+
+/// `right=0.4, left=-0.2 dB`: each lobe's gain in dB (the `dB` may be left out).
+fn parse_lobe_gains(text: &str) -> Result<Vec<(String, f64)>, String> {
+    parse_key_values(text, "lobe gains")?
+        .into_iter()
+        .map(|(lobe, value)| {
+            let db = value.trim_end_matches("dB").trim().parse::<f64>().ok().filter(|g| g.is_finite());
+            db.map(|g| (lobe.clone(), g))
+                .ok_or_else(|| format!("'{lobe}={value}' is not a gain in dB (e.g. {lobe}=0.5)"))
+        })
+        .collect()
+}
+
+impl ParamType {
+    /// Numbers of this type may carry a unit word.
+    fn takes_unit(&self) -> bool {
+        matches!(self, ParamType::Number { .. } | ParamType::Time { .. } | ParamType::Distance { .. })
+    }
+
+    /// The units a bare number could mean when the type allows several
+    /// (a time or a count, a distance or a count of bins); None when one
+    /// canonical unit is the only reading.
+    fn units_for_bare_number(&self) -> Option<&'static str> {
+        match self {
+            ParamType::Time { pulses: true, .. } => Some("s, ms, us, ns, samples, pulses"),
+            ParamType::Time { pulses: false, .. } => Some("s, ms, us, ns, samples"),
+            ParamType::Distance { .. } => Some("m, km, bins"),
+            _ => None,
+        }
+    }
+}
+
 impl ParamSpec {
     /// Check a raw value against this declaration. The error says what was
     /// expected (type, unit, range); the caller adds where.
     pub fn parse(&self, raw: &RawValue) -> Result<Value, String> {
+        let raw = self.with_default_unit(raw)?;
+        let v = self.parse_as_written(&raw)?;
+        self.check_range(&v)?;
+        Ok(v)
+    }
+
+    /// The unit word of this parameter's default (`"4 pulses"` gives
+    /// `pulses`): the unit a bare number given to it is in.
+    pub fn default_unit(&self) -> Option<&'static str> {
+        self.default.and_then(unit_word)
+    }
+
+    /// A bare number takes the unit of the default; where the parameter
+    /// could be in several units (a time or a count, a distance or bins) and
+    /// the default names none, a bare number is refused.
+    fn with_default_unit<'a>(&self, raw: &'a RawValue) -> Result<Cow<'a, RawValue>, String> {
+        let bare = match raw {
+            RawValue::Number(n) => Some(*n),
+            RawValue::Text(t) => split_number(t).filter(|(_, suffix)| suffix.is_empty()).map(|(n, _)| n),
+            _ => None,
+        };
+        let Some(n) = bare.filter(|_| self.ty.takes_unit()) else {
+            return Ok(Cow::Borrowed(raw));
+        };
+        match (self.default_unit(), self.ty.units_for_bare_number()) {
+            (Some(word), _) => Ok(Cow::Owned(RawValue::Text(format!("{n} {word}")))),
+            (None, Some(units)) => Err(format!(
+                "a bare {n} is ambiguous here: write it with its unit, one of {units} (e.g. '{n} {}')",
+                units.split(", ").next().unwrap_or("")
+            )),
+            (None, None) => Ok(Cow::Borrowed(raw)),
+        }
+    }
+
+    /// A value whose unit (if any) is written out, checked against the type.
+    fn parse_as_written(&self, raw: &RawValue) -> Result<Value, String> {
         let v = match (&self.ty, raw) {
             // A bare number is in the canonical unit.
             (ParamType::Number { .. }, RawValue::Number(n)) => Value::Number(*n),
@@ -377,10 +484,20 @@ impl ParamSpec {
             (ParamType::Names, v) => {
                 Value::Names(v.to_string().split(',').map(|s| s.trim().to_string()).filter(|s| !s.is_empty()).collect())
             }
+            (ParamType::LobePairs | ParamType::LobeGains, RawValue::Number(_) | RawValue::Bool(_)) => {
+                return Err(format!("expected {}, got '{raw}'", self.ty.describe()));
+            }
+            (ParamType::LobePairs, v) => {
+                let text = v.to_string();
+                Value::LobePairs { pairs: parse_pairs(&text)?, text }
+            }
+            (ParamType::LobeGains, v) => {
+                let text = v.to_string();
+                Value::LobeGains { gains_db: parse_lobe_gains(&text)?, text }
+            }
             (_, RawValue::Bool(b)) => return Err(format!("expected {}, got '{b}'", self.ty.describe())),
             (_, RawValue::List(_)) => return Err(format!("expected {}, got a list", self.ty.describe())),
         };
-        self.check_range(&v)?;
         Ok(v)
     }
 
@@ -495,8 +612,26 @@ impl Params {
     /// Text, choice and path parameters.
     pub fn text(&self, name: &str) -> Result<&str, String> {
         match self.get(name) {
-            Some(Value::Text(t)) => Ok(t),
+            Some(Value::Text(t)) | Some(Value::LobePairs { text: t, .. }) | Some(Value::LobeGains { text: t, .. }) => {
+                Ok(t)
+            }
             Some(v) => Err(format!("parameter '{name}' is {v}, not text")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    /// Lobe pairs, read when the graph was.
+    pub fn lobe_pairs(&self, name: &str) -> Result<&[LobePair], String> {
+        match self.get(name) {
+            Some(Value::LobePairs { pairs, .. }) => Ok(pairs),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not lobe pairs")),
+            None => Err(Self::missing(name)),
+        }
+    }
+    /// Per-lobe gains in dB, read when the graph was.
+    pub fn lobe_gains_db(&self, name: &str) -> Result<&[(String, f64)], String> {
+        match self.get(name) {
+            Some(Value::LobeGains { gains_db, .. }) => Ok(gains_db),
+            Some(v) => Err(format!("parameter '{name}' is {v}, not per-lobe gains")),
             None => Err(Self::missing(name)),
         }
     }
@@ -637,6 +772,73 @@ mod tests {
         let n = spec(ParamType::Number { unit: Unit::Degrees, min: 0.1, max: 90.0 });
         let e = n.parse(&RawValue::Number(120.0)).unwrap_err();
         assert!(e.contains("out of range") && e.contains("0.1 to 90"), "{e}");
+    }
+
+    fn with_default(ty: ParamType, default: &'static str) -> ParamSpec {
+        ParamSpec { name: "p", ty, default: Some(default), doc: "" }
+    }
+
+    #[test]
+    fn a_bare_number_takes_the_unit_of_the_default() {
+        let time = ParamType::Time { min_s: 0.0, max_s: 10.0, pulses: true };
+        let dist = ParamType::Distance { min_m: 0.0, max_m: 1e6 };
+        assert_eq!(with_default(time, "4 pulses").parse(&RawValue::Number(5.0)), Ok(Value::Pulses(5.0)));
+        assert_eq!(with_default(time, "4 pulses").parse(&RawValue::Text("5".into())), Ok(Value::Pulses(5.0)));
+        assert_eq!(with_default(time, "20 us").parse(&RawValue::Number(3.0)), Ok(Value::Seconds(3e-6)));
+        assert_eq!(with_default(dist, "5 bins").parse(&RawValue::Number(7.0)), Ok(Value::Bins(7.0)));
+        assert_eq!(with_default(dist, "1 km").parse(&RawValue::Number(2.0)), Ok(Value::Metres(2000.0)));
+        // A unit written out wins over the default's.
+        assert_eq!(with_default(dist, "5 bins").parse(&RawValue::Text("7 m".into())), Ok(Value::Metres(7.0)));
+        let rate = ParamType::Number { unit: Unit::Hertz, min: 0.0, max: 1e9 };
+        assert_eq!(with_default(rate, "1 MHz").parse(&RawValue::Number(2.0)), Ok(Value::Number(2e6)));
+        // A default without a unit word leaves a bare number in the canonical unit.
+        assert_eq!(with_default(rate, "0").parse(&RawValue::Number(2.0)), Ok(Value::Number(2.0)));
+    }
+
+    #[test]
+    fn a_bare_number_no_default_decides_is_refused_with_the_units() {
+        let e =
+            spec(ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: true }).parse(&RawValue::Number(5.0)).unwrap_err();
+        assert!(e.contains("ambiguous") && e.contains("one of s, ms, us, ns, samples, pulses"), "{e}");
+        let e = spec(ParamType::Distance { min_m: 0.0, max_m: 1e6 }).parse(&RawValue::Number(7.0)).unwrap_err();
+        assert!(e.contains("one of m, km, bins"), "{e}");
+        // One canonical unit: no doubt.
+        let deg = spec(ParamType::Number { unit: Unit::Degrees, min: 0.0, max: 90.0 });
+        assert_eq!(deg.parse(&RawValue::Number(5.0)), Ok(Value::Number(5.0)));
+    }
+
+    #[test]
+    fn unit_words_are_read_from_defaults() {
+        assert_eq!(unit_word("4 pulses"), Some("pulses"));
+        assert_eq!(unit_word("5 bins"), Some("bins"));
+        assert_eq!(unit_word("2.4 MS/s"), Some("MS/s"));
+        assert_eq!(unit_word("6"), None);
+        assert_eq!(unit_word("3,4"), None);
+        assert_eq!(unit_word("../x.wav"), None);
+        assert_eq!(unit_word("az=right/left"), None);
+    }
+
+    #[test]
+    fn lobe_pairs_and_gains_are_read_once() {
+        let pairs = spec(ParamType::LobePairs);
+        match pairs.parse(&RawValue::Text("az=right/left, el=-up/down".into())) {
+            Ok(Value::LobePairs { pairs, text }) => {
+                assert_eq!(text, "az=right/left, el=-up/down");
+                assert_eq!((pairs[1].plus.as_str(), pairs[1].minus.as_str()), ("down", "up"));
+            }
+            other => panic!("{other:?}"),
+        }
+        let e = pairs.parse(&RawValue::Text("az=right-left; el".into())).unwrap_err();
+        assert!(e.contains("needs two lobe names"), "{e}");
+        let gains = spec(ParamType::LobeGains);
+        let v = gains.parse(&RawValue::Text("right=0.4, left=-0.2 dB".into())).unwrap();
+        let mut p = Params::new();
+        p.insert("g", v);
+        assert_eq!(p.lobe_gains_db("g").unwrap(), &[("right".to_string(), 0.4), ("left".to_string(), -0.2)]);
+        assert_eq!(p.text("g").unwrap(), "right=0.4, left=-0.2 dB");
+        let e = gains.parse(&RawValue::Text("right=loud".into())).unwrap_err();
+        assert!(e.contains("'right=loud' is not a gain in dB"), "{e}");
+        assert!(gains.parse(&RawValue::Text(String::new())).is_ok(), "no gains is fine");
     }
 
     #[test]

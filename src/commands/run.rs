@@ -86,7 +86,8 @@ fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Er
     // Handlers first: a signal while the blocks are built is acted on as
     // soon as the watch starts.
     let before = signals::install();
-    let prepared = prepare(&graph, &opts, Vec::new())?;
+    // The validation phase `check` shares: errors placed in the graph file.
+    let prepared = prepare(&graph, &opts, Vec::new()).map_err(|e| super::check::place_error(&graph, e))?;
     let live = prepared.is_live();
     let watch = Watch::start(&opts, live, progress, args.stats && !args.quiet, before);
     let result = prepared.execute();

@@ -88,7 +88,7 @@ fn param_json(v: &Value) -> serde_json::Value {
         Value::Bins(x) => json!({"bins": x}),
         Value::Int(i) => json!(i),
         Value::Bool(b) => json!(b),
-        Value::Text(t) => json!(t),
+        Value::Text(t) | Value::LobePairs { text: t, .. } | Value::LobeGains { text: t, .. } => json!(t),
         Value::Names(n) => json!(n),
     }
 }

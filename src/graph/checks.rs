@@ -5,7 +5,6 @@
 use super::error::GraphError;
 use super::resolve::{Builder, ResolvedBlock};
 use lobeflow_blocks::Value;
-use lobeflow_blocks::dsp::discriminator::parse_pairs;
 
 pub(super) fn required_inputs(b: &Builder, exposed: &[(usize, usize)]) -> Result<(), GraphError> {
     for (i, blk) in b.blocks.iter().enumerate() {
@@ -84,15 +83,15 @@ pub(super) fn physical_sanity(b: &Builder) -> Result<(), GraphError> {
         into[w.to.0].push(w.from.0);
     }
     for (i, blk) in b.blocks.iter().enumerate() {
-        let Ok(text) = blk.params.text("pairs") else { continue };
-        let Ok(pairs) = parse_pairs(text) else { continue };
+        let Ok(pairs) = blk.params.lobe_pairs("pairs") else { continue };
         let gates = upstream_gates(b, &into, i);
         let Some(&(gate, _)) = gates.first() else { continue };
         let known: Vec<String> = gates.iter().flat_map(|(_, lobes)| lobes.iter().cloned()).collect();
         for lobe in pairs.iter().flat_map(|p| [&p.plus, &p.minus]) {
             if !known.contains(lobe) {
-                return Err(block_error(
+                return Err(param_error(
                     blk,
+                    "pairs",
                     format!(
                         "parameter 'pairs' of block '{}' names lobe '{lobe}', but block '{}' upstream switches only {}",
                         blk.name,
@@ -124,8 +123,9 @@ fn guard_within_dwell(blk: &ResolvedBlock) -> Result<(), GraphError> {
         _ => None,
     };
     match same {
-        Some((g, d)) if d > 0.0 && g >= d => Err(block_error(
+        Some((g, d)) if d > 0.0 && g >= d => Err(param_error(
             blk,
+            "guard",
             format!(
                 "block '{}': guard {guard} is not shorter than the dwell {dwell}; every sample of every dwell would be left out",
                 blk.name
@@ -155,6 +155,9 @@ fn upstream_gates(b: &Builder, into: &[Vec<usize>], i: usize) -> Vec<(usize, Vec
     gates
 }
 
-fn block_error(blk: &ResolvedBlock, message: String) -> GraphError {
-    GraphError { file: blk.file.clone(), line: blk.line, column: 3, message, hint: None }
+/// An error at the place parameter `name` of `blk` is written (its block
+/// when it was left to its default).
+fn param_error(blk: &ResolvedBlock, name: &str, message: String) -> GraphError {
+    let (line, column) = blk.places.get(name).copied().unwrap_or((blk.line, blk.column));
+    GraphError { file: blk.file.clone(), line, column, message, hint: None }
 }

@@ -25,6 +25,11 @@ pub enum Origin {
         line: usize,
     },
     CommandLine,
+    /// The default written in a composite's own file (`use:`).
+    CompositeDefault {
+        file: PathBuf,
+        line: usize,
+    },
     /// Set by the enclosing graph on a composite block.
     Parent {
         file: PathBuf,
@@ -35,10 +40,11 @@ pub enum Origin {
 impl std::fmt::Display for Origin {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {
-            Origin::Default { file, line } => write!(f, "default, {}:{line}", file.display()),
-            Origin::ParamsFile { file, line } => write!(f, "params file {}:{line}", file.display()),
+            Origin::Default { file, line } => write!(f, "graph {}:{line}", file.display()),
+            Origin::ParamsFile { file, line } => write!(f, "--params {}:{line}", file.display()),
             Origin::CommandLine => write!(f, "--set"),
-            Origin::Parent { file, line } => write!(f, "set by {}:{line}", file.display()),
+            Origin::CompositeDefault { file, line } => write!(f, "composite default {}:{line}", file.display()),
+            Origin::Parent { file, line } => write!(f, "composite use {}:{line}", file.display()),
         }
     }
 }
@@ -97,6 +103,8 @@ impl Overrides {
 pub struct KnobValue {
     pub name: String,
     pub value: RawValue,
+    /// The declared unit, or else the unit word of the default (`4 pulses`):
+    /// a bare number given to the knob is in this unit.
     pub unit: Option<String>,
     pub doc: String,
     pub origin: Origin,
@@ -112,8 +120,11 @@ pub struct ResolvedBlock {
     pub params: Params,
     /// Where each parameter's value came from.
     pub sources: BTreeMap<String, String>,
+    /// Where each parameter set in the graph is written: (line, column) in `file`.
+    pub places: BTreeMap<String, (usize, usize)>,
     pub file: PathBuf,
     pub line: usize,
+    pub column: usize,
 }
 
 /// A wire from an output port to an input port (block index, port index).
@@ -132,6 +143,16 @@ pub struct ResolvedGraph {
     pub settings: Vec<KnobValue>,
     pub blocks: Vec<ResolvedBlock>,
     pub wires: Vec<Wire>,
+}
+
+impl KnobValue {
+    /// The value as it will be read: a bare number with the knob's unit.
+    pub fn value_text(&self) -> String {
+        match (&self.value, self.unit.as_deref()) {
+            (RawValue::Number(n), Some(u)) if !u.is_empty() => format!("{n} {u}"),
+            (v, _) => v.to_string(),
+        }
+    }
 }
 
 impl ResolvedGraph {
@@ -164,7 +185,7 @@ pub(super) struct Builder<'r> {
 /// Load `path`, apply `overrides`, expand and check everything.
 pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Result<ResolvedGraph, GraphError> {
     let file = GraphFile::load(path)?;
-    let mut settings = settle_knobs(&file, BTreeMap::new())?;
+    let mut settings = settle_knobs(&file, BTreeMap::new(), true)?;
     for o in &overrides.items {
         let Some(k) = settings.get_mut(&o.name) else {
             let names: Vec<&str> = file.settings.iter().map(|k| k.name.as_str()).collect();
@@ -229,24 +250,32 @@ fn canonical(p: &Path) -> PathBuf {
 
 /// Knob values from the file's defaults, then from `given` (a parent's set).
 /// A knob with no value yet holds an empty list, caught by the caller.
+/// `top` is false for a composite's file.
 fn settle_knobs(
     file: &GraphFile,
     mut given: BTreeMap<String, KnobValue>,
+    top: bool,
 ) -> Result<BTreeMap<String, KnobValue>, GraphError> {
     let src = &file.source;
     let mut out = BTreeMap::new();
     for d in &file.settings {
         let (line, _) = src.locate(&[key("settings"), key(&d.name)]);
+        let file = src.path.clone();
+        let default_unit = match &d.default {
+            Some(RawValue::Text(t)) => lobeflow_blocks::param::unit_word(t).map(str::to_string),
+            _ => None,
+        };
         let mut v = KnobValue {
             name: d.name.clone(),
             value: d.default.clone().unwrap_or(RawValue::List(Vec::new())),
-            unit: d.unit.clone(),
+            unit: d.unit.clone().filter(|u| !u.is_empty()).or(default_unit),
             doc: d.doc.clone(),
-            origin: Origin::Default { file: src.path.clone(), line },
+            origin: if top { Origin::Default { file, line } } else { Origin::CompositeDefault { file, line } },
             base: src.dir(),
         };
         if let Some(g) = given.remove(&d.name) {
             v.value = g.value;
+            v.unit = v.unit.or(g.unit);
             v.origin = g.origin;
             v.base = g.base;
         }
@@ -280,9 +309,9 @@ fn substitute(
     }
     let takes_unit =
         matches!(ty, Some(ParamType::Number { .. } | ParamType::Time { .. } | ParamType::Distance { .. }) | None);
-    let value = match (&k.value, &k.unit) {
-        (RawValue::Number(n), Some(u)) if takes_unit && !u.is_empty() => RawValue::Text(format!("{n} {u}")),
-        (v, _) => v.clone(),
+    let value = match &k.value {
+        RawValue::Number(_) if takes_unit => RawValue::from_text(&k.value_text()),
+        v => v.clone(),
     };
     Ok((value, Some(k.clone())))
 }
@@ -309,11 +338,11 @@ fn expand(
                 if let Some(describe) = b.registry.describer(kind) {
                     // The instance declares itself from the parameters its kind
                     // always has (a program and its arguments).
-                    let (launch, _) = set_params(&spec, decl, settings, src, true)?;
+                    let (launch, _, _) = set_params(&spec, decl, settings, src, true)?;
                     spec = describe(&launch, &src.dir())
                         .map_err(|m| src.error(&at, format!("block '{}' ({}): {m}", decl.name, spec.kind)))?;
                 }
-                let (mut params, mut sources) = set_params(&spec, decl, settings, src, false)?;
+                let (mut params, mut sources, places) = set_params(&spec, decl, settings, src, false)?;
                 for ps in spec.params {
                     if params.get(ps.name).is_some() {
                         continue;
@@ -339,8 +368,9 @@ fn expand(
                         }
                     }
                 }
-                let (line, _) = src.locate(&at);
-                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, file: src.path.clone(), line });
+                let (line, column) = src.locate(&at);
+                let file = src.path.clone();
+                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, places, file, line, column });
                 scope.insert(decl.name.clone(), Local::Block(b.blocks.len() - 1));
             }
             BlockBody::Use(rel) => {
@@ -386,14 +416,14 @@ fn expand(
                         KnobValue {
                             name: kname.clone(),
                             value,
-                            unit: cd.unit.clone(),
+                            unit: None,
                             doc: cd.doc.clone(),
                             origin: Origin::Parent { file: src.path.clone(), line: src.locate(&pat).0 },
                             base,
                         },
                     );
                 }
-                let child_knobs = settle_knobs(&child, given)?;
+                let child_knobs = settle_knobs(&child, given, false)?;
                 for cd in &child.settings {
                     if matches!(child_knobs[&cd.name].value, RawValue::List(ref l) if l.is_empty()) {
                         return Err(src
@@ -437,6 +467,10 @@ fn expand(
     Ok(scope)
 }
 
+/// A block's parameters, where each value came from, and where each set
+/// one is written (line, column).
+type SetParams = (Params, BTreeMap<String, String>, BTreeMap<String, (usize, usize)>);
+
 /// Check the parameters a block declaration sets against `spec`, with where
 /// each came from. With `declared_only`, names `spec` does not declare are
 /// passed over instead of refused (a self-declaring kind reads its own first).
@@ -446,9 +480,10 @@ fn set_params(
     settings: &BTreeMap<String, KnobValue>,
     src: &Source,
     declared_only: bool,
-) -> Result<(Params, BTreeMap<String, String>), GraphError> {
+) -> Result<SetParams, GraphError> {
     let mut params = Params::new();
     let mut sources = BTreeMap::new();
+    let mut places = BTreeMap::new();
     for (pname, raw) in &decl.set {
         let pat = [key("blocks"), key(&decl.name), key("set"), key(pname)];
         let Some(ps) = spec.param(pname) else {
@@ -474,14 +509,16 @@ fn set_params(
         {
             parsed = Value::Text(base.join(p).to_string_lossy().into_owned());
         }
+        let place = src.locate(&pat);
         let from = match &knob {
             Some(k) => format!("knob {} ({})", k.name, k.origin),
-            None => format!("{}:{}", src.path.display(), src.locate(&pat).0),
+            None => format!("graph {}:{}", src.path.display(), place.0),
         };
         sources.insert(pname.clone(), from);
+        places.insert(pname.clone(), place);
         params.insert_declared(ps, parsed);
     }
-    Ok((params, sources))
+    Ok((params, sources, places))
 }
 
 fn split_end(text: &str) -> (&str, Option<&str>) {

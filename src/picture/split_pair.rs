@@ -22,7 +22,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     params: &[
         ParamSpec {
             name: "pairs",
-            ty: ParamType::Text,
+            ty: ParamType::LobePairs,
             default: Some("az=right/left, el=up/down"),
             doc: "lobe pairs: axis=positive/negative, comma-separated",
         },

@@ -120,8 +120,10 @@ pub fn check_outputs(graph: &ResolvedGraph, out_dir: &Path, stream_table: Option
             let (ParamType::OutputPath, Some(Value::Text(p))) = (&ps.ty, b.params.get(ps.name)) else {
                 continue;
             };
-            let place = |what: String| {
-                Error::Usage(format!("block '{}' ({}), parameter '{}' = '{p}': {what}", b.name, b.spec.kind, ps.name))
+            let place = |what: String| Error::Block {
+                block: b.name.clone(),
+                kind: b.spec.kind.to_string(),
+                message: format!("parameter '{}' = '{p}': {what}", ps.name),
             };
             if p.trim() == STDOUT_PATH && b.spec.kind == TABLE_KIND {
                 continue;

@@ -19,13 +19,13 @@ pub const SPEC: BlockSpec = BlockSpec {
     params: &[
         ParamSpec {
             name: "pairs",
-            ty: ParamType::Text,
+            ty: ParamType::LobePairs,
             default: Some("az=right/left, el=up/down"),
             doc: "axis=plus/minus lobe names; the plus lobe sits at +squint; a leading - flips the sign",
         },
         ParamSpec {
             name: "lobe_gain_db",
-            ty: ParamType::Text,
+            ty: ParamType::LobeGains,
             default: Some(""),
             doc: "per-lobe path gain to remove, e.g. right=0.4, left=-0.2 (dB)",
         },
