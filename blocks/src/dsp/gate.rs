@@ -12,6 +12,7 @@
 //! count little, and is nearly exact for echoes of four samples or more and
 //! for matched-filter triangles (bias below 0.03 and 0.01 bin).
 
+use crate::dsp::compressed_gate::CompressedSums;
 use num_complex::{Complex32, Complex64};
 
 /// How the pulses of a dwell are combined.
@@ -31,6 +32,39 @@ impl Integration {
             "coherent" => Some(Integration::Coherent),
             _ => None,
         }
+    }
+}
+
+/// Where a dwell's echo energy is read from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum AmplitudeFrom {
+    /// Summed over the gate, bins independent (an uncompressed echo).
+    Gate,
+    /// The gate's centre bin alone.
+    Peak,
+    /// After a matched filter: the compressed output interpolated at the
+    /// echo's fitted fractional delay (docs/derivations.md §7); the range
+    /// is that delay.
+    Interpolated,
+    /// After a matched filter: summed over the gate, with the spread its
+    /// correlated bins give (docs/derivations.md §7).
+    CompressedGate,
+}
+
+impl AmplitudeFrom {
+    pub const NAMES: &'static [&'static str] = &["gate", "peak", "interpolated", "compressed_gate"];
+    pub fn from_name(s: &str) -> Option<AmplitudeFrom> {
+        match s {
+            "gate" => Some(AmplitudeFrom::Gate),
+            "peak" => Some(AmplitudeFrom::Peak),
+            "interpolated" => Some(AmplitudeFrom::Interpolated),
+            "compressed_gate" => Some(AmplitudeFrom::CompressedGate),
+            _ => None,
+        }
+    }
+    /// Whether the mode needs the compressed cross sums (noncoherent only).
+    pub fn compressed(self) -> bool {
+        matches!(self, AmplitudeFrom::Interpolated | AmplitudeFrom::CompressedGate)
     }
 }
 
@@ -105,10 +139,10 @@ pub struct DwellSums {
     /// First gate bin.
     pub start: usize,
     integration: Integration,
-    /// Amplitude, energy and spread from the centre bin alone (the range
-    /// still from the whole gate): after a matched filter one sample holds
-    /// the echo's energy, and its neighbours share its noise.
-    peak_amplitude: bool,
+    /// Where the echo energy is read (see [`AmplitudeFrom`]).
+    amplitude_from: AmplitudeFrom,
+    /// Cross and lag products for the compressed modes.
+    compressed: Option<CompressedSums>,
     power: Vec<f64>,
     sum: Vec<Complex64>,
     noise_sum: f64,
@@ -139,7 +173,8 @@ impl DwellSums {
         DwellSums {
             start,
             integration,
-            peak_amplitude: false,
+            amplitude_from: AmplitudeFrom::Gate,
+            compressed: None,
             power: vec![0.0; width],
             sum: vec![Complex64::new(0.0, 0.0); width],
             noise_sum: 0.0,
@@ -150,9 +185,10 @@ impl DwellSums {
         }
     }
 
-    /// Take the amplitude from the centre bin only (see `peak_amplitude`).
-    pub fn with_peak_amplitude(mut self, on: bool) -> DwellSums {
-        self.peak_amplitude = on;
+    /// Read the echo energy as `from` says.
+    pub fn with_amplitude_from(mut self, from: AmplitudeFrom) -> DwellSums {
+        self.amplitude_from = from;
+        self.compressed = from.compressed().then(|| CompressedSums::new(self.width()));
         self
     }
 
@@ -170,6 +206,9 @@ impl DwellSums {
             let x = Complex64::new(x.re as f64, x.im as f64);
             *p += x.norm_sqr();
             *s += x;
+        }
+        if let Some(c) = &mut self.compressed {
+            c.add(gate, noise);
         }
         for part in noise {
             self.noise_sum += power_sum(part);
@@ -201,21 +240,38 @@ impl DwellSums {
     /// fluctuate up, and that ratio would read as an angle.
     pub fn summarise(&self, noise: f64, pulse_samples: f64, weighting: Weighting, detect_sigmas: f64) -> GateSummary {
         let n = self.pulses.max(1) as f64;
-        let amplitude_bins = if self.peak_amplitude { self.width() / 2..self.width() / 2 + 1 } else { 0..self.width() };
-        let g = amplitude_bins.len() as f64;
+        let amplitude_bins = if self.amplitude_from == AmplitudeFrom::Peak {
+            self.width() / 2..self.width() / 2 + 1
+        } else {
+            0..self.width()
+        };
         // Noise-corrected per-pulse echo energy in each gate bin.
         let corrected: Vec<f64> = match self.integration {
             Integration::Noncoherent => self.power.iter().map(|p| p / n - noise).collect(),
             // The mean of N pulses keeps the echo and carries noise power noise/N.
             Integration::Coherent => self.sum.iter().map(|s| (s / n).norm_sqr() - noise / n).collect(),
         };
-        let energy: f64 = corrected[amplitude_bins].iter().sum();
-        let e = if noise > 0.0 {
-            energy / noise
-        } else if energy > 0.0 {
-            f64::INFINITY
-        } else {
-            0.0
+        let reading = self.compressed.as_ref().map(|c| match self.amplitude_from {
+            AmplitudeFrom::Interpolated => c.interpolated(noise),
+            _ => c.gate_sum(noise),
+        });
+        let (energy, e, var_ln_amp, g) = match reading {
+            Some(r) => {
+                let g = if r.position.is_some() { 1.0 } else { self.width() as f64 };
+                (r.energy_ratio * noise, r.energy_ratio, r.var_ln_amp, g)
+            }
+            None => {
+                let g = amplitude_bins.len() as f64;
+                let energy: f64 = corrected[amplitude_bins].iter().sum();
+                let e = if noise > 0.0 {
+                    energy / noise
+                } else if energy > 0.0 {
+                    f64::INFINITY
+                } else {
+                    0.0
+                };
+                (energy, e, self.independent_bins_var(e, g), g)
+            }
         };
         // Noise alone: each bin's mean of N powers has std noise/sqrt(N)
         // (noncoherent); the power of a mean of N has std noise/N (coherent).
@@ -224,29 +280,19 @@ impl DwellSums {
             Integration::Coherent => noise / n * g.sqrt(),
         };
         let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std { energy.sqrt() } else { f64::NAN };
-        let var_ln_amp = if e > 0.0 {
-            match self.integration {
-                // docs/derivations.md §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
-                Integration::Noncoherent => (g / (e * e) + 2.0 / e) / (4.0 * n),
-                // The coherent mean is one "pulse" whose echo energy over its own
-                // noise (noise/N) is N E; put E -> N E, N -> 1 in the same form:
-                // (G/(N E)^2 + 2/(N E)) / 4, which for G = 1 is 1/(2 N s) to first
-                // order, the coherent result of §4.
-                Integration::Coherent => {
-                    let ne = n * e;
-                    (g / (ne * ne) + 2.0 / ne) / 4.0
-                }
-            }
-        } else {
-            f64::INFINITY
-        };
         let weights: Vec<f64> = match weighting {
             Weighting::Amplitude => corrected.iter().map(|c| c.max(0.0).sqrt()).collect(),
             Weighting::Power => corrected.iter().map(|c| c.max(0.0)).collect(),
         };
         let total: f64 = weights.iter().sum();
-        let centroid_bin = (total > 0.0)
-            .then(|| self.start as f64 + weights.iter().enumerate().map(|(k, w)| k as f64 * w).sum::<f64>() / total);
+        // The interpolated reading fits the echo's delay itself.
+        let fitted = reading.and_then(|r| r.position).filter(|_| e > 0.0);
+        let centroid_bin = match fitted {
+            Some(p) => Some(self.start as f64 + p),
+            None => (total > 0.0).then(|| {
+                self.start as f64 + weights.iter().enumerate().map(|(k, w)| k as f64 * w).sum::<f64>() / total
+            }),
+        };
         let half = self.width() / 2;
         let early = corrected[..half].iter().map(|c| c.max(0.0)).sum();
         let late = corrected[self.width() - half..].iter().map(|c| c.max(0.0)).sum();
@@ -258,6 +304,28 @@ impl DwellSums {
             range_bin: centroid_bin.map(|c| c - (pulse_samples - 1.0) / 2.0),
             early,
             late,
+        }
+    }
+}
+
+impl DwellSums {
+    /// Expected var(ln A) of a gate of `g` independent bins at energy ratio `e`.
+    fn independent_bins_var(&self, e: f64, g: f64) -> f64 {
+        let n = self.pulses.max(1) as f64;
+        if e.is_nan() || e <= 0.0 {
+            return f64::INFINITY;
+        }
+        match self.integration {
+            // docs/derivations.md §4: var(ln A) ~= (G/E^2 + 2/E) / (4N).
+            Integration::Noncoherent => (g / (e * e) + 2.0 / e) / (4.0 * n),
+            // The coherent mean is one "pulse" whose echo energy over its own
+            // noise (noise/N) is N E; put E -> N E, N -> 1 in the same form:
+            // (G/(N E)^2 + 2/(N E)) / 4, which for G = 1 is 1/(2 N s) to first
+            // order, the coherent result of §4.
+            Integration::Coherent => {
+                let ne = n * e;
+                (g / (ne * ne) + 2.0 / ne) / 4.0
+            }
         }
     }
 }
@@ -350,7 +418,7 @@ mod tests {
     #[test]
     fn peak_amplitude_reads_the_centre_bin_and_ranges_over_the_gate() {
         // A matched-filter triangle 0.5, 1, 0.5 (amplitudes) at bins 4..7, no noise.
-        let mut sums = DwellSums::new(4, 3, Integration::Noncoherent).with_peak_amplitude(true);
+        let mut sums = DwellSums::new(4, 3, Integration::Noncoherent).with_amplitude_from(AmplitudeFrom::Peak);
         let gate: Vec<Complex32> = [0.5, 1.0, 0.5].iter().map(|&a| Complex32::new(a, 0.0)).collect();
         sums.add(&gate, &[], 0);
         // Noise 0.25 per bin: the outer bins correct to 0, the centre to 0.75.

@@ -1,5 +1,6 @@
 //! Signal-processing pieces shared by several blocks (no block code here).
 pub mod beam;
+pub mod compressed_gate;
 pub mod discriminator;
 pub mod gate;
 pub mod pulse_timing;

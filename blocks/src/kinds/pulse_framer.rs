@@ -51,6 +51,12 @@ pub const SPEC: BlockSpec = BlockSpec {
             doc: "leakage: power this far above the running noise floor",
         },
         ParamSpec {
+            name: "leakage_instant",
+            ty: ParamType::Choice(&["rise", "peak"]),
+            default: Some("rise"),
+            doc: "leakage: the transmit instant is the first sample within 3 dB of the top (rise), or the top itself (peak: for pulse-compressed leakage, whose correlation peak is the transmit instant)",
+        },
+        ParamSpec {
             name: "holdoff",
             ty: ParamType::Number { unit: Unit::None, min: 0.05, max: 1.4 },
             default: Some("0.7"),
@@ -95,6 +101,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         prf: p.num("prf")?,
         threshold: p.num("threshold")? as f32,
         power_ratio: 10f64.powf(p.num("threshold_db")? / 10.0),
+        leakage_peak: p.text("leakage_instant")? == "peak",
         holdoff_frac: p.num("holdoff")?,
         params: p.clone(),
         setup: None,
@@ -151,7 +158,10 @@ impl Rise {
     fn len(&self) -> usize {
         self.samples.len()
     }
-    fn instant(&self) -> u64 {
+    fn instant(&self, at_peak: bool) -> u64 {
+        if at_peak {
+            return self.samples.iter().find(|(_, p)| *p >= self.top).map_or(self.samples[0].0, |(n, _)| *n);
+        }
         let half = 0.5 * self.top;
         self.samples.iter().find(|(_, p)| *p >= half).map_or(self.samples[0].0, |(n, _)| *n)
     }
@@ -177,6 +187,8 @@ struct PulseFramer {
     prf: f64,
     threshold: f32,
     power_ratio: f64,
+    /// Transmit instant at the leakage's top instead of its rise.
+    leakage_peak: bool,
     holdoff_frac: f64,
     params: Params,
     setup: Option<Setup>,
@@ -353,7 +365,7 @@ impl PulseFramer {
                         rise.push(n, chunk.iq[k].norm_sqr());
                         continue;
                     }
-                    let at = rise.instant();
+                    let at = rise.instant(self.leakage_peak);
                     if let Some(done) = self.rise.take() {
                         self.rise_spare = done.samples;
                     }
@@ -644,7 +656,7 @@ impl PulseFramer {
             self.warm_up(out)?;
         }
         if let Some(rise) = self.rise.take() {
-            self.instant(rise.instant(), false, out);
+            self.instant(rise.instant(self.leakage_peak), false, out);
         }
         self.blanked_in_place = 0..0;
         self.cut_found();

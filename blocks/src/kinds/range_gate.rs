@@ -4,7 +4,7 @@
 //! arithmetic lives in [`crate::dsp::gate`].
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::dsp::gate::{DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
+use crate::dsp::gate::{AmplitudeFrom, DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
 use crate::item::{DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
 use std::collections::BTreeMap;
@@ -82,9 +82,9 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "amplitude_from",
-            ty: ParamType::Choice(&["gate", "peak"]),
+            ty: ParamType::Choice(AmplitudeFrom::NAMES),
             default: Some("gate"),
-            doc: "gate: echo energy summed over the gate; peak: the centre bin alone, after a matched filter (the single-sample limit; neighbouring bins share noise); range still from the whole gate",
+            doc: "gate: echo energy summed over the gate; after a matched filter: peak (the centre bin alone), interpolated (the output at the echo's fitted fractional delay: the single-sample limit at any delay, and the range) or compressed_gate (summed, spread from the correlated bins); the last two need noncoherent integration",
         },
         ParamSpec {
             name: "noise_start",
@@ -118,6 +118,12 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
     let acquire = p.flag("acquire")?;
     let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
     let integration = Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
+    let amplitude_from = AmplitudeFrom::from_name(p.text("amplitude_from")?).ok_or("amplitude_from: unknown mode")?;
+    if amplitude_from.compressed() && integration != Integration::Noncoherent {
+        return Err(
+            "range_gate: amplitude_from 'interpolated' and 'compressed_gate' need integration 'noncoherent'".into()
+        );
+    }
     // Distances can only become bins once the sample rate is known; check what we can now.
     for name in ["gate_start", "gate_width", "search_start", "search_end", "noise_start", "noise_width", "pulse"] {
         p.get(name).ok_or_else(|| format!("parameter '{name}' has no value"))?;
@@ -132,7 +138,7 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
         follow,
         integration,
         weighting: Weighting::from_name(p.text("centroid")?).ok_or("centroid: unknown weighting")?,
-        peak_amplitude: p.text("amplitude_from")? == "peak",
+        amplitude_from,
         noise_margin_db: p.num("noise_margin")?,
         detect_sigmas: p.num("detect")?,
         geometry: None,
@@ -238,7 +244,7 @@ struct RangeGate {
     follow: Follow,
     integration: Integration,
     weighting: Weighting,
-    peak_amplitude: bool,
+    amplitude_from: AmplitudeFrom,
     noise_margin_db: f64,
     detect_sigmas: f64,
     geometry: Option<Geometry>,
@@ -314,7 +320,7 @@ impl RangeGate {
         }
         let sums = self
             .gate_start
-            .map(|s| DwellSums::new(s, geo.gate_width, self.integration).with_peak_amplitude(self.peak_amplitude));
+            .map(|s| DwellSums::new(s, geo.gate_width, self.integration).with_amplitude_from(self.amplitude_from));
         if sums.is_none() && self.acq.is_none() {
             self.acq = Some(Acquisition { start: geo.search_start, power: Vec::new(), dwells: 0 });
         }
