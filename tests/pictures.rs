@@ -387,7 +387,7 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
         }
         if d % 37 == 10 {
             let what = format!("dwell {d} shorter than expected at sample {start}");
-            items.push((2, Item::Notice(Notice { stamp: Stamp::new(start, RATE), block: Arc::from("gate"), what })));
+            items.push((2, Item::Notice(Notice::new(Stamp::new(start, RATE), Arc::from("gate"), what))));
         }
     }
     items.sort_by_key(|(_, i)| i.stamp().index);

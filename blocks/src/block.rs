@@ -37,7 +37,7 @@
 //! if let Item::Samples(c) = item { assert_eq!(c.iq[0].re, 2.0); }
 //! ```
 
-use crate::item::{Item, ItemKind, Notice, Stamp};
+use crate::item::{Item, ItemKind, Notice, Severity, Stamp};
 pub use crate::output_file::FileStager;
 use crate::param::{ParamSpec, Params};
 use std::collections::BTreeMap;
@@ -100,9 +100,22 @@ impl Outputs {
         debug_assert!(port < self.ports, "output port {port} not declared");
         self.items.push((port, item));
     }
-    /// Report an irregularity to the person running the graph.
+    /// Report something to the person running the graph; its severity is
+    /// told from the text ([`Severity::of_text`]). Prefer [`Outputs::inform`]
+    /// or [`Outputs::warn`].
     pub fn notice(&mut self, stamp: Stamp, what: impl Into<String>) {
-        self.notices.push(Notice { stamp, block: Arc::from(""), what: what.into() });
+        self.notices.push(Notice::new(stamp, Arc::from(""), what));
+    }
+    /// Tell the person running the graph what was learned or done as planned.
+    pub fn inform(&mut self, stamp: Stamp, what: impl Into<String>) {
+        self.raise(stamp, what, Severity::Information);
+    }
+    /// Warn that the data or the settings disagree with what the run assumes.
+    pub fn warn(&mut self, stamp: Stamp, what: impl Into<String>) {
+        self.raise(stamp, what, Severity::Warning);
+    }
+    pub fn raise(&mut self, stamp: Stamp, what: impl Into<String>, severity: Severity) {
+        self.notices.push(Notice { stamp, block: Arc::from(""), what: what.into(), severity });
     }
     pub fn drain(&mut self) -> std::vec::Drain<'_, (usize, Item)> {
         self.items.drain(..)

@@ -319,6 +319,74 @@ pub struct Notice {
     pub stamp: Stamp,
     pub block: Arc<str>,
     pub what: String,
+    pub severity: Severity,
+}
+
+impl Notice {
+    /// A notice whose severity is told from its text (see [`Severity::of_text`]).
+    pub fn new(stamp: Stamp, block: Arc<str>, what: impl Into<String>) -> Notice {
+        let what = what.into();
+        Notice { stamp, block, severity: Severity::of_text(&what), what }
+    }
+}
+
+/// Whether a notice only informs (what was learned or done as planned) or
+/// warns (the data or the settings disagree with what the run assumes).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum Severity {
+    #[default]
+    Information,
+    Warning,
+}
+
+/// Words by which a notice raised without a severity names an irregularity.
+const IRREGULAR_WORDS: [&str; 14] = [
+    "irregular",
+    "stuck",
+    "stray",
+    "out of order",
+    "missing",
+    "skipped",
+    "dropped",
+    "left out",
+    "not written",
+    "mismatch",
+    "differ",
+    "jumps",
+    "alias",
+    "ignored",
+];
+
+impl Severity {
+    /// The severity of a notice raised without one (blocks written before
+    /// severities existed, and external programs' lines): a warning when its
+    /// text names an irregularity, else information. Information is the
+    /// default because a clean capture must run without warnings, so only
+    /// what names a fault may count against it.
+    pub fn of_text(what: &str) -> Severity {
+        let lower = what.to_ascii_lowercase();
+        if IRREGULAR_WORDS.iter().any(|w| lower.contains(w)) { Severity::Warning } else { Severity::Information }
+    }
+
+    /// The name in external blocks' framing.
+    pub fn name(self) -> &'static str {
+        match self {
+            Severity::Information => "information",
+            Severity::Warning => "warning",
+        }
+    }
+
+    pub fn from_name(name: &str) -> Option<Severity> {
+        [Severity::Information, Severity::Warning].into_iter().find(|s| s.name() == name)
+    }
+
+    /// How a run's summary prints it.
+    pub fn label(self) -> &'static str {
+        match self {
+            Severity::Information => "notice",
+            Severity::Warning => "warning",
+        }
+    }
 }
 
 /// Everything that can travel along a wire.

@@ -131,7 +131,7 @@ impl CaptureSink {
             || (chunk.trigger.is_some() && !self.aux.contains(&AuxRole::Trigger));
         if extra && !self.extra_aux_noticed {
             self.extra_aux_noticed = true;
-            out.notice(
+            out.warn(
                 stamp,
                 "an aux channel appeared after the first item; it is not written (further cases not reported)",
             );
@@ -153,7 +153,7 @@ impl CaptureSink {
         }
         if missing && !self.missing_aux_noticed {
             self.missing_aux_noticed = true;
-            out.notice(
+            out.warn(
                 stamp,
                 "an item lacks an aux channel the first item had; zeros written (further cases not reported)",
             );
@@ -215,7 +215,7 @@ impl Block for CaptureSink {
             Some(w) => {
                 w.finish(&self.files)?;
             }
-            None => out.notice(Stamp::new(0, 1.0), format!("no samples arrived; {} not written", self.path.display())),
+            None => out.warn(Stamp::new(0, 1.0), format!("no samples arrived; {} not written", self.path.display())),
         }
         Ok(())
     }

@@ -176,7 +176,7 @@ impl CaptureSource {
             self.segments_seen += 1;
             if self.segments_seen <= SEGMENT_NOTICES {
                 let f = freq.map(|f| format!(", centre frequency {f} Hz")).unwrap_or_default();
-                out.notice(
+                out.inform(
                     Stamp::new(start, info.rate),
                     format!(
                         "{}: capture segment {} starts at sample {start}{f}",
@@ -200,7 +200,7 @@ impl CaptureSource {
         let unseen = self.segments.len() - self.segments_seen;
         if self.segments_seen > SEGMENT_NOTICES || unseen > 0 {
             let info = self.reader.info();
-            out.notice(
+            out.inform(
                 Stamp::new(self.next, info.rate),
                 format!(
                     "{}: {} capture segments after the first ({unseen} starting at or past the end of the data)",
@@ -212,7 +212,7 @@ impl CaptureSource {
         if self.replaced.count > 0 {
             let info = self.reader.info();
             let first = self.replaced.first_sample.unwrap_or(0);
-            out.notice(
+            out.warn(
                 Stamp::new(first, info.rate),
                 format!(
                     "{}: replaced {} non-finite value(s) by 0, the first at sample {first}",
@@ -255,7 +255,7 @@ impl CaptureSource {
                 live.monitor().end(LiveEnd::Closed, next);
                 let info = self.reader.info();
                 if partial > 0 {
-                    out.notice(
+                    out.warn(
                         Stamp::new(next, info.rate),
                         format!(
                             "{}: the input ended inside a frame: the last {partial} byte(s), after sample {next}, were left out (a frame is {} bytes)",

@@ -172,7 +172,8 @@ fn live_line(m: &LiveMonitor) -> String {
 pub fn summary(report: &RunReport, stats: bool) -> String {
     let mut s = String::new();
     for n in report.notices.iter().take(NOTICES_SHOWN) {
-        let _ = writeln!(s, "notice: {} at sample {} ({:.6} s): {}", n.block, n.stamp.index, n.stamp.seconds(), n.what);
+        let (kind, index, secs) = (n.severity.label(), n.stamp.index, n.stamp.seconds());
+        let _ = writeln!(s, "{kind}: {} at sample {index} ({secs:.6} s): {}", n.block, n.what);
     }
     if report.notices.len() > NOTICES_SHOWN {
         let _ = writeln!(s, "notice: ... and {} more", report.notices.len() - NOTICES_SHOWN);

@@ -157,6 +157,7 @@ impl ExternalBlock {
     /// Pass the program's new standard-error lines on as notices.
     fn pass_errors(&mut self, out: &mut Outputs) {
         let pending = std::mem::take(&mut self.errors.lock().unwrap_or_else(|e| e.into_inner()).pending);
+        // The program says in words what it means: its severity is told from the text.
         for line in pending {
             out.notice(self.last_stamp, line);
         }

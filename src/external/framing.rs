@@ -5,8 +5,8 @@
 //! (I, Q), then the sync and trigger channels when the header says so.
 
 use lobeflow_blocks::{
-    AngleEstimate, Cell, DwellRecord, Flag, Item, ItemKind, LobeSegment, LobeTag, Notice, SampleChunk, Span, Stamp,
-    Sweep, TableRow,
+    AngleEstimate, Cell, DwellRecord, Flag, Item, ItemKind, LobeSegment, LobeTag, Notice, SampleChunk, Severity, Span,
+    Stamp, Sweep, TableRow,
 };
 use num_complex::Complex32;
 use serde_json::{Map, Value, json};
@@ -122,6 +122,7 @@ pub fn encode(port: &str, item: &Item, buf: &mut Vec<u8>) {
         Item::Notice(n) => {
             head.insert("block".into(), json!(&*n.block));
             head.insert("what".into(), json!(n.what));
+            head.insert("severity".into(), json!(n.severity.name()));
         }
     }
     if let Some((iq, sync, trigger)) = payload {
@@ -378,11 +379,16 @@ pub fn build_item(
             }
             Item::Row(TableRow { stamp, fields: out })
         }
-        ItemKind::Notice => Item::Notice(Notice {
-            stamp,
-            block: Arc::from(h.0.get("block").and_then(Value::as_str).unwrap_or("")),
-            what: h.text("what")?.to_string(),
-        }),
+        ItemKind::Notice => {
+            let block = Arc::from(h.0.get("block").and_then(Value::as_str).unwrap_or(""));
+            let mut notice = Notice::new(stamp, block, h.text("what")?);
+            // Optional: without it the severity is told from the text.
+            if let Some(name) = h.0.get("severity").and_then(Value::as_str) {
+                notice.severity = Severity::from_name(name)
+                    .ok_or_else(|| format!("severity '{name}' is neither 'information' nor 'warning'"))?;
+            }
+            Item::Notice(notice)
+        }
     })
 }
 

@@ -249,7 +249,7 @@ impl Block for AnglePlot {
             }
             None => {
                 if self.other_axes == 0 {
-                    out.notice(
+                    out.warn(
                         e.stamp,
                         format!("more than {MAX_AXES} axes; axis '{axis}' and later new axes are not drawn"),
                     );

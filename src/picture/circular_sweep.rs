@@ -137,7 +137,7 @@ impl Block for CircularSweep {
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(avg) = self.average.as_ref() else {
-            out.notice(lobeflow_blocks::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
+            out.warn(lobeflow_blocks::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
             return write_picture(&Empty, &self.path, &self.files).map(|_| ());
         };
         let mark_m = self

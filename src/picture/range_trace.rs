@@ -102,7 +102,7 @@ impl Block for RangeTrace {
             .add(name, order, &sweep, |s| BinWindow::from_params(params, "range_start", "range_end", s))?;
         if !kept && !self.dropped_noticed {
             self.dropped_noticed = true;
-            out.notice(
+            out.warn(
                 sweep.stamp,
                 format!(
                     "more than {} lobes; sweeps of lobe '{name}' and later new lobes are not drawn",

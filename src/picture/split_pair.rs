@@ -140,7 +140,7 @@ impl Block for SplitPair {
         };
         let Some(tag) = &sweep.lobe else {
             if self.untagged == 0 {
-                out.notice(
+                out.warn(
                     sweep.stamp,
                     "sweeps carry no lobe label; split_pair needs them labelled by a switch-sync gate",
                 );
@@ -172,7 +172,7 @@ impl Block for SplitPair {
             };
             let balance = balance_db(a, b, gate);
             if balance.is_none() && (a.is_some() || b.is_some()) {
-                out.notice(
+                out.warn(
                     self.averages
                         .groups
                         .first()

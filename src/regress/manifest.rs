@@ -17,6 +17,7 @@
 //!   - {measure: flags, flag: out_of_range, min: 1}
 //!   - {measure: notices, max: 3}                       # every notice of the run
 //!   - {measure: notices, block: sweep_gate, max: 1}    # those of one block kind or instance
+//!   - {measure: warnings, max: 0}                      # notices that warn (block: optional)
 //! golden:
 //!   - {output: angles.csv, file: ridge-four-lobe.golden.csv, tolerance: 1e-6}
 //! ```
@@ -48,6 +49,8 @@ pub enum Measure {
     /// Notices the blocks raised to the run (all, or those of `block`, a
     /// block kind or instance name), counting the ones held back.
     Notices,
+    /// Of those, the ones that warn (information left out).
+    Warnings,
 }
 
 impl Measure {
@@ -61,6 +64,7 @@ impl Measure {
             Measure::RangeRms => "range_rms",
             Measure::Flags => "flags",
             Measure::Notices => "notices",
+            Measure::Warnings => "warnings",
         }
     }
     /// Unit of the measured value and its bounds ("" for counts and ratios).
@@ -70,6 +74,10 @@ impl Measure {
             Measure::RangeRms => "m",
             _ => "",
         }
+    }
+    /// Whether the check counts the run's notices rather than reading the table.
+    pub fn counts_notices(&self) -> bool {
+        matches!(self, Measure::Notices | Measure::Warnings)
     }
     fn needs_axis(&self) -> bool {
         matches!(
@@ -265,8 +273,8 @@ fn validate_check(c: &Check, i: usize, has_truth: bool) -> Result<(), (&'static 
     if c.measure.needs_axis() && c.axis.is_none() {
         return Err(("", format!("check {n} ({what}) needs an axis (e.g. az)")));
     }
-    if c.measure == Measure::Notices && c.axis.is_some() {
-        return Err(("axis", format!("check {n} (notices) counts notices of the whole run; it takes no axis")));
+    if c.measure.counts_notices() && c.axis.is_some() {
+        return Err(("axis", format!("check {n} ({what}) counts notices of the whole run; it takes no axis")));
     }
     match (&c.flag, c.measure) {
         (None, Measure::Flags) => {
@@ -280,8 +288,11 @@ fn validate_check(c: &Check, i: usize, has_truth: bool) -> Result<(), (&'static 
         }
         _ => {}
     }
-    if c.block.is_some() && c.measure != Measure::Notices {
-        return Err(("block", format!("check {n} ({what}) takes no block (only the notices measure does)")));
+    if c.block.is_some() && !c.measure.counts_notices() {
+        return Err((
+            "block",
+            format!("check {n} ({what}) takes no block (only the notices and warnings measures do)"),
+        ));
     }
     if c.measure.needs_truth() && !has_truth {
         return Err(("", format!("check {n} ({what}) compares with the truth, but the manifest names no truth file")));

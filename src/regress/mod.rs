@@ -280,7 +280,10 @@ pub fn run_sample(m: &Manifest, out: &Path, update: bool) -> SampleResult {
                 if axes.is_empty() { "no axes".to_string() } else { axes.join(", ") }
             ))),
             _ => {
-                let count = |block: Option<&str>| notices::count(&report.notices, &graph, block);
+                let count = |block: Option<&str>| match c.measure {
+                    Measure::Warnings => notices::count_warnings(&report.notices, &graph, block),
+                    _ => notices::count(&report.notices, &graph, block),
+                };
                 measure(c, &angles, &angles_path, truth.as_ref(), &count)
             }
         };
@@ -323,8 +326,8 @@ fn run_graph(m: &Manifest, out: &Path) -> Result<Ran, Error> {
     Ok((graph, report, angles, truth))
 }
 
-/// The value a check bounds; `notices` counts the run's notices of a block
-/// (all blocks for None).
+/// The value a check bounds; `notices` counts the run's notices (or, for a
+/// `warnings` check, its warnings) of a block (all blocks for None).
 fn measure(
     c: &Check,
     t: &Table,
@@ -332,7 +335,7 @@ fn measure(
     truth: Option<&Truth>,
     notices: &dyn Fn(Option<&str>) -> u64,
 ) -> Result<Option<f64>, Error> {
-    if c.measure == Measure::Notices {
+    if c.measure.counts_notices() {
         return Ok(Some(notices(c.block.as_deref()) as f64));
     }
     let axis_c = t.column("axis", path)?;
@@ -393,7 +396,7 @@ fn measure(
             }
             (n > 0).then(|| (sum / n as f64).sqrt())
         }
-        Measure::Notices => None,
+        Measure::Notices | Measure::Warnings => None,
     })
 }
 

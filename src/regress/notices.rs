@@ -1,7 +1,7 @@
 //! Counting the notices of a run, for `notices` checks and batch summaries.
 
 use crate::graph::ResolvedGraph;
-use lobeflow_blocks::Notice;
+use lobeflow_blocks::{Notice, Severity};
 
 /// How many notices one report entry stands for: a switch gate reports the
 /// first few of each irregularity and then one line "N more notices of ...
@@ -18,11 +18,21 @@ fn weight(notice: &Notice) -> u64 {
 /// Notices of the run from blocks matching `block` (a kind or an instance
 /// name; every block when None).
 pub fn count(notices: &[Notice], graph: &ResolvedGraph, block: Option<&str>) -> u64 {
+    count_at_least(notices, graph, block, Severity::Information)
+}
+
+/// Warnings of the run from blocks matching `block`, as [`count`] counts notices.
+pub fn count_warnings(notices: &[Notice], graph: &ResolvedGraph, block: Option<&str>) -> u64 {
+    count_at_least(notices, graph, block, Severity::Warning)
+}
+
+fn count_at_least(notices: &[Notice], graph: &ResolvedGraph, block: Option<&str>, least: Severity) -> u64 {
     let matches = |n: &Notice| {
-        block.is_none_or(|want| {
-            let name: &str = &n.block;
-            name == want || graph.blocks.iter().any(|b| b.name == name && b.spec.kind == want)
-        })
+        n.severity >= least
+            && block.is_none_or(|want| {
+                let name: &str = &n.block;
+                name == want || graph.blocks.iter().any(|b| b.name == name && b.spec.kind == want)
+            })
     };
     notices.iter().filter(|n| matches(n)).map(weight).sum()
 }
@@ -40,7 +50,7 @@ mod tests {
         let shown = (0..30).filter(|_| limiter.admit(Irregularity::DwellLength)).count() as u64;
         let lines = limiter.summary();
         assert_eq!(lines.len(), 1);
-        let notice = |what: &str| Notice { stamp: Stamp::new(0, 1.0), block: Arc::from("gate"), what: what.into() };
+        let notice = |what: &str| Notice::new(Stamp::new(0, 1.0), Arc::from("gate"), what);
         assert_eq!(weight(&notice(&lines[0])) + shown, 30);
         assert_eq!(weight(&notice("3 dwell(s) found no partner dwell and gave no estimate")), 1);
     }

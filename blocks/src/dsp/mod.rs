@@ -10,4 +10,5 @@ pub mod spectrum;
 pub mod switch_schedule;
 pub mod switch_sync;
 pub mod sync_levels;
+pub mod timing_check;
 pub mod tracking;

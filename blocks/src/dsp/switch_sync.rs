@@ -24,11 +24,18 @@ pub enum Irregularity {
     Stray,
     /// A lobe came out of the configured order (missing transition).
     Order,
+    /// The signal disagrees with the switch schedule (see `timing_check`).
+    Schedule,
 }
 
 impl Irregularity {
-    pub const ALL: [Irregularity; 4] =
-        [Irregularity::DwellLength, Irregularity::Stuck, Irregularity::Stray, Irregularity::Order];
+    pub const ALL: [Irregularity; 5] = [
+        Irregularity::DwellLength,
+        Irregularity::Stuck,
+        Irregularity::Stray,
+        Irregularity::Order,
+        Irregularity::Schedule,
+    ];
 
     pub fn label(&self) -> &'static str {
         match self {
@@ -36,6 +43,7 @@ impl Irregularity {
             Irregularity::Stuck => "stuck sync",
             Irregularity::Stray => "sync value matching no lobe",
             Irregularity::Order => "lobe out of order",
+            Irregularity::Schedule => "schedule against the signal",
         }
     }
 }
@@ -646,8 +654,8 @@ impl SwitchSync {
 /// bad capture does not flood the report.
 #[derive(Default)]
 pub struct NoticeLimiter {
-    shown: [u64; 4],
-    hidden: [u64; 4],
+    shown: [u64; Irregularity::ALL.len()],
+    hidden: [u64; Irregularity::ALL.len()],
 }
 
 /// Notices of one kind shown before the rest are only counted.

@@ -70,7 +70,7 @@ impl Block for DcRemove {
         {
             self.gaps += 1;
             if self.gaps == 1 {
-                out.notice(chunk.stamp, format!("input jumps from sample {n}; the running mean carries on"));
+                out.warn(chunk.stamp, format!("input jumps from sample {n}; the running mean carries on"));
             }
         }
         self.next = Some(chunk.stamp.index + chunk.len() as u64);

@@ -1,10 +1,365 @@
-//! Parameter handling and notice routing shared by `lobe_gate` and `sweep_gate`.
+//! The switch-sync driver both gates run on (`lobe_gate` cuts segments,
+//! `sweep_gate` labels sweeps), with its parameters and notice routing.
+//!
+//! The driver owns everything the two gates share: building the switch
+//! source once the sample rate (and, for times in pulses, the pulse interval)
+//! is known, holding the first pieces while the sync levels are learned and
+//! replaying them, feeding the source, holding pieces whose lobe is not
+//! decided yet, turning switch events into the lobe in force and its guard,
+//! and routing notices. A gate only says how it releases settled pieces.
 
-use crate::block::Outputs;
+use crate::block::{Block, BlockError, Outputs};
 use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
-use crate::item::{Item, Notice, Stamp};
+use crate::dsp::timing_check::ScheduleCheck;
+use crate::item::{Item, Notice, SampleChunk, Severity, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
+use num_complex::Complex32;
+use std::collections::VecDeque;
 use std::sync::Arc;
+
+/// What a gate feeds through the driver: a stretch of consecutive samples.
+pub trait SwitchPiece: Send {
+    fn stamp(&self) -> Stamp;
+    fn iq(&self) -> &[Complex32];
+    fn sync(&self) -> Option<&[f32]>;
+    /// The stamp end-of-run notices carry when this is the last piece.
+    fn last_stamp(&self) -> Stamp;
+    /// Index one past the last sample.
+    fn end(&self) -> u64 {
+        self.stamp().index + self.iq().len() as u64
+    }
+}
+
+impl SwitchPiece for SampleChunk {
+    fn stamp(&self) -> Stamp {
+        self.stamp
+    }
+    fn iq(&self) -> &[Complex32] {
+        &self.iq
+    }
+    fn sync(&self) -> Option<&[f32]> {
+        self.sync.as_deref()
+    }
+    fn last_stamp(&self) -> Stamp {
+        self.stamp.after(self.iq.len())
+    }
+}
+
+impl SwitchPiece for Sweep {
+    fn stamp(&self) -> Stamp {
+        self.stamp
+    }
+    fn iq(&self) -> &[Complex32] {
+        &self.iq
+    }
+    fn sync(&self) -> Option<&[f32]> {
+        self.sync.as_deref()
+    }
+    fn last_stamp(&self) -> Stamp {
+        self.stamp
+    }
+}
+
+/// The lobe in force and the switch that began it.
+#[derive(Clone, Copy, Debug)]
+pub struct LobeInForce {
+    pub lobe: usize,
+    /// Sample index the dwell began at (the switch instant, or the first sample).
+    pub dwell_start: u64,
+    /// The switch instant, when one was seen or scheduled (may precede the capture).
+    pub switch_at: Option<i64>,
+}
+
+/// Pieces used to measure the pulse interval when a time is given in pulses.
+const PRI_PIECES: usize = 9;
+
+/// The state both gates share; see the module doc.
+pub struct SwitchDriver<P> {
+    pub cfg: GateConfig,
+    pub router: NoticeRouter,
+    source: Option<SwitchSync>,
+    /// Samples left out after each switch instant.
+    pub guard: u64,
+    /// Pieces held while the pulse interval or the sync levels are learned.
+    startup: Vec<P>,
+    /// How many of `startup` went into the level learning.
+    learned: usize,
+    /// Pieces whose lobe is not decided yet (bounded by the tracker's hold).
+    pub pending: VecDeque<P>,
+    fed_end: u64,
+    /// Switch instants (sample, new lobe) not yet reached by the released pieces.
+    pub switches: VecDeque<(u64, usize)>,
+    pub current: Option<LobeInForce>,
+    last_stamp: Option<Stamp>,
+    /// Schedule timing: the cross-check of the schedule against the signal.
+    check: Option<ScheduleCheck>,
+}
+
+impl<P: SwitchPiece> SwitchDriver<P> {
+    pub fn new(cfg: GateConfig, block: &str) -> Self {
+        SwitchDriver {
+            cfg,
+            router: NoticeRouter::new(block, 1),
+            source: None,
+            guard: 0,
+            startup: Vec::new(),
+            learned: 0,
+            pending: VecDeque::new(),
+            fed_end: 0,
+            switches: VecDeque::new(),
+            current: None,
+            last_stamp: None,
+            check: None,
+        }
+    }
+
+    /// The end of the guard after the switch that began the lobe in force.
+    pub fn guard_end(&self) -> u64 {
+        let switch_at = self.current.and_then(|c| c.switch_at);
+        switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64)
+    }
+
+    /// A switch instant reached: its lobe is now in force.
+    pub fn switch_to(&mut self, at: u64, lobe: usize) {
+        self.current = Some(LobeInForce { lobe, dwell_start: at, switch_at: Some(at as i64) });
+    }
+
+    pub fn lobe_name(&self, lobe: usize) -> Arc<str> {
+        Arc::clone(&self.cfg.names[lobe])
+    }
+
+    fn running(&self) -> bool {
+        self.source.as_ref().is_some_and(|s| !s.learning())
+    }
+
+    /// Build the switch source once what it needs is known; true when built now.
+    fn build_source(&mut self, finishing: bool) -> Result<bool, BlockError> {
+        let Some(first) = self.startup.first().map(|s| s.stamp()) else {
+            return Ok(false);
+        };
+        if self.source.is_some() {
+            return Ok(false);
+        }
+        let pri = if self.cfg.needs_pri() {
+            if self.startup.len() < PRI_PIECES && !finishing {
+                return Ok(false);
+            }
+            Some(pulse_interval(&self.startup).ok_or_else(|| {
+                BlockError::at(
+                    "a time is given in pulses, but fewer than two sweeps arrived to measure the pulse interval",
+                    first.index,
+                )
+            })?)
+        } else {
+            None
+        };
+        let at = |e: String| BlockError::at(e, first.index);
+        let (source, guard) = self.cfg.source(first.rate, pri).map_err(at)?;
+        self.source = Some(source);
+        self.guard = guard;
+        self.check = self.cfg.schedule_check(first.rate, pri, guard).map_err(at)?;
+        Ok(true)
+    }
+
+    /// Learn the sync levels from the held pieces; true once the held pieces can be replayed.
+    fn learn(&mut self, finishing: bool, out: &mut Outputs) -> Result<bool, BlockError> {
+        let Some(first) = self.startup.first().map(|s| s.stamp()) else {
+            return Ok(false);
+        };
+        let Some(source) = self.source.as_mut() else {
+            return Ok(false);
+        };
+        if !source.learning() {
+            return Ok(true);
+        }
+        let mut enough = false;
+        while self.learned < self.startup.len() && !enough {
+            let piece = &self.startup[self.learned];
+            let Some(sync) = piece.sync() else {
+                return Err(BlockError::at(
+                    "timing is 'sync' but the input has no sync channel; map one, or use timing: schedule",
+                    piece.stamp().index,
+                ));
+            };
+            enough = source.learn_from(sync);
+            self.learned += 1;
+        }
+        if !enough && !finishing {
+            return Ok(false);
+        }
+        source.end_learning().map_err(|e| BlockError::at(e, first.index))?;
+        if let Some(levels) = source.levels() {
+            let list: Vec<String> = levels.iter().zip(&self.cfg.names).map(|(l, n)| format!("{n} {l:.3}")).collect();
+            out.inform(first, format!("learned sync levels: {}", list.join(", ")));
+        }
+        Ok(true)
+    }
+
+    /// Feed one piece to the switch source and hold it; returns the index
+    /// before which every sample's lobe is decided.
+    fn feed(&mut self, piece: P, out: &mut Outputs) -> Result<u64, BlockError> {
+        let Some(source) = self.source.as_mut() else {
+            return Ok(0);
+        };
+        let index = piece.stamp().index;
+        source.feed(index, piece.sync(), piece.iq().len()).map_err(|e| BlockError::at(e, index))?;
+        if let Some(check) = self.check.as_mut() {
+            check.add(index, piece.iq(), piece.sync());
+        }
+        self.fed_end = self.fed_end.max(piece.end());
+        self.pending.push_back(piece);
+        self.take_events(out);
+        Ok(self.source.as_ref().map_or(self.fed_end, |s| s.settled(self.fed_end)))
+    }
+
+    /// Warn when the signal disagrees with the schedule, saying what would fit.
+    fn cross_check(&mut self, out: &mut Outputs, stamp: Stamp) {
+        let Some(found) = self.check.as_mut().and_then(ScheduleCheck::finish) else {
+            return;
+        };
+        let whole = found.dwells.unwrap_or(0);
+        if whole == 0 && found.offset.abs() <= self.guard as f64 {
+            return; // inside the guard: those samples are left out anyway
+        }
+        let ms = |samples: f64| format_ms(samples / stamp.rate);
+        let mut seen = Vec::new();
+        if whole != 0 {
+            seen.push(format!("the sync levels fit the lobe labels shifted by {whole} dwell(s)"));
+        }
+        if found.offset.abs() > self.guard as f64 {
+            let side = if found.offset > 0.0 { "after" } else { "before" };
+            let what = if found.dwells.is_some() { "sync and amplitude steps" } else { "amplitude steps" };
+            seen.push(format!("the {what} sit {} {side} the scheduled switches", ms(found.offset.abs())));
+        }
+        let mut fit = format!("first_start ≈ {}?", ms(found.first_start));
+        if let Some(alt) = found.alternative {
+            fit.push_str(&format!(" (or {}: a half-dwell step does not tell which lobe comes first)", ms(alt)));
+        }
+        let what = format!("{} (standard score {:.0}): {fit}", seen.join(", and "), found.score);
+        self.router.irregular(out, stamp, Irregularity::Schedule, what);
+    }
+
+    /// Route the source's events and note switches and the first lobe.
+    fn take_events(&mut self, out: &mut Outputs) {
+        let Some(source) = self.source.as_mut() else {
+            return;
+        };
+        let rate = self.pending.back().map_or(1.0, |s| s.stamp().rate);
+        while let Some(event) = source.pop_event() {
+            self.router.report(out, &event, &self.cfg.names, rate);
+            match event {
+                SwitchEvent::Begin { at, lobe, switch_at } => {
+                    let dwell_start = switch_at.map_or(at, |s| s.max(0) as u64);
+                    self.current = Some(LobeInForce { lobe, dwell_start, switch_at });
+                }
+                SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
+                SwitchEvent::Irregular { .. } => {}
+            }
+        }
+    }
+}
+
+/// Seconds as milliseconds, without trailing zeros.
+fn format_ms(seconds: f64) -> String {
+    let text = format!("{:.3}", seconds * 1e3);
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    format!("{text} ms")
+}
+
+/// Median spacing of consecutive piece starts (transmit instants), in samples.
+fn pulse_interval<P: SwitchPiece>(pieces: &[P]) -> Option<f64> {
+    let mut gaps: Vec<u64> =
+        pieces.windows(2).map(|w| w[1].stamp().index.saturating_sub(w[0].stamp().index)).filter(|&g| g > 0).collect();
+    if gaps.is_empty() {
+        return None;
+    }
+    gaps.sort_unstable();
+    Some(gaps[gaps.len() / 2] as f64)
+}
+
+/// What makes a gate itself: which items it takes, and how it hands on the
+/// pieces whose lobe is decided.
+pub trait GateKind: Send + 'static {
+    type Piece: SwitchPiece;
+    fn piece(item: Item) -> Option<Self::Piece>;
+    /// Once the switch source is built, with the first piece's stamp.
+    fn start(&mut self, _first: Stamp) -> Result<(), BlockError> {
+        Ok(())
+    }
+    /// Hand on the pending pieces (or parts of them) before sample `upto`.
+    fn release(&mut self, driver: &mut SwitchDriver<Self::Piece>, upto: u64, out: &mut Outputs);
+    /// After the last release: the gate's own end-of-run checks and reports.
+    fn finish(
+        &mut self,
+        driver: &mut SwitchDriver<Self::Piece>,
+        last: Option<Stamp>,
+        out: &mut Outputs,
+    ) -> Result<(), BlockError>;
+}
+
+/// A gate: the shared driver plus what is specific to one kind.
+pub struct SwitchGate<K: GateKind> {
+    pub driver: SwitchDriver<K::Piece>,
+    pub kind: K,
+}
+
+impl<K: GateKind> SwitchGate<K> {
+    pub fn new(cfg: GateConfig, block: &str, kind: K) -> Self {
+        SwitchGate { driver: SwitchDriver::new(cfg, block), kind }
+    }
+
+    fn run(&mut self, piece: K::Piece, out: &mut Outputs) -> Result<(), BlockError> {
+        let upto = self.driver.feed(piece, out)?;
+        self.kind.release(&mut self.driver, upto, out);
+        Ok(())
+    }
+
+    /// Build the source and learn what is needed, then replay the held pieces.
+    fn advance(&mut self, finishing: bool, out: &mut Outputs) -> Result<(), BlockError> {
+        if self.driver.build_source(finishing)? {
+            let first = self.driver.startup.first().map(|s| s.stamp()).unwrap_or(Stamp::new(0, 1.0));
+            self.kind.start(first)?;
+        }
+        if !self.driver.learn(finishing, out)? {
+            return Ok(());
+        }
+        self.driver.learned = 0;
+        for piece in std::mem::take(&mut self.driver.startup) {
+            self.run(piece, out)?;
+        }
+        Ok(())
+    }
+}
+
+impl<K: GateKind> Block for SwitchGate<K> {
+    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let Some(piece) = K::piece(item) else {
+            return Ok(());
+        };
+        if piece.iq().is_empty() {
+            return Ok(());
+        }
+        self.driver.last_stamp = Some(piece.last_stamp());
+        if self.driver.running() {
+            return self.run(piece, out);
+        }
+        self.driver.startup.push(piece);
+        self.advance(false, out)
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.advance(true, out)?;
+        self.driver.take_events(out);
+        self.kind.release(&mut self.driver, u64::MAX, out);
+        let last = self.driver.last_stamp;
+        self.kind.finish(&mut self.driver, last, out)?;
+        if let Some(stamp) = last {
+            self.driver.cross_check(out, stamp);
+            self.driver.router.summarise(out, stamp);
+        }
+        Ok(())
+    }
+}
 
 /// The gate parameters, checked once at build time.
 pub struct GateConfig {
@@ -44,6 +399,15 @@ impl GateConfig {
 
     fn samples(&self, name: &str, rate: f64, pri: Option<f64>) -> Result<f64, String> {
         self.params.samples_at(name, rate, pri)
+    }
+
+    /// Schedule timing: the cross-check of the schedule against the signal.
+    pub fn schedule_check(&self, rate: f64, pri: Option<f64>, guard: u64) -> Result<Option<ScheduleCheck>, String> {
+        if self.sync_timing {
+            return Ok(None);
+        }
+        let (first_start, dwell) = (self.samples("first_start", rate, pri)?, self.samples("dwell", rate, pri)?);
+        Ok(Some(ScheduleCheck::new(self.names.len(), first_start, dwell, guard as f64)))
     }
 
     /// The switch source and the guard length in samples, for a stream at `rate`.
@@ -91,14 +455,18 @@ impl NoticeRouter {
     /// An irregularity: to the port, and to the report unless rate-limited.
     pub fn irregular(&mut self, out: &mut Outputs, stamp: Stamp, kind: Irregularity, what: String) {
         if self.limiter.admit(kind) {
-            out.notice(stamp, what.clone());
+            out.warn(stamp, what.clone());
         }
-        self.timeline(out, stamp, what);
+        self.mark(out, stamp, what, Severity::Warning);
     }
 
     /// A timeline mark (e.g. a switch instant): to the port only.
     pub fn timeline(&mut self, out: &mut Outputs, stamp: Stamp, what: String) {
-        out.push(self.port, Item::Notice(Notice { stamp, block: Arc::clone(&self.block), what }));
+        self.mark(out, stamp, what, Severity::Information);
+    }
+
+    fn mark(&mut self, out: &mut Outputs, stamp: Stamp, what: String, severity: Severity) {
+        out.push(self.port, Item::Notice(Notice { stamp, block: Arc::clone(&self.block), what, severity }));
     }
 
     /// At finish: say how many notices were held back.
@@ -122,8 +490,8 @@ impl NoticeRouter {
 
     pub fn summarise(&mut self, out: &mut Outputs, stamp: Stamp) {
         for line in self.limiter.summary() {
-            out.notice(stamp, line.clone());
-            self.timeline(out, stamp, line);
+            out.warn(stamp, line.clone());
+            self.mark(out, stamp, line, Severity::Warning);
         }
     }
 }

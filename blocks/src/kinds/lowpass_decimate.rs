@@ -97,7 +97,7 @@ impl LowpassDecimate {
         if self.filter.is_empty() || self.run.as_ref().is_some_and(|r| r.rate != rate) {
             self.filter = lowpass_taps(self.taps, self.cutoff / rate).into_iter().map(|t| t as f32).collect();
             if self.cutoff > rate / (2.0 * self.factor as f64) {
-                out.notice(
+                out.warn(
                     c.stamp,
                     format!(
                         "cutoff {} Hz is above half the output rate ({} S/s): the band edge will alias",
@@ -199,7 +199,7 @@ impl Block for LowpassDecimate {
             self.close(out);
             self.restarts += 1;
             if self.restarts <= 3 {
-                out.notice(
+                out.warn(
                     chunk.stamp,
                     format!("input jumps from sample {from} (or its channels or rate change); the filter restarts"),
                 );

@@ -225,7 +225,7 @@ impl Block for MatchedFilter {
             s.flush(out);
             self.notices += 1;
             if self.notices <= 3 {
-                out.notice(
+                out.warn(
                     chunk.stamp,
                     format!(
                         "input jumps from sample {} (or its channels or rate change); the filter restarts",

@@ -490,7 +490,7 @@ impl PulseFramer {
             return;
         };
         if self.missing_reports < MISSING_SHOWN {
-            out.notice(
+            out.warn(
                 Stamp::new(first, s.rate),
                 format!("{count} missing pulse(s) from sample {first}: predicted transmit instants inserted"),
             );
@@ -673,7 +673,7 @@ impl PulseFramer {
         }
         self.report_missing(out);
         if self.missing_reports > MISSING_SHOWN {
-            out.notice(
+            out.warn(
                 end,
                 format!(
                     "{} missing pulses in all ({} runs; only the first {MISSING_SHOWN} runs were listed)",

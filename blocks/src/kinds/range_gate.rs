@@ -298,7 +298,7 @@ impl RangeGate {
                 {
                     let start = acq.start + best;
                     self.gate_start = Some(start);
-                    out.notice(
+                    out.inform(
                         at,
                         format!(
                             "acquired the strongest echo: gate at bins {}..{} ({:.1} m) after {} dwells",
@@ -355,7 +355,7 @@ impl RangeGate {
                 if iq.len() < gate.end {
                     self.skipped_short += 1;
                     if self.skipped_short == 1 {
-                        out.notice(
+                        out.warn(
                             sweep.stamp,
                             format!(
                                 "sweep of {} samples is shorter than the gate (ends at bin {}); skipped",
@@ -368,7 +368,7 @@ impl RangeGate {
                 }
                 if sweep.blanked as usize > gate.start && !self.blank_reported {
                     self.blank_reported = true;
-                    out.notice(
+                    out.warn(
                         sweep.stamp,
                         format!(
                             "the gate (from bin {}) overlaps the blanked leakage ({} bins)",
@@ -403,7 +403,7 @@ impl RangeGate {
                 None => {
                     self.no_noise += 1;
                     if self.no_noise == 1 {
-                        out.notice(
+                        out.warn(
                             Stamp::new(cur.tag.dwell_start, geo.rate),
                             "no noise reference samples in this dwell (region past the sweep end?); dwell skipped",
                         );
@@ -423,7 +423,7 @@ impl RangeGate {
         if range_m.is_some_and(|r| r < 0.0) {
             self.before_transmit += 1;
             if self.before_transmit == 1 {
-                out.notice(
+                out.warn(
                     mid,
                     format!(
                         "the echo's range comes out at {:.0} m, before the transmit instant: 'pulse' ({} samples) is longer than the echo; ranges like this are left empty",
@@ -473,7 +473,7 @@ impl RangeGate {
             let diff_db = 10.0 * (hi.1 / lo.1).log10();
             if diff_db > self.noise_margin_db {
                 self.mismatch_reported = true;
-                out.notice(
+                out.warn(
                     at,
                     format!(
                         "noise floors differ between lobes: '{}' {:.2} dB, '{}' {:.2} dB ({:.2} dB apart, margin {} dB); \
@@ -499,7 +499,7 @@ impl Block for RangeGate {
         let Some(tag) = sweep.lobe.clone() else {
             self.untagged += 1;
             if self.untagged == 1 {
-                out.notice(sweep.stamp, "sweep without a lobe label (no switch-sync gate upstream?); skipped");
+                out.warn(sweep.stamp, "sweep without a lobe label (no switch-sync gate upstream?); skipped");
             }
             return Ok(());
         };
@@ -518,22 +518,22 @@ impl Block for RangeGate {
         self.close_dwell(out);
         let end = self.last_stamp;
         if self.skipped_short > 0 {
-            out.notice(end, format!("{} sweeps were shorter than the range gate and were skipped", self.skipped_short));
+            out.warn(end, format!("{} sweeps were shorter than the range gate and were skipped", self.skipped_short));
         }
         if self.untagged > 1 {
-            out.notice(end, format!("{} sweeps had no lobe label and were skipped", self.untagged));
+            out.warn(end, format!("{} sweeps had no lobe label and were skipped", self.untagged));
         }
         if self.no_noise > 1 {
-            out.notice(end, format!("{} dwells had no noise reference samples and were skipped", self.no_noise));
+            out.warn(end, format!("{} dwells had no noise reference samples and were skipped", self.no_noise));
         }
         if self.before_transmit > 1 {
-            out.notice(
+            out.warn(
                 end,
                 format!("{} dwells gave a range before the transmit instant; left empty", self.before_transmit),
             );
         }
         if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
-            out.notice(
+            out.warn(
                 end,
                 format!("acquisition did not finish: fewer than {} dwells and a cycle start", self.acquire_dwells),
             );

@@ -268,7 +268,7 @@ impl Block for RatioDiscriminator {
         let found = self.slots.iter().position(|s| s.pair.plus == name || s.pair.minus == name);
         let Some(k) = found else {
             if self.unknown_lobes.len() < UNKNOWN_LOBES_REPORTED && self.unknown_lobes.insert(name.to_string()) {
-                out.notice(
+                out.warn(
                     dwell.mid,
                     format!("dwells of lobe '{name}' (first at sample {}) belong to no pair; ignored", dwell.mid.index),
                 );
@@ -310,12 +310,12 @@ impl Block for RatioDiscriminator {
         let left_waiting = self.slots.iter().filter(|s| s.waiting.is_some()).count() as u64;
         let unpaired = self.unpaired + left_waiting;
         if unpaired > 0 {
-            out.notice(at, format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"));
+            out.warn(at, format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"));
         }
         for slot in &self.slots {
             for (lobe, seen) in [(&slot.pair.plus, slot.seen[0]), (&slot.pair.minus, slot.seen[1])] {
                 if !seen {
-                    out.notice(at, format!("lobe '{lobe}' of pair '{}' never appeared in the dwells", slot.pair.axis));
+                    out.warn(at, format!("lobe '{lobe}' of pair '{}' never appeared in the dwells", slot.pair.axis));
                 }
             }
         }

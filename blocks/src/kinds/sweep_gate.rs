@@ -5,13 +5,10 @@
 //! only a transient that reaches into the range window the integrator uses
 //! drops the sweep, and every such drop is counted with its reason.
 
-use super::gate_common::{GateConfig, NoticeRouter, gate_params};
+use super::gate_common::{GateConfig, GateKind, SwitchDriver, SwitchGate, gate_params};
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::dsp::switch_sync::{SwitchEvent, SwitchSync};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params};
-use std::collections::VecDeque;
-use std::sync::Arc;
 
 /// The gates' parameters plus the cut before a switch, which only sweeps need.
 const PARAMS: [ParamSpec; 12] = {
@@ -49,9 +46,6 @@ const PARAMS: [ParamSpec; 12] = {
 
 const WINDOW: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
 
-/// Sweeps used to measure the pulse interval when a time is given in pulses.
-const PRI_SWEEPS: usize = 9;
-
 pub const SPEC: BlockSpec = BlockSpec {
     kind: "sweep_gate",
     doc: "Labels sweeps with the lobe active over their range window (sync staircase or schedule; times \
@@ -68,56 +62,32 @@ pub const SPEC: BlockSpec = BlockSpec {
 };
 
 fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(SweepGate {
-        cfg: GateConfig::from_params(p)?,
-        router: NoticeRouter::new(&ctx.name, 1),
-        source: None,
-        guard: 0,
-        lead_param: p.clone(),
+    let kind = SweepLabeller {
+        params: p.clone(),
         lead: 0,
         window: (0, None),
-        startup: Vec::new(),
-        learned: 0,
-        pending: VecDeque::new(),
-        fed_end: 0,
-        switches: VecDeque::new(),
-        current: None,
         emitted_dwell: None,
         dwell: 0,
         counts: Counts::default(),
-        last_stamp: None,
-    }))
+    };
+    Ok(Box::new(SwitchGate::new(GateConfig::from_params(p)?, &ctx.name, kind)))
 }
 
-/// The lobe in force: (lobe, dwell start, switch instant that began it).
-type Current = (usize, u64, Option<i64>);
-
-struct SweepGate {
-    cfg: GateConfig,
-    router: NoticeRouter,
-    source: Option<SwitchSync>,
-    guard: u64,
-    /// Holds the `lead` time until the sample rate is known.
-    lead_param: Params,
+/// What only `sweep_gate` does: label whole sweeps, blanking or cutting switch transients.
+struct SweepLabeller {
+    /// Holds `lead` and the window until the sample rate is known.
+    params: Params,
     /// Samples cut before each switch instant.
     lead: u64,
     /// The integrator's range window in bins from the transmit instant (end None: no end).
     window: (u64, Option<u64>),
-    /// Sweeps held while the pulse interval or the sync levels are learned.
-    startup: Vec<Sweep>,
-    /// How many of `startup` went into the level learning.
-    learned: usize,
-    /// Sweeps whose samples are not all decided yet.
-    pending: VecDeque<Sweep>,
-    fed_end: u64,
-    switches: VecDeque<(u64, usize)>,
-    current: Option<Current>,
     /// Dwell start of the last sweep handed on.
     emitted_dwell: Option<u64>,
     dwell: u64,
     counts: Counts,
-    last_stamp: Option<Stamp>,
 }
+
+type Driver = SwitchDriver<Sweep>;
 
 /// What the gate did to sweeps because of switch transients.
 #[derive(Default)]
@@ -136,143 +106,26 @@ fn sweep_end(s: &Sweep) -> u64 {
     s.stamp.index + s.iq.len() as u64
 }
 
-/// Median spacing of consecutive transmit instants, in samples.
-fn pulse_interval(sweeps: &[Sweep]) -> Option<f64> {
-    let mut gaps: Vec<u64> =
-        sweeps.windows(2).map(|w| w[1].stamp.index.saturating_sub(w[0].stamp.index)).filter(|&g| g > 0).collect();
-    if gaps.is_empty() {
-        return None;
-    }
-    gaps.sort_unstable();
-    Some(gaps[gaps.len() / 2] as f64)
-}
-
-impl SweepGate {
-    /// Build the switch source and learn what is needed, then replay the held sweeps.
-    fn advance(&mut self, finishing: bool, out: &mut Outputs) -> Result<(), BlockError> {
-        let Some(first) = self.startup.first().map(|s| s.stamp) else {
-            return Ok(());
-        };
-        if self.source.is_none() {
-            let pri = if self.cfg.needs_pri() {
-                if self.startup.len() < PRI_SWEEPS && !finishing {
-                    return Ok(());
-                }
-                Some(pulse_interval(&self.startup).ok_or_else(|| {
-                    BlockError::at(
-                        "a time is given in pulses, but fewer than two sweeps arrived to measure the pulse interval",
-                        first.index,
-                    )
-                })?)
-            } else {
-                None
-            };
-            let (source, guard) = self.cfg.source(first.rate, pri).map_err(|e| BlockError::at(e, first.index))?;
-            self.source = Some(source);
-            self.guard = guard;
-            let p = &self.lead_param;
-            let at = |e: String| BlockError::at(e, first.index);
-            self.lead = p.samples_at("lead", first.rate, None).map_err(at)?.round() as u64;
-            let start = p.bins_at("window_start", first.rate).map_err(at)?.round() as u64;
-            let end = p.bins_at("window_end", first.rate).map_err(at)?.round() as u64;
-            if end > 0 && end <= start {
-                return Err(at(format!("window_end ({end} bins) must lie after window_start ({start} bins)")));
-            }
-            self.window = (start, (end > 0).then_some(end));
-        }
-        let Some(source) = self.source.as_mut() else {
-            return Ok(());
-        };
-        if source.learning() {
-            let mut enough = false;
-            while self.learned < self.startup.len() && !enough {
-                let sweep = &self.startup[self.learned];
-                let Some(sync) = sweep.sync.as_deref() else {
-                    return Err(BlockError::at(
-                        "timing is 'sync' but the sweeps carry no sync channel; map one, or use timing: schedule",
-                        sweep.stamp.index,
-                    ));
-                };
-                enough = source.learn_from(sync);
-                self.learned += 1;
-            }
-            if !enough && !finishing {
-                return Ok(());
-            }
-            source.end_learning().map_err(|e| BlockError::at(e, first.index))?;
-            if let Some(levels) = source.levels() {
-                let list: Vec<String> =
-                    levels.iter().zip(&self.cfg.names).map(|(l, n)| format!("{n} {l:.3}")).collect();
-                out.notice(first, format!("learned sync levels: {}", list.join(", ")));
-            }
-        }
-        self.learned = 0;
-        for sweep in std::mem::take(&mut self.startup) {
-            self.run(sweep, out)?;
-        }
-        Ok(())
-    }
-
-    fn run(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {
-        let Some(source) = self.source.as_mut() else {
-            return Ok(());
-        };
-        let index = sweep.stamp.index;
-        source.feed(index, sweep.sync.as_deref(), sweep.iq.len()).map_err(|e| BlockError::at(e, index))?;
-        self.fed_end = self.fed_end.max(sweep_end(&sweep));
-        self.pending.push_back(sweep);
-        self.take_events(out);
-        let upto = self.source.as_ref().map_or(self.fed_end, |s| s.settled(self.fed_end));
-        self.release(upto, out);
-        Ok(())
-    }
-
-    fn take_events(&mut self, out: &mut Outputs) {
-        let Some(source) = self.source.as_mut() else {
-            return;
-        };
-        let rate = self.pending.back().map_or(1.0, |s| s.stamp.rate);
-        while let Some(event) = source.pop_event() {
-            self.router.report(out, &event, &self.cfg.names, rate);
-            match event {
-                SwitchEvent::Begin { at, lobe, switch_at } => {
-                    self.current = Some((lobe, switch_at.map_or(at, |s| s.max(0) as u64), switch_at));
-                }
-                SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
-                SwitchEvent::Irregular { .. } => {}
-            }
-        }
-    }
-
-    /// Hand on every pending sweep that ends at or before `upto`.
-    fn release(&mut self, upto: u64, out: &mut Outputs) {
-        let lead = self.lead;
-        while self.pending.front().is_some_and(|s| sweep_end(s).saturating_add(lead) <= upto) {
-            if let Some(sweep) = self.pending.pop_front() {
-                self.label(sweep, out);
-            }
-        }
-    }
-
-    fn label(&mut self, mut sweep: Sweep, out: &mut Outputs) {
+impl SweepLabeller {
+    fn label(&mut self, d: &mut Driver, mut sweep: Sweep, out: &mut Outputs) {
         let start = sweep.stamp.index;
         let end = sweep_end(&sweep);
         let window_start = start + self.window.0;
         let window_end = self.window.1.map(|w| start + w);
         // Switches whose transient begins before the window decide the lobe.
-        while let Some(&(at, lobe)) = self.switches.front() {
+        while let Some(&(at, lobe)) = d.switches.front() {
             if at.saturating_sub(self.lead) >= window_start.max(start + 1) {
                 break;
             }
-            self.switches.pop_front();
-            self.current = Some((lobe, at, Some(at as i64)));
+            d.switches.pop_front();
+            d.switch_to(at, lobe);
         }
-        let Some((lobe, dwell_start, switch_at)) = self.current else {
+        let Some(current) = d.current else {
             self.counts.unlabelled += 1;
             return;
         };
-        let guard_end = switch_at.map_or(0, |s| (s + self.guard as i64).max(0) as u64);
-        let next_cut = self.switches.front().map(|&(at, _)| at.saturating_sub(self.lead));
+        let guard_end = d.guard_end();
+        let next_cut = d.switches.front().map(|&(at, _)| at.saturating_sub(self.lead));
         // The last switch's guard runs into the window, or the next switch's
         // transient starts inside it.
         let guard_in_window = guard_end > window_start;
@@ -293,27 +146,29 @@ impl SweepGate {
             sweep.blanked = sweep.blanked.min(keep.try_into().unwrap_or(u32::MAX));
             self.counts.cut += 1;
         }
+        let dwell_start = current.dwell_start;
         if self.emitted_dwell != Some(dwell_start) {
             if self.emitted_dwell.is_some() {
                 self.dwell += 1;
             }
             self.emitted_dwell = Some(dwell_start);
         }
-        sweep.lobe = Some(LobeTag { lobe, name: Arc::clone(&self.cfg.names[lobe]), dwell: self.dwell, dwell_start });
+        let lobe = current.lobe;
+        sweep.lobe = Some(LobeTag { lobe, name: d.lobe_name(lobe), dwell: self.dwell, dwell_start });
         out.push(0, Item::Sweep(sweep));
     }
 
     /// The end-of-run account of what switch transients did to sweeps.
     /// Drops go to the run report; routine blanking and cutting to the notices port only.
-    fn report_counts(&mut self, out: &mut Outputs, stamp: Stamp) {
+    fn report_counts(&mut self, d: &mut Driver, out: &mut Outputs, stamp: Stamp) {
         let c = &self.counts;
-        let (lead, guard) = (self.lead, self.guard);
+        let (lead, guard) = (self.lead, d.guard);
         let window = match self.window {
             (s, Some(e)) => format!("bins {s}..{e}"),
             (s, None) => format!("bins {s} to the sweep end"),
         };
         if c.in_window > 0 {
-            out.notice(
+            out.warn(
                 stamp,
                 format!(
                     "dropped {} sweeps: a switch transient ({lead} samples before to {guard} after the switch instant) \
@@ -323,15 +178,55 @@ impl SweepGate {
             );
         }
         if c.unlabelled > 0 {
-            out.notice(stamp, format!("dropped {} sweeps before the first lobe was known", c.unlabelled));
+            out.inform(stamp, format!("dropped {} sweeps before the first lobe was known", c.unlabelled));
         }
         let (blanked, cut) = (c.blanked, c.cut);
         if blanked > 0 {
-            self.router.timeline(out, stamp, format!("blanked the switch guard at the head of {blanked} sweeps"));
+            d.router.timeline(out, stamp, format!("blanked the switch guard at the head of {blanked} sweeps"));
         }
         if cut > 0 {
-            self.router.timeline(out, stamp, format!("cut {cut} sweeps short of a switch instant in their tail"));
+            d.router.timeline(out, stamp, format!("cut {cut} sweeps short of a switch instant in their tail"));
         }
+    }
+}
+
+impl GateKind for SweepLabeller {
+    type Piece = Sweep;
+
+    fn piece(item: Item) -> Option<Sweep> {
+        match item {
+            Item::Sweep(sweep) => Some(sweep),
+            _ => None,
+        }
+    }
+
+    fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
+        let p = &self.params;
+        let at = |e: String| BlockError::at(e, first.index);
+        self.lead = p.samples_at("lead", first.rate, None).map_err(at)?.round() as u64;
+        let start = p.bins_at("window_start", first.rate).map_err(at)?.round() as u64;
+        let end = p.bins_at("window_end", first.rate).map_err(at)?.round() as u64;
+        if end > 0 && end <= start {
+            return Err(at(format!("window_end ({end} bins) must lie after window_start ({start} bins)")));
+        }
+        self.window = (start, (end > 0).then_some(end));
+        Ok(())
+    }
+
+    /// Hand on every pending sweep that ends at or before `upto`.
+    fn release(&mut self, d: &mut Driver, upto: u64, out: &mut Outputs) {
+        while d.pending.front().is_some_and(|s| sweep_end(s).saturating_add(self.lead) <= upto) {
+            if let Some(sweep) = d.pending.pop_front() {
+                self.label(d, sweep, out);
+            }
+        }
+    }
+
+    fn finish(&mut self, d: &mut Driver, last: Option<Stamp>, out: &mut Outputs) -> Result<(), BlockError> {
+        if let Some(stamp) = last {
+            self.report_counts(d, out, stamp);
+        }
+        Ok(())
     }
 }
 
@@ -349,32 +244,4 @@ fn blank_head(sweep: &mut Sweep, n: usize) {
         }
     }
     sweep.blanked = sweep.blanked.max(n.try_into().unwrap_or(u32::MAX));
-}
-
-impl Block for SweepGate {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Sweep(sweep) = item else {
-            return Ok(());
-        };
-        if sweep.iq.is_empty() {
-            return Ok(());
-        }
-        self.last_stamp = Some(sweep.stamp);
-        if self.source.as_ref().is_some_and(|s| !s.learning()) {
-            return self.run(sweep, out);
-        }
-        self.startup.push(sweep);
-        self.advance(false, out)
-    }
-
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        self.advance(true, out)?;
-        self.take_events(out);
-        self.release(u64::MAX, out);
-        if let Some(stamp) = self.last_stamp {
-            self.report_counts(out, stamp);
-            self.router.summarise(out, stamp);
-        }
-        Ok(())
-    }
 }

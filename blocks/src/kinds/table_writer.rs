@@ -243,7 +243,7 @@ impl TableWriter {
                         // let a live input end as if it had closed.
                         self.sinks[i].target = Target::Closed;
                         self.files.policy().end_input.store(true, std::sync::atomic::Ordering::SeqCst);
-                        out.notice(
+                        out.inform(
                             stamp,
                             format!("standard output closed ({e}); rows of table {} no longer printed", self.path),
                         );
@@ -316,7 +316,7 @@ impl TableWriter {
                 && self.unknown_fields.len() < UNKNOWN_FIELDS_REPORTED
                 && self.unknown_fields.insert(name.clone())
             {
-                out.notice(
+                out.warn(
                     r.stamp,
                     format!("row field '{name}' is not among the table's columns (from the first row); left out"),
                 );
@@ -390,7 +390,7 @@ impl Block for TableWriter {
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         if self.kind.is_none() {
-            out.notice(
+            out.warn(
                 self.last_stamp.unwrap_or(Stamp::new(0, 1.0)),
                 format!("no items arrived; table {} is empty", self.path),
             );

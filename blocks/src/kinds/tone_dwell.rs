@@ -145,7 +145,7 @@ impl ToneDwell {
         if stamp.index != cur.next && !self.samples.is_empty() {
             self.gaps += 1;
             if self.gaps == 1 {
-                out.notice(
+                out.warn(
                     stamp,
                     format!(
                         "dwell {} has a gap of samples before this segment; joined as if contiguous",
@@ -172,7 +172,7 @@ impl ToneDwell {
         if m < 8 {
             self.too_short += 1;
             if self.too_short == 1 {
-                out.notice(
+                out.warn(
                     Stamp::new(cur.first, cur.rate),
                     format!("dwell {} has only {m} samples; skipped", cur.tag.dwell),
                 );
@@ -364,7 +364,7 @@ impl Block for ToneDwell {
         {
             self.unterminated += 1;
             if self.unterminated == 1 {
-                out.notice(
+                out.warn(
                     seg.chunk.stamp,
                     format!("dwell {} ended without its last segment; integrated what arrived", cur.tag.dwell),
                 );
@@ -403,16 +403,16 @@ impl Block for ToneDwell {
         self.close(out)?;
         let at = self.last_stamp;
         if self.left_out > 0 {
-            out.notice(at, format!("{} samples past the per-dwell limit ({}) were left out", self.left_out, self.cap));
+            out.warn(at, format!("{} samples past the per-dwell limit ({}) were left out", self.left_out, self.cap));
         }
         if self.gaps > 1 {
-            out.notice(at, format!("{} segments followed a gap within their dwell", self.gaps));
+            out.warn(at, format!("{} segments followed a gap within their dwell", self.gaps));
         }
         if self.unterminated > 1 {
-            out.notice(at, format!("{} dwells ended without a last segment", self.unterminated));
+            out.warn(at, format!("{} dwells ended without a last segment", self.unterminated));
         }
         if self.too_short > 1 {
-            out.notice(at, format!("{} dwells had fewer than 8 samples and were skipped", self.too_short));
+            out.warn(at, format!("{} dwells had fewer than 8 samples and were skipped", self.too_short));
         }
         Ok(())
     }

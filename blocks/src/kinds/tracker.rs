@@ -210,7 +210,7 @@ impl Tracker {
         }
         let column = self.axis_columns.iter().find(|(a, _)| **a == *e.axis).map(|(_, c)| *c);
         if self.telemetry.is_some() && column.is_none() {
-            out.notice(
+            out.warn(
                 e.stamp,
                 format!("axis '{}' has no pointing column (see axis_columns); no absolute angles", e.axis),
             );
@@ -234,7 +234,7 @@ impl Tracker {
         }
         if !self.warned_sigma {
             self.warned_sigma = true;
-            out.notice(
+            out.warn(
                 e.stamp,
                 format!(
                     "estimates without a usable sigma (first at sample {}); assuming {} deg",
@@ -256,7 +256,7 @@ impl Tracker {
             None => {
                 if self.outside_telemetry == 0 {
                     let (a, b) = tel.span();
-                    out.notice(
+                    out.warn(
                         e.stamp,
                         format!(
                             "estimate at {t:.3} s lies outside the pointing table ({a} to {b} s); no absolute angle"
@@ -301,7 +301,7 @@ impl Tracker {
                 && let Some(&i) = rows.first()
             {
                 let axis = self.axes[k].axis.clone();
-                out.notice(
+                out.inform(
                     held[i].stamp,
                     format!("smoother for axis '{axis}': process noise {q_used:.3e} (most likely for the data)"),
                 );
@@ -359,11 +359,11 @@ impl Block for Tracker {
             && setup.pieces > 1
         {
             let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
-            out.notice(at, format!("smoothed in {} pieces of up to {MAX_HELD} estimates (memory bound)", setup.pieces));
+            out.inform(at, format!("smoothed in {} pieces of up to {MAX_HELD} estimates (memory bound)", setup.pieces));
         }
         if self.outside_telemetry > 1 {
             let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
-            out.notice(
+            out.warn(
                 at,
                 format!("{} estimates lay outside the time span of {}", self.outside_telemetry, self.pointing_path),
             );
