@@ -114,6 +114,8 @@ pub struct ResolvedBlock {
     pub sources: BTreeMap<String, String>,
     pub file: PathBuf,
     pub line: usize,
+    /// The instance's own description (`doc:` in the graph file), or empty.
+    pub doc: String,
 }
 
 /// A wire from an output port to an input port (block index, port index).
@@ -340,7 +342,8 @@ fn expand(
                     }
                 }
                 let (line, _) = src.locate(&at);
-                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, file: src.path.clone(), line });
+                let (file, doc) = (src.path.clone(), decl.doc.clone());
+                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, file, line, doc });
                 scope.insert(decl.name.clone(), Local::Block(b.blocks.len() - 1));
             }
             BlockBody::Use(rel) => {
@@ -523,7 +526,7 @@ fn pick_port(
                 &format!("its {side} ports: {}", if names.is_empty() { "none".into() } else { names.join(", ") }),
             )
         }),
-        None if ports.len() == 1 || (side == "output" && !ports.is_empty()) => Ok(ports[0].1),
+        None if ports.len() == 1 => Ok(ports[0].1),
         None if ports.is_empty() => Err(src.error(at, format!("'{owner}' has no {side} ports"))),
         None => {
             let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();
