@@ -232,3 +232,33 @@ fn composites_expand_with_prefixed_names_and_their_own_errors() {
     let e = resolve(&p, &Overrides::default(), &registry()).unwrap_err();
     assert!(e.message.contains("includes itself"), "{e}");
 }
+
+#[test]
+fn a_block_doc_is_kept_and_shown_by_check() {
+    let d = dir("doc");
+    let p = d.join("g.yaml");
+    let text = GOOD.replace("keep: {kind: pass}", "keep: {kind: pass, doc: 'hands the tone on, unchanged'}");
+    std::fs::write(&p, text).unwrap();
+    let g = resolve(&p, &Overrides::default(), &registry()).unwrap();
+    let keep = g.blocks.iter().find(|b| b.name == "keep").unwrap();
+    assert_eq!(keep.doc, "hands the tone on, unchanged");
+    let shown = lobeflow::commands::check::describe(&g);
+    assert!(shown.contains("keep (pass)\n      # hands the tone on, unchanged\n"), "{shown}");
+}
+
+#[test]
+fn an_unnamed_port_of_a_block_with_several_outputs_is_refused() {
+    let text = "blocks:\n  tone: {kind: test_tone}\n  gate: {kind: lobe_gate, set: {lobes: 'a,b', dwell: 1 ms}}\n  \
+                drop: {kind: discard}\nwiring:\n  - tone -> gate\n  - gate -> drop\n";
+    let e = expect("ports", text, 7, "'gate' has output ports segments, notices: name one, as gate.segments");
+    assert!(e.to_string().contains("g.yaml:7:5:"), "{e}");
+}
+
+#[test]
+fn retired_words_and_unknown_keys_name_the_word_to_use() {
+    let e =
+        expect("retired", &GOOD.replace("keep: {kind: pass}", "keep: {kind: pass, dco: x}"), 7, "unknown key 'dco'");
+    assert_eq!(e.hint.as_deref(), Some("did you mean 'doc'?"));
+    let e = expect("anchor", &GOOD.replace("keep: {kind: pass}", "keep: &k {kind: pass}"), 7, "anchors");
+    assert!(e.hint.is_some());
+}

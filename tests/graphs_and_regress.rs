@@ -122,7 +122,7 @@ fn a_malformed_manifest_is_an_input_error_with_file_and_line() {
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
     assert_eq!(out.status.code(), Some(2));
     let err = said(&out);
-    assert!(err.contains("two-lobe-beacon.check.yaml:8:") && err.contains("unknown field `axsi`"), "{err}");
+    assert!(err.contains("two-lobe-beacon.check.yaml:8:") && err.contains("unknown key 'axsi'"), "{err}");
 
     edit(&d.join("samples/two-lobe-beacon.check.yaml"), "axsi: az, ", "");
     let out = lobeflow(&["regress", "samples", "--out", "out"], &d);

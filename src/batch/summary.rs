@@ -22,7 +22,7 @@ pub fn header(axes: &[String]) -> String {
     }
     cols.extend(FLAGS.iter().map(|f| f.to_string()));
     cols.extend(["notices".to_string(), "error".into()]);
-    cols.join(",") + "\n"
+    Table::line(&cols)
 }
 
 /// One capture's result.
@@ -50,7 +50,7 @@ impl Outcome {
         let t = Table::read(&path)?;
         let (axis_c, flag_c, err_c) =
             (t.column("axis", &path)?, t.column("flag", &path)?, t.column("error_deg", &path)?);
-        let mut cells = vec![csv(capture), csv(name), "ok".into(), t.rows.len().to_string()];
+        let mut cells = vec![capture.to_string(), name.to_string(), "ok".into(), t.rows.len().to_string()];
         for a in axes {
             let errs: Vec<f64> = t
                 .rows
@@ -71,15 +71,15 @@ impl Outcome {
             cells.push(t.rows.iter().filter(|r| cell(r, flag_c) == f).count().to_string());
         }
         cells.extend([notices.to_string(), String::new()]);
-        Ok(Outcome { row: cells.join(",") + "\n", error: None, seconds, resumed: false })
+        Ok(Outcome { row: Table::line(&cells), error: None, seconds, resumed: false })
     }
 
     /// The row of a capture that could not run.
     pub fn failed(capture: &str, name: &str, axes: &[String], message: String, seconds: f64) -> Outcome {
-        let mut cells = vec![csv(capture), csv(name), "error".into(), String::new()];
+        let mut cells = vec![capture.to_string(), name.to_string(), "error".into(), String::new()];
         cells.extend(std::iter::repeat_n(String::new(), 3 * axes.len() + FLAGS.len() + 1));
-        cells.push(csv(&message));
-        Outcome { row: cells.join(",") + "\n", error: Some(message), seconds, resumed: false }
+        cells.push(message.clone());
+        Outcome { row: Table::line(&cells), error: Some(message), seconds, resumed: false }
     }
 
     /// Record a complete capture beside its outputs.
@@ -121,14 +121,10 @@ impl Outcome {
 }
 
 pub fn timing_line(capture: &str, o: &Outcome) -> String {
-    format!("{},{:.3},{}\n", csv(capture), o.seconds, if o.resumed { "yes" } else { "no" })
+    Table::line(&[capture.to_string(), format!("{:.3}", o.seconds), (if o.resumed { "yes" } else { "no" }).to_string()])
 }
 
-/// A CSV cell: quoted when it holds a comma, quote or line break.
-fn csv(text: &str) -> String {
-    if text.contains([',', '"', '\n', '\r']) { format!("\"{}\"", text.replace('"', "\"\"")) } else { text.to_string() }
-}
-
+/// The text of column `c` of a row (empty past its end).
 fn cell(row: &[String], c: usize) -> &str {
     row.get(c).map(String::as_str).unwrap_or("")
 }

@@ -166,6 +166,9 @@ pub fn describe(g: &ResolvedGraph) -> String {
     let _ = writeln!(s, "\nblocks:");
     for b in &g.blocks {
         let _ = writeln!(s, "  {} ({})", b.name, b.spec.kind);
+        if !b.doc.is_empty() {
+            let _ = writeln!(s, "      # {}", b.doc);
+        }
         for (name, value) in b.params.iter() {
             let from = b.sources.get(name).map(String::as_str).unwrap_or("block default");
             let unit = match (value, b.spec.param(name).map(|p| p.ty)) {

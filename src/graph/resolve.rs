@@ -125,6 +125,8 @@ pub struct ResolvedBlock {
     pub file: PathBuf,
     pub line: usize,
     pub column: usize,
+    /// The instance's own description (`doc:` in the graph file), or empty.
+    pub doc: String,
 }
 
 /// A wire from an output port to an input port (block index, port index).
@@ -369,8 +371,8 @@ fn expand(
                     }
                 }
                 let (line, column) = src.locate(&at);
-                let file = src.path.clone();
-                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, places, file, line, column });
+                let (file, doc) = (src.path.clone(), decl.doc.clone());
+                b.blocks.push(ResolvedBlock { name: full, spec, params, sources, places, file, line, column, doc });
                 scope.insert(decl.name.clone(), Local::Block(b.blocks.len() - 1));
             }
             BlockBody::Use(rel) => {
@@ -560,7 +562,7 @@ fn pick_port(
                 &format!("its {side} ports: {}", if names.is_empty() { "none".into() } else { names.join(", ") }),
             )
         }),
-        None if ports.len() == 1 || (side == "output" && !ports.is_empty()) => Ok(ports[0].1),
+        None if ports.len() == 1 => Ok(ports[0].1),
         None if ports.is_empty() => Err(src.error(at, format!("'{owner}' has no {side} ports"))),
         None => {
             let names: Vec<&str> = ports.iter().map(|(n, _)| n.as_str()).collect();

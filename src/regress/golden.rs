@@ -133,9 +133,7 @@ mod tests {
     use super::*;
 
     fn table(text: &str) -> Table {
-        let mut lines = text.lines();
-        let split = |l: &str| l.split(',').map(String::from).collect::<Vec<_>>();
-        Table { header: split(lines.next().unwrap()), rows: lines.map(split).collect() }
+        Table::parse(text).unwrap()
     }
 
     #[test]

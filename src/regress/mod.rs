@@ -159,11 +159,42 @@ impl Table {
     pub fn read(path: &Path) -> Result<Table, Error> {
         let text =
             std::fs::read_to_string(path).map_err(|e| Error::Input(format!("cannot read {}: {e}", path.display())))?;
-        let mut lines = text.lines().filter(|l| !l.trim().is_empty() && !l.starts_with('#'));
-        let header: Vec<String> = lines.next().unwrap_or("").split(',').map(|s| s.trim().to_string()).collect();
-        let rows = lines.map(|l| l.split(',').map(|s| s.trim().to_string()).collect()).collect();
+        Table::parse(&text).map_err(|e| Error::Input(format!("{}: {e}", path.display())))
+    }
+
+    /// A CSV text (quoted fields as the table writer writes them; `#`
+    /// lines and blank lines skipped), the first record its header.
+    pub fn parse(text: &str) -> Result<Table, String> {
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .trim(csv::Trim::All)
+            .comment(Some(b'#'))
+            .from_reader(text.as_bytes());
+        let mut records = reader.records();
+        let mut next = || -> Result<Option<Vec<String>>, String> {
+            match records.next() {
+                None => Ok(None),
+                Some(Ok(r)) => Ok(Some(r.iter().map(str::to_string).collect())),
+                Some(Err(e)) => Err(format!("not a readable CSV table: {e}")),
+            }
+        };
+        let header = next()?.unwrap_or_default();
+        let mut rows = Vec::new();
+        while let Some(row) = next()? {
+            rows.push(row);
+        }
         Ok(Table { header, rows })
     }
+    /// One CSV record, fields quoted where they need it, newline included.
+    pub fn line<S: AsRef<str>>(cells: &[S]) -> String {
+        let mut w = csv::WriterBuilder::new().terminator(csv::Terminator::Any(b'\n')).from_writer(Vec::new());
+        // Writing to memory cannot fail, and the fields are UTF-8 text.
+        let _ = w.write_record(cells.iter().map(|c| c.as_ref()));
+        let bytes = w.into_inner().unwrap_or_default();
+        String::from_utf8(bytes).unwrap_or_default()
+    }
+
     pub fn column(&self, name: &str, path: &Path) -> Result<usize, Error> {
         self.header.iter().position(|h| h == name).ok_or_else(|| {
             Error::Input(format!("{} has no column '{name}' (columns: {})", path.display(), self.header.join(",")))

@@ -538,6 +538,16 @@ signal:\n  beacon: {tone: 10 kHz, snr: 10 dB, dwell: 100 us}\ntarget: {az: {at: 
     }
 
     #[test]
+    fn retired_words_are_refused_with_the_word_to_use() {
+        let bad = MINIMAL.replace("dwell: 100 us", "dwell: 100 us, first_lobe_start: 0");
+        let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
+        assert!(e.starts_with("s.yaml:6:") && e.contains("'first_lobe_start' is now written 'first_start'"), "{e}");
+        let bad = MINIMAL.replace("squint: 2.4 deg", "squint: 2.4 deg, way: two_way");
+        let e = ScenarioFile::parse(Path::new("s.yaml"), bad).unwrap_err();
+        assert!(e.starts_with("s.yaml:3:") && e.contains("'two_way' is now written 'two'"), "{e}");
+    }
+
+    #[test]
     fn track_follows_its_formula() {
         let node =
             crate::config::parse("{at: 1 deg, per_second: 0.5, swing: {amplitude: 2, period: 4 s, phase: 90 deg}}")
