@@ -266,9 +266,7 @@ fn print_err(text: &str) -> Result<(), Error> {
 
 fn write_quietly(w: &mut dyn Write, text: &str, what: &str) -> Result<(), Error> {
     match write_all(w, text) {
-        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
-            Err(Error::Output(format!("cannot write to {what}: {e}")))
-        }
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::io(format!("cannot write to {what}"))(e)),
         _ => Ok(()),
     }
 }

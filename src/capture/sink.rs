@@ -213,7 +213,7 @@ impl Block for CaptureSink {
         self.close_dwell();
         match self.writer.take() {
             Some(w) => {
-                w.finish(&self.files)?;
+                w.finish(&self.files).map_err(|e| BlockError::new(e.to_string()))?;
             }
             None => out.warn(Stamp::new(0, 1.0), format!("no samples arrived; {} not written", self.path.display())),
         }

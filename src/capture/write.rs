@@ -194,27 +194,83 @@ pub struct CaptureWriter {
     path: PathBuf,
 }
 
+/// What went wrong writing a capture.
+#[derive(Debug)]
+pub enum WriteError {
+    /// The writer's settings do not fit the format (rate, scale, datatype,
+    /// channels given).
+    Setting(String),
+    /// A file could not be created, written or finished.
+    Io { doing: &'static str, path: PathBuf, source: std::io::Error },
+    /// The WAV encoder refused.
+    Wav { doing: &'static str, path: PathBuf, source: hound::Error },
+    /// The SigMF metadata could not be encoded.
+    Meta(serde_json::Error),
+}
+
+impl std::fmt::Display for WriteError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            WriteError::Setting(m) => write!(f, "{m}"),
+            WriteError::Io { doing, path, source } if path.as_os_str().is_empty() => write!(f, "{doing}: {source}"),
+            WriteError::Io { doing, path, source } => write!(f, "{doing} {}: {source}", path.display()),
+            WriteError::Wav { doing, path, source } => write!(f, "{doing} {}: {source}", path.display()),
+            WriteError::Meta(e) => write!(f, "SigMF metadata: {e}"),
+        }
+    }
+}
+
+impl std::error::Error for WriteError {
+    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
+        match self {
+            WriteError::Setting(_) => None,
+            WriteError::Io { source, .. } => Some(source),
+            WriteError::Wav { source, .. } => Some(source),
+            WriteError::Meta(e) => Some(e),
+        }
+    }
+}
+
+/// Block and synthesizer errors are messages; the writer's says it all.
+impl From<WriteError> for String {
+    fn from(e: WriteError) -> String {
+        e.to_string()
+    }
+}
+
+impl WriteError {
+    fn io<'a>(doing: &'static str, path: &'a Path) -> impl Fn(std::io::Error) -> WriteError + 'a {
+        move |source| WriteError::Io { doing, path: path.to_path_buf(), source }
+    }
+    fn wav<'a>(doing: &'static str, path: &'a Path) -> impl Fn(hound::Error) -> WriteError + 'a {
+        move |source| WriteError::Wav { doing, path: path.to_path_buf(), source }
+    }
+}
+
 impl CaptureWriter {
     /// Start writing to `path` (for SigMF: the `.sigmf-data` path; the meta
     /// file goes beside it with the `.sigmf-meta` extension).
-    pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, String> {
+    pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, WriteError> {
         Self::create_staged(path, config, &FileStager::default())
     }
 
     /// As [`CaptureWriter::create`], the files kept by `stager` until its commit.
-    pub fn create_staged(path: &Path, config: WriterConfig, stager: &FileStager) -> Result<CaptureWriter, String> {
+    pub fn create_staged(path: &Path, config: WriterConfig, stager: &FileStager) -> Result<CaptureWriter, WriteError> {
         if !(config.rate.is_finite() && config.rate > 0.0) {
-            return Err(format!("sample rate {} is not a positive number", config.rate));
+            return Err(WriteError::Setting(format!("sample rate {} is not a positive number", config.rate)));
         }
         if !(config.scale.is_finite() && config.scale > 0.0) {
-            return Err(format!("IQ scale {} is not a positive number", config.scale));
+            return Err(WriteError::Setting(format!("IQ scale {} is not a positive number", config.scale)));
         }
-        let open = |p: &Path| stager.create(p).map_err(|e| format!("cannot write {}: {e}", p.display()));
+        let open = |p: &Path| stager.create(p).map_err(WriteError::io("cannot write", p));
         let sink = match config.format {
             WriteFormat::WavF32 | WriteFormat::WavI16 => {
                 let rate = config.rate.round();
                 if (rate - config.rate).abs() > 1e-6 * config.rate || rate > u32::MAX as f64 {
-                    return Err(format!("WAV needs a whole sample rate below 2^32 S/s, not {}", config.rate));
+                    return Err(WriteError::Setting(format!(
+                        "WAV needs a whole sample rate below 2^32 S/s, not {}",
+                        config.rate
+                    )));
                 }
                 let int16 = config.format == WriteFormat::WavI16;
                 let spec = hound::WavSpec {
@@ -225,13 +281,12 @@ impl CaptureWriter {
                 };
                 let slot = Arc::new(Mutex::new(None));
                 let out = SeekableOutput { file: Some(open(path)?), slot: Arc::clone(&slot) };
-                let writer = hound::WavWriter::new(out, spec)
-                    .map_err(|e| format!("cannot start WAV {}: {e}", path.display()))?;
+                let writer = hound::WavWriter::new(out, spec).map_err(WriteError::wav("cannot start WAV", path))?;
                 Sink::Wav { writer, slot, int16 }
             }
             WriteFormat::Sigmf(datatype) => {
                 if !datatype.complex {
-                    return Err(format!("SigMF output needs a complex datatype, not {datatype}"));
+                    return Err(WriteError::Setting(format!("SigMF output needs a complex datatype, not {datatype}")));
                 }
                 Sink::Sigmf { data: open(path)?, meta_path: path.with_extension("sigmf-meta"), datatype }
             }
@@ -262,17 +317,21 @@ impl CaptureWriter {
 
     /// Append frames: `iq` and one slice per configured aux channel, each as
     /// long as `iq`.
-    pub fn write(&mut self, iq: &[Complex32], aux: &[&[f32]]) -> Result<(), String> {
+    pub fn write(&mut self, iq: &[Complex32], aux: &[&[f32]]) -> Result<(), WriteError> {
         if aux.len() != self.config.aux.len() {
-            return Err(format!("{} aux channels given, {} configured", aux.len(), self.config.aux.len()));
+            return Err(WriteError::Setting(format!(
+                "{} aux channels given, {} configured",
+                aux.len(),
+                self.config.aux.len()
+            )));
         }
         if let Some((i, a)) = aux.iter().enumerate().find(|(_, a)| a.len() != iq.len()) {
-            return Err(format!(
+            return Err(WriteError::Setting(format!(
                 "{} channel has {} samples where the IQ has {}",
                 self.config.aux[i].name(),
                 a.len(),
                 iq.len()
-            ));
+            )));
         }
         let scale = self.config.scale;
         let n_aux = aux.len();
@@ -281,26 +340,26 @@ impl CaptureWriter {
             Sink::Wav { writer, int16, .. } => {
                 let width = (2 + n_aux) as u64 * if *int16 { 2 } else { 4 };
                 if (self.frames + iq.len() as u64) * width > WAV_MAX_DATA_BYTES {
-                    return Err(format!(
+                    return Err(WriteError::Setting(format!(
                         "{}: a WAV file holds at most 4 GiB of samples; use a SigMF format for longer captures",
                         self.path.display()
-                    ));
+                    )));
                 }
                 for (k, x) in iq.iter().enumerate() {
                     self.components.push(x.re * scale);
                     self.components.push(x.im * scale);
                     self.components.extend(aux.iter().map(|a| a[k]));
                 }
-                let wav_err = |e: hound::Error| format!("writing {}: {e}", self.path.display());
+                let wav_err = WriteError::wav("writing", &self.path);
                 if *int16 {
                     self.bytes.clear();
                     I16_LE.encode(&self.components, &mut self.bytes);
                     for b in self.bytes.chunks_exact(2) {
-                        writer.write_sample(i16::from_le_bytes([b[0], b[1]])).map_err(wav_err)?;
+                        writer.write_sample(i16::from_le_bytes([b[0], b[1]])).map_err(&wav_err)?;
                     }
                 } else {
                     for &v in &self.components {
-                        writer.write_sample(v).map_err(wav_err)?;
+                        writer.write_sample(v).map_err(&wav_err)?;
                     }
                 }
             }
@@ -315,7 +374,7 @@ impl CaptureWriter {
                 }
                 self.bytes.clear();
                 datatype.encode(&self.components, &mut self.bytes);
-                data.write_all(&self.bytes).map_err(|e| format!("writing {}: {e}", self.path.display()))?;
+                data.write_all(&self.bytes).map_err(WriteError::io("writing", &self.path))?;
             }
         }
         self.frames += iq.len() as u64;
@@ -344,34 +403,34 @@ impl CaptureWriter {
 
     /// Close every file and hand it to `stager` for the final rename.
     /// Returns the final paths.
-    pub fn finish(self, stager: &FileStager) -> Result<Vec<PathBuf>, String> {
+    pub fn finish(self, stager: &FileStager) -> Result<Vec<PathBuf>, WriteError> {
         let meta = self.sigmf_meta();
         let path = self.path;
-        let io_err = |p: &Path, e: std::io::Error| format!("finishing {}: {e}", p.display());
         match self.sink {
             Sink::Wav { writer, slot, .. } => {
-                writer.finalize().map_err(|e| format!("finishing {}: {e}", path.display()))?;
+                writer.finalize().map_err(WriteError::wav("finishing", &path))?;
                 let file = slot.lock().unwrap_or_else(|e| e.into_inner()).take();
-                let file = file.ok_or_else(|| format!("finishing {}: file was lost", path.display()))?;
-                file.finish(stager).map_err(|e| io_err(&path, e))?;
+                let lost = || std::io::Error::other("the file was lost");
+                let file = file.ok_or_else(lost).map_err(WriteError::io("finishing", &path))?;
+                file.finish(stager).map_err(WriteError::io("finishing", &path))?;
                 Ok(vec![path])
             }
             Sink::Sigmf { data, meta_path, .. } => {
-                data.finish(stager).map_err(|e| io_err(&path, e))?;
-                let mut meta_file = stager.create(&meta_path).map_err(|e| io_err(&meta_path, e))?;
-                let json = serde_json::to_string_pretty(&meta).map_err(|e| format!("SigMF metadata: {e}"))?;
+                data.finish(stager).map_err(WriteError::io("finishing", &path))?;
+                let mut meta_file = stager.create(&meta_path).map_err(WriteError::io("cannot write", &meta_path))?;
+                let json = serde_json::to_string_pretty(&meta).map_err(WriteError::Meta)?;
                 meta_file
                     .write_all(json.as_bytes())
                     .and_then(|_| meta_file.write_all(b"\n"))
-                    .map_err(|e| io_err(&meta_path, e))?;
-                meta_file.finish(stager).map_err(|e| io_err(&meta_path, e))?;
+                    .and_then(|_| meta_file.finish(stager))
+                    .map_err(WriteError::io("finishing", &meta_path))?;
                 Ok(vec![path, meta_path])
             }
         }
     }
 
     /// Outside a graph run: finish and rename into place at once.
-    pub fn commit(self) -> Result<Vec<PathBuf>, String> {
+    pub fn commit(self) -> Result<Vec<PathBuf>, WriteError> {
         let stager = FileStager::default();
         let paths = self.finish(&stager)?;
         commit_staged(&stager)?;
@@ -381,10 +440,11 @@ impl CaptureWriter {
 
 /// Rename everything `stager` holds into place (outside a graph run); on
 /// failure the remaining temporary files are deleted.
-pub fn commit_staged(stager: &FileStager) -> Result<Vec<PathBuf>, String> {
-    stager.commit().map_err(|e| {
+pub fn commit_staged(stager: &FileStager) -> Result<Vec<PathBuf>, WriteError> {
+    stager.commit().map_err(|source| {
         stager.discard();
-        format!("cannot move outputs into place: {e}")
+        // The commit's error names the file it stopped at.
+        WriteError::Io { doing: "cannot move outputs into place", path: PathBuf::new(), source }
     })
 }
 
@@ -413,8 +473,8 @@ mod tests {
         cfg.aux = vec![AuxRole::Sync];
         let mut w = CaptureWriter::create(&path, cfg).unwrap();
         let iq = [Complex32::new(0.1, 0.2); 4];
-        assert!(w.write(&iq, &[]).unwrap_err().contains("aux"));
-        assert!(w.write(&iq, &[&[0.0; 3]]).unwrap_err().contains("sync channel has 3"));
+        assert!(w.write(&iq, &[]).unwrap_err().to_string().contains("aux"));
+        assert!(w.write(&iq, &[&[0.0; 3]]).unwrap_err().to_string().contains("sync channel has 3"));
         w.write(&iq, &[&[0.5; 4]]).unwrap();
         drop(w);
         assert!(!path.exists());

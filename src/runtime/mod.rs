@@ -189,7 +189,7 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
     let mut remarks = Vec::new();
     let staging_root = if opts.write_files {
         std::fs::create_dir_all(&opts.out_dir)
-            .map_err(|e| Error::Output(format!("cannot create output directory {}: {e}", opts.out_dir.display())))?;
+            .map_err(Error::io(format!("cannot create output directory {}", opts.out_dir.display())))?;
         outputs::check_outputs(graph, &opts.out_dir, opts.stream_table.as_deref())?;
         remarks.extend(staging::remove_stale(&opts.out_dir));
         opts.out_dir.clone()
@@ -198,8 +198,8 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
         outputs::check_printed_tables(graph, opts.stream_table.as_deref())?;
         std::env::temp_dir()
     };
-    let staging = Staging::create(&staging_root)
-        .map_err(|e| Error::Output(format!("cannot make the staging folder for the outputs: {e}")))?;
+    let staging =
+        Staging::create(&staging_root).map_err(Error::io("cannot make the staging folder for the outputs"))?;
     let live = has_live_input(graph, opts);
     let policy = DeliveryPolicy {
         live,

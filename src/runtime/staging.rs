@@ -102,3 +102,105 @@ fn abandoned(dir: &Path) -> bool {
 fn try_lock(f: &File) -> bool {
     f.try_lock().is_ok()
 }
+
+#[cfg(test)]
+mod tests {
+    //! The failure paths of committing a run's outputs: nothing is renamed
+    //! into place unless everything is, earlier files come back, and the
+    //! staged files are gone afterwards.
+
+    use super::*;
+    use lobeflow_blocks::{DeliveryPolicy, FileStager, OutputFile};
+    use std::io::Write;
+
+    fn out_dir(name: &str) -> PathBuf {
+        let d = std::env::temp_dir().join(format!("lobeflow-staging-{}-{name}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&d);
+        std::fs::create_dir_all(&d).unwrap();
+        d
+    }
+
+    fn write(stager: &FileStager, path: &Path, text: &str) -> PathBuf {
+        let mut f: OutputFile = stager.create(path).unwrap();
+        f.write_all(text.as_bytes()).unwrap();
+        f.finish(stager).unwrap();
+        staged_files(stager).last().cloned().unwrap()
+    }
+
+    fn staged_files(stager: &FileStager) -> Vec<PathBuf> {
+        let mut files: Vec<PathBuf> = std::fs::read_dir(stager.folder().unwrap())
+            .unwrap()
+            .flatten()
+            .map(|e| e.path())
+            .filter(|p| p.file_name().is_some_and(|n| n != LOCK))
+            .collect();
+        files.sort();
+        files
+    }
+
+    #[test]
+    fn equal_names_are_staged_apart() {
+        let out = out_dir("names");
+        let staging = Staging::create(&out).unwrap();
+        let stager = FileStager::in_folder(staging.dir().to_path_buf(), DeliveryPolicy::default());
+        std::fs::create_dir_all(out.join("a")).unwrap();
+        std::fs::create_dir_all(out.join("b")).unwrap();
+        write(&stager, &out.join("a/x.csv"), "first");
+        write(&stager, &out.join("b/x.csv"), "second");
+        assert_eq!(staged_files(&stager).len(), 2, "two staged files for two outputs named x.csv");
+        stager.commit().unwrap();
+        assert_eq!(std::fs::read_to_string(out.join("a/x.csv")).unwrap(), "first");
+        assert_eq!(std::fs::read_to_string(out.join("b/x.csv")).unwrap(), "second");
+    }
+
+    #[test]
+    fn a_failed_rename_puts_every_earlier_file_back() {
+        let out = out_dir("undo");
+        std::fs::write(out.join("angles.csv"), "previous run").unwrap();
+        let staging = Staging::create(&out).unwrap();
+        let stager = FileStager::in_folder(staging.dir().to_path_buf(), DeliveryPolicy::default());
+        write(&stager, &out.join("angles.csv"), "this run");
+        // The second output's staged file vanishes before the commit, so its
+        // rename fails after the first one was made.
+        let lost = write(&stager, &out.join("dwells.csv"), "this run");
+        std::fs::remove_file(&lost).unwrap();
+        let e = stager.commit().expect_err("the commit must fail");
+        assert!(e.to_string().contains("dwells.csv"), "{e}");
+        assert_eq!(std::fs::read_to_string(out.join("angles.csv")).unwrap(), "previous run");
+        assert!(!out.join("dwells.csv").exists());
+        assert!(staged_files(&stager).is_empty(), "staged files left: {:?}", staged_files(&stager));
+        drop(staging);
+        let left: Vec<_> = std::fs::read_dir(&out).unwrap().flatten().map(|e| e.file_name()).collect();
+        assert_eq!(left, vec![std::ffi::OsString::from("angles.csv")], "only the earlier file is left");
+    }
+
+    #[test]
+    fn a_final_place_that_cannot_be_made_renames_nothing() {
+        let out = out_dir("parent");
+        // A file where the output's folder would have to be.
+        std::fs::write(out.join("plots"), "not a folder").unwrap();
+        let staging = Staging::create(&out).unwrap();
+        let stager = FileStager::in_folder(staging.dir().to_path_buf(), DeliveryPolicy::default());
+        write(&stager, &out.join("angles.csv"), "this run");
+        write(&stager, &out.join("plots/angles.png"), "png");
+        assert!(stager.commit().is_err());
+        assert!(!out.join("angles.csv").exists(), "renamed although another output could not be placed");
+        assert!(staged_files(&stager).is_empty(), "staged files left: {:?}", staged_files(&stager));
+    }
+
+    #[test]
+    fn a_discarded_run_leaves_nothing() {
+        let out = out_dir("discard");
+        let staging = Staging::create(&out).unwrap();
+        let stager = FileStager::in_folder(staging.dir().to_path_buf(), DeliveryPolicy::default());
+        write(&stager, &out.join("angles.csv"), "this run");
+        // An output still being written when the run fails.
+        let mut unfinished = stager.create(&out.join("dwells.csv")).unwrap();
+        unfinished.write_all(b"half").unwrap();
+        drop(unfinished);
+        stager.discard();
+        assert!(staged_files(&stager).is_empty());
+        drop(staging);
+        assert_eq!(std::fs::read_dir(&out).unwrap().count(), 0, "the output folder is empty again");
+    }
+}
