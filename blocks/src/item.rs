@@ -494,3 +494,21 @@ mod tests {
         drop(plain);
     }
 }
+
+#[cfg(test)]
+mod severity_tests {
+    use super::*;
+
+    #[test]
+    fn a_notice_without_a_severity_warns_only_when_it_names_an_irregularity() {
+        let of = Severity::of_text;
+        assert_eq!(of("learned sync levels: up 0.100, down 0.900"), Severity::Information);
+        assert_eq!(of("acquired the strongest echo: gate at bins 10..15"), Severity::Information);
+        assert_eq!(of("Irregular dwell length: 512 samples"), Severity::Warning);
+        assert_eq!(of("3 missing pulse(s) from sample 100"), Severity::Warning);
+        assert_eq!(of("stuck sync for 4 dwells"), Severity::Warning);
+        let n = Notice::new(Stamp::new(0, 1.0), Arc::from("b"), "12 sweeps were dropped");
+        assert_eq!((n.severity, Severity::from_name("warning")), (Severity::Warning, Some(Severity::Warning)));
+        assert_eq!(Severity::from_name("loud"), None);
+    }
+}

@@ -198,12 +198,17 @@ impl ScheduleCheck {
     }
 }
 
-/// Per candidate bin `d` (1..bins), the labels' between-segment sum of
-/// squares for a step at `d`, over the bin-to-bin noise; index 0 stays 0.
+/// Per candidate bin `d` (1..bins), how much of the labels' profiles a
+/// step at `d` explains beyond a straight line (a gain drifting across the
+/// dwell, from a fading or moving target, is no step), over the bin-to-bin
+/// noise; index 0 stays 0.
 fn step_scores(means: &[f64], lobes: usize, bins: usize) -> Option<Vec<f64>> {
     // Take out the profile common to all labels (transients, leakage).
     let common: Vec<f64> =
         (0..bins).map(|b| (0..lobes).map(|l| means[l * bins + b]).sum::<f64>() / lobes as f64).collect();
+    let n = bins as f64;
+    let mid = (n - 1.0) / 2.0;
+    let sxx: f64 = (0..bins).map(|b| (b as f64 - mid).powi(2)).sum();
     let mut scores = vec![0.0; bins];
     for l in 0..lobes {
         let r: Vec<f64> = detrend((0..bins).map(|b| means[l * bins + b] - common[b]).collect());
@@ -216,13 +221,17 @@ fn step_scores(means: &[f64], lobes: usize, bins: usize) -> Option<Vec<f64>> {
         }
         // A noiseless channel (a clean sync staircase) still scores a step.
         let noise = noise.max(1e-12);
-        let total: f64 = r.iter().sum();
-        let mut head = 0.0;
-        for d in 1..bins {
-            head += r[d - 1];
-            let (na, nb) = (d as f64, (bins - d) as f64);
-            let (ma, mb, m) = (head / na, (total - head) / nb, total / bins as f64);
-            scores[d] += (na * (ma - m).powi(2) + nb * (mb - m).powi(2)) / noise;
+        // The step indicator s_d (1 from bin d on) less its own line: r is
+        // already free of its line, so <r, s_d> is the tail sum of r.
+        let (mut tail, mut tail_x) = (0.0, 0.0);
+        for d in (1..bins).rev() {
+            tail += r[d];
+            tail_x += d as f64 - mid;
+            let k = (bins - d) as f64;
+            let norm = k - k * k / n - tail_x * tail_x / sxx;
+            if norm > 1e-9 {
+                scores[d] += tail * tail / norm / noise;
+            }
         }
     }
     Some(scores)

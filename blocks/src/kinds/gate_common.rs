@@ -18,7 +18,9 @@ use std::collections::VecDeque;
 use std::sync::Arc;
 
 /// What a gate feeds through the driver: a stretch of consecutive samples.
-pub trait SwitchPiece: Send {
+pub trait SwitchPiece: Send + Sized {
+    /// The piece an input item carries, if it is of this kind.
+    fn from_item(item: Item) -> Option<Self>;
     fn stamp(&self) -> Stamp;
     fn iq(&self) -> &[Complex32];
     fn sync(&self) -> Option<&[f32]>;
@@ -30,35 +32,35 @@ pub trait SwitchPiece: Send {
     }
 }
 
-impl SwitchPiece for SampleChunk {
-    fn stamp(&self) -> Stamp {
-        self.stamp
-    }
-    fn iq(&self) -> &[Complex32] {
-        &self.iq
-    }
-    fn sync(&self) -> Option<&[f32]> {
-        self.sync.as_deref()
-    }
-    fn last_stamp(&self) -> Stamp {
-        self.stamp.after(self.iq.len())
-    }
+/// Both piece kinds carry their samples, sync and stamp under the same names.
+macro_rules! switch_piece {
+    ($kind:ty, $variant:path, $last:expr) => {
+        impl SwitchPiece for $kind {
+            fn from_item(item: Item) -> Option<Self> {
+                match item {
+                    $variant(piece) => Some(piece),
+                    _ => None,
+                }
+            }
+            fn stamp(&self) -> Stamp {
+                self.stamp
+            }
+            fn iq(&self) -> &[Complex32] {
+                &self.iq
+            }
+            fn sync(&self) -> Option<&[f32]> {
+                self.sync.as_deref()
+            }
+            fn last_stamp(&self) -> Stamp {
+                $last(self)
+            }
+        }
+    };
 }
 
-impl SwitchPiece for Sweep {
-    fn stamp(&self) -> Stamp {
-        self.stamp
-    }
-    fn iq(&self) -> &[Complex32] {
-        &self.iq
-    }
-    fn sync(&self) -> Option<&[f32]> {
-        self.sync.as_deref()
-    }
-    fn last_stamp(&self) -> Stamp {
-        self.stamp
-    }
-}
+// A chunk's end-of-run notices carry the stamp after its last sample; a sweep's its transmit instant.
+switch_piece!(SampleChunk, Item::Samples, |c: &SampleChunk| c.stamp.after(c.iq.len()));
+switch_piece!(Sweep, Item::Sweep, |s: &Sweep| s.stamp);
 
 /// The lobe in force and the switch that began it.
 #[derive(Clone, Copy, Debug)]
@@ -277,11 +279,10 @@ fn pulse_interval<P: SwitchPiece>(pieces: &[P]) -> Option<f64> {
     Some(gaps[gaps.len() / 2] as f64)
 }
 
-/// What makes a gate itself: which items it takes, and how it hands on the
+/// What makes a gate itself: which pieces it takes, and how it hands on the
 /// pieces whose lobe is decided.
 pub trait GateKind: Send + 'static {
     type Piece: SwitchPiece;
-    fn piece(item: Item) -> Option<Self::Piece>;
     /// Once the switch source is built, with the first piece's stamp.
     fn start(&mut self, _first: Stamp) -> Result<(), BlockError> {
         Ok(())
@@ -333,7 +334,7 @@ impl<K: GateKind> SwitchGate<K> {
 
 impl<K: GateKind> Block for SwitchGate<K> {
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Some(piece) = K::piece(item) else {
+        let Some(piece) = K::Piece::from_item(item) else {
             return Ok(());
         };
         if piece.iq().is_empty() {

@@ -95,13 +95,6 @@ impl SegmentCutter {
 impl GateKind for SegmentCutter {
     type Piece = SampleChunk;
 
-    fn piece(item: Item) -> Option<SampleChunk> {
-        match item {
-            Item::Samples(chunk) => Some(chunk),
-            _ => None,
-        }
-    }
-
     /// Hand on every pending sample before `upto`.
     fn release(&mut self, d: &mut Driver, upto: u64, out: &mut Outputs) {
         while let Some(front) = d.pending.front_mut() {

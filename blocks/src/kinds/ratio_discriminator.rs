@@ -5,7 +5,7 @@
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
 use crate::dsp::beam::{Beam, BeamShape, PairModel, parse_pattern_csv};
 use crate::dsp::discriminator::{ErrorSignal, LobePair, parse_key_values, parse_pairs, read_pair};
-use crate::item::{AngleEstimate, DwellRecord, Flag, Item, ItemKind, Stamp};
+use crate::item::{AngleEstimate, DwellRecord, Flag, Item, ItemKind, Severity, Stamp};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
 use std::collections::BTreeSet;
 
@@ -310,7 +310,9 @@ impl Block for RatioDiscriminator {
         let left_waiting = self.slots.iter().filter(|s| s.waiting.is_some()).count() as u64;
         let unpaired = self.unpaired + left_waiting;
         if unpaired > 0 {
-            out.warn(at, format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"));
+            // Dwells still waiting when the capture ends are routine; a partner missing mid-run is not.
+            let severity = if self.unpaired > 0 { Severity::Warning } else { Severity::Information };
+            out.raise(at, format!("{unpaired} dwell(s) found no partner dwell and gave no estimate"), severity);
         }
         for slot in &self.slots {
             for (lobe, seen) in [(&slot.pair.plus, slot.seen[0]), (&slot.pair.minus, slot.seen[1])] {

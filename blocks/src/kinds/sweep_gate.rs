@@ -193,13 +193,6 @@ impl SweepLabeller {
 impl GateKind for SweepLabeller {
     type Piece = Sweep;
 
-    fn piece(item: Item) -> Option<Sweep> {
-        match item {
-            Item::Sweep(sweep) => Some(sweep),
-            _ => None,
-        }
-    }
-
     fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
         let p = &self.params;
         let at = |e: String| BlockError::at(e, first.index);
