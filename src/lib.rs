@@ -30,6 +30,7 @@ pub mod external;
 pub mod fuzzing;
 pub mod graph;
 pub mod regress;
+pub mod report;
 pub mod runtime;
 pub mod session;
 pub mod synth;
