@@ -16,7 +16,8 @@
 //! ```
 //!
 //! Where things live: `graph` reads and checks graph files, `runtime`
-//! schedules blocks, `capture` reads and writes recordings, `picture` draws,
+//! schedules blocks, `capture` reads and writes recordings (pictures are
+//! drawn by `lobeflow_blocks::pictures`),
 //! `commands` holds the entry points of the `lobeflow` command.
 
 pub mod batch;
@@ -29,8 +30,8 @@ pub mod external;
 #[doc(hidden)]
 pub mod fuzzing;
 pub mod graph;
-pub mod picture;
 pub mod regress;
+pub mod report;
 pub mod runtime;
 pub mod session;
 pub mod synth;
@@ -41,7 +42,8 @@ pub use lobeflow_blocks as blocks;
 pub use session::{ItemStream, PortStream, Session};
 
 /// Every block kind the `lobeflow` command knows: the standard DSP blocks of
-/// `lobeflow-blocks` plus the file readers, writers and pictures of this crate.
+/// `lobeflow-blocks` (pictures included) plus the capture readers and writers
+/// and the external-program kind of this crate.
 pub fn registry() -> lobeflow_blocks::Registry {
     let mut r = lobeflow_blocks::standard_registry();
     for spec in FILE_KINDS {
@@ -53,12 +55,4 @@ pub fn registry() -> lobeflow_blocks::Registry {
 }
 
 /// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[
-    capture::source::SPEC,
-    capture::sink::SPEC,
-    picture::circular_sweep::SPEC,
-    picture::range_trace::SPEC,
-    picture::split_pair::SPEC,
-    picture::angle_plot::SPEC,
-    picture::lobe_timeline::SPEC,
-];
+const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::source::SPEC, capture::sink::SPEC];

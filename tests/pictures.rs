@@ -2,8 +2,8 @@
 //! size and several colours, SVGs parse (roxmltree), outputs repeat byte for
 //! byte, and the circular formatter reads synthesized echo ranges back.
 
-use lobeflow::picture::accum::{BinWindow, SweepAverage};
-use lobeflow::picture::circular_sweep::Scene;
+use lobeflow::blocks::pictures::accum::{BinWindow, SweepAverage};
+use lobeflow::blocks::pictures::circular_sweep::Scene;
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::{
     AngleEstimate, BlockSpec, BuildContext, Cell, FileStager, Flag, Item, LobeSegment, LobeTag, Notice, Outputs,
@@ -141,7 +141,7 @@ fn assert_repeatable(
 
 #[test]
 fn circular_sweep_draws_and_reads_the_echo() {
-    let spec = lobeflow::picture::circular_sweep::SPEC;
+    let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
     let echo_bin = 1234.4;
     let items = || {
         let mut rng = Rng::new(11);
@@ -166,7 +166,7 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
     // The readout interpolates between range samples; its step is one range
     // bin (c / 2 fs, docs/derivations.md section 5), so half a bin is the tolerance.
     let bin = range_bin_m(RATE);
-    let spec = lobeflow::picture::circular_sweep::SPEC;
+    let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
     let p = params(&spec, &[("range_start", "2 km"), ("range_end", "72 km"), ("revolutions", "7")]);
     let mut rng = Rng::new(5);
     for (i, &truth_m) in [4_321.0, 12_345.0, 29_999.0, 33_000.7, 51_800.0, 70_002.5].iter().enumerate() {
@@ -188,7 +188,7 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
 
 #[test]
 fn circular_sweep_without_sweeps_still_writes_pictures() {
-    let spec = lobeflow::picture::circular_sweep::SPEC;
+    let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
     let dir = scratch("circle-empty");
     let base = dir.join("empty");
     let (rows, written) = run(&spec, &[("path", &base.to_string_lossy())], Vec::new());
@@ -248,7 +248,7 @@ fn svg_texts(path: &Path) -> Vec<String> {
 
 #[test]
 fn range_trace_draws_each_lobe_and_the_gate() {
-    let spec = lobeflow::picture::range_trace::SPEC;
+    let spec = lobeflow::blocks::pictures::range_trace::SPEC;
     let items = || labelled_sweeps(160, 900.3, true).into_iter().map(|s| (0, Item::Sweep(s))).collect();
     let set = [("gate_start", "33.5 km"), ("gate_width", "600 m"), ("range_end", "60 km")];
     let (_, written) = assert_repeatable(&spec, &set, items, "trace");
@@ -263,7 +263,7 @@ fn range_trace_draws_each_lobe_and_the_gate() {
 
 #[test]
 fn split_pair_prints_the_balance_of_each_pair() {
-    let spec = lobeflow::picture::split_pair::SPEC;
+    let spec = lobeflow::blocks::pictures::split_pair::SPEC;
     let echo_bin = 900.0;
     let bin = range_bin_m(RATE);
     let gate_start = format!("{} m", (echo_bin - 3.0) * bin);
@@ -281,9 +281,9 @@ fn split_pair_prints_the_balance_of_each_pair() {
 
 #[test]
 fn split_pair_balance_matches_the_gaussian_check_value() {
-    use lobeflow::picture::split_pair::balance_db;
+    use lobeflow::blocks::pictures::split_pair::balance_db;
     let sweeps = labelled_sweeps(32, 700.0, false);
-    let p = params(&lobeflow::picture::split_pair::SPEC, &[]);
+    let p = params(&lobeflow::blocks::pictures::split_pair::SPEC, &[]);
     let window = BinWindow::from_params(
         &{
             let mut q = p.clone();
@@ -348,7 +348,7 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
 
 #[test]
 fn angle_plot_has_one_panel_per_axis_and_marks_flags() {
-    let spec = lobeflow::picture::angle_plot::SPEC;
+    let spec = lobeflow::blocks::pictures::angle_plot::SPEC;
     let (_, written) = assert_repeatable(&spec, &[], || estimates(20_000), "angles");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 68 + 2 * 280));
@@ -373,7 +373,8 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
             let len = (dwell_len as u64 - guard) / 2;
             let chunk = SampleChunk {
                 stamp: Stamp::new(from, RATE),
-                iq: vec![Complex32::new(0.0, 0.0); len as usize].into(),
+                // Lobe i at amplitude i + 1: levels 0, 6.02, 9.54, 12.04 dB.
+                iq: vec![Complex32::new(0.0, 1.0 + lobe as f32); len as usize].into(),
                 sync: None,
                 trigger: None,
             };
@@ -396,18 +397,23 @@ fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
 
 #[test]
 fn lobe_timeline_draws_rows_guards_and_notices_and_truncates() {
-    let spec = lobeflow::picture::lobe_timeline::SPEC;
+    let spec = lobeflow::blocks::pictures::lobe_timeline::SPEC;
     let (_, written) = assert_repeatable(&spec, &[("max_dwells", "40")], || timeline_items(120), "timeline");
     let base = written[0].with_extension("");
-    check_pictures(&written, &base, (1200, 68 + 100 + 52 * 4 + 110));
+    check_pictures(&written, &base, (1200, 68 + 60 + 44 * 4 + 280 + 100));
     let texts = svg_texts(&base.with_extension("svg"));
     assert!(
-        texts.iter().any(|t| t.starts_with("first 0.08") && t.contains("40 dwell bars from segments")),
+        texts.iter().any(|t| t.starts_with("first 0.08") && t.contains("40 dwells from lobe segments")),
         "{texts:?}"
     );
     assert!(texts.iter().any(|t| t.contains("dwell 10 shorter")), "{texts:?}");
     for lobe in LOBES {
         assert!(texts.iter().any(|t| t == lobe), "no row label {lobe}");
+    }
+    // The level panel's key: each lobe's mean over its 10 drawn dwells.
+    for (lobe, level) in LOBES.iter().zip(["0.00", "6.02", "9.54", "12.04"]) {
+        let key = format!("{lobe}: mean {level} dB, 10 dwells");
+        assert!(texts.contains(&key), "no '{key}' in {texts:?}");
     }
     // A span limit instead of a dwell count: 10 ms holds 5 dwells of 2 ms.
     let dir = scratch("timeline-span");
@@ -415,12 +421,12 @@ fn lobe_timeline_draws_rows_guards_and_notices_and_truncates() {
     let (_, written) = run(&spec, &[("span", "10 ms"), ("path", &base.to_string_lossy())], timeline_items(20));
     assert_eq!(written.len(), 2);
     let texts = svg_texts(&base.with_extension("svg"));
-    assert!(texts.iter().any(|t| t.contains("5 dwell bars from segments")), "{texts:?}");
+    assert!(texts.iter().any(|t| t.contains("5 dwells from lobe segments")), "{texts:?}");
 }
 
 #[test]
 fn bad_windows_and_rates_are_errors_not_panics() {
-    let spec = lobeflow::picture::circular_sweep::SPEC;
+    let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
     let files = FileStager::default();
     let ctx = BuildContext { name: "c".into(), out_dir: std::env::temp_dir(), files };
     let dir = scratch("bad");
@@ -443,11 +449,11 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     let err = block.finish(&mut out).err().unwrap();
     assert!(err.message.contains("mark_every"), "{err}");
 
-    let split = lobeflow::picture::split_pair::SPEC;
+    let split = lobeflow::blocks::pictures::split_pair::SPEC;
     let err = (split.build)(&params(&split, &[("pairs", "az=right"), ("path", &path)]), &ctx).err().unwrap();
     assert!(err.contains("pairs"), "{err}");
     // Non-finite estimates are counted as no signal, not drawn or panicked on.
-    let angle = lobeflow::picture::angle_plot::SPEC;
+    let angle = lobeflow::blocks::pictures::angle_plot::SPEC;
     let mut items = estimates(50);
     if let (_, Item::Estimate(e)) = &mut items[0] {
         e.error_deg = Some(f64::NAN);

@@ -5,6 +5,10 @@
 //! crate is all a researcher needs to write a new block: implement
 //! [`Block`], declare a [`BlockSpec`], and register it in a [`Registry`].
 //!
+//! The default feature `pictures` adds the picture kinds (PNG and SVG drawn
+//! in pure Rust with a bundled font, see [`pictures`]); without it the crate
+//! pulls no drawing dependencies.
+//!
 //! ```
 //! let registry = lobeflow_blocks::standard_registry();
 //! let pass = registry.get("pass").expect("standard kind");
@@ -19,6 +23,9 @@ pub mod kinds;
 pub mod limits;
 pub mod output_file;
 pub mod param;
+#[cfg(feature = "pictures")]
+pub mod pictures;
+pub mod summary;
 
 pub use block::{
     Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
@@ -32,6 +39,10 @@ pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Va
 pub fn standard_registry() -> Registry {
     let mut r = Registry::new();
     for spec in kinds::ALL {
+        r.register(*spec);
+    }
+    #[cfg(feature = "pictures")]
+    for spec in pictures::ALL {
         r.register(*spec);
     }
     r

@@ -120,6 +120,11 @@ impl FileStager {
         }
     }
 
+    /// The final paths of the files staged so far, in staging order.
+    pub fn staged_paths(&self) -> Vec<PathBuf> {
+        self.inner.staged.lock().unwrap_or_else(|e| e.into_inner()).iter().map(|(_, f)| f.clone()).collect()
+    }
+
     /// Delete every staged file (on failure).
     pub fn discard(&self) {
         let staged = std::mem::take(&mut *self.inner.staged.lock().unwrap_or_else(|e| e.into_inner()));

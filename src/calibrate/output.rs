@@ -5,8 +5,8 @@
 use super::ratio::{DB_PER_NEPER, angle_residual};
 use super::{CalibrateArgs, Calibration, FittedPattern};
 use crate::error::Error;
-use crate::picture::discriminator_curve::{CurvePanel, DiscriminatorCurve};
-use crate::picture::write_picture;
+use lobeflow_blocks::pictures::discriminator_curve::{CurvePanel, DiscriminatorCurve};
+use lobeflow_blocks::pictures::write_picture;
 use lobeflow_blocks::{FileStager, OutputFile, RawValue};
 use std::fmt::Write as _;
 use std::io::Write as _;

@@ -75,6 +75,7 @@ fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Er
         out_dir: args.out_dir.clone(),
         stream_table: args.stream.clone(),
         stream_format: args.stream_format.clone(),
+        page: true,
         ..RunOptions::default()
     };
     if let Some(t) = args.threads {

@@ -9,8 +9,10 @@ use crate::capture;
 use crate::capture::live::{LiveEnd, LiveMonitor, PushedInput};
 use crate::error::Error;
 use crate::graph::ResolvedGraph;
+use crate::report;
 use crossbeam_channel::Sender;
 use futures::task::AtomicWaker;
+use lobeflow_blocks::summary::EstimateSummary;
 use lobeflow_blocks::{
     Block, BlockError, BuildContext, DeliveryPolicy, FileStager, Item, Notice, Outputs, ParamType, Value,
 };
@@ -18,8 +20,8 @@ pub use scheduler::BlockStats;
 use scheduler::{NodeSetup, ProgressFn, StopReason, run_nodes};
 use staging::Staging;
 use std::path::PathBuf;
-use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
 /// How to run a graph.
@@ -49,6 +51,8 @@ pub struct RunOptions {
     pub pushed: Vec<PushedInput>,
     /// Progress and lag of a live input, for a progress line.
     pub live: Arc<LiveMonitor>,
+    /// Also write `report.html` (the run's page) with the outputs.
+    pub page: bool,
 }
 
 impl Default for RunOptions {
@@ -65,6 +69,7 @@ impl Default for RunOptions {
             stream_format: None,
             pushed: Vec::new(),
             live: Arc::new(LiveMonitor::default()),
+            page: false,
         }
     }
 }
@@ -158,6 +163,8 @@ pub struct PreparedRun {
     remarks: Vec<String>,
     /// Removed (with any unfinished files) when the run is over.
     staging: Staging,
+    /// The graph and the estimate summary its page is made from.
+    page: Option<(Box<ResolvedGraph>, Arc<Mutex<EstimateSummary>>)>,
 }
 
 /// True when a capture reader of the graph reads a live input.
@@ -232,7 +239,22 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
         });
         edges += 1;
     }
-    Ok(PreparedRun { setups, edges, opts: opts.clone(), files, live, remarks, staging })
+    let page = (opts.page && opts.write_files).then(|| {
+        let summary = Arc::new(Mutex::new(EstimateSummary::default()));
+        for (bi, pi) in report::final_estimate_ports(graph) {
+            setups[bi].outputs[pi].push(edges);
+            setups.push(NodeSetup {
+                name: format!("report-summary:{}", graph.blocks[bi].name),
+                kind: "report_summary".into(),
+                block: Box::new(report::SummaryTap { summary: Arc::clone(&summary) }),
+                inputs: vec![Some(edges)],
+                outputs: Vec::new(),
+            });
+            edges += 1;
+        }
+        (Box::new(graph.clone()), summary)
+    });
+    Ok(PreparedRun { setups, edges, opts: opts.clone(), files, live, remarks, staging, page })
 }
 
 /// Build every block of the graph, output paths resolved against the output folder.
@@ -301,7 +323,7 @@ impl PreparedRun {
     /// Run to the end. Output files appear only when it succeeds (or when a
     /// live input was stopped: then what was done is written).
     pub fn execute(self) -> Result<RunReport, Error> {
-        let PreparedRun { setups, edges, opts, files, live, mut remarks, staging } = self;
+        let PreparedRun { setups, edges, opts, files, live, mut remarks, staging, page } = self;
         let outcome =
             run_nodes(setups, edges, opts.threads, opts.capacity, Arc::clone(&opts.cancel), opts.progress.clone());
         let result = match outcome.stop {
@@ -316,6 +338,23 @@ impl PreparedRun {
                     remarks.push(format!(
                         "processing fell behind the live input by up to {lag:.2} s of capture; a real-time receiver may have dropped samples"
                     ));
+                }
+                if let Some((graph, summary)) = &page {
+                    let summary = summary.lock().unwrap_or_else(|e| e.into_inner());
+                    let facts = report::RunFacts {
+                        graph,
+                        notices: &outcome.notices,
+                        remarks: &remarks,
+                        ending,
+                        summary: &summary,
+                        files: &files.staged_paths(),
+                        out_dir: &opts.out_dir,
+                    };
+                    if let Err(e) = write_page(&report::run_page(&facts), &opts.out_dir, &files) {
+                        files.discard();
+                        drop(staging);
+                        return Err(e);
+                    }
                 }
                 let written = if opts.write_files {
                     files.commit().map_err(|e| {
@@ -347,6 +386,16 @@ impl PreparedRun {
         drop(staging);
         result
     }
+}
+
+/// Stage the run's page beside its other outputs.
+fn write_page(html: &str, out_dir: &std::path::Path, files: &FileStager) -> Result<(), Error> {
+    let path = out_dir.join(report::PAGE_NAME);
+    let err =
+        |e: std::io::Error| Error::Output(format!("cannot write {}: {e}; no outputs were written", path.display()));
+    let mut f = files.create(&path).map_err(err)?;
+    std::io::Write::write_all(f.writer(), html.as_bytes()).map_err(err)?;
+    f.finish(files).map_err(err)
 }
 
 /// Run `graph` to the end. Output files appear only when it succeeds.

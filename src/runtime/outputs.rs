@@ -6,25 +6,13 @@
 use crate::error::Error;
 use crate::graph::ResolvedGraph;
 use lobeflow_blocks::kinds::table_writer::STDOUT_PATH;
+use lobeflow_blocks::pictures::is_picture_kind;
 use lobeflow_blocks::{ParamType, Value};
 use std::path::{Component, Path, PathBuf};
 
 /// Extensions writers add to a base name (pictures write `BASE.png` and
 /// `BASE.svg`; a SigMF recording has a data and a meta file).
 const PICTURE_EXTENSIONS: &[&str] = &["png", "svg"];
-
-/// Block kinds whose `path` is a base name for a picture pair.
-fn is_picture_kind(kind: &str) -> bool {
-    use crate::picture::*;
-    [
-        angle_plot::SPEC.kind,
-        circular_sweep::SPEC.kind,
-        lobe_timeline::SPEC.kind,
-        range_trace::SPEC.kind,
-        split_pair::SPEC.kind,
-    ]
-    .contains(&kind)
-}
 
 /// An output-path parameter resolved against the output folder (absolute
 /// paths stay as they are; `-` is standard output).

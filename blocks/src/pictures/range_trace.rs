@@ -3,7 +3,7 @@
 
 use super::accum::{BinWindow, LobeAverages, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
-use lobeflow_blocks::{
+use crate::{
     Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
     PortSpec,
 };

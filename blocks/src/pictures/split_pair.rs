@@ -4,8 +4,8 @@
 
 use super::accum::{BinWindow, LobeAverages, SweepAverage, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
-use lobeflow_blocks::dsp::discriminator::{LobePair, parse_pairs};
-use lobeflow_blocks::{
+use crate::dsp::discriminator::{LobePair, parse_pairs};
+use crate::{
     Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
     PortSpec,
 };
@@ -118,7 +118,7 @@ struct SplitPair {
 }
 
 impl SplitPair {
-    fn window(params: &Params, sweep: &lobeflow_blocks::Sweep) -> Result<BinWindow, BlockError> {
+    fn window(params: &Params, sweep: &crate::Sweep) -> Result<BinWindow, BlockError> {
         let rate = sweep.stamp.rate;
         let width = params.bins_at("gate_width", rate)?;
         let (first, last) = if width > 0.0 {
@@ -177,7 +177,7 @@ impl Block for SplitPair {
                         .groups
                         .first()
                         .map(|g| g.2.first_stamp)
-                        .unwrap_or(lobeflow_blocks::Stamp::new(0, 1.0)),
+                        .unwrap_or(crate::Stamp::new(0, 1.0)),
                     format!("pair {}: no balance (a lobe is missing or has no power in the gate)", pair.axis),
                 );
             }

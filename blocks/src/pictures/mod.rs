@@ -14,13 +14,24 @@ pub mod lobe_timeline;
 pub mod range_trace;
 pub mod split_pair;
 
-use lobeflow_blocks::{BlockError, FileStager};
+use crate::{BlockError, BlockSpec, FileStager};
 use plotters::coord::Shift;
 use plotters::coord::types::RangedCoordf64;
 use plotters::prelude::*;
 use plotters::style::FontStyle;
 use std::path::{Path, PathBuf};
 use std::sync::OnceLock;
+
+/// Every picture kind, registered by [`crate::standard_registry`]. Each
+/// writes `BASE.png` and `BASE.svg` from its `path` parameter.
+pub const ALL: &[BlockSpec] =
+    &[circular_sweep::SPEC, range_trace::SPEC, split_pair::SPEC, angle_plot::SPEC, lobe_timeline::SPEC];
+
+/// Whether `kind` is a picture kind (its `path` is a base name for a pair of
+/// files).
+pub fn is_picture_kind(kind: &str) -> bool {
+    ALL.iter().any(|spec| spec.kind == kind)
+}
 
 /// Font family name the pictures ask for; SVG viewers without the embedded
 /// font fall back to their own sans-serif face.

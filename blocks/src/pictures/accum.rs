@@ -1,6 +1,6 @@
 //! Bounded summaries the picture blocks keep while items stream past.
 
-use lobeflow_blocks::{BlockError, Params, Stamp, Sweep, range_bin_m};
+use crate::{BlockError, Params, Stamp, Sweep, range_bin_m};
 
 /// Most range bins one averaged sweep may hold (bounds memory per block).
 pub const MAX_BINS: usize = 1 << 20;
@@ -246,7 +246,7 @@ pub fn median(values: &[f64]) -> Option<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::{ParamSpec, ParamType, RawValue};
+    use crate::{ParamSpec, ParamType, RawValue};
     use num_complex::Complex32;
 
     fn sweep(values: &[f32], index: u64) -> Sweep {

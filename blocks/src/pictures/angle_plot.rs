@@ -3,7 +3,8 @@
 //! runs are reduced to time buckets (min/max/mean) as estimates arrive.
 
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
-use lobeflow_blocks::{
+use crate::summary::AxisSummary;
+use crate::{
     AngleEstimate, Block, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind, Outputs, ParamSpec,
     ParamType, Params, PortSpec, Unit,
 };
@@ -166,11 +167,22 @@ pub struct AxisSeries {
     /// Bucket width in seconds; 0 while every estimate has its own bucket.
     width: f64,
     pub count: u64,
+    /// Mean, RMS, median σ and counts over every estimate (not the buckets):
+    /// the same figures as the run's report page.
+    pub summary: AxisSummary,
 }
 
 impl AxisSeries {
     pub fn new(axis: &str, cap: usize) -> AxisSeries {
-        AxisSeries { axis: axis.into(), buckets: Vec::new(), cap: cap.max(2), origin: 0.0, width: 0.0, count: 0 }
+        AxisSeries {
+            axis: axis.into(),
+            buckets: Vec::new(),
+            cap: cap.max(2),
+            origin: 0.0,
+            width: 0.0,
+            count: 0,
+            summary: AxisSummary::new(axis),
+        }
     }
 
     fn key(&self, t: f64) -> i64 {
@@ -186,6 +198,7 @@ impl AxisSeries {
             self.origin = t;
         }
         self.count += 1;
+        self.summary.add(e);
         let same = self.width > 0.0 && self.buckets.last().is_some_and(|b| self.key(t) <= self.key(b.t0));
         match self.buckets.last_mut() {
             Some(b) if same => b.add(t, e),
@@ -280,12 +293,12 @@ impl Picture for AnglePicture<'_> {
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let total: u64 = self.axes.iter().map(|a| a.count).sum();
         let mut sub = format!(
-            "{total} estimates; shaded: expected ±σ around the tracked (or mean) value; time from capture start"
+            "{total} estimates; angle off boresight per dwell pair; shaded: expected ±σ around the tracked (or mean) value"
         );
         if self.other > 0 {
             sub.push_str(&format!("; {} estimates of further axes not drawn", self.other));
         }
-        let area = frame(root, "Angle error", &sub)?;
+        let area = frame(root, "Angle off boresight", &sub)?;
         if self.axes.is_empty() {
             return area
                 .draw(&Text::new("no estimates arrived", (40, 80), super::text_style(18.0, palette::MUTED)))
@@ -332,6 +345,8 @@ fn draw_axis<DB: DrawingBackend>(
     let caption = format!("axis {}: {ok} ok, {oor} out of range, {nosig} no signal, {outl} outliers", s.axis);
     let (plot, key) = cell.split_horizontally(cell.dim_in_pixel().0 as i32 - 250);
     let mut ch = chart(&plot, &caption, t0..t1, y0..y1)?;
+    // Grid first, so the band hides it where it lies.
+    draw_mesh(&mut ch, "time from capture start (s)", "angle (deg)")?;
     let clamp = |v: f64| v.clamp(y0, y1);
     // The ±σ band, one polygon per run of buckets with ordinary estimates.
     let mut runs: Vec<Vec<(f64, f64, f64)>> = vec![Vec::new()];
@@ -357,10 +372,9 @@ fn draw_axis<DB: DrawingBackend>(
             )))
             .map_err(draw_err)?;
         } else {
-            ch.draw_series(std::iter::once(Polygon::new(poly, palette::BAND.mix(0.8).filled()))).map_err(draw_err)?;
+            ch.draw_series(std::iter::once(Polygon::new(poly, palette::BAND.filled()))).map_err(draw_err)?;
         }
     }
-    draw_mesh(&mut ch, "time (s)", "error (deg)")?;
     // Ordinary estimates: min and max of each bucket, joined in time order.
     let mut pts = Vec::new();
     for b in s.buckets.iter().filter(|b| b.n_ok > 0) {
@@ -376,7 +390,13 @@ fn draw_axis<DB: DrawingBackend>(
         ch.draw_series(pts.iter().map(|&p| Circle::new(p, 2, palette::TRACE.filled()))).map_err(draw_err)?;
     }
     let tracked: Vec<(f64, f64)> = s.buckets.iter().filter_map(|b| b.tracked().map(|t| (b.mid(), clamp(t)))).collect();
-    let mut entries = vec![(palette::TRACE, format!("error ({ok})")), (palette::BAND, "expected ±σ".to_string())];
+    let f = &s.summary;
+    let mut entries = vec![
+        (palette::TRACE, format!("angle, {} ok of {}", f.ok, f.count())),
+        (palette::PANEL, format!("mean {} deg", AxisSummary::figure(f.mean()))),
+        (palette::PANEL, format!("RMS {} deg", AxisSummary::figure(f.rms()))),
+        (palette::BAND, format!("median σ {} deg", AxisSummary::figure(f.median_sigma()))),
+    ];
     if !tracked.is_empty() {
         ch.draw_series(LineSeries::new(tracked, palette::lobe(1).stroke_width(2))).map_err(draw_err)?;
         entries.push((palette::lobe(1), "tracked".into()));
@@ -418,7 +438,7 @@ fn draw_axis<DB: DrawingBackend>(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::Stamp;
+    use crate::Stamp;
     use std::sync::Arc;
 
     fn estimate(index: u64, err: f64, flag: Flag) -> AngleEstimate {

@@ -6,7 +6,7 @@
 use super::accum::{BinWindow, SweepAverage, decimate_min_max, median};
 use super::circular::{Winding, interpolated_peak, read_range};
 use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
-use lobeflow_blocks::{
+use crate::{
     Block, BlockError, BlockSpec, BuildContext, Cell, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType,
     Params, PortSpec, TableRow,
 };
@@ -38,7 +38,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "revolutions",
-            ty: ParamType::Number { unit: lobeflow_blocks::Unit::None, min: 1.0, max: 200.0 },
+            ty: ParamType::Number { unit: crate::Unit::None, min: 1.0, max: 200.0 },
             default: Some("8"),
             doc: "turns of the fine circle per window",
         },
@@ -50,7 +50,7 @@ pub const SPEC: BlockSpec = BlockSpec {
         },
         ParamSpec {
             name: "gain",
-            ty: ParamType::Number { unit: lobeflow_blocks::Unit::None, min: 0.01, max: 100.0 },
+            ty: ParamType::Number { unit: crate::Unit::None, min: 0.01, max: 100.0 },
             default: Some("1"),
             doc: "deflection scale (1: the strongest echo deflects by a quarter of the radius)",
         },
@@ -122,7 +122,7 @@ impl Block for CircularSweep {
             let window = BinWindow::from_params(&self.params, "range_start", "range_end", &sweep)?;
             // Each bin becomes an averaged value, a trace point and a table
             // row of seven named cells at the end.
-            lobeflow_blocks::check_memory(
+            crate::check_memory(
                 &format!("a range window ('range_start'..'range_end') of {} bins", window.len),
                 window.len as f64 * BYTES_PER_BIN,
             )
@@ -137,7 +137,7 @@ impl Block for CircularSweep {
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(avg) = self.average.as_ref() else {
-            out.warn(lobeflow_blocks::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
+            out.warn(crate::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
             return write_picture(&Empty, &self.path, &self.files).map(|_| ());
         };
         let mark_m = self

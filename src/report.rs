@@ -1,0 +1,269 @@
+//! `report.html`: one page per run, written with the run's other outputs
+//! (staged, committed all or nothing). It shows the graph, every setting's
+//! value and where it came from, the notices, a per-axis summary of the
+//! final angle estimates and every picture, linked by relative path. The
+//! page is self-contained (inline style, no scripts) and every string that
+//! comes from a file (titles, names, notices, paths) is escaped.
+
+use crate::graph::ResolvedGraph;
+use crate::runtime::Ending;
+use lobeflow_blocks::summary::{AxisSummary, EstimateSummary};
+use lobeflow_blocks::{Block, BlockError, Item, ItemKind, Notice, Outputs};
+use std::fmt::Write;
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+
+/// File name of the page inside the output folder.
+pub const PAGE_NAME: &str = "report.html";
+
+/// Notices listed on the page; the rest are counted.
+const NOTICES_LISTED: usize = 500;
+
+/// Text made safe to place in HTML element content and quoted attributes.
+pub fn escape(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            _ => out.push(c),
+        }
+    }
+    out
+}
+
+/// A relative link made safe for an attribute: each path segment
+/// percent-encoded, so no name can leave the attribute or form a scheme.
+pub fn link(path: &Path) -> String {
+    let mut out = String::new();
+    for (i, part) in path.iter().enumerate() {
+        if i > 0 {
+            out.push('/');
+        }
+        for b in part.to_string_lossy().bytes() {
+            if b.is_ascii_alphanumeric() || b"-_.~".contains(&b) {
+                out.push(b as char);
+            } else {
+                let _ = write!(out, "%{b:02X}");
+            }
+        }
+    }
+    out
+}
+
+/// Collects the estimates of the graph's final estimate outputs.
+pub struct SummaryTap {
+    pub summary: Arc<Mutex<EstimateSummary>>,
+}
+
+impl Block for SummaryTap {
+    fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        if let Item::Estimate(e) = item {
+            self.summary.lock().unwrap_or_else(|e| e.into_inner()).add(&e);
+        }
+        Ok(())
+    }
+}
+
+/// The estimate outputs whose estimates go on to no block that makes
+/// estimates of its own (the tracker's, not the discriminator's it smooths).
+pub fn final_estimate_ports(graph: &ResolvedGraph) -> Vec<(usize, usize)> {
+    let makes_estimates = |b: usize| graph.blocks[b].spec.outputs.iter().any(|o| o.kind == ItemKind::Estimate);
+    let mut ports = Vec::new();
+    for (bi, b) in graph.blocks.iter().enumerate() {
+        for (pi, o) in b.spec.outputs.iter().enumerate() {
+            let refined = graph.wires.iter().any(|w| w.from == (bi, pi) && makes_estimates(w.to.0));
+            if o.kind == ItemKind::Estimate && !refined {
+                ports.push((bi, pi));
+            }
+        }
+    }
+    ports
+}
+
+/// What the page shows of a finished run.
+pub struct RunFacts<'a> {
+    pub graph: &'a ResolvedGraph,
+    pub notices: &'a [Notice],
+    pub remarks: &'a [String],
+    pub ending: Ending,
+    pub summary: &'a EstimateSummary,
+    /// Every output of the run (final paths), the page's own excluded.
+    pub files: &'a [PathBuf],
+    pub out_dir: &'a Path,
+}
+
+const STYLE: &str = "body{font-family:sans-serif;margin:2em auto;max-width:1250px;color:#262a34;background:#ffffff}\
+table{border-collapse:collapse;margin:0.5em 0}td,th{border:1px solid #ded8cc;padding:3px 8px;text-align:left}\
+th{background:#eee9dc}td.n{text-align:right;font-variant-numeric:tabular-nums}img{max-width:100%;border:1px solid #ded8cc}\
+.fail{color:#c43a28;font-weight:bold}.pass{color:#1a6870}pre{white-space:pre-wrap}";
+
+/// The page's opening: doctype, title, style.
+pub fn page_head(title: &str) -> String {
+    format!(
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">\
+         <meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; img-src 'self' data: file:; style-src 'unsafe-inline'\">\
+         <title>{}</title><style>{STYLE}</style></head><body>\n",
+        escape(title)
+    )
+}
+
+/// The run's page.
+pub fn run_page(f: &RunFacts) -> String {
+    let g = f.graph;
+    let title = if g.title.is_empty() { "lobeflow run".to_string() } else { g.title.clone() };
+    let mut s = page_head(&title);
+    let _ = writeln!(s, "<h1>{}</h1>", escape(&title));
+    let _ = writeln!(s, "<p>graph <code>{}</code></p>", escape(&g.path.display().to_string()));
+    if !g.about.is_empty() {
+        let _ = writeln!(s, "<p>{}</p>", escape(&g.about));
+    }
+    let ending = match f.ending {
+        Ending::Complete => "the capture was read to its end".to_string(),
+        Ending::InputClosed { at_sample, .. } => format!("the live input ended at sample {at_sample}"),
+        Ending::CutShort { at_sample, .. } => format!("the run was cut short at sample {at_sample}"),
+    };
+    let _ = writeln!(s, "<p>{}</p>", escape(&ending));
+    s.push_str(&summary_section(f.summary));
+    s.push_str(&notices_section(f.notices, f.remarks));
+    s.push_str(&pictures_section(f.files, f.out_dir, ""));
+    s.push_str(&settings_section(g));
+    s.push_str(&files_section(f.files, f.out_dir, ""));
+    s.push_str("</body></html>\n");
+    s
+}
+
+/// Per axis: count, mean, RMS, standard deviation, median σ and the flags.
+pub fn summary_section(summary: &EstimateSummary) -> String {
+    let mut s = String::from("<h2>Angle estimates</h2>\n");
+    if summary.axes.is_empty() {
+        s.push_str("<p>no angle estimates</p>\n");
+        return s;
+    }
+    s.push_str(
+        "<table><tr><th>axis</th><th>estimates</th><th>ok</th><th>mean (deg)</th><th>RMS (deg)</th>\
+         <th>std dev (deg)</th><th>median σ (deg)</th><th>out of range</th><th>no signal</th><th>outliers</th></tr>\n",
+    );
+    for a in &summary.axes {
+        let _ = writeln!(
+            s,
+            "<tr><td>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td>\
+             <td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td></tr>",
+            escape(&a.axis),
+            a.count(),
+            a.ok,
+            AxisSummary::figure(a.mean()),
+            AxisSummary::figure(a.rms()),
+            AxisSummary::figure(a.std_dev()),
+            AxisSummary::figure(a.median_sigma()),
+            a.out_of_range,
+            a.no_signal,
+            a.outliers
+        );
+    }
+    s.push_str("</table>\n<p>mean, RMS and standard deviation over the estimates flagged ok (angle off boresight); median σ: the median of their predicted spread.</p>\n");
+    s
+}
+
+fn notices_section(notices: &[Notice], remarks: &[String]) -> String {
+    let mut s = format!("<h2>Notices and warnings ({})</h2>\n", notices.len());
+    for r in remarks {
+        let _ = writeln!(s, "<p class=fail>{}</p>", escape(r));
+    }
+    if notices.is_empty() {
+        s.push_str("<p>no notices</p>\n");
+        return s;
+    }
+    s.push_str("<table><tr><th>block</th><th>sample</th><th>time (s)</th><th>what</th></tr>\n");
+    for n in notices.iter().take(NOTICES_LISTED) {
+        let _ = writeln!(
+            s,
+            "<tr><td>{}</td><td class=n>{}</td><td class=n>{:.6}</td><td>{}</td></tr>",
+            escape(&n.block),
+            n.stamp.index,
+            n.stamp.seconds(),
+            escape(&n.what)
+        );
+    }
+    s.push_str("</table>\n");
+    if notices.len() > NOTICES_LISTED {
+        let _ = writeln!(s, "<p>… and {} more</p>", notices.len() - NOTICES_LISTED);
+    }
+    s
+}
+
+/// Every SVG picture among `files`, linked relative to `base`, under
+/// `prefix` (a sample's folder on the regression page).
+pub fn pictures_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
+    let mut s = String::from("<h2>Pictures</h2>\n");
+    let pictures: Vec<&PathBuf> = files.iter().filter(|p| p.extension().is_some_and(|e| e == "svg")).collect();
+    if pictures.is_empty() {
+        s.push_str("<p>no pictures</p>\n");
+    }
+    for p in pictures {
+        let rel = Path::new(prefix).join(p.strip_prefix(base).unwrap_or(p));
+        let name = escape(&rel.display().to_string());
+        let _ =
+            writeln!(s, "<figure><img src=\"{}\" alt=\"{name}\"><figcaption>{name}</figcaption></figure>", link(&rel));
+    }
+    s
+}
+
+fn settings_section(g: &ResolvedGraph) -> String {
+    let mut s = String::from(
+        "<h2>Settings</h2>\n<table><tr><th>setting</th><th>value</th><th>unit</th><th>from</th><th>meaning</th></tr>\n",
+    );
+    for k in &g.settings {
+        let _ = writeln!(
+            s,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
+            escape(&k.name),
+            escape(&k.value.to_string()),
+            escape(k.unit.as_deref().unwrap_or("")),
+            escape(&k.origin.to_string()),
+            escape(&k.doc)
+        );
+    }
+    s.push_str("</table>\n<h2>Blocks</h2>\n<table><tr><th>block</th><th>kind</th></tr>\n");
+    for b in &g.blocks {
+        let _ = writeln!(s, "<tr><td>{}</td><td>{}</td></tr>", escape(&b.name), escape(b.spec.kind));
+    }
+    s.push_str("</table>\n<h2>Wiring</h2>\n<pre>");
+    for w in &g.wires {
+        let (f, t) = (&g.blocks[w.from.0], &g.blocks[w.to.0]);
+        let line = format!("{}.{} -> {}.{}", f.name, f.spec.outputs[w.from.1].name, t.name, t.spec.inputs[w.to.1].name);
+        let _ = writeln!(s, "{}", escape(&line));
+    }
+    s.push_str("</pre>\n");
+    s
+}
+
+/// The run's files, linked.
+pub fn files_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
+    let mut s = String::from("<h2>Files</h2>\n<ul>\n");
+    for p in files {
+        let rel = Path::new(prefix).join(p.strip_prefix(base).unwrap_or(p));
+        let _ = writeln!(s, "<li><a href=\"{}\">{}</a></li>", link(&rel), escape(&rel.display().to_string()));
+    }
+    s.push_str("</ul>\n");
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn markup_is_escaped_and_links_are_encoded() {
+        let hostile = "<script>alert(1)</script>\"' onload=x &amp;";
+        let e = escape(hostile);
+        assert!(!e.contains('<') && !e.contains('>') && !e.contains('"') && !e.contains('\''));
+        assert_eq!(e, "&lt;script&gt;alert(1)&lt;/script&gt;&quot;&#39; onload=x &amp;amp;");
+        let l = link(Path::new("a b/\"><script>.svg"));
+        assert_eq!(l, "a%20b/%22%3E%3Cscript%3E.svg");
+        assert!(link(Path::new("javascript:alert(1)")).starts_with("javascript%3A"));
+    }
+}
