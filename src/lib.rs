@@ -28,6 +28,7 @@ pub mod external;
 #[doc(hidden)]
 pub mod fuzzing;
 pub mod graph;
+pub mod inspect;
 pub mod picture;
 pub mod regress;
 pub mod runtime;

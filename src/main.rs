@@ -201,9 +201,12 @@ enum Command {
         capture: String,
         #[command(flatten)]
         how: CaptureFlags,
-        /// Look at no more than this many seconds from the start.
+        /// Look at no more than this many seconds from the start (the installation figures: at most 10).
         #[arg(long, default_value_t = 60.0)]
         seconds: f64,
+        /// Print only a params file for this graph (measured installation settings; figures as comments).
+        #[arg(long, value_name = "GRAPH")]
+        params_for: Option<PathBuf>,
     },
 }
 
@@ -341,7 +344,7 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
             };
             commands::batch::batch(&cmd)
         }
-        Command::Inspect { capture, how, seconds } => {
+        Command::Inspect { capture, how, seconds, params_for } => {
             let args = commands::inspect::args_from_text(
                 capture,
                 how.format.as_deref().unwrap_or("auto"),
@@ -351,7 +354,10 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
                 how.roles.as_deref(),
                 seconds,
             )?;
-            print_out(&commands::inspect::inspect(&args)?)
+            match params_for {
+                Some(graph) => print_out(&commands::inspect::params_for(&args, &graph)?),
+                None => print_out(&commands::inspect::inspect(&args)?),
+            }
         }
         Command::Calibrate { graph, input, pointing, source, clock_offset, cross_limit, set, params, out, threads } => {
             let args = lobeflow::calibrate::CalibrateArgs {
