@@ -200,8 +200,9 @@ pub fn peak_in(x: &[f32], lo: usize, hi: usize) -> Option<(f64, f32)> {
     let (at, peak) = w.iter().enumerate().fold((0, f32::NEG_INFINITY), |a, (i, &v)| if v > a.1 { (i, v) } else { a });
     let mut num = 0.0f64;
     let mut den = 0.0f64;
-    for j in at.saturating_sub(1)..(at + 2).min(w.len()) {
-        let v = f64::from((w[j] - median).max(0.0));
+    let from = at.saturating_sub(1);
+    for (j, &x) in w.iter().enumerate().take((at + 2).min(w.len())).skip(from) {
+        let v = f64::from((x - median).max(0.0));
         num += v * j as f64;
         den += v;
     }

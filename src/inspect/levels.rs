@@ -96,7 +96,7 @@ const MIN_LEVEL_SHARE: f64 = 0.03;
 impl SyncLevels {
     /// Clusters: runs of bins above a small share of the largest smoothed
     /// bin, each kept when it holds [`MIN_LEVEL_SHARE`] of the samples.
-    pub fn from_histogram(h: &Vec<u64>) -> SyncLevels {
+    pub fn from_histogram(h: &[u64]) -> SyncLevels {
         let total: u64 = h.iter().sum();
         let smooth: Vec<f64> =
             (0..h.len()).map(|k| h[k.saturating_sub(4)..(k + 5).min(h.len())].iter().sum::<u64>() as f64).collect();

@@ -211,7 +211,7 @@ pub fn measure(source: &Source) -> Result<Installation, String> {
     if first.frames < 64 {
         return Err(format!("only {} samples in the first {} s: too few to measure", first.frames, source.seconds));
     }
-    let sync = first.sync.as_ref().map(levels::SyncLevels::from_histogram);
+    let sync = first.sync.as_deref().map(levels::SyncLevels::from_histogram);
     if let Some(levels) = &sync {
         levels.describe(&mut inst);
     }

@@ -129,11 +129,14 @@ pub fn value_for(inst: &Installation, name: &str) -> Result<(String, String), St
     }
 }
 
+/// A setting measured: (name, value with its unit, what it rests on).
+pub type Measured = (String, String, String);
+
 /// Measure the settings of `given` (name, value, base folder of relative
 /// paths) whose value is `auto` from the capture named by `input`, with
 /// `sample_rate` and `lobe_order` when the graph has them. Returns (name,
 /// value, origin) for each, or the first setting that failed and why.
-pub fn settle_auto(given: &[(&str, &RawValue, &Path)]) -> Result<Vec<(String, String, String)>, (String, String)> {
+pub fn settle_auto(given: &[(&str, &RawValue, &Path)]) -> Result<Vec<Measured>, (String, String)> {
     let text = |v: &RawValue| match v {
         RawValue::Text(t) => t.clone(),
         v => v.to_string(),

@@ -58,22 +58,23 @@ impl Edges {
             self.end_sweep();
             self.sweep_start = Some(index);
         }
-        if !above && self.last_amp >= self.threshold {
-            if let Some(r) = self.rise.take() {
-                let a0 = self.last_amp;
-                let frac = if a0 > amp { f64::from((a0 - self.threshold) / (a0 - amp)) } else { 0.0 };
-                let w = index as f64 - 1.0 + frac.clamp(0.0, 1.0) - r;
-                self.widths.0 += w;
-                self.widths.1 += w * w;
-                self.widths.2 += 1;
-            }
+        if !above
+            && self.last_amp >= self.threshold
+            && let Some(r) = self.rise.take()
+        {
+            let a0 = self.last_amp;
+            let frac = if a0 > amp { f64::from((a0 - self.threshold) / (a0 - amp)) } else { 0.0 };
+            let w = index as f64 - 1.0 + frac.clamp(0.0, 1.0) - r;
+            self.widths.0 += w;
+            self.widths.1 += w * w;
+            self.widths.2 += 1;
         }
         self.below = if above { 0 } else { self.below + 1 };
         self.last_amp = amp;
-        if let Some(s) = self.sweep_start {
-            if ((index - s) as usize) < MAX_SWEEP {
-                self.current.push(power);
-            }
+        if let Some(s) = self.sweep_start
+            && ((index - s) as usize) < MAX_SWEEP
+        {
+            self.current.push(power);
         }
     }
 
