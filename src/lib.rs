@@ -30,6 +30,7 @@ pub mod external;
 #[doc(hidden)]
 pub mod fuzzing;
 pub mod graph;
+pub mod inspect;
 pub mod regress;
 pub mod report;
 pub mod runtime;

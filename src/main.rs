@@ -206,9 +206,12 @@ enum Command {
         capture: String,
         #[command(flatten)]
         how: CaptureFlags,
-        /// Look at no more than this many seconds from the start.
+        /// Look at no more than this many seconds from the start (the installation figures: at most 10).
         #[arg(long, default_value_t = 60.0)]
         seconds: f64,
+        /// Print only a params file for this graph (measured installation settings; figures as comments).
+        #[arg(long, value_name = "GRAPH")]
+        params_for: Option<PathBuf>,
     },
 }
 
@@ -322,7 +325,7 @@ fn dispatch(cli: Cli) -> Result<ExitCode, Error> {
             };
             done(commands::batch::batch(&cmd))
         }
-        Command::Inspect { capture, how, seconds } => {
+        Command::Inspect { capture, how, seconds, params_for } => {
             let args = commands::inspect::args_from_text(
                 capture,
                 how.format.as_deref().unwrap_or("auto"),
@@ -332,7 +335,10 @@ fn dispatch(cli: Cli) -> Result<ExitCode, Error> {
                 how.roles.as_deref(),
                 seconds,
             )?;
-            done(print_out(&commands::inspect::inspect(&args)?))
+            match params_for {
+                Some(graph) => done(print_out(&commands::inspect::params_for(&args, &graph)?)),
+                None => done(print_out(&commands::inspect::inspect(&args)?)),
+            }
         }
         Command::Calibrate { graph, input, pointing, source, clock_offset, cross_limit, set, params, out, threads } => {
             let args = lobeflow::calibrate::CalibrateArgs {

@@ -1,7 +1,9 @@
-//! `lobeflow inspect CAPTURE`: what a capture holds and a first look at it —
-//! format, rate, channels and roles, length, per-channel levels, and the
-//! strongest periodicities of its envelope (a first guess at the lobe switch
-//! rate and the PRF). Streams the file with constant memory.
+//! `lobeflow inspect CAPTURE`: what a capture holds — format, rate,
+//! channels and roles, length, per-channel levels — and the installation's
+//! numbers measured at full rate (src/inspect/): PRF, pulse length, echo
+//! window, sync levels and dwell, switch instants, tone, SNR per lobe.
+//! `--params-for GRAPH` prints only a params file for that graph.
+//! Streams the file with constant memory.
 
 use crate::capture::reader::{CaptureInfo, Format, OpenOptions, open};
 use crate::capture::roles::{ChunkPools, NonFinite, Replaced, Role, RoleMap};
@@ -31,6 +33,38 @@ pub struct InspectArgs {
     pub roles: Vec<String>,
     /// Look at no more than this many seconds from the start.
     pub max_seconds: f64,
+}
+
+/// Longest stretch the installation figures are measured over (each of
+/// their passes reads it again).
+pub const MAX_MEASURE_SECONDS: f64 = 10.0;
+
+impl InspectArgs {
+    fn measure_source(&self, lobe_order: Vec<String>) -> crate::inspect::Source {
+        crate::inspect::Source {
+            path: self.path.clone(),
+            options: self.options.clone(),
+            roles: self.roles.clone(),
+            seconds: self.max_seconds.min(MAX_MEASURE_SECONDS),
+            lobe_order,
+        }
+    }
+}
+
+/// `inspect CAPTURE --params-for GRAPH`: a params file with the graph's
+/// setting names (measured values), its figures as comments.
+pub fn params_for(args: &InspectArgs, graph: &std::path::Path) -> Result<String, Error> {
+    let file = crate::graph::file::GraphFile::load(graph)?;
+    let names: Vec<String> = file.settings.iter().map(|k| k.name.clone()).collect();
+    let lobe_order = file
+        .settings
+        .iter()
+        .find(|k| k.name == "lobe_order")
+        .and_then(|k| k.default.as_ref())
+        .map(|v| v.to_string().split(',').map(|l| l.trim().to_string()).filter(|l| !l.is_empty()).collect())
+        .unwrap_or_default();
+    let inst = crate::inspect::measure(&args.measure_source(lobe_order)).map_err(Error::Input)?;
+    Ok(crate::inspect::params_for(&inst, &graph.display().to_string(), &names, &args.path))
 }
 
 /// Arguments as typed on the command line; the rate takes units like the
@@ -126,6 +160,8 @@ pub struct Inspection {
     pub max_seconds: f64,
     pub stats: Vec<ComponentStats>,
     pub envelopes: Vec<Envelope>,
+    /// The installation figures, or why they could not be measured.
+    pub installation: Result<crate::inspect::Installation, String>,
 }
 
 /// Inspect a capture and return the printed report.
@@ -270,7 +306,9 @@ pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
     if let Some(d) = &sync {
         envelopes.push(periodicities("sync", d, info.rate, &mut planner));
     }
+    let installation = crate::inspect::measure(&args.measure_source(Vec::new()));
     Ok(Inspection {
+        installation,
         info,
         roles: roles.describe(),
         frames_seen: seen,
@@ -445,10 +483,17 @@ impl Inspection {
                 c.nonfinite
             );
         }
+        let _ = writeln!(s, "\ninstallation (measured at the full rate; value ± stated confidence [how])");
+        match &self.installation {
+            Ok(inst) => s.push_str(&inst.render("  ")),
+            Err(why) => {
+                let _ = writeln!(s, "  not measured: {why}");
+            }
+        }
         for e in &self.envelopes {
             let _ = writeln!(
                 s,
-                "\nstrongest periodicities of {} (means of {} samples -> {}, {} values, {}-point FFT, bins of {})",
+                "\nenvelope periodicities of {} (means of {} samples -> {}, {} values, {}-point FFT, bins of {}; harmonics and aliases of the PRF show here, the figures above do not)",
                 e.source,
                 e.decimation,
                 engineering(e.rate, "S/s"),

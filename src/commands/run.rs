@@ -70,6 +70,9 @@ pub fn run_with_exit(args: &RunArgs) -> (Result<RunReport, Error>, Option<i32>) 
 
 fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Error> {
     let mut graph = resolve(&args.graph, &args.overrides, &crate::registry())?;
+    if !args.quiet {
+        eprint!("{}", crate::inspect::measured_settings(&graph.settings));
+    }
     set_capture_options(&mut graph, &args.capture)?;
     let mut opts = RunOptions {
         out_dir: args.out_dir.clone(),

@@ -35,6 +35,8 @@ pub enum Origin {
         file: PathBuf,
         line: usize,
     },
+    /// An `auto` value measured from the capture (what it rests on).
+    Measured(String),
 }
 
 impl std::fmt::Display for Origin {
@@ -45,6 +47,7 @@ impl std::fmt::Display for Origin {
             Origin::CommandLine => write!(f, "--set"),
             Origin::CompositeDefault { file, line } => write!(f, "composite default {}:{line}", file.display()),
             Origin::Parent { file, line } => write!(f, "composite use {}:{line}", file.display()),
+            Origin::Measured(how) => write!(f, "{how}"),
         }
     }
 }
@@ -208,6 +211,7 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
         k.origin = o.origin.clone();
         k.base = o.base.clone();
     }
+    settle_auto(&mut settings)?;
     for decl in &file.settings {
         if matches!(settings[&decl.name].value, RawValue::List(ref l) if l.is_empty()) {
             return Err(file
@@ -244,6 +248,31 @@ pub fn resolve(path: &Path, overrides: &Overrides, registry: &Registry) -> Resul
         blocks: b.blocks,
         wires: b.wires,
     })
+}
+
+/// Settings given as `auto` are measured from the start of the graph's
+/// capture (src/inspect/params.rs); the error names the first such setting.
+fn settle_auto(settings: &mut BTreeMap<String, KnobValue>) -> Result<(), GraphError> {
+    let given: Vec<(&str, &RawValue, &Path)> =
+        settings.values().map(|k| (k.name.as_str(), &k.value, k.base.as_path())).collect();
+    match crate::inspect::settle_auto(&given) {
+        Ok(found) => {
+            for (name, value, how) in found {
+                if let Some(k) = settings.get_mut(&name) {
+                    k.value = RawValue::Text(value);
+                    k.origin = Origin::Measured(how);
+                }
+            }
+            Ok(())
+        }
+        Err((name, message)) => {
+            let (file, line) = match &settings[&name].origin {
+                Origin::ParamsFile { file, line } | Origin::Default { file, line } => (file.clone(), *line),
+                _ => (PathBuf::from("--set"), 0),
+            };
+            Err(GraphError { file, line, column: 1, message, hint: None })
+        }
+    }
 }
 
 fn canonical(p: &Path) -> PathBuf {
