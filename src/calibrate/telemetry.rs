@@ -43,19 +43,17 @@ impl Pointing {
             })
         };
         let (az, el) = (col("az_deg")? + 1, col("el_deg")? + 1);
+        let mut reader = csv::ReaderBuilder::new()
+            .flexible(true)
+            .trim(csv::Trim::All)
+            .comment(Some(b'#'))
+            .from_reader(text.as_bytes());
         let mut rows = Vec::new();
-        let mut header_seen = false;
-        for (i, line) in text.lines().enumerate() {
-            let l = line.trim();
-            if l.is_empty() || l.starts_with('#') {
-                continue;
-            }
-            if !header_seen {
-                header_seen = true;
-                continue;
-            }
-            let f: Vec<f64> = l.split(',').map(|x| x.trim().parse::<f64>().unwrap_or(f64::NAN)).collect();
-            rows.push((i + 1, f[0], f[az], f[el]));
+        for record in reader.records() {
+            let record = record.map_err(|e| format!("{file}: not a readable CSV table: {e}"))?;
+            let line = record.position().map_or(0, |p| p.line() as usize);
+            let f = |c: usize| record.get(c).and_then(|x| x.parse::<f64>().ok()).unwrap_or(f64::NAN);
+            rows.push((line, f(0), f(az), f(el)));
         }
         let mut p = Pointing {
             rows,
