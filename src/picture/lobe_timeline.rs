@@ -53,7 +53,7 @@ const MAX_ROWS: usize = 16;
 /// Most notices marked; later ones are counted.
 const MAX_NOTICES: usize = 200;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     Ok(Box::new(LobeTimeline {
         params: p.clone(),
         span_s: None,

@@ -43,7 +43,7 @@ impl GateConfig {
     }
 
     fn samples(&self, name: &str, rate: f64, pri: Option<f64>) -> Result<f64, String> {
-        self.params.samples_at(name, rate, pri)
+        Ok(self.params.samples_at(name, rate, pri)?)
     }
 
     /// The switch source and the guard length in samples, for a stream at `rate`.

@@ -26,7 +26,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     Ok(Box::new(LobeGate {
         cfg: GateConfig::from_params(p)?,
         router: NoticeRouter::new(&ctx.name, 1),
