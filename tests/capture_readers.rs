@@ -160,7 +160,7 @@ fn params(pairs: &[(&str, &str)]) -> Params {
 }
 
 fn build(pairs: &[(&str, &str)]) -> Result<Box<dyn Block>, String> {
-    (SPEC.build)(&params(pairs), &Default::default())
+    (SPEC.build)(&params(pairs), &Default::default()).map_err(|e| e.to_string())
 }
 
 /// Chunks, notice texts and the final progress of a source run to its end.
@@ -295,16 +295,16 @@ fn unsupported_wav_formats_are_named() {
 
 #[test]
 fn roles_that_do_not_fit_list_the_channels() {
-    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "i,q,sync")]).err().unwrap();
+    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "i,q,sync")]).err().unwrap().to_string();
     assert!(
         e.contains("wave_i16_iq.wav") && e.contains("name 3 channel(s)") && e.contains("channel 1, channel 2"),
         "{e}"
     );
-    let e = build(&[("path", &good("kestrel_ci16")), ("roles", "i,q")]).err().unwrap();
+    let e = build(&[("path", &good("kestrel_ci16")), ("roles", "i,q")]).err().unwrap().to_string();
     assert!(e.contains("role 'i' for channel 1") && e.contains("channel 1 (complex), channel 2 (complex)"), "{e}");
-    let e = build(&[("path", &good("wave_i24_iqs.wav")), ("roles", "i,sync,sync")]).err().unwrap();
+    let e = build(&[("path", &good("wave_i24_iqs.wav")), ("roles", "i,sync,sync")]).err().unwrap().to_string();
     assert!(e.contains("channels 2 and 3"), "{e}");
-    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "q,sync")]).err().unwrap();
+    let e = build(&[("path", &good("wave_i16_iq.wav")), ("roles", "q,sync")]).err().unwrap().to_string();
     assert!(e.contains("no channel has role 'i'"), "{e}");
 }
 

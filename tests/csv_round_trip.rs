@@ -26,7 +26,7 @@ const LABELLER: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     Ok(Box::new(Labeller { rows: 0 }))
 }
 

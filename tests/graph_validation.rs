@@ -17,7 +17,7 @@ fn dir(name: &str) -> PathBuf {
 struct Nothing;
 impl Block for Nothing {}
 
-fn build_nothing(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build_nothing(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     Ok(Box::new(Nothing))
 }
 

@@ -125,14 +125,14 @@ proptest! {
             p.insert_declared(&spec, v);
             match p.samples_at("guard", rate, Some(pri)) {
                 Ok(n) => prop_assert!(n / rate <= 1.0 + 1e-12),
-                Err(e) => prop_assert!(e.contains("'guard'") && e.contains("out of range"), "{}", e),
+                Err(e) => prop_assert!(e.to_string().contains("'guard'") && e.to_string().contains("out of range"), "{}", e),
             }
         }
         if let Ok(v) = spec.parse(&RawValue::Text(format!("{} pulses", count / 1e4))) {
             p.insert_declared(&spec, v);
             match p.samples_at("guard", rate, Some(pri)) {
                 Ok(n) => prop_assert!(n / rate <= 1.0 + 1e-12),
-                Err(e) => prop_assert!(e.contains("'guard'"), "{}", e),
+                Err(e) => prop_assert!(e.to_string().contains("'guard'"), "{}", e),
             }
         }
         let d = distance_spec();
@@ -140,7 +140,7 @@ proptest! {
             p.insert_declared(&d, v);
             match p.bins_at("gate", rate) {
                 Ok(b) => prop_assert!(b * lobeflow::blocks::range_bin_m(rate) <= 1e6 * (1.0 + 1e-12)),
-                Err(e) => prop_assert!(e.contains("'gate'"), "{}", e),
+                Err(e) => prop_assert!(e.to_string().contains("'gate'"), "{}", e),
             }
         }
     }

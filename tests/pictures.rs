@@ -450,7 +450,7 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     assert!(err.message.contains("mark_every"), "{err}");
 
     let split = lobeflow::blocks::pictures::split_pair::SPEC;
-    let err = (split.build)(&params(&split, &[("pairs", "az=right"), ("path", &path)]), &ctx).err().unwrap();
+    let err = (split.build)(&params(&split, &[("pairs", "az=right"), ("path", &path)]), &ctx).err().unwrap().to_string();
     assert!(err.contains("pairs"), "{err}");
     // Non-finite estimates are counted as no signal, not drawn or panicked on.
     let angle = lobeflow::blocks::pictures::angle_plot::SPEC;

@@ -40,7 +40,7 @@ const DIGEST: BlockSpec = BlockSpec {
     ],
     build: build_digest,
 };
-fn build_digest(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build_digest(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     let f = OutputFile::create(std::path::Path::new(p.text("path")?)).map_err(|e| e.to_string())?;
     Ok(Box::new(Digest { file: Some(f), files: ctx.files.clone(), fail_at: p.int("fail_at")?, seen: 0 }))
 }

@@ -37,9 +37,12 @@
 //! if let Item::Samples(c) = item { assert_eq!(c.iq[0].re, 2.0); }
 //! ```
 
-use crate::item::{Item, ItemKind, Notice, Severity, Stamp};
+use crate::error::BuildError;
+use crate::facts::{Facts, StreamFacts};
+use crate::item::{Item, ItemKind, ItemType, Notice, Severity, Stamp};
 pub use crate::output_file::FileStager;
 use crate::param::{ParamSpec, Params};
+use crate::typed::OutputPort;
 use std::collections::BTreeMap;
 use std::fmt;
 use std::path::PathBuf;
@@ -71,6 +74,14 @@ impl fmt::Display for BlockError {
     }
 }
 
+impl std::error::Error for BlockError {}
+
+impl From<crate::error::ParamError> for BlockError {
+    fn from(e: crate::error::ParamError) -> Self {
+        BlockError::new(e.to_string())
+    }
+}
+
 impl From<String> for BlockError {
     fn from(s: String) -> Self {
         BlockError::new(s)
@@ -95,8 +106,10 @@ impl Outputs {
     pub fn new(ports: usize) -> Self {
         Outputs { items: Vec::new(), notices: Vec::new(), ports }
     }
-    /// Send `item` on output port `port` (in declaration order).
-    pub fn push(&mut self, port: usize, item: Item) {
+    /// Send `item` on output `port` (a handle from the block's
+    /// [`block_ports!`](crate::block_ports) declaration).
+    pub fn push(&mut self, port: impl OutputPort, item: Item) {
+        let port = port.port_index();
         debug_assert!(port < self.ports, "output port {port} not declared");
         self.items.push((port, item));
     }
@@ -131,8 +144,18 @@ impl Outputs {
     }
 }
 
-/// The block trait. See the module docs for an example.
+/// The engine's block trait, with ports by number. Write new blocks against
+/// [`crate::TypedBlock`] (named ports, typed settings); this trait is what
+/// the scheduler drives, and blocks written before the typed API still
+/// implement it directly.
 pub trait Block: Send {
+    /// Before any sample flows: the facts of each input, in; the facts of
+    /// the outputs, out (see [`crate::facts`]). The default hands the
+    /// inputs' facts on.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        Ok(facts.merged())
+    }
+
     /// Handle one input item that arrived on input port `port`.
     fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let _ = (port, item, out);
@@ -198,7 +221,7 @@ pub struct BuildContext {
 }
 
 /// Constructor of a block kind from its checked parameters.
-pub type BuildFn = fn(&Params, &BuildContext) -> Result<Box<dyn Block>, String>;
+pub type BuildFn = fn(&Params, &BuildContext) -> Result<Box<dyn Block>, BuildError>;
 
 /// Everything known about one block kind, declared once.
 #[derive(Clone, Copy, Debug)]
@@ -229,6 +252,8 @@ pub type DescribeFn = fn(&Params, &std::path::Path) -> Result<BlockSpec, String>
 pub struct Registry {
     kinds: BTreeMap<&'static str, BlockSpec>,
     described: BTreeMap<&'static str, DescribeFn>,
+    /// Item kinds defined outside the crate, from the ports of registered kinds.
+    item_types: BTreeMap<&'static str, &'static ItemType>,
 }
 
 impl Registry {
@@ -238,7 +263,16 @@ impl Registry {
     /// Add a kind; a later registration of the same name replaces it.
     pub fn register(&mut self, spec: BlockSpec) {
         self.described.remove(spec.kind);
+        for port in spec.inputs.iter().chain(spec.outputs) {
+            if let ItemKind::Extension(t) = port.kind {
+                self.item_types.insert(t.name, t);
+            }
+        }
         self.kinds.insert(spec.kind, spec);
+    }
+    /// The item kinds defined outside this crate that registered kinds carry.
+    pub fn item_types(&self) -> impl Iterator<Item = &'static ItemType> + '_ {
+        self.item_types.values().copied()
     }
     /// Add a kind whose instances are declared by `describe`; `spec` holds
     /// the parameters every instance has (those `describe` reads).

@@ -403,6 +403,8 @@ pub enum Item {
     Estimate(Box<AngleEstimate>),
     Row(TableRow),
     Notice(Notice),
+    /// An item of a kind defined outside this crate.
+    Extension(ExtensionItem),
 }
 
 const _: () = assert!(std::mem::size_of::<Item>() <= 128, "an item no longer moves inline");
@@ -417,6 +419,56 @@ pub enum ItemKind {
     Estimate,
     Row,
     Notice,
+    /// A kind defined outside this crate; ports of the same type connect.
+    Extension(&'static ItemType),
+}
+
+/// A kind of item defined by a block writer outside this crate: its name
+/// (shown by wiring errors and the catalog) and what it carries. Kinds are
+/// told apart by name, so declare each once as a `static`.
+#[derive(Clone, Copy, Debug)]
+pub struct ItemType {
+    pub name: &'static str,
+    pub doc: &'static str,
+}
+
+impl PartialEq for ItemType {
+    fn eq(&self, other: &Self) -> bool {
+        self.name == other.name
+    }
+}
+
+impl Eq for ItemType {}
+
+impl std::hash::Hash for ItemType {
+    fn hash<H: std::hash::Hasher>(&self, state: &mut H) {
+        self.name.hash(state);
+    }
+}
+
+/// An item of an [`ItemType`]: a stamp and a shared payload of the type the
+/// kind's writer chose. Cloning (fan-out to several blocks) shares the payload.
+#[derive(Clone, Debug)]
+pub struct ExtensionItem {
+    kind: &'static ItemType,
+    stamp: Stamp,
+    payload: Arc<dyn std::any::Any + Send + Sync>,
+}
+
+impl ExtensionItem {
+    pub fn new<T: std::any::Any + Send + Sync>(kind: &'static ItemType, stamp: Stamp, payload: T) -> Self {
+        ExtensionItem { kind, stamp, payload: Arc::new(payload) }
+    }
+    pub fn kind(&self) -> &'static ItemType {
+        self.kind
+    }
+    pub fn stamp(&self) -> Stamp {
+        self.stamp
+    }
+    /// The payload, when it is a `T`.
+    pub fn get<T: std::any::Any>(&self) -> Option<&T> {
+        self.payload.downcast_ref::<T>()
+    }
 }
 
 impl ItemKind {
@@ -429,6 +481,7 @@ impl ItemKind {
             ItemKind::Estimate => "angle estimates",
             ItemKind::Row => "table rows",
             ItemKind::Notice => "notices",
+            ItemKind::Extension(t) => t.name,
         }
     }
 }
@@ -443,6 +496,7 @@ impl Item {
             Item::Estimate(_) => ItemKind::Estimate,
             Item::Row(_) => ItemKind::Row,
             Item::Notice(_) => ItemKind::Notice,
+            Item::Extension(x) => ItemKind::Extension(x.kind),
         }
     }
 
@@ -456,6 +510,7 @@ impl Item {
             Item::Estimate(e) => e.stamp,
             Item::Row(r) => r.stamp,
             Item::Notice(n) => n.stamp,
+            Item::Extension(x) => x.stamp,
         }
     }
 

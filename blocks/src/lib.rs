@@ -18,6 +18,8 @@
 pub mod block;
 pub mod decimal;
 pub mod dsp;
+pub mod error;
+pub mod facts;
 pub mod item;
 pub mod kinds;
 pub mod limits;
@@ -26,14 +28,39 @@ pub mod param;
 #[cfg(feature = "pictures")]
 pub mod pictures;
 pub mod summary;
+pub mod typed;
 
 pub use block::{
     Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
 };
+pub use error::{BuildError, ParamError};
+pub use facts::{Channels, Facts, StreamFacts};
 pub use item::*;
 pub use limits::{MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
+pub use typed::{
+    Choice, DistanceSetting, FromParam, NoPorts, OutputPort, PortIndex, PortSet, Settings, TimeSetting, TypedBlock,
+};
+
+/// What a block writer needs, in one import: `use lobeflow_blocks::prelude::*;`.
+pub mod prelude {
+    pub use crate::block::{BlockError, BlockSpec, BuildContext, Outputs, Registry};
+    pub use crate::error::{BuildError, ParamError};
+    pub use crate::facts::{Channels, Facts, StreamFacts};
+    pub use crate::item::{
+        AngleEstimate, DwellRecord, ExtensionItem, Item, ItemKind, ItemType, LobeSegment, LobeTag, SampleChunk, Span,
+        Stamp, Sweep, TableRow,
+    };
+    pub use crate::param::{ParamType, Unit};
+    pub use crate::typed::{Choice, DistanceSetting, NoPorts, TimeSetting, TypedBlock};
+    pub use crate::{block_choice, block_ports, block_settings};
+}
+
+/// The contributor guide, whose block example is compiled as a doc test.
+#[cfg(doctest)]
+#[doc = include_str!("../../DEVELOPERS.md")]
+pub struct DevelopersGuide;
 
 /// A registry holding every standard block kind of this crate.
 pub fn standard_registry() -> Registry {

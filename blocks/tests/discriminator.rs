@@ -301,7 +301,7 @@ fn sign_flip_and_gain_offsets() {
     assert!((e.error_deg.unwrap() - 0.7).abs() < 1e-9);
     assert!((e.ratio_db - e0.ratio_db).abs() < 1e-9);
     for bad in ["middle=1", "right=loud", "right"] {
-        let err = build(&SPEC, &[("lobe_gain_db", bad)]).err().expect(bad);
+        let err = build(&SPEC, &[("lobe_gain_db", bad)]).err().expect(bad).to_string();
         assert!(err.contains("lobe_gain_db"), "{err}");
     }
 }
@@ -327,13 +327,13 @@ fn measured_pattern_table_and_its_errors() {
     let bad = dir.join("bad_pattern.csv");
     std::fs::write(&bad, "angle_deg,gain_db\n-2,-6\n-1,-1.5\n0,0\n1,-1.5 dB\n2,-6\n").unwrap();
     let bad_path = bad.to_str().unwrap();
-    let err = build(&SPEC, &[("beam", "table"), ("pattern", bad_path)]).err().unwrap();
+    let err = build(&SPEC, &[("beam", "table"), ("pattern", bad_path)]).err().unwrap().to_string();
     assert!(err.contains(bad_path) && err.contains("line 5"), "{err}");
     let missing = dir.join("none.csv");
-    let err = build(&SPEC, &[("beam", "table"), ("pattern", missing.to_str().unwrap())]).err().unwrap();
+    let err = build(&SPEC, &[("beam", "table"), ("pattern", missing.to_str().unwrap())]).err().unwrap().to_string();
     assert!(err.contains("none.csv"), "{err}");
-    assert!(build(&SPEC, &[("beam", "table")]).err().unwrap().contains("pattern"));
-    assert!(build(&SPEC, &[("pattern", path)]).err().unwrap().contains("not 'table'"));
+    assert!(build(&SPEC, &[("beam", "table")]).err().unwrap().to_string().contains("pattern"));
+    assert!(build(&SPEC, &[("pattern", path)]).err().unwrap().to_string().contains("not 'table'"));
     let _ = std::fs::remove_dir_all(&dir);
 }
 

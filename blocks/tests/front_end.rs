@@ -96,7 +96,7 @@ fn rect_echo_peaks_where_it_starts_and_bad_taps_are_reported() {
     let bad = dir.join("bad.csv");
     std::fs::write(&bad, "# a test code\n1,0\n0.5,oops\n").unwrap();
     let p = params(&matched_filter::SPEC, &[("code", "taps"), ("taps", bad.to_str().unwrap())]);
-    let err = (matched_filter::SPEC.build)(&p, &Default::default()).err().expect("bad line");
+    let err = (matched_filter::SPEC.build)(&p, &Default::default()).err().expect("bad line").to_string();
     assert!(err.contains("line 3") && err.contains("bad.csv"), "{err}");
     let _ = std::fs::remove_dir_all(&dir);
 }

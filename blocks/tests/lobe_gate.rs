@@ -328,5 +328,5 @@ fn schedule_guard_reaching_past_the_capture_start() {
     assert_eq!(r.labelled.iter().filter(|l| l.1 == 1).map(|l| l.0).next(), Some(13));
     let e =
         (lobe_gate::SPEC.build)(&params(&lobe_gate::SPEC, &[("timing", "schedule")]), &BuildContext::default()).err();
-    assert!(e.is_some_and(|e| e.contains("needs a 'dwell'")));
+    assert!(e.is_some_and(|e| e.to_string().contains("needs a 'dwell'")));
 }

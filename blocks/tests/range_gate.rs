@@ -219,7 +219,7 @@ fn short_and_unlabelled_sweeps_are_skipped_with_notices() {
 #[test]
 fn missing_gate_is_a_build_error() {
     let p = params(&SPEC, &[]);
-    let err = (SPEC.build)(&p, &Default::default()).err().expect("needs a gate");
+    let err = (SPEC.build)(&p, &Default::default()).err().expect("needs a gate").to_string();
     assert!(err.contains("gate_start"), "{err}");
 }
 

@@ -164,11 +164,11 @@ fn telemetry_gives_absolute_angles() {
     let h = axis_values(&out, "h");
     assert!(h.iter().all(|e| e.stamp.seconds() > 10.0 || e.absolute_deg == Some(7.0 + e.tracked_deg.unwrap())));
     // Errors name the file (and the line).
-    let err = build(&SPEC, &[("pointing", path), ("axis_columns", "az=azimuth")]).err().unwrap();
+    let err = build(&SPEC, &[("pointing", path), ("axis_columns", "az=azimuth")]).err().unwrap().to_string();
     assert!(err.contains(path) && err.contains("'azimuth'"), "{err}");
     let bad = dir.join("bad.csv");
     std::fs::write(&bad, "time_s,az_deg,el_deg\n0,1,2\n1,2\n").unwrap();
-    let err = build(&SPEC, &[("pointing", bad.to_str().unwrap())]).err().unwrap();
+    let err = build(&SPEC, &[("pointing", bad.to_str().unwrap())]).err().unwrap().to_string();
     assert!(err.contains("bad.csv line 3"), "{err}");
     assert!(build(&SPEC, &[("alpha", "1"), ("beta", "2")]).is_err());
     let _ = std::fs::remove_dir_all(&dir);

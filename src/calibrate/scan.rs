@@ -9,7 +9,8 @@ use crate::error::Error;
 use crate::graph::ResolvedGraph;
 use crate::runtime::{RunOptions, RunReport, Tap, run};
 use lobeflow_blocks::dsp::discriminator::{LobePair, parse_pairs};
-use lobeflow_blocks::{DwellRecord, Item};
+use lobeflow_blocks::kinds::ratio_discriminator::RatioDiscriminatorSettings;
+use lobeflow_blocks::{DwellRecord, Item, Settings};
 
 /// What calibration needs from the graph's discriminator.
 #[derive(Clone, Debug)]
@@ -44,16 +45,16 @@ impl Discriminator {
         })?;
         let from = &graph.blocks[wire.from.0];
         let dwell_port = format!("{}.{}", from.name, from.spec.outputs[wire.from.1].name);
-        let p = &block.params;
-        let bad = |e: String| Error::Usage(format!("block '{}': {e}", block.name));
+        let bad = |e: &dyn std::fmt::Display| Error::Usage(format!("block '{}': {e}", block.name));
+        let s = RatioDiscriminatorSettings::from_params(&block.params).map_err(|e| bad(&e))?;
         Ok(Discriminator {
             block: block.name.clone(),
-            pairs: parse_pairs(p.text("pairs").map_err(bad)?).map_err(bad)?,
-            way: if p.text("way").map_err(bad)? == "one" { 1 } else { 2 },
-            floor_db: p.num("floor").map_err(bad)?,
-            unbias: p.flag("unbias").map_err(bad)?,
-            beamwidth: p.num("beamwidth").map_err(bad)?,
-            squint: p.num("squint").map_err(bad)?,
+            pairs: parse_pairs(&s.pairs).map_err(|e| bad(&e))?,
+            way: s.way.passes(),
+            floor_db: s.floor,
+            unbias: s.unbias,
+            beamwidth: s.beamwidth,
+            squint: s.squint,
             dwell_port,
         })
     }

@@ -3,7 +3,7 @@
 //! the assembly of decoded frames into [`SampleChunk`]s.
 
 use super::reader::CaptureInfo;
-use lobeflow_blocks::{BlockError, BufferPool, SampleChunk, Span, Stamp};
+use lobeflow_blocks::{BlockError, BufferPool, Channels, SampleChunk, Span, Stamp};
 use num_complex::Complex32;
 use std::sync::Arc;
 
@@ -70,6 +70,13 @@ pub struct RoleMap {
     sync: Option<usize>,
     trigger: Option<usize>,
     stride: usize,
+}
+
+impl RoleMap {
+    /// The auxiliary channels the chunks carry.
+    pub fn channels(&self) -> Channels {
+        Channels { sync: self.sync.is_some(), trigger: self.trigger.is_some() }
+    }
 }
 
 /// The roles used when none are given, or None when the count needs them spelled out.

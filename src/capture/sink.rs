@@ -2,76 +2,112 @@
 //! WAV or SigMF capture, through the run's file stager.
 
 use super::sigmf_meta::Annotation;
-use super::write::{AuxRole, CaptureWriter, WRITE_FORMAT_NAMES, WriteFormat, WriterConfig};
+use super::write::{AuxRole, CaptureWriter, WriteFormat, WriterConfig};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
-    PortSpec, SampleChunk, Stamp,
+    BlockError, BlockSpec, BuildContext, BuildError, Choice, FileStager, Item, ItemKind, LobeSegment, NoPorts, Outputs,
+    ParamError, ParamType, SampleChunk, Stamp, TypedBlock, block_choice, block_ports, block_settings,
 };
 use serde_json::Map;
 use std::path::PathBuf;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "capture_writer",
-    doc: "Writes the samples it receives (a whole stream, or the lobe segments of one lobe) to a WAV or SigMF capture, \
-          in arrival order and without gaps; the sync and trigger channels are kept when the first item has them. \
-          The file appears only when the run succeeds.",
-    inputs: &[
-        PortSpec::optional("samples", ItemKind::Samples, "sample chunks to write"),
-        PortSpec::optional("segments", ItemKind::Segment, "lobe segments to write (filtered by `lobe`)"),
-    ],
-    outputs: &[],
-    params: &[
-        ParamSpec {
-            name: "path",
+pub const SPEC: BlockSpec = BlockSpec::typed::<CaptureSink>(
+    "capture_writer",
+    "Writes the samples it receives (a whole stream, or the lobe segments of one lobe) to a WAV or SigMF capture, \
+     in arrival order and without gaps; the sync and trigger channels are kept when the first item has them. \
+     The file appears only when the run succeeds.",
+);
+
+block_ports! {
+    inputs pub enum SinkIn {
+        Samples = optional("samples", ItemKind::Samples, "sample chunks to write"),
+        Segments = optional("segments", ItemKind::Segment, "lobe segments to write (filtered by `lobe`)"),
+    }
+}
+
+block_choice! {
+    /// The encodings a capture is written in.
+    pub enum CaptureFormat {
+        WavF32 = "wav_f32",
+        WavI16 = "wav_i16",
+        SigmfCf32 = "sigmf_cf32_le",
+        SigmfCi16 = "sigmf_ci16_le",
+        SigmfCu8 = "sigmf_cu8",
+    }
+}
+
+block_settings! {
+    /// Settings of `capture_writer`.
+    pub struct CaptureSinkSettings {
+        path: PathBuf {
             ty: ParamType::OutputPath,
             default: None,
             doc: "file to write (SigMF: the .sigmf-data path; the .sigmf-meta goes beside it)",
         },
-        ParamSpec {
-            name: "format",
-            ty: ParamType::Choice(WRITE_FORMAT_NAMES),
+        format: CaptureFormat {
+            ty: ParamType::Choice(CaptureFormat::WORDS),
             default: Some("sigmf_cf32_le"),
             doc: "encoding of the written capture",
         },
-        ParamSpec {
-            name: "lobe",
+        lobe: String {
             ty: ParamType::Text,
             default: Some(""),
             doc: "keep only segments of this lobe name (empty: all lobes)",
         },
-        ParamSpec {
-            name: "annotate_dwells",
+        annotate_dwells: bool {
             ty: ParamType::Bool,
             default: Some("false"),
             doc: "SigMF: one annotation per dwell, labelled with the lobe name",
         },
-    ],
-    build,
-};
+    }
+}
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let format = WriteFormat::parse(p.text("format")?)?;
-    let annotate = p.flag("annotate_dwells")?;
-    if annotate && !format.is_sigmf() {
-        return Err("annotate_dwells needs a SigMF format (WAV has no place for annotations)".into());
+impl TypedBlock for CaptureSink {
+    type Settings = CaptureSinkSettings;
+    type In = SinkIn;
+    type Out = NoPorts;
+
+    fn build(s: CaptureSinkSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        // The choice's words are the writer's format names.
+        let format = WriteFormat::parse(s.format.word()).map_err(|e| ParamError::invalid("format", e))?;
+        if s.annotate_dwells && !format.is_sigmf() {
+            return Err(ParamError::invalid(
+                "annotate_dwells",
+                "needs a SigMF format (WAV has no place for annotations)",
+            )
+            .into());
+        }
+        if s.path.as_os_str().is_empty() {
+            return Err(ParamError::invalid("path", "is empty").into());
+        }
+        Ok(CaptureSink {
+            path: s.path,
+            format,
+            lobe: s.lobe.trim().to_string(),
+            annotate: s.annotate_dwells,
+            files: ctx.files.clone(),
+            writer: None,
+            aux: Vec::new(),
+            open_dwell: None,
+            missing_aux_noticed: false,
+            extra_aux_noticed: false,
+            zeros: Vec::new(),
+        })
     }
-    let path = PathBuf::from(p.text("path")?);
-    if path.as_os_str().is_empty() {
-        return Err("parameter 'path' is empty".into());
+
+    fn process(&mut self, port: SinkIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (SinkIn::Samples, Item::Samples(chunk)) => {
+                self.close_dwell();
+                self.write_chunk(&chunk, out)
+            }
+            (SinkIn::Segments, Item::Segment(seg)) => self.write_segment(&seg, out),
+            (SinkIn::Samples | SinkIn::Segments, _) => Ok(()),
+        }
     }
-    Ok(Box::new(CaptureSink {
-        path,
-        format,
-        lobe: p.text("lobe")?.trim().to_string(),
-        annotate,
-        files: ctx.files.clone(),
-        writer: None,
-        aux: Vec::new(),
-        open_dwell: None,
-        missing_aux_noticed: false,
-        extra_aux_noticed: false,
-        zeros: Vec::new(),
-    }))
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.finish_file(out)
+    }
 }
 
 /// The dwell being written, for its annotation.
@@ -84,7 +120,7 @@ struct OpenDwell {
     source_start: u64,
 }
 
-struct CaptureSink {
+pub struct CaptureSink {
     path: PathBuf,
     format: WriteFormat,
     lobe: String,
@@ -179,37 +215,28 @@ impl CaptureSink {
     }
 }
 
-impl Block for CaptureSink {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        match item {
-            Item::Samples(chunk) => {
-                self.close_dwell();
-                self.write_chunk(&chunk, out)
-            }
-            Item::Segment(seg) => {
-                if !self.lobe.is_empty() && *seg.tag.name != *self.lobe {
-                    return Ok(());
-                }
-                if self.annotate && self.open_dwell.as_ref().is_none_or(|d| d.dwell != seg.tag.dwell) {
-                    self.close_dwell();
-                    self.open_dwell = Some(OpenDwell {
-                        dwell: seg.tag.dwell,
-                        lobe: seg.tag.name.to_string(),
-                        file_start: self.writer.as_ref().map_or(0, |w| w.frames()),
-                        source_start: seg.chunk.stamp.index,
-                    });
-                }
-                self.write_chunk(&seg.chunk, out)?;
-                if seg.dwell_end {
-                    self.close_dwell();
-                }
-                Ok(())
-            }
-            _ => Ok(()),
+impl CaptureSink {
+    fn write_segment(&mut self, seg: &LobeSegment, out: &mut Outputs) -> Result<(), BlockError> {
+        if !self.lobe.is_empty() && *seg.tag.name != *self.lobe {
+            return Ok(());
         }
+        if self.annotate && self.open_dwell.as_ref().is_none_or(|d| d.dwell != seg.tag.dwell) {
+            self.close_dwell();
+            self.open_dwell = Some(OpenDwell {
+                dwell: seg.tag.dwell,
+                lobe: seg.tag.name.to_string(),
+                file_start: self.writer.as_ref().map_or(0, |w| w.frames()),
+                source_start: seg.chunk.stamp.index,
+            });
+        }
+        self.write_chunk(&seg.chunk, out)?;
+        if seg.dwell_end {
+            self.close_dwell();
+        }
+        Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+    fn finish_file(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         self.close_dwell();
         match self.writer.take() {
             Some(w) => {
@@ -224,7 +251,7 @@ impl Block for CaptureSink {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::{LobeSegment, LobeTag, Value};
+    use lobeflow_blocks::{LobeTag, Params, Value};
     use num_complex::Complex32;
     use std::sync::Arc;
 
@@ -256,7 +283,7 @@ mod tests {
         let dir = std::env::temp_dir().join(format!("lobeflow-sink-unit-{}", std::process::id()));
         let path = dir.join("left.sigmf-data");
         let ctx = BuildContext::default();
-        let mut b = build(&params(&path, "sigmf_cf32_le", "left", true), &ctx).unwrap();
+        let mut b = (SPEC.build)(&params(&path, "sigmf_cf32_le", "left", true), &ctx).unwrap();
         let mut out = Outputs::new(0);
         b.process(1, segment("left", 0, 0, 10, 1000.0, false), &mut out).unwrap();
         b.process(1, segment("left", 0, 10, 5, 1000.0, true), &mut out).unwrap();
@@ -281,8 +308,10 @@ mod tests {
 
     #[test]
     fn annotations_need_sigmf() {
-        let e =
-            build(&params(std::path::Path::new("x.wav"), "wav_f32", "", true), &BuildContext::default()).err().unwrap();
+        let e = (SPEC.build)(&params(std::path::Path::new("x.wav"), "wav_f32", "", true), &BuildContext::default())
+            .err()
+            .unwrap()
+            .to_string();
         assert!(e.contains("SigMF"), "{e}");
     }
 }

@@ -5,8 +5,8 @@ use super::live::{LiveEnd, LiveMonitor, PushedInput};
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
 use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec, Stamp,
-    Unit,
+    Block, BlockError, BlockSpec, BuildContext, Facts, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec,
+    Stamp, StreamFacts, Unit,
 };
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -85,7 +85,7 @@ pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
     })
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     build_in_run(p, ctx, &RunHooks::default())
 }
 
@@ -100,7 +100,11 @@ pub struct RunHooks {
 
 /// Build a capture reader for a run: a pushed input when there is one, the
 /// path otherwise. A live input ends early when the run's `end_input` is raised.
-pub fn build_in_run(p: &Params, ctx: &BuildContext, hooks: &RunHooks) -> Result<Box<dyn Block>, String> {
+pub fn build_in_run(
+    p: &Params,
+    ctx: &BuildContext,
+    hooks: &RunHooks,
+) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
         Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
         None => open(p.text("path")?, &open_options(p)?).map_err(|e| e.to_string())?,
@@ -273,6 +277,16 @@ impl CaptureSource {
 }
 
 impl Block for CaptureSource {
+    /// The header read when the source was built gives the rate and channels.
+    fn start(&mut self, _: &Facts) -> Result<StreamFacts, BlockError> {
+        let rate = self.reader.info().rate;
+        Ok(StreamFacts {
+            rate: (rate.is_finite() && rate > 0.0).then_some(rate),
+            channels: Some(self.roles.channels()),
+            ..StreamFacts::default()
+        })
+    }
+
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
         if self.reader.as_live().is_some() {
             return self.generate_live(out);

@@ -28,6 +28,9 @@ pub fn kind_name(kind: ItemKind) -> &'static str {
         ItemKind::Estimate => "estimate",
         ItemKind::Row => "row",
         ItemKind::Notice => "notice",
+        // Never declared by a program (`kind_from_name` knows only the
+        // built-in kinds), so wiring keeps these items away from programs.
+        ItemKind::Extension(t) => t.name,
     }
 }
 
@@ -124,6 +127,8 @@ pub fn encode(port: &str, item: &Item, buf: &mut Vec<u8>) {
             head.insert("what".into(), json!(n.what));
             head.insert("severity".into(), json!(n.severity.name()));
         }
+        // Only the stamp travels: programs have no port of such a kind.
+        Item::Extension(_) => {}
     }
     if let Some((iq, sync, trigger)) = payload {
         head.insert("count".into(), json!(iq.len()));
@@ -389,6 +394,7 @@ pub fn build_item(
             }
             Item::Notice(notice)
         }
+        ItemKind::Extension(t) => return Err(format!("a program cannot send '{}' items", t.name)),
     })
 }
 

@@ -112,7 +112,7 @@ pub fn describe_instance(launch: &Params, graph_dir: &Path) -> Result<BlockSpec,
     describe::described_spec(&Launch::from_params(launch, graph_dir)?)
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     // The described spec made the folder's default the graph's folder, so
     // the launch is complete here; the description is remembered.
     let launch = Launch::from_params(p, Path::new("."))?;

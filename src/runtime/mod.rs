@@ -14,7 +14,8 @@ use crossbeam_channel::Sender;
 use futures::task::AtomicWaker;
 use lobeflow_blocks::summary::EstimateSummary;
 use lobeflow_blocks::{
-    Block, BlockError, BuildContext, DeliveryPolicy, FileStager, Item, Notice, Outputs, ParamType, Value,
+    BlockError, BuildContext, BuildError, DeliveryPolicy, Facts, FileStager, Item, ItemKind, NoPorts, Notice, Outputs,
+    ParamType, StreamFacts, TypedBlock, Value, typed,
 };
 pub use scheduler::BlockStats;
 use scheduler::{NodeSetup, ProgressFn, StopReason, run_nodes};
@@ -121,8 +122,23 @@ struct TapBlock {
     cancel: Arc<AtomicBool>,
 }
 
-impl Block for TapBlock {
-    fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+lobeflow_blocks::block_ports! {
+    /// A listener's one input; it takes whatever the port it listens to
+    /// carries (listeners are attached by the run, outside wiring checks).
+    inputs enum TapIn { Items = required("items", ItemKind::Samples, "the items of the port listened to") }
+}
+
+impl TypedBlock for TapBlock {
+    type Settings = ();
+    type In = TapIn;
+    type Out = NoPorts;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        Err(BuildError::Refused("a listener is attached by the run, not declared in a graph".into()))
+    }
+
+    fn process(&mut self, port: TapIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        let TapIn::Items = port;
         let sent = match &self.sender {
             Some(s) => s.send((self.index, item)).is_ok(),
             None => false,
@@ -222,13 +238,14 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
         setups[w.from.0].outputs[w.from.1].push(edges);
         edges += 1;
     }
+    start_blocks(graph, &mut setups)?;
     for tap in taps {
         let (bi, pi) = tap_place(graph, &tap.port)?;
         setups[bi].outputs[pi].push(edges);
         setups.push(NodeSetup {
             name: format!("listener:{}", tap.port),
             kind: "listener".into(),
-            block: Box::new(TapBlock {
+            block: typed::boxed(TapBlock {
                 sender: Some(tap.sender),
                 index: tap.index,
                 waker: tap.waker,
@@ -278,8 +295,11 @@ fn build_nodes(graph: &ResolvedGraph, opts: &RunOptions, files: &FileStager) -> 
         } else {
             (b.spec.build)(&params, &ctx)
         };
-        let block =
-            built.map_err(|message| Error::Block { block: b.name.clone(), kind: b.spec.kind.to_string(), message })?;
+        let block = built.map_err(|e| Error::Block {
+            block: b.name.clone(),
+            kind: b.spec.kind.to_string(),
+            message: e.to_string(),
+        })?;
         setups.push(NodeSetup {
             name: b.name.clone(),
             kind: b.spec.kind.to_string(),
@@ -289,6 +309,38 @@ fn build_nodes(graph: &ResolvedGraph, opts: &RunOptions, files: &FileStager) -> 
         });
     }
     Ok(setups)
+}
+
+/// Hand every block the facts of its inputs, sources first, so each learns
+/// the rate, pulse interval and lobes before any sample flows (and refuses a
+/// setting they make impossible, for `check` as for `run`).
+fn start_blocks(graph: &ResolvedGraph, setups: &mut [NodeSetup]) -> Result<(), Error> {
+    let n = graph.blocks.len();
+    let mut waiting: Vec<usize> = vec![0; n];
+    for w in &graph.wires {
+        waiting[w.to.0] += 1;
+    }
+    let mut ready: Vec<usize> = (0..n).rev().filter(|&b| waiting[b] == 0).collect();
+    let mut facts: Vec<Option<StreamFacts>> = vec![None; n];
+    while let Some(b) = ready.pop() {
+        let mut inputs = vec![StreamFacts::default(); graph.blocks[b].spec.inputs.len()];
+        for w in graph.wires.iter().filter(|w| w.to.0 == b) {
+            inputs[w.to.1] = facts[w.from.0].clone().unwrap_or_default();
+        }
+        let started = setups[b].block.start(&Facts::new(&inputs)).map_err(|e| Error::Block {
+            block: graph.blocks[b].name.clone(),
+            kind: graph.blocks[b].spec.kind.to_string(),
+            message: e.to_string(),
+        })?;
+        facts[b] = Some(started);
+        for w in graph.wires.iter().filter(|w| w.from.0 == b) {
+            waiting[w.to.0] -= 1;
+            if waiting[w.to.0] == 0 {
+                ready.push(w.to.0);
+            }
+        }
+    }
+    Ok(())
 }
 
 /// The (block, output port) a listener names: `block.port`, or `block` for its first output.

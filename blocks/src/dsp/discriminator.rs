@@ -74,25 +74,18 @@ pub fn parse_pairs(text: &str) -> Result<Vec<LobePair>, String> {
     Ok(pairs)
 }
 
-/// How the two amplitudes are combined before the beam model is inverted.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ErrorSignal {
-    /// `ln(A/B)`.
-    LogRatio,
-    /// `(A-B)/(A+B) = tanh(ln(A/B)/2)`, inverted through the model's own
-    /// difference-over-sum curve.
-    DiffSum,
+crate::block_choice! {
+    /// How the two amplitudes are combined before the beam model is inverted.
+    pub enum ErrorSignal {
+        /// `ln(A/B)`.
+        LogRatio = "log_ratio",
+        /// `(A-B)/(A+B) = tanh(ln(A/B)/2)`, inverted through the model's own
+        /// difference-over-sum curve.
+        DiffSum = "diff_sum",
+    }
 }
 
 impl ErrorSignal {
-    pub fn parse(name: &str) -> Result<ErrorSignal, String> {
-        match name {
-            "log_ratio" => Ok(ErrorSignal::LogRatio),
-            "diff_sum" => Ok(ErrorSignal::DiffSum),
-            other => Err(format!("unknown error signal '{other}' (log_ratio or diff_sum)")),
-        }
-    }
-
     /// The error signal of amplitudes `a` (plus lobe) and `b` (minus lobe).
     pub fn measure(&self, a: f64, b: f64) -> f64 {
         match self {

@@ -12,24 +12,17 @@
 //! likelihood of the forward pass's innovations. Every smoothed angle comes
 //! with its variance.
 
-/// The motion model of the smoothed angle.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Model {
-    /// Angle and rate; white acceleration of density `q` (deg^2/s^3).
-    ConstantVelocity,
-    /// Angle, rate and acceleration; white jerk of density `q` (deg^2/s^5).
-    ConstantAcceleration,
+crate::block_choice! {
+    /// The motion model of the smoothed angle.
+    pub enum Model {
+        /// Angle and rate; white acceleration of density `q` (deg^2/s^3).
+        ConstantVelocity = "constant_velocity",
+        /// Angle, rate and acceleration; white jerk of density `q` (deg^2/s^5).
+        ConstantAcceleration = "constant_acceleration",
+    }
 }
 
 impl Model {
-    pub const NAMES: &'static [&'static str] = &["constant_velocity", "constant_acceleration"];
-    pub fn from_name(s: &str) -> Option<Model> {
-        match s {
-            "constant_velocity" => Some(Model::ConstantVelocity),
-            "constant_acceleration" => Some(Model::ConstantAcceleration),
-            _ => None,
-        }
-    }
     fn dim(self) -> usize {
         match self {
             Model::ConstantVelocity => 2,

@@ -12,26 +12,12 @@ use rustfft::{Fft, FftPlanner};
 use std::f64::consts::PI;
 use std::sync::Arc;
 
-/// A data window for spectral estimates.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Window {
-    Rect,
-    Hann,
-    Blackman,
+crate::block_choice! {
+    /// A data window for spectral estimates.
+    pub enum Window { Rect = "rect", Hann = "hann", Blackman = "blackman" }
 }
 
 impl Window {
-    pub const NAMES: &'static [&'static str] = &["rect", "hann", "blackman"];
-
-    pub fn from_name(name: &str) -> Option<Window> {
-        match name {
-            "rect" => Some(Window::Rect),
-            "hann" => Some(Window::Hann),
-            "blackman" => Some(Window::Blackman),
-            _ => None,
-        }
-    }
-
     /// Coefficient `n` of an `m`-point symmetric window.
     pub fn coefficient(&self, n: usize, m: usize) -> f64 {
         if m <= 1 {

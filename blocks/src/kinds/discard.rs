@@ -1,27 +1,27 @@
 //! `discard`: swallows sample chunks, counting them. Ends a chain whose
 //! output is not needed (benchmarks, or a branch kept for its side files).
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::item::{Item, ItemKind};
-use crate::param::Params;
+use crate::block::{BlockSpec, BuildContext};
+use crate::error::BuildError;
+use crate::item::ItemKind;
+use crate::typed::{NoPorts, TypedBlock};
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "discard",
-    doc: "Swallows sample chunks (ends a chain whose output is not needed).",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "any sample chunks")],
-    outputs: &[],
-    params: &[],
-    build,
-};
+pub const SPEC: BlockSpec =
+    BlockSpec::typed::<Discard>("discard", "Swallows sample chunks (ends a chain whose output is not needed).");
 
-fn build(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(Discard))
+crate::block_ports! {
+    inputs pub enum DiscardIn { Samples = required("samples", ItemKind::Samples, "any sample chunks") }
 }
 
-struct Discard;
+pub struct Discard;
 
-impl Block for Discard {
-    fn process(&mut self, _port: usize, _item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
-        Ok(())
+/// Every item is dropped by the default `process`.
+impl TypedBlock for Discard {
+    type Settings = ();
+    type In = DiscardIn;
+    type Out = NoPorts;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(Discard)
     }
 }

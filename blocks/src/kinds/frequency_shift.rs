@@ -3,31 +3,39 @@
 //! 0 Hz. The phase is tied to the absolute sample index, so it is continuous
 //! across chunks and stays right across gaps.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
-use crate::item::{Item, ItemKind};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
+use crate::error::BuildError;
+use crate::item::{Item, ItemKind, SampleChunk};
+use crate::param::{ParamType, Unit};
+use crate::typed::TypedBlock;
 use num_complex::Complex32;
 use std::f64::consts::TAU;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "frequency_shift",
-    doc: "Shifts the spectrum by a set frequency (phase-continuous across chunks); aux channels pass unchanged.",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
-    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the shifted samples")],
-    params: &[ParamSpec {
-        name: "shift",
-        ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
-        default: None,
-        doc: "frequency added to every component (negative moves down)",
-    }],
-    build,
-};
+pub const SPEC: BlockSpec = BlockSpec::typed::<FrequencyShift>(
+    "frequency_shift",
+    "Shifts the spectrum by a set frequency (phase-continuous across chunks); aux channels pass unchanged.",
+);
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(FrequencyShift { shift: p.num("shift")?, phase: 0.0, next: None }))
+crate::block_settings! {
+    /// Settings of `frequency_shift`.
+    pub struct FrequencyShiftSettings {
+        shift: f64 {
+            ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
+            default: None,
+            doc: "frequency added to every component (negative moves down)",
+        },
+    }
 }
 
-struct FrequencyShift {
+crate::block_ports! {
+    inputs pub enum ShiftIn { Samples = required("samples", ItemKind::Samples, "baseband samples") }
+}
+
+crate::block_ports! {
+    outputs pub enum ShiftOut { Samples = optional("samples", ItemKind::Samples, "the shifted samples") }
+}
+
+pub struct FrequencyShift {
     shift: f64,
     /// Phase in radians, in [0, 2 pi), of the next expected sample.
     phase: f64,
@@ -35,11 +43,25 @@ struct FrequencyShift {
     next: Option<(u64, f64)>,
 }
 
-impl Block for FrequencyShift {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Samples(mut chunk) = item else {
-            return Ok(());
-        };
+impl TypedBlock for FrequencyShift {
+    type Settings = FrequencyShiftSettings;
+    type In = ShiftIn;
+    type Out = ShiftOut;
+
+    fn build(s: FrequencyShiftSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(FrequencyShift { shift: s.shift, phase: 0.0, next: None })
+    }
+
+    fn process(&mut self, port: ShiftIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (ShiftIn::Samples, Item::Samples(chunk)) => self.take(chunk, out),
+            (ShiftIn::Samples, _) => Ok(()),
+        }
+    }
+}
+
+impl FrequencyShift {
+    fn take(&mut self, mut chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
         let rate = chunk.stamp.checked_rate("frequency_shift")?;
         let cycles_per_sample = self.shift / rate;
         let step = TAU * cycles_per_sample;
@@ -68,7 +90,7 @@ impl Block for FrequencyShift {
         self.phase = phase;
         self.next = Some((chunk.stamp.index + chunk.len() as u64, rate));
         chunk.iq = y.into();
-        out.push(0, Item::Samples(chunk));
+        out.push(ShiftOut::Samples, Item::Samples(chunk));
         Ok(())
     }
 }

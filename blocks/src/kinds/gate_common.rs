@@ -399,7 +399,7 @@ impl GateConfig {
     }
 
     fn samples(&self, name: &str, rate: f64, pri: Option<f64>) -> Result<f64, String> {
-        self.params.samples_at(name, rate, pri)
+        Ok(self.params.samples_at(name, rate, pri)?)
     }
 
     /// Schedule timing: the cross-check of the schedule against the signal.

@@ -23,7 +23,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     let kind = SegmentCutter { dwell: 0, held: None, switches_seen: 0, segments_out: 0 };
     Ok(Box::new(SwitchGate::new(GateConfig::from_params(p)?, &ctx.name, kind)))
 }

@@ -5,57 +5,95 @@
 //! `m * factor`: its stamp index is `m` at `rate / factor`. Aux channels are
 //! decimated by picking the sample at `m * factor`.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::spectrum::lowpass_taps;
+use crate::error::{BuildError, ParamError};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, ItemKind, SampleChunk, Stamp};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::param::{ParamType, Unit};
+use crate::typed::TypedBlock;
 use num_complex::Complex32;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "lowpass_decimate",
-    doc: "Low-pass filters (windowed sinc) and keeps every factor-th sample; stamps count output samples at rate/factor, \
-          aux channels are picked at the kept samples.",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
-    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "filtered, decimated samples")],
-    params: &[
-        ParamSpec {
-            name: "cutoff",
+pub const SPEC: BlockSpec = BlockSpec::typed::<LowpassDecimate>(
+    "lowpass_decimate",
+    "Low-pass filters (windowed sinc) and keeps every factor-th sample; stamps count output samples at rate/factor, \
+     aux channels are picked at the kept samples.",
+);
+
+crate::block_settings! {
+    /// Settings of `lowpass_decimate`.
+    pub struct LowpassDecimateSettings {
+        cutoff: f64 {
             ty: ParamType::Number { unit: Unit::Hertz, min: 1e-6, max: 5e9 },
             default: None,
             doc: "-6 dB edge of the low-pass; keep it below half the output rate",
         },
-        ParamSpec {
-            name: "taps",
+        taps: usize {
             ty: ParamType::Integer { min: 3, max: 8191 },
             default: Some("63"),
             doc: "filter length (odd, so the delay is whole samples); transition about 5.5 rate/taps wide",
         },
-        ParamSpec {
-            name: "factor",
+        factor: u64 {
             ty: ParamType::Integer { min: 1, max: 4096 },
             default: Some("4"),
             doc: "keep every factor-th sample",
         },
-    ],
-    build,
-};
-
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let taps = p.int("taps")?;
-    if taps % 2 == 0 {
-        return Err(format!(
-            "lowpass_decimate: taps must be odd so the filter delay is whole samples (got {taps}; try {})",
-            taps + 1
-        ));
     }
-    Ok(Box::new(LowpassDecimate {
-        cutoff: p.num("cutoff")?,
-        taps: taps as usize,
-        factor: p.int("factor")?.max(1) as u64,
-        filter: Vec::new(),
-        run: None,
-        restarts: 0,
-    }))
+}
+
+crate::block_ports! {
+    inputs pub enum LowpassIn { Samples = required("samples", ItemKind::Samples, "baseband samples") }
+}
+
+crate::block_ports! {
+    outputs pub enum LowpassOut { Samples = optional("samples", ItemKind::Samples, "filtered, decimated samples") }
+}
+
+impl TypedBlock for LowpassDecimate {
+    type Settings = LowpassDecimateSettings;
+    type In = LowpassIn;
+    type Out = LowpassOut;
+
+    fn build(s: LowpassDecimateSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        if s.taps.is_multiple_of(2) {
+            return Err(ParamError::invalid(
+                "taps",
+                format!("must be odd so the filter delay is whole samples (got {}; try {})", s.taps, s.taps + 1),
+            )
+            .into());
+        }
+        Ok(LowpassDecimate {
+            cutoff: s.cutoff,
+            taps: s.taps,
+            factor: s.factor.max(1),
+            filter: Vec::new(),
+            run: None,
+            restarts: 0,
+        })
+    }
+
+    /// A known input rate checks the cutoff now; the output runs at rate/factor.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let mut facts = facts.merged();
+        if let Some(rate) = facts.rate {
+            self.check_cutoff(rate)?;
+            facts.rate = Some(rate / self.factor as f64);
+            facts.pri_samples = facts.pri_samples.map(|pri| pri / self.factor as f64);
+        }
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: LowpassIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let (LowpassIn::Samples, Item::Samples(chunk)) = (port, item) else {
+            return Ok(());
+        };
+        self.take(chunk, out)
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.close(out);
+        Ok(())
+    }
 }
 
 /// One contiguous stretch of input.
@@ -72,7 +110,7 @@ struct Run {
     next_in: i64,
 }
 
-struct LowpassDecimate {
+pub struct LowpassDecimate {
     cutoff: f64,
     taps: usize,
     factor: u64,
@@ -86,14 +124,19 @@ impl LowpassDecimate {
         (self.taps as i64 - 1) / 2
     }
 
-    fn open(&mut self, c: &SampleChunk, out: &mut Outputs) -> Result<Run, BlockError> {
-        let rate = c.stamp.checked_rate("lowpass_decimate")?;
+    fn check_cutoff(&self, rate: f64) -> Result<(), ParamError> {
         if self.cutoff >= rate / 2.0 {
-            return Err(BlockError::at(
-                format!("lowpass_decimate: cutoff {} Hz is not below half the input rate ({rate} S/s)", self.cutoff),
-                c.stamp.index,
+            return Err(ParamError::invalid(
+                "cutoff",
+                format!("{} Hz is not below half the input rate ({rate} S/s)", self.cutoff),
             ));
         }
+        Ok(())
+    }
+
+    fn open(&mut self, c: &SampleChunk, out: &mut Outputs) -> Result<Run, BlockError> {
+        let rate = c.stamp.checked_rate("lowpass_decimate")?;
+        self.check_cutoff(rate).map_err(|e| BlockError::at(e.to_string(), c.stamp.index))?;
         if self.filter.is_empty() || self.run.as_ref().is_some_and(|r| r.rate != rate) {
             self.filter = lowpass_taps(self.taps, self.cutoff / rate).into_iter().map(|t| t as f32).collect();
             if self.cutoff > rate / (2.0 * self.factor as f64) {
@@ -156,7 +199,7 @@ impl LowpassDecimate {
         run.buf_start += drop as i64;
         if !y.is_empty() {
             out.push(
-                0,
+                LowpassOut::Samples,
                 Item::Samples(SampleChunk {
                     stamp: Stamp::new(first_out as u64, run.rate / d as f64),
                     iq: y.into(),
@@ -181,11 +224,8 @@ impl LowpassDecimate {
     }
 }
 
-impl Block for LowpassDecimate {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Samples(chunk) = item else {
-            return Ok(());
-        };
+impl LowpassDecimate {
+    fn take(&mut self, chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
         if chunk.is_empty() {
             return Ok(());
         }
@@ -219,11 +259,6 @@ impl Block for LowpassDecimate {
             run.next_in += chunk.len() as i64;
         }
         self.drain(out);
-        Ok(())
-    }
-
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        self.close(out);
         Ok(())
     }
 }

@@ -54,7 +54,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     let code = p.text("code")?.to_string();
     let reference = if code == "taps" {
         let path = p.text("taps")?;

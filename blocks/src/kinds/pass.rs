@@ -1,28 +1,39 @@
 //! `pass`: hands every item on unchanged. A placeholder while re-wiring a
 //! chain, and the trivial block of the pass-through benchmark.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
+use crate::error::BuildError;
 use crate::item::{Item, ItemKind};
-use crate::param::Params;
+use crate::typed::TypedBlock;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "pass",
-    doc: "Hands every sample chunk on unchanged (a placeholder while re-wiring, and the benchmark's trivial block).",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "any sample chunks")],
-    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the same chunks")],
-    params: &[],
-    build,
-};
+pub const SPEC: BlockSpec = BlockSpec::typed::<Pass>(
+    "pass",
+    "Hands every sample chunk on unchanged (a placeholder while re-wiring, and the benchmark's trivial block).",
+);
 
-fn build(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    Ok(Box::new(Pass))
+crate::block_ports! {
+    inputs pub enum PassIn { Samples = required("samples", ItemKind::Samples, "any sample chunks") }
 }
 
-struct Pass;
+crate::block_ports! {
+    outputs pub enum PassOut { Samples = optional("samples", ItemKind::Samples, "the same chunks") }
+}
 
-impl Block for Pass {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        out.push(0, item);
+pub struct Pass;
+
+impl TypedBlock for Pass {
+    type Settings = ();
+    type In = PassIn;
+    type Out = PassOut;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(Pass)
+    }
+
+    fn process(&mut self, port: PassIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match port {
+            PassIn::Samples => out.push(PassOut::Samples, item),
+        }
         Ok(())
     }
 }

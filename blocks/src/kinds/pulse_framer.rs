@@ -2,87 +2,90 @@
 //! leakage in the IQ, or a known PRF) and cuts the stream into sweeps, one
 //! pulse repetition interval each, numbered, with missing pulses predicted.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::pulse_timing::{FLOOR_BLOCK, NoiseFloor};
+use crate::error::BuildError;
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, ItemKind, SampleChunk, Span, Stamp, Sweep};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::param::{ParamType, Unit};
+use crate::typed::{TimeSetting, TypedBlock};
 use num_complex::Complex32;
 use std::collections::VecDeque;
 use std::ops::Range;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "pulse_framer",
-    doc: "Finds transmit instants from a trigger channel, the transmit leakage in the IQ, or a known PRF, \
-          and hands on one sweep per pulse interval (leakage blanked); gaps over 1.5 PRI get predicted \
-          instants so pulse numbers stay right.",
-    inputs: &[PortSpec::required(
-        "samples",
-        ItemKind::Samples,
-        "capture chunks (with a trigger channel for trigger timing)",
-    )],
-    outputs: &[PortSpec::optional(
-        "sweeps",
-        ItemKind::Sweep,
-        "one sweep per pulse interval, from its transmit instant",
-    )],
-    params: &[
-        ParamSpec {
-            name: "timing",
-            ty: ParamType::Choice(&["trigger", "leakage", "schedule"]),
+pub const SPEC: BlockSpec = BlockSpec::typed::<PulseFramer>(
+    "pulse_framer",
+    "Finds transmit instants from a trigger channel, the transmit leakage in the IQ, or a known PRF, \
+     and hands on one sweep per pulse interval (leakage blanked); gaps over 1.5 PRI get predicted \
+     instants so pulse numbers stay right.",
+);
+
+crate::block_ports! {
+    inputs pub enum FramerIn {
+        Samples = required("samples", ItemKind::Samples, "capture chunks (with a trigger channel for trigger timing)"),
+    }
+}
+
+crate::block_ports! {
+    outputs pub enum FramerOut {
+        Sweeps = optional("sweeps", ItemKind::Sweep, "one sweep per pulse interval, from its transmit instant"),
+    }
+}
+
+crate::block_choice! {
+    /// Where transmit instants come from.
+    pub enum Timing { Trigger = "trigger", Leakage = "leakage", Schedule = "schedule" }
+}
+
+crate::block_choice! {
+    /// Which sample of the leakage pulse is the transmit instant.
+    pub enum LeakageInstant { Rise = "rise", Peak = "peak" }
+}
+
+crate::block_settings! {
+    /// Settings of `pulse_framer`.
+    pub struct PulseFramerSettings {
+        timing: Timing {
+            ty: ParamType::Choice(Timing::WORDS),
             default: Some("leakage"),
             doc: "where transmit instants come from",
         },
-        ParamSpec {
-            name: "prf",
+        prf: f64 {
             ty: ParamType::Number { unit: Unit::Hertz, min: 0.01, max: 1e8 },
             default: None,
             doc: "nominal pulse repetition frequency (hold-off, missing pulses, schedule)",
         },
-        ParamSpec {
-            name: "threshold",
+        threshold: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 0.99 },
             default: Some("0.5"),
             doc: "trigger: rising edge through this fraction of the trigger's maximum",
         },
-        ParamSpec {
-            name: "threshold_db",
+        threshold_db: f64 {
             ty: ParamType::Number { unit: Unit::Decibels, min: 1.0, max: 150.0 },
             default: Some("20 dB"),
             doc: "leakage: power this far above the running noise floor",
         },
-        ParamSpec {
-            name: "leakage_instant",
-            ty: ParamType::Choice(&["rise", "peak"]),
+        leakage_instant: LeakageInstant {
+            ty: ParamType::Choice(LeakageInstant::WORDS),
             default: Some("rise"),
             doc: "leakage: the transmit instant is the first sample within 3 dB of the top (rise), or the top itself (peak: for pulse-compressed leakage, whose correlation peak is the transmit instant)",
         },
-        ParamSpec {
-            name: "holdoff",
+        holdoff: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.05, max: 1.4 },
             default: Some("0.7"),
             doc: "no new instant within this fraction of a PRI after one",
         },
-        ParamSpec {
-            name: "offset",
+        offset: TimeSetting {
             ty: ParamType::Time { min_s: -3600.0, max_s: 3600.0, pulses: false },
             default: Some("0 s"),
             doc: "schedule: time of one transmit instant",
         },
-        ParamSpec {
-            name: "blank",
+        blank: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
             default: Some("1 us"),
             doc: "samples zeroed at the start of each sweep (transmit leakage)",
         },
-    ],
-    build,
-};
-
-#[derive(Clone, Copy, PartialEq)]
-enum Mode {
-    Trigger,
-    Leakage,
-    Schedule,
+    }
 }
 
 /// Pulse intervals searched for a first transmit instant before giving up.
@@ -90,45 +93,79 @@ const SEARCH_PRIS: f64 = 32.0;
 /// Missing-pulse notices shown before the rest are only counted.
 const MISSING_SHOWN: u64 = 8;
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let mode = match p.text("timing")? {
-        "trigger" => Mode::Trigger,
-        "schedule" => Mode::Schedule,
-        _ => Mode::Leakage,
-    };
-    Ok(Box::new(PulseFramer {
-        mode,
-        prf: p.num("prf")?,
-        threshold: p.num("threshold")? as f32,
-        power_ratio: 10f64.powf(p.num("threshold_db")? / 10.0),
-        leakage_peak: p.text("leakage_instant")? == "peak",
-        holdoff_frac: p.num("holdoff")?,
-        params: p.clone(),
-        setup: None,
-        warm_buf: Vec::new(),
-        warm_have: 0,
-        warmed: false,
-        trig_max: 0.0,
-        prev_above: true,
-        noise: NoiseFloor::default(),
-        last_real: None,
-        last: None,
-        found: Vec::new(),
-        open: None,
-        blanked_in_place: 0..0,
-        pulse: 0,
-        pending: VecDeque::new(),
-        missing_run: None,
-        missing_reports: 0,
-        missing_total: 0,
-        next_scheduled: None,
-        rise: None,
-        rise_spare: Vec::new(),
-        held: Vec::new(),
-        copies: Vec::new(),
-        seen: 0,
-        last_stamp: None,
-    }))
+impl TypedBlock for PulseFramer {
+    type Settings = PulseFramerSettings;
+    type In = FramerIn;
+    type Out = FramerOut;
+
+    fn build(s: PulseFramerSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(PulseFramer {
+            mode: s.timing,
+            prf: s.prf,
+            threshold: s.threshold as f32,
+            power_ratio: 10f64.powf(s.threshold_db / 10.0),
+            leakage_peak: s.leakage_instant == LeakageInstant::Peak,
+            holdoff_frac: s.holdoff,
+            blank: s.blank,
+            offset: s.offset,
+            planned: None,
+            setup: None,
+            warm_buf: Vec::new(),
+            warm_have: 0,
+            warmed: false,
+            trig_max: 0.0,
+            prev_above: true,
+            noise: NoiseFloor::default(),
+            last_real: None,
+            last: None,
+            found: Vec::new(),
+            open: None,
+            blanked_in_place: 0..0,
+            pulse: 0,
+            pending: VecDeque::new(),
+            missing_run: None,
+            missing_reports: 0,
+            missing_total: 0,
+            next_scheduled: None,
+            rise: None,
+            rise_spare: Vec::new(),
+            held: Vec::new(),
+            copies: Vec::new(),
+            seen: 0,
+            last_stamp: None,
+        })
+    }
+
+    /// The pulse interval follows from the rate and `prf`; the sweeps carry it on.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let mut facts = facts.merged();
+        if self.mode == Timing::Trigger && facts.channels.is_some_and(|c| !c.trigger) {
+            return Err(BlockError::new(
+                "parameter 'timing' is 'trigger' but the capture has no trigger channel; map one, or use timing: leakage",
+            ));
+        }
+        if let Some(rate) = facts.rate {
+            let plan = self.plan(rate)?;
+            facts.pri_samples = Some(plan.pri);
+            self.planned = Some(plan);
+        }
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: FramerIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = match (port, item) {
+            (FramerIn::Samples, Item::Samples(chunk)) => self.take(chunk, out),
+            (FramerIn::Samples, _) => Ok(()),
+        };
+        self.release_held(out);
+        result
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let result = self.flush(out);
+        self.release_held(out);
+        result
+    }
 }
 
 /// Longest leading edge followed, samples.
@@ -167,8 +204,10 @@ impl Rise {
     }
 }
 
-/// Stream-dependent settings, fixed at the first chunk.
-struct Setup {
+/// The settings in samples at one rate, worked out before the stream
+/// starts when its rate is known.
+#[derive(Clone, Copy)]
+struct Plan {
     rate: f64,
     pri: f64,
     holdoff: u64,
@@ -178,19 +217,32 @@ struct Setup {
     offset: f64,
     /// Samples before detection starts, to measure the trigger maximum or noise floor.
     warm: u64,
+}
+
+/// Stream-dependent settings, fixed at the first chunk.
+struct Setup {
+    rate: f64,
+    pri: f64,
+    holdoff: u64,
+    gap: u64,
+    blank: usize,
+    offset: f64,
+    warm: u64,
     start: u64,
     give_up: u64,
 }
 
-struct PulseFramer {
-    mode: Mode,
+pub struct PulseFramer {
+    mode: Timing,
     prf: f64,
     threshold: f32,
     power_ratio: f64,
     /// Transmit instant at the leakage's top instead of its rise.
     leakage_peak: bool,
     holdoff_frac: f64,
-    params: Params,
+    blank: TimeSetting,
+    offset: TimeSetting,
+    planned: Option<Plan>,
     setup: Option<Setup>,
     warm_buf: Vec<SampleChunk>,
     warm_have: u64,
@@ -229,8 +281,7 @@ struct PulseFramer {
 }
 
 impl PulseFramer {
-    fn set_up(&mut self, first: Stamp) -> Result<(), BlockError> {
-        let rate = first.rate;
+    fn plan(&self, rate: f64) -> Result<Plan, BlockError> {
         let pri = rate / self.prf;
         if pri.is_nan() || pri < 2.0 {
             return Err(BlockError::new(format!(
@@ -246,16 +297,33 @@ impl PulseFramer {
         )
         .map_err(BlockError::new)?;
         let warm = match self.mode {
-            Mode::Schedule => 0,
-            _ => ((2.5 * pri).ceil() as u64).max(4 * FLOOR_BLOCK as u64),
+            Timing::Schedule => 0,
+            Timing::Trigger | Timing::Leakage => ((2.5 * pri).ceil() as u64).max(4 * FLOOR_BLOCK as u64),
         };
-        self.setup = Some(Setup {
+        Ok(Plan {
             rate,
             pri,
             holdoff: (self.holdoff_frac * pri).round().max(1.0) as u64,
             gap: (1.5 * pri).floor() as u64,
-            blank: self.params.samples_at("blank", rate, None)?.round().max(0.0) as usize,
-            offset: self.params.samples_at("offset", rate, None)?,
+            blank: self.blank.samples(rate, None)?.round().max(0.0) as usize,
+            offset: self.offset.samples(rate, None)?,
+            warm,
+        })
+    }
+
+    fn set_up(&mut self, first: Stamp) -> Result<(), BlockError> {
+        let plan = match self.planned {
+            Some(plan) if plan.rate == first.rate => plan,
+            _ => self.plan(first.rate)?,
+        };
+        let Plan { rate, pri, holdoff, gap, blank, offset, warm } = plan;
+        self.setup = Some(Setup {
+            rate,
+            pri,
+            holdoff,
+            gap,
+            blank,
+            offset,
             warm,
             start: first.index,
             give_up: first.index + warm + (SEARCH_PRIS * pri).ceil() as u64,
@@ -272,15 +340,15 @@ impl PulseFramer {
         for chunk in &self.warm_buf {
             let n = (warm_end.saturating_sub(chunk.stamp.index) as usize).min(chunk.len());
             match self.mode {
-                Mode::Trigger => {
+                Timing::Trigger => {
                     if let Some(t) = &chunk.trigger {
                         self.trig_max = t[..n].iter().copied().filter(|v| v.is_finite()).fold(self.trig_max, f32::max);
                     }
                 }
-                Mode::Leakage => chunk.iq[..n].iter().for_each(|x| {
+                Timing::Leakage => chunk.iq[..n].iter().for_each(|x| {
                     self.noise.push(x.norm_sqr());
                 }),
-                Mode::Schedule => {}
+                Timing::Schedule => {}
             }
         }
         self.warmed = true;
@@ -297,7 +365,7 @@ impl PulseFramer {
         let (start, len) = (chunk.stamp.index, chunk.len());
         let (warm_end, holdoff, gap, pri, give_up) = (s.start + s.warm, s.holdoff, s.gap, s.pri, s.give_up);
         let trigger = match (self.mode, &chunk.trigger) {
-            (Mode::Trigger, None) => {
+            (Timing::Trigger, None) => {
                 return Err(BlockError::at(
                     "timing is 'trigger' but the capture has no trigger channel; map one, or use timing: leakage",
                     start,
@@ -311,10 +379,10 @@ impl PulseFramer {
             }
             (_, t) => t.clone(),
         };
-        if self.mode == Mode::Schedule {
+        if self.mode == Timing::Schedule {
             self.scan_schedule(start, len, out);
         } else {
-            let by_trigger = self.mode == Mode::Trigger && trigger.is_some();
+            let by_trigger = self.mode == Timing::Trigger && trigger.is_some();
             // The leakage threshold changes only when the noise floor does.
             let mut leak_limit = self.leak_limit();
             let mut next = 0;
@@ -372,7 +440,7 @@ impl PulseFramer {
                     self.instant(at, false, out);
                 }
                 if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
-                    if self.mode == Mode::Leakage {
+                    if self.mode == Timing::Leakage {
                         let buf = std::mem::take(&mut self.rise_spare);
                         self.rise = Some(Rise::new(buf, n, chunk.iq[k].norm_sqr()));
                     } else {
@@ -405,8 +473,10 @@ impl PulseFramer {
 
     fn not_found(&self, end: u64) -> BlockError {
         let hint = match self.mode {
-            Mode::Trigger => "is the trigger channel mapped, and is 'threshold' right?",
-            _ => "is 'threshold_db' above the leakage, or is there no leakage in this capture (try timing: schedule)?",
+            Timing::Trigger => "is the trigger channel mapped, and is 'threshold' right?",
+            Timing::Leakage | Timing::Schedule => {
+                "is 'threshold_db' above the leakage, or is there no leakage in this capture (try timing: schedule)?"
+            }
         };
         let from = self.setup.as_ref().map_or(0, |s| s.start);
         BlockError::at(format!("no transmit instants found in the first {} samples; {hint}", end - from), from)
@@ -572,7 +642,7 @@ impl PulseFramer {
                 HeldIq::Copied(r) => copies.get_or_insert_with(|| Span::new(std::mem::take(&mut self.copies))).slice(r),
             };
             out.push(
-                0,
+                FramerOut::Sweeps,
                 Item::Sweep(Sweep {
                     stamp: Stamp::new(h.from, rate),
                     pulse: h.pulse,
@@ -613,25 +683,8 @@ struct HeldSweep {
     predicted: bool,
 }
 
-impl Block for PulseFramer {
-    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let result = self.take(port, item, out);
-        self.release_held(out);
-        result
-    }
-
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        let result = self.flush(out);
-        self.release_held(out);
-        result
-    }
-}
-
 impl PulseFramer {
-    fn take(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Samples(chunk) = item else {
-            return Ok(());
-        };
+    fn take(&mut self, chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
         if chunk.is_empty() {
             return Ok(());
         }
@@ -666,7 +719,7 @@ impl PulseFramer {
         match self.open {
             Some(open) if end.index > open.at => self.emit(open, end.index),
             Some(_) => {}
-            None if self.mode != Mode::Schedule && self.seen > 0 => {
+            None if self.mode != Timing::Schedule && self.seen > 0 => {
                 return Err(self.not_found(end.index));
             }
             None => {}

@@ -114,7 +114,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     let acquire = p.flag("acquire")?;
     let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
     let integration = Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;

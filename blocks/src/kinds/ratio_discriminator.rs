@@ -2,109 +2,217 @@
 //! amplitude ratio into an angle error in degrees through a beam model
 //! (docs/derivations.md §3-4).
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::beam::{Beam, BeamShape, PairModel, parse_pattern_csv};
 use crate::dsp::discriminator::{ErrorSignal, LobePair, parse_key_values, parse_pairs, read_pair};
+use crate::error::{BuildError, ParamError};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{AngleEstimate, DwellRecord, Flag, Item, ItemKind, Severity, Stamp};
-use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
+use crate::param::{ParamType, Unit, Value};
+use crate::typed::{TimeSetting, TypedBlock};
 use std::collections::BTreeSet;
+use std::path::PathBuf;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "ratio_discriminator",
-    doc: "Pairs each lobe dwell with the nearest unused dwell of its opposite lobe and turns the amplitude \
-          ratio into an angle error (degrees) through a beam model, with its expected spread and a flag \
-          for missing signal or ratios outside the model's monotonic region.",
-    inputs: &[PortSpec::required("dwells", ItemKind::Dwell, "integrated lobe dwells")],
-    outputs: &[PortSpec::optional("estimates", ItemKind::Estimate, "one angle estimate per paired dwells")],
-    params: &[
-        ParamSpec {
-            name: "pairs",
+pub const SPEC: BlockSpec = BlockSpec::typed::<RatioDiscriminator>(
+    "ratio_discriminator",
+    "Pairs each lobe dwell with the nearest unused dwell of its opposite lobe and turns the amplitude \
+     ratio into an angle error (degrees) through a beam model, with its expected spread and a flag \
+     for missing signal or ratios outside the model's monotonic region.",
+);
+
+crate::block_ports! {
+    inputs pub enum DiscriminatorIn { Dwells = required("dwells", ItemKind::Dwell, "integrated lobe dwells") }
+}
+
+crate::block_ports! {
+    outputs pub enum DiscriminatorOut {
+        Estimates = optional("estimates", ItemKind::Estimate, "one angle estimate per paired dwells"),
+    }
+}
+
+crate::block_choice! {
+    /// The lobe pattern model.
+    pub enum BeamModel { Gaussian = "gaussian", Uniform = "uniform", Cosine = "cosine", Table = "table" }
+}
+
+crate::block_choice! {
+    /// Whether a lobe shapes the echo once (receive only) or twice.
+    pub enum Way { One = "one", Two = "two" }
+}
+
+impl Way {
+    /// How many times the lobe's pattern shapes the echo.
+    pub fn passes(self) -> u32 {
+        match self {
+            Way::One => 1,
+            Way::Two => 2,
+        }
+    }
+}
+
+crate::block_settings! {
+    /// Settings of `ratio_discriminator`.
+    pub struct RatioDiscriminatorSettings {
+        pairs: String {
             ty: ParamType::LobePairs,
             default: Some("az=right/left, el=up/down"),
             doc: "axis=plus/minus lobe names; the plus lobe sits at +squint; a leading - flips the sign",
         },
-        ParamSpec {
-            name: "lobe_gain_db",
+        lobe_gain_db: String {
             ty: ParamType::LobeGains,
             default: Some(""),
             doc: "per-lobe path gain to remove, e.g. right=0.4, left=-0.2 (dB)",
         },
-        ParamSpec {
-            name: "signal",
-            ty: ParamType::Choice(&["log_ratio", "diff_sum"]),
+        signal: ErrorSignal {
+            ty: ParamType::Choice(ErrorSignal::WORDS),
             default: Some("log_ratio"),
             doc: "error signal: ln(A/B) or (A-B)/(A+B); either is inverted through the beam model",
         },
-        ParamSpec {
-            name: "beam",
-            ty: ParamType::Choice(&["gaussian", "uniform", "cosine", "table"]),
+        beam: BeamModel {
+            ty: ParamType::Choice(BeamModel::WORDS),
             default: Some("gaussian"),
             doc: "lobe pattern model (table: measured pattern from the pattern file)",
         },
-        ParamSpec {
-            name: "beamwidth",
+        beamwidth: f64 {
             ty: ParamType::Number { unit: Unit::Degrees, min: 0.01, max: 179.0 },
             default: Some("6 deg"),
             doc: "one-way 3 dB beamwidth of one lobe (ignored for table)",
         },
-        ParamSpec {
-            name: "squint",
+        squint: f64 {
             ty: ParamType::Number { unit: Unit::Degrees, min: 0.001, max: 89.0 },
             default: Some("2.4 deg"),
             doc: "angle of each lobe's axis from boresight",
         },
-        ParamSpec {
-            name: "way",
-            ty: ParamType::Choice(&["one", "two"]),
+        way: Way {
+            ty: ParamType::Choice(Way::WORDS),
             default: Some("two"),
             doc: "two: the lobe transmits and receives (pattern squared); one: receive only",
         },
-        ParamSpec {
-            name: "pattern",
+        pattern: PathBuf {
             ty: ParamType::InputPath,
             default: Some(""),
             doc: "CSV of angle_deg,gain_db from the lobe's own axis (beam: table only)",
         },
-        ParamSpec {
-            name: "max_gap",
+        max_gap: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: f64::INFINITY, pulses: false },
             default: Some("0 s"),
             doc: "pair only dwells whose mid times differ by at most this (0: no limit)",
         },
-        ParamSpec {
-            name: "floor",
+        floor: f64 {
             ty: ParamType::Number { unit: Unit::Decibels, min: -120.0, max: -1.0 },
             default: Some("-20 dB"),
             doc: "usable region ends where the far lobe's one-way gain falls to this (its echo sinks into the noise, its nulls make the ratio ambiguous)",
         },
-        ParamSpec {
-            name: "edge_sigmas",
+        edge_sigmas: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 10.0 },
             default: Some("2"),
             doc: "flag out of range a ratio within this many of its own sigmas of the region's edge (0: only past the edge)",
         },
-        ParamSpec {
-            name: "min_snr",
+        min_snr: f64 {
             ty: ParamType::Number { unit: Unit::Decibels, min: -100.0, max: 100.0 },
             default: Some("0 dB"),
             doc: "weaker dwell's energy over noise below which a pair gives no number (flag no_signal)",
         },
-        ParamSpec {
-            name: "unbias",
+        unbias: bool {
             ty: ParamType::Bool,
             default: Some("true"),
             doc: "remove the second-order bias of ln(amplitude) (it reads low by its own variance) before the ratio",
         },
-    ],
-    build,
-};
+    }
+}
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let pairs = parse_pairs(p.text("pairs")?)?;
+impl TypedBlock for RatioDiscriminator {
+    type Settings = RatioDiscriminatorSettings;
+    type In = DiscriminatorIn;
+    type Out = DiscriminatorOut;
+
+    fn build(s: RatioDiscriminatorSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        let pairs = parse_pairs(&s.pairs).map_err(|e| ParamError::invalid("pairs", e))?;
+        let gains = lobe_gains(&s.lobe_gain_db, &pairs)?;
+        let model = pair_model(&s)?.with_floor(s.floor);
+        let max_gap = match s.max_gap.value() {
+            Value::Samples(n) => Gap::Samples(*n),
+            Value::Seconds(x) | Value::Number(x) => Gap::Seconds(*x),
+            other => {
+                return Err(ParamError::WrongType {
+                    name: "max_gap".into(),
+                    value: other.to_string(),
+                    expected: "a time",
+                }
+                .into());
+            }
+        };
+        let slots = pairs
+            .into_iter()
+            .map(|pair| {
+                let gain_of = |lobe: &str| gains.iter().find(|(l, _)| l == lobe).map_or(1.0, |g| g.1);
+                PairSlot {
+                    plus_gain: gain_of(&pair.plus),
+                    minus_gain: gain_of(&pair.minus),
+                    pair,
+                    waiting: None,
+                    seen: [false, false],
+                }
+            })
+            .collect();
+        Ok(RatioDiscriminator {
+            slots,
+            model,
+            signal: s.signal,
+            max_gap,
+            edge_sigmas: s.edge_sigmas,
+            min_snr_db: s.min_snr,
+            unbias: s.unbias,
+            unknown_lobes: BTreeSet::new(),
+            unpaired: 0,
+            last_stamp: None,
+        })
+    }
+
+    /// With the lobes known, every lobe of a pair must be one of them.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let facts = facts.merged();
+        if let Some(lobes) = &facts.lobes {
+            for slot in &self.slots {
+                for lobe in [&slot.pair.plus, &slot.pair.minus] {
+                    if !lobes.iter().any(|l| **l == **lobe) {
+                        let known: Vec<&str> = lobes.iter().map(|l| &**l).collect();
+                        return Err(ParamError::invalid(
+                            "pairs",
+                            format!(
+                                "lobe '{lobe}' of pair '{}' is not a lobe of the stream ({})",
+                                slot.pair.axis,
+                                known.join(", ")
+                            ),
+                        )
+                        .into());
+                    }
+                }
+            }
+        }
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: DiscriminatorIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (DiscriminatorIn::Dwells, Item::Dwell(dwell)) => self.take(dwell, out),
+            (DiscriminatorIn::Dwells, _) => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.report_unpaired(out);
+        Ok(())
+    }
+}
+
+/// The per-lobe gains of `lobe_gain_db`, as amplitude factors.
+fn lobe_gains(text: &str, pairs: &[LobePair]) -> Result<Vec<(String, f64)>, ParamError> {
+    let invalid = |why: String| ParamError::invalid("lobe_gain_db", why);
     let mut gains = Vec::new();
-    for (lobe, text) in parse_key_values(p.text("lobe_gain_db")?, "lobe_gain_db")? {
+    for (lobe, text) in parse_key_values(text, "lobe_gain_db").map_err(invalid)? {
         if !pairs.iter().any(|pr| pr.plus == lobe || pr.minus == lobe) {
-            return Err(format!("lobe_gain_db: lobe '{lobe}' is not in any pair of 'pairs'"));
+            return Err(invalid(format!("lobe '{lobe}' is not in any pair of 'pairs'")));
         }
         let db: f64 = text
             .trim_end_matches("dB")
@@ -112,68 +220,42 @@ fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
             .parse()
             .ok()
             .filter(|g: &f64| g.is_finite())
-            .ok_or_else(|| format!("lobe_gain_db: '{lobe}={text}' is not a gain in dB"))?;
+            .ok_or_else(|| invalid(format!("'{lobe}={text}' is not a gain in dB")))?;
         gains.push((lobe, 10f64.powf(db / 20.0)));
     }
-    let model = pair_model(p)?.with_floor(p.num("floor")?);
-    let signal = ErrorSignal::parse(p.text("signal")?)?;
-    let max_gap = match p.get("max_gap") {
-        Some(Value::Seconds(s)) => Gap::Seconds(*s),
-        Some(Value::Samples(n)) => Gap::Samples(*n),
-        _ => Gap::Seconds(p.num("max_gap")?),
-    };
-    let slots = pairs
-        .into_iter()
-        .map(|pair| {
-            let gain_of = |lobe: &str| gains.iter().find(|(l, _)| l == lobe).map_or(1.0, |g| g.1);
-            PairSlot {
-                plus_gain: gain_of(&pair.plus),
-                minus_gain: gain_of(&pair.minus),
-                pair,
-                waiting: None,
-                seen: [false, false],
-            }
-        })
-        .collect();
-    Ok(Box::new(RatioDiscriminator {
-        slots,
-        model,
-        signal,
-        max_gap,
-        edge_sigmas: p.num("edge_sigmas")?,
-        min_snr_db: p.num("min_snr")?,
-        unbias: p.flag("unbias")?,
-        unknown_lobes: BTreeSet::new(),
-        unpaired: 0,
-        last_stamp: None,
-    }))
+    Ok(gains)
 }
 
 /// The beam model of every pair, from `beam`, `beamwidth`, `squint`, `way`, `pattern`.
-fn pair_model(p: &Params) -> Result<PairModel, String> {
-    let pattern = p.text("pattern")?.trim();
-    let shape = match p.text("beam")? {
-        "gaussian" => BeamShape::Gaussian,
-        "uniform" => BeamShape::Uniform,
-        "cosine" => BeamShape::Cosine,
-        "table" => {
-            if pattern.is_empty() {
-                return Err("beam 'table' needs a pattern file (parameter 'pattern')".into());
+fn pair_model(s: &RatioDiscriminatorSettings) -> Result<PairModel, BuildError> {
+    let pattern = &s.pattern;
+    let set = !pattern.as_os_str().is_empty();
+    let shape = match s.beam {
+        BeamModel::Gaussian => BeamShape::Gaussian,
+        BeamModel::Uniform => BeamShape::Uniform,
+        BeamModel::Cosine => BeamShape::Cosine,
+        BeamModel::Table => {
+            if !set {
+                return Err(ParamError::invalid("beam", "'table' needs a pattern file (parameter 'pattern')").into());
             }
-            let text =
-                std::fs::read_to_string(pattern).map_err(|e| format!("cannot read pattern file {pattern}: {e}"))?;
-            BeamShape::Table(parse_pattern_csv(&text).map_err(|e| format!("pattern file {pattern}: {e}"))?)
+            let text = std::fs::read_to_string(pattern)
+                .map_err(|e| BuildError::failed(format!("cannot read pattern file {}", pattern.display()), e))?;
+            BeamShape::Table(
+                parse_pattern_csv(&text)
+                    .map_err(|e| BuildError::failed(format!("pattern file {}", pattern.display()), e))?,
+            )
         }
-        other => return Err(format!("unknown beam model '{other}'")),
     };
-    if !pattern.is_empty() && !matches!(shape, BeamShape::Table(_)) {
-        return Err(format!("parameter 'pattern' is set ({pattern}) but beam is not 'table'"));
+    if set && s.beam != BeamModel::Table {
+        return Err(
+            ParamError::invalid("pattern", format!("is set ({}) but beam is not 'table'", pattern.display())).into()
+        );
     }
-    let from_table = matches!(shape, BeamShape::Table(_));
-    let beam = Beam::new(shape, p.num("beamwidth")?)
-        .map_err(|e| if from_table { format!("pattern file {pattern}: {e}") } else { e })?;
-    let way = if p.text("way")? == "one" { 1 } else { 2 };
-    PairModel::new(beam, p.num("squint")?, way)
+    let beam = Beam::new(shape, s.beamwidth).map_err(|e| match s.beam {
+        BeamModel::Table => BuildError::failed(format!("pattern file {}", pattern.display()), e),
+        BeamModel::Gaussian | BeamModel::Uniform | BeamModel::Cosine => BuildError::Refused(e),
+    })?;
+    Ok(PairModel::new(beam, s.squint, s.way.passes())?)
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -202,7 +284,7 @@ struct PairSlot {
     seen: [bool; 2],
 }
 
-struct RatioDiscriminator {
+pub struct RatioDiscriminator {
     slots: Vec<PairSlot>,
     model: PairModel,
     signal: ErrorSignal,
@@ -258,11 +340,8 @@ impl RatioDiscriminator {
     }
 }
 
-impl Block for RatioDiscriminator {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Dwell(dwell) = item else {
-            return Ok(());
-        };
+impl RatioDiscriminator {
+    fn take(&mut self, dwell: DwellRecord, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(dwell.mid);
         let name: &str = &dwell.tag.name;
         let found = self.slots.iter().position(|s| s.pair.plus == name || s.pair.minus == name);
@@ -301,11 +380,11 @@ impl Block for RatioDiscriminator {
         }
         let (plus, minus) = if is_plus { (&dwell, &partner) } else { (&partner, &dwell) };
         let estimate = self.estimate(&self.slots[k], plus, minus);
-        out.push(0, Item::Estimate(Box::new(estimate)));
+        out.push(DiscriminatorOut::Estimates, Item::Estimate(Box::new(estimate)));
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+    fn report_unpaired(&mut self, out: &mut Outputs) {
         let at = self.last_stamp.unwrap_or(Stamp::new(0, 1.0));
         let left_waiting = self.slots.iter().filter(|s| s.waiting.is_some()).count() as u64;
         let unpaired = self.unpaired + left_waiting;
@@ -321,7 +400,6 @@ impl Block for RatioDiscriminator {
                 }
             }
         }
-        Ok(())
     }
 }
 

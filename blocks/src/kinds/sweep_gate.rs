@@ -61,7 +61,7 @@ pub const SPEC: BlockSpec = BlockSpec {
     build,
 };
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     let kind = SweepLabeller {
         params: p.clone(),
         lead: 0,
@@ -196,9 +196,9 @@ impl GateKind for SweepLabeller {
     fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
         let p = &self.params;
         let at = |e: String| BlockError::at(e, first.index);
-        self.lead = p.samples_at("lead", first.rate, None).map_err(at)?.round() as u64;
-        let start = p.bins_at("window_start", first.rate).map_err(at)?.round() as u64;
-        let end = p.bins_at("window_end", first.rate).map_err(at)?.round() as u64;
+        self.lead = p.samples_at("lead", first.rate, None).map_err(|e| at(e.to_string()))?.round() as u64;
+        let start = p.bins_at("window_start", first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
+        let end = p.bins_at("window_end", first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
         if end > 0 && end <= start {
             return Err(at(format!("window_end ({end} bins) must lie after window_start ({start} bins)")));
         }

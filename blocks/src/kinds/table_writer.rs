@@ -3,37 +3,116 @@
 //! whole run succeeds). Numbers have fixed formats, so equal input gives
 //! byte-equal files.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, FileStager, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, FileStager, Outputs};
+use crate::error::{BuildError, ParamError};
 use crate::item::{AngleEstimate, Cell, DwellRecord, Item, ItemKind, Stamp, TableRow};
 use crate::output_file::OutputFile;
-use crate::param::{ParamSpec, ParamType, Params};
+use crate::param::ParamType;
+use crate::typed::{Choice, NoPorts, TypedBlock};
 use std::collections::BTreeSet;
 use std::fmt::Write as _;
 use std::io::Write as _;
 use std::path::Path;
 use std::sync::Arc;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "table_writer",
-    doc: "Writes angle estimates, dwell records or table rows (wire exactly one input) to a CSV or \
-          JSON-lines file with fixed number formats; the file appears only when the run succeeds.",
-    inputs: &[
-        PortSpec::optional("estimates", ItemKind::Estimate, "angle estimates"),
-        PortSpec::optional("dwells", ItemKind::Dwell, "dwell records"),
-        PortSpec::optional("rows", ItemKind::Row, "free-form rows (columns from the first row)"),
-    ],
-    outputs: &[],
-    params: &[
-        ParamSpec { name: "path", ty: ParamType::OutputPath, default: None, doc: "table file to write" },
-        ParamSpec {
-            name: "format",
-            ty: ParamType::Choice(&["csv", "jsonl"]),
+pub const SPEC: BlockSpec = BlockSpec::typed::<TableWriter>(
+    "table_writer",
+    "Writes angle estimates, dwell records or table rows (wire exactly one input) to a CSV or \
+     JSON-lines file with fixed number formats; the file appears only when the run succeeds.",
+);
+
+crate::block_ports! {
+    inputs pub enum TableIn {
+        Estimates = optional("estimates", ItemKind::Estimate, "angle estimates"),
+        Dwells = optional("dwells", ItemKind::Dwell, "dwell records"),
+        Rows = optional("rows", ItemKind::Row, "free-form rows (columns from the first row)"),
+    }
+}
+
+crate::block_choice! {
+    /// How table lines are written.
+    pub enum TableFormat { Csv = "csv", Jsonl = "jsonl" }
+}
+
+crate::block_settings! {
+    /// Settings of `table_writer`.
+    pub struct TableWriterSettings {
+        path: String { ty: ParamType::OutputPath, default: None, doc: "table file to write" },
+        format: TableFormat {
+            ty: ParamType::Choice(TableFormat::WORDS),
             default: Some("csv"),
             doc: "csv with a header line, or one JSON object per line",
         },
-    ],
-    build,
-};
+    }
+}
+
+impl TypedBlock for TableWriter {
+    type Settings = TableWriterSettings;
+    type In = TableIn;
+    type Out = NoPorts;
+
+    fn build(s: TableWriterSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        let path = s.path.trim().to_string();
+        if path.is_empty() {
+            return Err(ParamError::invalid("path", "is empty").into());
+        }
+        let json = s.format == TableFormat::Jsonl;
+        let policy = ctx.files.policy();
+        let mut sinks = Vec::new();
+        if path != STDOUT_PATH {
+            let file = ctx
+                .files
+                .create(Path::new(&path))
+                .map_err(|e| BuildError::failed(format!("cannot create table {path}"), e))?;
+            sinks.push(Sink { target: Target::File(file), json });
+        }
+        if path == STDOUT_PATH || policy.echo_table.as_deref() == Some(ctx.name.as_str()) {
+            let json = match policy.echo_format.as_deref() {
+                Some(f) => TableFormat::from_word(f) == Some(TableFormat::Jsonl),
+                None => json,
+            };
+            sinks.push(Sink { target: Target::Stdout, json });
+        }
+        Ok(TableWriter {
+            sinks,
+            files: ctx.files.clone(),
+            path,
+            line: LineBuilder { text: String::new(), json, first: true },
+            kind: None,
+            row_columns: Vec::new(),
+            unknown_fields: BTreeSet::new(),
+            last_stamp: None,
+        })
+    }
+
+    fn process(&mut self, port: TableIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let stamp = item.stamp();
+        self.last_stamp = Some(stamp);
+        self.one_input(port, stamp, &item, out)?;
+        match (port, &item) {
+            (TableIn::Estimates, Item::Estimate(e)) => self.estimate(e, out),
+            (TableIn::Dwells, Item::Dwell(d)) => self.dwell(d, out),
+            (TableIn::Rows, Item::Row(r)) => self.row(r, out),
+            (TableIn::Estimates | TableIn::Dwells | TableIn::Rows, _) => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        if self.kind.is_none() {
+            out.warn(
+                self.last_stamp.unwrap_or(Stamp::new(0, 1.0)),
+                format!("no items arrived; table {} is empty", self.path),
+            );
+        }
+        for sink in self.sinks.drain(..) {
+            if let Target::File(file) = sink.target {
+                file.finish(&self.files)
+                    .map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))?;
+            }
+        }
+        Ok(())
+    }
+}
 
 const ESTIMATE_COLUMNS: &[&str] = &[
     "time_s",
@@ -49,37 +128,6 @@ const ESTIMATE_COLUMNS: &[&str] = &[
     "absolute_deg",
 ];
 const DWELL_COLUMNS: &[&str] = &["time_s", "lobe", "dwell", "amplitude", "noise_power", "snr_db", "range_m", "used"];
-
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let path = p.text("path")?.trim().to_string();
-    if path.is_empty() {
-        return Err("parameter 'path' is empty".into());
-    }
-    let json = p.text("format")? == "jsonl";
-    let policy = ctx.files.policy();
-    let mut sinks = Vec::new();
-    if path != STDOUT_PATH {
-        let file = ctx.files.create(Path::new(&path)).map_err(|e| format!("cannot create table {path}: {e}"))?;
-        sinks.push(Sink { target: Target::File(file), json });
-    }
-    if path == STDOUT_PATH || policy.echo_table.as_deref() == Some(ctx.name.as_str()) {
-        let json = match policy.echo_format.as_deref() {
-            Some(f) => f == "jsonl",
-            None => json,
-        };
-        sinks.push(Sink { target: Target::Stdout, json });
-    }
-    Ok(Box::new(TableWriter {
-        sinks,
-        files: ctx.files.clone(),
-        path,
-        line: LineBuilder { text: String::new(), json, first: true },
-        kind: None,
-        row_columns: Vec::new(),
-        unknown_fields: BTreeSet::new(),
-        last_stamp: None,
-    }))
-}
 
 /// A table path that means standard output.
 pub const STDOUT_PATH: &str = "-";
@@ -211,7 +259,7 @@ fn push_json_string(out: &mut String, v: &str) {
 /// Most unknown row field names reported (each once).
 const UNKNOWN_FIELDS_REPORTED: usize = 16;
 
-struct TableWriter {
+pub struct TableWriter {
     /// The file (until `finish` hands it to the stager) and standard output.
     sinks: Vec<Sink>,
     files: FileStager,
@@ -341,32 +389,32 @@ impl TableWriter {
     }
 }
 
-impl Block for TableWriter {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let kind = item.kind();
-        if !matches!(kind, ItemKind::Estimate | ItemKind::Dwell | ItemKind::Row) {
-            return Ok(());
-        }
-        self.last_stamp = Some(item.stamp());
+impl TableWriter {
+    /// The first item fixes the table's input and writes its header; an
+    /// item on another input is an error.
+    fn one_input(&mut self, port: TableIn, stamp: Stamp, item: &Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let kind = match port {
+            TableIn::Estimates => ItemKind::Estimate,
+            TableIn::Dwells => ItemKind::Dwell,
+            TableIn::Rows => ItemKind::Row,
+        };
         match self.kind {
-            Some(k) if k != kind => {
-                return Err(BlockError::at(
-                    format!(
-                        "table {} received both {} and {}; wire only one input of the table writer",
-                        self.path,
-                        k.name(),
-                        kind.name()
-                    ),
-                    item.stamp().index,
-                ));
-            }
-            Some(_) => {}
+            Some(k) if k != kind => Err(BlockError::at(
+                format!(
+                    "table {} received both {} and {}; wire only one input of the table writer",
+                    self.path,
+                    k.name(),
+                    kind.name()
+                ),
+                stamp.index,
+            )),
+            Some(_) => Ok(()),
             None => {
                 self.kind = Some(kind);
-                match &item {
-                    Item::Estimate(_) => self.header(ESTIMATE_COLUMNS, item.stamp(), out)?,
-                    Item::Dwell(_) => self.header(DWELL_COLUMNS, item.stamp(), out)?,
-                    Item::Row(r) => {
+                match (port, item) {
+                    (TableIn::Estimates, _) => self.header(ESTIMATE_COLUMNS, stamp, out),
+                    (TableIn::Dwells, _) => self.header(DWELL_COLUMNS, stamp, out),
+                    (TableIn::Rows, Item::Row(r)) => {
                         for (name, _) in &r.fields {
                             if !self.row_columns.contains(name) {
                                 self.row_columns.push(name.clone());
@@ -374,33 +422,11 @@ impl Block for TableWriter {
                         }
                         let columns = self.row_columns.clone();
                         let names: Vec<&str> = columns.iter().map(|c| &**c).collect();
-                        self.header(&names, item.stamp(), out)?;
+                        self.header(&names, stamp, out)
                     }
-                    _ => {}
+                    (TableIn::Rows, _) => Ok(()),
                 }
             }
         }
-        match &item {
-            Item::Estimate(e) => self.estimate(e, out),
-            Item::Dwell(d) => self.dwell(d, out),
-            Item::Row(r) => self.row(r, out),
-            _ => Ok(()),
-        }
-    }
-
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        if self.kind.is_none() {
-            out.warn(
-                self.last_stamp.unwrap_or(Stamp::new(0, 1.0)),
-                format!("no items arrived; table {} is empty", self.path),
-            );
-        }
-        for sink in self.sinks.drain(..) {
-            if let Target::File(file) = sink.target {
-                file.finish(&self.files)
-                    .map_err(|e| BlockError::new(format!("cannot finish table {}: {e}", self.path)))?;
-            }
-        }
-        Ok(())
     }
 }

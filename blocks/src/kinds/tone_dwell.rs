@@ -10,86 +10,125 @@
 //! each window's noise bandwidth (docs/derivations.md). Shared math:
 //! [`crate::dsp::spectrum`].
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::spectrum::{FftCache, Window, dtft_peak, next_pow2, parabolic_offset, weighted_dtft};
+use crate::error::{BuildError, ParamError};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{DwellRecord, Item, ItemKind, LobeSegment, LobeTag, Stamp};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::param::{ParamType, Unit};
+use crate::typed::TypedBlock;
 use num_complex::Complex32;
 use std::collections::VecDeque;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "tone_dwell",
-    doc: "Beacon integrator: per lobe dwell, the amplitude of a known tone from a windowed FFT with the peak \
-          interpolated between bins (or the whole-band power), noise from off-tone bins, and the expected \
-          spread of ln(amplitude).",
-    inputs: &[PortSpec::required("segments", ItemKind::Segment, "lobe segments; dwell_end closes a dwell")],
-    outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "one record per lobe dwell")],
-    params: &[
-        ParamSpec {
-            name: "tone",
+pub const SPEC: BlockSpec = BlockSpec::typed::<ToneDwell>(
+    "tone_dwell",
+    "Beacon integrator: per lobe dwell, the amplitude of a known tone from a windowed FFT with the peak \
+     interpolated between bins (or the whole-band power), noise from off-tone bins, and the expected \
+     spread of ln(amplitude).",
+);
+
+crate::block_ports! {
+    inputs pub enum ToneDwellIn {
+        Segments = required("segments", ItemKind::Segment, "lobe segments; dwell_end closes a dwell"),
+    }
+}
+
+crate::block_ports! {
+    outputs pub enum ToneDwellOut { Dwells = optional("dwells", ItemKind::Dwell, "one record per lobe dwell") }
+}
+
+crate::block_choice! {
+    /// What a dwell's amplitude is read from.
+    pub enum ToneMethod { FftBin = "fft_bin", BandPower = "band_power" }
+}
+
+crate::block_settings! {
+    /// Settings of `tone_dwell`.
+    pub struct ToneDwellSettings {
+        tone: f64 {
             ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
             default: None,
             doc: "beacon tone frequency at baseband",
         },
-        ParamSpec {
-            name: "search",
+        search: f64 {
             ty: ParamType::Number { unit: Unit::Hertz, min: 0.0, max: 5e9 },
             default: Some("0 Hz"),
             doc: "extra half-width around the tone in which to look for its peak (drift)",
         },
-        ParamSpec {
-            name: "window",
-            ty: ParamType::Choice(Window::NAMES),
+        window: Window {
+            ty: ParamType::Choice(Window::WORDS),
             default: Some("rect"),
             doc: "data window: rect (white-noise limit), or hann / blackman against strong interferers at the cost of their noise bandwidth (1.5 and 1.73 bins)",
         },
-        ParamSpec {
-            name: "method",
-            ty: ParamType::Choice(&["fft_bin", "band_power"]),
+        method: ToneMethod {
+            ty: ParamType::Choice(ToneMethod::WORDS),
             default: Some("fft_bin"),
             doc: "fft_bin: the tone's coherent amplitude; band_power: whole-band power minus the noise estimate",
         },
-        ParamSpec {
-            name: "fft_size",
+        fft_size: usize {
             ty: ParamType::Integer { min: 0, max: 1 << 22 },
             default: Some("0"),
             doc: "transform length (rounded up to a power of two; samples past it are not used); 0 = whole dwell, padded to twice its power of two",
         },
-        ParamSpec {
-            name: "max_samples",
+        max_samples: usize {
             ty: ParamType::Integer { min: 16, max: 1 << 22 },
             default: Some("1048576"),
             doc: "most samples collected per dwell (the rest are left out)",
         },
-    ],
-    build,
-};
+    }
+}
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, String> {
-    let window = Window::from_name(p.text("window")?).ok_or("window: unknown name")?;
-    let fft_size = p.int("fft_size")?.max(0) as usize;
-    let max_samples = p.int("max_samples")?.max(16) as usize;
-    let cap = if fft_size > 0 { max_samples.min(fft_size) } else { max_samples };
-    Ok(Box::new(ToneDwell {
-        tone_hz: p.num("tone")?,
-        search_hz: p.num("search")?,
-        window,
-        band_power: p.text("method")? == "band_power",
-        fft_size: if fft_size > 0 { Some(next_pow2(fft_size)) } else { None },
-        cap,
-        fft: FftCache::new(),
-        samples: Vec::new(),
-        weights: Vec::new(),
-        spectrum: Vec::new(),
-        powers: Vec::new(),
-        recent_hz: VecDeque::new(),
-        current: None,
-        left_out: 0,
-        gaps: 0,
-        unterminated: 0,
-        too_short: 0,
-        last_stamp: Stamp::new(0, 1.0),
-    }))
+impl TypedBlock for ToneDwell {
+    type Settings = ToneDwellSettings;
+    type In = ToneDwellIn;
+    type Out = ToneDwellOut;
+
+    fn build(s: ToneDwellSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        let max_samples = s.max_samples.max(16);
+        let cap = if s.fft_size > 0 { max_samples.min(s.fft_size) } else { max_samples };
+        Ok(ToneDwell {
+            tone_hz: s.tone,
+            search_hz: s.search,
+            window: s.window,
+            band_power: s.method == ToneMethod::BandPower,
+            fft_size: if s.fft_size > 0 { Some(next_pow2(s.fft_size)) } else { None },
+            cap,
+            fft: FftCache::new(),
+            samples: Vec::new(),
+            weights: Vec::new(),
+            spectrum: Vec::new(),
+            powers: Vec::new(),
+            recent_hz: VecDeque::new(),
+            current: None,
+            left_out: 0,
+            gaps: 0,
+            unterminated: 0,
+            too_short: 0,
+            last_stamp: Stamp::new(0, 1.0),
+        })
+    }
+
+    /// A known rate checks that the tone lies inside the band.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let facts = facts.merged();
+        if let Some(rate) = facts.rate {
+            self.check_band(rate)?;
+        }
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: ToneDwellIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (ToneDwellIn::Segments, Item::Segment(seg)) => self.take(&seg, out),
+            (ToneDwellIn::Segments, _) => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.close(out)?;
+        self.report(out);
+        Ok(())
+    }
 }
 
 /// The dwell being collected.
@@ -101,7 +140,7 @@ struct Open {
     next: u64,
 }
 
-struct ToneDwell {
+pub struct ToneDwell {
     tone_hz: f64,
     search_hz: f64,
     window: Window,
@@ -183,7 +222,7 @@ impl ToneDwell {
         let est = self.estimate(cur.rate);
         self.samples.clear();
         out.push(
-            0,
+            ToneDwellOut::Dwells,
             Item::Dwell(DwellRecord {
                 tag: cur.tag,
                 mid: Stamp::new(cur.first + (cur.last - cur.first) / 2, cur.rate),
@@ -353,11 +392,24 @@ fn ratio(signal: f64, noise: f64) -> f64 {
     }
 }
 
-impl Block for ToneDwell {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Segment(seg) = item else {
-            return Ok(());
-        };
+impl ToneDwell {
+    /// Complex baseband holds tones within ±rate/2; one beyond would be
+    /// measured at its alias and look like a good beacon.
+    fn check_band(&self, rate: f64) -> Result<(), ParamError> {
+        if !self.band_power && self.tone_hz.abs() > rate / 2.0 {
+            return Err(ParamError::invalid(
+                "tone",
+                format!(
+                    "{} Hz lies outside the band of ±{} Hz that a stream of {rate} S/s holds",
+                    self.tone_hz,
+                    rate / 2.0
+                ),
+            ));
+        }
+        Ok(())
+    }
+
+    fn take(&mut self, seg: &LobeSegment, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = seg.chunk.stamp;
         if let Some(cur) = &self.current
             && (cur.tag.dwell != seg.tag.dwell || cur.tag.lobe != seg.tag.lobe)
@@ -380,27 +432,16 @@ impl Block for ToneDwell {
             ));
         }
         let rate = seg.chunk.stamp.checked_rate("tone_dwell")?;
-        // Complex baseband holds tones within ±rate/2; one beyond would be
-        // measured at its alias and look like a good beacon.
-        if !self.band_power && self.tone_hz.abs() > rate / 2.0 {
-            return Err(BlockError::at(
-                format!(
-                    "tone_dwell: tone {} Hz lies outside the band of ±{} Hz that a stream of {rate} S/s holds",
-                    self.tone_hz,
-                    rate / 2.0
-                ),
-                seg.chunk.stamp.index,
-            ));
-        }
-        self.add(&seg, out);
+        self.check_band(rate).map_err(|e| BlockError::at(e.to_string(), seg.chunk.stamp.index))?;
+        self.add(seg, out);
         if seg.dwell_end {
             self.close(out)?;
         }
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        self.close(out)?;
+    /// The counts of irregular dwells, at the end.
+    fn report(&self, out: &mut Outputs) {
         let at = self.last_stamp;
         if self.left_out > 0 {
             out.warn(at, format!("{} samples past the per-dwell limit ({}) were left out", self.left_out, self.cap));
@@ -414,6 +455,5 @@ impl Block for ToneDwell {
         if self.too_short > 1 {
             out.warn(at, format!("{} dwells had fewer than 8 samples and were skipped", self.too_short));
         }
-        Ok(())
     }
 }

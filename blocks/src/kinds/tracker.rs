@@ -4,161 +4,193 @@
 //! ([`crate::dsp::smoother`]) gives the tracked value; live input (standard
 //! input) keeps a causal filter, whose output does not wait for the end.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::discriminator::parse_key_values;
 use crate::dsp::smoother::{Measurement, Model, smooth};
 use crate::dsp::tracking::{AxisFilter, FilterMethod, Telemetry};
+use crate::error::{BuildError, ParamError};
 use crate::item::{AngleEstimate, Flag, Item, ItemKind, Stamp};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::param::{ParamType, Unit};
+use crate::typed::TypedBlock;
 use std::sync::Arc;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "tracker",
-    doc: "Smooths the angle errors of each axis (a fixed-interval Kalman + Rauch-Tung-Striebel smoother on \
-          recordings, a causal alpha-beta or Kalman filter on live input), gives each tracked angle its \
-          sigma, flags estimates that fall outside the innovation gate as outliers (not used), and with \
-          pointing telemetry adds the antenna angle to give absolute target angles.",
-    inputs: &[PortSpec::required("estimates", ItemKind::Estimate, "angle estimates")],
-    outputs: &[PortSpec::optional(
-        "estimates",
-        ItemKind::Estimate,
-        "the same estimates with tracked (and absolute) angles",
-    )],
-    params: &[
-        ParamSpec {
-            name: "method",
-            ty: ParamType::Choice(&["alpha_beta", "kalman", "smoother", "auto"]),
+pub const SPEC: BlockSpec = BlockSpec::typed::<Tracker>(
+    "tracker",
+    "Smooths the angle errors of each axis (a fixed-interval Kalman + Rauch-Tung-Striebel smoother on \
+     recordings, a causal alpha-beta or Kalman filter on live input), gives each tracked angle its \
+     sigma, flags estimates that fall outside the innovation gate as outliers (not used), and with \
+     pointing telemetry adds the antenna angle to give absolute target angles.",
+);
+
+crate::block_ports! {
+    inputs pub enum TrackerIn { Estimates = required("estimates", ItemKind::Estimate, "angle estimates") }
+}
+
+crate::block_ports! {
+    outputs pub enum TrackerOut {
+        Estimates = optional("estimates", ItemKind::Estimate, "the same estimates with tracked (and absolute) angles"),
+    }
+}
+
+crate::block_choice! {
+    /// How the angles of an axis are tracked.
+    pub enum TrackMethod { AlphaBeta = "alpha_beta", Kalman = "kalman", Smoother = "smoother", Auto = "auto" }
+}
+
+crate::block_settings! {
+    /// Settings of `tracker`.
+    pub struct TrackerSettings {
+        method: TrackMethod {
+            ty: ParamType::Choice(TrackMethod::WORDS),
             default: Some("alpha_beta"),
             doc: "causal: fixed-gain alpha_beta, or kalman weighting each estimate by its sigma; smoother: fixed-interval (output at the end of input); auto: smoother on recordings; on live input (capture '-', a FIFO, pushed samples) alpha_beta",
         },
-        ParamSpec {
-            name: "capture",
+        capture: String {
             ty: ParamType::Text,
             default: Some(""),
             doc: "auto: the capture being read; '-' (standard input) means live input and a causal filter",
         },
-        ParamSpec {
-            name: "model",
-            ty: ParamType::Choice(Model::NAMES),
+        model: Model {
+            ty: ParamType::Choice(Model::WORDS),
             default: Some("constant_velocity"),
             doc: "smoother: motion model of the angle",
         },
-        ParamSpec {
-            name: "smoother_noise",
+        smoother_noise: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1e12 },
             default: Some("0"),
             doc: "smoother: process noise density per axis (deg^2/s^3 constant velocity, deg^2/s^5 constant acceleration); 0 = the most likely value for the data",
         },
-        ParamSpec {
-            name: "alpha",
+        alpha: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.001, max: 1.0 },
             default: Some("0.4"),
             doc: "alpha_beta: angle gain",
         },
-        ParamSpec {
-            name: "beta",
+        beta: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 2.0 },
             default: Some("0.1"),
             doc: "alpha_beta: rate gain (stable while beta < 4 - 2 alpha)",
         },
-        ParamSpec {
-            name: "process_noise",
+        process_noise: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1e6 },
             default: Some("0.1"),
             doc: "kalman: standard deviation of the target's angular acceleration, deg/s^2",
         },
-        ParamSpec {
-            name: "gate_sigmas",
+        gate_sigmas: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 1000.0 },
             default: Some("4"),
             doc: "reject an estimate whose innovation exceeds this many predicted sigmas (0: no gate)",
         },
-        ParamSpec {
-            name: "reset_after",
+        reset_after: u64 {
             ty: ParamType::Integer { min: 1, max: 1_000_000 },
             default: Some("5"),
             doc: "restart an axis's track after this many outliers in a row",
         },
-        ParamSpec {
-            name: "fallback_sigma",
+        fallback_sigma: f64 {
             ty: ParamType::Number { unit: Unit::Degrees, min: 1e-9, max: 180.0 },
             default: Some("0.1 deg"),
             doc: "spread assumed for estimates that carry no usable sigma",
         },
-        ParamSpec {
-            name: "pointing",
+        pointing: String {
             ty: ParamType::InputPath,
             default: Some(""),
             doc: "CSV time_s,az_deg,el_deg of antenna pointing (seconds from the capture start); empty: none",
         },
-        ParamSpec {
-            name: "axis_columns",
+        axis_columns: String {
             ty: ParamType::Text,
             default: Some("az=az_deg, el=el_deg"),
             doc: "which pointing column belongs to which axis",
         },
-    ],
-    build,
-};
+    }
+}
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
-    // Live: standard input named in the graph, or a run the engine knows is
-    // fed as it goes (a FIFO, `--input -`, samples pushed from memory).
-    let live = p.text("capture")?.trim() == "-" || ctx.files.policy().live;
-    let smoothing = match p.text("method")? {
-        "smoother" => true,
-        "auto" => !live,
-        _ => false,
-    };
-    let smoother = if smoothing {
-        let model = Model::from_name(p.text("model")?).ok_or("model: unknown name")?;
-        let q = p.num("smoother_noise")?;
-        Some(SmootherSetup { model, q: (q > 0.0).then_some(q), held: Vec::new(), pieces: 0 })
-    } else {
-        None
-    };
-    let method = match p.text("method")? {
-        "kalman" => FilterMethod::Kalman { accel_sigma: p.num("process_noise")? },
-        _ => {
-            let (alpha, beta) = (p.num("alpha")?, p.num("beta")?);
-            if beta >= 4.0 - 2.0 * alpha {
-                return Err(format!("alpha {alpha} with beta {beta} is unstable (needs beta < 4 - 2 alpha)"));
+impl TypedBlock for Tracker {
+    type Settings = TrackerSettings;
+    type In = TrackerIn;
+    type Out = TrackerOut;
+
+    fn build(s: TrackerSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        // Live: standard input named in the graph, or a run the engine knows is
+        // fed as it goes (a FIFO, `--input -`, samples pushed from memory).
+        let live = s.capture.trim() == "-" || ctx.files.policy().live;
+        let smoothing = match s.method {
+            TrackMethod::Smoother => true,
+            TrackMethod::Auto => !live,
+            TrackMethod::AlphaBeta | TrackMethod::Kalman => false,
+        };
+        let smoother = smoothing.then(|| SmootherSetup {
+            model: s.model,
+            q: (s.smoother_noise > 0.0).then_some(s.smoother_noise),
+            held: Vec::new(),
+            pieces: 0,
+        });
+        let method = match s.method {
+            TrackMethod::Kalman => FilterMethod::Kalman { accel_sigma: s.process_noise },
+            TrackMethod::AlphaBeta | TrackMethod::Smoother | TrackMethod::Auto => {
+                let (alpha, beta) = (s.alpha, s.beta);
+                if beta >= 4.0 - 2.0 * alpha {
+                    return Err(ParamError::invalid(
+                        "beta",
+                        format!("alpha {alpha} with beta {beta} is unstable (needs beta < 4 - 2 alpha)"),
+                    )
+                    .into());
+                }
+                FilterMethod::AlphaBeta { alpha, beta }
             }
-            FilterMethod::AlphaBeta { alpha, beta }
+        };
+        let path = s.pointing.trim().to_string();
+        let (telemetry, axis_columns) = if path.is_empty() {
+            (None, Vec::new())
+        } else {
+            let (t, columns) = pointing(&path, &s.axis_columns)?;
+            (Some(t), columns)
+        };
+        Ok(Tracker {
+            smoother,
+            method,
+            gate_sigmas: s.gate_sigmas,
+            reset_after: u32::try_from(s.reset_after).unwrap_or(u32::MAX),
+            fallback_sigma: s.fallback_sigma,
+            telemetry,
+            pointing_path: path,
+            axis_columns,
+            axes: Vec::new(),
+            outside_telemetry: 0,
+            warned_sigma: false,
+            last_stamp: None,
+        })
+    }
+
+    fn process(&mut self, port: TrackerIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (TrackerIn::Estimates, Item::Estimate(e)) => self.take(e, out),
+            (TrackerIn::Estimates, _) => Ok(()),
         }
-    };
-    let path = p.text("pointing")?.trim().to_string();
-    let mut axis_columns = Vec::new();
-    let telemetry = if path.is_empty() {
-        None
-    } else {
-        let text = std::fs::read_to_string(&path).map_err(|e| format!("cannot read pointing file {path}: {e}"))?;
-        let t = Telemetry::parse(&text, &path)?;
-        for (axis, column) in parse_key_values(p.text("axis_columns")?, "axis_columns")? {
-            let col = t.column(&column).ok_or_else(|| {
-                format!(
-                    "pointing file {path} has no column '{column}' (for axis '{axis}'); its columns: {}",
-                    t.columns().join(", ")
-                )
-            })?;
-            axis_columns.push((axis, col));
-        }
-        Some(t)
-    };
-    Ok(Box::new(Tracker {
-        smoother,
-        method,
-        gate_sigmas: p.num("gate_sigmas")?,
-        reset_after: u32::try_from(p.int("reset_after")?).unwrap_or(u32::MAX),
-        fallback_sigma: p.num("fallback_sigma")?,
-        telemetry,
-        pointing_path: path,
-        axis_columns,
-        axes: Vec::new(),
-        outside_telemetry: 0,
-        warned_sigma: false,
-        last_stamp: None,
-    }))
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.flush_smoother(out)?;
+        self.report(out);
+        Ok(())
+    }
+}
+
+/// The pointing telemetry file, and the column of each axis it names.
+fn pointing(path: &str, axis_columns: &str) -> Result<(Telemetry, Vec<(String, usize)>), BuildError> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| BuildError::failed(format!("cannot read pointing file {path}"), e))?;
+    let t = Telemetry::parse(&text, path)?;
+    let mut columns = Vec::new();
+    let invalid = |why: String| ParamError::invalid("axis_columns", why);
+    for (axis, column) in parse_key_values(axis_columns, "axis_columns").map_err(invalid)? {
+        let col = t.column(&column).ok_or_else(|| {
+            invalid(format!(
+                "pointing file {path} has no column '{column}' (for axis '{axis}'); its columns: {}",
+                t.columns().join(", ")
+            ))
+        })?;
+        columns.push((axis, col));
+    }
+    Ok((t, columns))
 }
 
 /// Most axes one tracker keeps (each axis holds a few numbers).
@@ -185,7 +217,7 @@ struct SmootherSetup {
 /// smoothed in pieces of this many, so memory stays bounded.
 const MAX_HELD: usize = 100_000;
 
-struct Tracker {
+pub struct Tracker {
     smoother: Option<SmootherSetup>,
     method: FilterMethod,
     gate_sigmas: f64,
@@ -318,17 +350,14 @@ impl Tracker {
         for (e, k) in held.into_iter().zip(axis_of) {
             let mut e = e;
             self.point(&mut e, k, out);
-            out.push(0, Item::Estimate(Box::new(e)));
+            out.push(TrackerOut::Estimates, Item::Estimate(Box::new(e)));
         }
         Ok(())
     }
 }
 
-impl Block for Tracker {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Estimate(mut e) = item else {
-            return Ok(());
-        };
+impl Tracker {
+    fn take(&mut self, mut e: Box<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
             setup.held.push(*e);
@@ -338,7 +367,7 @@ impl Block for Tracker {
             return Ok(());
         }
         let Some((z, sigma)) = self.measurement(&e, out) else {
-            out.push(0, Item::Estimate(e));
+            out.push(TrackerOut::Estimates, Item::Estimate(e));
             return Ok(());
         };
         let k = self.axis_index(&e, out)?;
@@ -349,12 +378,12 @@ impl Block for Tracker {
         e.tracked_deg = Some(step.tracked);
         e.tracked_sigma_deg = Some(step.variance.max(0.0).sqrt());
         self.point(&mut e, k, out);
-        out.push(0, Item::Estimate(e));
+        out.push(TrackerOut::Estimates, Item::Estimate(e));
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        self.flush_smoother(out)?;
+    /// The notices counted over the run, at the end.
+    fn report(&self, out: &mut Outputs) {
         if let Some(setup) = &self.smoother
             && setup.pieces > 1
         {
@@ -368,6 +397,5 @@ impl Block for Tracker {
                 format!("{} estimates lay outside the time span of {}", self.outside_telemetry, self.pointing_path),
             );
         }
-        Ok(())
     }
 }

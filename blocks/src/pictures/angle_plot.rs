@@ -46,7 +46,7 @@ const PANEL_HEIGHT: u32 = 280;
 /// Most axes drawn (panels); estimates of further axes are counted only.
 const MAX_AXES: usize = 8;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
     Ok(Box::new(AnglePlot {
         max_buckets: (p.int("max_points")? as usize / 2).max(50),
         span: p.num("span")?,

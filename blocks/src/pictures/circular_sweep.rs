@@ -83,7 +83,7 @@ const DRAWN_POINTS: usize = 6000;
 /// Most range marks drawn around the fine circle per turn.
 const MAX_MARKS_PER_TURN: f64 = 100.0;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
     let deflection = p.text("deflection")?;
     Ok(Box::new(CircularSweep {
         params: p.clone(),

@@ -60,7 +60,7 @@ const MAX_NOTICES: usize = 200;
 /// Most switch instants marked.
 const MAX_SWITCHES: usize = 100_000;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
     Ok(Box::new(LobeTimeline {
         params: p.clone(),
         span_s: None,

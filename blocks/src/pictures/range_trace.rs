@@ -66,7 +66,7 @@ pub const SPEC: BlockSpec = BlockSpec {
 const WIDTH: u32 = 1200;
 const HEIGHT: u32 = 640;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
     Ok(Box::new(RangeTrace {
         params: p.clone(),
         separate: p.text("lobes")? == "separate",

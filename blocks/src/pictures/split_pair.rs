@@ -95,7 +95,7 @@ pub fn parse_separation(text: &str) -> Result<Separation, String> {
     Ok(Separation::Fraction(v))
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, String> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
     Ok(Box::new(SplitPair {
         params: p.clone(),
         pairs: parse_pairs(p.text("pairs")?).map_err(|e| format!("parameter 'pairs': {e}"))?,

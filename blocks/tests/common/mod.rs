@@ -23,7 +23,7 @@ pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
     p
 }
 
-pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Result<Box<dyn Block>, String> {
+pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
     (spec.build)(&params(spec, set), &BuildContext::default())
 }
 
