@@ -450,7 +450,9 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     assert!(err.message.contains("mark_every"), "{err}");
 
     let split = lobeflow::blocks::pictures::split_pair::SPEC;
-    let err = (split.build)(&params(&split, &[("pairs", "az=right"), ("path", &path)]), &ctx).err().unwrap().to_string();
+    // Lobe pairs are read when the graph is, before the block is built.
+    let pairs = split.param("pairs").unwrap();
+    let err = pairs.parse(&RawValue::from_text("az=right")).unwrap_err();
     assert!(err.contains("pairs"), "{err}");
     // Non-finite estimates are counted as no signal, not drawn or panicked on.
     let angle = lobeflow::blocks::pictures::angle_plot::SPEC;

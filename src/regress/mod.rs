@@ -11,7 +11,7 @@ use crate::error::Error;
 use crate::graph::{ResolvedGraph, resolve};
 use crate::runtime::{RunOptions, RunReport, run};
 use golden::GoldenDiff;
-use lobeflow_blocks::{RawValue, Value};
+use lobeflow_blocks::RawValue;
 pub use manifest::{Check, Manifest, Measure};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -253,8 +253,8 @@ fn truth_column(axis: &str) -> String {
 pub fn graph_axes(graph: &ResolvedGraph) -> Vec<String> {
     let mut axes: Vec<String> = Vec::new();
     for b in &graph.blocks {
-        let Some(Value::Text(text)) = b.params.get("pairs") else { continue };
-        for pair in lobeflow_blocks::dsp::discriminator::parse_pairs(text).unwrap_or_default() {
+        let Ok(pairs) = b.params.lobe_pairs("pairs") else { continue };
+        for pair in pairs {
             if !axes.iter().any(|a| **a == *pair.axis) {
                 axes.push(pair.axis.to_string());
             }
