@@ -163,10 +163,9 @@ pub(crate) struct Chunk<'a> {
 impl Source {
     /// Read the first `seconds` once more, chunk by chunk.
     fn pass(&self, mut each: impl FnMut(&Chunk)) -> Result<CaptureInfo, String> {
-        if self.path == "-" {
-            return Err(
-                "the installation figures need a capture file (it is read several times), not standard input".into()
-            );
+        // a pipe, FIFO or device cannot be read a second time
+        if self.path == "-" || !std::fs::metadata(&self.path).is_ok_and(|m| m.is_file()) {
+            return Err("the installation figures need a capture file (it is read several times), not a stream".into());
         }
         let mut reader = open(&self.path, &self.options).map_err(|e| e.to_string())?;
         let info = reader.info().clone();
