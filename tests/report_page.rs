@@ -139,3 +139,46 @@ fn svg_height(path: &Path) -> u32 {
     let doc = roxmltree::Document::parse(&text).unwrap();
     doc.root_element().attribute("height").and_then(|h| h.parse().ok()).unwrap()
 }
+
+/// Per-lobe mean levels written in the timeline's key (`name: mean X dB`).
+fn timeline_levels(svg: &Path) -> Vec<(String, f64)> {
+    let text = std::fs::read_to_string(svg).unwrap();
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    doc.descendants()
+        .filter(|n| n.tag_name().name() == "text")
+        .filter_map(|n| {
+            let t = n.text()?.trim().to_string();
+            let (name, rest) = t.split_once(": mean ")?;
+            let db: f64 = rest.split(' ').next()?.parse().ok()?;
+            Some((name.to_string(), db))
+        })
+        .collect()
+}
+
+fn beacon_levels(dir: &Path, first_start: &str) -> (f64, f64) {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let out = dir.join(first_start.replace(' ', ""));
+    let run = Command::new(env!("CARGO_BIN_EXE_lobeflow"))
+        .args(["run", root.join("graphs/two-lobe-beacon.yaml").to_str().unwrap(), "--out", out.to_str().unwrap()])
+        .args(["--quiet", "--set", &format!("first_start={first_start}")])
+        .output()
+        .unwrap();
+    assert!(run.status.success(), "{}", String::from_utf8_lossy(&run.stderr));
+    let levels = timeline_levels(&out.join("timeline.svg"));
+    let get = |name: &str| levels.iter().find(|l| l.0 == name).unwrap_or_else(|| panic!("{levels:?}")).1;
+    (get("right"), get("left"))
+}
+
+/// A schedule one dwell off labels every dwell with the other lobe: the
+/// timeline's per-lobe means then trade places (right minus left flips its
+/// sign with about the same size), which is what a person sees at a glance.
+#[test]
+fn timeline_shows_a_schedule_one_dwell_off() {
+    let dir = scratch("offset");
+    let (right, left) = beacon_levels(&dir, "-7 ms");
+    let (right_off, left_off) = beacon_levels(&dir, "13 ms");
+    let (good, off) = (right - left, right_off - left_off);
+    assert!(good.abs() > 0.3, "the beacon sample is off axis: right - left = {good} dB");
+    assert!(off * good < 0.0, "one dwell off: {off} dB against {good} dB");
+    assert!((off + good).abs() < 0.25 * good.abs(), "swapped means: {off} dB against {good} dB");
+}
