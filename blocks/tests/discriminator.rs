@@ -300,10 +300,15 @@ fn sign_flip_and_gain_offsets() {
     let e = estimates(&run(corrected.as_mut(), pair_items(a * ga, b * gb, 1e-4)).0)[0].clone();
     assert!((e.error_deg.unwrap() - 0.7).abs() < 1e-9);
     assert!((e.ratio_db - e0.ratio_db).abs() < 1e-9);
-    for bad in ["middle=1", "right=loud", "right"] {
-        let err = build(&SPEC, &[("lobe_gain_db", bad)]).err().expect(bad).to_string();
-        assert!(err.contains("lobe_gain_db"), "{err}");
+    // A gain that is not a number is refused where the graph is read; a lobe
+    // the pairs do not name, when the block is built.
+    let gains = SPEC.param("lobe_gain_db").unwrap();
+    for bad in ["right=loud", "right"] {
+        let err = gains.parse(&lobeflow_blocks::RawValue::from_text(bad)).expect_err(bad);
+        assert!(err.contains("dB") || err.contains("lobe"), "{bad}: {err}");
     }
+    let err = build(&SPEC, &[("lobe_gain_db", "middle=1")]).err().expect("middle=1").to_string();
+    assert!(err.contains("lobe_gain_db"), "{err}");
 }
 
 // (e) Measured-pattern table: angles agree with scipy's root of the same
