@@ -94,7 +94,7 @@ fn a_table_beam_without_a_pattern_fails_check() {
     let out = scratch("beam");
     let r = check_with(&four_lobe(), sets(&["beam=table"]), &out, Vec::new());
     let text = refused_at(r, "four-lobe-pulsed.yaml", PAIRS_LINE, "needs a pattern file");
-    assert!(text.contains("'pattern' is not set"), "{text}");
+    assert!(text.contains("(parameter 'pattern')"), "{text}");
     // A pattern file that is not a pattern is found too.
     let bad = out.join("not-a-pattern.csv");
     std::fs::write(&bad, "angle_deg,gain_db\nfive,six\n").unwrap();

@@ -173,11 +173,7 @@ impl Block for SplitPair {
             let balance = balance_db(a, b, gate);
             if balance.is_none() && (a.is_some() || b.is_some()) {
                 out.warn(
-                    self.averages
-                        .groups
-                        .first()
-                        .map(|g| g.2.first_stamp)
-                        .unwrap_or(crate::Stamp::new(0, 1.0)),
+                    self.averages.groups.first().map(|g| g.2.first_stamp).unwrap_or(crate::Stamp::new(0, 1.0)),
                     format!("pair {}: no balance (a lobe is missing or has no power in the gate)", pair.axis),
                 );
             }
