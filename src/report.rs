@@ -5,6 +5,9 @@
 //! page is self-contained (inline style, no scripts) and every string that
 //! comes from a file (titles, names, notices, paths) is escaped.
 
+use crate::capture::Format;
+use crate::capture::sigmf::{meta_path_for, read_meta};
+use crate::capture::source::open_options;
 use crate::graph::ResolvedGraph;
 use crate::regress::report::overall;
 use crate::regress::{Row, Verdict, sample_dir};
@@ -129,12 +132,59 @@ pub fn run_page(f: &RunFacts) -> String {
         Ending::CutShort { at_sample, .. } => format!("the run was cut short at sample {at_sample}"),
     };
     let _ = writeln!(s, "<p>{}</p>", escape(&ending));
+    s.push_str(&capture_section(g));
     s.push_str(&summary_section(f.summary));
     s.push_str(&notices_section(f.notices, f.remarks));
     s.push_str(&pictures_section(f.files, f.out_dir, ""));
     s.push_str(&settings_section(g));
     s.push_str(&files_section(f.files, f.out_dir, ""));
     s.push_str("</body></html>\n");
+    s
+}
+
+/// Each capture the graph reads: its file and, for a SigMF recording, the
+/// recording's description and the annotation labels it carries (how many
+/// of each), as the metadata file says them.
+fn capture_section(g: &ResolvedGraph) -> String {
+    let mut s = String::from("<h2>Capture</h2>\n");
+    for b in g.blocks.iter().filter(|b| b.spec.kind == "capture_reader") {
+        let Ok(path) = b.params.text("path") else { continue };
+        let _ = writeln!(s, "<p><code>{}</code> read by {}</p>", escape(path), escape(&b.name));
+        let sigmf = match open_options(&b.params).map(|o| o.format) {
+            Ok(Format::Sigmf) => true,
+            Ok(Format::Auto) => path.ends_with(".sigmf-meta") || path.ends_with(".sigmf-data"),
+            _ => false,
+        };
+        if !sigmf {
+            continue;
+        }
+        let meta = match read_meta(&meta_path_for(path)) {
+            Ok(m) => m,
+            Err(e) => {
+                let _ = writeln!(s, "<p class=fail>{}</p>", escape(&e.to_string()));
+                continue;
+            }
+        };
+        if let Some(d) = meta.global.description.as_deref().filter(|d| !d.trim().is_empty()) {
+            let _ = writeln!(s, "<p>description: {}</p>", escape(d));
+        }
+        let mut labels: Vec<(&str, usize)> = Vec::new();
+        for label in meta.annotations.iter().filter_map(|a| a.label.as_deref()) {
+            match labels.iter_mut().find(|(l, _)| *l == label) {
+                Some((_, n)) => *n += 1,
+                None => labels.push((label, 1)),
+            }
+        }
+        if labels.is_empty() {
+            s.push_str("<p>no annotation labels</p>\n");
+            continue;
+        }
+        s.push_str("<table><tr><th>annotation label</th><th>annotations</th></tr>\n");
+        for (label, n) in labels {
+            let _ = writeln!(s, "<tr><td>{}</td><td class=n>{n}</td></tr>", escape(label));
+        }
+        s.push_str("</table>\n");
+    }
     s
 }
 
