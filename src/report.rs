@@ -5,7 +5,12 @@
 //! page is self-contained (inline style, no scripts) and every string that
 //! comes from a file (titles, names, notices, paths) is escaped.
 
+use crate::capture::Format;
+use crate::capture::sigmf::{meta_path_for, read_meta};
+use crate::capture::source::open_options;
 use crate::graph::ResolvedGraph;
+use crate::regress::report::overall;
+use crate::regress::{Row, Verdict, sample_dir};
 use crate::runtime::Ending;
 use lobeflow_blocks::summary::{AxisSummary, EstimateSummary};
 use lobeflow_blocks::{Block, BlockError, Item, ItemKind, Notice, Outputs};
@@ -127,12 +132,59 @@ pub fn run_page(f: &RunFacts) -> String {
         Ending::CutShort { at_sample, .. } => format!("the run was cut short at sample {at_sample}"),
     };
     let _ = writeln!(s, "<p>{}</p>", escape(&ending));
+    s.push_str(&capture_section(g));
     s.push_str(&summary_section(f.summary));
     s.push_str(&notices_section(f.notices, f.remarks));
     s.push_str(&pictures_section(f.files, f.out_dir, ""));
     s.push_str(&settings_section(g));
     s.push_str(&files_section(f.files, f.out_dir, ""));
     s.push_str("</body></html>\n");
+    s
+}
+
+/// Each capture the graph reads: its file and, for a SigMF recording, the
+/// recording's description and the annotation labels it carries (how many
+/// of each), as the metadata file says them.
+fn capture_section(g: &ResolvedGraph) -> String {
+    let mut s = String::from("<h2>Capture</h2>\n");
+    for b in g.blocks.iter().filter(|b| b.spec.kind == "capture_reader") {
+        let Ok(path) = b.params.text("path") else { continue };
+        let _ = writeln!(s, "<p><code>{}</code> read by {}</p>", escape(path), escape(&b.name));
+        let sigmf = match open_options(&b.params).map(|o| o.format) {
+            Ok(Format::Sigmf) => true,
+            Ok(Format::Auto) => path.ends_with(".sigmf-meta") || path.ends_with(".sigmf-data"),
+            _ => false,
+        };
+        if !sigmf {
+            continue;
+        }
+        let meta = match read_meta(&meta_path_for(path)) {
+            Ok(m) => m,
+            Err(e) => {
+                let _ = writeln!(s, "<p class=fail>{}</p>", escape(&e.to_string()));
+                continue;
+            }
+        };
+        if let Some(d) = meta.global.description.as_deref().filter(|d| !d.trim().is_empty()) {
+            let _ = writeln!(s, "<p>description: {}</p>", escape(d));
+        }
+        let mut labels: Vec<(&str, usize)> = Vec::new();
+        for label in meta.annotations.iter().filter_map(|a| a.label.as_deref()) {
+            match labels.iter_mut().find(|(l, _)| *l == label) {
+                Some((_, n)) => *n += 1,
+                None => labels.push((label, 1)),
+            }
+        }
+        if labels.is_empty() {
+            s.push_str("<p>no annotation labels</p>\n");
+            continue;
+        }
+        s.push_str("<table><tr><th>annotation label</th><th>annotations</th></tr>\n");
+        for (label, n) in labels {
+            let _ = writeln!(s, "<tr><td>{}</td><td class=n>{n}</td></tr>", escape(label));
+        }
+        s.push_str("</table>\n");
+    }
     s
 }
 
@@ -243,12 +295,98 @@ fn settings_section(g: &ResolvedGraph) -> String {
 
 /// The run's files, linked.
 pub fn files_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
-    let mut s = String::from("<h2>Files</h2>\n<ul>\n");
+    format!("<h2>Files</h2>\n{}", link_list(files, base, prefix))
+}
+
+/// `files` as a list of links relative to `base`, under `prefix`.
+fn link_list(files: &[PathBuf], base: &Path, prefix: &str) -> String {
+    let mut s = String::from("<ul>\n");
     for p in files {
         let rel = Path::new(prefix).join(p.strip_prefix(base).unwrap_or(p));
         let _ = writeln!(s, "<li><a href=\"{}\">{}</a></li>", link(&rel), escape(&rel.display().to_string()));
     }
     s.push_str("</ul>\n");
+    s
+}
+
+/// How bad a verdict is, for putting failures first.
+fn severity(v: Verdict) -> u8 {
+    match v {
+        Verdict::Error => 0,
+        Verdict::Fail => 1,
+        Verdict::Pass => 2,
+    }
+}
+
+/// `regress`'s page: totals, then a section per sample (errored samples
+/// first, then failed, then passed; manifest order within each), each with
+/// its check rows and links to the sample's run page and pictures in `out`.
+pub fn regress_page(rows: &[Row], out: &Path) -> String {
+    let verdict = overall(rows);
+    let mut s = page_head("lobeflow regression");
+    let n = |v| rows.iter().filter(|r| r.verdict == v).count();
+    let _ = writeln!(
+        s,
+        "<h1>lobeflow regression: <span class={}>{}</span></h1>\n<p>{} rows, {} passed, {} failed, {} errors</p>",
+        if verdict == Verdict::Pass { "pass" } else { "fail" },
+        verdict.name(),
+        rows.len(),
+        n(Verdict::Pass),
+        n(Verdict::Fail),
+        n(Verdict::Error)
+    );
+    let mut samples: Vec<(&str, Vec<&Row>)> = Vec::new();
+    for r in rows {
+        match samples.iter_mut().find(|(name, _)| *name == r.sample) {
+            Some((_, mine)) => mine.push(r),
+            None => samples.push((&r.sample, vec![r])),
+        }
+    }
+    samples.sort_by_key(|(_, mine)| mine.iter().map(|r| severity(r.verdict)).min().unwrap_or(2));
+    for (name, mine) in samples {
+        s.push_str(&sample_section(name, &mine, out));
+    }
+    s.push_str("</body></html>\n");
+    s
+}
+
+fn sample_section(name: &str, rows: &[&Row], out: &Path) -> String {
+    let worst = rows.iter().map(|r| r.verdict).min_by_key(|v| severity(*v)).unwrap_or(Verdict::Pass);
+    let class = if worst == Verdict::Pass { "pass" } else { "fail" };
+    let mut s = format!("<section>\n<h2>{} <span class={class}>{}</span></h2>\n", escape(name), worst.name());
+    s.push_str(
+        "<table><tr><th>check</th><th>measure</th><th>axis</th><th>measured</th><th>bound</th><th>verdict</th>\
+         <th>time (s)</th><th>message</th></tr>\n",
+    );
+    for r in rows {
+        let class = if r.verdict == Verdict::Pass { "pass" } else { "fail" };
+        let _ = writeln!(
+            s,
+            "<tr><td>{}</td><td>{}</td><td>{}</td><td class=n>{}</td><td>{}</td><td class={class}>{}</td>\
+             <td class=n>{:.2}</td><td>{}</td></tr>",
+            escape(&r.check),
+            escape(&r.measure),
+            escape(r.axis.as_deref().unwrap_or("")),
+            escape(&r.measured_text()),
+            escape(&r.bound_text()),
+            r.verdict.name(),
+            r.seconds,
+            escape(r.message.as_deref().unwrap_or(""))
+        );
+    }
+    s.push_str("</table>\n");
+    // Only a plain sample name has a folder of its own (an errored manifest may not).
+    if let Ok(dir) = sample_dir(out, name) {
+        let mut files: Vec<PathBuf> =
+            std::fs::read_dir(&dir).map(|d| d.filter_map(|e| e.ok().map(|e| e.path())).collect()).unwrap_or_default();
+        files.retain(|p| p.file_name().is_some_and(|n| n == PAGE_NAME) || p.extension().is_some_and(|e| e == "svg"));
+        files.sort();
+        if !files.is_empty() {
+            s.push_str("<p>run page and pictures</p>\n");
+            s.push_str(&link_list(&files, &dir, name));
+        }
+    }
+    s.push_str("</section>\n");
     s
 }
 

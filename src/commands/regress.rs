@@ -61,6 +61,12 @@ pub fn regress(args: &RegressArgs) -> Result<Regression, Error> {
             updates: vec![],
         },
     };
+    std::fs::create_dir_all(&args.out)
+        .map_err(|e| Error::Output(format!("cannot create {}: {e}", args.out.display())))?;
+    super::write_output(
+        &args.out.join(crate::report::PAGE_NAME),
+        &crate::report::regress_page(&regression.rows, &args.out),
+    )?;
     if let Some(path) = &args.report {
         super::write_output(path, &report::json(&regression.rows))?;
     }

@@ -350,7 +350,7 @@ fn run_graph(m: &Manifest, out: &Path) -> Result<Ran, Error> {
     let mut overrides = m.settings.clone();
     overrides.set("input", RawValue::Text(m.capture.to_string_lossy().into_owned()));
     let graph = resolve(&m.graph, &overrides, &crate::registry())?;
-    let opts = RunOptions { threads: 1, out_dir: out.to_path_buf(), ..RunOptions::default() };
+    let opts = RunOptions { threads: 1, out_dir: out.to_path_buf(), page: true, ..RunOptions::default() };
     let report = run(&graph, &opts, Vec::new())?;
     let angles = Table::read(&out.join("angles.csv"))?;
     let truth = m.truth.as_ref().map(|p| Truth::read(p)).transpose()?;

@@ -324,3 +324,40 @@ fn the_default_output_folder_is_not_a_relative_target() {
     assert!(folder.join("two-lobe-beacon/angles.csv").is_file());
     std::fs::remove_dir_all(folder).unwrap();
 }
+
+#[test]
+fn the_regression_page_puts_failures_first_with_their_rows_and_shows_markup_as_text() {
+    let d = scratch("page", &["two-lobe-beacon", "four-lobe-pulsed"]);
+    let beacon = d.join("samples/two-lobe-beacon.check.yaml");
+    // A sample whose manifest name and check (so its error message) carry markup.
+    let hostile_name = "zz<script>alert(1)<b>&'";
+    let hostile_text = std::fs::read_to_string(&beacon).unwrap().replacen(
+        "{measure: bias, axis: az",
+        "{measure: bias, axis: \"<script>alert(2)</script>\"",
+        1,
+    );
+    std::fs::write(d.join(format!("samples/{hostile_name}.check.yaml")), hostile_text).unwrap();
+    edit(&beacon, "rms_error, axis: az, max: 0.2", "rms_error, axis: az, max: 0.01");
+    let out = lobeflow(&["regress", "samples", "--out", "out"], &d);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+    let page = std::fs::read_to_string(d.join("out/report.html")).unwrap();
+    assert!(!page.to_lowercase().contains("<script"), "no raw script tag on the page");
+
+    let heading = |name: &str| page.find(&format!("<h2>{name} ")).unwrap_or_else(|| panic!("no section {name}"));
+    let escaped_name = "zz&lt;script&gt;alert(1)&lt;b&gt;&amp;&#39;";
+    let (errored, failed, passed) = (heading(escaped_name), heading("two-lobe-beacon"), heading("four-lobe-pulsed"));
+    assert!(errored < failed && failed < passed, "errored, then failed, then passed sections");
+    assert!(page[errored..failed].contains("&lt;script&gt;alert(2)&lt;/script&gt;"), "the hostile axis as text");
+
+    // The failing row, with its measured value against its bound.
+    let section = &page[failed..passed];
+    let row = section.lines().find(|l| l.contains("<td>rms_error az</td>")).unwrap();
+    assert!(row.contains("<td class=fail>fail</td>") && row.contains("<td>&lt;= 0.01 deg</td>"), "{row}");
+    assert!(section.lines().filter(|l| l.contains("<td class=fail>")).count() == 1, "{section}");
+    // Links to the sample's run page and pictures, which exist.
+    for target in ["two-lobe-beacon/report.html", "two-lobe-beacon/angles.svg"] {
+        assert!(section.contains(&format!("<a href=\"{target}\">")), "{target}");
+        assert!(d.join("out").join(target).is_file(), "{target}");
+    }
+    assert!(page.contains("<a href=\"zz%3Cscript%3Ealert%281%29%3Cb%3E%26%27/report.html\">"));
+}

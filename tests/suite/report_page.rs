@@ -182,3 +182,36 @@ fn timeline_shows_a_schedule_one_dwell_off() {
     assert!(off * good < 0.0, "one dwell off: {off} dB against {good} dB");
     assert!((off + good).abs() < 0.25 * good.abs(), "swapped means: {off} dB against {good} dB");
 }
+
+/// A SigMF copy of the two-lobe beacon whose description and annotation
+/// labels carry markup: the run page's capture section shows them as text.
+#[test]
+fn run_page_shows_sigmf_description_and_annotation_labels_as_text() {
+    let dir = scratch("hostile-sigmf");
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    std::fs::copy(root.join("samples/two-lobe-beacon.sigmf-data"), dir.join("beacon.sigmf-data")).unwrap();
+    let mut meta: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(root.join("samples/two-lobe-beacon.sigmf-meta")).unwrap()).unwrap();
+    meta["global"]["core:description"] = serde_json::json!(HOSTILE);
+    let label = "<script>alert(3)</script>left";
+    meta["annotations"] = serde_json::json!([
+        {"core:sample_start": 0, "core:sample_count": 100, "core:label": label},
+        {"core:sample_start": 100, "core:sample_count": 100, "core:label": label},
+    ]);
+    let meta_path = dir.join("beacon.sigmf-meta");
+    std::fs::write(&meta_path, serde_json::to_string(&meta).unwrap()).unwrap();
+    let out = dir.join("out");
+    let run = Command::new(env!("CARGO_BIN_EXE_lobeflow"))
+        .args(["run", root.join("graphs/two-lobe-beacon.yaml").to_str().unwrap()])
+        .args(["--input", meta_path.to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet"])
+        .output()
+        .unwrap();
+    assert!(run.status.success(), "{}", String::from_utf8_lossy(&run.stderr));
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(!page.contains("<script") && !page.contains("<img src=x"), "markup leaked into the page");
+    let capture = &page[page.find("<h2>Capture</h2>").unwrap()..page.find("<h2>Angle estimates</h2>").unwrap()];
+    let description = "&lt;script&gt;alert(1)&lt;/script&gt;&lt;img src=x onerror=alert(2)&gt;&amp;&quot;&#39;";
+    assert!(capture.contains(&format!("<p>description: {description}</p>")), "{capture}");
+    let row = "<tr><td>&lt;script&gt;alert(3)&lt;/script&gt;left</td><td class=n>2</td></tr>";
+    assert!(capture.contains(row), "{capture}");
+}
