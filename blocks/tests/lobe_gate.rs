@@ -330,3 +330,22 @@ fn schedule_guard_reaching_past_the_capture_start() {
         (lobe_gate::SPEC.build)(&params(&lobe_gate::SPEC, &[("timing", "schedule")]), &BuildContext::default()).err();
     assert!(e.is_some_and(|e| e.to_string().contains("needs a 'dwell'")));
 }
+
+/// Before the run the gate names its lobes for the blocks downstream, and
+/// refuses sync timing on a capture known to have no sync channel.
+#[test]
+fn start_reports_the_lobes_and_refuses_sync_timing_without_a_sync_channel() {
+    use lobeflow_blocks::facts::{Channels, Facts, StreamFacts};
+    let spec = &lobe_gate::SPEC;
+    let mut gate = (spec.build)(&params(spec, &[("lobes", "east,west")]), &BuildContext::default()).expect("builds");
+    let with_sync =
+        [StreamFacts { channels: Some(Channels { sync: true, trigger: false }), ..StreamFacts::at_rate(48_000.0) }];
+    let out = gate.start(&Facts::new(&with_sync)).expect("sync channel present");
+    let names: Vec<&str> = out.lobes.as_deref().unwrap_or(&[]).iter().map(|l| &**l).collect();
+    assert_eq!(names, ["east", "west"]);
+    assert_eq!(out.rate, Some(48_000.0));
+
+    let without_sync = [StreamFacts { channels: Some(Channels::default()), ..StreamFacts::at_rate(48_000.0) }];
+    let err = gate.start(&Facts::new(&without_sync)).expect_err("no sync channel").to_string();
+    assert!(err.contains("'timing' is 'sync'"), "{err}");
+}

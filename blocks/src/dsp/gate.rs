@@ -15,101 +15,60 @@
 use crate::dsp::compressed_gate::CompressedSums;
 use num_complex::{Complex32, Complex64};
 
-/// How the pulses of a dwell are combined.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Integration {
-    /// Sum of |x|^2 over pulses, minus the expected noise.
-    Noncoherent,
-    /// Complex mean over pulses per gate bin, then power minus the noise of the mean.
-    Coherent,
-}
-
-impl Integration {
-    pub const NAMES: &'static [&'static str] = &["noncoherent", "coherent"];
-    pub fn from_name(s: &str) -> Option<Integration> {
-        match s {
-            "noncoherent" => Some(Integration::Noncoherent),
-            "coherent" => Some(Integration::Coherent),
-            _ => None,
-        }
+crate::block_choice! {
+    /// How the pulses of a dwell are combined.
+    pub enum Integration {
+        /// Sum of |x|^2 over pulses, minus the expected noise.
+        Noncoherent = "noncoherent",
+        /// Complex mean over pulses per gate bin, then power minus the noise of the mean.
+        Coherent = "coherent",
     }
 }
 
-/// Where a dwell's echo energy is read from.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum AmplitudeFrom {
-    /// Summed over the gate, bins independent (an uncompressed echo).
-    Gate,
-    /// The gate's centre bin alone.
-    Peak,
-    /// After a matched filter: the compressed output interpolated at the
-    /// echo's fitted fractional delay (docs/derivations.md §7); the range
-    /// is that delay.
-    Interpolated,
-    /// After a matched filter: summed over the gate, with the spread its
-    /// correlated bins give (docs/derivations.md §7).
-    CompressedGate,
+crate::block_choice! {
+    /// Where a dwell's echo energy is read from.
+    pub enum AmplitudeFrom {
+        /// Summed over the gate, bins independent (an uncompressed echo).
+        Gate = "gate",
+        /// The gate's centre bin alone.
+        Peak = "peak",
+        /// After a matched filter: the compressed output interpolated at the
+        /// echo's fitted fractional delay (docs/derivations.md §7); the range
+        /// is that delay.
+        Interpolated = "interpolated",
+        /// After a matched filter: summed over the gate, with the spread its
+        /// correlated bins give (docs/derivations.md §7).
+        CompressedGate = "compressed_gate",
+    }
 }
 
 impl AmplitudeFrom {
-    pub const NAMES: &'static [&'static str] = &["gate", "peak", "interpolated", "compressed_gate"];
-    pub fn from_name(s: &str) -> Option<AmplitudeFrom> {
-        match s {
-            "gate" => Some(AmplitudeFrom::Gate),
-            "peak" => Some(AmplitudeFrom::Peak),
-            "interpolated" => Some(AmplitudeFrom::Interpolated),
-            "compressed_gate" => Some(AmplitudeFrom::CompressedGate),
-            _ => None,
-        }
-    }
     /// Whether the mode needs the compressed cross sums (noncoherent only).
     pub fn compressed(self) -> bool {
         matches!(self, AmplitudeFrom::Interpolated | AmplitudeFrom::CompressedGate)
     }
 }
 
-/// How the gate bins are weighted for the range centroid.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Weighting {
-    /// sqrt of the noise-corrected power: exact for box echoes of any length
-    /// and their matched-filter triangles, but low-SNR bins of a wide gate add
-    /// spread.
-    Amplitude,
-    /// Noise-corrected power: low-SNR bins count little (less spread in wide
-    /// gates, e.g. after a matched filter, where the triangle keeps it within
-    /// 0.01 bin); biased up to 0.15 bin for echoes of one or two samples.
-    Power,
-}
-
-impl Weighting {
-    pub const NAMES: &'static [&'static str] = &["amplitude", "power"];
-    pub fn from_name(s: &str) -> Option<Weighting> {
-        match s {
-            "amplitude" => Some(Weighting::Amplitude),
-            "power" => Some(Weighting::Power),
-            _ => None,
-        }
+crate::block_choice! {
+    /// How the gate bins are weighted for the range centroid.
+    pub enum Weighting {
+        /// sqrt of the noise-corrected power: exact for box echoes of any length
+        /// and their matched-filter triangles, but low-SNR bins of a wide gate add
+        /// spread.
+        Amplitude = "amplitude",
+        /// Noise-corrected power: low-SNR bins count little (less spread in wide
+        /// gates, e.g. after a matched filter, where the triangle keeps it within
+        /// 0.01 bin); biased up to 0.15 bin for echoes of one or two samples.
+        Power = "power",
     }
 }
 
-/// How a tracking gate re-centres itself.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Follow {
-    None,
-    Centroid,
-    EarlyLate,
+crate::block_choice! {
+    /// How a tracking gate re-centres itself.
+    pub enum Follow { None = "none", Centroid = "centroid", EarlyLate = "early_late" }
 }
 
 impl Follow {
-    pub const NAMES: &'static [&'static str] = &["none", "centroid", "early_late"];
-    pub fn from_name(s: &str) -> Option<Follow> {
-        match s {
-            "none" => Some(Follow::None),
-            "centroid" => Some(Follow::Centroid),
-            "early_late" => Some(Follow::EarlyLate),
-            _ => None,
-        }
-    }
     pub fn accumulator() -> FollowAccumulator {
         FollowAccumulator::default()
     }

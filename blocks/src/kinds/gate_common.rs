@@ -11,8 +11,10 @@
 use crate::block::{Block, BlockError, Outputs};
 use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
 use crate::dsp::timing_check::ScheduleCheck;
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, Notice, SampleChunk, Severity, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
+use crate::typed::FromParam;
 use num_complex::Complex32;
 use std::collections::VecDeque;
 use std::sync::Arc;
@@ -333,6 +335,20 @@ impl<K: GateKind> SwitchGate<K> {
 }
 
 impl<K: GateKind> Block for SwitchGate<K> {
+    /// The gate names the lobes of what it hands on; sync timing needs a
+    /// sync channel, refused before the run when the capture has none.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let mut facts = facts.merged();
+        let cfg = &self.driver.cfg;
+        if cfg.timing == SwitchTiming::Sync && facts.channels.is_some_and(|c| !c.sync) {
+            return Err(BlockError::new(
+                "parameter 'timing' is 'sync' but the capture has no sync channel; map one, or use timing: schedule",
+            ));
+        }
+        facts.lobes = Some(cfg.names.iter().cloned().collect());
+        Ok(facts)
+    }
+
     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(piece) = K::Piece::from_item(item) else {
             return Ok(());
@@ -362,10 +378,20 @@ impl<K: GateKind> Block for SwitchGate<K> {
     }
 }
 
+crate::block_choice! {
+    /// Where a gate learns the lobe timing.
+    pub enum SwitchTiming {
+        /// From the recorded sync channel.
+        Sync = "sync",
+        /// From a known schedule (`dwell`, `first_start`).
+        Schedule = "schedule",
+    }
+}
+
 /// The gate parameters, checked once at build time.
 pub struct GateConfig {
     pub names: Vec<Arc<str>>,
-    pub sync_timing: bool,
+    pub timing: SwitchTiming,
     params: Params,
 }
 
@@ -383,14 +409,14 @@ impl GateConfig {
                 return Err(format!("lobe name '{a}' appears twice in 'lobes'"));
             }
         }
-        let sync_timing = p.text("timing")? == "sync";
-        if !sync_timing
+        let timing = SwitchTiming::from_param(p, &GATE_TIMING_PARAM)?;
+        if timing == SwitchTiming::Schedule
             && p.get("dwell")
                 .is_some_and(|v| matches!(v, Value::Seconds(s) | Value::Samples(s) | Value::Pulses(s) if *s <= 0.0))
         {
             return Err("timing 'schedule' needs a 'dwell' longer than zero".into());
         }
-        Ok(GateConfig { names: list.iter().map(|n| Arc::from(n.as_str())).collect(), sync_timing, params: p.clone() })
+        Ok(GateConfig { names: list.iter().map(|n| Arc::from(n.as_str())).collect(), timing, params: p.clone() })
     }
 
     /// True when a time parameter is given in pulses (the caller must know the PRI).
@@ -404,7 +430,7 @@ impl GateConfig {
 
     /// Schedule timing: the cross-check of the schedule against the signal.
     pub fn schedule_check(&self, rate: f64, pri: Option<f64>, guard: u64) -> Result<Option<ScheduleCheck>, String> {
-        if self.sync_timing {
+        if self.timing == SwitchTiming::Sync {
             return Ok(None);
         }
         let (first_start, dwell) = (self.samples("first_start", rate, pri)?, self.samples("dwell", rate, pri)?);
@@ -420,7 +446,7 @@ impl GateConfig {
                 "guard of {guard} samples is not shorter than the dwell of {dwell} samples at {rate} S/s; every sample would be left out"
             ));
         }
-        let source = if self.sync_timing {
+        let source = if self.timing == SwitchTiming::Sync {
             SwitchSync::from_sync(SyncSettings {
                 names: self.names.clone(),
                 learn: self.samples("learn", rate, pri)?.round().max(0.0) as usize,
@@ -504,6 +530,13 @@ pub fn is_switch_report(what: &str) -> bool {
     what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
 }
 
+const GATE_TIMING_PARAM: ParamSpec = ParamSpec {
+    name: "timing",
+    ty: ParamType::Choice(SwitchTiming::WORDS),
+    default: Some("sync"),
+    doc: "lobe timing from the sync channel, or from a known schedule",
+};
+
 /// The parameters of both gates; `pulses` lets times be given in pulses.
 pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
     [
@@ -513,12 +546,7 @@ pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
             default: Some("up,right,down,left"),
             doc: "lobe names in switch order; the i-th has the i-th lowest sync level",
         },
-        ParamSpec {
-            name: "timing",
-            ty: ParamType::Choice(&["sync", "schedule"]),
-            default: Some("sync"),
-            doc: "lobe timing from the sync channel, or from a known schedule",
-        },
+        GATE_TIMING_PARAM,
         ParamSpec {
             name: "dwell",
             ty: time(0.0, pulses),

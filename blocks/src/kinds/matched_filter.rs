@@ -5,67 +5,106 @@
 //! The output is divided by the root of the reference energy, so white noise
 //! keeps its power per sample.
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::spectrum::{OverlapSave, linear_chirp};
+use crate::error::{BuildError, ParamError};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, ItemKind, SampleChunk, Stamp};
-use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::param::{ParamType, Unit};
+use crate::typed::{TimeSetting, TypedBlock};
 use num_complex::Complex32;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// Longest reference accepted (the FFT size is four times this).
 const MAX_TAPS: usize = 1 << 16;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "matched_filter",
-    doc: "Pulse compression: correlates the samples with the transmitted pulse (rect, linear chirp or a taps file) \
-          by FFT overlap-save; an echo starting at sample n peaks at sample n, noise power per sample is kept.",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "baseband samples")],
-    outputs: &[PortSpec::optional(
-        "samples",
-        ItemKind::Samples,
-        "compressed samples, same stamps, aux channels aligned",
-    )],
-    params: &[
-        ParamSpec {
-            name: "code",
-            ty: ParamType::Choice(&["rect", "chirp", "taps"]),
+pub const SPEC: BlockSpec = BlockSpec::typed::<MatchedFilter>(
+    "matched_filter",
+    "Pulse compression: correlates the samples with the transmitted pulse (rect, linear chirp or a taps file) \
+     by FFT overlap-save; an echo starting at sample n peaks at sample n, noise power per sample is kept.",
+);
+
+crate::block_ports! {
+    inputs pub enum MatchedFilterIn { Samples = required("samples", ItemKind::Samples, "baseband samples") }
+}
+
+crate::block_ports! {
+    outputs pub enum MatchedFilterOut {
+        Samples = optional("samples", ItemKind::Samples, "compressed samples, same stamps, aux channels aligned"),
+    }
+}
+
+crate::block_choice! {
+    /// The transmitted pulse the samples are correlated with.
+    pub enum PulseCode { Rect = "rect", Chirp = "chirp", Taps = "taps" }
+}
+
+crate::block_settings! {
+    /// Settings of `matched_filter`.
+    pub struct MatchedFilterSettings {
+        code: PulseCode {
+            ty: ParamType::Choice(PulseCode::WORDS),
             default: Some("rect"),
             doc: "the transmitted pulse: rect, chirp (linear, centred on 0 Hz) or a taps file",
         },
-        ParamSpec {
-            name: "pulse",
+        pulse: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: 0.1, pulses: false },
             default: Some("16 samples"),
             doc: "pulse length for rect and chirp",
         },
-        ParamSpec {
-            name: "bandwidth",
+        bandwidth: f64 {
             ty: ParamType::Number { unit: Unit::Hertz, min: -5e9, max: 5e9 },
             default: Some("1 MHz"),
             doc: "chirp sweep width (negative sweeps down)",
         },
-        ParamSpec {
-            name: "taps",
+        taps: PathBuf {
             ty: ParamType::InputPath,
             default: Some(""),
             doc: "CSV of re,im per line (im optional; # comments; an optional header line) for code: taps",
         },
-    ],
-    build,
-};
+    }
+}
 
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
-    let code = p.text("code")?.to_string();
-    let reference = if code == "taps" {
-        let path = p.text("taps")?;
-        if path.is_empty() {
-            return Err("matched_filter: code 'taps' needs the 'taps' file".into());
+impl TypedBlock for MatchedFilter {
+    type Settings = MatchedFilterSettings;
+    type In = MatchedFilterIn;
+    type Out = MatchedFilterOut;
+
+    fn build(s: MatchedFilterSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        let taps = match s.code {
+            PulseCode::Taps if s.taps.as_os_str().is_empty() => {
+                return Err(ParamError::invalid("taps", "code 'taps' needs the 'taps' file").into());
+            }
+            PulseCode::Taps => Some(read_taps(&s.taps)?),
+            PulseCode::Rect | PulseCode::Chirp => None,
+        };
+        Ok(MatchedFilter { settings: s, taps, reference: None, stream: None, notices: 0 })
+    }
+
+    /// A known rate makes the reference now, so a pulse or chirp the rate
+    /// cannot hold is refused before the run.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let facts = facts.merged();
+        if let Some(rate) = facts.rate {
+            self.reference(rate)?;
         }
-        Some(read_taps(Path::new(path))?)
-    } else {
-        None
-    };
-    Ok(Box::new(MatchedFilter { params: p.clone(), code, reference, stream: None, notices: 0 }))
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: MatchedFilterIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (MatchedFilterIn::Samples, Item::Samples(chunk)) => self.take(chunk, out),
+            (MatchedFilterIn::Samples, _) => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        if let Some(s) = &mut self.stream {
+            s.flush(out);
+        }
+        self.stream = None;
+        Ok(())
+    }
 }
 
 /// Read a taps CSV: `re[,im]` per line; `#` starts a comment; the first line may be a header.
@@ -113,45 +152,58 @@ struct Stream {
     out: Vec<Complex32>,
 }
 
-struct MatchedFilter {
-    params: Params,
-    code: String,
-    reference: Option<Vec<Complex32>>,
+pub struct MatchedFilter {
+    settings: MatchedFilterSettings,
+    /// The taps file's reference, for code `taps`.
+    taps: Option<Vec<Complex32>>,
+    /// The reference made for one sample rate.
+    reference: Option<(f64, Vec<Complex32>)>,
     stream: Option<Stream>,
     notices: u64,
 }
 
 impl MatchedFilter {
-    fn reference(&self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
+    /// The reference at `rate`, made once per rate.
+    fn reference(&mut self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
+        match &self.reference {
+            Some((r, h)) if *r == rate => Ok(h.clone()),
+            _ => {
+                let h = self.make_reference(rate)?;
+                self.reference = Some((rate, h.clone()));
+                Ok(h)
+            }
+        }
+    }
+
+    fn make_reference(&self, rate: f64) -> Result<Vec<Complex32>, BlockError> {
         if !(rate.is_finite() && rate > 0.0) {
             return Err(BlockError::new(format!("matched_filter: chunk carries a sample rate of {rate} S/s")));
         }
-        if let Some(r) = &self.reference {
+        if let Some(r) = &self.taps {
             return Ok(r.clone());
         }
-        let len = self.params.samples_at("pulse", rate, None).map_err(BlockError::new)?.round();
+        let len = self.settings.pulse.samples(rate, None)?.round();
         if !(1.0..=MAX_TAPS as f64).contains(&len) {
-            return Err(BlockError::new(format!(
-                "matched_filter: pulse is {len} samples at {rate} S/s (1 to {MAX_TAPS})"
-            )));
+            return Err(ParamError::invalid("pulse", format!("{len} samples at {rate} S/s (1 to {MAX_TAPS})")).into());
         }
         let len = len as usize;
-        Ok(match self.code.as_str() {
-            "chirp" => {
-                let bw = self.params.num("bandwidth").map_err(BlockError::new)? / rate;
+        Ok(match self.settings.code {
+            PulseCode::Chirp => {
+                let bw = self.settings.bandwidth / rate;
                 if bw.abs() > 1.0 {
-                    return Err(BlockError::new(format!(
-                        "matched_filter: chirp bandwidth is {:.3} times the sample rate (at most 1)",
-                        bw.abs()
-                    )));
+                    return Err(ParamError::invalid(
+                        "bandwidth",
+                        format!("the chirp sweeps {:.3} times the sample rate (at most 1)", bw.abs()),
+                    )
+                    .into());
                 }
                 linear_chirp(len, bw)
             }
-            _ => vec![Complex32::new(1.0, 0.0); len],
+            PulseCode::Rect | PulseCode::Taps => vec![Complex32::new(1.0, 0.0); len],
         })
     }
 
-    fn start(&mut self, chunk: &SampleChunk) -> Result<Stream, BlockError> {
+    fn start_stream(&mut self, chunk: &SampleChunk) -> Result<Stream, BlockError> {
         let h = self.reference(chunk.stamp.rate)?;
         let energy: f64 = h.iter().map(|x| x.norm_sqr() as f64).sum();
         let engine = OverlapSave::new(&h, (1.0 / energy.sqrt()) as f32).map_err(BlockError::new)?;
@@ -164,6 +216,35 @@ impl MatchedFilter {
             trigger: chunk.trigger.as_ref().map(|_| Vec::new()),
             out: Vec::new(),
         })
+    }
+
+    fn take(&mut self, chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
+        if chunk.is_empty() {
+            return Ok(());
+        }
+        if let Some(s) = &mut self.stream
+            && !s.fits(&chunk)
+        {
+            s.flush(out);
+            self.notices += 1;
+            if self.notices <= 3 {
+                out.warn(
+                    chunk.stamp,
+                    format!(
+                        "input jumps from sample {} (or its channels or rate change); the filter restarts",
+                        s.next_in
+                    ),
+                );
+            }
+            self.stream = None;
+        }
+        if self.stream.is_none() {
+            self.stream = Some(self.start_stream(&chunk)?);
+        }
+        if let Some(s) = &mut self.stream {
+            s.feed(&chunk, out);
+        }
+        Ok(())
     }
 }
 
@@ -207,48 +288,6 @@ impl Stream {
             trigger: take(&mut self.trigger),
         };
         self.next_out += n as u64;
-        out.push(0, Item::Samples(chunk));
-    }
-}
-
-impl Block for MatchedFilter {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Samples(chunk) = item else {
-            return Ok(());
-        };
-        if chunk.is_empty() {
-            return Ok(());
-        }
-        if let Some(s) = &mut self.stream
-            && !s.fits(&chunk)
-        {
-            s.flush(out);
-            self.notices += 1;
-            if self.notices <= 3 {
-                out.warn(
-                    chunk.stamp,
-                    format!(
-                        "input jumps from sample {} (or its channels or rate change); the filter restarts",
-                        s.next_in
-                    ),
-                );
-            }
-            self.stream = None;
-        }
-        if self.stream.is_none() {
-            self.stream = Some(self.start(&chunk)?);
-        }
-        if let Some(s) = &mut self.stream {
-            s.feed(&chunk, out);
-        }
-        Ok(())
-    }
-
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        if let Some(s) = &mut self.stream {
-            s.flush(out);
-        }
-        self.stream = None;
-        Ok(())
+        out.push(MatchedFilterOut::Samples, Item::Samples(chunk));
     }
 }

@@ -3,163 +3,185 @@
 //! strongest echo. Formulas: docs/derivations.md §4-5; the per-dwell
 //! arithmetic lives in [`crate::dsp::gate`].
 
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::gate::{AmplitudeFrom, DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
+use crate::error::{BuildError, ParamError};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep};
-use crate::param::{ParamSpec, ParamType, Params, Unit, range_bin_m};
+use crate::param::{ParamType, Unit, range_bin_m};
+use crate::typed::{DistanceSetting, TimeSetting, TypedBlock};
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
 const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "range_gate",
-    doc: "Integrates a range gate over each lobe dwell of labelled sweeps (noncoherent power or coherent mean), \
-          with noise from a reference region, sub-bin range from the gate's amplitude centroid, an optional \
-          acquire-and-follow gate, and a check that the lobes share one noise floor.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe and dwell")],
-    outputs: &[PortSpec::optional("dwells", ItemKind::Dwell, "one record per lobe dwell")],
-    params: &[
-        ParamSpec {
-            name: "gate_start",
+pub const SPEC: BlockSpec = BlockSpec::typed::<RangeGate>(
+    "range_gate",
+    "Integrates a range gate over each lobe dwell of labelled sweeps (noncoherent power or coherent mean), \
+     with noise from a reference region, sub-bin range from the gate's amplitude centroid, an optional \
+     acquire-and-follow gate, and a check that the lobes share one noise floor.",
+);
+
+crate::block_ports! {
+    inputs pub enum RangeGateIn {
+        Sweeps = required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe and dwell"),
+    }
+}
+
+crate::block_ports! {
+    outputs pub enum RangeGateOut { Dwells = optional("dwells", ItemKind::Dwell, "one record per lobe dwell") }
+}
+
+crate::block_settings! {
+    /// Settings of `range_gate`.
+    pub struct RangeGateSettings {
+        gate_start: DistanceSetting {
             ty: DIST,
             default: Some("0 bins"),
             doc: "first range bin of the gate (m or bins); required unless acquire is on",
         },
-        ParamSpec {
-            name: "gate_width",
+        gate_width: DistanceSetting {
             ty: DIST,
             default: Some("2 bins"),
             doc: "gate width; keep it near the echo length plus one bin",
         },
-        ParamSpec {
-            name: "acquire",
+        acquire: bool {
             ty: ParamType::Bool,
             default: Some("false"),
             doc: "find the strongest echo in the search window and centre the gate on it",
         },
-        ParamSpec {
-            name: "search_start",
+        search_start: DistanceSetting {
             ty: DIST,
             default: Some("0 bins"),
             doc: "start of the acquisition search window",
         },
-        ParamSpec {
-            name: "search_end",
+        search_end: DistanceSetting {
             ty: DIST,
             default: Some("0 bins"),
             doc: "end of the search window; 0 = up to the noise region / sweep end",
         },
-        ParamSpec {
-            name: "acquire_dwells",
+        acquire_dwells: u64 {
             ty: ParamType::Integer { min: 1, max: 10_000 },
             default: Some("4"),
             doc: "dwells (all lobes) summed to acquire; they are not reported",
         },
-        ParamSpec {
-            name: "follow",
-            ty: ParamType::Choice(Follow::NAMES),
+        follow: Follow {
+            ty: ParamType::Choice(Follow::WORDS),
             default: Some("none"),
             doc: "re-centre the gate each lobe cycle: none, centroid, or early_late split gate",
         },
-        ParamSpec {
-            name: "pulse",
+        pulse: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
             default: Some("1 samples"),
             doc: "echo length (1 sample after a matched filter); its centre offset is taken off the range",
         },
-        ParamSpec {
-            name: "integration",
-            ty: ParamType::Choice(Integration::NAMES),
+        integration: Integration {
+            ty: ParamType::Choice(Integration::WORDS),
             default: Some("noncoherent"),
             doc: "noncoherent (sum of power) or coherent (complex mean per gate bin, then power)",
         },
-        ParamSpec {
-            name: "centroid",
-            ty: ParamType::Choice(Weighting::NAMES),
+        centroid: Weighting {
+            ty: ParamType::Choice(Weighting::WORDS),
             default: Some("amplitude"),
             doc: "range centroid weights: amplitude (exact for any box echo) or power (less spread in wide gates, e.g. after a matched filter)",
         },
-        ParamSpec {
-            name: "amplitude_from",
-            ty: ParamType::Choice(AmplitudeFrom::NAMES),
+        amplitude_from: AmplitudeFrom {
+            ty: ParamType::Choice(AmplitudeFrom::WORDS),
             default: Some("gate"),
             doc: "gate: echo energy summed over the gate; after a matched filter: peak (the centre bin alone), interpolated (the output at the echo's fitted fractional delay: the single-sample limit at any delay, and the range) or compressed_gate (summed, spread from the correlated bins); the last two need noncoherent integration",
         },
-        ParamSpec {
-            name: "noise_start",
+        noise_start: DistanceSetting {
             ty: DIST,
             default: Some("0 bins"),
             doc: "start of the noise reference region; 0 = the last noise_width bins of each sweep",
         },
-        ParamSpec {
-            name: "noise_width",
+        noise_width: DistanceSetting {
             ty: DIST,
             default: Some("32 bins"),
             doc: "width of the noise reference region",
         },
-        ParamSpec {
-            name: "detect",
+        detect: f64 {
             ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 100.0 },
             default: Some("0"),
             doc: "echo energy must exceed this many standard deviations of noise alone in the gate, else the dwell has no signal (0: only a positive energy; 3-4 where a lobe may sit in its null, at the price of a bias near the threshold)",
         },
-        ParamSpec {
-            name: "noise_margin",
+        noise_margin: f64 {
             ty: ParamType::Number { unit: Unit::Decibels, min: 0.0, max: 60.0 },
             default: Some("3 dB"),
             doc: "report lobes whose noise floors differ by more than this",
         },
-    ],
-    build,
-};
-
-fn build(p: &Params, _: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
-    let acquire = p.flag("acquire")?;
-    let follow = Follow::from_name(p.text("follow")?).ok_or("follow: unknown mode")?;
-    let integration = Integration::from_name(p.text("integration")?).ok_or("integration: unknown mode")?;
-    let amplitude_from = AmplitudeFrom::from_name(p.text("amplitude_from")?).ok_or("amplitude_from: unknown mode")?;
-    if amplitude_from.compressed() && integration != Integration::Noncoherent {
-        return Err(
-            "range_gate: amplitude_from 'interpolated' and 'compressed_gate' need integration 'noncoherent'".into()
-        );
     }
-    // Distances can only become bins once the sample rate is known; check what we can now.
-    for name in ["gate_start", "gate_width", "search_start", "search_end", "noise_start", "noise_width", "pulse"] {
-        p.get(name).ok_or_else(|| format!("parameter '{name}' has no value"))?;
-    }
-    if !acquire && is_zero(p, "gate_start") {
-        return Err("range_gate: set 'gate_start' (bin 0 is the transmit instant) or turn on 'acquire'".into());
-    }
-    Ok(Box::new(RangeGate {
-        params: p.clone(),
-        acquire,
-        acquire_dwells: p.int("acquire_dwells")?.max(1) as u64,
-        follow,
-        integration,
-        weighting: Weighting::from_name(p.text("centroid")?).ok_or("centroid: unknown weighting")?,
-        amplitude_from,
-        noise_margin_db: p.num("noise_margin")?,
-        detect_sigmas: p.num("detect")?,
-        geometry: None,
-        gate_start: None,
-        acq: None,
-        cycle: Follow::accumulator(),
-        last_lobe: None,
-        current: None,
-        skipped_short: 0,
-        untagged: 0,
-        no_noise: 0,
-        before_transmit: 0,
-        noise_floor: BTreeMap::new(),
-        mismatch_reported: false,
-        blank_reported: false,
-        last_stamp: Stamp::new(0, 1.0),
-    }))
 }
 
-fn is_zero(p: &Params, name: &str) -> bool {
-    matches!(p.get(name), Some(crate::param::Value::Bins(b)) | Some(crate::param::Value::Metres(b)) if *b == 0.0)
+impl TypedBlock for RangeGate {
+    type Settings = RangeGateSettings;
+    type In = RangeGateIn;
+    type Out = RangeGateOut;
+
+    fn build(s: RangeGateSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        if s.amplitude_from.compressed() && s.integration != Integration::Noncoherent {
+            return Err(ParamError::invalid(
+                "amplitude_from",
+                format!("'{}' needs integration 'noncoherent' (it is '{}')", s.amplitude_from, s.integration),
+            )
+            .into());
+        }
+        if !s.acquire && s.gate_start.is_zero() {
+            return Err(ParamError::invalid(
+                "gate_start",
+                "set it (bin 0 is the transmit instant) or turn on 'acquire'",
+            )
+            .into());
+        }
+        Ok(RangeGate {
+            acquire: s.acquire,
+            acquire_dwells: s.acquire_dwells.max(1),
+            follow: s.follow,
+            integration: s.integration,
+            weighting: s.centroid,
+            amplitude_from: s.amplitude_from,
+            noise_margin_db: s.noise_margin,
+            detect_sigmas: s.detect,
+            settings: s,
+            geometry: None,
+            gate_start: None,
+            acq: None,
+            cycle: Follow::accumulator(),
+            last_lobe: None,
+            current: None,
+            skipped_short: 0,
+            untagged: 0,
+            no_noise: 0,
+            before_transmit: 0,
+            noise_floor: BTreeMap::new(),
+            mismatch_reported: false,
+            blank_reported: false,
+            last_stamp: Stamp::new(0, 1.0),
+        })
+    }
+
+    /// A known rate turns the distances into bins now, so a bad one is
+    /// refused before the run.
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
+        let facts = facts.merged();
+        if let Some(rate) = facts.rate {
+            self.geometry(rate, 0)?;
+        }
+        Ok(facts)
+    }
+
+    fn process(&mut self, port: RangeGateIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        match (port, item) {
+            (RangeGateIn::Sweeps, Item::Sweep(sweep)) => self.take(sweep, out),
+            (RangeGateIn::Sweeps, _) => Ok(()),
+        }
+    }
+
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        self.close_dwell(out);
+        self.report(out);
+        Ok(())
+    }
 }
 
 /// Parameters converted to whole bins at one sample rate.
@@ -177,43 +199,46 @@ struct Geometry {
     pulse_samples: f64,
 }
 
-fn whole_bins(p: &Params, name: &str, rate: f64) -> Result<usize, BlockError> {
-    let b = p.bins_at(name, rate).map_err(BlockError::new)?;
+fn whole_bins(name: &str, d: &DistanceSetting, rate: f64) -> Result<usize, ParamError> {
+    let b = d.bins(rate)?;
     if !(0.0..=1e8).contains(&b) {
-        return Err(BlockError::new(format!("range_gate: '{name}' is {b} bins at {rate} S/s; too large")));
+        return Err(ParamError::invalid(name, format!("{b} bins at {rate} S/s; too large")));
     }
     Ok(b.round() as usize)
 }
 
 impl Geometry {
-    fn resolve(p: &Params, rate: f64) -> Result<Geometry, BlockError> {
+    fn resolve(s: &RangeGateSettings, rate: f64) -> Result<Geometry, BlockError> {
         if !(rate.is_finite() && rate > 0.0) {
             return Err(BlockError::new(format!("range_gate: sweeps carry a sample rate of {rate} S/s")));
         }
-        let noise_start = whole_bins(p, "noise_start", rate)?;
-        let pulse = p.samples_at("pulse", rate, None).map_err(BlockError::new)?;
+        let noise_start = whole_bins("noise_start", &s.noise_start, rate)?;
+        let pulse = s.pulse.samples(rate, None)?;
         if !(pulse.is_finite() && (0.0..=1e8).contains(&pulse)) {
-            return Err(BlockError::new(format!("range_gate: 'pulse' is {pulse} samples at {rate} S/s")));
+            return Err(ParamError::invalid("pulse", format!("{pulse} samples at {rate} S/s")).into());
         }
         let g = Geometry {
             rate,
-            gate_start: whole_bins(p, "gate_start", rate)?,
-            gate_width: whole_bins(p, "gate_width", rate)?.max(1),
-            search_start: whole_bins(p, "search_start", rate)?,
-            search_end: whole_bins(p, "search_end", rate)?,
+            gate_start: whole_bins("gate_start", &s.gate_start, rate)?,
+            gate_width: whole_bins("gate_width", &s.gate_width, rate)?.max(1),
+            search_start: whole_bins("search_start", &s.search_start, rate)?,
+            search_end: whole_bins("search_end", &s.search_end, rate)?,
             noise_start: (noise_start > 0).then_some(noise_start),
-            noise_width: whole_bins(p, "noise_width", rate)?.max(1),
+            noise_width: whole_bins("noise_width", &s.noise_width, rate)?.max(1),
             pulse_samples: pulse.round().max(1.0),
         };
         if g.search_end != 0 && g.search_end < g.search_start + g.gate_width {
-            return Err(BlockError::new(format!(
-                "range_gate: search window {}..{} bins is narrower than the gate ({} bins)",
-                g.search_start, g.search_end, g.gate_width
-            )));
+            return Err(ParamError::invalid(
+                "search_end",
+                format!(
+                    "search window {}..{} bins is narrower than the gate ({} bins)",
+                    g.search_start, g.search_end, g.gate_width
+                ),
+            )
+            .into());
         }
         Ok(g)
     }
-
     /// The noise reference bins of a sweep of `len` samples.
     fn noise_range(&self, len: usize) -> std::ops::Range<usize> {
         match self.noise_start {
@@ -237,8 +262,8 @@ struct Current {
     sums: Option<DwellSums>,
 }
 
-struct RangeGate {
-    params: Params,
+pub struct RangeGate {
+    settings: RangeGateSettings,
     acquire: bool,
     acquire_dwells: u64,
     follow: Follow,
@@ -275,7 +300,7 @@ impl RangeGate {
                 Err(BlockError::at(format!("range_gate: sample rate changed from {} to {rate} S/s", g.rate), at))
             }
             None => {
-                let g = Geometry::resolve(&self.params, rate)?;
+                let g = Geometry::resolve(&self.settings, rate)?;
                 if !self.acquire {
                     self.gate_start = Some(g.gate_start);
                 }
@@ -435,7 +460,7 @@ impl RangeGate {
             range_m = None;
         }
         out.push(
-            0,
+            RangeGateOut::Dwells,
             Item::Dwell(DwellRecord {
                 tag: cur.tag,
                 mid,
@@ -491,11 +516,8 @@ impl RangeGate {
     }
 }
 
-impl Block for RangeGate {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Sweep(sweep) = item else {
-            return Ok(());
-        };
+impl RangeGate {
+    fn take(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(tag) = sweep.lobe.clone() else {
             self.untagged += 1;
             if self.untagged == 1 {
@@ -514,8 +536,8 @@ impl Block for RangeGate {
         Ok(())
     }
 
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        self.close_dwell(out);
+    /// The counts of skipped sweeps and dwells, at the end.
+    fn report(&self, out: &mut Outputs) {
         let end = self.last_stamp;
         if self.skipped_short > 0 {
             out.warn(end, format!("{} sweeps were shorter than the range gate and were skipped", self.skipped_short));
@@ -532,12 +554,11 @@ impl Block for RangeGate {
                 format!("{} dwells gave a range before the transmit instant; left empty", self.before_transmit),
             );
         }
-        if self.acquire && self.gate_start.is_none() && self.geometry.is_some() {
+        if self.acquire && self.gate_start.is_none() && self.acq.is_some() {
             out.warn(
                 end,
                 format!("acquisition did not finish: fewer than {} dwells and a cycle start", self.acquire_dwells),
             );
         }
-        Ok(())
     }
 }
