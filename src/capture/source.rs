@@ -279,6 +279,14 @@ impl CaptureSource {
 impl Block for CaptureSource {
     /// The header read when the source was built gives the rate and channels.
     fn start(&mut self, _: &Facts) -> Result<StreamFacts, BlockError> {
+        // Said here, before the blocks downstream judge their settings
+        // against a rate that no sample will ever come with.
+        if self.reader.info().data_bytes == Some(0) {
+            return Err(BlockError::at(
+                format!("{}: the capture holds no samples: its sample data is 0 bytes long", self.reader.info().path),
+                0,
+            ));
+        }
         let rate = self.reader.info().rate;
         Ok(StreamFacts {
             rate: (rate.is_finite() && rate > 0.0).then_some(rate),
