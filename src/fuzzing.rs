@@ -1,5 +1,5 @@
 //! Entry points for the fuzz targets under `fuzz/` and their regression
-//! tests (`tests/hostile_fuzz_inputs.rs`, on stable): each takes arbitrary
+//! tests (`tests/suite/hostile_fuzz_inputs.rs`, on stable): each takes arbitrary
 //! bytes, feeds them to one parser the way a user's file would reach it,
 //! and returns what it made of them. None may panic, hang or allocate
 //! without bound; errors must say where (checked by [`error_has_place`]).
