@@ -16,13 +16,13 @@
 //! ```
 //!
 //! Where things live: `graph` reads and checks graph files, `runtime`
-//! schedules blocks, `capture` reads and writes recordings (pictures are
-//! drawn by `lobeflow_blocks::pictures`),
+//! schedules blocks; recordings are read and written by
+//! `lobeflow_blocks::capture` (re-exported as `capture`) and pictures are
+//! drawn by `lobeflow_blocks::pictures`;
 //! `commands` holds the entry points of the `lobeflow` command.
 
 pub mod batch;
 pub mod calibrate;
-pub mod capture;
 pub mod commands;
 pub mod config;
 pub mod error;
@@ -40,20 +40,16 @@ pub mod synth;
 pub use capture::live::{PushFormat, SampleFeeder};
 pub use error::Error;
 pub use lobeflow_blocks as blocks;
+/// Reading and writing recordings; kept at this path for the crate's own modules.
+pub use lobeflow_blocks::capture;
 pub use session::{ItemStream, PortStream, Session};
 
-/// Every block kind the `lobeflow` command knows: the standard DSP blocks of
-/// `lobeflow-blocks` (pictures included) plus the capture readers and writers
-/// and the external-program kind of this crate.
+/// Every block kind the `lobeflow` command knows: the standard kinds of
+/// `lobeflow-blocks` (capture readers and writers and pictures included)
+/// plus the external-program kind of this crate.
 pub fn registry() -> lobeflow_blocks::Registry {
     let mut r = lobeflow_blocks::standard_registry();
-    for spec in FILE_KINDS {
-        r.register(*spec);
-    }
     // Declared per instance by the program it runs.
     r.register_described(external::SPEC, external::describe_instance);
     r
 }
-
-/// Block kinds of this crate (they read or write files), one entry each.
-const FILE_KINDS: &[lobeflow_blocks::BlockSpec] = &[capture::source::SPEC, capture::sink::SPEC];

@@ -1,7 +1,7 @@
 //! # lobeflow-blocks
 //!
-//! The block trait, the stream items and the standard signal-processing
-//! blocks of lobeflow, a toolkit for lobe-switching angle trackers. This
+//! The block trait, the stream items, the standard signal-processing
+//! blocks and the capture readers and writers ([`capture`]) of lobeflow, a toolkit for lobe-switching angle trackers. This
 //! crate is all a researcher needs to write a new block: implement
 //! [`Block`], declare a [`BlockSpec`], and register it in a [`Registry`].
 //!
@@ -16,6 +16,7 @@
 //! ```
 
 pub mod block;
+pub mod capture;
 pub mod decimal;
 pub mod dsp;
 pub mod error;
@@ -65,7 +66,7 @@ pub struct DevelopersGuide;
 /// A registry holding every standard block kind of this crate.
 pub fn standard_registry() -> Registry {
     let mut r = Registry::new();
-    for spec in kinds::ALL {
+    for spec in kinds::ALL.iter().chain(capture::ALL) {
         r.register(*spec);
     }
     #[cfg(feature = "pictures")]

@@ -8,7 +8,7 @@
 
 use super::datatype::{DataType, SampleFormat};
 use super::sigmf_meta::SigmfMeta;
-use lobeflow_blocks::BlockError;
+use crate::BlockError;
 use std::io::Read;
 use std::path::Path;
 

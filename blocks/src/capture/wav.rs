@@ -7,7 +7,7 @@ use super::raw::check_whole_frames;
 use super::reader::{
     CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
-use lobeflow_blocks::BlockError;
+use crate::BlockError;
 use std::fs::File;
 use std::io::{BufReader, Read};
 

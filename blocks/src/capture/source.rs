@@ -4,7 +4,7 @@
 use super::live::{LiveEnd, LiveMonitor, PushedInput};
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
-use lobeflow_blocks::{
+use crate::{
     Block, BlockError, BlockSpec, BuildContext, Facts, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec,
     Stamp, StreamFacts, Unit,
 };
@@ -85,7 +85,7 @@ pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
     })
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
+fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
     build_in_run(p, ctx, &RunHooks::default())
 }
 
@@ -100,11 +100,7 @@ pub struct RunHooks {
 
 /// Build a capture reader for a run: a pushed input when there is one, the
 /// path otherwise. A live input ends early when the run's `end_input` is raised.
-pub fn build_in_run(
-    p: &Params,
-    ctx: &BuildContext,
-    hooks: &RunHooks,
-) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
+pub fn build_in_run(p: &Params, ctx: &BuildContext, hooks: &RunHooks) -> Result<Box<dyn Block>, crate::BuildError> {
     let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
         Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
         None => open(p.text("path")?, &open_options(p)?).map_err(|e| e.to_string())?,

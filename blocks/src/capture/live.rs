@@ -13,8 +13,8 @@
 
 use super::raw::raw_info;
 use super::reader::{CaptureInfo, CaptureReader, OpenOptions};
+use crate::BlockError;
 use crossbeam_channel::{Receiver, RecvTimeoutError, Sender, TryRecvError, bounded};
-use lobeflow_blocks::BlockError;
 use num_complex::Complex32;
 use std::io::Read;
 use std::sync::atomic::{AtomicU8, AtomicU64, Ordering};

@@ -3,7 +3,7 @@
 //! the assembly of decoded frames into [`SampleChunk`]s.
 
 use super::reader::CaptureInfo;
-use lobeflow_blocks::{BlockError, BufferPool, Channels, SampleChunk, Span, Stamp};
+use crate::{BlockError, BufferPool, Channels, SampleChunk, Span, Stamp};
 use num_complex::Complex32;
 use std::sync::Arc;
 

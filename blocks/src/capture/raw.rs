@@ -3,8 +3,8 @@
 
 use super::datatype::DataType;
 use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions};
-use lobeflow_blocks::param::num_text;
-use lobeflow_blocks::{BlockError, MAX_SAMPLE_RATE};
+use crate::param::num_text;
+use crate::{BlockError, MAX_SAMPLE_RATE};
 use std::fs::File;
 use std::io::BufReader;
 use std::path::Path;
@@ -31,7 +31,7 @@ pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError
     }
 }
 
-pub(crate) fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, BlockError> {
+pub fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, BlockError> {
     let datatype = raw_datatype(path, opts)?;
     let rate = raw_rate(path, opts)?;
     let channels = check_channels(path, opts.channels.unwrap_or(1).max(1) as u64, "channels")?;

@@ -3,7 +3,7 @@
 
 use super::sigmf_meta::Annotation;
 use super::write::{AuxRole, CaptureWriter, WriteFormat, WriterConfig};
-use lobeflow_blocks::{
+use crate::{
     BlockError, BlockSpec, BuildContext, BuildError, Choice, FileStager, Item, ItemKind, LobeSegment, NoPorts, Outputs,
     ParamError, ParamType, SampleChunk, Stamp, TypedBlock, block_choice, block_ports, block_settings,
 };
@@ -251,7 +251,7 @@ impl CaptureSink {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::{LobeTag, Params, Value};
+    use crate::{LobeTag, Params, Value};
     use num_complex::Complex32;
     use std::sync::Arc;
 

@@ -18,7 +18,7 @@
 
 use super::datatype::{DataType, SampleFormat};
 use super::sigmf_meta::{Annotation, Capture, Global, SIGMF_VERSION, SigmfMeta};
-use lobeflow_blocks::{FileStager, OutputFile};
+use crate::{FileStager, OutputFile};
 use num_complex::Complex32;
 use serde_json::Map;
 use std::io::{Seek, SeekFrom, Write};

@@ -16,3 +16,6 @@ pub mod sink;
 pub mod write;
 pub use reader::{CaptureInfo, CaptureReader, Format, OpenOptions, open};
 pub use roles::{NonFinite, Role, RoleMap};
+
+/// The capture block kinds, registered by [`crate::standard_registry`].
+pub const ALL: &[crate::BlockSpec] = &[source::SPEC, sink::SPEC];

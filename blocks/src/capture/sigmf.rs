@@ -8,7 +8,7 @@ use super::reader::{
     CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
 use super::sigmf_meta::SigmfMeta;
-use lobeflow_blocks::BlockError;
+use crate::BlockError;
 use serde_json::Value;
 use std::fs::File;
 use std::io::{BufReader, Read};
