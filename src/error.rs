@@ -25,7 +25,7 @@ pub enum Error {
     /// A file system call failed while doing `what` (exit 2).
     Io { what: String, source: std::io::Error },
     /// Writing a capture failed (exit 2).
-    Write(crate::capture::write::WriteError),
+    Write(crate::capture::CaptureError),
 }
 
 impl Error {
@@ -75,8 +75,8 @@ impl std::error::Error for Error {
     }
 }
 
-impl From<crate::capture::write::WriteError> for Error {
-    fn from(e: crate::capture::write::WriteError) -> Self {
+impl From<crate::capture::CaptureError> for Error {
+    fn from(e: crate::capture::CaptureError) -> Self {
         Error::Write(e)
     }
 }

@@ -87,7 +87,7 @@ fn live_stand_ins(g: &ResolvedGraph) -> Result<(Vec<PushedInput>, Vec<String>), 
         }
         let block_error =
             |message: String| Error::Block { block: b.name.clone(), kind: b.spec.kind.to_string(), message };
-        let opts = source::open_options(&b.params).map_err(block_error)?;
+        let opts = source::open_options(&b.params).map_err(|e| block_error(e.to_string()))?;
         let wav_name = Path::new(path).extension().is_some_and(|e| e.eq_ignore_ascii_case("wav"));
         let wav = path != "-" && (opts.format == Format::Wav || (opts.format == Format::Auto && wav_name));
         let format = if wav {

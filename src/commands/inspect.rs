@@ -98,7 +98,7 @@ pub fn args_from_text(
     Ok(InspectArgs {
         path,
         options: OpenOptions {
-            format: Format::parse(format).map_err(Error::Usage)?,
+            format: Format::parse(format).map_err(|e| Error::Usage(e.to_string()))?,
             datatype,
             rate,
             channels: channels.filter(|&c| c > 0),
@@ -209,7 +209,7 @@ impl Decimator {
 pub fn examine(args: &InspectArgs) -> Result<Inspection, Error> {
     let mut reader = open(&args.path, &args.options).map_err(|e| Error::Input(e.to_string()))?;
     let info = reader.info().clone();
-    let roles = RoleMap::new(&args.roles, &info).map_err(Error::Input)?;
+    let roles = RoleMap::new(&args.roles, &info).map_err(|e| Error::Input(e.to_string()))?;
     let max_frames = if args.max_seconds.is_finite() && args.max_seconds > 0.0 {
         (args.max_seconds * info.rate).ceil() as u64
     } else {

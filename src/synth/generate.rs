@@ -154,7 +154,7 @@ impl Model {
         if !c.start.0.is_finite() {
             return Err(err("capture/start", "start must be a finite time".into()));
         }
-        let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e))?;
+        let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e.to_string()))?;
         if c.chunk == 0 || c.chunk > 1 << 24 {
             return Err(err("capture/chunk", format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24)));
         }

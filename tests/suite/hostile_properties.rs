@@ -58,17 +58,17 @@ proptest! {
             Ok(h) => {
                 prop_assert!(h.channels > 0 && h.rate > 0);
                 if let Err(e) = h.encoding("hostile.wav") {
-                    prop_assert!(e.message.contains("hostile.wav"), "{}", e);
+                    prop_assert!(e.path() == "hostile.wav" && e.to_string().contains("hostile.wav"), "{}", e);
                 }
             }
-            Err(e) => prop_assert!(e.message.contains("hostile.wav"), "{}", e),
+            Err(e) => prop_assert!(e.path() == "hostile.wav" && e.to_string().contains("hostile.wav"), "{}", e),
         }
     }
 
     #[test]
     fn arbitrary_bytes_as_a_wav_header(bytes in prop::collection::vec(any::<u8>(), 0..200)) {
         if let Err(e) = read_header(&mut bytes.as_slice(), "hostile.wav", None) {
-            prop_assert!(e.message.contains("hostile.wav"), "{}", e);
+            prop_assert!(e.path() == "hostile.wav" && e.to_string().contains("hostile.wav"), "{}", e);
         }
     }
 
@@ -85,14 +85,14 @@ proptest! {
             junk.replace(['"', '\\'], "")
         );
         if let Err(e) = parse_meta("hostile.sigmf-meta", &text) {
-            prop_assert!(e.message.contains("hostile.sigmf-meta"), "{}", e);
+            prop_assert!(e.path() == "hostile.sigmf-meta" && e.to_string().contains("hostile.sigmf-meta"), "{}", e);
         }
     }
 
     #[test]
     fn sigmf_metadata_from_any_text(text in "\\PC{0,200}") {
         if let Err(e) = parse_meta("hostile.sigmf-meta", &text) {
-            prop_assert!(e.message.contains("hostile.sigmf-meta"), "{}", e);
+            prop_assert!(e.path() == "hostile.sigmf-meta" && e.to_string().contains("hostile.sigmf-meta"), "{}", e);
         }
     }
 

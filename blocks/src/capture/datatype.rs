@@ -5,6 +5,7 @@
 //! Integers are scaled to [-1, 1): `i16 / 32768`, `i8 / 128`, and unsigned
 //! 8-bit as offset binary, `(u8 - 128) / 128`.
 
+use super::error::CaptureError;
 use std::fmt;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -27,11 +28,15 @@ impl DataType {
     pub const CF32_LE: DataType = DataType { complex: true, format: SampleFormat::F32, big_endian: false };
 
     /// Parse a SigMF datatype name. 8-bit types take no byte-order suffix;
-    /// wider ones require `_le` or `_be`.
-    pub fn parse(name: &str) -> Result<DataType, String> {
+    /// wider ones require `_le` or `_be`. The error names no file; a caller
+    /// that read the name from one adds it ([`CaptureError::in_file`]).
+    pub fn parse(name: &str) -> Result<DataType, CaptureError> {
         let bad = || {
-            format!(
-                "unsupported datatype '{name}' (supported: c or r, then f32, i16, i8 or u8, with _le or _be for f32 and i16; e.g. cf32_le, ci16_le, ci8, cu8)"
+            CaptureError::unsupported(
+                "",
+                format!(
+                    "unsupported datatype '{name}' (supported: c or r, then f32, i16, i8 or u8, with _le or _be for f32 and i16; e.g. cf32_le, ci16_le, ci8, cu8)"
+                ),
             )
         };
         let (complex, rest) = match name.as_bytes().first() {

@@ -390,7 +390,7 @@ fn pump<R: Read + PipeLevel, F: FnOnce() -> std::io::Result<R>>(open: F, tx: &Se
 
 /// Standard input or a FIFO, read as raw data (`opts` gives the datatype,
 /// rate and channels).
-pub fn open_pipe(path: &str, opts: &OpenOptions) -> Result<LiveReader, BlockError> {
+pub fn open_pipe(path: &str, opts: &OpenOptions) -> Result<LiveReader, super::CaptureError> {
     let info = raw_info(path, opts, None)?;
     let rx = if path == "-" {
         read_on_thread(|| Ok(std::io::stdin()))

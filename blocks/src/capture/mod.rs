@@ -2,6 +2,7 @@
 //! input) in chunks, and writing derived streams.
 
 pub mod datatype;
+pub mod error;
 pub mod live;
 pub mod raw;
 pub mod reader;
@@ -12,6 +13,7 @@ pub mod source;
 pub mod wav;
 
 pub use datatype::{DataType, SampleFormat};
+pub use error::{CaptureError, Place};
 pub mod sink;
 pub mod write;
 pub use reader::{CaptureInfo, CaptureReader, Format, OpenOptions, open};

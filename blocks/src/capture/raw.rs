@@ -2,36 +2,35 @@
 //! name plus a channel count, and the sample rate comes from the parameters.
 
 use super::datatype::DataType;
+use super::error::CaptureError;
 use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions};
+use crate::MAX_SAMPLE_RATE;
 use crate::param::num_text;
-use crate::{BlockError, MAX_SAMPLE_RATE};
 use std::fs::File;
 use std::io::BufReader;
 use std::path::Path;
 
 /// The datatype of a raw capture: given, or the file's extension when that is
 /// a datatype name (`capture.cu8`).
-pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, BlockError> {
+pub(crate) fn raw_datatype(path: &str, opts: &OpenOptions) -> Result<DataType, CaptureError> {
     let ext = Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("");
     match &opts.datatype {
-        Some(name) => DataType::parse(name).map_err(|e| BlockError::new(format!("{path}: {e}"))),
+        Some(name) => DataType::parse(name).map_err(|e| e.in_file(path)),
         None => DataType::parse(&ext.to_ascii_lowercase()).map_err(|_| {
-            BlockError::new(format!(
-                "{path}: raw data needs a datatype (a SigMF name such as cf32_le, ci16_le, ci8 or cu8)"
-            ))
+            CaptureError::setting(path, "raw data needs a datatype (a SigMF name such as cf32_le, ci16_le, ci8 or cu8)")
         }),
     }
 }
 
 /// The rate of a raw capture, which only the caller can know.
-pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, BlockError> {
+pub(crate) fn raw_rate(path: &str, opts: &OpenOptions) -> Result<f64, CaptureError> {
     match opts.rate {
         Some(r) if r.is_finite() && r > 0.0 => check_rate(path, r, "the given rate"),
-        _ => Err(BlockError::new(format!("{path}: raw data carries no sample rate; set rate (e.g. 2.4 MS/s)"))),
+        _ => Err(CaptureError::setting(path, "raw data carries no sample rate; set rate (e.g. 2.4 MS/s)")),
     }
 }
 
-pub fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, BlockError> {
+pub fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Result<CaptureInfo, CaptureError> {
     let datatype = raw_datatype(path, opts)?;
     let rate = raw_rate(path, opts)?;
     let channels = check_channels(path, opts.channels.unwrap_or(1).max(1) as u64, "channels")?;
@@ -51,8 +50,8 @@ pub fn raw_info(path: &str, opts: &OpenOptions, data_bytes: Option<u64>) -> Resu
     })
 }
 
-pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
-    let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the raw capture: {e}")))?;
+pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, CaptureError> {
+    let file = File::open(path).map_err(CaptureError::io(path, "cannot open the raw capture"))?;
     let len = regular_file_len(&file, path)?;
     let info = raw_info(path, opts, len)?;
     if let Some(len) = len {
@@ -63,10 +62,10 @@ pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
 
 /// The length of a regular file; None for a FIFO, socket or character
 /// device, which is read as a stream to its end like standard input.
-pub(crate) fn regular_file_len(file: &File, path: &str) -> Result<Option<u64>, BlockError> {
-    let meta = file.metadata().map_err(|e| BlockError::new(format!("{path}: {e}")))?;
+pub(crate) fn regular_file_len(file: &File, path: &str) -> Result<Option<u64>, CaptureError> {
+    let meta = file.metadata().map_err(CaptureError::io(path, "cannot look at the file"))?;
     if meta.is_dir() {
-        return Err(BlockError::new(format!("{path}: is a folder, not a capture file")));
+        return Err(CaptureError::whole(path, "is a folder, not a capture file"));
     }
     Ok(meta.is_file().then_some(meta.len()))
 }
@@ -75,43 +74,47 @@ pub(crate) fn regular_file_len(file: &File, path: &str) -> Result<Option<u64>, B
 /// parameter's limit too).
 pub const MAX_CHANNELS: u64 = 64;
 
-pub(crate) fn check_channels(path: &str, n: u64, what: &str) -> Result<usize, BlockError> {
+pub(crate) fn check_channels(path: &str, n: u64, what: &str) -> Result<usize, CaptureError> {
     if n > MAX_CHANNELS {
-        return Err(BlockError::new(format!(
-            "{path}: {what} {n} is more than lobeflow reads (at most {MAX_CHANNELS} interleaved channels)"
-        )));
+        return Err(CaptureError::unsupported(
+            path,
+            format!("{what} {n} is more than lobeflow reads (at most {MAX_CHANNELS} interleaved channels)"),
+        ));
     }
     Ok(n as usize)
 }
 
 /// A sample rate lobeflow can work with: finite, positive and at most
 /// [`MAX_SAMPLE_RATE`] (beyond it sample counts and times lose their meaning).
-pub(crate) fn check_rate(path: &str, rate: f64, what: &str) -> Result<f64, BlockError> {
+pub(crate) fn check_rate(path: &str, rate: f64, what: &str) -> Result<f64, CaptureError> {
     if !(rate.is_finite() && rate > 0.0 && rate <= MAX_SAMPLE_RATE) {
-        return Err(BlockError::new(format!(
-            "{path}: {what} {} S/s is unusable; a sample rate must be above 0 and at most {MAX_SAMPLE_RATE:e} S/s",
-            num_text(rate)
-        )));
+        return Err(CaptureError::unsupported(
+            path,
+            format!(
+                "{what} {} S/s is unusable; a sample rate must be above 0 and at most {MAX_SAMPLE_RATE:e} S/s",
+                num_text(rate)
+            ),
+        ));
     }
     Ok(rate)
 }
 
 /// A data file must hold whole frames; say where the partial one starts.
-pub(crate) fn check_whole_frames(info: &CaptureInfo, data_bytes: u64) -> Result<(), BlockError> {
+pub(crate) fn check_whole_frames(info: &CaptureInfo, data_bytes: u64) -> Result<(), CaptureError> {
     let frame = info.frame_bytes() as u64;
     let rest = data_bytes % frame;
     if rest != 0 {
         let whole = data_bytes - rest;
-        return Err(BlockError::at(
-            format!(
-                "{}: {data_bytes} bytes of data is not a whole number of frames ({} channel(s) of {} = {frame} bytes each): {rest} byte(s) left over at byte offset {}",
-                info.path,
-                info.channels,
-                info.encoding_text,
-                info.data_offset + whole
+        let offset = info.data_offset + whole;
+        return Err(CaptureError::Truncated {
+            path: info.path.clone(),
+            offset,
+            sample: whole / frame,
+            problem: format!(
+                "{data_bytes} bytes of data is not a whole number of frames ({} channel(s) of {} = {frame} bytes each): {rest} byte(s) left over at byte offset {offset}",
+                info.channels, info.encoding_text,
             ),
-            whole / frame,
-        ));
+        });
     }
     Ok(())
 }

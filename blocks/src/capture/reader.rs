@@ -7,40 +7,39 @@
 //! then Q); [`crate::capture::roles::RoleMap`] turns them into sample chunks.
 
 use super::datatype::{DataType, SampleFormat};
+use super::error::CaptureError;
 use super::sigmf_meta::SigmfMeta;
-use crate::BlockError;
+use crate::{BlockError, Choice};
 use std::io::Read;
 use std::path::Path;
 
-/// Which container a capture comes in.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Format {
-    /// Decide from the path: `.wav`, `.sigmf-*`, a datatype extension or the first bytes.
-    Auto,
-    Wav,
-    Sigmf,
-    Raw,
+crate::block_choice! {
+    /// Which container a capture comes in.
+    pub enum Format {
+        /// Decide from the path: `.wav`, `.sigmf-*`, a datatype extension or the first bytes.
+        Auto = "auto",
+        Wav = "wav",
+        Sigmf = "sigmf",
+        Raw = "raw",
+    }
 }
 
 impl Format {
     /// Parse the names used by the `format` parameter and `--format`.
-    pub fn parse(name: &str) -> Result<Format, String> {
+    pub fn parse(name: &str) -> Result<Format, CaptureError> {
         match name {
-            "auto" | "" => Ok(Format::Auto),
-            "wav" => Ok(Format::Wav),
-            "sigmf" => Ok(Format::Sigmf),
-            "raw" => Ok(Format::Raw),
-            other => Err(format!("unknown capture format '{other}' (known: auto, wav, sigmf, raw)")),
+            "" => Ok(Format::Auto),
+            word => Format::from_word(word).ok_or_else(|| {
+                CaptureError::unsupported(
+                    "",
+                    format!("unknown capture format '{word}' (known: {})", Format::WORDS.join(", ")),
+                )
+            }),
         }
     }
 
     pub fn name(&self) -> &'static str {
-        match self {
-            Format::Auto => "auto",
-            Format::Wav => "wav",
-            Format::Sigmf => "sigmf",
-            Format::Raw => "raw",
-        }
+        self.word()
     }
 }
 
@@ -266,9 +265,10 @@ impl<R: Read + Send> FrameStream<R> {
                 Ok(0) => break,
                 Ok(n) => got += n,
                 Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-                Err(e) => {
+                Err(source) => {
                     let at = self.info.data_offset + self.done_bytes + got as u64;
-                    return Err(BlockError::new(format!("{}: read failed at byte offset {at}: {e}", self.info.path)));
+                    let path = self.info.path.clone();
+                    return Err(CaptureError::Io { path, doing: "read failed", offset: Some(at), source }.into());
                 }
             }
         }
@@ -278,26 +278,25 @@ impl<R: Read + Send> FrameStream<R> {
             // The stream ended early: either the file was cut short of its
             // stated length, or a stream without a length ended mid-frame.
             let at = self.info.data_offset + self.done_bytes + got as u64;
+            let whole_end = self.info.data_offset + self.done_bytes + whole as u64;
+            let truncated = |offset, problem| CaptureError::Truncated {
+                path: self.info.path.clone(),
+                offset,
+                sample: (self.done_bytes + whole as u64) / frame_bytes as u64,
+                problem,
+            };
             if let Some(total) = self.info.data_bytes {
-                return Err(BlockError::at(
-                    format!(
-                        "{}: truncated: the data should run to byte offset {} but ends at byte offset {at}",
-                        self.info.path,
-                        self.info.data_offset + total
-                    ),
-                    (self.done_bytes + whole as u64) / frame_bytes as u64,
-                ));
+                let end = self.info.data_offset + total;
+                let problem =
+                    format!("truncated: the data should run to byte offset {end} but ends at byte offset {at}");
+                return Err(truncated(at, problem).into());
             }
             if whole != got {
-                return Err(BlockError::at(
-                    format!(
-                        "{}: the data ends inside a frame: {} byte(s) left over at byte offset {} (a frame is {frame_bytes} bytes)",
-                        self.info.path,
-                        got - whole,
-                        self.info.data_offset + self.done_bytes + whole as u64
-                    ),
-                    (self.done_bytes + whole as u64) / frame_bytes as u64,
-                ));
+                let problem = format!(
+                    "the data ends inside a frame: {} byte(s) left over at byte offset {whole_end} (a frame is {frame_bytes} bytes)",
+                    got - whole
+                );
+                return Err(truncated(whole_end, problem).into());
             }
         }
         Ok(whole)
@@ -306,7 +305,7 @@ impl<R: Read + Send> FrameStream<R> {
 
 /// Open a capture: `-` is standard input (raw only), otherwise the format is
 /// taken from `opts.format` or guessed from the path.
-pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
+pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, CaptureError> {
     let format = match opts.format {
         Format::Auto => guess_format(path, opts)?,
         f => f,
@@ -315,12 +314,16 @@ pub fn open(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, Bl
     // other stream is raw data.
     let wav_fifo = format == Format::Wav && path != "-";
     if is_pipe(path) && format != Format::Raw && !wav_fifo {
-        let what = if path == "-" { "standard input".to_string() } else { format!("{path} (a FIFO or device)") };
-        return Err(BlockError::new(format!(
-            "{what} can only be read as a stream of raw data (format raw with a datatype and a rate){}, not as {}",
-            if path == "-" { "" } else { " or WAV" },
-            format.name()
-        )));
+        // Standard input has no name worth showing.
+        let (file, what) = if path == "-" { ("", "standard input") } else { (path, "a FIFO or device") };
+        return Err(CaptureError::unsupported(
+            file,
+            format!(
+                "{what} can only be read as a stream of raw data (format raw with a datatype and a rate){}, not as {}",
+                if path == "-" { "" } else { " or WAV" },
+                format.name()
+            ),
+        ));
     }
     match format {
         Format::Wav => super::wav::open_wav(path, opts),
@@ -345,7 +348,7 @@ pub fn is_pipe(path: &str) -> bool {
     false
 }
 
-fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
+fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, CaptureError> {
     if is_pipe(path) {
         let ext = Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();
         if opts.datatype.is_some() || DataType::parse(&ext).is_ok() {
@@ -354,10 +357,13 @@ fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
         if path != "-" && matches!(ext.as_str(), "wav" | "wave") {
             return Ok(Format::Wav);
         }
-        let what = if path == "-" { "standard input ('-')".to_string() } else { format!("{path} (a FIFO or device)") };
-        return Err(BlockError::new(format!(
-            "{what} needs format raw, a datatype (e.g. cu8) and a rate; the format cannot be guessed from a stream"
-        )));
+        let (file, what) = if path == "-" { ("", "standard input ('-')") } else { (path, "a FIFO or device") };
+        return Err(CaptureError::setting(
+            file,
+            format!(
+                "{what} needs format raw, a datatype (e.g. cu8) and a rate; the format cannot be guessed from a stream"
+            ),
+        ));
     }
     let p = Path::new(path);
     let ext = p.extension().and_then(|e| e.to_str()).unwrap_or("").to_ascii_lowercase();
@@ -378,11 +384,15 @@ fn guess_format(path: &str, opts: &OpenOptions) -> Result<Format, BlockError> {
         return Ok(Format::Wav);
     }
     if !p.exists() {
-        return Err(BlockError::new(format!("{path}: no such capture file (nor a SigMF recording of that base name)")));
+        return Err(CaptureError::NotFound {
+            path: path.to_string(),
+            hint: "no such capture file (nor a SigMF recording of that base name)".into(),
+        });
     }
-    Err(BlockError::new(format!(
-        "{path}: cannot tell the capture format from the name or the first bytes; set format (wav, sigmf or raw with a datatype)"
-    )))
+    Err(CaptureError::setting(
+        path,
+        "cannot tell the capture format from the name or the first bytes; set format (wav, sigmf or raw with a datatype)",
+    ))
 }
 
 /// Check a rate given by the user against the file's own, if both exist.
@@ -391,14 +401,17 @@ pub(crate) fn agree_rate(
     given: Option<f64>,
     from_file: Option<f64>,
     what: &str,
-) -> Result<f64, BlockError> {
+) -> Result<f64, CaptureError> {
     match (given, from_file) {
-        (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => Err(BlockError::new(format!(
-            "{path}: rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
-        ))),
+        (Some(g), Some(f)) if (g - f).abs() > 1e-9 * f.abs().max(g.abs()) => Err(CaptureError::setting(
+            path,
+            format!(
+                "rate {g} S/s was given but {what} says {f} S/s; leave rate at 0 to use the file's, or fix the file"
+            ),
+        )),
         (_, Some(f)) => super::raw::check_rate(path, f, what),
         (Some(g), None) => super::raw::check_rate(path, g, "the given rate"),
-        (None, None) => Err(BlockError::new(format!("{path}: the sample rate is not in the file; set rate"))),
+        (None, None) => Err(CaptureError::setting(path, "the sample rate is not in the file; set rate")),
     }
 }
 
@@ -408,11 +421,12 @@ pub(crate) fn agree_channels(
     given: Option<usize>,
     from_file: usize,
     what: &str,
-) -> Result<usize, BlockError> {
+) -> Result<usize, CaptureError> {
     match given {
-        Some(g) if g != from_file => Err(BlockError::new(format!(
-            "{path}: channels {g} was given but {what} says {from_file}; leave channels at 0 to use the file's"
-        ))),
+        Some(g) if g != from_file => Err(CaptureError::setting(
+            path,
+            format!("channels {g} was given but {what} says {from_file}; leave channels at 0 to use the file's"),
+        )),
         _ => Ok(from_file),
     }
 }

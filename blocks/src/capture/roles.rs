@@ -2,6 +2,7 @@
 //! or a complex `iq` channel), the switch sync and the transmit trigger, and
 //! the assembly of decoded frames into [`SampleChunk`]s.
 
+use super::error::CaptureError;
 use super::reader::CaptureInfo;
 use crate::{BlockError, BufferPool, Channels, SampleChunk, Span, Stamp};
 use num_complex::Complex32;
@@ -35,21 +36,12 @@ impl Role {
     }
 }
 
-/// What to do with NaN or infinite samples.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum NonFinite {
-    Error,
-    /// Replace by 0 and count.
-    Zero,
-}
-
-impl NonFinite {
-    pub fn parse(name: &str) -> Result<NonFinite, String> {
-        match name {
-            "error" => Ok(NonFinite::Error),
-            "zero" => Ok(NonFinite::Zero),
-            other => Err(format!("nonfinite must be error or zero, not '{other}'")),
-        }
+crate::block_choice! {
+    /// What to do with NaN or infinite samples.
+    pub enum NonFinite {
+        Error = "error",
+        /// Replace by 0 and count.
+        Zero = "zero",
     }
 }
 
@@ -97,25 +89,26 @@ pub fn default_roles(channels: usize, complex: bool) -> Option<Vec<Role>> {
 
 impl RoleMap {
     /// Check `names` (empty or `auto` for the default) against `info`.
-    pub fn new(names: &[String], info: &CaptureInfo) -> Result<RoleMap, String> {
+    pub fn new(names: &[String], info: &CaptureInfo) -> Result<RoleMap, CaptureError> {
         let channels = info.channels;
         let complex = info.complex;
         let kind = if complex { "complex" } else { "real" };
         let allowed = if complex { "iq, sync, trigger, -" } else { "i, q, sync, trigger, -" };
         let listing = channel_listing(channels, complex);
         let src = info.meta_path.as_deref().unwrap_or(&info.path);
+        let bad = |problem: String| CaptureError::Roles { path: src.to_string(), problem };
         let auto = names.is_empty() || (names.len() == 1 && names[0] == "auto");
         let roles = if auto {
             default_roles(channels, complex).ok_or_else(|| {
-                format!("{src}: {channels} {kind} channels ({listing}) have no default roles; set roles, one of {allowed} per channel")
+                bad(format!("{channels} {kind} channels ({listing}) have no default roles; set roles, one of {allowed} per channel"))
             })?
         } else {
             if names.len() != channels {
-                return Err(format!(
-                    "{src}: roles '{}' name {} channel(s) but the capture has {channels} {kind} channel(s): {listing}; give one of {allowed} per channel",
+                return Err(bad(format!(
+                    "roles '{}' name {} channel(s) but the capture has {channels} {kind} channel(s): {listing}; give one of {allowed} per channel",
                     names.join(","),
                     names.len()
-                ));
+                )));
             }
             let mut v = Vec::with_capacity(names.len());
             for (k, n) in names.iter().enumerate() {
@@ -127,10 +120,10 @@ impl RoleMap {
                     ("trigger", _) => Role::Trigger,
                     ("-", _) => Role::Ignore,
                     _ => {
-                        return Err(format!(
-                            "{src}: role '{n}' for channel {} does not fit {kind} channels (allowed: {allowed}); the capture has {listing}",
+                        return Err(bad(format!(
+                            "role '{n}' for channel {} does not fit {kind} channels (allowed: {allowed}); the capture has {listing}",
                             k + 1
-                        ));
+                        )));
                     }
                 };
                 v.push(role);
@@ -138,22 +131,21 @@ impl RoleMap {
             v
         };
         let cpc = if complex { 2 } else { 1 };
-        let find = |role: Role| -> Result<Option<usize>, String> {
+        let find = |role: Role| -> Result<Option<usize>, CaptureError> {
             let at: Vec<usize> = roles.iter().enumerate().filter(|(_, r)| **r == role).map(|(k, _)| k).collect();
             if at.len() > 1 {
                 let chans: Vec<String> = at.iter().map(|k| (k + 1).to_string()).collect();
-                return Err(format!(
-                    "{src}: role '{}' is given to channels {}; each role may be used once",
+                return Err(bad(format!(
+                    "role '{}' is given to channels {}; each role may be used once",
                     role.name(),
                     chans.join(" and ")
-                ));
+                )));
             }
             Ok(at.first().map(|k| k * cpc))
         };
         let signal = if complex { Role::Iq } else { Role::I };
-        let i = find(signal)?.ok_or_else(|| {
-            format!("{src}: no channel has role '{}' ({listing}); the signal is needed", signal.name())
-        })?;
+        let i = find(signal)?
+            .ok_or_else(|| bad(format!("no channel has role '{}' ({listing}); the signal is needed", signal.name())))?;
         let q = if complex { Some(i + 1) } else { find(Role::Q)? };
         let sync = find(Role::Sync)?;
         let trigger = find(Role::Trigger)?;

@@ -4,89 +4,151 @@
 use super::live::{LiveEnd, LiveMonitor, PushedInput};
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
+use crate::typed::boxed;
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, Facts, Item, ItemKind, Outputs, ParamSpec, ParamType, Params, PortSpec,
-    Stamp, StreamFacts, Unit,
+    Block, BlockError, BlockSpec, BuildContext, BuildError, Facts, Item, ItemKind, NoPorts, Outputs, ParamError,
+    ParamType, Params, Settings, Stamp, StreamFacts, TypedBlock, Unit, block_ports, block_settings,
 };
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Duration;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "capture_reader",
-    doc: "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
-    inputs: &[],
-    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "the capture's samples, from sample 0")],
-    params: &[
-        ParamSpec {
-            name: "path",
+pub const SPEC: BlockSpec = BlockSpec::typed::<CaptureSource>(
+    "capture_reader",
+    "Reads a recorded capture (WAV, SigMF recording, raw interleaved samples, or '-' for standard input) and emits its samples in chunks, with the sync and trigger channels the roles name.",
+);
+
+block_ports! {
+    outputs pub enum ReaderOut {
+        Samples = optional("samples", ItemKind::Samples, "the capture's samples, from sample 0"),
+    }
+}
+
+block_settings! {
+    /// Settings of `capture_reader`.
+    pub struct CaptureReaderSettings {
+        path: String {
             ty: ParamType::InputPath,
             default: None,
             doc: "capture file; a SigMF recording by either file or its base name; '-' reads standard input",
         },
-        ParamSpec {
-            name: "format",
-            ty: ParamType::Choice(&["auto", "wav", "sigmf", "raw"]),
+        format: Format {
+            ty: ParamType::Choice(Format::WORDS),
             default: Some("auto"),
             doc: "container; auto decides from the name or the first bytes (standard input needs raw)",
         },
-        ParamSpec {
-            name: "datatype",
+        datatype: String {
             ty: ParamType::Text,
             default: Some("auto"),
             doc: "SigMF datatype name of raw data (cf32_le, ci16_le, ci8, cu8, rf32_le, ...); auto = from the file or its extension",
         },
-        ParamSpec {
-            name: "rate",
+        rate: f64 {
             ty: ParamType::Number { unit: Unit::SampleRate, min: 0.0, max: 1e11 },
             default: Some("0"),
             doc: "sample rate; 0 = from the file (raw data needs it); a value the file contradicts is an error",
         },
-        ParamSpec {
-            name: "channels",
+        channels: usize {
             ty: ParamType::Integer { min: 0, max: 64 },
             default: Some("0"),
             doc: "channels in the file; 0 = from the file (1 for raw data)",
         },
-        ParamSpec {
-            name: "roles",
+        roles: Vec<String> {
             ty: ParamType::Names,
             default: Some("auto"),
             doc: "role of each channel: i, q, sync, trigger or - for real channels; iq, sync, trigger or - for complex ones; auto = by channel count",
         },
-        ParamSpec {
-            name: "chunk",
+        // 16384 samples: small enough that a chunk (read buffer, split
+        // channels) stays in the core's cache while the first blocks read it.
+        chunk: usize {
             ty: ParamType::Integer { min: 1, max: 1 << 22 },
-            // Small enough that a chunk (read buffer, split channels) stays in
-            // the core's cache while the first blocks read it.
             default: Some("16384"),
             doc: "samples per emitted chunk",
         },
-        ParamSpec {
-            name: "nonfinite",
-            ty: ParamType::Choice(&["error", "zero"]),
+        nonfinite: NonFinite {
+            ty: ParamType::Choice(NonFinite::WORDS),
             default: Some("error"),
             doc: "NaN or infinite samples: stop with an error, or replace them by 0 and report the count",
         },
-    ],
-    build,
-};
-
-/// The reader options the parameters describe (shared with `lobeflow inspect`).
-pub fn open_options(p: &Params) -> Result<OpenOptions, String> {
-    let datatype = p.text("datatype")?;
-    let rate = p.num("rate")?;
-    let channels = p.int("channels")?;
-    Ok(OpenOptions {
-        format: Format::parse(p.text("format")?)?,
-        datatype: (datatype != "auto" && !datatype.is_empty()).then(|| datatype.to_string()),
-        rate: (rate > 0.0).then_some(rate),
-        channels: (channels > 0).then_some(channels as usize),
-    })
+    }
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
-    build_in_run(p, ctx, &RunHooks::default())
+impl CaptureReaderSettings {
+    /// The reader options the settings describe; `auto` and 0 leave a value
+    /// to the file.
+    pub fn open_options(&self) -> OpenOptions {
+        let datatype = self.datatype.trim();
+        OpenOptions {
+            format: self.format,
+            datatype: (datatype != "auto" && !datatype.is_empty()).then(|| datatype.to_string()),
+            rate: (self.rate > 0.0).then_some(self.rate),
+            channels: (self.channels > 0).then_some(self.channels),
+        }
+    }
+}
+
+/// The reader options the parameters describe (shared with `lobeflow inspect`).
+pub fn open_options(p: &Params) -> Result<OpenOptions, ParamError> {
+    Ok(CaptureReaderSettings::from_params(p)?.open_options())
+}
+
+impl TypedBlock for CaptureSource {
+    type Settings = CaptureReaderSettings;
+    type In = NoPorts;
+    type Out = ReaderOut;
+
+    fn build(settings: CaptureReaderSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        CaptureSource::build_with(settings, ctx, &RunHooks::default())
+    }
+
+    /// The header read when the source was built gives the rate and channels.
+    fn start(&mut self, _: &Facts) -> Result<StreamFacts, BlockError> {
+        // Said here, before the blocks downstream judge their settings
+        // against a rate that no sample will ever come with.
+        if self.reader.info().data_bytes == Some(0) {
+            return Err(BlockError::at(
+                format!("{}: the capture holds no samples: its sample data is 0 bytes long", self.reader.info().path),
+                0,
+            ));
+        }
+        let rate = self.reader.info().rate;
+        Ok(StreamFacts {
+            rate: (rate.is_finite() && rate > 0.0).then_some(rate),
+            channels: Some(self.roles.channels()),
+            ..StreamFacts::default()
+        })
+    }
+
+    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+        if self.reader.as_live().is_some() {
+            return self.generate_live(out);
+        }
+        if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
+            // Plain (I, Q) chunks take the read buffer over: read into a returned one.
+            self.frames = from_complex(self.pools.iq.take_as_left());
+        }
+        // A reader may return fewer frames than asked; fill the chunk.
+        let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
+        while n > 0 && n < self.chunk {
+            let more = self.reader.read_frames(self.chunk - n, &mut self.part)?;
+            if more == 0 {
+                break;
+            }
+            self.frames.extend_from_slice(&self.part);
+            n += more;
+        }
+        if n == 0 {
+            self.segment_notices(0, out);
+            self.end_notices(out);
+            return Ok(false);
+        }
+        self.emit(n, out)?;
+        Ok(true)
+    }
+
+    fn progress(&self) -> Option<(u64, u64)> {
+        let total = self.reader.info().data_bytes?;
+        Some((self.reader.bytes_read(), total))
+    }
 }
 
 /// What a run gives its capture readers besides the parameters.
@@ -100,19 +162,9 @@ pub struct RunHooks {
 
 /// Build a capture reader for a run: a pushed input when there is one, the
 /// path otherwise. A live input ends early when the run's `end_input` is raised.
-pub fn build_in_run(p: &Params, ctx: &BuildContext, hooks: &RunHooks) -> Result<Box<dyn Block>, crate::BuildError> {
-    let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
-        Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
-        None => open(p.text("path")?, &open_options(p)?).map_err(|e| e.to_string())?,
-    };
-    if let (Some(live), Some(monitor)) = (reader.as_live(), &hooks.monitor) {
-        live.watch(Arc::clone(monitor));
-    }
-    let roles = RoleMap::new(&p.names("roles")?, reader.info())?;
-    let mut source =
-        CaptureSource::new(reader, roles, p.int("chunk")? as usize, NonFinite::parse(p.text("nonfinite")?)?);
-    source.end_input = Some(Arc::clone(&ctx.files.policy().end_input));
-    Ok(Box::new(source))
+pub fn build_in_run(p: &Params, ctx: &BuildContext, hooks: &RunHooks) -> Result<Box<dyn Block>, BuildError> {
+    let settings = CaptureReaderSettings::from_params(p)?;
+    Ok(boxed(CaptureSource::build_with(settings, ctx, hooks)?))
 }
 
 /// How long a live source waits for input before it lets the scheduler look
@@ -148,6 +200,20 @@ fn later_segments(reader: &dyn CaptureReader) -> Vec<(u64, Option<f64>)> {
 }
 
 impl CaptureSource {
+    fn build_with(s: CaptureReaderSettings, ctx: &BuildContext, hooks: &RunHooks) -> Result<Self, BuildError> {
+        let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
+            Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
+            None => open(&s.path, &s.open_options())?,
+        };
+        if let (Some(live), Some(monitor)) = (reader.as_live(), &hooks.monitor) {
+            live.watch(Arc::clone(monitor));
+        }
+        let roles = RoleMap::new(&s.roles, reader.info())?;
+        let mut source = CaptureSource::new(reader, roles, s.chunk, s.nonfinite);
+        source.end_input = Some(Arc::clone(&ctx.files.policy().end_input));
+        Ok(source)
+    }
+
     /// A source over an opened reader (for embedding and tests).
     pub fn new(reader: Box<dyn CaptureReader>, roles: RoleMap, chunk: usize, nonfinite: NonFinite) -> Self {
         CaptureSource {
@@ -234,7 +300,7 @@ impl CaptureSource {
             &self.pools,
         )?;
         self.next += n as u64;
-        out.push(0, Item::Samples(chunk));
+        out.push(ReaderOut::Samples, Item::Samples(chunk));
         Ok(())
     }
 
@@ -269,58 +335,6 @@ impl CaptureSource {
             }
             Some(n) => self.emit(n, out).map(|_| true),
         }
-    }
-}
-
-impl Block for CaptureSource {
-    /// The header read when the source was built gives the rate and channels.
-    fn start(&mut self, _: &Facts) -> Result<StreamFacts, BlockError> {
-        // Said here, before the blocks downstream judge their settings
-        // against a rate that no sample will ever come with.
-        if self.reader.info().data_bytes == Some(0) {
-            return Err(BlockError::at(
-                format!("{}: the capture holds no samples: its sample data is 0 bytes long", self.reader.info().path),
-                0,
-            ));
-        }
-        let rate = self.reader.info().rate;
-        Ok(StreamFacts {
-            rate: (rate.is_finite() && rate > 0.0).then_some(rate),
-            channels: Some(self.roles.channels()),
-            ..StreamFacts::default()
-        })
-    }
-
-    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
-        if self.reader.as_live().is_some() {
-            return self.generate_live(out);
-        }
-        if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
-            // Plain (I, Q) chunks take the read buffer over: read into a returned one.
-            self.frames = from_complex(self.pools.iq.take_as_left());
-        }
-        // A reader may return fewer frames than asked; fill the chunk.
-        let mut n = self.reader.read_frames(self.chunk, &mut self.frames)?;
-        while n > 0 && n < self.chunk {
-            let more = self.reader.read_frames(self.chunk - n, &mut self.part)?;
-            if more == 0 {
-                break;
-            }
-            self.frames.extend_from_slice(&self.part);
-            n += more;
-        }
-        if n == 0 {
-            self.segment_notices(0, out);
-            self.end_notices(out);
-            return Ok(false);
-        }
-        self.emit(n, out)?;
-        Ok(true)
-    }
-
-    fn progress(&self) -> Option<(u64, u64)> {
-        let total = self.reader.info().data_bytes?;
-        Some((self.reader.bytes_read(), total))
     }
 }
 

@@ -3,19 +3,19 @@
 //! data is then read in large blocks and decoded here.
 
 use super::datatype::{DataType, SampleFormat};
+use super::error::{CaptureError, Place};
 use super::raw::check_whole_frames;
 use super::reader::{
     CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
 };
-use crate::BlockError;
 use std::fs::File;
 use std::io::{BufReader, Read};
 
 /// Most channels a WAV capture may have (I, Q, sync, trigger and spares).
 pub const MAX_WAV_CHANNELS: usize = 8;
 
-pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, BlockError> {
-    let file = File::open(path).map_err(|e| BlockError::new(format!("{path}: cannot open the WAV file: {e}")))?;
+pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>, CaptureError> {
+    let file = File::open(path).map_err(CaptureError::io(path, "cannot open the WAV file"))?;
     // A FIFO or a device has no length: its header is read as it comes and
     // the data runs to the end of the stream.
     let file_len = file.metadata().ok().filter(|m| m.is_file()).map(|m| m.len());
@@ -24,9 +24,10 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     let (encoding, text) = header.encoding(path)?;
     let channels = usize::from(header.channels);
     if channels > MAX_WAV_CHANNELS {
-        return Err(BlockError::new(format!(
-            "{path}: {channels} channels; lobeflow reads WAV captures of 1 to {MAX_WAV_CHANNELS} channels"
-        )));
+        return Err(CaptureError::unsupported(
+            path,
+            format!("{channels} channels; lobeflow reads WAV captures of 1 to {MAX_WAV_CHANNELS} channels"),
+        ));
     }
     let data_offset = header.data_offset;
     let data_bytes = match (header.data_bytes, file_len) {
@@ -39,21 +40,26 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
         let end = data_offset + n;
         if file_len < end {
             let frame_bytes = (encoding.component_bytes() * channels) as u64;
-            return Err(BlockError::at(
-                format!(
-                    "{path}: truncated: the header says the data runs from byte offset {data_offset} to {end}, but the file ends at byte offset {file_len} ({} bytes missing)",
+            return Err(CaptureError::Truncated {
+                path: path.to_string(),
+                offset: file_len,
+                sample: file_len.saturating_sub(data_offset) / frame_bytes.max(1),
+                problem: format!(
+                    "truncated: the header says the data runs from byte offset {data_offset} to {end}, but the file ends at byte offset {file_len} ({} bytes missing)",
                     end - file_len
                 ),
-                file_len.saturating_sub(data_offset) / frame_bytes.max(1),
-            ));
+            });
         }
     }
     let rate = agree_rate(path, opts.rate, Some(f64::from(header.rate)), "the WAV header")?;
     agree_channels(path, opts.channels, channels, "the WAV header")?;
     if let Some(dt) = &opts.datatype {
-        return Err(BlockError::new(format!(
-            "{path}: datatype '{dt}' was given, but a WAV file states its own sample format ({text}); leave datatype unset"
-        )));
+        return Err(CaptureError::setting(
+            path,
+            format!(
+                "datatype '{dt}' was given, but a WAV file states its own sample format ({text}); leave datatype unset"
+            ),
+        ));
     }
     let info = CaptureInfo {
         path: path.to_string(),
@@ -101,96 +107,137 @@ const TAG_PCM: u16 = 0x0001;
 const TAG_FLOAT: u16 = 0x0003;
 const TAG_EXTENSIBLE: u16 = 0xfffe;
 
+/// Reads a header front to back, counting the byte offset for messages.
+struct HeaderBytes<'a, R> {
+    r: &'a mut R,
+    path: &'a str,
+    /// The file's length when known, to explain a header cut short.
+    file_len: Option<u64>,
+    at: u64,
+}
+
+impl<R: Read> HeaderBytes<'_, R> {
+    fn cut_short(&self) -> CaptureError {
+        let len = self.file_len.map(|l| format!(" (file of {l} bytes)")).unwrap_or_default();
+        CaptureError::Truncated {
+            path: self.path.to_string(),
+            offset: self.at,
+            sample: 0,
+            problem: format!("the WAV header is cut short at byte offset {}{len}", self.at),
+        }
+    }
+
+    fn read(&mut self, buf: &mut [u8]) -> Result<(), CaptureError> {
+        self.r.read_exact(buf).map_err(|source| match source.kind() {
+            std::io::ErrorKind::UnexpectedEof => self.cut_short(),
+            _ => CaptureError::Io {
+                path: self.path.to_string(),
+                doing: "cannot read the WAV header",
+                offset: Some(self.at),
+                source,
+            },
+        })?;
+        self.at += buf.len() as u64;
+        Ok(())
+    }
+
+    /// Skip `n` bytes; returns how many there were.
+    fn skip(&mut self, n: u64) -> Result<u64, CaptureError> {
+        let skipped =
+            std::io::copy(&mut self.r.by_ref().take(n), &mut std::io::sink()).map_err(|source| CaptureError::Io {
+                path: self.path.to_string(),
+                doing: "cannot read the WAV file",
+                offset: Some(self.at),
+                source,
+            })?;
+        self.at += skipped;
+        Ok(skipped)
+    }
+}
+
+/// The 12-byte RIFF preamble: a little-endian RIFF file of form WAVE.
+fn check_riff(riff: &[u8; 12], path: &str) -> Result<(), CaptureError> {
+    match &riff[0..4] {
+        b"RIFF" => {}
+        b"RIFX" => {
+            return Err(CaptureError::unsupported(
+                path,
+                "a big-endian RIFX file; lobeflow reads little-endian RIFF WAV files (convert it, e.g. to 16-bit or float PCM WAV)",
+            ));
+        }
+        b"RF64" | b"BW64" => {
+            return Err(CaptureError::unsupported(
+                path,
+                "an RF64/BW64 file (WAV with 64-bit sizes, for data over 4 GiB); lobeflow reads RIFF WAV files: split it, or convert it to SigMF or raw samples",
+            ));
+        }
+        other => {
+            return Err(CaptureError::whole(
+                path,
+                format!("not a WAV file: it starts with {:?}, not 'RIFF'", String::from_utf8_lossy(other)),
+            ));
+        }
+    }
+    if &riff[8..12] != b"WAVE" {
+        return Err(CaptureError::whole(
+            path,
+            format!("a RIFF file of form {:?}, not 'WAVE'", String::from_utf8_lossy(&riff[8..12])),
+        ));
+    }
+    Ok(())
+}
+
 /// Read the RIFF header up to the first byte of the `data` chunk. Chunks
 /// other than `fmt ` are skipped, each with its pad byte when its size is
 /// odd (RIFF aligns chunks to 2 bytes). `file_len`, when known, explains a
 /// header cut short.
-pub fn read_header<R: Read>(r: &mut R, path: &str, file_len: Option<u64>) -> Result<WavHeader, BlockError> {
-    let mut at = 0u64;
-    let cut_short = |at: u64| {
-        let len = file_len.map(|l| format!(" (file of {l} bytes)")).unwrap_or_default();
-        BlockError::new(format!("{path}: the WAV header is cut short at byte offset {at}{len}"))
-    };
-    let read = |r: &mut R, buf: &mut [u8], at: &mut u64| -> Result<(), BlockError> {
-        r.read_exact(buf).map_err(|e| match e.kind() {
-            std::io::ErrorKind::UnexpectedEof => cut_short(*at),
-            _ => BlockError::new(format!("{path}: cannot read the WAV header at byte offset {at}: {e}")),
-        })?;
-        *at += buf.len() as u64;
-        Ok(())
-    };
+pub fn read_header<R: Read>(r: &mut R, path: &str, file_len: Option<u64>) -> Result<WavHeader, CaptureError> {
+    let mut bytes = HeaderBytes { r, path, file_len, at: 0 };
     let mut riff = [0u8; 12];
-    read(r, &mut riff, &mut at)?;
-    match &riff[0..4] {
-        b"RIFF" => {}
-        b"RIFX" => {
-            return Err(BlockError::new(format!(
-                "{path}: a big-endian RIFX file; lobeflow reads little-endian RIFF WAV files (convert it, e.g. to 16-bit or float PCM WAV)"
-            )));
-        }
-        b"RF64" | b"BW64" => {
-            return Err(BlockError::new(format!(
-                "{path}: an RF64/BW64 file (WAV with 64-bit sizes, for data over 4 GiB); lobeflow reads RIFF WAV files: split it, or convert it to SigMF or raw samples"
-            )));
-        }
-        other => {
-            return Err(BlockError::new(format!(
-                "{path}: not a WAV file: it starts with {:?}, not 'RIFF'",
-                String::from_utf8_lossy(other)
-            )));
-        }
-    }
-    if &riff[8..12] != b"WAVE" {
-        return Err(BlockError::new(format!(
-            "{path}: a RIFF file of form {:?}, not 'WAVE'",
-            String::from_utf8_lossy(&riff[8..12])
-        )));
-    }
-    let mut fmt: Option<(WavHeader, u64)> = None;
+    bytes.read(&mut riff)?;
+    check_riff(&riff, path)?;
+    let mut fmt: Option<WavHeader> = None;
     loop {
         let mut head = [0u8; 8];
-        if let Err(e) = read(r, &mut head, &mut at) {
-            return Err(if fmt.is_none() {
-                e
-            } else {
-                BlockError::new(format!("{path}: no 'data' chunk in the WAV file"))
+        if let Err(e) = bytes.read(&mut head) {
+            return Err(match fmt {
+                None => e,
+                Some(_) => CaptureError::whole(path, "no 'data' chunk in the WAV file"),
             });
         }
         let id = [head[0], head[1], head[2], head[3]];
         let size = u32::from_le_bytes([head[4], head[5], head[6], head[7]]);
-        let chunk_at = at - 8;
+        let chunk = |part: &str| Place::Bytes { part: part.to_string(), offset: bytes.at - 8 };
         match &id {
             b"fmt " => {
+                let place = chunk("the 'fmt ' chunk");
                 if !(16..=MAX_FMT_BYTES).contains(&size) {
-                    return Err(BlockError::new(format!(
-                        "{path}: the 'fmt ' chunk at byte offset {chunk_at} has {size} bytes; it must have 16 to {MAX_FMT_BYTES}"
-                    )));
+                    let problem = format!("has {size} bytes; it must have 16 to {MAX_FMT_BYTES}");
+                    return Err(CaptureError::header(path, place, problem));
                 }
                 let mut body = vec![0u8; (size + (size & 1)) as usize];
-                read(r, &mut body, &mut at)?;
-                fmt = Some((parse_fmt(&body[..size as usize], path, chunk_at)?, chunk_at));
+                bytes.read(&mut body)?;
+                fmt = Some(parse_fmt(&body[..size as usize], path, place)?);
             }
             b"data" => {
-                let Some((mut h, _)) = fmt else {
-                    return Err(BlockError::new(format!(
-                        "{path}: the 'data' chunk at byte offset {chunk_at} comes before any 'fmt ' chunk"
-                    )));
+                let Some(mut h) = fmt else {
+                    let place = chunk("the 'data' chunk");
+                    return Err(CaptureError::header(path, place, "comes before any 'fmt ' chunk"));
                 };
-                h.data_offset = at;
+                h.data_offset = bytes.at;
                 h.data_bytes = (size != u32::MAX).then_some(u64::from(size));
                 return Ok(h);
             }
             _ => {
+                let name = format!("the '{}' chunk", String::from_utf8_lossy(&id).escape_debug());
+                let place = chunk(&name);
                 let skip = u64::from(size) + u64::from(size & 1);
-                let skipped = std::io::copy(&mut r.by_ref().take(skip), &mut std::io::sink()).map_err(|e| {
-                    BlockError::new(format!("{path}: cannot read the WAV file at byte offset {at}: {e}"))
-                })?;
-                at += skipped;
-                if skipped < skip {
-                    return Err(BlockError::new(format!(
-                        "{path}: the '{}' chunk at byte offset {chunk_at} claims {size} bytes but the file ends at byte offset {at}, before any 'data' chunk",
-                        String::from_utf8_lossy(&id).escape_debug()
-                    )));
+                if bytes.skip(skip)? < skip {
+                    let problem = format!(
+                        "claims {size} bytes but the file ends at byte offset {}, before any 'data' chunk",
+                        bytes.at
+                    );
+                    return Err(CaptureError::header(path, place, problem));
                 }
             }
         }
@@ -198,7 +245,7 @@ pub fn read_header<R: Read>(r: &mut R, path: &str, file_len: Option<u64>) -> Res
 }
 
 /// The fields of a `fmt ` chunk body.
-fn parse_fmt(b: &[u8], path: &str, chunk_at: u64) -> Result<WavHeader, BlockError> {
+fn parse_fmt(b: &[u8], path: &str, place: Place) -> Result<WavHeader, CaptureError> {
     let u16_at = |i: usize| u16::from_le_bytes([b[i], b[i + 1]]);
     let u32_at = |i: usize| u32::from_le_bytes([b[i], b[i + 1], b[i + 2], b[i + 3]]);
     let mut h = WavHeader {
@@ -211,12 +258,10 @@ fn parse_fmt(b: &[u8], path: &str, chunk_at: u64) -> Result<WavHeader, BlockErro
         data_offset: 0,
         data_bytes: None,
     };
+    let bad = |problem: String| Err(CaptureError::header(path, place.clone(), problem));
     if h.tag == TAG_EXTENSIBLE {
         if b.len() < 40 {
-            return Err(BlockError::new(format!(
-                "{path}: the 'fmt ' chunk at byte offset {chunk_at} says WAVE_FORMAT_EXTENSIBLE but has {} bytes, not 40",
-                b.len()
-            )));
+            return bad(format!("says WAVE_FORMAT_EXTENSIBLE but has {} bytes, not 40", b.len()));
         }
         let valid = u16_at(18);
         if valid != 0 {
@@ -224,16 +269,14 @@ fn parse_fmt(b: &[u8], path: &str, chunk_at: u64) -> Result<WavHeader, BlockErro
         }
         h.tag = u16_at(24);
     }
-    let bad =
-        |what: String| Err(BlockError::new(format!("{path}: the 'fmt ' chunk at byte offset {chunk_at}: {what}")));
     if h.channels == 0 {
-        return bad("0 channels".into());
+        return bad("has 0 channels".into());
     }
     if h.rate == 0 {
-        return bad("a sample rate of 0".into());
+        return bad("has a sample rate of 0".into());
     }
     if h.valid_bits == 0 || h.valid_bits > h.container_bits {
-        return bad(format!("{} valid bits in {}-bit samples", h.valid_bits, h.container_bits));
+        return bad(format!("has {} valid bits in {}-bit samples", h.valid_bits, h.container_bits));
     }
     Ok(h)
 }
@@ -241,18 +284,21 @@ fn parse_fmt(b: &[u8], path: &str, chunk_at: u64) -> Result<WavHeader, BlockErro
 impl WavHeader {
     /// The sample encoding and its description; the combinations lobeflow
     /// decodes, others named with their format tag.
-    pub fn encoding(&self, path: &str) -> Result<(Encoding, String), BlockError> {
+    pub fn encoding(&self, path: &str) -> Result<(Encoding, String), CaptureError> {
         // The container is what a frame gives each channel: 24 valid bits may
         // sit in 4 bytes, with or without the extensible form saying so.
         let container = usize::from(self.block_align) / usize::from(self.channels.max(1));
         let bits = self.valid_bits;
         let supported = "supported: PCM integer 8, 16, 24 or 32-bit, IEEE float 32-bit, also as WAVE_FORMAT_EXTENSIBLE";
         let unsupported = || {
-            BlockError::new(format!(
-                "{path}: unsupported WAV sample format (format tag 0x{:04x} {}, {bits} bits per sample in {container}-byte containers); {supported}",
-                self.tag,
-                tag_name(self.tag)
-            ))
+            CaptureError::unsupported(
+                path,
+                format!(
+                    "unsupported WAV sample format (format tag 0x{:04x} {}, {bits} bits per sample in {container}-byte containers); {supported}",
+                    self.tag,
+                    tag_name(self.tag)
+                ),
+            )
         };
         let encoding = match (self.tag, container, bits) {
             (TAG_FLOAT, 4, 32) => (Encoding::Type(real(SampleFormat::F32)), "IEEE float 32-bit".to_string()),
@@ -264,10 +310,11 @@ impl WavHeader {
             _ => return Err(unsupported()),
         };
         if usize::from(self.block_align) % usize::from(self.channels) != 0 {
-            return Err(BlockError::new(format!(
-                "{path}: the WAV header's block align of {} bytes does not split into {} channel(s)",
-                self.block_align, self.channels
-            )));
+            return Err(CaptureError::field(
+                path,
+                "the WAV header's block align",
+                format!("{} bytes do not split into {} channel(s)", self.block_align, self.channels),
+            ));
         }
         Ok(encoding)
     }

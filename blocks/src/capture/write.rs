@@ -17,6 +17,7 @@
 //! that looks complete. Outside a graph run use [`CaptureWriter::commit`].
 
 use super::datatype::{DataType, SampleFormat};
+use super::error::CaptureError;
 use super::sigmf_meta::{Annotation, Capture, Global, SIGMF_VERSION, SigmfMeta};
 use crate::{FileStager, OutputFile};
 use num_complex::Complex32;
@@ -38,7 +39,7 @@ pub enum WriteFormat {
 pub const WRITE_FORMAT_NAMES: &[&str] = &["wav_f32", "wav_i16", "sigmf_cf32_le", "sigmf_ci16_le", "sigmf_cu8"];
 
 impl WriteFormat {
-    pub fn parse(name: &str) -> Result<WriteFormat, String> {
+    pub fn parse(name: &str) -> Result<WriteFormat, CaptureError> {
         let dt = |n: &str| DataType::parse(n).map(WriteFormat::Sigmf);
         match name {
             "wav_f32" => Ok(WriteFormat::WavF32),
@@ -46,7 +47,10 @@ impl WriteFormat {
             "sigmf_cf32_le" => dt("cf32_le"),
             "sigmf_ci16_le" => dt("ci16_le"),
             "sigmf_cu8" => dt("cu8"),
-            _ => Err(format!("unknown capture format '{name}' (one of {})", WRITE_FORMAT_NAMES.join(", "))),
+            _ => Err(CaptureError::unsupported(
+                "",
+                format!("unknown capture format '{name}' (one of {})", WRITE_FORMAT_NAMES.join(", ")),
+            )),
         }
     }
 
@@ -194,83 +198,47 @@ pub struct CaptureWriter {
     path: PathBuf,
 }
 
-/// What went wrong writing a capture.
-#[derive(Debug)]
-pub enum WriteError {
-    /// The writer's settings do not fit the format (rate, scale, datatype,
-    /// channels given).
-    Setting(String),
-    /// A file could not be created, written or finished.
-    Io { doing: &'static str, path: PathBuf, source: std::io::Error },
-    /// The WAV encoder refused.
-    Wav { doing: &'static str, path: PathBuf, source: hound::Error },
-    /// The SigMF metadata could not be encoded.
-    Meta(serde_json::Error),
+fn io_error<'a>(doing: &'static str, path: &'a Path) -> impl Fn(std::io::Error) -> CaptureError + 'a {
+    move |source| CaptureError::Io { path: path.display().to_string(), doing, offset: None, source }
 }
 
-impl std::fmt::Display for WriteError {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        match self {
-            WriteError::Setting(m) => write!(f, "{m}"),
-            WriteError::Io { doing, path, source } if path.as_os_str().is_empty() => write!(f, "{doing}: {source}"),
-            WriteError::Io { doing, path, source } => write!(f, "{doing} {}: {source}", path.display()),
-            WriteError::Wav { doing, path, source } => write!(f, "{doing} {}: {source}", path.display()),
-            WriteError::Meta(e) => write!(f, "SigMF metadata: {e}"),
-        }
-    }
+fn wav_error<'a>(doing: &'static str, path: &'a Path) -> impl Fn(hound::Error) -> CaptureError + 'a {
+    move |source| CaptureError::WavEncoder { path: path.to_path_buf(), doing, source }
 }
 
-impl std::error::Error for WriteError {
-    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
-        match self {
-            WriteError::Setting(_) => None,
-            WriteError::Io { source, .. } => Some(source),
-            WriteError::Wav { source, .. } => Some(source),
-            WriteError::Meta(e) => Some(e),
-        }
-    }
-}
-
-/// Block and synthesizer errors are messages; the writer's says it all.
-impl From<WriteError> for String {
-    fn from(e: WriteError) -> String {
-        e.to_string()
-    }
-}
-
-impl WriteError {
-    fn io<'a>(doing: &'static str, path: &'a Path) -> impl Fn(std::io::Error) -> WriteError + 'a {
-        move |source| WriteError::Io { doing, path: path.to_path_buf(), source }
-    }
-    fn wav<'a>(doing: &'static str, path: &'a Path) -> impl Fn(hound::Error) -> WriteError + 'a {
-        move |source| WriteError::Wav { doing, path: path.to_path_buf(), source }
-    }
+/// Writer settings that do not fit the format or the data given.
+fn setting_error(path: &Path, problem: String) -> CaptureError {
+    CaptureError::setting(&path.display().to_string(), problem)
 }
 
 impl CaptureWriter {
     /// Start writing to `path` (for SigMF: the `.sigmf-data` path; the meta
     /// file goes beside it with the `.sigmf-meta` extension).
-    pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, WriteError> {
+    pub fn create(path: &Path, config: WriterConfig) -> Result<CaptureWriter, CaptureError> {
         Self::create_staged(path, config, &FileStager::default())
     }
 
     /// As [`CaptureWriter::create`], the files kept by `stager` until its commit.
-    pub fn create_staged(path: &Path, config: WriterConfig, stager: &FileStager) -> Result<CaptureWriter, WriteError> {
+    pub fn create_staged(
+        path: &Path,
+        config: WriterConfig,
+        stager: &FileStager,
+    ) -> Result<CaptureWriter, CaptureError> {
         if !(config.rate.is_finite() && config.rate > 0.0) {
-            return Err(WriteError::Setting(format!("sample rate {} is not a positive number", config.rate)));
+            return Err(setting_error(path, format!("sample rate {} is not a positive number", config.rate)));
         }
         if !(config.scale.is_finite() && config.scale > 0.0) {
-            return Err(WriteError::Setting(format!("IQ scale {} is not a positive number", config.scale)));
+            return Err(setting_error(path, format!("IQ scale {} is not a positive number", config.scale)));
         }
-        let open = |p: &Path| stager.create(p).map_err(WriteError::io("cannot write", p));
+        let open = |p: &Path| stager.create(p).map_err(io_error("cannot write", p));
         let sink = match config.format {
             WriteFormat::WavF32 | WriteFormat::WavI16 => {
                 let rate = config.rate.round();
                 if (rate - config.rate).abs() > 1e-6 * config.rate || rate > u32::MAX as f64 {
-                    return Err(WriteError::Setting(format!(
-                        "WAV needs a whole sample rate below 2^32 S/s, not {}",
-                        config.rate
-                    )));
+                    return Err(setting_error(
+                        path,
+                        format!("WAV needs a whole sample rate below 2^32 S/s, not {}", config.rate),
+                    ));
                 }
                 let int16 = config.format == WriteFormat::WavI16;
                 let spec = hound::WavSpec {
@@ -281,12 +249,12 @@ impl CaptureWriter {
                 };
                 let slot = Arc::new(Mutex::new(None));
                 let out = SeekableOutput { file: Some(open(path)?), slot: Arc::clone(&slot) };
-                let writer = hound::WavWriter::new(out, spec).map_err(WriteError::wav("cannot start WAV", path))?;
+                let writer = hound::WavWriter::new(out, spec).map_err(wav_error("cannot start WAV", path))?;
                 Sink::Wav { writer, slot, int16 }
             }
             WriteFormat::Sigmf(datatype) => {
                 if !datatype.complex {
-                    return Err(WriteError::Setting(format!("SigMF output needs a complex datatype, not {datatype}")));
+                    return Err(setting_error(path, format!("SigMF output needs a complex datatype, not {datatype}")));
                 }
                 Sink::Sigmf { data: open(path)?, meta_path: path.with_extension("sigmf-meta"), datatype }
             }
@@ -317,21 +285,18 @@ impl CaptureWriter {
 
     /// Append frames: `iq` and one slice per configured aux channel, each as
     /// long as `iq`.
-    pub fn write(&mut self, iq: &[Complex32], aux: &[&[f32]]) -> Result<(), WriteError> {
+    pub fn write(&mut self, iq: &[Complex32], aux: &[&[f32]]) -> Result<(), CaptureError> {
         if aux.len() != self.config.aux.len() {
-            return Err(WriteError::Setting(format!(
-                "{} aux channels given, {} configured",
-                aux.len(),
-                self.config.aux.len()
-            )));
+            return Err(setting_error(
+                &self.path,
+                format!("{} aux channels given, {} configured", aux.len(), self.config.aux.len()),
+            ));
         }
         if let Some((i, a)) = aux.iter().enumerate().find(|(_, a)| a.len() != iq.len()) {
-            return Err(WriteError::Setting(format!(
-                "{} channel has {} samples where the IQ has {}",
-                self.config.aux[i].name(),
-                a.len(),
-                iq.len()
-            )));
+            return Err(setting_error(
+                &self.path,
+                format!("{} channel has {} samples where the IQ has {}", self.config.aux[i].name(), a.len(), iq.len()),
+            ));
         }
         let scale = self.config.scale;
         let n_aux = aux.len();
@@ -340,17 +305,17 @@ impl CaptureWriter {
             Sink::Wav { writer, int16, .. } => {
                 let width = (2 + n_aux) as u64 * if *int16 { 2 } else { 4 };
                 if (self.frames + iq.len() as u64) * width > WAV_MAX_DATA_BYTES {
-                    return Err(WriteError::Setting(format!(
-                        "{}: a WAV file holds at most 4 GiB of samples; use a SigMF format for longer captures",
-                        self.path.display()
-                    )));
+                    return Err(setting_error(
+                        &self.path,
+                        format!("a WAV file holds at most 4 GiB of samples; use a SigMF format for longer captures"),
+                    ));
                 }
                 for (k, x) in iq.iter().enumerate() {
                     self.components.push(x.re * scale);
                     self.components.push(x.im * scale);
                     self.components.extend(aux.iter().map(|a| a[k]));
                 }
-                let wav_err = WriteError::wav("writing", &self.path);
+                let wav_err = wav_error("writing", &self.path);
                 if *int16 {
                     self.bytes.clear();
                     I16_LE.encode(&self.components, &mut self.bytes);
@@ -374,7 +339,7 @@ impl CaptureWriter {
                 }
                 self.bytes.clear();
                 datatype.encode(&self.components, &mut self.bytes);
-                data.write_all(&self.bytes).map_err(WriteError::io("writing", &self.path))?;
+                data.write_all(&self.bytes).map_err(io_error("writing", &self.path))?;
             }
         }
         self.frames += iq.len() as u64;
@@ -403,34 +368,35 @@ impl CaptureWriter {
 
     /// Close every file and hand it to `stager` for the final rename.
     /// Returns the final paths.
-    pub fn finish(self, stager: &FileStager) -> Result<Vec<PathBuf>, WriteError> {
+    pub fn finish(self, stager: &FileStager) -> Result<Vec<PathBuf>, CaptureError> {
         let meta = self.sigmf_meta();
         let path = self.path;
         match self.sink {
             Sink::Wav { writer, slot, .. } => {
-                writer.finalize().map_err(WriteError::wav("finishing", &path))?;
+                writer.finalize().map_err(wav_error("finishing", &path))?;
                 let file = slot.lock().unwrap_or_else(|e| e.into_inner()).take();
                 let lost = || std::io::Error::other("the file was lost");
-                let file = file.ok_or_else(lost).map_err(WriteError::io("finishing", &path))?;
-                file.finish(stager).map_err(WriteError::io("finishing", &path))?;
+                let file = file.ok_or_else(lost).map_err(io_error("finishing", &path))?;
+                file.finish(stager).map_err(io_error("finishing", &path))?;
                 Ok(vec![path])
             }
             Sink::Sigmf { data, meta_path, .. } => {
-                data.finish(stager).map_err(WriteError::io("finishing", &path))?;
-                let mut meta_file = stager.create(&meta_path).map_err(WriteError::io("cannot write", &meta_path))?;
-                let json = serde_json::to_string_pretty(&meta).map_err(WriteError::Meta)?;
+                data.finish(stager).map_err(io_error("finishing", &path))?;
+                let mut meta_file = stager.create(&meta_path).map_err(io_error("cannot write", &meta_path))?;
+                let json = serde_json::to_string_pretty(&meta)
+                    .map_err(|source| CaptureError::MetaEncoding { path: meta_path.clone(), source })?;
                 meta_file
                     .write_all(json.as_bytes())
                     .and_then(|_| meta_file.write_all(b"\n"))
                     .and_then(|_| meta_file.finish(stager))
-                    .map_err(WriteError::io("finishing", &meta_path))?;
+                    .map_err(io_error("finishing", &meta_path))?;
                 Ok(vec![path, meta_path])
             }
         }
     }
 
     /// Outside a graph run: finish and rename into place at once.
-    pub fn commit(self) -> Result<Vec<PathBuf>, WriteError> {
+    pub fn commit(self) -> Result<Vec<PathBuf>, CaptureError> {
         let stager = FileStager::default();
         let paths = self.finish(&stager)?;
         commit_staged(&stager)?;
@@ -440,11 +406,11 @@ impl CaptureWriter {
 
 /// Rename everything `stager` holds into place (outside a graph run); on
 /// failure the remaining temporary files are deleted.
-pub fn commit_staged(stager: &FileStager) -> Result<Vec<PathBuf>, WriteError> {
+pub fn commit_staged(stager: &FileStager) -> Result<Vec<PathBuf>, CaptureError> {
     stager.commit().map_err(|source| {
         stager.discard();
         // The commit's error names the file it stopped at.
-        WriteError::Io { doing: "cannot move outputs into place", path: PathBuf::new(), source }
+        CaptureError::Io { path: String::new(), doing: "cannot move outputs into place", offset: None, source }
     })
 }
 
@@ -459,7 +425,7 @@ mod tests {
         for n in WRITE_FORMAT_NAMES {
             assert!(WriteFormat::parse(n).is_ok(), "{n}");
         }
-        let e = WriteFormat::parse("wav_f64").unwrap_err();
+        let e = WriteFormat::parse("wav_f64").unwrap_err().to_string();
         assert!(e.contains("wav_f32") && e.contains("sigmf_cu8"), "{e}");
         assert!(WriteFormat::parse("sigmf_cu8").unwrap().is_integer());
         assert!(!WriteFormat::parse("sigmf_cf32_le").unwrap().is_integer());
