@@ -17,6 +17,7 @@
 
 pub mod block;
 pub mod capture;
+pub mod csv_table;
 pub mod decimal;
 pub mod dsp;
 pub mod error;

@@ -4,6 +4,7 @@
 mod common;
 
 use common::{dwell, params};
+use lobeflow_blocks::dsp::tracking::Telemetry;
 use lobeflow_blocks::kinds::table_writer::SPEC;
 use lobeflow_blocks::{AngleEstimate, Block, BuildContext, Cell, FileStager, Flag, Item, Outputs, Stamp, TableRow};
 use std::path::{Path, PathBuf};
@@ -175,5 +176,27 @@ fn dropped_without_finish_leaves_nothing() {
     let (bytes, notices) = write_all(&path, "csv", Vec::new());
     assert!(bytes.is_empty());
     assert!(notices.iter().any(|n| n.contains("no items")), "{notices:?}");
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+#[test]
+fn quoted_column_names_read_back_as_telemetry() {
+    // What table_writer quotes, the settings readers (csv crate) unquote.
+    let dir = scratch("telemetry");
+    let path = dir.join("pointing.csv");
+    let az = "az \"true\", deg";
+    let rows = (0..3)
+        .map(|k| {
+            let t = f64::from(k);
+            let fields = vec![(Arc::from("time_s"), Cell::Num(t)), (Arc::from(az), Cell::Num(10.0 + 2.0 * t))];
+            (2, Item::Row(TableRow { stamp: Stamp::new(k as u64, 1.0), fields }))
+        })
+        .collect();
+    let (bytes, _) = write_all(&path, "csv", rows);
+    let text = String::from_utf8(bytes).unwrap();
+    assert!(text.starts_with("time_s,\"az \"\"true\"\", deg\"\n"), "{text}");
+    let t = Telemetry::parse(&text, "pointing.csv").unwrap();
+    let col = t.column(az).expect("the column name unquoted");
+    assert_eq!(t.at(col, 1.5), Some(13.0));
     let _ = std::fs::remove_dir_all(&dir);
 }

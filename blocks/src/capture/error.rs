@@ -103,23 +103,13 @@ impl CaptureError {
         }
     }
 
-    /// The same error about another file (a name checked on its own, then
-    /// found in a file).
-    pub fn in_file(mut self, file: &str) -> CaptureError {
-        match &mut self {
-            CaptureError::Io { path, .. }
-            | CaptureError::NotFound { path, .. }
-            | CaptureError::BadHeader { path, .. }
-            | CaptureError::BadMetadata { path, .. }
-            | CaptureError::Unsupported { path, .. }
-            | CaptureError::Setting { path, .. }
-            | CaptureError::Roles { path, .. }
-            | CaptureError::Truncated { path, .. } => *path = file.to_string(),
-            CaptureError::WavEncoder { path, .. } | CaptureError::MetaEncoding { path, .. } => {
-                *path = PathBuf::from(file)
-            }
+    /// A name checked on its own (a datatype, a format), then found in
+    /// `file`: the same error, naming the file.
+    pub fn in_file(self, file: &str) -> CaptureError {
+        match self {
+            CaptureError::Unsupported { path, what } if path.is_empty() => CaptureError::unsupported(file, what),
+            e => e,
         }
-        self
     }
 }
 

@@ -207,7 +207,7 @@ fn wav_error<'a>(doing: &'static str, path: &'a Path) -> impl Fn(hound::Error) -
 }
 
 /// Writer settings that do not fit the format or the data given.
-fn setting_error(path: &Path, problem: String) -> CaptureError {
+fn setting_error(path: &Path, problem: impl Into<String>) -> CaptureError {
     CaptureError::setting(&path.display().to_string(), problem)
 }
 
@@ -307,7 +307,7 @@ impl CaptureWriter {
                 if (self.frames + iq.len() as u64) * width > WAV_MAX_DATA_BYTES {
                     return Err(setting_error(
                         &self.path,
-                        format!("a WAV file holds at most 4 GiB of samples; use a SigMF format for longer captures"),
+                        "a WAV file holds at most 4 GiB of samples; use a SigMF format for longer captures",
                     ));
                 }
                 for (k, x) in iq.iter().enumerate() {

@@ -6,6 +6,7 @@
 //! with `n = 1` (one-way) or `2` (two-way). [`PairModel`] turns a measured
 //! log ratio back into `theta`, on the monotonic part of `r` only.
 
+use crate::csv_table::{CsvError, read_rows};
 use std::f64::consts::{LN_2, PI};
 
 /// The shape of one lobe's one-way voltage pattern (peak 1 on its own axis).
@@ -152,21 +153,20 @@ fn table_beamwidth(t: &[(f64, f64)]) -> Result<f64, String> {
     Ok(right - left)
 }
 
-/// Read a measured pattern CSV: lines of `angle_deg,gain_db`; a header line
-/// and `#` comments are skipped. Errors name the line.
+/// Read a measured pattern CSV: rows of `angle_deg,gain_db` (quoted or
+/// not); a header row and `#` comments are skipped. Errors name the line;
+/// the caller names the file.
 pub fn parse_pattern_csv(text: &str) -> Result<Vec<(f64, f64)>, String> {
     let mut out = Vec::new();
-    for (i, line) in text.lines().enumerate() {
-        let l = line.trim();
-        if l.is_empty() || l.starts_with('#') {
-            continue;
-        }
-        let mut parts = l.split(',').map(str::trim);
-        let (a, g) = (parts.next().unwrap_or(""), parts.next().unwrap_or(""));
-        match (a.parse::<f64>(), g.parse::<f64>()) {
+    for (k, row) in read_rows(text, "")?.into_iter().enumerate() {
+        let field = |k: usize| row.fields.get(k).map_or("", String::as_str);
+        match (field(0).parse::<f64>(), field(1).parse::<f64>()) {
             (Ok(a), Ok(g)) => out.push((a, g)),
-            _ if out.is_empty() && i == 0 => continue, // header
-            _ => return Err(format!("line {}: expected 'angle_deg,gain_db', got '{l}'", i + 1)),
+            _ if k == 0 => continue, // header
+            _ => {
+                let got = row.fields.join(",");
+                return Err(CsvError::at("", row.line, format!("expected 'angle_deg,gain_db', got '{got}'")).into());
+            }
         }
     }
     check_table(&out)?;
@@ -361,6 +361,16 @@ mod tests {
         assert!((20.0 * far.log10() + 20.0).abs() < 0.05);
         assert_eq!(f.angle(f.log_ratio(f.limit_deg + 0.1)), None);
         assert!(f.angle(f.log_ratio(f.limit_deg - 0.1)).is_some());
+    }
+
+    #[test]
+    fn a_pattern_quoted_by_python_reads_as_the_plain_table() {
+        let plain = parse_pattern_csv(include_str!("../../tests/fixtures/pattern_table.csv")).unwrap();
+        let quoted = parse_pattern_csv(include_str!("../../tests/fixtures/pattern_table_quoted.csv")).unwrap();
+        assert_eq!(quoted, plain);
+        assert_eq!(plain[0], (-12.0, -40.0));
+        let e = parse_pattern_csv("\"angle_deg\",\"gain_db\"\n\"-1\",\"-3\"\n\"0\",\"0, 1\"\n").unwrap_err();
+        assert!(e.starts_with("line 3: ") && e.contains("0,0, 1"), "{e}");
     }
 
     #[test]

@@ -2,6 +2,8 @@
 //! (fixed-gain alpha-beta, or a Kalman filter), an innovation gate against
 //! outliers, and pointing telemetry read from a CSV table.
 
+use crate::csv_table::{CsvError, read_rows};
+
 /// The filter law of an [`AxisFilter`].
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub enum FilterMethod {
@@ -170,51 +172,37 @@ impl Telemetry {
     /// The first line (after blank and `#` lines) is the header, whose first
     /// column must be `time_s`; times must increase.
     pub fn parse(text: &str, file: &str) -> Result<Telemetry, String> {
-        let mut columns: Option<Vec<String>> = None;
-        let (mut times, mut values) = (Vec::new(), Vec::new());
-        for (i, line) in text.lines().enumerate() {
-            let l = line.trim();
-            if l.is_empty() || l.starts_with('#') {
-                continue;
-            }
-            let at = || format!("{file} line {}", i + 1);
-            let fields: Vec<&str> = l.split(',').map(str::trim).collect();
-            let Some(cols) = &columns else {
-                if fields[0] != "time_s" || fields.len() < 2 {
-                    return Err(format!(
-                        "{}: expected a header starting 'time_s,' (e.g. time_s,az_deg,el_deg), got '{l}'",
-                        at()
-                    ));
-                }
-                columns = Some(fields[1..].iter().map(|c| c.to_string()).collect());
-                continue;
-            };
-            if fields.len() != cols.len() + 1 {
-                return Err(format!(
-                    "{}: expected {} fields like the header, got {}",
-                    at(),
-                    cols.len() + 1,
-                    fields.len()
-                ));
-            }
-            let mut row = Vec::with_capacity(fields.len());
-            for (name, f) in std::iter::once("time_s").chain(cols.iter().map(String::as_str)).zip(&fields) {
-                match f.parse::<f64>() {
-                    Ok(v) if v.is_finite() => row.push(v),
-                    _ => return Err(format!("{}: {name} '{f}' is not a number", at())),
-                }
-            }
-            if times.last().is_some_and(|&last| row[0] <= last) {
-                return Err(format!("{}: time_s {} does not increase", at(), row[0]));
-            }
-            times.push(row[0]);
-            values.extend_from_slice(&row[1..]);
+        let mut rows = read_rows(text, file)?.into_iter();
+        let header = rows.next().ok_or_else(|| CsvError::whole(file, "no header line (time_s,az_deg,el_deg)"))?;
+        if header.fields[0] != "time_s" || header.fields.len() < 2 {
+            let got = header.fields.join(",");
+            let problem = format!("expected a header starting 'time_s,' (e.g. time_s,az_deg,el_deg), got '{got}'");
+            return Err(CsvError::at(file, header.line, problem).into());
         }
-        let columns = columns.ok_or_else(|| format!("{file}: no header line (time_s,az_deg,el_deg)"))?;
+        let (mut times, mut values) = (Vec::new(), Vec::new());
+        for row in rows {
+            let bad = |problem: String| CsvError::at(file, row.line, problem);
+            if row.fields.len() != header.fields.len() {
+                let (want, got) = (header.fields.len(), row.fields.len());
+                return Err(bad(format!("expected {want} fields like the header, got {got}")).into());
+            }
+            let mut numbers = Vec::with_capacity(row.fields.len());
+            for (name, f) in header.fields.iter().zip(&row.fields) {
+                match f.parse::<f64>() {
+                    Ok(v) if v.is_finite() => numbers.push(v),
+                    _ => return Err(bad(format!("{name} '{f}' is not a number")).into()),
+                }
+            }
+            if times.last().is_some_and(|&last| numbers[0] <= last) {
+                return Err(bad(format!("time_s {} does not increase", numbers[0])).into());
+            }
+            times.push(numbers[0]);
+            values.extend_from_slice(&numbers[1..]);
+        }
         if times.len() < 2 {
             return Err(format!("{file}: needs at least two rows of pointing angles"));
         }
-        Ok(Telemetry { columns, times, values })
+        Ok(Telemetry { columns: header.fields[1..].to_vec(), times, values })
     }
 
     /// Index of a named column.
@@ -263,6 +251,18 @@ mod tests {
         let e = Telemetry::parse("t,az\n", "p.csv").unwrap_err();
         assert!(e.contains("line 1"), "{e}");
         assert!(Telemetry::parse("time_s,az_deg\n0,1,2\n", "p.csv").unwrap_err().contains("line 2"));
+    }
+
+    #[test]
+    fn telemetry_with_a_quoted_column_name_written_by_python() {
+        let text = include_str!("../../tests/fixtures/telemetry_quoted.csv");
+        let t = Telemetry::parse(text, "telemetry_quoted.csv").unwrap();
+        let az = t.column("az \"true\", deg").expect("the quoted name, unquoted");
+        assert_eq!(t.columns().len(), 2);
+        assert!((t.at(az, 1.25).unwrap() - 11.25).abs() < 1e-12);
+        assert!((t.at(t.column("el_deg").unwrap(), 2.0).unwrap() - 19.0).abs() < 1e-12);
+        let e = Telemetry::parse("time_s,\"az, deg\"\n0,1\n1,\"2,x\"\n", "p.csv").unwrap_err();
+        assert!(e.starts_with("p.csv line 3: az, deg '2,x'"), "{e}");
     }
 
     #[test]

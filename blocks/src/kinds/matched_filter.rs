@@ -6,6 +6,7 @@
 //! keeps its power per sample.
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
+use crate::csv_table::{CsvError, read_rows};
 use crate::dsp::spectrum::{OverlapSave, linear_chirp};
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
@@ -107,36 +108,43 @@ impl TypedBlock for MatchedFilter {
     }
 }
 
-/// Read a taps CSV: `re[,im]` per line; `#` starts a comment; the first line may be a header.
+/// Read a taps CSV: `re[,im]` per row (quoted or not); `#` starts a
+/// comment; the first row may be a header.
 pub fn read_taps(path: &Path) -> Result<Vec<Complex32>, String> {
-    let text = std::fs::read_to_string(path).map_err(|e| format!("taps file {}: {e}", path.display()))?;
+    let file = format!("taps file {}", path.display());
+    let text = std::fs::read_to_string(path).map_err(|e| format!("{file}: {e}"))?;
     let mut taps = Vec::new();
-    for (i, raw) in text.lines().enumerate() {
-        let line = raw.split('#').next().unwrap_or("").trim();
-        if line.is_empty() {
-            continue;
+    for (k, row) in read_rows(&text, &file)?.into_iter().enumerate() {
+        // A comment may follow the numbers on their line.
+        let mut fields = Vec::with_capacity(2);
+        for f in &row.fields {
+            let (value, comment) = f.split_once('#').map_or((f.as_str(), false), |(v, _)| (v, true));
+            if !(comment && value.trim().is_empty()) {
+                fields.push(value.trim());
+            }
+            if comment {
+                break;
+            }
         }
-        let fields: Vec<&str> = line.split(',').map(str::trim).collect();
         let nums: Result<Vec<f32>, _> = fields.iter().map(|f| f.parse::<f32>()).collect();
         match nums {
             Ok(v) if (1..=2).contains(&v.len()) && v.iter().all(|x| x.is_finite()) => {
                 taps.push(Complex32::new(v[0], v.get(1).copied().unwrap_or(0.0)))
             }
-            Err(_) if taps.is_empty() && i == 0 => continue, // header line
+            Err(_) if k == 0 => continue, // header line
             _ => {
-                return Err(format!(
-                    "taps file {} line {}: expected 're' or 're,im' numbers, got '{line}'",
-                    path.display(),
-                    i + 1
-                ));
+                let got = row.fields.join(",");
+                return Err(
+                    CsvError::at(&file, row.line, format!("expected 're' or 're,im' numbers, got '{got}'")).into()
+                );
             }
         }
         if taps.len() > MAX_TAPS {
-            return Err(format!("taps file {}: more than {MAX_TAPS} taps", path.display()));
+            return Err(format!("{file}: more than {MAX_TAPS} taps"));
         }
     }
     if taps.iter().all(|t| t.norm_sqr() == 0.0) {
-        return Err(format!("taps file {}: no non-zero taps", path.display()));
+        return Err(format!("{file}: no non-zero taps"));
     }
     Ok(taps)
 }
@@ -289,5 +297,30 @@ impl Stream {
         };
         self.next_out += n as u64;
         out.push(MatchedFilterOut::Samples, Item::Samples(chunk));
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn taps_quoted_by_python_and_trailing_comments() {
+        let fixture = Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/fixtures/taps_quoted.csv"));
+        let taps = read_taps(fixture).unwrap();
+        // The 13-chip Barker code.
+        let barker = [1.0, 1.0, 1.0, 1.0, 1.0, -1.0, -1.0, 1.0, 1.0, -1.0, 1.0, -1.0, 1.0];
+        assert_eq!(taps.iter().map(|t| t.re).collect::<Vec<_>>(), barker);
+        assert!(taps.iter().all(|t| t.im == 0.0));
+
+        let dir = std::env::temp_dir().join(format!("lobeflow-taps-unit-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("t.csv");
+        std::fs::write(&path, "# code\n1,0 # first, chip\n\"-1\",\"0.5\"\n").unwrap();
+        assert_eq!(read_taps(&path).unwrap(), [Complex32::new(1.0, 0.0), Complex32::new(-1.0, 0.5)]);
+        std::fs::write(&path, "re,im\n1,0\n\"0.5, 2\",0\n").unwrap();
+        let e = read_taps(&path).unwrap_err();
+        assert!(e.contains("t.csv line 3: expected 're' or 're,im' numbers"), "{e}");
+        let _ = std::fs::remove_dir_all(&dir);
     }
 }
