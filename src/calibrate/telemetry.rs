@@ -3,6 +3,7 @@
 //! and jumps, and turned into the source's offset from boresight in the
 //! antenna frame (see docs/calibration.md for the geometry).
 
+use lobeflow_blocks::csv_table::read_rows;
 use lobeflow_blocks::dsp::tracking::Telemetry;
 
 /// Pointing samples on the capture's clock.
@@ -43,18 +44,15 @@ impl Pointing {
             })
         };
         let (az, el) = (col("az_deg")? + 1, col("el_deg")? + 1);
-        let mut reader = csv::ReaderBuilder::new()
-            .flexible(true)
-            .trim(csv::Trim::All)
-            .comment(Some(b'#'))
-            .from_reader(text.as_bytes());
-        let mut rows = Vec::new();
-        for record in reader.records() {
-            let record = record.map_err(|e| format!("{file}: not a readable CSV table: {e}"))?;
-            let line = record.position().map_or(0, |p| p.line() as usize);
-            let f = |c: usize| record.get(c).and_then(|x| x.parse::<f64>().ok()).unwrap_or(f64::NAN);
-            rows.push((line, f(0), f(az), f(el)));
-        }
+        // The header row first, then the rows Telemetry::parse checked.
+        let rows = read_rows(text, file)?
+            .into_iter()
+            .skip(1)
+            .map(|row| {
+                let f = |c: usize| row.fields.get(c).and_then(|x| x.parse::<f64>().ok()).unwrap_or(f64::NAN);
+                (row.line as usize, f(0), f(az), f(el))
+            })
+            .collect();
         let mut p = Pointing {
             rows,
             clock_offset_s,
@@ -183,7 +181,8 @@ mod tests {
 
     #[test]
     fn gaps_and_jumps_are_reported_and_not_interpolated() {
-        let mut text = String::from("time_s,az_deg,el_deg\n");
+        // A comment and a blank line first: the lines named count them.
+        let mut text = String::from("# scan of the test source\n\ntime_s,az_deg,el_deg\n");
         for k in 0..50 {
             let t = k as f64 * 0.1 + if k >= 30 { 1.0 } else { 0.0 };
             let az = 10.0 + 0.01 * k as f64 + if k >= 40 { 2.0 } else { 0.0 };
@@ -192,7 +191,7 @@ mod tests {
         let p = Pointing::parse(&text, "scan.csv", 0.5).unwrap();
         assert_eq!(p.irregularities.len(), 2, "{:?}", p.irregularities);
         assert!(
-            p.irregularities[0].contains("gap") && p.irregularities[0].contains("lines 31 and 32"),
+            p.irregularities[0].contains("gap") && p.irregularities[0].contains("lines 33 and 34"),
             "{:?}",
             p.irregularities
         );
