@@ -2,10 +2,10 @@
 //! (Python's `wave`, `scipy.io.wavfile`, the `sigmf` package, numpy, hound),
 //! and the bad-input corpus. Fixtures: `tests/fixtures/make_capture_fixtures.py`.
 
-use lobeflow::capture::CaptureError;
 use lobeflow::capture::reader::{CaptureReader, Format, OpenOptions, open};
 use lobeflow::capture::roles::{NonFinite, RoleMap};
 use lobeflow::capture::source::{CaptureSource, SPEC};
+use lobeflow::capture::{CaptureError, Place};
 use lobeflow::commands::inspect::{InspectArgs, examine, inspect};
 use lobeflow_blocks::{Block, BlockError, Item, Outputs, Params, RawValue, SampleChunk, TypedBlock};
 use serde_json::Value;
@@ -325,6 +325,41 @@ fn sigmf_metadata_faults_are_explained() {
     assert!(open(&bad("rate_48k"), &opts(Some(48000.0 * (1.0 + 1e-12)))).is_ok());
     let e = open_err(&good("kestrel_ci16"), OpenOptions { channels: Some(3), ..OpenOptions::default() });
     assert!(e.contains("channels 3") && e.contains("says 2"), "{e}");
+}
+
+/// The error of opening `path` and reading it to the end, as opened.
+fn open_error(path: &str, o: OpenOptions) -> CaptureError {
+    match open(path, &o) {
+        Ok(_) => panic!("{path} opened without error"),
+        Err(e) => e,
+    }
+}
+
+#[test]
+fn capture_errors_come_by_kind_with_file_and_place() {
+    match open_error(&bad("truncated.wav"), OpenOptions::default()) {
+        CaptureError::Truncated { path, offset: 194, sample: 37, .. } => assert!(path.ends_with("truncated.wav")),
+        e => panic!("{e:?}"),
+    }
+    match open_error(&bad("float64.wav"), OpenOptions::default()) {
+        CaptureError::Unsupported { what, .. } => assert!(what.contains("64 bits"), "{what}"),
+        e => panic!("{e:?}"),
+    }
+    let e = open_error(&bad("nothing_here.wav"), OpenOptions::default());
+    let io = std::error::Error::source(&e).and_then(|s| s.downcast_ref::<std::io::Error>());
+    assert_eq!(io.map(std::io::Error::kind), Some(std::io::ErrorKind::NotFound), "{e:?}");
+    assert!(matches!(open_error(&bad("nothing_here"), OpenOptions::default()), CaptureError::NotFound { .. }));
+    match open_error(&bad("unordered_captures"), OpenOptions::default()) {
+        CaptureError::BadHeader { path, place: Place::Field(field), .. } => {
+            assert!(path.ends_with("unordered_captures.sigmf-meta") && field.starts_with("captures[1]"), "{field}");
+        }
+        e => panic!("{e:?}"),
+    }
+    let e = open_error(&bad("rate_48k"), opts(Some(96000.0)));
+    assert!(matches!(e, CaptureError::Setting { .. }), "{e:?}");
+    let info = open(&good("wave_i16_iq.wav"), &OpenOptions::default()).unwrap().info().clone();
+    let e = RoleMap::new(&["i".into(), "q".into(), "sync".into()], &info).unwrap_err();
+    assert!(matches!(&e, CaptureError::Roles { path, .. } if path.ends_with("wave_i16_iq.wav")), "{e:?}");
 }
 
 #[test]
