@@ -2,10 +2,10 @@
 //! WAV or SigMF capture, through the run's file stager.
 
 use super::sigmf_meta::Annotation;
-use super::write::{AuxRole, CaptureWriter, WriteFormat, WriterConfig};
+use super::write::{AuxRole, CaptureFormat, CaptureWriter, WriteFormat, WriterConfig};
 use crate::{
-    BlockError, BlockSpec, BuildContext, BuildError, Choice, FileStager, Item, ItemKind, LobeSegment, NoPorts, Outputs,
-    ParamError, ParamType, SampleChunk, Stamp, TypedBlock, block_choice, block_ports, block_settings,
+    BlockError, BlockSpec, BuildContext, BuildError, FileStager, Item, ItemKind, LobeSegment, NoPorts, Outputs,
+    ParamError, ParamType, SampleChunk, Stamp, TypedBlock, block_ports, block_settings,
 };
 use serde_json::Map;
 use std::path::PathBuf;
@@ -21,17 +21,6 @@ block_ports! {
     inputs pub enum SinkIn {
         Samples = optional("samples", ItemKind::Samples, "sample chunks to write"),
         Segments = optional("segments", ItemKind::Segment, "lobe segments to write (filtered by `lobe`)"),
-    }
-}
-
-block_choice! {
-    /// The encodings a capture is written in.
-    pub enum CaptureFormat {
-        WavF32 = "wav_f32",
-        WavI16 = "wav_i16",
-        SigmfCf32 = "sigmf_cf32_le",
-        SigmfCi16 = "sigmf_ci16_le",
-        SigmfCu8 = "sigmf_cu8",
     }
 }
 
@@ -67,8 +56,7 @@ impl TypedBlock for CaptureSink {
     type Out = NoPorts;
 
     fn build(s: CaptureSinkSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
-        // The choice's words are the writer's format names.
-        let format = WriteFormat::parse(s.format.word()).map_err(|e| ParamError::invalid("format", e))?;
+        let format = WriteFormat::from(s.format);
         if s.annotate_dwells && !format.is_sigmf() {
             return Err(ParamError::invalid(
                 "annotate_dwells",

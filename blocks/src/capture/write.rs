@@ -19,7 +19,7 @@
 use super::datatype::{DataType, SampleFormat};
 use super::error::CaptureError;
 use super::sigmf_meta::{Annotation, Capture, Global, SIGMF_VERSION, SigmfMeta};
-use crate::{FileStager, OutputFile};
+use crate::{Choice, FileStager, OutputFile};
 use num_complex::Complex32;
 use serde_json::Map;
 use std::io::{Seek, SeekFrom, Write};
@@ -35,23 +35,42 @@ pub enum WriteFormat {
     Sigmf(DataType),
 }
 
+crate::block_choice! {
+    /// The names of the output encodings, in catalog order (the
+    /// `capture_writer` choice and the synthesizer's `format`).
+    pub enum CaptureFormat {
+        WavF32 = "wav_f32",
+        WavI16 = "wav_i16",
+        SigmfCf32 = "sigmf_cf32_le",
+        SigmfCi16 = "sigmf_ci16_le",
+        SigmfCu8 = "sigmf_cu8",
+    }
+}
+
 /// Names accepted by [`WriteFormat::parse`], in catalog order.
-pub const WRITE_FORMAT_NAMES: &[&str] = &["wav_f32", "wav_i16", "sigmf_cf32_le", "sigmf_ci16_le", "sigmf_cu8"];
+pub const WRITE_FORMAT_NAMES: &[&str] = CaptureFormat::WORDS;
+
+impl From<CaptureFormat> for WriteFormat {
+    fn from(f: CaptureFormat) -> WriteFormat {
+        let sigmf = |format| WriteFormat::Sigmf(DataType { complex: true, format, big_endian: false });
+        match f {
+            CaptureFormat::WavF32 => WriteFormat::WavF32,
+            CaptureFormat::WavI16 => WriteFormat::WavI16,
+            CaptureFormat::SigmfCf32 => sigmf(SampleFormat::F32),
+            CaptureFormat::SigmfCi16 => sigmf(SampleFormat::I16),
+            CaptureFormat::SigmfCu8 => sigmf(SampleFormat::U8),
+        }
+    }
+}
 
 impl WriteFormat {
     pub fn parse(name: &str) -> Result<WriteFormat, CaptureError> {
-        let dt = |n: &str| DataType::parse(n).map(WriteFormat::Sigmf);
-        match name {
-            "wav_f32" => Ok(WriteFormat::WavF32),
-            "wav_i16" => Ok(WriteFormat::WavI16),
-            "sigmf_cf32_le" => dt("cf32_le"),
-            "sigmf_ci16_le" => dt("ci16_le"),
-            "sigmf_cu8" => dt("cu8"),
-            _ => Err(CaptureError::unsupported(
+        CaptureFormat::from_word(name).map(WriteFormat::from).ok_or_else(|| {
+            CaptureError::unsupported(
                 "",
                 format!("unknown capture format '{name}' (one of {})", WRITE_FORMAT_NAMES.join(", ")),
-            )),
-        }
+            )
+        })
     }
 
     pub fn is_sigmf(&self) -> bool {
