@@ -200,6 +200,8 @@ fn later_segments(reader: &dyn CaptureReader) -> Vec<(u64, Option<f64>)> {
 }
 
 impl CaptureSource {
+    /// Open the capture (or the run's pushed input) and check the roles
+    /// against its channels.
     fn build_with(s: CaptureReaderSettings, ctx: &BuildContext, hooks: &RunHooks) -> Result<Self, BuildError> {
         let mut reader: Box<dyn CaptureReader> = match &hooks.pushed {
             Some(pushed) => Box::new(pushed.open().map_err(|e| e.to_string())?),
