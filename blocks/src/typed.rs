@@ -230,6 +230,10 @@ impl TimeSetting {
     pub fn is_zero(&self) -> bool {
         matches!(self.value, Value::Seconds(x) | Value::Samples(x) | Value::Pulses(x) | Value::Number(x) if x == 0.0)
     }
+    /// True when given in pulses: it needs the pulse interval.
+    pub fn in_pulses(&self) -> bool {
+        matches!(self.value, Value::Pulses(_))
+    }
 }
 
 impl FromParam for TimeSetting {
@@ -300,7 +304,7 @@ pub fn choice_from_param<C: Choice>(p: &Params, spec: &ParamSpec) -> Result<C, P
 }
 
 /// A block's input or output ports (see [`block_ports!`](crate::block_ports)).
-pub trait PortSet: Copy + 'static {
+pub trait PortSet: Copy + Send + Sync + 'static {
     const SPECS: &'static [PortSpec];
     fn from_index(index: usize) -> Option<Self>;
 }
