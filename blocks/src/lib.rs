@@ -40,7 +40,8 @@ pub use limits::{MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
 pub use typed::{
-    Choice, DistanceSetting, FromParam, NoPorts, OutputPort, PortIndex, PortSet, Settings, TimeSetting, TypedBlock,
+    Choice, DistanceSetting, FromParam, InstancePort, NoPorts, OutputPort, PortIndex, PortSet, Settings, TimeSetting,
+    TypedBlock,
 };
 
 /// What a block writer needs, in one import: `use lobeflow_blocks::prelude::*;`.

@@ -309,6 +309,27 @@ pub trait PortSet: Copy + Send + Sync + 'static {
     fn from_index(index: usize) -> Option<Self>;
 }
 
+/// The ports of a block whose instances declare their own (a program that
+/// describes itself): a handle is the port's position in the instance's
+/// declaration, and the kind declares none.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct InstancePort(pub usize);
+
+impl PortSet for InstancePort {
+    const SPECS: &'static [PortSpec] = &[];
+    fn from_index(index: usize) -> Option<Self> {
+        Some(InstancePort(index))
+    }
+}
+
+impl PortIndex for InstancePort {
+    fn port_index(self) -> usize {
+        self.0
+    }
+}
+
+impl OutputPort for InstancePort {}
+
 /// Something naming a port by its position: a port handle, or a bare
 /// number in blocks still written against [`Block`] directly.
 pub trait PortIndex: Copy {

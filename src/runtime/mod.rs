@@ -263,7 +263,7 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
             setups.push(NodeSetup {
                 name: format!("report-summary:{}", graph.blocks[bi].name),
                 kind: "report_summary".into(),
-                block: Box::new(report::SummaryTap { summary: Arc::clone(&summary) }),
+                block: typed::boxed(report::SummaryTap { summary: Arc::clone(&summary) }),
                 inputs: vec![Some(edges)],
                 outputs: Vec::new(),
             });
