@@ -3,7 +3,8 @@
 //! The block trait, the stream items and the standard signal-processing
 //! blocks of lobeflow, a toolkit for lobe-switching angle trackers. This
 //! crate is all a researcher needs to write a new block: implement
-//! [`Block`], declare a [`BlockSpec`], and register it in a [`Registry`].
+//! [`TypedBlock`], declare it with [`BlockSpec::typed`], and register it in
+//! a [`Registry`].
 //!
 //! The default feature `pictures` adds the picture kinds (PNG and SVG drawn
 //! in pure Rust with a bundled font, see [`pictures`]); without it the crate

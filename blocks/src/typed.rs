@@ -54,24 +54,31 @@ pub trait TypedBlock: Send + Sized + 'static {
         Ok(())
     }
 
-    /// Sources only: see [`Block::generate`].
+    /// Sources only (blocks without inputs): produce the next items and
+    /// return `Ok(true)` while more will follow. Keep each call small (one
+    /// chunk) so memory stays bounded.
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
         let _ = out;
         Ok(false)
     }
 
-    /// See [`Block::wants_input`].
+    /// False once the block has all the input it will use (a picture of the
+    /// first seconds, say): the scheduler then stops delivering items to it,
+    /// and calls `finish` when its inputs end. A block must ignore any item
+    /// still handed to it after it said so, so its output does not depend on
+    /// how items were batched.
     fn wants_input(&self) -> bool {
         true
     }
 
-    /// See [`Block::progress`].
+    /// Sources reading a file: (bytes done, bytes total), for progress bars.
     fn progress(&self) -> Option<(u64, u64)> {
         None
     }
 }
 
 /// The engine's view of a [`TypedBlock`]: port numbers become handles.
+/// The one implementation of [`Block`] for blocks.
 struct Typed<B>(B);
 
 impl<B: TypedBlock> Block for Typed<B> {
@@ -345,7 +352,7 @@ impl PortIndex for usize {
 /// A handle of an output port, accepted by [`Outputs::push`].
 pub trait OutputPort: PortIndex {}
 
-/// Bare output numbers, for blocks not yet written against the typed API.
+/// Output numbers, for engine-side blocks that implement [`Block`] directly.
 impl OutputPort for usize {}
 
 /// The ports of a block that has none on that side (a source's inputs, a

@@ -326,6 +326,17 @@ impl Block for CaptureSource {
         let total = self.reader.info().data_bytes?;
         Some((self.reader.bytes_read(), total))
     }
+
+    // A source: no input arrives, and nothing is held back at the end.
+    fn process(&mut self, _: usize, _: Item, _: &mut Outputs) -> Result<(), BlockError> {
+        Ok(())
+    }
+    fn finish(&mut self, _: &mut Outputs) -> Result<(), BlockError> {
+        Ok(())
+    }
+    fn wants_input(&self) -> bool {
+        true
+    }
 }
 
 #[cfg(test)]

@@ -536,7 +536,10 @@ fn fail(st: &mut State, idx: usize, error: BlockError) {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::{SampleChunk, Stamp};
+    use lobeflow_blocks::typed::boxed;
+    use lobeflow_blocks::{BuildContext, BuildError, ItemKind, NoPorts, SampleChunk, Stamp, TypedBlock, block_ports};
+
+    block_ports! { outputs enum TicksOut { Ticks = optional("ticks", ItemKind::Samples, "empty chunks") } }
 
     /// Emits `count` one-sample chunks, `step` samples apart, at `rate`.
     struct Ticks {
@@ -545,7 +548,13 @@ mod tests {
         step: u64,
         rate: f64,
     }
-    impl Block for Ticks {
+    impl TypedBlock for Ticks {
+        type Settings = ();
+        type In = NoPorts;
+        type Out = TicksOut;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            Err(BuildError::Refused("made by the test".into()))
+        }
         fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
             // Several items per call, so queues fill past one batch.
             for _ in 0..3 {
@@ -553,7 +562,10 @@ mod tests {
                     break;
                 }
                 let stamp = Stamp::new(self.next, self.rate);
-                out.push(0, Item::Samples(SampleChunk { stamp, iq: vec![].into(), sync: None, trigger: None }));
+                out.push(
+                    TicksOut::Ticks,
+                    Item::Samples(SampleChunk { stamp, iq: vec![].into(), sync: None, trigger: None }),
+                );
                 self.next += self.step;
                 self.count -= 1;
             }
@@ -561,17 +573,30 @@ mod tests {
         }
     }
 
+    block_ports! {
+        inputs enum RecorderIn {
+            First = required("first", ItemKind::Samples, "merged first on ties"),
+            Second = required("second", ItemKind::Samples, "merged second on ties"),
+        }
+    }
+
     /// Records (port, sample index) of every item, in the order it sees them.
     struct Recorder(Arc<Mutex<Vec<(usize, u64)>>>);
-    impl Block for Recorder {
-        fn process(&mut self, port: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
-            self.0.lock().expect("recorder").push((port, item.stamp().index));
+    impl TypedBlock for Recorder {
+        type Settings = ();
+        type In = RecorderIn;
+        type Out = NoPorts;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            Err(BuildError::Refused("made by the test".into()))
+        }
+        fn process(&mut self, port: RecorderIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+            self.0.lock().expect("recorder").push((port as usize, item.stamp().index));
             Ok(())
         }
     }
 
     fn ticks(count: u64, step: u64, rate: f64) -> Box<dyn Block> {
-        Box::new(Ticks { next: 0, count, step, rate })
+        boxed(Ticks { next: 0, count, step, rate })
     }
 
     #[test]
@@ -604,7 +629,7 @@ mod tests {
                     NodeSetup {
                         name: "merge".into(),
                         kind: "recorder".into(),
-                        block: Box::new(Recorder(Arc::clone(&seen))),
+                        block: boxed(Recorder(Arc::clone(&seen))),
                         inputs: vec![Some(0), Some(1)],
                         outputs: vec![],
                     },
