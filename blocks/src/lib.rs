@@ -16,15 +16,16 @@
 //! assert_eq!(pass.inputs[0].kind, lobeflow_blocks::ItemKind::Samples);
 //! ```
 
-pub mod block;
-pub mod decimal;
+// Everything a block author uses of these is re-exported below.
+mod block;
+mod decimal;
 pub mod dsp;
-pub mod error;
-pub mod facts;
-pub mod item;
+mod error;
+mod facts;
+mod item;
 pub mod kinds;
-pub mod limits;
-pub mod output_file;
+mod limits;
+mod output_file;
 pub mod param;
 #[cfg(feature = "pictures")]
 pub mod pictures;

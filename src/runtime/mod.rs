@@ -1,8 +1,8 @@
 //! Running a resolved graph: build the blocks, wire the queues, schedule,
 //! and commit the output files only if everything succeeded.
 
-pub mod outputs;
-pub mod scheduler;
+pub(crate) mod outputs;
+pub(crate) mod scheduler;
 pub mod staging;
 
 use crate::capture;
