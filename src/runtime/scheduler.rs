@@ -553,7 +553,7 @@ mod tests {
         type In = NoPorts;
         type Out = TicksOut;
         fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
-            Err(BuildError::Refused("made by the test".into()))
+            crate::runtime::attached_by_run()
         }
         fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
             // Several items per call, so queues fill past one batch.
@@ -587,7 +587,7 @@ mod tests {
         type In = RecorderIn;
         type Out = NoPorts;
         fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
-            Err(BuildError::Refused("made by the test".into()))
+            crate::runtime::attached_by_run()
         }
         fn process(&mut self, port: RecorderIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
             self.0.lock().expect("recorder").push((port as usize, item.stamp().index));

@@ -22,6 +22,11 @@ fn dir(name: &str) -> PathBuf {
 
 block_ports! { inputs enum SamplesIn { Samples = required("samples", ItemKind::Samples, "anything") } }
 
+/// The output file of a test block.
+fn create(path: PathBuf) -> Result<OutputFile, BuildError> {
+    OutputFile::create(&path).map_err(|source| BuildError::File { path, source })
+}
+
 block_settings! {
     struct DigestSettings {
         path: PathBuf { ty: ParamType::OutputPath, default: Some("digest.txt"), doc: "where" },
@@ -42,7 +47,7 @@ impl TypedBlock for Digest {
     type In = SamplesIn;
     type Out = NoPorts;
     fn build(s: DigestSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
-        let f = OutputFile::create(&s.path).map_err(|source| BuildError::File { path: s.path, source })?;
+        let f = create(s.path)?;
         Ok(Digest { file: Some(f), files: ctx.files.clone(), fail_at: s.fail_at, seen: 0 })
     }
     fn process(&mut self, _: SamplesIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
@@ -86,7 +91,7 @@ impl TypedBlock for FirstFew {
     type In = SamplesIn;
     type Out = NoPorts;
     fn build(s: FirstFewSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
-        let f = OutputFile::create(&s.path).map_err(|source| BuildError::File { path: s.path, source })?;
+        let f = create(s.path)?;
         Ok(FirstFew { file: Some(f), files: ctx.files.clone(), keep: 5, seen: Vec::new() })
     }
     fn wants_input(&self) -> bool {
