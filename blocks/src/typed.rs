@@ -144,6 +144,21 @@ impl Settings for () {
     }
 }
 
+/// The declarations of two groups of settings, `first` then `second`, as
+/// one array (a kind whose settings join a shared group and its own); `N`
+/// is their total, checked when the constant is evaluated.
+pub const fn joined_params<const N: usize>(first: &[ParamSpec], second: &[ParamSpec]) -> [ParamSpec; N] {
+    assert!(first.len() + second.len() == N, "N must be the number of declarations in both groups");
+    let filler = ParamSpec { name: "", ty: ParamType::Text, default: None, doc: "" };
+    let mut out = [filler; N];
+    let mut i = 0;
+    while i < N {
+        out[i] = if i < first.len() { first[i] } else { second[i - first.len()] };
+        i += 1;
+    }
+    out
+}
+
 /// A settings field type: read from the checked parameters by its declaration.
 pub trait FromParam: Sized {
     fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError>;

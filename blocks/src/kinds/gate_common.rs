@@ -443,9 +443,13 @@ pub struct GateSettings {
 }
 
 impl GateSettings {
+    /// How many settings [`GateSettings::params`] declares.
+    pub const COUNT: usize = 9;
+
     /// The declarations of these settings; `pulses` lets times be given in
     /// pulses (gates on sweeps, whose spacing gives the pulse interval).
-    pub const fn params(pulses: bool) -> [ParamSpec; 9] {
+    /// A new setting goes here, into [`GateSettings::read`] and the struct.
+    pub const fn params(pulses: bool) -> [ParamSpec; GateSettings::COUNT] {
         [
             ParamSpec {
                 name: "lobes",

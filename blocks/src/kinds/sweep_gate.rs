@@ -10,7 +10,7 @@ use crate::block::{BlockError, BlockSpec, Outputs};
 use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params};
-use crate::typed::{DistanceSetting, Settings, TimeSetting};
+use crate::typed::{DistanceSetting, Settings, TimeSetting, joined_params};
 
 pub const SPEC: BlockSpec = BlockSpec::typed::<SwitchGate<SweepLabeller>>(
     "sweep_gate",
@@ -66,11 +66,8 @@ pub struct SweepGateSettings {
 }
 
 /// The gates' parameters, then the cuts only sweeps need.
-const PARAMS: [ParamSpec; 12] = {
-    let g = GateSettings::params(true);
-    let c = SweepCutSettings::PARAMS;
-    [g[0], g[1], g[2], g[3], g[4], g[5], g[6], g[7], g[8], c[0], c[1], c[2]]
-};
+const PARAMS: [ParamSpec; GateSettings::COUNT + SweepCutSettings::PARAMS.len()] =
+    joined_params(&GateSettings::params(true), SweepCutSettings::PARAMS);
 
 impl Settings for SweepGateSettings {
     const PARAMS: &'static [ParamSpec] = &PARAMS;
