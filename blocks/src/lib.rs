@@ -38,7 +38,7 @@ pub use block::{
 pub use error::{BuildError, ParamError};
 pub use facts::{Channels, Facts, StreamFacts};
 pub use item::*;
-pub use limits::{MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
+pub use limits::{BLOCK_MEMORY, MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
 pub use typed::{

@@ -409,6 +409,8 @@ macro_rules! block_settings {
     ) => {
         $(#[$meta])*
         #[derive(Clone, Debug)]
+        // The docs are the catalog's plain text (`<path>.png`), not markup.
+        #[allow(rustdoc::invalid_html_tags)]
         $vis struct $name {
             $( #[doc = $doc] pub $field: $fty, )*
         }
