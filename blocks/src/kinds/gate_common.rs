@@ -6,7 +6,9 @@
 //! is known, holding the first pieces while the sync levels are learned and
 //! replaying them, feeding the source, holding pieces whose lobe is not
 //! decided yet, turning switch events into the lobe in force and its guard,
-//! and routing notices. A gate only says how it releases settled pieces.
+//! and routing notices. A gate only says how it releases settled pieces
+//! ([`GateKind`]); [`SwitchGate`] makes any gate kind a typed block, and
+//! [`GateSettings`] holds the switch timing settings both read once.
 
 use crate::block::{BlockError, BuildContext, Outputs};
 use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
