@@ -21,12 +21,12 @@
 //! drawn by `lobeflow_blocks::pictures`;
 //! `commands` holds the entry points of the `lobeflow` command.
 
-pub mod batch;
+pub(crate) mod batch;
 pub mod calibrate;
 pub mod commands;
 pub mod config;
 pub mod error;
-pub mod external;
+pub(crate) mod external;
 #[doc(hidden)]
 pub mod fuzzing;
 pub mod graph;

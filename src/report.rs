@@ -13,7 +13,7 @@ use crate::regress::report::overall;
 use crate::regress::{Row, Verdict, sample_dir};
 use crate::runtime::Ending;
 use lobeflow_blocks::summary::{AxisSummary, EstimateSummary};
-use lobeflow_blocks::{Block, BlockError, Item, ItemKind, Notice, Outputs};
+use lobeflow_blocks::{BlockError, BuildContext, BuildError, Item, ItemKind, NoPorts, Notice, Outputs, TypedBlock};
 use std::fmt::Write;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
@@ -64,8 +64,22 @@ pub struct SummaryTap {
     pub summary: Arc<Mutex<EstimateSummary>>,
 }
 
-impl Block for SummaryTap {
-    fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+lobeflow_blocks::block_ports! {
+    /// The tap's one input, wired by the run to each final estimate output.
+    inputs pub enum SummaryTapIn { Estimates = required("estimates", ItemKind::Estimate, "final angle estimates") }
+}
+
+impl TypedBlock for SummaryTap {
+    type Settings = ();
+    type In = SummaryTapIn;
+    type Out = NoPorts;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        crate::runtime::attached_by_run()
+    }
+
+    fn process(&mut self, port: SummaryTapIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        let SummaryTapIn::Estimates = port;
         if let Item::Estimate(e) = item {
             self.summary.lock().unwrap_or_else(|e| e.into_inner()).add(&e);
         }

@@ -4,13 +4,19 @@
 
 use lobeflow::graph::{Overrides, resolve};
 use lobeflow::runtime::{RunOptions, run};
-use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, Item, ItemKind, Outputs, ParamSpec, ParamType, PortSpec, Registry, SampleChunk, Stamp,
-};
+use lobeflow_blocks::prelude::*;
 use num_complex::Complex32;
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicI64, Ordering};
 use std::time::Duration;
+
+block_settings! {
+    struct BigSourceSettings {
+        chunks: u64 { ty: ParamType::Integer { min: 1, max: 1 << 30 }, default: Some("200"), doc: "chunks to emit" },
+    }
+}
+
+block_ports! { outputs enum BigSourceOut { Samples = optional("samples", ItemKind::Samples, "big chunks") } }
 
 /// Emits `chunks` chunks of 512 KiB as fast as it can.
 struct BigSource {
@@ -18,46 +24,45 @@ struct BigSource {
     next: u64,
 }
 
-const SOURCE: BlockSpec = BlockSpec {
-    kind: "big_source",
-    doc: "test: big chunks, fast",
-    inputs: &[],
-    outputs: &[PortSpec::optional("samples", ItemKind::Samples, "")],
-    params: &[ParamSpec {
-        name: "chunks",
-        ty: ParamType::Integer { min: 1, max: 1 << 30 },
-        default: Some("200"),
-        doc: "",
-    }],
-    build: |p, _| Ok(Box::new(BigSource { left: p.int("chunks")? as u64, next: 0 })),
-};
+const SOURCE: BlockSpec = BlockSpec::typed::<BigSource>("big_source", "test: big chunks, fast");
 
 const CHUNK: usize = 1 << 16;
 
-impl Block for BigSource {
+impl TypedBlock for BigSource {
+    type Settings = BigSourceSettings;
+    type In = NoPorts;
+    type Out = BigSourceOut;
+
+    fn build(s: BigSourceSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(BigSource { left: s.chunks, next: 0 })
+    }
+
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
         // Touch every byte so the pages are really resident.
         let data: Vec<Complex32> = (0..CHUNK).map(|k| Complex32::new((self.next as usize + k) as f32, 1.0)).collect();
         let chunk = SampleChunk { stamp: Stamp::new(self.next, 1e6), iq: data.into(), sync: None, trigger: None };
-        out.push(0, Item::Samples(chunk));
+        out.push(BigSourceOut::Samples, Item::Samples(chunk));
         self.next += CHUNK as u64;
         self.left -= 1;
         Ok(self.left > 0)
     }
 }
 
+block_ports! { inputs enum SlowSinkIn { Samples = required("samples", ItemKind::Samples, "anything") } }
+
 /// Sleeps per item: a deliberately slow consumer.
 struct SlowSink;
-const SLOW: BlockSpec = BlockSpec {
-    kind: "slow_sink",
-    doc: "test: slow consumer",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "")],
-    outputs: &[],
-    params: &[],
-    build: |_, _| Ok(Box::new(SlowSink)),
-};
-impl Block for SlowSink {
-    fn process(&mut self, _: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+const SLOW: BlockSpec = BlockSpec::typed::<SlowSink>("slow_sink", "test: slow consumer");
+impl TypedBlock for SlowSink {
+    type Settings = ();
+    type In = SlowSinkIn;
+    type Out = NoPorts;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(SlowSink)
+    }
+
+    fn process(&mut self, _: SlowSinkIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
         std::thread::sleep(Duration::from_millis(2));
         drop(item);
         Ok(())

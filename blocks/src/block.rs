@@ -1,32 +1,44 @@
-//! The block model: one small trait, and one declaration per block kind.
+//! The block model: the engine's block trait, and one declaration per
+//! block kind.
 //!
-//! A block receives items one at a time on numbered input ports and pushes
-//! items to numbered output ports. The scheduler calls [`Block::process`] for
-//! every input item (merging several inputs in time order), then
+//! Blocks are written against [`TypedBlock`](crate::TypedBlock) (settings
+//! struct, named ports; see DEVELOPERS.md, "Writing a block"). The scheduler
+//! drives them as [`Block`]s, ports by number: it calls [`Block::process`]
+//! for every input item (merging several inputs in time order), then
 //! [`Block::finish`] once every input has ended. A block never runs twice at
 //! once, so it keeps its state in plain fields.
 //!
 //! ```
-//! use lobeflow_blocks::{Block, BlockError, Item, Outputs};
+//! use lobeflow_blocks::prelude::*;
+//! use lobeflow_blocks::typed::boxed;
+//!
+//! block_ports! { inputs enum ScaleIn { Samples = required("samples", ItemKind::Samples, "in") } }
+//! block_ports! { outputs enum ScaleOut { Samples = optional("samples", ItemKind::Samples, "scaled") } }
 //!
 //! /// Multiplies every complex sample by a constant.
 //! struct Scale(f32);
 //!
-//! impl Block for Scale {
-//!     fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+//! impl TypedBlock for Scale {
+//!     type Settings = ();
+//!     type In = ScaleIn;
+//!     type Out = ScaleOut;
+//!     fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+//!         Ok(Scale(2.0))
+//!     }
+//!     fn process(&mut self, _: ScaleIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
 //!         if let Item::Samples(mut chunk) = item {
-//!             let scaled: Vec<_> = chunk.iq.iter().map(|x| x * self.0).collect();
-//!             chunk.iq = scaled.into();
-//!             out.push(0, Item::Samples(chunk));
+//!             chunk.iq = chunk.iq.iter().map(|x| x * self.0).collect::<Vec<_>>().into();
+//!             out.push(ScaleOut::Samples, Item::Samples(chunk));
 //!         }
 //!         Ok(())
 //!     }
 //! }
 //!
-//! let mut block = Scale(2.0);
+//! // The engine's view: input and output ports by number.
+//! let mut block = boxed(Scale(2.0));
 //! let mut out = Outputs::new(1);
-//! let chunk = lobeflow_blocks::SampleChunk {
-//!     stamp: lobeflow_blocks::Stamp::new(0, 1000.0),
+//! let chunk = SampleChunk {
+//!     stamp: Stamp::new(0, 1000.0),
 //!     iq: vec![num_complex::Complex32::new(1.0, -1.0)].into(),
 //!     sync: None,
 //!     trigger: None,
@@ -144,51 +156,20 @@ impl Outputs {
     }
 }
 
-/// The engine's block trait, with ports by number. Write new blocks against
-/// [`crate::TypedBlock`] (named ports, typed settings); this trait is what
-/// the scheduler drives, and blocks written before the typed API still
-/// implement it directly.
+/// The engine's view of a block, ports by number: what the scheduler
+/// drives behind `Box<dyn Block>`. Blocks implement
+/// [`TypedBlock`](crate::TypedBlock), whose methods of the same names say
+/// what each does and hold the defaults; its adapter
+/// ([`typed::boxed`](crate::typed::boxed)) implements this trait. Only
+/// engine-side blocks that number their ports themselves implement it
+/// directly.
 pub trait Block: Send {
-    /// Before any sample flows: the facts of each input, in; the facts of
-    /// the outputs, out (see [`crate::facts`]). The default hands the
-    /// inputs' facts on.
-    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
-        Ok(facts.merged())
-    }
-
-    /// Handle one input item that arrived on input port `port`.
-    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let _ = (port, item, out);
-        Ok(())
-    }
-
-    /// All inputs have ended: flush whatever is held back.
-    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
-        let _ = out;
-        Ok(())
-    }
-
-    /// Sources only (blocks without inputs): produce the next items and
-    /// return `Ok(true)` while more will follow. Keep each call small (one
-    /// chunk) so memory stays bounded.
-    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
-        let _ = out;
-        Ok(false)
-    }
-
-    /// False once the block has all the input it will use (a picture of the
-    /// first seconds, say): the scheduler then stops delivering items to it,
-    /// and calls `finish` when its inputs end. A block must ignore any item
-    /// still handed to it after it said so, so its output does not depend on
-    /// how items were batched.
-    fn wants_input(&self) -> bool {
-        true
-    }
-
-    /// Sources reading a file: (bytes done, bytes total), for progress bars.
-    fn progress(&self) -> Option<(u64, u64)> {
-        None
-    }
+    fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError>;
+    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError>;
+    fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError>;
+    fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError>;
+    fn wants_input(&self) -> bool;
+    fn progress(&self) -> Option<(u64, u64)>;
 }
 
 /// One port's declaration.

@@ -4,7 +4,7 @@
 //! it is built; a pulse framer knows the pulse interval from its `prf`; a
 //! gate knows its lobes. Before a run, the engine hands each block the facts
 //! of its inputs (in the graph's order, sources first) through
-//! [`crate::Block::start`], and the block answers with the facts of its
+//! [`crate::TypedBlock::start`], and the block answers with the facts of its
 //! outputs, so time and range parameters are turned into samples and bins
 //! once, and a bad one is refused by `check` as well as by `run`.
 

@@ -3,7 +3,8 @@
 //! The block trait, the stream items, the standard signal-processing
 //! blocks and the capture readers and writers ([`capture`]) of lobeflow, a toolkit for lobe-switching angle trackers. This
 //! crate is all a researcher needs to write a new block: implement
-//! [`Block`], declare a [`BlockSpec`], and register it in a [`Registry`].
+//! [`TypedBlock`], declare it with [`BlockSpec::typed`], and register it in
+//! a [`Registry`].
 //!
 //! The default feature `pictures` adds the picture kinds (PNG and SVG drawn
 //! in pure Rust with a bundled font, see [`pictures`]); without it the crate
@@ -15,17 +16,18 @@
 //! assert_eq!(pass.inputs[0].kind, lobeflow_blocks::ItemKind::Samples);
 //! ```
 
-pub mod block;
+// Everything a block author uses of these is re-exported below.
+mod block;
 pub mod capture;
 pub mod csv_table;
-pub mod decimal;
+mod decimal;
 pub mod dsp;
-pub mod error;
-pub mod facts;
-pub mod item;
+mod error;
+mod facts;
+mod item;
 pub mod kinds;
-pub mod limits;
-pub mod output_file;
+mod limits;
+mod output_file;
 pub mod param;
 #[cfg(feature = "pictures")]
 pub mod pictures;
@@ -38,11 +40,12 @@ pub use block::{
 pub use error::{BuildError, ParamError};
 pub use facts::{Channels, Facts, StreamFacts};
 pub use item::*;
-pub use limits::{MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
+pub use limits::{BLOCK_MEMORY, MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
 pub use param::{ParamSpec, ParamType, Params, RawValue, SPEED_OF_LIGHT, Unit, Value, closest, range_bin_m};
 pub use typed::{
-    Choice, DistanceSetting, FromParam, NoPorts, OutputPort, PortIndex, PortSet, Settings, TimeSetting, TypedBlock,
+    Choice, DistanceSetting, FromParam, InstancePort, NoPorts, OutputPort, PortIndex, PortSet, Settings, TimeSetting,
+    TypedBlock,
 };
 
 /// What a block writer needs, in one import: `use lobeflow_blocks::prelude::*;`.

@@ -13,10 +13,11 @@
 //!   outputs as an enum whose variants are the port handles.
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::discriminator::LobePair;
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
 use crate::item::Item;
-use crate::param::{ParamSpec, ParamType, Params, Value, distance_in_bins, time_in_samples};
+use crate::param::{ParamSpec, ParamType, Params, Value, distance_in_bins, range_bin_m, time_in_samples};
 use std::path::PathBuf;
 
 /// A block written against the typed API.
@@ -53,24 +54,31 @@ pub trait TypedBlock: Send + Sized + 'static {
         Ok(())
     }
 
-    /// Sources only: see [`Block::generate`].
+    /// Sources only (blocks without inputs): produce the next items and
+    /// return `Ok(true)` while more will follow. Keep each call small (one
+    /// chunk) so memory stays bounded.
     fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
         let _ = out;
         Ok(false)
     }
 
-    /// See [`Block::wants_input`].
+    /// False once the block has all the input it will use (a picture of the
+    /// first seconds, say): the scheduler then stops delivering items to it,
+    /// and calls `finish` when its inputs end. A block must ignore any item
+    /// still handed to it after it said so, so its output does not depend on
+    /// how items were batched.
     fn wants_input(&self) -> bool {
         true
     }
 
-    /// See [`Block::progress`].
+    /// Sources reading a file: (bytes done, bytes total), for progress bars.
     fn progress(&self) -> Option<(u64, u64)> {
         None
     }
 }
 
 /// The engine's view of a [`TypedBlock`]: port numbers become handles.
+/// The one implementation of [`Block`] for blocks.
 struct Typed<B>(B);
 
 impl<B: TypedBlock> Block for Typed<B> {
@@ -136,6 +144,21 @@ impl Settings for () {
     }
 }
 
+/// The declarations of two groups of settings, `first` then `second`, as
+/// one array (a kind whose settings join a shared group and its own); `N`
+/// is their total, checked when the constant is evaluated.
+pub const fn joined_params<const N: usize>(first: &[ParamSpec], second: &[ParamSpec]) -> [ParamSpec; N] {
+    assert!(first.len() + second.len() == N, "N must be the number of declarations in both groups");
+    let filler = ParamSpec { name: "", ty: ParamType::Text, default: None, doc: "" };
+    let mut out = [filler; N];
+    let mut i = 0;
+    while i < N {
+        out[i] = if i < first.len() { first[i] } else { second[i - first.len()] };
+        i += 1;
+    }
+    out
+}
+
 /// A settings field type: read from the checked parameters by its declaration.
 pub trait FromParam: Sized {
     fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError>;
@@ -192,6 +215,13 @@ impl FromParam for Vec<String> {
     }
 }
 
+/// Lobe pairs, read when the graph was.
+impl FromParam for Vec<LobePair> {
+    fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError> {
+        p.lobe_pairs(spec.name).map(<[LobePair]>::to_vec)
+    }
+}
+
 /// The checked value as it is, for parameter languages parsed at resolve time.
 impl FromParam for Value {
     fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError> {
@@ -222,6 +252,10 @@ impl TimeSetting {
     pub fn is_zero(&self) -> bool {
         matches!(self.value, Value::Seconds(x) | Value::Samples(x) | Value::Pulses(x) | Value::Number(x) if x == 0.0)
     }
+    /// True when given in pulses: it needs the pulse interval.
+    pub fn in_pulses(&self) -> bool {
+        matches!(self.value, Value::Pulses(_))
+    }
 }
 
 impl FromParam for TimeSetting {
@@ -244,9 +278,20 @@ impl DistanceSetting {
     pub fn value(&self) -> &Value {
         &self.value
     }
+    /// The parameter's name, for messages.
+    pub fn name(&self) -> &'static str {
+        self.name
+    }
     /// The distance as a fractional count of range bins at `rate`.
     pub fn bins(&self, rate: f64) -> Result<f64, ParamError> {
         distance_in_bins(self.name, &self.value, Some(&self.ty), rate)
+    }
+    /// The distance in metres; a count of bins is converted at `rate`.
+    pub fn metres(&self, rate: f64) -> Result<f64, ParamError> {
+        match self.value {
+            Value::Metres(m) | Value::Number(m) => Ok(m),
+            _ => Ok(self.bins(rate)? * range_bin_m(rate)),
+        }
     }
     /// True for a zero distance in any unit.
     pub fn is_zero(&self) -> bool {
@@ -281,10 +326,31 @@ pub fn choice_from_param<C: Choice>(p: &Params, spec: &ParamSpec) -> Result<C, P
 }
 
 /// A block's input or output ports (see [`block_ports!`](crate::block_ports)).
-pub trait PortSet: Copy + 'static {
+pub trait PortSet: Copy + Send + Sync + 'static {
     const SPECS: &'static [PortSpec];
     fn from_index(index: usize) -> Option<Self>;
 }
+
+/// The ports of a block whose instances declare their own (a program that
+/// describes itself): a handle is the port's position in the instance's
+/// declaration, and the kind declares none.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct InstancePort(pub usize);
+
+impl PortSet for InstancePort {
+    const SPECS: &'static [PortSpec] = &[];
+    fn from_index(index: usize) -> Option<Self> {
+        Some(InstancePort(index))
+    }
+}
+
+impl PortIndex for InstancePort {
+    fn port_index(self) -> usize {
+        self.0
+    }
+}
+
+impl OutputPort for InstancePort {}
 
 /// Something naming a port by its position: a port handle, or a bare
 /// number in blocks still written against [`Block`] directly.
@@ -301,7 +367,7 @@ impl PortIndex for usize {
 /// A handle of an output port, accepted by [`Outputs::push`].
 pub trait OutputPort: PortIndex {}
 
-/// Bare output numbers, for blocks not yet written against the typed API.
+/// Output numbers, for engine-side blocks that implement [`Block`] directly.
 impl OutputPort for usize {}
 
 /// The ports of a block that has none on that side (a source's inputs, a
@@ -343,6 +409,8 @@ macro_rules! block_settings {
     ) => {
         $(#[$meta])*
         #[derive(Clone, Debug)]
+        // The docs are the catalog's plain text (`<path>.png`), not markup.
+        #[allow(rustdoc::invalid_html_tags)]
         $vis struct $name {
             $( #[doc = $doc] pub $field: $fty, )*
         }

@@ -335,7 +335,7 @@ fn schedule_guard_reaching_past_the_capture_start() {
 /// refuses sync timing on a capture known to have no sync channel.
 #[test]
 fn start_reports_the_lobes_and_refuses_sync_timing_without_a_sync_channel() {
-    use lobeflow_blocks::facts::{Channels, Facts, StreamFacts};
+    use lobeflow_blocks::{Channels, Facts, StreamFacts};
     let spec = &lobe_gate::SPEC;
     let mut gate = (spec.build)(&params(spec, &[("lobes", "east,west")]), &BuildContext::default()).expect("builds");
     let with_sync =

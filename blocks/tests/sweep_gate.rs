@@ -265,3 +265,36 @@ fn a_switch_inside_the_range_window_drops_the_sweep_and_says_why() {
         note.what
     );
 }
+
+/// Settings the stream makes impossible are refused before the run once
+/// its rate (and, for times in pulses, its pulse interval) is known.
+#[test]
+fn start_refuses_times_the_stream_makes_impossible() {
+    use lobeflow_blocks::{Facts, StreamFacts};
+    let spec = &sweep_gate::SPEC;
+    let build = |set: &[(&str, &str)]| {
+        let mut all = vec![("timing", "schedule"), ("dwell", "2 ms")];
+        all.extend_from_slice(set);
+        (spec.build)(&params(spec, &all), &BuildContext::default()).expect("builds")
+    };
+    let rate_only = [StreamFacts::at_rate(RATE)];
+    let with_pri = [StreamFacts { pri_samples: Some(PRI as f64), ..StreamFacts::at_rate(RATE) }];
+
+    let mut fine = build(&[("window_start", "100 bins"), ("window_end", "300 bins")]);
+    assert!(fine.start(&Facts::new(&rate_only)).is_ok());
+
+    let mut backwards = build(&[("window_start", "300 bins"), ("window_end", "100 bins")]);
+    let err = backwards.start(&Facts::new(&rate_only)).expect_err("window ends before it starts").to_string();
+    assert!(err.contains("window_end (100 bins) must lie after window_start (300 bins)"), "{err}");
+
+    // 2 ms is 2000 samples at 1 MS/s: a guard that long leaves nothing of the dwell.
+    let mut swallowed = build(&[("guard", "2 ms")]);
+    let err = swallowed.start(&Facts::new(&rate_only)).expect_err("guard as long as the dwell").to_string();
+    assert!(err.contains("not shorter than the dwell"), "{err}");
+
+    // Times in pulses are judged only once the pulse interval is known.
+    let mut in_pulses = build(&[("dwell", "4 pulses"), ("guard", "4 pulses")]);
+    assert!(in_pulses.start(&Facts::new(&rate_only)).is_ok());
+    let err = in_pulses.start(&Facts::new(&with_pri)).expect_err("guard of a whole dwell").to_string();
+    assert!(err.contains("not shorter than the dwell"), "{err}");
+}

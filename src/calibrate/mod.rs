@@ -8,12 +8,12 @@
 //! with a measured table, and the ratio near boresight gives the ratio at
 //! boresight (the lobes' gain imbalance), the slope and the crossover.
 
-pub mod fit;
-pub mod output;
-pub mod pattern;
-pub mod ratio;
-pub mod scan;
-pub mod telemetry;
+pub(crate) mod fit;
+pub(crate) mod output;
+pub(crate) mod pattern;
+pub(crate) mod ratio;
+pub(crate) mod scan;
+pub(crate) mod telemetry;
 
 use crate::error::Error;
 use crate::graph::{Overrides, resolve};

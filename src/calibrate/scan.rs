@@ -94,9 +94,9 @@ pub struct LocatedDwell {
     pub time_s: f64,
     pub pair: usize,
     pub plus: bool,
-    /// Off-axis angle along the pair's axis and across it, degrees.
+    /// Off-axis angle along the pair's axis, degrees (dwells too far
+    /// across it are left out before this).
     pub theta: f64,
-    pub cross: f64,
     pub y: f64,
     pub var: f64,
 }
@@ -203,7 +203,6 @@ pub fn locate(
             pair,
             plus,
             theta,
-            cross,
             y: d.amplitude.ln() + unbias,
             var: d.var_ln_amp,
         });

@@ -2,7 +2,7 @@
 //! scenarios and params files.
 //!
 //! YAML text becomes a tree of nodes that keep their line and column
-//! ([`tree`]); a serde deserializer over that tree ([`de`]) fills the typed
+//! (`tree`); a serde deserializer over that tree (`de`) fills the typed
 //! structs each file type declares. Every error therefore carries a place,
 //! and [`Error::in_file`] turns it into `FILE:LINE:COL: what (hint)`.
 //! Values that later checks must point at are read as [`Located`].

@@ -13,7 +13,9 @@
 use super::Launch;
 use super::framing::{MAX_FRAME_SAMPLES, build_item, encode, kind_name, parse_header, read_channel, read_samples};
 use crossbeam_channel::{Receiver, RecvTimeoutError, Select, Sender, bounded};
-use lobeflow_blocks::{Block, BlockError, BlockSpec, Item, ItemKind, Outputs, Stamp, Value};
+use lobeflow_blocks::{
+    BlockError, BlockSpec, BuildContext, BuildError, InstancePort, Item, ItemKind, Outputs, Stamp, TypedBlock, Value,
+};
 use serde_json::{Map, json};
 use std::collections::VecDeque;
 use std::io::{BufRead, BufReader, BufWriter, Read, Write};
@@ -166,7 +168,7 @@ impl ExternalBlock {
     /// Handle one message of the reader thread.
     fn take(&mut self, msg: FromChild, out: &mut Outputs) -> Result<(), BlockError> {
         match msg {
-            FromChild::Item(port, item) => out.push(port, item),
+            FromChild::Item(port, item) => out.push(InstancePort(port), item),
             FromChild::Malformed(what) => return Err(self.failure(&format!("wrote malformed output: {what}"))),
             FromChild::End if self.finishing => self.ended = true,
             FromChild::End => return Err(self.failure("closed its output before its input ended")),
@@ -251,11 +253,27 @@ impl ExternalBlock {
     }
 }
 
-impl Block for ExternalBlock {
-    fn process(&mut self, port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+/// Ports and parameters beyond the launch ones are the instance's, from its
+/// program's description.
+impl TypedBlock for ExternalBlock {
+    type Settings = super::ExternalSettings;
+    type In = InstancePort;
+    type Out = InstancePort;
+
+    fn build(settings: super::ExternalSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        super::start_program(settings, ctx)
+    }
+
+    fn process(&mut self, port: InstancePort, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = item.stamp();
+        let Some(input) = self.inputs.get(port.0) else {
+            return Err(BlockError::new(format!(
+                "an item arrived on input {}, which the program does not declare",
+                port.0
+            )));
+        };
         let mut frame = Vec::new();
-        encode(&self.inputs[port], &item, &mut frame);
+        encode(input, &item, &mut frame);
         drop(item);
         self.send(frame, out)?;
         self.take_ready(out)?;

@@ -12,7 +12,7 @@
 //! kinds.
 
 use super::framing::kind_from_name;
-use super::{LAUNCH_PARAMS, Launch, build};
+use super::{LAUNCH_PARAMS, Launch, SPEC};
 use lobeflow_blocks::{BlockSpec, ParamSpec, ParamType, PortSpec, RawValue, Unit};
 use serde::Deserialize;
 use std::collections::HashMap;
@@ -196,7 +196,7 @@ fn spec_from(d: &Description, launch: &Launch) -> Result<BlockSpec, String> {
         inputs: ports(&d.inputs, "input")?,
         outputs: ports(&d.outputs, "output")?,
         params: leak_slice(params),
-        build,
+        build: SPEC.build,
     })
 }
 

@@ -318,23 +318,7 @@ pub fn build_item(
         |stamp| SampleChunk { stamp, iq: Span::new(iq), sync: sync.map(Span::new), trigger: trigger.map(Span::new) };
     Ok(match header.kind {
         ItemKind::Samples => Item::Samples(chunk(stamp)),
-        ItemKind::Sweep => {
-            let c = chunk(stamp);
-            let tag = match h.0.get("tag") {
-                None | Some(Value::Null) => None,
-                Some(_) => Some(h.tag("tag")?),
-            };
-            let blanked = h.0.get("blanked").map_or(Ok(0), |_| h.u64("blanked"))?;
-            Item::Sweep(Sweep {
-                stamp,
-                pulse: h.u64("pulse")?,
-                iq: c.iq,
-                sync: c.sync,
-                blanked: u32::try_from(blanked).map_err(|_| "field 'blanked' is too large".to_string())?,
-                predicted: h.flag("predicted")?,
-                lobe: tag,
-            })
-        }
+        ItemKind::Sweep => Item::Sweep(sweep_from(&h, chunk(stamp))?),
         ItemKind::Segment => Item::Segment(Box::new(LobeSegment {
             tag: h.tag("tag")?,
             chunk: chunk(stamp),
@@ -350,52 +334,77 @@ pub fn build_item(
             range_m: h.opt_f64("range_m")?,
             used: h.u64("used")?,
         }),
-        ItemKind::Estimate => {
-            let flag = match h.text("flag")? {
-                "ok" => Flag::Ok,
-                "out_of_range" => Flag::OutOfRange,
-                "no_signal" => Flag::NoSignal,
-                "outlier" => Flag::Outlier,
-                other => return Err(format!("flag '{other}' is not ok, out_of_range, no_signal or outlier")),
-            };
-            Item::Estimate(Box::new(AngleEstimate {
-                stamp,
-                axis: Arc::from(h.text("axis")?),
-                error_deg: h.opt_f64("error_deg")?,
-                sigma_deg: h.opt_f64("sigma_deg")?.unwrap_or(f64::NAN),
-                snr_db: h.f64("snr_db")?,
-                ratio_db: h.opt_f64("ratio_db")?.unwrap_or(f64::NAN),
-                range_m: h.opt_f64("range_m")?,
-                flag,
-                tracked_deg: h.opt_f64("tracked_deg")?,
-                tracked_sigma_deg: h.opt_f64("tracked_sigma_deg")?,
-                absolute_deg: h.opt_f64("absolute_deg")?,
-            }))
-        }
-        ItemKind::Row => {
-            let fields = h.value("fields")?.as_array().ok_or("field 'fields' is not a list")?;
-            let mut out = Vec::with_capacity(fields.len());
-            for (i, f) in fields.iter().enumerate() {
-                let pair = f.as_array().filter(|p| p.len() == 2);
-                let (Some(name), Some(cell)) = (pair.and_then(|p| p[0].as_str()), pair.map(|p| &p[1])) else {
-                    return Err(format!("fields[{i}] is not a [name, value] pair"));
-                };
-                out.push((Arc::from(name), cell_from(cell).map_err(|e| format!("fields[{i}]: {e}"))?));
-            }
-            Item::Row(TableRow { stamp, fields: out })
-        }
-        ItemKind::Notice => {
-            let block = Arc::from(h.0.get("block").and_then(Value::as_str).unwrap_or(""));
-            let mut notice = Notice::new(stamp, block, h.text("what")?);
-            // Optional: without it the severity is told from the text.
-            if let Some(name) = h.0.get("severity").and_then(Value::as_str) {
-                notice.severity = Severity::from_name(name)
-                    .ok_or_else(|| format!("severity '{name}' is neither 'information' nor 'warning'"))?;
-            }
-            Item::Notice(notice)
-        }
+        ItemKind::Estimate => Item::Estimate(Box::new(estimate_from(&h, stamp)?)),
+        ItemKind::Row => Item::Row(TableRow { stamp, fields: fields_from(&h)? }),
+        ItemKind::Notice => Item::Notice(notice_from(&h, stamp)?),
         ItemKind::Extension(t) => return Err(format!("a program cannot send '{}' items", t.name)),
     })
+}
+
+/// A sweep: its samples, pulse number, blanking and lobe tag (if any).
+fn sweep_from(h: &Head, c: SampleChunk) -> Result<Sweep, String> {
+    let tag = match h.0.get("tag") {
+        None | Some(Value::Null) => None,
+        Some(_) => Some(h.tag("tag")?),
+    };
+    let blanked = h.0.get("blanked").map_or(Ok(0), |_| h.u64("blanked"))?;
+    Ok(Sweep {
+        stamp: c.stamp,
+        pulse: h.u64("pulse")?,
+        iq: c.iq,
+        sync: c.sync,
+        blanked: u32::try_from(blanked).map_err(|_| "field 'blanked' is too large".to_string())?,
+        predicted: h.flag("predicted")?,
+        lobe: tag,
+    })
+}
+
+fn estimate_from(h: &Head, stamp: Stamp) -> Result<AngleEstimate, String> {
+    let flag = match h.text("flag")? {
+        "ok" => Flag::Ok,
+        "out_of_range" => Flag::OutOfRange,
+        "no_signal" => Flag::NoSignal,
+        "outlier" => Flag::Outlier,
+        other => return Err(format!("flag '{other}' is not ok, out_of_range, no_signal or outlier")),
+    };
+    Ok(AngleEstimate {
+        stamp,
+        axis: Arc::from(h.text("axis")?),
+        error_deg: h.opt_f64("error_deg")?,
+        sigma_deg: h.opt_f64("sigma_deg")?.unwrap_or(f64::NAN),
+        snr_db: h.f64("snr_db")?,
+        ratio_db: h.opt_f64("ratio_db")?.unwrap_or(f64::NAN),
+        range_m: h.opt_f64("range_m")?,
+        flag,
+        tracked_deg: h.opt_f64("tracked_deg")?,
+        tracked_sigma_deg: h.opt_f64("tracked_sigma_deg")?,
+        absolute_deg: h.opt_f64("absolute_deg")?,
+    })
+}
+
+/// A table row's `fields`: a list of [name, value] pairs.
+fn fields_from(h: &Head) -> Result<Vec<(Arc<str>, Cell)>, String> {
+    let fields = h.value("fields")?.as_array().ok_or("field 'fields' is not a list")?;
+    let mut out = Vec::with_capacity(fields.len());
+    for (i, f) in fields.iter().enumerate() {
+        let pair = f.as_array().filter(|p| p.len() == 2);
+        let (Some(name), Some(cell)) = (pair.and_then(|p| p[0].as_str()), pair.map(|p| &p[1])) else {
+            return Err(format!("fields[{i}] is not a [name, value] pair"));
+        };
+        out.push((Arc::from(name), cell_from(cell).map_err(|e| format!("fields[{i}]: {e}"))?));
+    }
+    Ok(out)
+}
+
+fn notice_from(h: &Head, stamp: Stamp) -> Result<Notice, String> {
+    let block = Arc::from(h.0.get("block").and_then(Value::as_str).unwrap_or(""));
+    let mut notice = Notice::new(stamp, block, h.text("what")?);
+    // Optional: without it the severity is told from the text.
+    if let Some(name) = h.0.get("severity").and_then(Value::as_str) {
+        notice.severity = Severity::from_name(name)
+            .ok_or_else(|| format!("severity '{name}' is neither 'information' nor 'warning'"))?;
+    }
+    Ok(notice)
 }
 
 #[cfg(test)]

@@ -9,7 +9,9 @@ pub mod child;
 pub mod describe;
 pub mod framing;
 
-use lobeflow_blocks::{Block, BlockSpec, BuildContext, ParamSpec, ParamType, Params, Unit, Value};
+use lobeflow_blocks::{
+    BlockSpec, BuildContext, BuildError, ParamError, ParamSpec, ParamType, Params, Settings, Unit, Value,
+};
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
@@ -39,18 +41,32 @@ pub const LAUNCH_PARAMS: &[ParamSpec] = &[
 ];
 
 /// The kind as the catalog lists it; each instance is declared by its program.
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: KIND,
-    doc: "Runs another program (a Python script, say) as a block: the items of its inputs go to the program's \
-          standard input and what it writes on standard output becomes the items of its outputs (framing in \
-          docs/external-blocks.md). Its ports and further parameters come from the program's own description \
-          (`PROGRAM --describe`, or PROGRAM.block.yaml beside it); `lobeflow blocks GRAPH` or \
-          `lobeflow blocks PROGRAM` lists them.",
-    inputs: &[],
-    outputs: &[],
-    params: LAUNCH_PARAMS,
-    build,
-};
+pub const SPEC: BlockSpec = BlockSpec::typed::<child::ExternalBlock>(
+    KIND,
+    "Runs another program (a Python script, say) as a block: the items of its inputs go to the program's \
+     standard input and what it writes on standard output becomes the items of its outputs (framing in \
+     docs/external-blocks.md). Its ports and further parameters come from the program's own description \
+     (`PROGRAM --describe`, or PROGRAM.block.yaml beside it); `lobeflow blocks GRAPH` or \
+     `lobeflow blocks PROGRAM` lists them.",
+);
+
+/// Settings of an external block: how to start its program, and every
+/// parameter the graph set (the program's own, declared by its description,
+/// among them).
+#[derive(Clone, Debug)]
+pub struct ExternalSettings {
+    pub launch: Launch,
+    pub given: Params,
+}
+
+impl Settings for ExternalSettings {
+    const PARAMS: &'static [ParamSpec] = LAUNCH_PARAMS;
+    fn from_params(p: &Params) -> Result<Self, ParamError> {
+        // The described spec made the folder's default the graph's folder,
+        // so the launch is complete here.
+        Ok(ExternalSettings { launch: Launch::from_params(p, Path::new("."))?, given: p.clone() })
+    }
+}
 
 /// How to start one external block's program.
 #[derive(Clone, Debug)]
@@ -63,13 +79,13 @@ pub struct Launch {
 
 impl Launch {
     /// From the launch parameters; an unset or empty folder is `graph_dir`.
-    pub fn from_params(p: &Params, graph_dir: &Path) -> Result<Launch, String> {
+    pub fn from_params(p: &Params, graph_dir: &Path) -> Result<Launch, ParamError> {
         let mut words = match p.get("command") {
             Some(Value::Names(n)) => n.clone(),
-            _ => return Err("parameter 'command' (the program and its arguments) is not set".into()),
+            _ => return Err(ParamError::invalid("command", "the program and its arguments are not set")),
         };
         if words.is_empty() {
-            return Err("parameter 'command' names no program".into());
+            return Err(ParamError::invalid("command", "names no program"));
         }
         let command = words.remove(0);
         let folder = match p.get("folder") {
@@ -109,20 +125,17 @@ impl Launch {
 
 /// The registry hook: an instance's spec from its program's description.
 pub fn describe_instance(launch: &Params, graph_dir: &Path) -> Result<BlockSpec, String> {
-    describe::described_spec(&Launch::from_params(launch, graph_dir)?)
+    describe::described_spec(&Launch::from_params(launch, graph_dir).map_err(|e| e.to_string())?)
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
-    // The described spec made the folder's default the graph's folder, so
-    // the launch is complete here; the description is remembered.
-    let launch = Launch::from_params(p, Path::new("."))?;
-    let spec = describe::described_spec(&launch)?;
+/// Start the program of an instance whose settings the graph gave.
+fn start_program(s: ExternalSettings, ctx: &BuildContext) -> Result<child::ExternalBlock, BuildError> {
+    let spec = describe::described_spec(&s.launch)?;
     let own: Vec<(String, Value)> = spec
         .params
         .iter()
         .filter(|ps| !LAUNCH_PARAMS.iter().any(|l| l.name == ps.name))
-        .filter_map(|ps| p.get(ps.name).map(|v| (ps.name.to_string(), v.clone())))
+        .filter_map(|ps| s.given.get(ps.name).map(|v| (ps.name.to_string(), v.clone())))
         .collect();
-    let block = child::ExternalBlock::start(&ctx.name, launch, &spec, &own)?;
-    Ok(Box::new(block))
+    Ok(child::ExternalBlock::start(&ctx.name, s.launch, &spec, &own)?)
 }

@@ -2,9 +2,9 @@
 //! checking everything before a sample flows.
 
 mod checks;
-pub mod error;
+pub(crate) mod error;
 pub mod file;
-pub mod resolve;
+pub(crate) mod resolve;
 
 pub use error::GraphError;
 pub use resolve::{KnobValue, Origin, Override, Overrides, ResolvedBlock, ResolvedGraph, Wire, resolve};

@@ -2,10 +2,10 @@
 //! the sample's truth and bounds, and say which checks hold. Every sample
 //! gets its rows: one that cannot run is a row with verdict `error`.
 
-pub mod golden;
-pub mod manifest;
-pub mod notices;
-pub mod report;
+pub(crate) mod golden;
+pub(crate) mod manifest;
+pub(crate) mod notices;
+pub(crate) mod report;
 
 use crate::error::Error;
 use crate::graph::{ResolvedGraph, resolve};

@@ -1,8 +1,8 @@
 //! Running a resolved graph: build the blocks, wire the queues, schedule,
 //! and commit the output files only if everything succeeded.
 
-pub mod outputs;
-pub mod scheduler;
+pub(crate) mod outputs;
+pub(crate) mod scheduler;
 pub mod staging;
 
 use crate::capture;
@@ -134,7 +134,7 @@ impl TypedBlock for TapBlock {
     type Out = NoPorts;
 
     fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
-        Err(BuildError::Refused("a listener is attached by the run, not declared in a graph".into()))
+        attached_by_run()
     }
 
     fn process(&mut self, port: TapIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
@@ -163,6 +163,12 @@ impl Drop for TapBlock {
             w.wake();
         }
     }
+}
+
+/// The constructor of a block the run attaches itself (a listener, the
+/// report's summary, a test's blocks): none is declared in a graph.
+pub(crate) fn attached_by_run<B>() -> Result<B, BuildError> {
+    Err(BuildError::Refused("this block is attached by the run, not declared in a graph".into()))
 }
 
 /// A lag above this many capture seconds is reported as falling behind.
@@ -263,7 +269,7 @@ pub fn prepare(graph: &ResolvedGraph, opts: &RunOptions, taps: Vec<Tap>) -> Resu
             setups.push(NodeSetup {
                 name: format!("report-summary:{}", graph.blocks[bi].name),
                 kind: "report_summary".into(),
-                block: Box::new(report::SummaryTap { summary: Arc::clone(&summary) }),
+                block: typed::boxed(report::SummaryTap { summary: Arc::clone(&summary) }),
                 inputs: vec![Some(edges)],
                 outputs: Vec::new(),
             });

@@ -28,7 +28,7 @@ use lobeflow_blocks::{Block, BlockError, Item, Notice, Outputs};
 use std::collections::VecDeque;
 use std::panic::{AssertUnwindSafe, catch_unwind};
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
-use std::sync::{Arc, Condvar, Mutex};
+use std::sync::{Arc, Condvar, Mutex, MutexGuard};
 use std::time::{Duration, Instant};
 
 /// A block ready to be scheduled, with its wiring.
@@ -356,139 +356,44 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
     if batch.is_empty() { None } else { Some(Step::Process) }
 }
 
+/// A block taken out of the state to run one step.
+struct Claimed {
+    idx: usize,
+    step: Step,
+    block: Box<dyn Block>,
+}
+
+fn lock(sh: &Shared) -> MutexGuard<'_, State> {
+    sh.state.lock().unwrap_or_else(|e| e.into_inner())
+}
+
 fn worker(sh: &Shared) {
     let mut batch: Vec<(usize, Item)> = Vec::with_capacity(MAX_BATCH);
-    let mut spun = false;
-    let mut st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
+    let mut st = lock(sh);
     loop {
-        let (idx, step, mut block) = loop {
-            if st.stop.is_some() || st.done == st.nodes.len() {
-                sh.wake.notify_all();
-                return;
-            }
-            if sh.cancel.load(Ordering::SeqCst) {
-                st.stop.get_or_insert(StopReason::Cancelled);
-                sh.wake.notify_all();
-                return;
-            }
-            let picked = match pick(&mut st, sh.capacity, false, &mut batch) {
-                Some(p) => Some(p),
-                None if st.running == 0 => pick(&mut st, sh.capacity, true, &mut batch),
-                None => None,
-            };
-            if let Some((i, step)) = picked {
-                let nd = &mut st.nodes[i];
-                nd.running = true;
-                let block = nd.block.take().expect("a node not running holds its block");
-                st.running += 1;
-                // More work than this worker takes, enough that sharing it
-                // pays for the wake-up: wake a sleeping one.
-                if st.idle > 0 && helper_gain(&st, i, sh.capacity) >= WAKE_WORTH {
-                    sh.wake.notify_one();
-                }
-                break (i, step, block);
-            }
-            if st.running == 0 {
-                // Nothing can run and nothing is running: a scheduler bug.
-                let name = st.nodes.iter().find(|n| !n.done).map(|n| n.name.to_string()).unwrap_or_default();
-                st.stop = Some(StopReason::Failed {
-                    block: name,
-                    kind: String::new(),
-                    error: BlockError::new("the graph stalled (internal error)"),
-                });
-                sh.wake.notify_all();
-                return;
-            }
-            if sh.threads > 1 && !spun {
-                // Work usually turns up within a step of another worker:
-                // watching for it briefly costs less than sleeping and being
-                // woken (a system call each side, and the wake-up latency).
-                let seen = sh.changes.load(Ordering::Acquire);
-                drop(st);
-                spun = true;
-                let t0 = Instant::now();
-                while sh.changes.load(Ordering::Acquire) == seen && t0.elapsed() < SPIN_FOR {
-                    for _ in 0..64 {
-                        std::hint::spin_loop();
-                    }
-                }
-                st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
-                continue;
-            }
-            spun = false;
-            st.idle += 1;
-            st = sh.wake.wait_timeout(st, Duration::from_millis(100)).unwrap_or_else(|e| e.into_inner()).0;
-            st.idle -= 1;
+        let claimed;
+        (st, claimed) = claim(sh, st, &mut batch);
+        let Some(Claimed { idx, step, mut block }) = claimed else {
+            return;
         };
-        spun = false;
         let n_out = st.nodes[idx].outputs.len();
         drop(st);
 
         let mut out = Outputs::new(n_out);
-        let mut items_in = 0;
-        let mut samples_in = 0;
         let t0 = Instant::now();
-        let result = catch_unwind(AssertUnwindSafe(|| match step {
-            Step::Generate => match block.generate(&mut out) {
-                Ok(true) => Ok(false),
-                Ok(false) => block.finish(&mut out).map(|_| true),
-                Err(e) => Err(e),
-            },
-            Step::Process => {
-                for (port, item) in batch.drain(..) {
-                    items_in += 1;
-                    samples_in += item.sample_count() as u64;
-                    block.process(port, item, &mut out)?;
-                }
-                Ok(false)
-            }
-            Step::Finish => block.finish(&mut out).map(|_| true),
-        }));
+        let (result, items_in, samples_in) = run_step(block.as_mut(), step, &mut batch, &mut out);
         // Items left after a failure are dropped with the run.
         batch.clear();
         let busy = t0.elapsed();
         let progress = block.progress();
         let satisfied = !block.wants_input();
 
-        st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
-        let finished = match result {
-            Ok(Ok(f)) => f,
-            Ok(Err(error)) => {
-                fail(&mut st, idx, error);
-                false
-            }
-            Err(panic) => {
-                let msg = panic
-                    .downcast_ref::<String>()
-                    .cloned()
-                    .or_else(|| panic.downcast_ref::<&str>().map(|s| s.to_string()))
-                    .unwrap_or_else(|| "unknown".into());
-                fail(&mut st, idx, BlockError::new(format!("internal error (panic): {msg}")));
-                false
-            }
-        };
-        let mut items_out = 0;
-        {
-            let State { nodes, edges, notices, .. } = &mut *st;
-            let nd = &nodes[idx];
-            for (port, item) in out.drain() {
-                let targets = &nd.outputs[port];
-                let last = targets.iter().rposition(|&e| !edges[e].unwanted);
-                if let Some(last) = last {
-                    for &e in &targets[..last] {
-                        if !edges[e].unwanted {
-                            edges[e].queue.push_back(item.clone());
-                        }
-                    }
-                    edges[targets[last]].queue.push_back(item);
-                }
-                items_out += 1;
-            }
-            for mut n in out.drain_notices() {
-                n.block = Arc::clone(&nd.name);
-                notices.push(n);
-            }
-        }
+        st = lock(sh);
+        let finished = result.unwrap_or_else(|error| {
+            fail(&mut st, idx, error);
+            false
+        });
+        let items_out = deliver(&mut st, idx, &mut out);
         let nd = &mut st.nodes[idx];
         nd.block = Some(block);
         nd.running = false;
@@ -500,14 +405,7 @@ fn worker(sh: &Shared) {
         st.running -= 1;
         sh.changes.fetch_add(1, Ordering::Release);
         if satisfied {
-            // Stop feeding a block that has what it needs; it still finishes
-            // when its inputs end. Which items it saw depends only on its
-            // own processing, so outputs stay independent of timing.
-            let State { nodes, edges, .. } = &mut *st;
-            for &(_, e) in &nodes[idx].wired {
-                edges[e].unwanted = true;
-                edges[e].queue.clear();
-            }
+            stop_feeding(&mut st, idx);
         }
         if finished {
             let State { nodes, edges, .. } = &mut *st;
@@ -521,8 +419,153 @@ fn worker(sh: &Shared) {
             // Outside the lock: the callback may take its time.
             drop(st);
             p(done, total);
-            st = sh.state.lock().unwrap_or_else(|e| e.into_inner());
+            st = lock(sh);
         }
+    }
+}
+
+/// Wait for a block that can make progress and take it out to run, with
+/// its input items in `batch`; None once the run is over (stopped,
+/// cancelled, every block done, or stalled).
+fn claim<'a>(
+    sh: &'a Shared,
+    mut st: MutexGuard<'a, State>,
+    batch: &mut Vec<(usize, Item)>,
+) -> (MutexGuard<'a, State>, Option<Claimed>) {
+    let mut spun = false;
+    loop {
+        if st.stop.is_some() || st.done == st.nodes.len() {
+            sh.wake.notify_all();
+            return (st, None);
+        }
+        if sh.cancel.load(Ordering::SeqCst) {
+            st.stop.get_or_insert(StopReason::Cancelled);
+            sh.wake.notify_all();
+            return (st, None);
+        }
+        let picked = match pick(&mut st, sh.capacity, false, batch) {
+            Some(p) => Some(p),
+            None if st.running == 0 => pick(&mut st, sh.capacity, true, batch),
+            None => None,
+        };
+        if let Some((idx, step)) = picked {
+            let nd = &mut st.nodes[idx];
+            nd.running = true;
+            let block = nd.block.take().expect("a node not running holds its block");
+            st.running += 1;
+            // More work than this worker takes, enough that sharing it
+            // pays for the wake-up: wake a sleeping one.
+            if st.idle > 0 && helper_gain(&st, idx, sh.capacity) >= WAKE_WORTH {
+                sh.wake.notify_one();
+            }
+            return (st, Some(Claimed { idx, step, block }));
+        }
+        if st.running == 0 {
+            // Nothing can run and nothing is running: a scheduler bug.
+            let name = st.nodes.iter().find(|n| !n.done).map(|n| n.name.to_string()).unwrap_or_default();
+            st.stop = Some(StopReason::Failed {
+                block: name,
+                kind: String::new(),
+                error: BlockError::new("the graph stalled (internal error)"),
+            });
+            sh.wake.notify_all();
+            return (st, None);
+        }
+        if sh.threads > 1 && !spun {
+            // Work usually turns up within a step of another worker:
+            // watching for it briefly costs less than sleeping and being
+            // woken (a system call each side, and the wake-up latency).
+            let seen = sh.changes.load(Ordering::Acquire);
+            drop(st);
+            spun = true;
+            let t0 = Instant::now();
+            while sh.changes.load(Ordering::Acquire) == seen && t0.elapsed() < SPIN_FOR {
+                for _ in 0..64 {
+                    std::hint::spin_loop();
+                }
+            }
+            st = lock(sh);
+            continue;
+        }
+        spun = false;
+        st.idle += 1;
+        st = sh.wake.wait_timeout(st, Duration::from_millis(100)).unwrap_or_else(|e| e.into_inner()).0;
+        st.idle -= 1;
+    }
+}
+
+/// Run one step of `block` without the lock: whether it finished, and the
+/// items and samples it took. A panic becomes the block's error.
+fn run_step(
+    block: &mut dyn Block,
+    step: Step,
+    batch: &mut Vec<(usize, Item)>,
+    out: &mut Outputs,
+) -> (Result<bool, BlockError>, u64, u64) {
+    let mut items_in = 0;
+    let mut samples_in = 0;
+    let result = catch_unwind(AssertUnwindSafe(|| match step {
+        Step::Generate => match block.generate(out) {
+            Ok(true) => Ok(false),
+            Ok(false) => block.finish(out).map(|_| true),
+            Err(e) => Err(e),
+        },
+        Step::Process => {
+            for (port, item) in batch.drain(..) {
+                items_in += 1;
+                samples_in += item.sample_count() as u64;
+                block.process(port, item, out)?;
+            }
+            Ok(false)
+        }
+        Step::Finish => block.finish(out).map(|_| true),
+    }));
+    let result = result.unwrap_or_else(|panic| {
+        let msg = panic
+            .downcast_ref::<String>()
+            .cloned()
+            .or_else(|| panic.downcast_ref::<&str>().map(|s| s.to_string()))
+            .unwrap_or_else(|| "unknown".into());
+        Err(BlockError::new(format!("internal error (panic): {msg}")))
+    });
+    (result, items_in, samples_in)
+}
+
+/// Queue the items of one step on the wires out of block `idx` (not on
+/// those whose consumer wants no more) and collect its notices; returns how
+/// many items it produced.
+fn deliver(st: &mut State, idx: usize, out: &mut Outputs) -> u64 {
+    let State { nodes, edges, notices, .. } = st;
+    let nd = &nodes[idx];
+    let mut items_out = 0;
+    for (port, item) in out.drain() {
+        let targets = &nd.outputs[port];
+        let last = targets.iter().rposition(|&e| !edges[e].unwanted);
+        if let Some(last) = last {
+            for &e in &targets[..last] {
+                if !edges[e].unwanted {
+                    edges[e].queue.push_back(item.clone());
+                }
+            }
+            edges[targets[last]].queue.push_back(item);
+        }
+        items_out += 1;
+    }
+    for mut n in out.drain_notices() {
+        n.block = Arc::clone(&nd.name);
+        notices.push(n);
+    }
+    items_out
+}
+
+/// Stop feeding block `idx`, which has what it needs; it still finishes
+/// when its inputs end. Which items it saw depends only on its own
+/// processing, so outputs stay independent of timing.
+fn stop_feeding(st: &mut State, idx: usize) {
+    let State { nodes, edges, .. } = st;
+    for &(_, e) in &nodes[idx].wired {
+        edges[e].unwanted = true;
+        edges[e].queue.clear();
     }
 }
 
@@ -536,7 +579,10 @@ fn fail(st: &mut State, idx: usize, error: BlockError) {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use lobeflow_blocks::{SampleChunk, Stamp};
+    use lobeflow_blocks::typed::boxed;
+    use lobeflow_blocks::{BuildContext, BuildError, ItemKind, NoPorts, SampleChunk, Stamp, TypedBlock, block_ports};
+
+    block_ports! { outputs enum TicksOut { Ticks = optional("ticks", ItemKind::Samples, "empty chunks") } }
 
     /// Emits `count` one-sample chunks, `step` samples apart, at `rate`.
     struct Ticks {
@@ -545,7 +591,13 @@ mod tests {
         step: u64,
         rate: f64,
     }
-    impl Block for Ticks {
+    impl TypedBlock for Ticks {
+        type Settings = ();
+        type In = NoPorts;
+        type Out = TicksOut;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            crate::runtime::attached_by_run()
+        }
         fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
             // Several items per call, so queues fill past one batch.
             for _ in 0..3 {
@@ -553,7 +605,10 @@ mod tests {
                     break;
                 }
                 let stamp = Stamp::new(self.next, self.rate);
-                out.push(0, Item::Samples(SampleChunk { stamp, iq: vec![].into(), sync: None, trigger: None }));
+                out.push(
+                    TicksOut::Ticks,
+                    Item::Samples(SampleChunk { stamp, iq: vec![].into(), sync: None, trigger: None }),
+                );
                 self.next += self.step;
                 self.count -= 1;
             }
@@ -561,17 +616,30 @@ mod tests {
         }
     }
 
+    block_ports! {
+        inputs enum RecorderIn {
+            First = required("first", ItemKind::Samples, "merged first on ties"),
+            Second = required("second", ItemKind::Samples, "merged second on ties"),
+        }
+    }
+
     /// Records (port, sample index) of every item, in the order it sees them.
     struct Recorder(Arc<Mutex<Vec<(usize, u64)>>>);
-    impl Block for Recorder {
-        fn process(&mut self, port: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
-            self.0.lock().expect("recorder").push((port, item.stamp().index));
+    impl TypedBlock for Recorder {
+        type Settings = ();
+        type In = RecorderIn;
+        type Out = NoPorts;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            crate::runtime::attached_by_run()
+        }
+        fn process(&mut self, port: RecorderIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+            self.0.lock().expect("recorder").push((port as usize, item.stamp().index));
             Ok(())
         }
     }
 
     fn ticks(count: u64, step: u64, rate: f64) -> Box<dyn Block> {
-        Box::new(Ticks { next: 0, count, step, rate })
+        boxed(Ticks { next: 0, count, step, rate })
     }
 
     #[test]
@@ -604,7 +672,7 @@ mod tests {
                     NodeSetup {
                         name: "merge".into(),
                         kind: "recorder".into(),
-                        block: Box::new(Recorder(Arc::clone(&seen))),
+                        block: boxed(Recorder(Arc::clone(&seen))),
                         inputs: vec![Some(0), Some(1)],
                         outputs: vec![],
                     },

@@ -20,8 +20,8 @@
 //! depend on the chunk size.
 
 use super::scenario::{
-    BeamKind, Degrees, Fluctuation, Metres, PhaseMode, Quantity, ScaleSpec, ScenarioFile, SignalSpec, SyncMode, Toward,
-    Track, Way,
+    BeaconSpec, BeamKind, Degrees, Fluctuation, Metres, PhaseMode, PulsedSpec, Quantity, ScaleSpec, ScenarioFile,
+    SignalSpec, SyncMode, Toward, Track, Way,
 };
 use crate::capture::write::{AuxRole, WriteFormat};
 use lobeflow_blocks::SPEED_OF_LIGHT;
@@ -116,6 +116,178 @@ pub struct Model {
     pub name: String,
 }
 
+/// The capture's sample rate, length in samples and format, checked.
+fn capture_size(f: &ScenarioFile) -> Result<(f64, f64, WriteFormat), String> {
+    let err = |at: &str, m: String| f.error_at_keys(at, m);
+    let c = &f.scenario.capture;
+    let rate = c.sample_rate.0;
+    if !(rate.is_finite() && rate > 0.0) {
+        return Err(err("capture/sample_rate", format!("sample rate {rate} must be positive")));
+    }
+    let samples = (c.duration.0 * rate).round();
+    if !(1.0..=MAX_SAMPLES).contains(&samples) {
+        return Err(err(
+            "capture/duration",
+            format!("duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})", c.duration.0),
+        ));
+    }
+    if !c.start.0.is_finite() {
+        return Err(err("capture/start", "start must be a finite time".into()));
+    }
+    let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e.to_string()))?;
+    if c.chunk == 0 || c.chunk > 1 << 24 {
+        return Err(err("capture/chunk", format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24)));
+    }
+    Ok((rate, samples, format))
+}
+
+/// The lobes: names, offsets (from `toward` and the squint, or `az`/`el`) and gains.
+fn lobes_from(f: &ScenarioFile) -> Result<Vec<Lobe>, String> {
+    let (s, a) = (&f.scenario, &f.scenario.antenna);
+    let err = |at: &str, m: String| f.error_at_keys(at, m);
+    if s.lobes.len() < 2 {
+        return Err(err("lobes", format!("{} lobe(s) given; lobe switching needs at least two", s.lobes.len())));
+    }
+    let mut lobes = Vec::new();
+    for (i, l) in s.lobes.iter().enumerate() {
+        let at = format!("lobes/{i}");
+        let name = l.name.trim();
+        if name.is_empty() || name.contains(',') {
+            return Err(err(&at, format!("lobe name '{}' must be non-empty and without commas", l.name)));
+        }
+        if lobes.iter().any(|o: &Lobe| o.name == name) {
+            return Err(err(&at, format!("lobe name '{name}' is used twice")));
+        }
+        let (az, el) = match (l.toward, l.az, l.el) {
+            (Some(t), None, None) => {
+                let sq = a.squint.ok_or_else(|| err("antenna", "`squint` is needed when lobes use `toward`".into()))?.0;
+                match t {
+                    Toward::Right => (sq, 0.0),
+                    Toward::Left => (-sq, 0.0),
+                    Toward::Up => (0.0, sq),
+                    Toward::Down => (0.0, -sq),
+                }
+            }
+            (None, az, el) if az.is_some() || el.is_some() => (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0)),
+            _ => {
+                return Err(err(&at, format!("lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)")));
+            }
+        };
+        let gain = db_amplitude(l.gain_db.map_or(0.0, |g| g.0));
+        lobes.push(Lobe { name: name.to_string(), az, el, gain });
+    }
+    Ok(lobes)
+}
+
+/// Every track value finite, every swing period positive.
+fn check_tracks(f: &ScenarioFile) -> Result<(), String> {
+    let s = &f.scenario;
+    let err = |at: &str, m: String| f.error_at_keys(at, m);
+    let tracks = [
+        ("target/az", track_numbers(&s.target.az)),
+        ("target/el", track_numbers(&s.target.el)),
+        ("target/range", s.target.range.as_ref().map(track_numbers).unwrap_or_default()),
+    ];
+    for (at, numbers) in tracks {
+        if numbers.iter().any(|v| !v.is_finite()) {
+            return Err(err(at, "every value of a track must be a finite number".into()));
+        }
+        if numbers.len() > 2 && !positive(numbers[3]) {
+            return Err(err(&format!("{at}/swing/period"), format!("swing period {} s must be positive", numbers[3])));
+        }
+    }
+    Ok(())
+}
+
+/// A pulsed signal, checked against its PRI and the target's range over the capture (which ends at `end`).
+fn pulsed_from(f: &ScenarioFile, p: &PulsedSpec, end: f64) -> Result<Signal, String> {
+    let (s, c) = (&f.scenario, &f.scenario.capture);
+    let err = |at: &str, m: String| f.error_at_keys(at, m);
+    let at = |k: &str| format!("signal/pulsed/{k}");
+    let pri = 1.0 / p.prf.0;
+    if !(p.prf.0 > 0.0 && pri.is_finite()) {
+        return Err(err(&at("prf"), format!("PRF {} Hz must be positive", p.prf.0)));
+    }
+    if !(p.pulse.0 > 0.0 && p.pulse.0 < pri) {
+        return Err(err(
+            &at("pulse"),
+            format!("pulse length {} s must be positive and shorter than the PRI {pri} s", p.pulse.0),
+        ));
+    }
+    if p.pulses_per_dwell == 0 {
+        return Err(err(&at("pulses_per_dwell"), "at least one pulse per dwell is needed".into()));
+    }
+    if !(p.prf_jitter.0 >= 0.0 && p.prf_jitter.0 < 0.1 * pri) {
+        return Err(err(
+            &at("prf_jitter"),
+            format!("PRF jitter {} s must be from 0 to a tenth of the PRI", p.prf_jitter.0),
+        ));
+    }
+    let lead = p.switch_lead.map_or(0.1 * pri, |l| l.0);
+    if !(lead >= 0.0 && lead < 0.5 * pri) {
+        return Err(err(&at("switch_lead"), format!("switch lead {lead} s must be from 0 to half the PRI")));
+    }
+    let range = s
+        .target
+        .range
+        .ok_or_else(|| err("target", "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into()))?;
+    let (rmin, rmax) = range.bounds(c.start.0, end);
+    if rmax > MAX_RANGE_M {
+        return Err(err("target/range", format!("range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m")));
+    }
+    if !positive(rmin) {
+        return Err(err("target/range", format!("range falls to {rmin} m during the capture; it must stay positive")));
+    }
+    if !p.first_transmit.0.is_finite() {
+        return Err(err(&at("first_transmit"), "must be a finite time".into()));
+    }
+    Ok(Signal::Pulsed(Pulsed {
+        pri,
+        t0: p.first_transmit.0,
+        pulse_length: p.pulse.0,
+        pulses_per_dwell: p.pulses_per_dwell as i64,
+        jitter_rms: p.prf_jitter.0,
+        switch_lead: lead,
+        amplitude: db_amplitude(p.snr.0),
+        leakage_amplitude: p.leakage.map(|l| db_amplitude(l.0)),
+        fluctuation: p.fluctuation,
+        phase: p.phase,
+        range,
+    }))
+}
+
+/// A beacon's tone, checked against the sample `rate`.
+fn beacon_from(f: &ScenarioFile, b: &BeaconSpec, rate: f64) -> Result<Signal, String> {
+    let (s, c) = (&f.scenario, &f.scenario.capture);
+    let err = |at: &str, m: String| f.error_at_keys(at, m);
+    let at = |k: &str| format!("signal/beacon/{k}");
+    if !(b.dwell.0 > 0.0 && b.dwell.0 * rate >= 1.0) {
+        return Err(err(&at("dwell"), format!("dwell {} s must hold at least one sample", b.dwell.0)));
+    }
+    if b.fluctuation == Fluctuation::PerPulse {
+        return Err(err(&at("fluctuation"), "a beacon has no pulses: use none or per_dwell".into()));
+    }
+    if s.target.range.is_some() {
+        return Err(err("target/range", "a beacon scenario has no range; remove `range`".into()));
+    }
+    if c.trigger {
+        return Err(err("capture/trigger", "a beacon has no transmit trigger; remove `trigger`".into()));
+    }
+    if b.tone.0.abs().partial_cmp(&(rate / 2.0)) != Some(std::cmp::Ordering::Less) {
+        return Err(err(
+            &at("tone"),
+            format!("tone {} Hz must lie within +-{} Hz (half the sample rate)", b.tone.0, rate / 2.0),
+        ));
+    }
+    Ok(Signal::Beacon(Beacon {
+        tone_hz: b.tone.0,
+        amplitude: db_amplitude(b.snr.0),
+        dwell: b.dwell.0,
+        t0: b.first_start.0,
+        fluctuation: b.fluctuation,
+    }))
+}
+
 /// at, per_second, then (amplitude, period, phase) when the track swings.
 fn track_numbers<Q: Quantity + Default>(t: &Track<Q>) -> Vec<f64> {
     let mut v = vec![t.at.value(), t.per_second.value()];
@@ -140,24 +312,7 @@ impl Model {
         let s = &f.scenario;
         let err = |at: &str, m: String| f.error_at_keys(at, m);
         let c = &s.capture;
-        let rate = c.sample_rate.0;
-        if !(rate.is_finite() && rate > 0.0) {
-            return Err(err("capture/sample_rate", format!("sample rate {rate} must be positive")));
-        }
-        let samples = (c.duration.0 * rate).round();
-        if !(1.0..=MAX_SAMPLES).contains(&samples) {
-            return Err(err(
-                "capture/duration",
-                format!("duration {} s gives {samples} samples (need 1 to {MAX_SAMPLES:e})", c.duration.0),
-            ));
-        }
-        if !c.start.0.is_finite() {
-            return Err(err("capture/start", "start must be a finite time".into()));
-        }
-        let format = WriteFormat::parse(&c.format).map_err(|e| err("capture/format", e.to_string()))?;
-        if c.chunk == 0 || c.chunk > 1 << 24 {
-            return Err(err("capture/chunk", format!("chunk {} must be between 1 and {}", c.chunk, 1 << 24)));
-        }
+        let (rate, samples, format) = capture_size(f)?;
 
         let a = &s.antenna;
         let shape = match a.beam {
@@ -189,149 +344,12 @@ impl Model {
             Way::Two => 2,
         };
 
-        if s.lobes.len() < 2 {
-            return Err(err("lobes", format!("{} lobe(s) given; lobe switching needs at least two", s.lobes.len())));
-        }
-        let mut lobes = Vec::new();
-        for (i, l) in s.lobes.iter().enumerate() {
-            let at = format!("lobes/{i}");
-            let name = l.name.trim();
-            if name.is_empty() || name.contains(',') {
-                return Err(err(&at, format!("lobe name '{}' must be non-empty and without commas", l.name)));
-            }
-            if lobes.iter().any(|o: &Lobe| o.name == name) {
-                return Err(err(&at, format!("lobe name '{name}' is used twice")));
-            }
-            let (az, el) = match (l.toward, l.az, l.el) {
-                (Some(t), None, None) => {
-                    let sq =
-                        a.squint.ok_or_else(|| err("antenna", "`squint` is needed when lobes use `toward`".into()))?.0;
-                    match t {
-                        Toward::Right => (sq, 0.0),
-                        Toward::Left => (-sq, 0.0),
-                        Toward::Up => (0.0, sq),
-                        Toward::Down => (0.0, -sq),
-                    }
-                }
-                (None, az, el) if az.is_some() || el.is_some() => (az.map_or(0.0, |v| v.0), el.map_or(0.0, |v| v.0)),
-                _ => {
-                    return Err(err(
-                        &at,
-                        format!("lobe '{name}' needs either `toward` or `az`/`el` offsets (not both)"),
-                    ));
-                }
-            };
-            let gain = db_amplitude(l.gain_db.map_or(0.0, |g| g.0));
-            lobes.push(Lobe { name: name.to_string(), az, el, gain });
-        }
-
+        let lobes = lobes_from(f)?;
         let end = c.start.0 + samples / rate;
-        let tracks = [
-            ("target/az", track_numbers(&s.target.az)),
-            ("target/el", track_numbers(&s.target.el)),
-            ("target/range", s.target.range.as_ref().map(track_numbers).unwrap_or_default()),
-        ];
-        for (at, numbers) in tracks {
-            if numbers.iter().any(|v| !v.is_finite()) {
-                return Err(err(at, "every value of a track must be a finite number".into()));
-            }
-            if numbers.len() > 2 && !positive(numbers[3]) {
-                return Err(err(
-                    &format!("{at}/swing/period"),
-                    format!("swing period {} s must be positive", numbers[3]),
-                ));
-            }
-        }
+        check_tracks(f)?;
         let signal = match &s.signal {
-            SignalSpec::Pulsed(p) => {
-                let at = |k: &str| format!("signal/pulsed/{k}");
-                let pri = 1.0 / p.prf.0;
-                if !(p.prf.0 > 0.0 && pri.is_finite()) {
-                    return Err(err(&at("prf"), format!("PRF {} Hz must be positive", p.prf.0)));
-                }
-                if !(p.pulse.0 > 0.0 && p.pulse.0 < pri) {
-                    return Err(err(
-                        &at("pulse"),
-                        format!("pulse length {} s must be positive and shorter than the PRI {pri} s", p.pulse.0),
-                    ));
-                }
-                if p.pulses_per_dwell == 0 {
-                    return Err(err(&at("pulses_per_dwell"), "at least one pulse per dwell is needed".into()));
-                }
-                if !(p.prf_jitter.0 >= 0.0 && p.prf_jitter.0 < 0.1 * pri) {
-                    return Err(err(
-                        &at("prf_jitter"),
-                        format!("PRF jitter {} s must be from 0 to a tenth of the PRI", p.prf_jitter.0),
-                    ));
-                }
-                let lead = p.switch_lead.map_or(0.1 * pri, |l| l.0);
-                if !(lead >= 0.0 && lead < 0.5 * pri) {
-                    return Err(err(
-                        &at("switch_lead"),
-                        format!("switch lead {lead} s must be from 0 to half the PRI"),
-                    ));
-                }
-                let range = s.target.range.ok_or_else(|| {
-                    err("target", "a pulsed scenario needs `range` (e.g. `range: {at: 12 km}`)".into())
-                })?;
-                let (rmin, rmax) = range.bounds(c.start.0, end);
-                if rmax > MAX_RANGE_M {
-                    return Err(err(
-                        "target/range",
-                        format!("range reaches {rmax} m; the synthesizer stops at {MAX_RANGE_M:e} m"),
-                    ));
-                }
-                if !positive(rmin) {
-                    return Err(err(
-                        "target/range",
-                        format!("range falls to {rmin} m during the capture; it must stay positive"),
-                    ));
-                }
-                if !p.first_transmit.0.is_finite() {
-                    return Err(err(&at("first_transmit"), "must be a finite time".into()));
-                }
-                Signal::Pulsed(Pulsed {
-                    pri,
-                    t0: p.first_transmit.0,
-                    pulse_length: p.pulse.0,
-                    pulses_per_dwell: p.pulses_per_dwell as i64,
-                    jitter_rms: p.prf_jitter.0,
-                    switch_lead: lead,
-                    amplitude: db_amplitude(p.snr.0),
-                    leakage_amplitude: p.leakage.map(|l| db_amplitude(l.0)),
-                    fluctuation: p.fluctuation,
-                    phase: p.phase,
-                    range,
-                })
-            }
-            SignalSpec::Beacon(b) => {
-                let at = |k: &str| format!("signal/beacon/{k}");
-                if !(b.dwell.0 > 0.0 && b.dwell.0 * rate >= 1.0) {
-                    return Err(err(&at("dwell"), format!("dwell {} s must hold at least one sample", b.dwell.0)));
-                }
-                if b.fluctuation == Fluctuation::PerPulse {
-                    return Err(err(&at("fluctuation"), "a beacon has no pulses: use none or per_dwell".into()));
-                }
-                if s.target.range.is_some() {
-                    return Err(err("target/range", "a beacon scenario has no range; remove `range`".into()));
-                }
-                if c.trigger {
-                    return Err(err("capture/trigger", "a beacon has no transmit trigger; remove `trigger`".into()));
-                }
-                if b.tone.0.abs().partial_cmp(&(rate / 2.0)) != Some(std::cmp::Ordering::Less) {
-                    return Err(err(
-                        &at("tone"),
-                        format!("tone {} Hz must lie within +-{} Hz (half the sample rate)", b.tone.0, rate / 2.0),
-                    ));
-                }
-                Signal::Beacon(Beacon {
-                    tone_hz: b.tone.0,
-                    amplitude: db_amplitude(b.snr.0),
-                    dwell: b.dwell.0,
-                    t0: b.first_start.0,
-                    fluctuation: b.fluctuation,
-                })
-            }
+            SignalSpec::Pulsed(p) => pulsed_from(f, p, end)?,
+            SignalSpec::Beacon(b) => beacon_from(f, b, rate)?,
         };
         let transient = match &s.switch_transient {
             Some(t) if !positive(t.length.0) => {

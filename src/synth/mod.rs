@@ -2,9 +2,9 @@
 //! file (see [`scenario`] for the syntax, [`generate`] for the signal model).
 
 pub mod generate;
-pub mod scan;
+pub(crate) mod scan;
 pub mod scenario;
-pub mod truth;
+pub(crate) mod truth;
 
 use crate::capture::write::{CaptureWriter, WriterConfig, commit_staged};
 use crate::runtime::staging;

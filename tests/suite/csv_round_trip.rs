@@ -4,9 +4,8 @@
 
 use lobeflow::Session;
 use lobeflow::regress::Table;
-use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, Cell, Item, ItemKind, Outputs, Params, PortSpec, TableRow,
-};
+use lobeflow_blocks::Cell;
+use lobeflow_blocks::prelude::*;
 use std::sync::Arc;
 
 /// Text cells a hand-made `split(',')` reader would cut or mangle.
@@ -17,21 +16,22 @@ struct Labeller {
     rows: usize,
 }
 
-const LABELLER: BlockSpec = BlockSpec {
-    kind: "labeller",
-    doc: "test: one row per chunk with an awkward text field",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "chunks")],
-    outputs: &[PortSpec::optional("rows", ItemKind::Row, "rows")],
-    params: &[],
-    build,
-};
+const LABELLER: BlockSpec =
+    BlockSpec::typed::<Labeller>("labeller", "test: one row per chunk with an awkward text field");
 
-fn build(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
-    Ok(Box::new(Labeller { rows: 0 }))
-}
+block_ports! { inputs enum LabellerIn { Samples = required("samples", ItemKind::Samples, "chunks") } }
+block_ports! { outputs enum LabellerOut { Rows = optional("rows", ItemKind::Row, "rows") } }
 
-impl Block for Labeller {
-    fn process(&mut self, _: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+impl TypedBlock for Labeller {
+    type Settings = ();
+    type In = LabellerIn;
+    type Out = LabellerOut;
+
+    fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(Labeller { rows: 0 })
+    }
+
+    fn process(&mut self, _: LabellerIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         if let Item::Samples(c) = item {
             let note = NOTES[self.rows % NOTES.len()];
             self.rows += 1;
@@ -39,7 +39,7 @@ impl Block for Labeller {
                 (Arc::from("chunk"), Cell::Int(c.stamp.index as i64)),
                 (Arc::from("note"), Cell::Text(Arc::from(note))),
             ];
-            out.push(0, Item::Row(TableRow { stamp: c.stamp, fields }));
+            out.push(LabellerOut::Rows, Item::Row(TableRow { stamp: c.stamp, fields }));
         }
         Ok(())
     }

@@ -356,80 +356,82 @@ fn the_program_hears_its_parameters_and_its_standard_error_becomes_notices() {
     assert_eq!(said, ["gain -6.5 dB"]);
 }
 
-/// Emits `count` dwell records of four lobes, 256 per call.
-struct DwellSource {
-    left: u64,
-    next: u64,
-}
+mod hop_blocks {
+    use lobeflow_blocks::PortSet;
+    use lobeflow_blocks::prelude::*;
+    use std::marker::PhantomData;
 
-impl lobeflow_blocks::Block for DwellSource {
-    fn generate(&mut self, out: &mut lobeflow_blocks::Outputs) -> Result<bool, lobeflow_blocks::BlockError> {
-        for _ in 0..256.min(self.left) {
-            let lobe = (self.next % 4) as usize;
-            let name = ["right", "up", "left", "down"][lobe];
-            out.push(
-                0,
-                Item::Dwell(lobeflow_blocks::DwellRecord {
-                    tag: lobeflow_blocks::LobeTag {
-                        lobe,
-                        name: name.into(),
-                        dwell: self.next,
-                        dwell_start: self.next * 400,
-                    },
-                    mid: lobeflow_blocks::Stamp::new(self.next * 400 + 200, 1e6),
-                    amplitude: 1.0 + (self.next % 7) as f64 * 0.01,
-                    noise_power: 0.01,
-                    snr: 100.0,
-                    var_ln_amp: 0.001,
-                    range_m: Some(8000.0),
-                    used: 4,
-                }),
-            );
-            self.next += 1;
-            self.left -= 1;
+    block_settings! {
+        pub struct DwellSourceSettings {
+            count: u64 { ty: ParamType::Integer { min: 1, max: 1 << 40 }, default: Some("1000"), doc: "records" },
         }
-        Ok(self.left > 0)
     }
-}
 
-/// Counts what reaches it.
-struct Count;
-impl lobeflow_blocks::Block for Count {}
+    block_ports! { outputs pub enum DwellSourceOut { Dwells = optional("dwells", ItemKind::Dwell, "records") } }
 
-const DWELL_SOURCE: lobeflow_blocks::BlockSpec = lobeflow_blocks::BlockSpec {
-    kind: "dwell_source",
-    doc: "test: many dwell records, fast",
-    inputs: &[],
-    outputs: &[lobeflow_blocks::PortSpec::optional("dwells", lobeflow_blocks::ItemKind::Dwell, "")],
-    params: &[lobeflow_blocks::ParamSpec {
-        name: "count",
-        ty: lobeflow_blocks::ParamType::Integer { min: 1, max: 1 << 40 },
-        default: Some("1000"),
-        doc: "",
-    }],
-    build: |p, _| Ok(Box::new(DwellSource { left: p.int("count")? as u64, next: 0 })),
-};
+    /// Emits `count` dwell records of four lobes, 256 per call.
+    pub struct DwellSource {
+        left: u64,
+        next: u64,
+    }
 
-/// A sink of `kind` items.
-const fn counter(kind: &'static str, inputs: &'static [lobeflow_blocks::PortSpec]) -> lobeflow_blocks::BlockSpec {
-    lobeflow_blocks::BlockSpec {
-        kind,
-        doc: "test: consumes its input",
-        inputs,
-        outputs: &[],
-        params: &[],
-        build: |_, _| Ok(Box::new(Count)),
+    impl TypedBlock for DwellSource {
+        type Settings = DwellSourceSettings;
+        type In = NoPorts;
+        type Out = DwellSourceOut;
+
+        fn build(s: DwellSourceSettings, _: &BuildContext) -> Result<Self, BuildError> {
+            Ok(DwellSource { left: s.count, next: 0 })
+        }
+
+        fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+            for _ in 0..256.min(self.left) {
+                let lobe = (self.next % 4) as usize;
+                let name = ["right", "up", "left", "down"][lobe];
+                out.push(
+                    DwellSourceOut::Dwells,
+                    Item::Dwell(DwellRecord {
+                        tag: LobeTag { lobe, name: name.into(), dwell: self.next, dwell_start: self.next * 400 },
+                        mid: Stamp::new(self.next * 400 + 200, 1e6),
+                        amplitude: 1.0 + (self.next % 7) as f64 * 0.01,
+                        noise_power: 0.01,
+                        snr: 100.0,
+                        var_ln_amp: 0.001,
+                        range_m: Some(8000.0),
+                        used: 4,
+                    }),
+                );
+                self.next += 1;
+                self.left -= 1;
+            }
+            Ok(self.left > 0)
+        }
+    }
+
+    block_ports! { inputs pub enum DwellsIn { In = required("in", ItemKind::Dwell, "dwell records") } }
+    block_ports! { inputs pub enum SamplesIn { In = required("in", ItemKind::Samples, "chunks") } }
+
+    /// A sink that takes whatever reaches its input `I`.
+    pub struct Count<I>(PhantomData<I>);
+
+    impl<I: PortSet> TypedBlock for Count<I> {
+        type Settings = ();
+        type In = I;
+        type Out = NoPorts;
+
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            Ok(Count(PhantomData))
+        }
     }
 }
 
 fn hop_registry() -> lobeflow_blocks::Registry {
-    use lobeflow_blocks::{ItemKind, PortSpec};
+    use hop_blocks::{Count, DwellSource, DwellsIn, SamplesIn};
+    use lobeflow_blocks::BlockSpec;
     let mut r = lobeflow::registry();
-    r.register(DWELL_SOURCE);
-    const DWELLS_IN: &[PortSpec] = &[PortSpec::required("in", ItemKind::Dwell, "")];
-    const SAMPLES_IN: &[PortSpec] = &[PortSpec::required("in", ItemKind::Samples, "")];
-    r.register(counter("count_dwells", DWELLS_IN));
-    r.register(counter("count_samples", SAMPLES_IN));
+    r.register(BlockSpec::typed::<DwellSource>("dwell_source", "test: many dwell records, fast"));
+    r.register(BlockSpec::typed::<Count<DwellsIn>>("count_dwells", "test: consumes its input"));
+    r.register(BlockSpec::typed::<Count<SamplesIn>>("count_samples", "test: consumes its input"));
     r
 }
 

@@ -2,9 +2,8 @@
 //! and hints the fix, before any sample flows.
 
 use lobeflow::graph::{GraphError, Origin, Overrides, resolve};
-use lobeflow_blocks::{
-    Block, BlockSpec, BuildContext, ItemKind, ParamSpec, ParamType, Params, PortSpec, RawValue, Registry, Unit,
-};
+use lobeflow_blocks::RawValue;
+use lobeflow_blocks::prelude::*;
 use std::path::PathBuf;
 
 fn dir(name: &str) -> PathBuf {
@@ -14,27 +13,29 @@ fn dir(name: &str) -> PathBuf {
     d
 }
 
-struct Nothing;
-impl Block for Nothing {}
-
-fn build_nothing(_: &Params, _: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
-    Ok(Box::new(Nothing))
+block_settings! {
+    struct SweepSinkSettings {
+        squint: f64 {
+            ty: ParamType::Number { unit: Unit::Degrees, min: 0.01, max: 45.0 },
+            default: None,
+            doc: "required angle",
+        },
+    }
 }
 
+block_ports! { inputs enum SweepSinkIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps") } }
+
 /// A test-only kind that takes sweeps and needs a parameter.
-const SWEEP_SINK: BlockSpec = BlockSpec {
-    kind: "sweep_sink",
-    doc: "test: takes sweeps",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps")],
-    outputs: &[],
-    params: &[ParamSpec {
-        name: "squint",
-        ty: ParamType::Number { unit: Unit::Degrees, min: 0.01, max: 45.0 },
-        default: None,
-        doc: "required angle",
-    }],
-    build: build_nothing,
-};
+struct SweepSink;
+impl TypedBlock for SweepSink {
+    type Settings = SweepSinkSettings;
+    type In = SweepSinkIn;
+    type Out = NoPorts;
+    fn build(_: SweepSinkSettings, _: &BuildContext) -> Result<Self, BuildError> {
+        Ok(SweepSink)
+    }
+}
+const SWEEP_SINK: BlockSpec = BlockSpec::typed::<SweepSink>("sweep_sink", "test: takes sweeps");
 
 fn registry() -> Registry {
     let mut r = lobeflow::registry();

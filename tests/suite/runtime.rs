@@ -5,10 +5,8 @@
 use lobeflow::graph::{Overrides, resolve};
 use lobeflow::runtime::{RunOptions, run};
 use lobeflow::{Error, Session};
-use lobeflow_blocks::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, OutputFile, Outputs, ParamSpec, ParamType,
-    Params, PortSpec, Registry,
-};
+use lobeflow_blocks::prelude::*;
+use lobeflow_blocks::{FileStager, OutputFile};
 use std::io::Write;
 use std::path::PathBuf;
 use std::sync::Arc;
@@ -22,6 +20,20 @@ fn dir(name: &str) -> PathBuf {
     d
 }
 
+block_ports! { inputs enum SamplesIn { Samples = required("samples", ItemKind::Samples, "anything") } }
+
+/// The output file of a test block.
+fn create(path: PathBuf) -> Result<OutputFile, BuildError> {
+    OutputFile::create(&path).map_err(|source| BuildError::File { path, source })
+}
+
+block_settings! {
+    struct DigestSettings {
+        path: PathBuf { ty: ParamType::OutputPath, default: Some("digest.txt"), doc: "where" },
+        fail_at: i64 { ty: ParamType::Integer { min: -1, max: 1 << 40 }, default: Some("-1"), doc: "item to fail at" },
+    }
+}
+
 /// Writes a running checksum of every sample it sees to a file.
 struct Digest {
     file: Option<OutputFile>,
@@ -29,23 +41,16 @@ struct Digest {
     fail_at: i64,
     seen: i64,
 }
-const DIGEST: BlockSpec = BlockSpec {
-    kind: "digest",
-    doc: "test: checksum per chunk to a file",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "")],
-    outputs: &[],
-    params: &[
-        ParamSpec { name: "path", ty: ParamType::OutputPath, default: Some("digest.txt"), doc: "" },
-        ParamSpec { name: "fail_at", ty: ParamType::Integer { min: -1, max: 1 << 40 }, default: Some("-1"), doc: "" },
-    ],
-    build: build_digest,
-};
-fn build_digest(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
-    let f = OutputFile::create(std::path::Path::new(p.text("path")?)).map_err(|e| e.to_string())?;
-    Ok(Box::new(Digest { file: Some(f), files: ctx.files.clone(), fail_at: p.int("fail_at")?, seen: 0 }))
-}
-impl Block for Digest {
-    fn process(&mut self, _: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+const DIGEST: BlockSpec = BlockSpec::typed::<Digest>("digest", "test: checksum per chunk to a file");
+impl TypedBlock for Digest {
+    type Settings = DigestSettings;
+    type In = SamplesIn;
+    type Out = NoPorts;
+    fn build(s: DigestSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        let f = create(s.path)?;
+        Ok(Digest { file: Some(f), files: ctx.files.clone(), fail_at: s.fail_at, seen: 0 })
+    }
+    fn process(&mut self, _: SamplesIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
         if self.seen == self.fail_at {
             return Err(BlockError::at("deliberate failure", item.stamp().index));
         }
@@ -67,6 +72,12 @@ impl Block for Digest {
     }
 }
 
+block_settings! {
+    struct FirstFewSettings {
+        path: PathBuf { ty: ParamType::OutputPath, default: Some("first.txt"), doc: "where" },
+    }
+}
+
 /// Keeps the indices of the first `keep` chunks, then wants no more input.
 struct FirstFew {
     file: Option<OutputFile>,
@@ -74,22 +85,19 @@ struct FirstFew {
     keep: usize,
     seen: Vec<u64>,
 }
-const FIRST_FEW: BlockSpec = BlockSpec {
-    kind: "first_few",
-    doc: "test: reads only the first chunks",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "")],
-    outputs: &[],
-    params: &[ParamSpec { name: "path", ty: ParamType::OutputPath, default: Some("first.txt"), doc: "" }],
-    build: |p, ctx| {
-        let f = OutputFile::create(std::path::Path::new(p.text("path")?)).map_err(|e| e.to_string())?;
-        Ok(Box::new(FirstFew { file: Some(f), files: ctx.files.clone(), keep: 5, seen: Vec::new() }))
-    },
-};
-impl Block for FirstFew {
+const FIRST_FEW: BlockSpec = BlockSpec::typed::<FirstFew>("first_few", "test: reads only the first chunks");
+impl TypedBlock for FirstFew {
+    type Settings = FirstFewSettings;
+    type In = SamplesIn;
+    type Out = NoPorts;
+    fn build(s: FirstFewSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        let f = create(s.path)?;
+        Ok(FirstFew { file: Some(f), files: ctx.files.clone(), keep: 5, seen: Vec::new() })
+    }
     fn wants_input(&self) -> bool {
         self.seen.len() < self.keep
     }
-    fn process(&mut self, _: usize, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
+    fn process(&mut self, _: SamplesIn, item: Item, _: &mut Outputs) -> Result<(), BlockError> {
         if self.wants_input() {
             self.seen.push(item.stamp().index);
         }

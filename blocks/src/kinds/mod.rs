@@ -4,7 +4,7 @@
 pub mod dc_remove;
 pub mod discard;
 pub mod frequency_shift;
-pub mod gate_common;
+pub(crate) mod gate_common;
 pub mod lobe_gate;
 pub mod lowpass_decimate;
 pub mod matched_filter;

@@ -359,11 +359,10 @@ impl PulseFramer {
     }
 
     fn scan(&mut self, chunk: SampleChunk, out: &mut Outputs) -> Result<(), BlockError> {
-        let Some(s) = self.setup.as_ref() else {
+        let Some(give_up) = self.setup.as_ref().map(|s| s.give_up) else {
             return Ok(());
         };
         let (start, len) = (chunk.stamp.index, chunk.len());
-        let (warm_end, holdoff, gap, pri, give_up) = (s.start + s.warm, s.holdoff, s.gap, s.pri, s.give_up);
         let trigger = match (self.mode, &chunk.trigger) {
             (Timing::Trigger, None) => {
                 return Err(BlockError::at(
@@ -382,76 +381,7 @@ impl PulseFramer {
         if self.mode == Timing::Schedule {
             self.scan_schedule(start, len, out);
         } else {
-            let by_trigger = self.mode == Timing::Trigger && trigger.is_some();
-            // The leakage threshold changes only when the noise floor does.
-            let mut leak_limit = self.leak_limit();
-            let mut next = 0;
-            while next < len {
-                if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
-                    // Between pulses: take the run of samples under the threshold in
-                    // one go, up to where a missing pulse would be predicted.
-                    let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
-                    let until = (gap_at.saturating_sub(start).min(len as u64) as usize).max(next);
-                    next += self.noise.push_below(&chunk.iq[next..until], leak_limit);
-                    if next == len {
-                        break;
-                    }
-                }
-                let k = next;
-                next += 1;
-                let n = start + k as u64;
-                let above = match &trigger {
-                    Some(t) if by_trigger => {
-                        let v = t[k];
-                        if n >= warm_end && v.is_finite() {
-                            self.trig_max = self.trig_max.max(v);
-                        }
-                        self.trig_max > 0.0 && v >= self.threshold * self.trig_max
-                    }
-                    _ => {
-                        let p = chunk.iq[k].norm_sqr();
-                        if n >= warm_end && self.noise.push(p) {
-                            leak_limit = self.leak_limit();
-                        }
-                        p as f64 > leak_limit
-                    }
-                };
-                if !above && !self.prev_above && self.rise.is_none() {
-                    // Between pulses: only a missing pulse can happen here.
-                    if let Some((l, _)) = self.last
-                        && n - l > gap
-                    {
-                        self.instant(l + pri.round() as u64, true, out);
-                    }
-                    continue;
-                }
-                let edge = above && !self.prev_above;
-                self.prev_above = above;
-                if let Some(rise) = &mut self.rise {
-                    // Still on the leading edge of the leakage: keep looking for its top.
-                    if above && rise.len() < RISE_MAX {
-                        rise.push(n, chunk.iq[k].norm_sqr());
-                        continue;
-                    }
-                    let at = rise.instant(self.leakage_peak);
-                    if let Some(done) = self.rise.take() {
-                        self.rise_spare = done.samples;
-                    }
-                    self.instant(at, false, out);
-                }
-                if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
-                    if self.mode == Timing::Leakage {
-                        let buf = std::mem::take(&mut self.rise_spare);
-                        self.rise = Some(Rise::new(buf, n, chunk.iq[k].norm_sqr()));
-                    } else {
-                        self.instant(n, false, out);
-                    }
-                } else if let Some((l, _)) = self.last
-                    && n - l > gap
-                {
-                    self.instant(l + pri.round() as u64, true, out);
-                }
-            }
+            self.scan_edges(&chunk, trigger.as_deref(), out);
         }
         drop(trigger);
         self.blank_in_place(chunk);
@@ -464,6 +394,86 @@ impl PulseFramer {
             }
         }
         Ok(())
+    }
+
+    /// Find the transmit instants of one chunk from the trigger channel or
+    /// the leakage's rising edges, predicting missing pulses.
+    fn scan_edges(&mut self, chunk: &SampleChunk, trigger: Option<&[f32]>, out: &mut Outputs) {
+        let Some(&Setup { start: first, warm, holdoff, gap, pri, .. }) = self.setup.as_ref() else {
+            return;
+        };
+        let warm_end = first + warm;
+        let (start, len) = (chunk.stamp.index, chunk.len());
+        let by_trigger = self.mode == Timing::Trigger && trigger.is_some();
+        // The leakage threshold changes only when the noise floor does.
+        let mut leak_limit = self.leak_limit();
+        let mut next = 0;
+        while next < len {
+            if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
+                // Between pulses: take the run of samples under the threshold in
+                // one go, up to where a missing pulse would be predicted.
+                let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
+                let until = (gap_at.saturating_sub(start).min(len as u64) as usize).max(next);
+                next += self.noise.push_below(&chunk.iq[next..until], leak_limit);
+                if next == len {
+                    break;
+                }
+            }
+            let k = next;
+            next += 1;
+            let n = start + k as u64;
+            let above = match &trigger {
+                Some(t) if by_trigger => {
+                    let v = t[k];
+                    if n >= warm_end && v.is_finite() {
+                        self.trig_max = self.trig_max.max(v);
+                    }
+                    self.trig_max > 0.0 && v >= self.threshold * self.trig_max
+                }
+                _ => {
+                    let p = chunk.iq[k].norm_sqr();
+                    if n >= warm_end && self.noise.push(p) {
+                        leak_limit = self.leak_limit();
+                    }
+                    p as f64 > leak_limit
+                }
+            };
+            if !above && !self.prev_above && self.rise.is_none() {
+                // Between pulses: only a missing pulse can happen here.
+                if let Some((l, _)) = self.last
+                    && n - l > gap
+                {
+                    self.instant(l + pri.round() as u64, true, out);
+                }
+                continue;
+            }
+            let edge = above && !self.prev_above;
+            self.prev_above = above;
+            if let Some(rise) = &mut self.rise {
+                // Still on the leading edge of the leakage: keep looking for its top.
+                if above && rise.len() < RISE_MAX {
+                    rise.push(n, chunk.iq[k].norm_sqr());
+                    continue;
+                }
+                let at = rise.instant(self.leakage_peak);
+                if let Some(done) = self.rise.take() {
+                    self.rise_spare = done.samples;
+                }
+                self.instant(at, false, out);
+            }
+            if edge && self.last_real.is_none_or(|r| n - r >= holdoff) {
+                if self.mode == Timing::Leakage {
+                    let buf = std::mem::take(&mut self.rise_spare);
+                    self.rise = Some(Rise::new(buf, n, chunk.iq[k].norm_sqr()));
+                } else {
+                    self.instant(n, false, out);
+                }
+            } else if let Some((l, _)) = self.last
+                && n - l > gap
+            {
+                self.instant(l + pri.round() as u64, true, out);
+            }
+        }
     }
 
     /// Power over which a sample is transmit leakage (never, before the floor is known).
