@@ -7,6 +7,7 @@
 
 pub mod accum;
 pub mod angle_plot;
+pub mod beacon_spectrum;
 pub mod circular;
 pub mod circular_sweep;
 pub mod discriminator_curve;
@@ -24,8 +25,14 @@ use std::sync::OnceLock;
 
 /// Every picture kind, registered by [`crate::standard_registry`]. Each
 /// writes `BASE.png` and `BASE.svg` from its `path` parameter.
-pub const ALL: &[BlockSpec] =
-    &[circular_sweep::SPEC, range_trace::SPEC, split_pair::SPEC, angle_plot::SPEC, lobe_timeline::SPEC];
+pub const ALL: &[BlockSpec] = &[
+    circular_sweep::SPEC,
+    range_trace::SPEC,
+    split_pair::SPEC,
+    angle_plot::SPEC,
+    lobe_timeline::SPEC,
+    beacon_spectrum::SPEC,
+];
 
 /// Whether `kind` is a picture kind (its `path` is a base name for a pair of
 /// files).
@@ -204,7 +211,7 @@ pub fn draw_mesh<DB: DrawingBackend>(chart: &mut Chart<'_, DB>, x_desc: &str, y_
     chart
         .configure_mesh()
         .bold_line_style(palette::GRID)
-        .light_line_style(palette::GRID_FINE)
+        .light_line_style(TRANSPARENT)
         .axis_style(palette::MUTED)
         .label_style(text_style(13.0, palette::INK))
         .axis_desc_style(text_style(14.0, palette::INK))
