@@ -32,6 +32,7 @@ pub const ALL: &[BlockSpec] = &[
     angle_plot::SPEC,
     lobe_timeline::SPEC,
     beacon_spectrum::SPEC,
+    discriminator_curve::SPEC,
 ];
 
 /// Whether `kind` is a picture kind (its `path` is a base name for a pair of
@@ -231,10 +232,31 @@ pub fn legend<DB: DrawingBackend>(
     entries: &[(RGBColor, String)],
 ) -> Result<(), String> {
     let (w, _) = area.dim_in_pixel();
+    legend_at(area, (w as i32 - legend_width(entries) - 24).max(4), top, entries)
+}
+
+/// The legend box at the top-left corner of `area`'s plot (past the axis
+/// labels), for charts whose data leave that corner free.
+pub fn legend_top_left<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    top: i32,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    legend_at(area, 100, top, entries)
+}
+
+fn legend_width(entries: &[(RGBColor, String)]) -> i32 {
     let widest = entries.iter().map(|e| e.1.chars().count()).max().unwrap_or(0) as i32;
-    let box_w = 46 + 7 * widest;
-    let x0 = (w as i32 - box_w - 24).max(4);
-    let y0 = top;
+    46 + 7 * widest
+}
+
+fn legend_at<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    x0: i32,
+    y0: i32,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    let box_w = legend_width(entries);
     let h = 22 * entries.len() as i32 + 10;
     area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::PANEL.filled())).map_err(draw_err)?;
     area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::GRID.stroke_width(1))).map_err(draw_err)?;
