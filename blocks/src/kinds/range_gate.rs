@@ -336,10 +336,12 @@ impl RangeGate {
                     out.inform(
                         at,
                         format!(
-                            "acquired the strongest echo: gate at bins {}..{} ({:.1} m) after {} dwells",
+                            "acquired the strongest echo: gate at bins {}..{} ({:.1} to {:.1} m) after {} dwells; \
+                             ranges given are the echo's leading edge inside it",
                             start,
                             start + geo.gate_width,
                             start as f64 * range_bin_m(geo.rate),
+                            (start + geo.gate_width) as f64 * range_bin_m(geo.rate),
                             acq.dwells
                         ),
                     );
