@@ -171,7 +171,8 @@ fn several_ports_at_once_and_a_report_with_notices_and_no_files() {
     // With an output folder the files are written and listed.
     let d = scratch("files");
     let report = beacon().out_dir(&d).run().unwrap();
-    assert_eq!(report.written.len(), 6);
+    // Two tables and four pictures (PNG and SVG each).
+    assert_eq!(report.written.len(), 10);
     assert!(d.join("angles.csv").is_file());
     let _ = std::fs::remove_dir_all(&d);
 }
