@@ -7,7 +7,7 @@
 //! line sits in the noise bins.
 
 use super::accum::decimate_min_max;
-use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
+use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, picture_base, write_picture};
 use crate::block::{BlockError, BlockSpec, BuildContext, FileStager, Outputs};
 use crate::dsp::spectrum::{FftCache, Window, next_pow2, parabolic_offset};
 use crate::error::{BuildError, ParamError};
@@ -118,10 +118,7 @@ impl TypedBlock for BeaconSpectrum {
     type Out = NoPorts;
 
     fn build(s: BeaconSpectrumSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
-        let path = s.path.trim().to_string();
-        if path.is_empty() {
-            return Err(ParamError::invalid("path", "is empty").into());
-        }
+        let path = picture_base(&s.path)?;
         Ok(BeaconSpectrum {
             tone_hz: s.tone,
             search_hz: s.search,

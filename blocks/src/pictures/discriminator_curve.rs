@@ -5,10 +5,12 @@
 //! the discriminator inverts, its usable region and the run's operating
 //! points on it).
 
-use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend_top_left, padded, palette, write_picture};
+use super::{
+    Chart, Picture, chart, draw_err, draw_mesh, frame, legend_top_left, padded, palette, picture_base, write_picture,
+};
 use crate::block::{BlockError, BlockSpec, BuildContext, FileStager, Outputs};
 use crate::dsp::beam::PairModel;
-use crate::error::{BuildError, ParamError};
+use crate::error::BuildError;
 use crate::item::{AngleEstimate, Item, ItemKind, Stamp};
 use crate::kinds::ratio_discriminator::{BeamModel, Way, beam_pair_model};
 use crate::param::{ParamType, Unit};
@@ -289,10 +291,7 @@ impl TypedBlock for CurveBlock {
     type Out = NoPorts;
 
     fn build(s: DiscriminatorCurveSettings, ctx: &BuildContext) -> Result<Self, BuildError> {
-        let path = s.path.trim().to_string();
-        if path.is_empty() {
-            return Err(ParamError::invalid("path", "is empty").into());
-        }
+        let path = picture_base(&s.path)?;
         let model = beam_pair_model(s.beam, s.beamwidth, s.squint, s.way, &s.pattern)?.with_floor(s.floor);
         let model_name = match s.beam {
             BeamModel::Table => {

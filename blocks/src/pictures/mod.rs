@@ -109,6 +109,15 @@ pub fn draw_err<E: std::fmt::Display>(e: E) -> String {
     format!("drawing failed: {e}")
 }
 
+/// The base name a picture's `path` setting gives (trimmed); empty is refused.
+pub fn picture_base(path: &str) -> Result<String, crate::ParamError> {
+    let base = path.trim();
+    if base.is_empty() {
+        return Err(crate::ParamError::invalid("path", "is empty"));
+    }
+    Ok(base.to_string())
+}
+
 /// Render `picture` to `<base>.png` and `<base>.svg`, both staged with the
 /// run's other outputs. Returns the two final paths.
 pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) -> Result<Vec<PathBuf>, BlockError> {
