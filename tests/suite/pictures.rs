@@ -704,3 +704,51 @@ fn beacon_spectrum_finds_the_independent_tone_and_warns_of_a_wrong_setting() {
     let line = number_after(warning, "the strongest line is at ").unwrap();
     assert!((line - 3137.7).abs() < bin_hz, "the warning names {line} Hz");
 }
+
+/// Warnings a block raises on `items` with `set`.
+fn warnings(spec: &BlockSpec, set: &[(&str, &str)], items: Vec<(usize, Item)>) -> Vec<String> {
+    let files = FileStager::default();
+    let ctx = BuildContext { name: spec.kind.into(), out_dir: std::env::temp_dir(), files: files.clone() };
+    let mut block = (spec.build)(&params(spec, set), &ctx).unwrap();
+    let mut out = Outputs::new(spec.outputs.len());
+    for (port, item) in items {
+        block.process(port, item, &mut out).unwrap();
+    }
+    block.finish(&mut out).unwrap();
+    files.commit().unwrap();
+    out.drain_notices().map(|n| n.what).collect()
+}
+
+/// The hand-worked check value above (Gaussian beams, BW 6 deg, squint
+/// 2.4 deg, two-way: 3.2110 dB at 0.5 deg) lies on the curve picture's
+/// model with those settings; told another beamwidth, the picture warns
+/// that the points lie off its curve, naming the settings to align.
+#[test]
+fn discriminator_curve_warns_when_points_lie_off_its_model() {
+    let spec = lobeflow::blocks::pictures::discriminator_curve::SPEC;
+    let point = |k: u64| {
+        let e = AngleEstimate {
+            stamp: Stamp::new(k * 8000, RATE),
+            axis: Arc::from("az"),
+            error_deg: Some(0.5),
+            sigma_deg: 0.05,
+            snr_db: 18.0,
+            ratio_db: 3.2110,
+            range_m: None,
+            flag: Flag::Ok,
+            tracked_deg: None,
+            tracked_sigma_deg: None,
+            absolute_deg: None,
+        };
+        (0, Item::Estimate(Box::new(e)))
+    };
+    let dir = scratch("curve-model");
+    let base = dir.join("curve");
+    let base = base.to_string_lossy();
+    let set = [("beam", "gaussian"), ("beamwidth", "6 deg"), ("squint", "2.4 deg"), ("way", "two"), ("path", &base)];
+    assert!(warnings(&spec, &set, (0..5).map(point).collect()).is_empty());
+    let wrong = [("beam", "gaussian"), ("beamwidth", "8 deg"), ("squint", "2.4 deg"), ("way", "two"), ("path", &base)];
+    let said = warnings(&spec, &wrong, (0..5).map(point).collect());
+    assert_eq!(said.len(), 1, "{said:?}");
+    assert!(said[0].starts_with("5 operating points lie more than") && said[0].contains("beamwidth"), "{said:?}");
+}
