@@ -654,6 +654,8 @@ fn four_lobe_pictures_agree_with_the_run_and_its_summary() {
         let figure = |name: &str| mine.iter().find_map(|t| number_after(t, name)).unwrap();
         let (count, ok, mean, rms, sigma, outliers) =
             (figures[0], figures[1], figures[2], figures[3], figures[5], figures[8]);
+        // The page's range column is the same leading edge the circle reads.
+        assert!((figures[9] - edge * 1e3).abs() < 0.5 * 149.9, "{axis}: page {} m, circle {edge} km", figures[9]);
         assert_eq!(figure("mean "), mean, "{axis} mean");
         assert_eq!(figure("RMS "), rms, "{axis} RMS");
         assert_eq!(figure("median σ "), sigma, "{axis} median σ");
