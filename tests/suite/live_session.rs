@@ -204,6 +204,7 @@ fn a_pushed_input_stopped_by_the_application_keeps_what_was_done() {
     // Stopped somewhere in what was pushed, after the 20 pairs seen.
     let lobeflow::runtime::Ending::CutShort { at_sample, rate } = ending else { panic!("{ending:?}") };
     assert!((200_000..=500_000).contains(&at_sample) && rate == 250e3, "{ending:?}");
-    assert_eq!(written, 6);
+    // Two tables and four pictures (PNG and SVG each).
+    assert_eq!(written, 10);
     let _ = std::fs::remove_dir_all(&d);
 }
