@@ -152,7 +152,7 @@ fn draw_curve<DB: DrawingBackend>(p: &CurvePanel, area: &DrawingArea<DB, Shift>,
         entries.push((palette::ALERT, format!("crossover {crossover:.3} deg")));
     }
     // A rising curve leaves the top-left corner free.
-    legend_top_left(area, 30, &entries)
+    legend_top_left(area, 48, &entries)
 }
 
 fn draw_residuals<DB: DrawingBackend>(
