@@ -26,15 +26,18 @@ pub enum Irregularity {
     Order,
     /// The signal disagrees with the switch schedule (see `timing_check`).
     Schedule,
+    /// Switch timing from the signal lost its switch train (see `switch_finder`).
+    LockLost,
 }
 
 impl Irregularity {
-    pub const ALL: [Irregularity; 5] = [
+    pub const ALL: [Irregularity; 6] = [
         Irregularity::DwellLength,
         Irregularity::Stuck,
         Irregularity::Stray,
         Irregularity::Order,
         Irregularity::Schedule,
+        Irregularity::LockLost,
     ];
 
     pub fn label(&self) -> &'static str {
@@ -44,6 +47,7 @@ impl Irregularity {
             Irregularity::Stray => "sync value matching no lobe",
             Irregularity::Order => "lobe out of order",
             Irregularity::Schedule => "schedule against the signal",
+            Irregularity::LockLost => "switch train lost",
         }
     }
 }
@@ -59,6 +63,8 @@ pub enum SwitchEvent {
     Switch { at: u64, lobe: usize },
     /// Something a person should know, at sample `at`.
     Irregular { at: u64, kind: Irregularity, what: String },
+    /// Information for the timeline (no warning), at sample `at`.
+    Note { at: u64, what: String },
 }
 
 /// Settings of the sync-channel tracker, in samples.

@@ -257,7 +257,7 @@ impl<P: SwitchPiece> SwitchDriver<P> {
                     self.current = Some(LobeInForce { lobe, dwell_start, switch_at });
                 }
                 SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
-                SwitchEvent::Irregular { .. } => {}
+                SwitchEvent::Irregular { .. } | SwitchEvent::Note { .. } => {}
             }
         }
     }
@@ -512,6 +512,7 @@ impl NoticeRouter {
             SwitchEvent::Irregular { at, kind, what } => {
                 self.irregular(out, Stamp::new(*at, rate), *kind, what.clone())
             }
+            SwitchEvent::Note { at, what } => self.timeline(out, Stamp::new(*at, rate), what.clone()),
         }
     }
 

@@ -1,0 +1,506 @@
+//! Switch instants found in the signal itself, for rigs with neither a sync
+//! channel nor a known schedule. Shared by the gate blocks; no block code.
+//!
+//! The samples are summed into cells (fixed runs of samples, or one sweep
+//! each): their energy and their largest sample power. A switch shows as a
+//! step of the energy between the dwells on either side (the lobes' gains
+//! differ) and as a transient (the switch's own spike). Per cell, the
+//! standardised size of the step across it plus the standardised log peak
+//! is large at each switch. Acquisition finds the train's period and phase
+//! in the first stretch (the autocorrelation's fundamental, then a line
+//! through the located events, as `inspect` does: [`super::event_period`]);
+//! tracking then looks for each switch near its predicted instant and
+//! corrects the phase and dwell by an alpha-beta step, coasting over
+//! switches it does not see. Which lobe a dwell belongs to cannot be told
+//! from the steps: it is given as one lobe known to be active at one
+//! instant. Derivation and limits in docs/derivations.md ("Switch timing
+//! from the signal").
+
+use super::event_period::find_events;
+use super::switch_sync::{Irregularity, SwitchEvent};
+use std::collections::VecDeque;
+use std::sync::Arc;
+
+/// Step windows tried at acquisition, in cells each side of a candidate switch.
+const STEP_CELLS: [usize; 6] = [1, 2, 4, 8, 16, 32];
+/// Dwells the acquisition stretch must hold for a window to be tried.
+const MIN_DWELLS: f64 = 12.0;
+/// A switch is seen when the feature's peak near the prediction stands this
+/// many of its deviations over the window's median.
+const DETECT_SD: f64 = 4.0;
+/// Alpha-beta gains of the phase and dwell corrections (a few dwells of memory).
+const ALPHA: f64 = 0.3;
+const BETA: f64 = 0.03;
+/// Switches missed in a row before the timeline says the finder is coasting.
+const COAST_NOTE: u64 = 8;
+
+/// Which lobe is active at one sample (from a capture's lobe labels or a user's statement).
+#[derive(Clone, Debug, PartialEq)]
+pub struct KnownLobe {
+    /// Position of the lobe in the switch order.
+    pub lobe: usize,
+    /// Sample index at which it is active.
+    pub at: f64,
+    /// Where this came from, for the notices.
+    pub source: String,
+}
+
+/// Settings of the finder, in samples.
+#[derive(Clone, Debug)]
+pub struct FinderSettings {
+    pub names: Vec<Arc<str>>,
+    /// Samples looked at before the first switch is decided.
+    pub acquire: usize,
+    /// Samples per cell; 0 makes every fed piece one cell (sweeps).
+    pub cell: usize,
+    /// Dwell length when roughly known (limits the search to twice it).
+    pub expected_dwell: Option<f64>,
+    pub known: KnownLobe,
+}
+
+/// What acquisition found, in samples.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Acquired {
+    pub dwell: f64,
+    /// Four standard errors of the dwell.
+    pub dwell_within: f64,
+    /// A switch instant (the first found).
+    pub switch_at: f64,
+    /// Four standard errors of the switch instant, plus one cell.
+    pub switch_within: f64,
+    /// Switch instants the line went through.
+    pub events: usize,
+    /// The step window chosen, in cells.
+    pub step_cells: usize,
+    /// Significance of the train (autocorrelation peak over its noise).
+    pub significance: f64,
+}
+
+/// One cell: its first sample, its samples, their summed and largest power.
+#[derive(Clone, Copy, Debug)]
+struct Cell {
+    start: u64,
+    count: u32,
+    energy: f64,
+    peak: f64,
+}
+
+/// Location and scale of a feature, robust to the events in it.
+#[derive(Clone, Copy, Debug)]
+struct Scale {
+    median: f64,
+    spread: f64,
+}
+
+impl Scale {
+    fn of(values: &[f64]) -> Scale {
+        let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
+        if v.is_empty() {
+            return Scale { median: 0.0, spread: 1.0 };
+        }
+        v.sort_by(f64::total_cmp);
+        let median = v[v.len() / 2];
+        let mut dev: Vec<f64> = v.iter().map(|x| (x - median).abs()).collect();
+        dev.sort_by(f64::total_cmp);
+        Scale { median, spread: (1.4826 * dev[dev.len() / 2]).max(1e-9) }
+    }
+    fn z(&self, x: f64) -> f64 {
+        (x - self.median) / self.spread
+    }
+}
+
+/// The per-cell feature: standardised step across the cell's start plus standardised log peak.
+#[derive(Clone, Copy, Debug)]
+struct Feature {
+    cells: usize,
+    step: Scale,
+    peak: Scale,
+}
+
+/// |ln| of the mean power of `k` cells from `j` over the `k` cells before `j`.
+fn step_at(cells: &[Cell], j: usize, k: usize) -> f64 {
+    if j < k || j + k > cells.len() {
+        return f64::NAN;
+    }
+    let mean = |r: &[Cell]| {
+        let (e, n) = r.iter().fold((0.0, 0u64), |a, c| (a.0 + c.energy, a.1 + u64::from(c.count)));
+        e / n.max(1) as f64
+    };
+    let (before, after) = (mean(&cells[j - k..j]), mean(&cells[j..j + k]));
+    if before > 0.0 && after > 0.0 { (after / before).ln().abs() } else { f64::NAN }
+}
+
+fn log_peak(c: &Cell) -> f64 {
+    c.peak.max(1e-30).ln()
+}
+
+impl Feature {
+    /// Scales from the acquisition cells.
+    fn learn(cells: &[Cell], k: usize) -> Feature {
+        let steps: Vec<f64> = (0..cells.len()).map(|j| step_at(cells, j, k)).collect();
+        let peaks: Vec<f64> = cells.iter().map(log_peak).collect();
+        Feature { cells: k, step: Scale::of(&steps), peak: Scale::of(&peaks) }
+    }
+
+    /// The feature of cell `j` (0 where the step window does not fit).
+    fn at(&self, cells: &[Cell], j: usize) -> f64 {
+        let step = step_at(cells, j, self.cells);
+        let step = if step.is_finite() { self.step.z(step) } else { 0.0 };
+        // the transient shows in the cell before the first cell of the new dwell or in it
+        let peak = [j.checked_sub(1), Some(j)]
+            .into_iter()
+            .flatten()
+            .filter_map(|i| cells.get(i))
+            .map(|c| self.peak.z(log_peak(c)))
+            .fold(f64::NEG_INFINITY, f64::max);
+        step + peak.max(0.0)
+    }
+}
+
+/// Position (samples) of a fractional cell index.
+fn position(cells: &[Cell], p: f64) -> f64 {
+    let j = (p.floor().max(0.0) as usize).min(cells.len() - 1);
+    let c = &cells[j];
+    c.start as f64 + (p - j as f64) * f64::from(c.count)
+}
+
+/// Find the switch train in the acquisition cells.
+fn acquire(cells: &[Cell], expected: Option<f64>) -> Option<(Acquired, Feature)> {
+    if cells.len() < 16 {
+        return None;
+    }
+    let span = (cells[cells.len() - 1].start - cells[0].start) as f64;
+    let spacing = span / (cells.len() - 1) as f64;
+    let mut best: Option<(Acquired, Feature)> = None;
+    for k in STEP_CELLS {
+        // a dwell of at least four step windows must fit MIN_DWELLS times
+        if (cells.len() as f64) < MIN_DWELLS * 4.0 * k as f64 {
+            break;
+        }
+        let feature = Feature::learn(cells, k);
+        let values: Vec<f32> = (0..cells.len()).map(|j| feature.at(cells, j) as f32).collect();
+        let values = match expected {
+            // keep the lag search below twice the expected dwell
+            Some(d) => {
+                let keep = ((2.0 * d / spacing) as usize * 8).max(64);
+                values[..values.len().min(keep * k)].to_vec()
+            }
+            None => values,
+        };
+        let Some((fit, significance)) = find_events(&values, k) else { continue };
+        if best.as_ref().is_some_and(|b| b.0.significance >= significance) {
+            continue;
+        }
+        let found = Acquired {
+            dwell: fit.slope * spacing,
+            dwell_within: 4.0 * fit.slope_se * spacing,
+            switch_at: position(cells, fit.intercept),
+            switch_within: (4.0 * fit.intercept_se + 1.0) * spacing,
+            events: fit.used,
+            step_cells: k,
+            significance,
+        };
+        best = Some((found, feature));
+    }
+    best
+}
+
+/// Tracking state after acquisition.
+struct Track {
+    feature: Feature,
+    /// Predicted next switch instant and the dwell, in samples.
+    next: f64,
+    dwell: f64,
+    /// Number of the next switch (dwell `k` belongs to lobe `(k + lobe_shift) mod N`).
+    k: i64,
+    lobe_shift: i64,
+    missed: u64,
+    /// Four standard errors of the acquired dwell (how fast a coasted phase strays).
+    dwell_within: f64,
+    /// Whether the loss was said (until a switch is seen again).
+    lost: bool,
+    /// Cells kept for the windows still to be judged.
+    cells: VecDeque<Cell>,
+}
+
+enum Stage {
+    Acquiring(Vec<Cell>),
+    Tracking(Box<Track>),
+}
+
+/// Switch instants from amplitude steps and transients; see the module doc.
+pub struct SwitchFinder {
+    settings: FinderSettings,
+    stage: Stage,
+    /// The cell being summed (fixed-size cells).
+    open: Option<Cell>,
+    started: bool,
+    next_index: u64,
+    acquired: Option<Acquired>,
+    events: VecDeque<SwitchEvent>,
+    /// Switches seen since tracking began.
+    seen: usize,
+}
+
+impl SwitchFinder {
+    pub fn new(settings: FinderSettings) -> SwitchFinder {
+        SwitchFinder {
+            settings,
+            stage: Stage::Acquiring(Vec::new()),
+            open: None,
+            started: false,
+            next_index: 0,
+            acquired: None,
+            events: VecDeque::new(),
+            seen: 0,
+        }
+    }
+
+    pub fn acquiring(&self) -> bool {
+        matches!(self.stage, Stage::Acquiring(_))
+    }
+
+    /// What acquisition found.
+    pub fn acquired(&self) -> Option<&Acquired> {
+        self.acquired.as_ref()
+    }
+
+    /// Switches seen (not coasted over) since tracking began.
+    pub fn seen(&self) -> usize {
+        self.seen
+    }
+
+    /// Cells of the samples `[index, index + powers.len())`.
+    fn cells_of(&mut self, index: u64, powers: impl Iterator<Item = f64>, out: &mut Vec<Cell>) {
+        let size = self.settings.cell as u64;
+        if size == 0 {
+            let mut cell = Cell { start: index, count: 0, energy: 0.0, peak: 0.0 };
+            for p in powers {
+                cell.count += 1;
+                cell.energy += p;
+                cell.peak = cell.peak.max(p);
+            }
+            if cell.count > 0 {
+                out.push(cell);
+            }
+            return;
+        }
+        for (n, p) in (index..).zip(powers) {
+            let start = n - n % size;
+            let cell = match &mut self.open {
+                Some(c) if c.start == start => c,
+                open => {
+                    if let Some(done) = open.take() {
+                        out.push(done);
+                    }
+                    open.insert(Cell { start, count: 0, energy: 0.0, peak: 0.0 })
+                }
+            };
+            cell.count += 1;
+            cell.energy += p;
+            cell.peak = cell.peak.max(p);
+        }
+        if self.open.is_some_and(|c| u64::from(c.count) == size) {
+            out.extend(self.open.take());
+        }
+    }
+
+    /// Collect samples for acquisition; true once enough are in.
+    pub fn acquire_from(&mut self, index: u64, powers: impl Iterator<Item = f64>) -> bool {
+        let mut fresh = Vec::new();
+        self.cells_of(index, powers, &mut fresh);
+        if let Stage::Acquiring(cells) = &mut self.stage {
+            cells.extend(fresh);
+            let span = cells.last().map_or(0, |c| c.start + u64::from(c.count)) - cells.first().map_or(0, |c| c.start);
+            span >= self.settings.acquire as u64
+        } else {
+            true
+        }
+    }
+
+    /// Fit the switch train to what was collected and start tracking at `first` (the first sample).
+    pub fn end_acquisition(&mut self, first: u64) -> Result<&Acquired, String> {
+        let Stage::Acquiring(cells) = &mut self.stage else {
+            return self.acquired.as_ref().ok_or_else(|| "switch finder has no acquisition".to_string());
+        };
+        cells.extend(self.open.take());
+        let Some((found, feature)) = acquire(cells, self.settings.expected_dwell) else {
+            let seen = cells.last().map_or(0, |c| c.start + u64::from(c.count)) - cells.first().map_or(0, |c| c.start);
+            return Err(format!(
+                "timing 'signal' found no regular switch train (amplitude steps or switch transients) in the first \
+                 {seen} samples; lengthen 'learn' to hold at least {MIN_DWELLS} dwells, or give the schedule (timing: schedule)"
+            ));
+        };
+        let known = &self.settings.known;
+        let lobes = self.settings.names.len() as i64;
+        let dwell_of = |at: f64| ((at - found.switch_at) / found.dwell).floor() as i64;
+        let lobe_shift = (known.lobe as i64 - dwell_of(known.at)).rem_euclid(lobes);
+        let k = dwell_of(first as f64) + 1;
+        let next = found.switch_at + k as f64 * found.dwell;
+        self.stage = Stage::Tracking(Box::new(Track {
+            feature,
+            next,
+            dwell: found.dwell,
+            k,
+            lobe_shift,
+            missed: 0,
+            dwell_within: found.dwell_within.max(1e-6),
+            lost: false,
+            cells: VecDeque::new(),
+        }));
+        self.acquired = Some(found);
+        Ok(self.acquired.as_ref().expect("just set"))
+    }
+
+    /// Feed the samples from `index` on (each sample's power); samples already seen are skipped.
+    pub fn feed(&mut self, index: u64, powers: &[f64]) {
+        let skip = self.next_index.saturating_sub(index).min(powers.len() as u64) as usize;
+        let index = index + skip as u64;
+        let powers = &powers[skip..];
+        if powers.is_empty() {
+            return;
+        }
+        self.next_index = index + powers.len() as u64;
+        let mut fresh = Vec::new();
+        self.cells_of(index, powers.iter().copied(), &mut fresh);
+        let lobes = self.settings.names.len() as i64;
+        let Stage::Tracking(track) = &mut self.stage else { return };
+        if !self.started {
+            self.started = true;
+            let switch_at = track.next - track.dwell;
+            let lobe = (track.k - 1 + track.lobe_shift).rem_euclid(lobes) as usize;
+            self.events.push_back(SwitchEvent::Begin { at: index, lobe, switch_at: Some(switch_at.ceil() as i64) });
+        }
+        track.cells.extend(fresh);
+        while track.judge_next(lobes, &mut self.seen, &mut self.events) {}
+    }
+
+    /// Every sample before this index has its lobe decided.
+    pub fn settled(&self, fed_end: u64) -> u64 {
+        match &self.stage {
+            Stage::Tracking(t) => (t.next - t.reach()).floor().max(0.0).min(fed_end as f64) as u64,
+            Stage::Acquiring(_) => 0,
+        }
+    }
+
+    /// At the end of the stream: the switches still pending are placed where predicted.
+    pub fn finish(&mut self, end: u64) {
+        let lobes = self.settings.names.len() as i64;
+        if let Stage::Tracking(t) = &mut self.stage {
+            while t.next < end as f64 {
+                let at = t.next.ceil() as u64;
+                let lobe = (t.k + t.lobe_shift).rem_euclid(lobes) as usize;
+                self.events.push_back(SwitchEvent::Switch { at, lobe });
+                t.next += t.dwell;
+                t.k += 1;
+            }
+        }
+    }
+
+    pub fn pop_event(&mut self) -> Option<SwitchEvent> {
+        self.events.pop_front()
+    }
+
+    /// The dwell being tracked now, in samples.
+    pub fn dwell(&self) -> Option<f64> {
+        match &self.stage {
+            Stage::Tracking(t) => Some(t.dwell),
+            Stage::Acquiring(_) => None,
+        }
+    }
+}
+
+impl Track {
+    /// Half-width of the search about a predicted switch: a quarter dwell.
+    fn reach(&self) -> f64 {
+        self.dwell / 4.0
+    }
+
+    fn cell_span(&self) -> f64 {
+        self.cells.front().map_or(1.0, |c| f64::from(c.count.max(1)))
+    }
+
+    /// Judge the next predicted switch once the cells around it are in;
+    /// false when they are not in yet.
+    fn judge_next(&mut self, lobes: i64, seen: &mut usize, events: &mut VecDeque<SwitchEvent>) -> bool {
+        let margin = self.reach() + (self.feature.cells + 1) as f64 * self.cell_span();
+        let Some(last) = self.cells.back() else { return false };
+        if ((last.start + u64::from(last.count)) as f64) < self.next + margin {
+            return false;
+        }
+        // drop what no window will need again
+        while self.cells.front().is_some_and(|c| (c.start as f64) < self.next - margin) {
+            self.cells.pop_front();
+        }
+        let (lo, hi) = (self.next - self.reach(), self.next + self.reach());
+        let feature = self.feature;
+        let cells = self.cells.make_contiguous();
+        let window: Vec<(usize, f64)> = (0..cells.len())
+            .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
+            .map(|j| (j, feature.at(cells, j)))
+            .collect();
+        let at = match locate(cells, &window) {
+            Some(observed) => {
+                let error = (observed - self.next).clamp(-self.reach(), self.reach());
+                self.dwell += BETA * error;
+                if self.missed >= COAST_NOTE {
+                    let what = format!("switch train seen again after {} dwells without a switch", self.missed);
+                    events.push_back(SwitchEvent::Note { at: observed.max(0.0) as u64, what });
+                }
+                self.missed = 0;
+                self.lost = false;
+                *seen += 1;
+                self.next + ALPHA * error
+            }
+            None => {
+                self.missed += 1;
+                self.next
+            }
+        };
+        let lobe = (self.k + self.lobe_shift).rem_euclid(lobes) as usize;
+        let here = at.ceil().max(0.0) as u64;
+        events.push_back(SwitchEvent::Switch { at: here, lobe });
+        if self.missed == COAST_NOTE {
+            // the timeline shows it; no warning: a target on the boresight hides the steps
+            let what = format!("no switch seen for {COAST_NOTE} dwells: following the tracked dwell");
+            events.push_back(SwitchEvent::Note { at: here, what });
+        }
+        // coasting, the phase may stray by the dwell's error once per dwell
+        if !self.lost && self.missed as f64 * self.dwell_within > self.dwell / 8.0 {
+            self.lost = true;
+            let what = format!(
+                "lost the switch train: no switch seen for {} dwells, so the switch instants may be off by more than \
+                 an eighth of a dwell ({} samples) from here on",
+                self.missed,
+                (self.dwell / 8.0).round()
+            );
+            events.push_back(SwitchEvent::Irregular { at: here, kind: Irregularity::LockLost, what });
+        }
+        self.next = at + self.dwell;
+        self.k += 1;
+        true
+    }
+}
+
+/// The switch's position (samples) in a window of (cell, feature) pairs:
+/// the centroid of the peak, when it stands out of the window's median.
+fn locate(cells: &[Cell], window: &[(usize, f64)]) -> Option<f64> {
+    if window.len() < 3 {
+        return None;
+    }
+    let mut sorted: Vec<f64> = window.iter().map(|w| w.1).collect();
+    sorted.sort_by(f64::total_cmp);
+    let median = sorted[sorted.len() / 2];
+    let (at, peak) =
+        window.iter().enumerate().fold((0, f64::NEG_INFINITY), |a, (i, w)| if w.1 > a.1 { (i, w.1) } else { a });
+    if peak - median < DETECT_SD {
+        return None;
+    }
+    let (mut num, mut den) = (0.0, 0.0);
+    for &(j, v) in window.iter().skip(at.saturating_sub(1)).take(3) {
+        let w = (v - median).max(0.0);
+        num += w * position(cells, j as f64);
+        den += w;
+    }
+    (den > 0.0).then(|| num / den)
+}
