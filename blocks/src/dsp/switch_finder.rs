@@ -16,7 +16,7 @@
 //! instant. Derivation and limits in docs/derivations.md ("Switch timing
 //! from the signal").
 
-use super::event_period::find_events;
+use super::event_period::{find_events, line_fit};
 use super::switch_sync::{Irregularity, SwitchEvent};
 use std::collections::VecDeque;
 use std::sync::Arc;
@@ -53,8 +53,6 @@ pub struct FinderSettings {
     pub acquire: usize,
     /// Samples per cell; 0 makes every fed piece one cell (sweeps).
     pub cell: usize,
-    /// Dwell length when roughly known (limits the search to twice it).
-    pub expected_dwell: Option<f64>,
     pub known: KnownLobe,
 }
 
@@ -165,12 +163,10 @@ fn position(cells: &[Cell], p: f64) -> f64 {
 }
 
 /// Find the switch train in the acquisition cells.
-fn acquire(cells: &[Cell], expected: Option<f64>) -> Option<(Acquired, Feature)> {
+fn acquire(cells: &[Cell]) -> Option<(Acquired, Feature)> {
     if cells.len() < 16 {
         return None;
     }
-    let span = (cells[cells.len() - 1].start - cells[0].start) as f64;
-    let spacing = span / (cells.len() - 1) as f64;
     let mut best: Option<(Acquired, Feature)> = None;
     for k in STEP_CELLS {
         // a dwell of at least four step windows must fit MIN_DWELLS times
@@ -179,30 +175,63 @@ fn acquire(cells: &[Cell], expected: Option<f64>) -> Option<(Acquired, Feature)>
         }
         let feature = Feature::learn(cells, k);
         let values: Vec<f32> = (0..cells.len()).map(|j| feature.at(cells, j) as f32).collect();
-        let values = match expected {
-            // keep the lag search below twice the expected dwell
-            Some(d) => {
-                let keep = ((2.0 * d / spacing) as usize * 8).max(64);
-                values[..values.len().min(keep * k)].to_vec()
-            }
-            None => values,
-        };
         let Some((fit, significance)) = find_events(&values, k) else { continue };
         if best.as_ref().is_some_and(|b| b.0.significance >= significance) {
             continue;
         }
-        let found = Acquired {
-            dwell: fit.slope * spacing,
-            dwell_within: 4.0 * fit.slope_se * spacing,
-            switch_at: position(cells, fit.intercept),
-            switch_within: (4.0 * fit.intercept_se + 1.0) * spacing,
-            events: fit.used,
-            step_cells: k,
-            significance,
-        };
+        let spacing = (cells[cells.len() - 1].start - cells[0].start) as f64 / (cells.len() - 1) as f64;
+        let coarse = (fit.slope * spacing, position(cells, fit.intercept));
+        let Some(found) = refine(cells, &feature, coarse, k, significance) else { continue };
         best = Some((found, feature));
     }
     best
+}
+
+/// Each switch of the coarse train (dwell, a switch instant) located in the
+/// acquisition cells, and a line through them: the dwell and a switch
+/// instant with standard errors from the scatter (twice: the first line
+/// from the first quarter, where a coarse dwell has not strayed yet).
+fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, significance: f64) -> Option<Acquired> {
+    let (mut dwell, mut origin) = coarse;
+    let end = (cells[cells.len() - 1].start + u64::from(cells[cells.len() - 1].count)) as f64;
+    let spacing = (end - cells[0].start as f64) / cells.len() as f64;
+    let mut fit = None;
+    for share in [0.25, 1.0] {
+        let first = cells[0].start as f64 + (k + 1) as f64 * spacing;
+        let last = cells[0].start as f64 + share * (end - cells[0].start as f64) - (k + 1) as f64 * spacing;
+        let mut points = Vec::new();
+        let mut n = ((first - origin) / dwell).ceil() as i64;
+        while origin + n as f64 * dwell <= last {
+            let centre = origin + n as f64 * dwell;
+            let (lo, hi) = (centre - dwell / 4.0, centre + dwell / 4.0);
+            let window: Vec<(usize, f64)> = (0..cells.len())
+                .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
+                .map(|j| (j, feature.at(cells, j)))
+                .collect();
+            if let Some(at) = locate(cells, &window) {
+                points.push((n as f64, at));
+            }
+            n += 1;
+        }
+        let line = line_fit(&points, 2.0 * spacing)?;
+        (dwell, origin) = (line.slope, line.intercept);
+        fit = Some(line);
+    }
+    let fit = fit?;
+    if fit.used < 8 {
+        return None;
+    }
+    // the instant of the first switch in the stretch, and its error there
+    let n0 = ((cells[0].start as f64 - fit.intercept) / fit.slope).ceil();
+    Some(Acquired {
+        dwell: fit.slope,
+        dwell_within: 4.0 * fit.slope_se,
+        switch_at: fit.intercept + n0 * fit.slope,
+        switch_within: 4.0 * (fit.intercept_se.powi(2) + (n0 * fit.slope_se).powi(2)).sqrt() + spacing,
+        events: fit.used,
+        step_cells: k,
+        significance,
+    })
 }
 
 /// Tracking state after acquisition.
@@ -324,7 +353,7 @@ impl SwitchFinder {
             return self.acquired.as_ref().ok_or_else(|| "switch finder has no acquisition".to_string());
         };
         cells.extend(self.open.take());
-        let Some((found, feature)) = acquire(cells, self.settings.expected_dwell) else {
+        let Some((found, feature)) = acquire(cells) else {
             let seen = cells.last().map_or(0, |c| c.start + u64::from(c.count)) - cells.first().map_or(0, |c| c.start);
             return Err(format!(
                 "timing 'signal' found no regular switch train (amplitude steps or switch transients) in the first \
@@ -496,11 +525,107 @@ fn locate(cells: &[Cell], window: &[(usize, f64)]) -> Option<f64> {
     if peak - median < DETECT_SD {
         return None;
     }
+    // A cell's step is across its start, and the switch lies in the cell
+    // before (its transient too): on average half a cell before that start.
     let (mut num, mut den) = (0.0, 0.0);
     for &(j, v) in window.iter().skip(at.saturating_sub(1)).take(3) {
         let w = (v - median).max(0.0);
-        num += w * position(cells, j as f64);
+        let half = j.checked_sub(1).map_or(0.0, |i| f64::from(cells[i].count) / 2.0);
+        num += w * (position(cells, j as f64) - half);
         den += w;
     }
     (den > 0.0).then(|| num / den)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dsp::rng::Rng;
+
+    fn names() -> Vec<Arc<str>> {
+        vec![Arc::from("left"), Arc::from("right")]
+    }
+
+    /// Power of a two-lobe signal: lobe gains 1.0 and 1.6 over unit noise,
+    /// a dwell of `dwell` samples from `first`, a 6-sample transient at each
+    /// switch except those in `hidden`, and a stray transient at `extra`.
+    fn powers(n: usize, dwell: f64, first: f64, seed: u64, hidden: &[i64], extra: usize) -> Vec<f64> {
+        let mut rng = Rng::new(seed);
+        let mut p: Vec<f64> = (0..n)
+            .map(|i| {
+                let k = ((i as f64 - first) / dwell).floor() as i64;
+                let gain = if k.rem_euclid(2) == 0 { 1.0 } else { 1.6 };
+                let (re, im) = (gain + rng.gaussian() * 0.7, rng.gaussian() * 0.7);
+                re * re + im * im
+            })
+            .collect();
+        let mut k = ((0.0 - first) / dwell).ceil() as i64;
+        while first + k as f64 * dwell < n as f64 - 6.0 {
+            let at = (first + k as f64 * dwell).ceil() as usize;
+            if !hidden.contains(&k) {
+                p[at..at + 6].iter_mut().for_each(|v| *v += 25.0);
+            }
+            k += 1;
+        }
+        p[extra..extra + 6].iter_mut().for_each(|v| *v += 25.0);
+        p
+    }
+
+    fn finder(known_at: f64) -> SwitchFinder {
+        SwitchFinder::new(FinderSettings {
+            names: names(),
+            acquire: 40_000,
+            cell: 4,
+            known: KnownLobe { lobe: 0, at: known_at, source: "test".into() },
+        })
+    }
+
+    #[test]
+    fn finds_dwell_and_phase_and_follows_through_missed_and_extra_switches() {
+        let (dwell, first) = (160.4, 57.3);
+        let p = powers(200_000, dwell, first, 5, &[300, 301, 302, 500], 100_000 + 80);
+        let mut f = finder(first + 10.0);
+        assert!(f.acquire_from(0, p[..50_000].iter().copied()));
+        let found = f.end_acquisition(0).unwrap().clone();
+        assert!((found.dwell - dwell).abs() <= found.dwell_within.max(0.05), "{found:?}");
+        let phase = (found.switch_at - first).rem_euclid(dwell);
+        let phase = phase.min(dwell - phase);
+        assert!(phase <= found.switch_within, "{found:?}");
+        for chunk in (0..p.len()).step_by(7_000) {
+            f.feed(chunk as u64, &p[chunk..(chunk + 7_000).min(p.len())]);
+        }
+        f.finish(p.len() as u64);
+        let events: Vec<SwitchEvent> = std::iter::from_fn(|| f.pop_event()).collect();
+        let SwitchEvent::Begin { at: 0, lobe: 1, switch_at: Some(before) } = events[0] else {
+            panic!("{:?}", events[0])
+        };
+        assert!((before as f64 - (first - dwell)).abs() <= 4.0, "{before}");
+        let mut switches = 0;
+        let mut errs = Vec::new();
+        for e in &events {
+            if let SwitchEvent::Switch { at, lobe } = e {
+                let k = ((*at as f64 - first) / dwell).round();
+                errs.push(*at as f64 - (first + k * dwell));
+                assert_eq!(*lobe as i64, (k as i64).rem_euclid(2), "{e:?}");
+                switches += 1;
+            }
+            assert!(!matches!(e, SwitchEvent::Irregular { .. }), "{e:?}");
+        }
+        let mean = errs.iter().sum::<f64>() / errs.len() as f64;
+        let worst = errs.iter().fold(0.0f64, |a, e| a.max(e.abs()));
+        // good to a cell (4 samples) on average, two at worst
+        assert!(mean.abs() <= 4.0 && worst <= 8.0, "mean {mean} worst {worst} {errs:?}");
+        assert_eq!(switches, ((200_000.0 - first) / dwell).floor() as usize + 1);
+        assert!(f.seen() > switches - 10);
+    }
+
+    #[test]
+    fn noise_alone_is_no_switch_train() {
+        let mut rng = Rng::new(9);
+        let p: Vec<f64> = (0..50_000).map(|_| rng.gaussian().powi(2) + rng.gaussian().powi(2)).collect();
+        let mut f = finder(0.0);
+        f.acquire_from(0, p.iter().copied());
+        let e = f.end_acquisition(0).unwrap_err();
+        assert!(e.contains("no regular switch train") && e.contains("'learn'"), "{e}");
+    }
 }

@@ -831,7 +831,7 @@ mod tests {
                         None => break,
                         Some(SwitchEvent::Switch { .. }) => switches += 1,
                         Some(SwitchEvent::Irregular { .. }) => notices += 1,
-                        Some(SwitchEvent::Begin { .. }) => {}
+                        Some(SwitchEvent::Begin { .. } | SwitchEvent::Note { .. }) => {}
                     }
                 }
                 at += len;
