@@ -221,11 +221,24 @@ impl<P: SwitchPiece> SwitchDriver<P> {
         let Some(found) = self.check.as_mut().and_then(ScheduleCheck::finish) else {
             return;
         };
+        let ms = |samples: f64| format_ms(samples / stamp.rate);
+        if let Some(dwell) = found.drift_dwell {
+            let scheduled = self.check.as_ref().map_or(dwell, ScheduleCheck::dwell);
+            let per_dwell = (dwell - scheduled) / stamp.rate * 1e6;
+            let what = format!(
+                "the amplitude steps drift against the scheduled switches by {per_dwell:.2} us per dwell \
+                 (standard score {:.0}): dwell ≈ {} ms and first_start ≈ {}?",
+                found.score,
+                fine_ms(dwell / stamp.rate),
+                ms(found.first_start)
+            );
+            self.router.irregular(out, stamp, Irregularity::Schedule, what);
+            return;
+        }
         let whole = found.dwells.unwrap_or(0);
         if whole == 0 && found.offset.abs() <= self.guard as f64 {
             return; // inside the guard: those samples are left out anyway
         }
-        let ms = |samples: f64| format_ms(samples / stamp.rate);
         let mut seen = Vec::new();
         if whole != 0 {
             seen.push(format!("the sync levels fit the lobe labels shifted by {whole} dwell(s)"));
@@ -268,6 +281,11 @@ fn format_ms(seconds: f64) -> String {
     let text = format!("{:.3}", seconds * 1e3);
     let text = text.trim_end_matches('0').trim_end_matches('.');
     format!("{text} ms")
+}
+
+/// Seconds as milliseconds to the tenth of a microsecond (a dwell that drifts).
+fn fine_ms(seconds: f64) -> String {
+    format!("{:.4}", seconds * 1e3)
 }
 
 /// Median spacing of consecutive piece starts (transmit instants), in samples.
