@@ -13,10 +13,11 @@
 //!   outputs as an enum whose variants are the port handles.
 
 use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use crate::dsp::discriminator::LobePair;
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
 use crate::item::Item;
-use crate::param::{ParamSpec, ParamType, Params, Value, distance_in_bins, time_in_samples};
+use crate::param::{ParamSpec, ParamType, Params, Value, distance_in_bins, range_bin_m, time_in_samples};
 use std::path::PathBuf;
 
 /// A block written against the typed API.
@@ -192,6 +193,13 @@ impl FromParam for Vec<String> {
     }
 }
 
+/// Lobe pairs, read when the graph was.
+impl FromParam for Vec<LobePair> {
+    fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError> {
+        p.lobe_pairs(spec.name).map(<[LobePair]>::to_vec)
+    }
+}
+
 /// The checked value as it is, for parameter languages parsed at resolve time.
 impl FromParam for Value {
     fn from_param(p: &Params, spec: &ParamSpec) -> Result<Self, ParamError> {
@@ -222,6 +230,10 @@ impl TimeSetting {
     pub fn is_zero(&self) -> bool {
         matches!(self.value, Value::Seconds(x) | Value::Samples(x) | Value::Pulses(x) | Value::Number(x) if x == 0.0)
     }
+    /// True when given in pulses: it needs the pulse interval.
+    pub fn in_pulses(&self) -> bool {
+        matches!(self.value, Value::Pulses(_))
+    }
 }
 
 impl FromParam for TimeSetting {
@@ -244,9 +256,20 @@ impl DistanceSetting {
     pub fn value(&self) -> &Value {
         &self.value
     }
+    /// The parameter's name, for messages.
+    pub fn name(&self) -> &'static str {
+        self.name
+    }
     /// The distance as a fractional count of range bins at `rate`.
     pub fn bins(&self, rate: f64) -> Result<f64, ParamError> {
         distance_in_bins(self.name, &self.value, Some(&self.ty), rate)
+    }
+    /// The distance in metres; a count of bins is converted at `rate`.
+    pub fn metres(&self, rate: f64) -> Result<f64, ParamError> {
+        match self.value {
+            Value::Metres(m) | Value::Number(m) => Ok(m),
+            _ => Ok(self.bins(rate)? * range_bin_m(rate)),
+        }
     }
     /// True for a zero distance in any unit.
     pub fn is_zero(&self) -> bool {
@@ -281,7 +304,7 @@ pub fn choice_from_param<C: Choice>(p: &Params, spec: &ParamSpec) -> Result<C, P
 }
 
 /// A block's input or output ports (see [`block_ports!`](crate::block_ports)).
-pub trait PortSet: Copy + 'static {
+pub trait PortSet: Copy + Send + Sync + 'static {
     const SPECS: &'static [PortSpec];
     fn from_index(index: usize) -> Option<Self>;
 }

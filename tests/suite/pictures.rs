@@ -3,11 +3,11 @@
 //! byte, and the circular formatter reads synthesized echo ranges back.
 
 use lobeflow::blocks::pictures::accum::{BinWindow, SweepAverage};
-use lobeflow::blocks::pictures::circular_sweep::Scene;
+use lobeflow::blocks::pictures::circular_sweep::{CircularSweepSettings, Scene};
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::{
     AngleEstimate, BlockSpec, BuildContext, Cell, FileStager, Flag, Item, LobeSegment, LobeTag, Notice, Outputs,
-    Params, RawValue, SampleChunk, Stamp, Sweep, range_bin_m,
+    Params, RawValue, SampleChunk, Settings, Stamp, Sweep, range_bin_m,
 };
 use num_complex::Complex32;
 use std::collections::BTreeSet;
@@ -168,11 +168,12 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
     let bin = range_bin_m(RATE);
     let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
     let p = params(&spec, &[("range_start", "2 km"), ("range_end", "72 km"), ("revolutions", "7")]);
+    let settings = CircularSweepSettings::from_params(&p).unwrap();
     let mut rng = Rng::new(5);
     for (i, &truth_m) in [4_321.0, 12_345.0, 29_999.0, 33_000.7, 51_800.0, 70_002.5].iter().enumerate() {
         let echo_bin = truth_m / bin;
         let first = sweep(&mut rng, 0, echo_bin, 2.5, None);
-        let window = BinWindow::from_params(&p, "range_start", "range_end", &first).unwrap();
+        let window = BinWindow::from_settings(&settings.range_start, &settings.range_end, &first).unwrap();
         let mut avg = SweepAverage::new(window, 0, first.stamp);
         avg.add(&first).unwrap();
         for k in 1..40 {
@@ -283,18 +284,7 @@ fn split_pair_prints_the_balance_of_each_pair() {
 fn split_pair_balance_matches_the_gaussian_check_value() {
     use lobeflow::blocks::pictures::split_pair::balance_db;
     let sweeps = labelled_sweeps(32, 700.0, false);
-    let p = params(&lobeflow::blocks::pictures::split_pair::SPEC, &[]);
-    let window = BinWindow::from_params(
-        &{
-            let mut q = p.clone();
-            q.insert("a", lobeflow_blocks::Value::Metres(0.0));
-            q
-        },
-        "a",
-        "a",
-        &sweeps[0],
-    )
-    .unwrap();
+    let window = BinWindow::from_bins(0.0, sweeps[0].iq.len() as f64, &sweeps[0]).unwrap();
     let mut right = SweepAverage::new(window, 0, sweeps[0].stamp);
     let mut left = SweepAverage::new(window, 0, sweeps[0].stamp);
     for s in &sweeps {

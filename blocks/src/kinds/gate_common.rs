@@ -8,13 +8,14 @@
 //! decided yet, turning switch events into the lobe in force and its guard,
 //! and routing notices. A gate only says how it releases settled pieces.
 
-use crate::block::{Block, BlockError, Outputs};
+use crate::block::{BlockError, BuildContext, Outputs};
 use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
 use crate::dsp::timing_check::ScheduleCheck;
+use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, Notice, SampleChunk, Severity, Stamp, Sweep};
-use crate::param::{ParamSpec, ParamType, Params, Unit, Value};
-use crate::typed::FromParam;
+use crate::param::{ParamSpec, ParamType, Params, Unit};
+use crate::typed::{FromParam, OutputPort, PortSet, Settings, TimeSetting, TypedBlock};
 use num_complex::Complex32;
 use std::collections::VecDeque;
 use std::sync::Arc;
@@ -78,18 +79,18 @@ pub struct LobeInForce {
 const PRI_PIECES: usize = 9;
 
 /// The state both gates share; see the module doc.
-pub struct SwitchDriver<P> {
-    pub cfg: GateConfig,
-    pub router: NoticeRouter,
+pub struct SwitchDriver<K: GateKind> {
+    pub cfg: GateSettings,
+    pub router: NoticeRouter<K::Out>,
     source: Option<SwitchSync>,
     /// Samples left out after each switch instant.
     pub guard: u64,
     /// Pieces held while the pulse interval or the sync levels are learned.
-    startup: Vec<P>,
+    startup: Vec<K::Piece>,
     /// How many of `startup` went into the level learning.
     learned: usize,
     /// Pieces whose lobe is not decided yet (bounded by the tracker's hold).
-    pub pending: VecDeque<P>,
+    pub pending: VecDeque<K::Piece>,
     fed_end: u64,
     /// Switch instants (sample, new lobe) not yet reached by the released pieces.
     pub switches: VecDeque<(u64, usize)>,
@@ -99,11 +100,11 @@ pub struct SwitchDriver<P> {
     check: Option<ScheduleCheck>,
 }
 
-impl<P: SwitchPiece> SwitchDriver<P> {
-    pub fn new(cfg: GateConfig, block: &str) -> Self {
+impl<K: GateKind> SwitchDriver<K> {
+    pub fn new(cfg: GateSettings, block: &str) -> Self {
         SwitchDriver {
             cfg,
-            router: NoticeRouter::new(block, 1),
+            router: NoticeRouter::new(block, K::NOTICES),
             source: None,
             guard: 0,
             startup: Vec::new(),
@@ -129,7 +130,7 @@ impl<P: SwitchPiece> SwitchDriver<P> {
     }
 
     pub fn lobe_name(&self, lobe: usize) -> Arc<str> {
-        Arc::clone(&self.cfg.names[lobe])
+        Arc::clone(&self.cfg.lobes[lobe])
     }
 
     fn running(&self) -> bool {
@@ -193,7 +194,7 @@ impl<P: SwitchPiece> SwitchDriver<P> {
         }
         source.end_learning().map_err(|e| BlockError::at(e, first.index))?;
         if let Some(levels) = source.levels() {
-            let list: Vec<String> = levels.iter().zip(&self.cfg.names).map(|(l, n)| format!("{n} {l:.3}")).collect();
+            let list: Vec<String> = levels.iter().zip(&self.cfg.lobes).map(|(l, n)| format!("{n} {l:.3}")).collect();
             out.inform(first, format!("learned sync levels: {}", list.join(", ")));
         }
         Ok(true)
@@ -201,7 +202,7 @@ impl<P: SwitchPiece> SwitchDriver<P> {
 
     /// Feed one piece to the switch source and hold it; returns the index
     /// before which every sample's lobe is decided.
-    fn feed(&mut self, piece: P, out: &mut Outputs) -> Result<u64, BlockError> {
+    fn feed(&mut self, piece: K::Piece, out: &mut Outputs) -> Result<u64, BlockError> {
         let Some(source) = self.source.as_mut() else {
             return Ok(0);
         };
@@ -263,7 +264,7 @@ impl<P: SwitchPiece> SwitchDriver<P> {
         };
         let rate = self.pending.back().map_or(1.0, |s| s.stamp().rate);
         while let Some(event) = source.pop_event() {
-            self.router.report(out, &event, &self.cfg.names, rate);
+            self.router.report(out, &event, &self.cfg.lobes, rate);
             match event {
                 SwitchEvent::Begin { at, lobe, switch_at } => {
                     let dwell_start = switch_at.map_or(at, |s| s.max(0) as u64);
@@ -299,20 +300,29 @@ fn pulse_interval<P: SwitchPiece>(pieces: &[P]) -> Option<f64> {
     Some(gaps[gaps.len() / 2] as f64)
 }
 
-/// What makes a gate itself: which pieces it takes, and how it hands on the
-/// pieces whose lobe is decided.
-pub trait GateKind: Send + 'static {
+/// What makes a gate itself: its settings and ports, which pieces it takes,
+/// and how it hands on the pieces whose lobe is decided.
+pub trait GateKind: Send + Sized + 'static {
     type Piece: SwitchPiece;
-    /// Once the switch source is built, with the first piece's stamp.
+    /// The switch timing settings and the gate's own.
+    type Settings: Settings;
+    type In: PortSet;
+    type Out: PortSet + OutputPort;
+    /// The output that switch instants and irregularities go to.
+    const NOTICES: Self::Out;
+    /// Split the settings into the switch timing and the gate itself.
+    fn build(settings: Self::Settings) -> Result<(GateSettings, Self), BuildError>;
+    /// Once the stream's sample rate is known (before the run when the
+    /// capture's header tells it, and again at the first piece).
     fn start(&mut self, _first: Stamp) -> Result<(), BlockError> {
         Ok(())
     }
     /// Hand on the pending pieces (or parts of them) before sample `upto`.
-    fn release(&mut self, driver: &mut SwitchDriver<Self::Piece>, upto: u64, out: &mut Outputs);
+    fn release(&mut self, driver: &mut SwitchDriver<Self>, upto: u64, out: &mut Outputs);
     /// After the last release: the gate's own end-of-run checks and reports.
     fn finish(
         &mut self,
-        driver: &mut SwitchDriver<Self::Piece>,
+        driver: &mut SwitchDriver<Self>,
         last: Option<Stamp>,
         out: &mut Outputs,
     ) -> Result<(), BlockError>;
@@ -320,15 +330,11 @@ pub trait GateKind: Send + 'static {
 
 /// A gate: the shared driver plus what is specific to one kind.
 pub struct SwitchGate<K: GateKind> {
-    pub driver: SwitchDriver<K::Piece>,
+    pub driver: SwitchDriver<K>,
     pub kind: K,
 }
 
 impl<K: GateKind> SwitchGate<K> {
-    pub fn new(cfg: GateConfig, block: &str, kind: K) -> Self {
-        SwitchGate { driver: SwitchDriver::new(cfg, block), kind }
-    }
-
     fn run(&mut self, piece: K::Piece, out: &mut Outputs) -> Result<(), BlockError> {
         let upto = self.driver.feed(piece, out)?;
         self.kind.release(&mut self.driver, upto, out);
@@ -352,22 +358,42 @@ impl<K: GateKind> SwitchGate<K> {
     }
 }
 
-impl<K: GateKind> Block for SwitchGate<K> {
-    /// The gate names the lobes of what it hands on; sync timing needs a
-    /// sync channel, refused before the run when the capture has none.
+impl<K: GateKind> TypedBlock for SwitchGate<K> {
+    type Settings = K::Settings;
+    type In = K::In;
+    type Out = K::Out;
+
+    fn build(settings: K::Settings, ctx: &BuildContext) -> Result<Self, BuildError> {
+        let (timing, kind) = K::build(settings)?;
+        Ok(SwitchGate { driver: SwitchDriver::new(timing, &ctx.name), kind })
+    }
+
+    /// The gate names the lobes of what it hands on. Refused before the
+    /// run: sync timing on a capture without a sync channel, and times that
+    /// do not fit the stream's rate (when the rate, and for times in pulses
+    /// the pulse interval, are known).
     fn start(&mut self, facts: &Facts) -> Result<StreamFacts, BlockError> {
         let mut facts = facts.merged();
         let cfg = &self.driver.cfg;
-        if cfg.timing == SwitchTiming::Sync && facts.channels.is_some_and(|c| !c.sync) {
-            return Err(BlockError::new(
-                "parameter 'timing' is 'sync' but the capture has no sync channel; map one, or use timing: schedule",
-            ));
+        if cfg.timing.needs_sync_channel() && facts.channels.is_some_and(|c| !c.sync) {
+            return Err(BlockError::new(format!(
+                "parameter 'timing' is '{}' but the capture has no sync channel; map one, or use timing: schedule",
+                cfg.timing
+            )));
         }
-        facts.lobes = Some(cfg.names.iter().cloned().collect());
+        if let Some(rate) = facts.rate.filter(|r| *r > 0.0 && r.is_finite()) {
+            let pri = facts.pri_samples;
+            if !cfg.needs_pri() || pri.is_some() {
+                let (_, guard) = cfg.source(rate, pri).map_err(BlockError::new)?;
+                cfg.schedule_check(rate, pri, guard).map_err(BlockError::new)?;
+            }
+            self.kind.start(Stamp::new(0, rate))?;
+        }
+        facts.lobes = Some(self.driver.cfg.lobes.iter().cloned().collect());
         Ok(facts)
     }
 
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+    fn process(&mut self, _port: K::In, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(piece) = K::Piece::from_item(item) else {
             return Ok(());
         };
@@ -397,7 +423,10 @@ impl<K: GateKind> Block for SwitchGate<K> {
 }
 
 crate::block_choice! {
-    /// Where a gate learns the lobe timing.
+    /// Where a gate learns the lobe timing. A new way adds a variant here
+    /// and an arm in each `match` on it (the compiler lists them):
+    /// [`SwitchTiming::needs_sync_channel`], [`GateSettings::source`],
+    /// [`GateSettings::schedule_check`].
     pub enum SwitchTiming {
         /// From the recorded sync channel.
         Sync = "sync",
@@ -406,79 +435,168 @@ crate::block_choice! {
     }
 }
 
-/// The gate parameters, checked once at build time.
-pub struct GateConfig {
-    pub names: Vec<Arc<str>>,
-    pub timing: SwitchTiming,
-    params: Params,
+impl SwitchTiming {
+    /// Whether this timing reads the capture's sync channel.
+    pub fn needs_sync_channel(self) -> bool {
+        match self {
+            SwitchTiming::Sync => true,
+            SwitchTiming::Schedule => false,
+        }
+    }
 }
 
-/// Time parameters a gate converts to samples.
-const TIME_PARAMS: [&str; 5] = ["dwell", "first_start", "guard", "min_dwell", "learn"];
+/// The switch timing settings both gates share, checked once at build time.
+#[derive(Clone, Debug)]
+pub struct GateSettings {
+    /// Lobe names in switch order.
+    pub lobes: Vec<Arc<str>>,
+    pub timing: SwitchTiming,
+    pub dwell: TimeSetting,
+    pub first_start: TimeSetting,
+    pub guard: TimeSetting,
+    pub hysteresis: f64,
+    pub min_dwell: TimeSetting,
+    pub learn: TimeSetting,
+    pub tolerance: f64,
+}
 
-impl GateConfig {
-    pub fn from_params(p: &Params) -> Result<GateConfig, String> {
-        let list = p.names("lobes")?;
-        if list.len() < 2 {
-            return Err(format!("'lobes' needs at least two lobe names, got '{}'", list.join(",")));
-        }
-        for (i, a) in list.iter().enumerate() {
-            if list[..i].contains(a) {
-                return Err(format!("lobe name '{a}' appears twice in 'lobes'"));
-            }
-        }
-        let timing = SwitchTiming::from_param(p, &GATE_TIMING_PARAM)?;
-        if timing == SwitchTiming::Schedule
-            && p.get("dwell")
-                .is_some_and(|v| matches!(v, Value::Seconds(s) | Value::Samples(s) | Value::Pulses(s) if *s <= 0.0))
-        {
-            return Err("timing 'schedule' needs a 'dwell' longer than zero".into());
-        }
-        Ok(GateConfig { names: list.iter().map(|n| Arc::from(n.as_str())).collect(), timing, params: p.clone() })
+impl GateSettings {
+    /// The declarations of these settings; `pulses` lets times be given in
+    /// pulses (gates on sweeps, whose spacing gives the pulse interval).
+    pub const fn params(pulses: bool) -> [ParamSpec; 9] {
+        [
+            ParamSpec {
+                name: "lobes",
+                ty: ParamType::Names,
+                default: Some("up,right,down,left"),
+                doc: "lobe names in switch order; the i-th has the i-th lowest sync level",
+            },
+            ParamSpec {
+                name: "timing",
+                ty: ParamType::Choice(SwitchTiming::WORDS),
+                default: Some("sync"),
+                doc: "lobe timing from the sync channel, or from a known schedule",
+            },
+            ParamSpec {
+                name: "dwell",
+                ty: time(0.0, pulses),
+                default: Some("0 s"),
+                doc: "dwell length (schedule: required; sync: expected length, 0 = learn the median)",
+            },
+            ParamSpec {
+                name: "first_start",
+                ty: time(-3600.0, pulses),
+                default: Some("0 s"),
+                doc: "schedule: start of the first lobe's dwell (earlier samples belong to the previous lobes)",
+            },
+            ParamSpec {
+                name: "guard",
+                ty: time(0.0, pulses),
+                default: Some("20 us"),
+                doc: "time after each switch instant left out (switch transient)",
+            },
+            ParamSpec {
+                name: "hysteresis",
+                ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 0.45 },
+                default: Some("0.2"),
+                doc: "switch only when nearer another level by this fraction of the level spacing",
+            },
+            ParamSpec {
+                name: "min_dwell",
+                ty: time(0.0, pulses),
+                default: Some("100 us"),
+                doc: "a new sync level must hold this long to count as a switch (longer than a switch ramp)",
+            },
+            ParamSpec {
+                name: "learn",
+                ty: time(0.0, pulses),
+                default: Some("200 ms"),
+                doc: "sync data used to learn the levels: at least one full lobe cycle (at most 4 Mi samples)",
+            },
+            ParamSpec {
+                name: "tolerance",
+                ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 10.0 },
+                default: Some("0.25"),
+                doc: "relative dwell-length deviation reported as irregular",
+            },
+        ]
     }
 
-    /// True when a time parameter is given in pulses (the caller must know the PRI).
+    /// Read the settings [`GateSettings::params`] declares from the checked parameters.
+    pub fn read(p: &Params, pulses: bool) -> Result<GateSettings, ParamError> {
+        let [lobes, timing, dwell, first_start, guard, hysteresis, min_dwell, learn, tolerance] =
+            &GateSettings::params(pulses);
+        let names = Vec::<String>::from_param(p, lobes)?;
+        if names.len() < 2 {
+            return Err(ParamError::invalid(
+                "lobes",
+                format!("needs at least two lobe names, got '{}'", names.join(",")),
+            ));
+        }
+        if let Some((_, a)) = names.iter().enumerate().find(|(i, a)| names[..*i].contains(a)) {
+            return Err(ParamError::invalid("lobes", format!("lobe name '{a}' appears twice")));
+        }
+        let settings = GateSettings {
+            lobes: names.iter().map(|n| Arc::from(n.as_str())).collect(),
+            timing: SwitchTiming::from_param(p, timing)?,
+            dwell: TimeSetting::from_param(p, dwell)?,
+            first_start: TimeSetting::from_param(p, first_start)?,
+            guard: TimeSetting::from_param(p, guard)?,
+            hysteresis: f64::from_param(p, hysteresis)?,
+            min_dwell: TimeSetting::from_param(p, min_dwell)?,
+            learn: TimeSetting::from_param(p, learn)?,
+            tolerance: f64::from_param(p, tolerance)?,
+        };
+        if settings.timing == SwitchTiming::Schedule && settings.dwell.is_zero() {
+            return Err(ParamError::invalid("dwell", "timing 'schedule' needs a 'dwell' longer than zero"));
+        }
+        Ok(settings)
+    }
+
+    fn times(&self) -> [&TimeSetting; 5] {
+        [&self.dwell, &self.first_start, &self.guard, &self.min_dwell, &self.learn]
+    }
+
+    /// True when a time is given in pulses (the caller must know the PRI).
     pub fn needs_pri(&self) -> bool {
-        TIME_PARAMS.iter().any(|n| matches!(self.params.get(n), Some(Value::Pulses(_))))
-    }
-
-    fn samples(&self, name: &str, rate: f64, pri: Option<f64>) -> Result<f64, String> {
-        Ok(self.params.samples_at(name, rate, pri)?)
+        self.times().iter().any(|t| t.in_pulses())
     }
 
     /// Schedule timing: the cross-check of the schedule against the signal.
     pub fn schedule_check(&self, rate: f64, pri: Option<f64>, guard: u64) -> Result<Option<ScheduleCheck>, String> {
-        if self.timing == SwitchTiming::Sync {
-            return Ok(None);
+        match self.timing {
+            SwitchTiming::Sync => Ok(None),
+            SwitchTiming::Schedule => {
+                let first_start = self.first_start.samples(rate, pri)?;
+                let dwell = self.dwell.samples(rate, pri)?;
+                Ok(Some(ScheduleCheck::new(self.lobes.len(), first_start, dwell, guard as f64)))
+            }
         }
-        let (first_start, dwell) = (self.samples("first_start", rate, pri)?, self.samples("dwell", rate, pri)?);
-        Ok(Some(ScheduleCheck::new(self.names.len(), first_start, dwell, guard as f64)))
     }
 
     /// The switch source and the guard length in samples, for a stream at `rate`.
     pub fn source(&self, rate: f64, pri: Option<f64>) -> Result<(SwitchSync, u64), String> {
-        let guard = self.samples("guard", rate, pri)?.round().max(0.0) as u64;
-        let dwell = self.samples("dwell", rate, pri)?;
+        let guard = self.guard.samples(rate, pri)?.round().max(0.0) as u64;
+        let dwell = self.dwell.samples(rate, pri)?;
         if dwell > 0.0 && guard as f64 >= dwell {
             return Err(format!(
                 "guard of {guard} samples is not shorter than the dwell of {dwell} samples at {rate} S/s; every sample would be left out"
             ));
         }
-        let source = if self.timing == SwitchTiming::Sync {
-            SwitchSync::from_sync(SyncSettings {
-                names: self.names.clone(),
-                learn: self.samples("learn", rate, pri)?.round().max(0.0) as usize,
-                hysteresis: self.params.num("hysteresis")?,
-                min_dwell: self.samples("min_dwell", rate, pri)?.round().max(1.0) as usize,
+        let source = match self.timing {
+            SwitchTiming::Sync => SwitchSync::from_sync(SyncSettings {
+                names: self.lobes.clone(),
+                learn: self.learn.samples(rate, pri)?.round().max(0.0) as usize,
+                hysteresis: self.hysteresis,
+                min_dwell: self.min_dwell.samples(rate, pri)?.round().max(1.0) as usize,
                 expected_dwell: (dwell > 0.0).then_some(dwell),
-                tolerance: self.params.num("tolerance")?,
-            })
-        } else {
-            SwitchSync::from_schedule(ScheduleSettings {
-                names: self.names.clone(),
-                first_start: self.samples("first_start", rate, pri)?,
+                tolerance: self.tolerance,
+            }),
+            SwitchTiming::Schedule => SwitchSync::from_schedule(ScheduleSettings {
+                names: self.lobes.clone(),
+                first_start: self.first_start.samples(rate, pri)?,
                 dwell,
-            })?
+            })?,
         };
         Ok((source, guard))
     }
@@ -486,14 +604,14 @@ impl GateConfig {
 
 /// Routes notices: every one to the optional notices port, the first few
 /// of each irregular kind also to the run report.
-pub struct NoticeRouter {
+pub struct NoticeRouter<O> {
     pub block: Arc<str>,
-    pub port: usize,
+    pub port: O,
     limiter: NoticeLimiter,
 }
 
-impl NoticeRouter {
-    pub fn new(block: &str, port: usize) -> NoticeRouter {
+impl<O: OutputPort> NoticeRouter<O> {
+    pub fn new(block: &str, port: O) -> NoticeRouter<O> {
         NoticeRouter { block: Arc::from(block), port, limiter: NoticeLimiter::default() }
     }
 
@@ -547,68 +665,6 @@ impl NoticeRouter {
 /// switches as bars and mark only the irregularities.
 pub fn is_switch_report(what: &str) -> bool {
     what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
-}
-
-const GATE_TIMING_PARAM: ParamSpec = ParamSpec {
-    name: "timing",
-    ty: ParamType::Choice(SwitchTiming::WORDS),
-    default: Some("sync"),
-    doc: "lobe timing from the sync channel, or from a known schedule",
-};
-
-/// The parameters of both gates; `pulses` lets times be given in pulses.
-pub const fn gate_params(pulses: bool) -> [ParamSpec; 9] {
-    [
-        ParamSpec {
-            name: "lobes",
-            ty: ParamType::Names,
-            default: Some("up,right,down,left"),
-            doc: "lobe names in switch order; the i-th has the i-th lowest sync level",
-        },
-        GATE_TIMING_PARAM,
-        ParamSpec {
-            name: "dwell",
-            ty: time(0.0, pulses),
-            default: Some("0 s"),
-            doc: "dwell length (schedule: required; sync: expected length, 0 = learn the median)",
-        },
-        ParamSpec {
-            name: "first_start",
-            ty: time(-3600.0, pulses),
-            default: Some("0 s"),
-            doc: "schedule: start of the first lobe's dwell (earlier samples belong to the previous lobes)",
-        },
-        ParamSpec {
-            name: "guard",
-            ty: time(0.0, pulses),
-            default: Some("20 us"),
-            doc: "time after each switch instant left out (switch transient)",
-        },
-        ParamSpec {
-            name: "hysteresis",
-            ty: ParamType::Number { unit: Unit::None, min: 0.0, max: 0.45 },
-            default: Some("0.2"),
-            doc: "switch only when nearer another level by this fraction of the level spacing",
-        },
-        ParamSpec {
-            name: "min_dwell",
-            ty: time(0.0, pulses),
-            default: Some("100 us"),
-            doc: "a new sync level must hold this long to count as a switch (longer than a switch ramp)",
-        },
-        ParamSpec {
-            name: "learn",
-            ty: time(0.0, pulses),
-            default: Some("200 ms"),
-            doc: "sync data used to learn the levels: at least one full lobe cycle (at most 4 Mi samples)",
-        },
-        ParamSpec {
-            name: "tolerance",
-            ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 10.0 },
-            default: Some("0.25"),
-            doc: "relative dwell-length deviation reported as irregular",
-        },
-    ]
 }
 
 const fn time(min_s: f64, pulses: bool) -> ParamType {

@@ -2,34 +2,49 @@
 //! recorded sync channel or a known switch schedule, leaving out a guard
 //! time after every switch instant.
 
-use super::gate_common::{GateConfig, GateKind, SwitchDriver, SwitchGate, gate_params};
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate};
+use crate::block::{BlockError, BlockSpec, Outputs};
+use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeSegment, LobeTag, SampleChunk, Stamp};
 use crate::param::{ParamSpec, Params};
+use crate::typed::Settings;
 
-const PARAMS: [ParamSpec; 9] = gate_params(false);
+pub const SPEC: BlockSpec = BlockSpec::typed::<SwitchGate<SegmentCutter>>(
+    "lobe_gate",
+    "Labels samples with the active lobe (from the sync staircase or a schedule) and hands them on as \
+     per-dwell segments without the guard time after each switch; reports irregular dwells, stuck or \
+     stray sync and lobes out of order.",
+);
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "lobe_gate",
-    doc: "Labels samples with the active lobe (from the sync staircase or a schedule) and hands them on as \
-          per-dwell segments without the guard time after each switch; reports irregular dwells, stuck or \
-          stray sync and lobes out of order.",
-    inputs: &[PortSpec::required("samples", ItemKind::Samples, "capture chunks (with a sync channel for sync timing)")],
-    outputs: &[
-        PortSpec::optional("segments", ItemKind::Segment, "lobe segments; the last of each dwell is marked"),
-        PortSpec::optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
-    ],
-    params: &PARAMS,
-    build,
-};
+crate::block_ports! {
+    inputs pub enum LobeGateIn {
+        Samples = required("samples", ItemKind::Samples, "capture chunks (with a sync channel for sync timing)"),
+    }
+}
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
-    let kind = SegmentCutter { dwell: 0, held: None, switches_seen: 0, segments_out: 0 };
-    Ok(Box::new(SwitchGate::new(GateConfig::from_params(p)?, &ctx.name, kind)))
+crate::block_ports! {
+    outputs pub enum LobeGateOut {
+        Segments = optional("segments", ItemKind::Segment, "lobe segments; the last of each dwell is marked"),
+        Notices = optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
+    }
+}
+
+/// Settings of `lobe_gate`: the switch timing alone (times in seconds or
+/// samples; a sample stream has no pulse interval).
+#[derive(Clone, Debug)]
+pub struct LobeGateSettings {
+    pub switching: GateSettings,
+}
+
+impl Settings for LobeGateSettings {
+    const PARAMS: &'static [ParamSpec] = &GateSettings::params(false);
+    fn from_params(p: &Params) -> Result<Self, ParamError> {
+        Ok(LobeGateSettings { switching: GateSettings::read(p, false)? })
+    }
 }
 
 /// What only `lobe_gate` does: cut the settled samples into per-dwell segments.
-struct SegmentCutter {
+pub struct SegmentCutter {
     /// Dwells begun since the first lobe was known.
     dwell: u64,
     /// The latest segment, held until we know whether it ends its dwell.
@@ -41,7 +56,7 @@ struct SegmentCutter {
     segments_out: u64,
 }
 
-type Driver = SwitchDriver<SampleChunk>;
+type Driver = SwitchDriver<SegmentCutter>;
 
 impl SegmentCutter {
     fn label(&mut self, d: &mut Driver, piece: SampleChunk, out: &mut Outputs) {
@@ -87,13 +102,21 @@ impl SegmentCutter {
             // The dwell before the first switch seen is not cut by a guard.
             self.segments_out += u64::from(self.switches_seen > 0);
             seg.dwell_end = dwell_end;
-            out.push(0, Item::Segment(Box::new(seg)));
+            out.push(LobeGateOut::Segments, Item::Segment(Box::new(seg)));
         }
     }
 }
 
 impl GateKind for SegmentCutter {
     type Piece = SampleChunk;
+    type Settings = LobeGateSettings;
+    type In = LobeGateIn;
+    type Out = LobeGateOut;
+    const NOTICES: LobeGateOut = LobeGateOut::Notices;
+
+    fn build(s: LobeGateSettings) -> Result<(GateSettings, Self), BuildError> {
+        Ok((s.switching, SegmentCutter { dwell: 0, held: None, switches_seen: 0, segments_out: 0 }))
+    }
 
     /// Hand on every pending sample before `upto`.
     fn release(&mut self, d: &mut Driver, upto: u64, out: &mut Outputs) {

@@ -5,78 +5,84 @@
 //! only a transient that reaches into the range window the integrator uses
 //! drops the sweep, and every such drop is counted with its reason.
 
-use super::gate_common::{GateConfig, GateKind, SwitchDriver, SwitchGate, gate_params};
-use crate::block::{Block, BlockError, BlockSpec, BuildContext, Outputs, PortSpec};
+use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate};
+use crate::block::{BlockError, BlockSpec, Outputs};
+use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params};
+use crate::typed::{DistanceSetting, Settings, TimeSetting};
 
-/// The gates' parameters plus the cut before a switch, which only sweeps need.
-const PARAMS: [ParamSpec; 12] = {
-    let g = gate_params(true);
-    [
-        g[0],
-        g[1],
-        g[2],
-        g[3],
-        g[4],
-        g[5],
-        g[6],
-        g[7],
-        g[8],
-        ParamSpec {
-            name: "lead",
+pub const SPEC: BlockSpec = BlockSpec::typed::<SwitchGate<SweepLabeller>>(
+    "sweep_gate",
+    "Labels sweeps with the lobe active over their range window (sync staircase or schedule; times \
+     may be given in pulses); a switch transient (lead before to guard after the switch instant) is \
+     blanked at a sweep's head or cut off its tail, and drops the sweep only when it reaches into the \
+     range window.",
+);
+
+crate::block_ports! {
+    inputs pub enum SweepGateIn {
+        Sweeps = required("sweeps", ItemKind::Sweep, "sweeps from a framer (with sync spans for sync timing)"),
+    }
+}
+
+crate::block_ports! {
+    outputs pub enum SweepGateOut {
+        Sweeps = optional("sweeps", ItemKind::Sweep, "the sweeps, labelled with their lobe and dwell"),
+        Notices = optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
+    }
+}
+
+const WINDOW: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
+
+crate::block_settings! {
+    /// What only `sweep_gate` sets: the cut before a switch, and the range
+    /// window whose switch transients drop a sweep.
+    pub struct SweepCutSettings {
+        lead: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: 1.0, pulses: false },
             default: Some("0 s"),
             doc: "also cut this much before each switch instant: the sync edge's midpoint lags the switch, whose transient starts at once",
         },
-        ParamSpec {
-            name: "window_start",
+        window_start: DistanceSetting {
             ty: WINDOW,
             default: Some("0 bins"),
             doc: "start of the range window the integrator uses (search or gate window and noise region); a switch transient before it is blanked",
         },
-        ParamSpec {
-            name: "window_end",
+        window_end: DistanceSetting {
             ty: WINDOW,
             default: Some("0 bins"),
             doc: "end of that range window; a switch transient after it is cut off (0: no window end, every switch in the tail cuts)",
         },
-    ]
+    }
+}
+
+/// Settings of `sweep_gate`: the switch timing (times may be given in
+/// pulses) and the cuts.
+#[derive(Clone, Debug)]
+pub struct SweepGateSettings {
+    pub switching: GateSettings,
+    pub cut: SweepCutSettings,
+}
+
+/// The gates' parameters, then the cuts only sweeps need.
+const PARAMS: [ParamSpec; 12] = {
+    let g = GateSettings::params(true);
+    let c = SweepCutSettings::PARAMS;
+    [g[0], g[1], g[2], g[3], g[4], g[5], g[6], g[7], g[8], c[0], c[1], c[2]]
 };
 
-const WINDOW: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e9 };
-
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "sweep_gate",
-    doc: "Labels sweeps with the lobe active over their range window (sync staircase or schedule; times \
-          may be given in pulses); a switch transient (lead before to guard after the switch instant) is \
-          blanked at a sweep's head or cut off its tail, and drops the sweep only when it reaches into the \
-          range window.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps from a framer (with sync spans for sync timing)")],
-    outputs: &[
-        PortSpec::optional("sweeps", ItemKind::Sweep, "the sweeps, labelled with their lobe and dwell"),
-        PortSpec::optional("notices", ItemKind::Notice, "switch instants and irregularities, for timelines"),
-    ],
-    params: &PARAMS,
-    build,
-};
-
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
-    let kind = SweepLabeller {
-        params: p.clone(),
-        lead: 0,
-        window: (0, None),
-        emitted_dwell: None,
-        dwell: 0,
-        counts: Counts::default(),
-    };
-    Ok(Box::new(SwitchGate::new(GateConfig::from_params(p)?, &ctx.name, kind)))
+impl Settings for SweepGateSettings {
+    const PARAMS: &'static [ParamSpec] = &PARAMS;
+    fn from_params(p: &Params) -> Result<Self, ParamError> {
+        Ok(SweepGateSettings { switching: GateSettings::read(p, true)?, cut: SweepCutSettings::from_params(p)? })
+    }
 }
 
 /// What only `sweep_gate` does: label whole sweeps, blanking or cutting switch transients.
-struct SweepLabeller {
-    /// Holds `lead` and the window until the sample rate is known.
-    params: Params,
+pub struct SweepLabeller {
+    /// Turned into samples once the sample rate is known.
+    cut: SweepCutSettings,
     /// Samples cut before each switch instant.
     lead: u64,
     /// The integrator's range window in bins from the transmit instant (end None: no end).
@@ -87,7 +93,7 @@ struct SweepLabeller {
     counts: Counts,
 }
 
-type Driver = SwitchDriver<Sweep>;
+type Driver = SwitchDriver<SweepLabeller>;
 
 /// What the gate did to sweeps because of switch transients.
 #[derive(Default)]
@@ -155,7 +161,7 @@ impl SweepLabeller {
         }
         let lobe = current.lobe;
         sweep.lobe = Some(LobeTag { lobe, name: d.lobe_name(lobe), dwell: self.dwell, dwell_start });
-        out.push(0, Item::Sweep(sweep));
+        out.push(SweepGateOut::Sweeps, Item::Sweep(sweep));
     }
 
     /// The end-of-run account of what switch transients did to sweeps.
@@ -192,13 +198,29 @@ impl SweepLabeller {
 
 impl GateKind for SweepLabeller {
     type Piece = Sweep;
+    type Settings = SweepGateSettings;
+    type In = SweepGateIn;
+    type Out = SweepGateOut;
+    const NOTICES: SweepGateOut = SweepGateOut::Notices;
+
+    fn build(s: SweepGateSettings) -> Result<(GateSettings, Self), BuildError> {
+        let labeller = SweepLabeller {
+            cut: s.cut,
+            lead: 0,
+            window: (0, None),
+            emitted_dwell: None,
+            dwell: 0,
+            counts: Counts::default(),
+        };
+        Ok((s.switching, labeller))
+    }
 
     fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
-        let p = &self.params;
+        let c = &self.cut;
         let at = |e: String| BlockError::at(e, first.index);
-        self.lead = p.samples_at("lead", first.rate, None).map_err(|e| at(e.to_string()))?.round() as u64;
-        let start = p.bins_at("window_start", first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
-        let end = p.bins_at("window_end", first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
+        self.lead = c.lead.samples(first.rate, None).map_err(|e| at(e.to_string()))?.round() as u64;
+        let start = c.window_start.bins(first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
+        let end = c.window_end.bins(first.rate).map_err(|e| at(e.to_string()))?.round() as u64;
         if end > 0 && end <= start {
             return Err(at(format!("window_end ({end} bins) must lie after window_start ({start} bins)")));
         }

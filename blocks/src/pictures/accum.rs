@@ -1,6 +1,6 @@
 //! Bounded summaries the picture blocks keep while items stream past.
 
-use crate::{BlockError, Params, Stamp, Sweep, range_bin_m};
+use crate::{BlockError, DistanceSetting, Stamp, Sweep, range_bin_m};
 
 /// Most range bins one averaged sweep may hold (bounds memory per block).
 pub const MAX_BINS: usize = 1 << 20;
@@ -14,18 +14,23 @@ pub struct BinWindow {
 }
 
 impl BinWindow {
-    /// From the Distance parameters `start` and `end` (end 0 = to the end of
+    /// From the distance settings `start` and `end` (end 0 = to the end of
     /// the sweep), at the sweep's rate and length.
-    pub fn from_params(p: &Params, start: &str, end: &str, sweep: &Sweep) -> Result<BinWindow, BlockError> {
+    pub fn from_settings(
+        start: &DistanceSetting,
+        end: &DistanceSetting,
+        sweep: &Sweep,
+    ) -> Result<BinWindow, BlockError> {
         let rate = sweep.stamp.rate;
         if !(rate > 0.0 && rate.is_finite()) {
             return Err(BlockError::at(format!("sweep has an unusable sample rate {rate}"), sweep.stamp.index));
         }
-        let first = p.bins_at(start, rate)?;
-        let end_bins = p.bins_at(end, rate)?;
+        let first = start.bins(rate)?;
+        let end_bins = end.bins(rate)?;
         let last = if end_bins <= 0.0 { sweep.iq.len() as f64 } else { end_bins };
-        BinWindow::from_bins(first, last, sweep)
-            .map_err(|e| BlockError::at(format!("parameters '{start}'..'{end}': {e}"), sweep.stamp.index))
+        BinWindow::from_bins(first, last, sweep).map_err(|e| {
+            BlockError::at(format!("parameters '{}'..'{}': {e}", start.name(), end.name()), sweep.stamp.index)
+        })
     }
 
     /// From fractional bin numbers (rounded), at the sweep's rate.
@@ -246,7 +251,7 @@ pub fn median(values: &[f64]) -> Option<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::{ParamSpec, ParamType, RawValue};
+    use crate::{FromParam, ParamSpec, ParamType, Params, RawValue};
     use num_complex::Complex32;
 
     fn sweep(values: &[f32], index: u64) -> Sweep {
@@ -261,18 +266,22 @@ mod tests {
         }
     }
 
-    fn window_params(start: &str, end: &str) -> Params {
+    /// The window a `start`..`end` setting pair (as written in a graph) gives for `sweep`.
+    fn window(start: &str, end: &str, sweep: &Sweep) -> Result<BinWindow, BlockError> {
         let mut p = Params::new();
-        let spec = ParamSpec { name: "x", ty: ParamType::Distance { min_m: 0.0, max_m: 1e7 }, default: None, doc: "" };
-        p.insert("start", spec.parse(&RawValue::Text(start.into())).unwrap());
-        p.insert("end", spec.parse(&RawValue::Text(end.into())).unwrap());
-        p
+        let spec =
+            |name| ParamSpec { name, ty: ParamType::Distance { min_m: 0.0, max_m: 1e7 }, default: None, doc: "" };
+        p.insert("start", spec("start").parse(&RawValue::Text(start.into())).unwrap());
+        p.insert("end", spec("end").parse(&RawValue::Text(end.into())).unwrap());
+        let start = DistanceSetting::from_param(&p, &spec("start")).unwrap();
+        let end = DistanceSetting::from_param(&p, &spec("end")).unwrap();
+        BinWindow::from_settings(&start, &end, sweep)
     }
 
     #[test]
     fn running_mean_and_exponential_memory() {
         let s0 = sweep(&[1.0, 2.0, 0.0, 0.0], 0);
-        let w = BinWindow::from_params(&window_params("0 m", "0 m"), "start", "end", &s0).unwrap();
+        let w = window("0 m", "0 m", &s0).unwrap();
         assert_eq!(w, BinWindow { first: 0, len: 4, rate: 4e6 });
         let mut all = SweepAverage::new(w, 0, s0.stamp);
         let mut last2 = SweepAverage::new(w, 2, s0.stamp);
@@ -290,9 +299,9 @@ mod tests {
     fn window_in_metres_and_bins() {
         let s = sweep(&[0.0; 400], 0);
         // 37.47 m per bin at 4 MS/s (docs/derivations.md, section 5): 1.5 km starts at bin 40.
-        let w = BinWindow::from_params(&window_params("1.5 km", "100 bins"), "start", "end", &s).unwrap();
+        let w = window("1.5 km", "100 bins", &s).unwrap();
         assert_eq!((w.first, w.len), (40, 60));
-        assert!(BinWindow::from_params(&window_params("100 bins", "100 bins"), "start", "end", &s).is_err());
+        assert!(window("100 bins", "100 bins", &s).is_err());
         let mut avg = SweepAverage::new(w, 0, s.stamp);
         let mut other_rate = s.clone();
         other_rate.stamp.rate = 2e6;

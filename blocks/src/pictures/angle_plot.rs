@@ -5,57 +5,50 @@
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
 use crate::summary::AxisSummary;
 use crate::{
-    AngleEstimate, Block, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind, Outputs, ParamSpec,
-    ParamType, Params, PortSpec, Unit,
+    AngleEstimate, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind, NoPorts, Outputs, ParamType,
+    TypedBlock, Unit,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "angle_plot",
-    doc: "Angle plot picture: angle error against time for each axis (one panel each), with the expected ±σ band, the \
-          tracked value when present and flagged estimates marked (out of range at the panel edge); long runs are reduced \
-          to min/max time buckets. Writes <path>.png and <path>.svg.",
-    inputs: &[PortSpec::required("estimates", ItemKind::Estimate, "angle estimates of one or more axes")],
-    outputs: &[],
-    params: &[
-        ParamSpec {
-            name: "max_points",
+pub const SPEC: BlockSpec = BlockSpec::typed::<AnglePlot>(
+    "angle_plot",
+    "Angle plot picture: angle error against time for each axis (one panel each), with the expected ±σ band, the \
+     tracked value when present and flagged estimates marked (out of range at the panel edge); long runs are reduced \
+     to min/max time buckets. Writes <path>.png and <path>.svg.",
+);
+
+crate::block_settings! {
+    /// Settings of `angle_plot`.
+    pub struct AnglePlotSettings {
+        max_points: usize {
             ty: ParamType::Integer { min: 100, max: 100_000 },
             default: Some("4000"),
             doc: "most points drawn per axis (min/max of time buckets beyond that)",
         },
-        ParamSpec {
-            name: "span",
+        span: f64 {
             ty: ParamType::Number { unit: Unit::Degrees, min: 0.0, max: 180.0 },
             default: Some("0 deg"),
             doc: "half-height of each panel (0 = fit the data)",
         },
-        ParamSpec {
-            name: "path",
+        path: String {
             ty: ParamType::OutputPath,
             default: Some("angle-plot"),
             doc: "base name: writes <path>.png and <path>.svg",
         },
-    ],
-    build,
-};
+    }
+}
+
+crate::block_ports! {
+    inputs pub enum AnglePlotIn {
+        Estimates = required("estimates", ItemKind::Estimate, "angle estimates of one or more axes"),
+    }
+}
 
 const WIDTH: u32 = 1200;
 const PANEL_HEIGHT: u32 = 280;
 /// Most axes drawn (panels); estimates of further axes are counted only.
 const MAX_AXES: usize = 8;
-
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
-    Ok(Box::new(AnglePlot {
-        max_buckets: (p.int("max_points")? as usize / 2).max(50),
-        span: p.num("span")?,
-        axes: Vec::new(),
-        other_axes: 0,
-        path: p.text("path")?.to_string(),
-        files: ctx.files.clone(),
-    }))
-}
 
 /// Summary of the estimates of one time bucket.
 #[derive(Clone, Copy, Debug)]
@@ -237,7 +230,7 @@ impl AxisSeries {
     }
 }
 
-struct AnglePlot {
+pub struct AnglePlot {
     max_buckets: usize,
     span: f64,
     axes: Vec<AxisSeries>,
@@ -246,8 +239,23 @@ struct AnglePlot {
     files: FileStager,
 }
 
-impl Block for AnglePlot {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+impl TypedBlock for AnglePlot {
+    type Settings = AnglePlotSettings;
+    type In = AnglePlotIn;
+    type Out = NoPorts;
+
+    fn build(s: AnglePlotSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
+        Ok(AnglePlot {
+            max_buckets: (s.max_points / 2).max(50),
+            span: s.span,
+            axes: Vec::new(),
+            other_axes: 0,
+            path: s.path,
+            files: ctx.files.clone(),
+        })
+    }
+
+    fn process(&mut self, _port: AnglePlotIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Estimate(e) = item else {
             return Ok(());
         };

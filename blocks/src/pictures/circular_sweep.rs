@@ -7,8 +7,8 @@ use super::accum::{BinWindow, SweepAverage, decimate_min_max, median};
 use super::circular::{Winding, interpolated_peak, read_range};
 use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, Cell, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType,
-    Params, PortSpec, TableRow,
+    BlockError, BlockSpec, BuildContext, Cell, DistanceSetting, FileStager, Item, ItemKind, Outputs, ParamType,
+    TableRow, TypedBlock, Unit,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
@@ -16,65 +16,81 @@ use plotters::style::text_anchor;
 use std::f64::consts::TAU;
 use std::sync::Arc;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "circular_sweep",
-    doc: "Circular sweep formatter: winds the averaged sweep (or a range window of it) onto a fine circle of several turns \
-          with a coarse one-turn circle beside it, echoes deflecting the trace; reads the strongest echo's range from both \
-          circles and writes <path>.png and <path>.svg, optionally the trace as table rows.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps to average (all lobes)")],
-    outputs: &[PortSpec::optional("rows", ItemKind::Row, "trace points (range_m, x, y, ...) and a final readout row")],
-    params: &[
-        ParamSpec {
-            name: "range_start",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("0 m"),
-            doc: "start of the range window",
-        },
-        ParamSpec {
-            name: "range_end",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
+pub const SPEC: BlockSpec = BlockSpec::typed::<CircularSweep>(
+    "circular_sweep",
+    "Circular sweep formatter: winds the averaged sweep (or a range window of it) onto a fine circle of several turns \
+     with a coarse one-turn circle beside it, echoes deflecting the trace; reads the strongest echo's range from both \
+     circles and writes <path>.png and <path>.svg, optionally the trace as table rows.",
+);
+
+const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e8 };
+
+crate::block_choice! {
+    /// Which way echoes deflect the trace.
+    pub enum Deflection { Outward = "outward", Inward = "inward" }
+}
+
+impl Deflection {
+    /// +1 outward, -1 inward: the sign of a radial deflection.
+    fn sign(self) -> f64 {
+        match self {
+            Deflection::Outward => 1.0,
+            Deflection::Inward => -1.0,
+        }
+    }
+}
+
+crate::block_settings! {
+    /// Settings of `circular_sweep`.
+    pub struct CircularSweepSettings {
+        range_start: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "start of the range window" },
+        range_end: DistanceSetting {
+            ty: DIST,
             default: Some("0 m"),
             doc: "end of the range window (0 = to the end of the first sweep)",
         },
-        ParamSpec {
-            name: "revolutions",
-            ty: ParamType::Number { unit: crate::Unit::None, min: 1.0, max: 200.0 },
+        revolutions: f64 {
+            ty: ParamType::Number { unit: Unit::None, min: 1.0, max: 200.0 },
             default: Some("8"),
             doc: "turns of the fine circle per window",
         },
-        ParamSpec {
-            name: "deflection",
-            ty: ParamType::Choice(&["outward", "inward"]),
+        deflection: Deflection {
+            ty: ParamType::Choice(Deflection::WORDS),
             default: Some("outward"),
             doc: "which way echoes deflect the trace",
         },
-        ParamSpec {
-            name: "gain",
-            ty: ParamType::Number { unit: crate::Unit::None, min: 0.01, max: 100.0 },
+        gain: f64 {
+            ty: ParamType::Number { unit: Unit::None, min: 0.01, max: 100.0 },
             default: Some("1"),
             doc: "deflection scale (1: the strongest echo deflects by a quarter of the radius)",
         },
-        ParamSpec {
-            name: "mark_every",
+        mark_every: DistanceSetting {
             ty: ParamType::Distance { min_m: 1.0, max_m: 1e8 },
             default: Some("1 km"),
             doc: "range mark spacing",
         },
-        ParamSpec {
-            name: "average",
+        average: u64 {
             ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average (0 = all; N = exponential average over about the last N)",
         },
-        ParamSpec {
-            name: "path",
+        path: String {
             ty: ParamType::OutputPath,
             default: Some("sweep-circle"),
             doc: "base name: writes <path>.png and <path>.svg",
         },
-    ],
-    build,
-};
+    }
+}
+
+crate::block_ports! {
+    inputs pub enum CircularSweepIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps to average (all lobes)") }
+}
+
+crate::block_ports! {
+    outputs pub enum CircularSweepOut {
+        Rows = optional("rows", ItemKind::Row, "trace points (range_m, x, y, ...) and a final readout row"),
+    }
+}
 
 const WIDTH: u32 = 1280;
 const HEIGHT: u32 = 780;
@@ -83,43 +99,33 @@ const DRAWN_POINTS: usize = 6000;
 /// Most range marks drawn around the fine circle per turn.
 const MAX_MARKS_PER_TURN: f64 = 100.0;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
-    let deflection = p.text("deflection")?;
-    Ok(Box::new(CircularSweep {
-        params: p.clone(),
-        revolutions: p.num("revolutions")?,
-        sign: if deflection == "inward" { -1.0 } else { 1.0 },
-        gain: p.num("gain")?,
-        memory: p.int("average")?.max(0) as u64,
-        path: p.text("path")?.to_string(),
-        files: ctx.files.clone(),
-        average: None,
-    }))
-}
-
 /// Memory one range bin of the window takes by the end of a run: the
 /// average (16 bytes), the trace (16) and its table row (about 700: seven
 /// cells with their names), estimated generously.
 const BYTES_PER_BIN: f64 = 768.0;
 
-struct CircularSweep {
-    params: Params,
-    revolutions: f64,
-    sign: f64,
-    gain: f64,
-    memory: u64,
-    path: String,
+pub struct CircularSweep {
+    settings: CircularSweepSettings,
     files: FileStager,
     average: Option<SweepAverage>,
 }
 
-impl Block for CircularSweep {
-    fn process(&mut self, _port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+impl TypedBlock for CircularSweep {
+    type Settings = CircularSweepSettings;
+    type In = CircularSweepIn;
+    type Out = CircularSweepOut;
+
+    fn build(settings: CircularSweepSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
+        Ok(CircularSweep { settings, files: ctx.files.clone(), average: None })
+    }
+
+    fn process(&mut self, _port: CircularSweepIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Sweep(sweep) = item else {
             return Ok(());
         };
         if self.average.is_none() {
-            let window = BinWindow::from_params(&self.params, "range_start", "range_end", &sweep)?;
+            let s = &self.settings;
+            let window = BinWindow::from_settings(&s.range_start, &s.range_end, &sweep)?;
             // Each bin becomes an averaged value, a trace point and a table
             // row of seven named cells at the end.
             crate::check_memory(
@@ -127,7 +133,7 @@ impl Block for CircularSweep {
                 window.len as f64 * BYTES_PER_BIN,
             )
             .map_err(|e| BlockError::at(e, sweep.stamp.index))?;
-            self.average = Some(SweepAverage::new(window, self.memory, sweep.stamp));
+            self.average = Some(SweepAverage::new(window, s.average, sweep.stamp));
         }
         if let Some(avg) = self.average.as_mut() {
             avg.add(&sweep)?;
@@ -136,22 +142,20 @@ impl Block for CircularSweep {
     }
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
+        let s = &self.settings;
         let Some(avg) = self.average.as_ref() else {
             out.warn(crate::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
-            return write_picture(&Empty, &self.path, &self.files).map(|_| ());
+            return write_picture(&Empty, &s.path, &self.files).map(|_| ());
         };
-        let mark_m = self
-            .params
-            .num("mark_every")
-            .or_else(|_| self.params.bins_at("mark_every", avg.window.rate).map(|b| b * avg.window.bin_m()))?;
+        let mark_m = s.mark_every.metres(avg.window.rate)?;
         if !(mark_m > 0.0 && mark_m.is_finite()) {
             return Err(BlockError::new(format!("parameter 'mark_every' must be a positive distance, got {mark_m} m")));
         }
-        let scene = Scene::compute(avg, self.revolutions, self.sign, self.gain, mark_m).map_err(BlockError::new)?;
+        let scene = Scene::compute(avg, s.revolutions, s.deflection.sign(), s.gain, mark_m).map_err(BlockError::new)?;
         for row in scene.rows(avg) {
-            out.push(0, Item::Row(row));
+            out.push(CircularSweepOut::Rows, Item::Row(row));
         }
-        write_picture(&scene, &self.path, &self.files)?;
+        write_picture(&scene, &s.path, &self.files)?;
         Ok(())
     }
 }

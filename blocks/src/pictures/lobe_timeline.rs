@@ -11,46 +11,48 @@
 use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
 use crate::kinds::gate_common::is_switch_report;
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
-    PortSpec,
+    BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType, TimeSetting,
+    TypedBlock,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "lobe_timeline",
-    doc: "Lobe timeline picture: one row per lobe with a bar per dwell (upper bar from lobe segments, lower bar from \
-          labelled sweeps), guard gaps between dwells shaded, switch instants and notices marked, and under the bars \
-          each dwell's signal level in its lobe's colour with the per-lobe means in the key; draws the first part of \
-          the capture (span, max_dwells). Writes <path>.png and <path>.svg.",
-    inputs: &[
-        PortSpec::optional("sweeps", ItemKind::Sweep, "sweeps, labelled with their lobe or not"),
-        PortSpec::optional("segments", ItemKind::Segment, "lobe segments of each dwell"),
-        PortSpec::optional("notices", ItemKind::Notice, "irregularities to mark"),
-    ],
-    outputs: &[],
-    params: &[
-        ParamSpec {
-            name: "span",
+pub const SPEC: BlockSpec = BlockSpec::typed::<LobeTimeline>(
+    "lobe_timeline",
+    "Lobe timeline picture: one row per lobe with a bar per dwell (upper bar from lobe segments, lower bar from \
+     labelled sweeps), guard gaps between dwells shaded, switch instants and notices marked, and under the bars \
+     each dwell's signal level in its lobe's colour with the per-lobe means in the key; draws the first part of \
+     the capture (span, max_dwells). Writes <path>.png and <path>.svg.",
+);
+
+crate::block_settings! {
+    /// Settings of `lobe_timeline`.
+    pub struct LobeTimelineSettings {
+        span: TimeSetting {
             ty: ParamType::Time { min_s: 0.0, max_s: 1e6, pulses: false },
             default: Some("0 s"),
             doc: "how much of the capture to draw from the first item (0 = as far as max_dwells reaches)",
         },
-        ParamSpec {
-            name: "max_dwells",
+        max_dwells: usize {
             ty: ParamType::Integer { min: 10, max: 100_000 },
             default: Some("40"),
             doc: "most dwells drawn (a few lobe cycles keep the guard gaps visible)",
         },
-        ParamSpec {
-            name: "path",
+        path: String {
             ty: ParamType::OutputPath,
             default: Some("lobe-timeline"),
             doc: "base name: writes <path>.png and <path>.svg",
         },
-    ],
-    build,
-};
+    }
+}
+
+crate::block_ports! {
+    inputs pub enum LobeTimelineIn {
+        Sweeps = optional("sweeps", ItemKind::Sweep, "sweeps, labelled with their lobe or not"),
+        Segments = optional("segments", ItemKind::Segment, "lobe segments of each dwell"),
+        Notices = optional("notices", ItemKind::Notice, "irregularities to mark"),
+    }
+}
 
 const WIDTH: u32 = 1200;
 /// Most lobe rows; more lobes are counted, not drawn.
@@ -59,17 +61,6 @@ const MAX_ROWS: usize = 16;
 const MAX_NOTICES: usize = 200;
 /// Most switch instants marked.
 const MAX_SWITCHES: usize = 100_000;
-
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::error::BuildError> {
-    Ok(Box::new(LobeTimeline {
-        params: p.clone(),
-        span_s: None,
-        max_dwells: p.int("max_dwells")?.max(1) as usize,
-        timeline: Timeline::default(),
-        path: p.text("path")?.to_string(),
-        files: ctx.files.clone(),
-    }))
-}
 
 /// One bar: a dwell (or a run of unlabelled sweeps) in seconds.
 #[derive(Clone, Debug, PartialEq)]
@@ -154,8 +145,8 @@ impl Timeline {
     }
 }
 
-struct LobeTimeline {
-    params: Params,
+pub struct LobeTimeline {
+    span: TimeSetting,
     span_s: Option<Option<f64>>,
     max_dwells: usize,
     timeline: Timeline,
@@ -167,7 +158,7 @@ impl LobeTimeline {
     /// The end of the drawn span, fixed at the first item.
     fn limit(&mut self, start_s: f64, rate: f64) -> Result<Option<f64>, BlockError> {
         if self.span_s.is_none() {
-            let samples = self.params.samples_at("span", rate, None)?;
+            let samples = self.span.samples(rate, None)?;
             self.span_s = Some((samples > 0.0).then(|| samples / rate));
         }
         let first = *self.timeline.first_s.get_or_insert(start_s);
@@ -175,12 +166,27 @@ impl LobeTimeline {
     }
 }
 
-impl Block for LobeTimeline {
+impl TypedBlock for LobeTimeline {
+    type Settings = LobeTimelineSettings;
+    type In = LobeTimelineIn;
+    type Out = NoPorts;
+
+    fn build(s: LobeTimelineSettings, ctx: &BuildContext) -> Result<Self, crate::error::BuildError> {
+        Ok(LobeTimeline {
+            span: s.span,
+            span_s: None,
+            max_dwells: s.max_dwells.max(1),
+            timeline: Timeline::default(),
+            path: s.path,
+            files: ctx.files.clone(),
+        })
+    }
+
     fn wants_input(&self) -> bool {
         !self.timeline.truncated
     }
 
-    fn process(&mut self, port: usize, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+    fn process(&mut self, port: LobeTimelineIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
         if self.timeline.truncated {
             // The picture is full; what follows is not read (see wants_input).
             return Ok(());
@@ -188,7 +194,7 @@ impl Block for LobeTimeline {
         let stamp = item.stamp();
         if !(stamp.rate > 0.0 && stamp.rate.is_finite()) {
             return Err(BlockError::at(
-                format!("item on port {port} has an unusable sample rate {}", stamp.rate),
+                format!("item on port {} has an unusable sample rate {}", port as usize, stamp.rate),
                 stamp.index,
             ));
         }

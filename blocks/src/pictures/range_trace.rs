@@ -4,102 +4,94 @@
 use super::accum::{BinWindow, LobeAverages, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
-    PortSpec,
+    BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType,
+    TypedBlock,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "range_trace",
-    doc: "Range trace picture: averaged echo amplitude in dB against range in km, for all lobes together or one colour \
-          per lobe, with the range gate shaded; writes <path>.png and <path>.svg.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps to average")],
-    outputs: &[],
-    params: &[
-        ParamSpec {
-            name: "range_start",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("0 m"),
-            doc: "start of the range axis",
-        },
-        ParamSpec {
-            name: "range_end",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
+pub const SPEC: BlockSpec = BlockSpec::typed::<RangeTrace>(
+    "range_trace",
+    "Range trace picture: averaged echo amplitude in dB against range in km, for all lobes together or one colour \
+     per lobe, with the range gate shaded; writes <path>.png and <path>.svg.",
+);
+
+const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e8 };
+
+crate::block_choice! {
+    /// Whether the lobes get a trace each.
+    pub enum LobeTraces { Separate = "separate", Together = "together" }
+}
+
+crate::block_settings! {
+    /// Settings of `range_trace`.
+    pub struct RangeTraceSettings {
+        range_start: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "start of the range axis" },
+        range_end: DistanceSetting {
+            ty: DIST,
             default: Some("0 m"),
             doc: "end of the range axis (0 = to the end of the first sweep)",
         },
-        ParamSpec {
-            name: "lobes",
-            ty: ParamType::Choice(&["separate", "together"]),
+        lobes: LobeTraces {
+            ty: ParamType::Choice(LobeTraces::WORDS),
             default: Some("separate"),
             doc: "one trace per lobe (by the sweeps' lobe tags) or one for all",
         },
-        ParamSpec {
-            name: "gate_start",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("0 m"),
-            doc: "range gate start to mark",
-        },
-        ParamSpec {
-            name: "gate_width",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("0 m"),
-            doc: "range gate width (0 = no gate marked)",
-        },
-        ParamSpec {
-            name: "average",
+        gate_start: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "range gate start to mark" },
+        gate_width: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "range gate width (0 = no gate marked)" },
+        average: u64 {
             ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average (0 = all; N = exponential average over about the last N)",
         },
-        ParamSpec {
-            name: "path",
+        path: String {
             ty: ParamType::OutputPath,
             default: Some("range-trace"),
             doc: "base name: writes <path>.png and <path>.svg",
         },
-    ],
-    build,
-};
+    }
+}
+
+crate::block_ports! {
+    inputs pub enum RangeTraceIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps to average") }
+}
 
 const WIDTH: u32 = 1200;
 const HEIGHT: u32 = 640;
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
-    Ok(Box::new(RangeTrace {
-        params: p.clone(),
-        separate: p.text("lobes")? == "separate",
-        averages: LobeAverages::new(p.int("average")?.max(0) as u64),
-        path: p.text("path")?.to_string(),
-        files: ctx.files.clone(),
-        dropped_noticed: false,
-    }))
-}
-
-struct RangeTrace {
-    params: Params,
-    separate: bool,
+pub struct RangeTrace {
+    settings: RangeTraceSettings,
     averages: LobeAverages,
-    path: String,
     files: FileStager,
     dropped_noticed: bool,
 }
 
-impl Block for RangeTrace {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+impl TypedBlock for RangeTrace {
+    type Settings = RangeTraceSettings;
+    type In = RangeTraceIn;
+    type Out = NoPorts;
+
+    fn build(s: RangeTraceSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
+        Ok(RangeTrace {
+            averages: LobeAverages::new(s.average),
+            settings: s,
+            files: ctx.files.clone(),
+            dropped_noticed: false,
+        })
+    }
+
+    fn process(&mut self, _port: RangeTraceIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Sweep(sweep) = item else {
             return Ok(());
         };
-        let (name, order): (&str, usize) = match (&sweep.lobe, self.separate) {
-            (Some(tag), true) => (&tag.name, tag.lobe),
-            (None, true) => ("untagged", usize::MAX),
-            (_, false) => ("all lobes", 0),
+        let (name, order): (&str, usize) = match (&sweep.lobe, self.settings.lobes) {
+            (Some(tag), LobeTraces::Separate) => (&tag.name, tag.lobe),
+            (None, LobeTraces::Separate) => ("untagged", usize::MAX),
+            (_, LobeTraces::Together) => ("all lobes", 0),
         };
-        let params = &self.params;
-        let kept = self
-            .averages
-            .add(name, order, &sweep, |s| BinWindow::from_params(params, "range_start", "range_end", s))?;
+        let s = &self.settings;
+        let kept =
+            self.averages.add(name, order, &sweep, |sw| BinWindow::from_settings(&s.range_start, &s.range_end, sw))?;
         if !kept && !self.dropped_noticed {
             self.dropped_noticed = true;
             out.warn(
@@ -116,8 +108,8 @@ impl Block for RangeTrace {
     fn finish(&mut self, _out: &mut Outputs) -> Result<(), BlockError> {
         let gate = match self.averages.window() {
             Some(w) => {
-                let width = self.params.bins_at("gate_width", w.rate)? * w.bin_m();
-                let start = self.params.bins_at("gate_start", w.rate)? * w.bin_m();
+                let width = self.settings.gate_width.bins(w.rate)? * w.bin_m();
+                let start = self.settings.gate_start.bins(w.rate)? * w.bin_m();
                 (width > 0.0).then_some((start, start + width))
             }
             None => None,
@@ -136,7 +128,7 @@ impl Block for RangeTrace {
             .collect();
         let window = self.averages.window();
         let picture = TracePicture { traces, gate, window, dropped: self.averages.dropped };
-        write_picture(&picture, &self.path, &self.files)?;
+        write_picture(&picture, &self.settings.path, &self.files)?;
         Ok(())
     }
 }

@@ -4,67 +4,59 @@
 
 use super::accum::{BinWindow, LobeAverages, SweepAverage, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
-use crate::dsp::discriminator::{LobePair, parse_pairs};
+use crate::dsp::discriminator::LobePair;
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, Outputs, ParamSpec, ParamType, Params,
-    PortSpec,
+    BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamError,
+    ParamType, TypedBlock,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-pub const SPEC: BlockSpec = BlockSpec {
-    kind: "split_pair",
-    doc: "Split pair picture: for each lobe pair, the two lobes' averaged sweeps around the range gate drawn on two traces \
-          an adjustable distance apart, with the balance (positive lobe over negative, dB) printed; writes <path>.png and \
-          <path>.svg. Needs sweeps labelled with their lobe.",
-    inputs: &[PortSpec::required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe")],
-    outputs: &[],
-    params: &[
-        ParamSpec {
-            name: "pairs",
+pub const SPEC: BlockSpec = BlockSpec::typed::<SplitPair>(
+    "split_pair",
+    "Split pair picture: for each lobe pair, the two lobes' averaged sweeps around the range gate drawn on two traces \
+     an adjustable distance apart, with the balance (positive lobe over negative, dB) printed; writes <path>.png and \
+     <path>.svg. Needs sweeps labelled with their lobe.",
+);
+
+const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e8 };
+
+crate::block_settings! {
+    /// Settings of `split_pair`.
+    pub struct SplitPairSettings {
+        pairs: Vec<LobePair> {
             ty: ParamType::LobePairs,
             default: Some("az=right/left, el=up/down"),
             doc: "lobe pairs: axis=positive/negative, comma-separated",
         },
-        ParamSpec {
-            name: "separation",
+        separation: String {
             ty: ParamType::Text,
             default: Some("12 dB"),
             doc: "how far the positive lobe's trace is raised: in dB (e.g. '12 dB') or as a fraction of the plot height (e.g. '0.3')",
         },
-        ParamSpec {
-            name: "gate_start",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("0 m"),
-            doc: "range gate start",
-        },
-        ParamSpec {
-            name: "gate_width",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
+        gate_start: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "range gate start" },
+        gate_width: DistanceSetting {
+            ty: DIST,
             default: Some("0 m"),
             doc: "range gate width (0 = no gate: whole sweep, balance at the strongest echo)",
         },
-        ParamSpec {
-            name: "margin",
-            ty: ParamType::Distance { min_m: 0.0, max_m: 1e8 },
-            default: Some("1500 m"),
-            doc: "range shown either side of the gate",
-        },
-        ParamSpec {
-            name: "average",
+        margin: DistanceSetting { ty: DIST, default: Some("1500 m"), doc: "range shown either side of the gate" },
+        average: u64 {
             ty: ParamType::Integer { min: 0, max: 1_000_000_000 },
             default: Some("0"),
             doc: "sweeps to average per lobe (0 = all; N = exponential average over about the last N)",
         },
-        ParamSpec {
-            name: "path",
+        path: String {
             ty: ParamType::OutputPath,
             default: Some("split-pair"),
             doc: "base name: writes <path>.png and <path>.svg",
         },
-    ],
-    build,
-};
+    }
+}
+
+crate::block_ports! {
+    inputs pub enum SplitPairIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe") }
+}
 
 const WIDTH: u32 = 1200;
 const HEIGHT: u32 = 640;
@@ -95,35 +87,21 @@ pub fn parse_separation(text: &str) -> Result<Separation, String> {
     Ok(Separation::Fraction(v))
 }
 
-fn build(p: &Params, ctx: &BuildContext) -> Result<Box<dyn Block>, crate::BuildError> {
-    Ok(Box::new(SplitPair {
-        params: p.clone(),
-        pairs: parse_pairs(p.text("pairs")?).map_err(|e| format!("parameter 'pairs': {e}"))?,
-        separation: parse_separation(p.text("separation")?).map_err(|e| format!("parameter 'separation': {e}"))?,
-        averages: LobeAverages::new(p.int("average")?.max(0) as u64),
-        path: p.text("path")?.to_string(),
-        files: ctx.files.clone(),
-        untagged: 0,
-    }))
-}
-
-struct SplitPair {
-    params: Params,
-    pairs: Vec<LobePair>,
+pub struct SplitPair {
+    settings: SplitPairSettings,
     separation: Separation,
     averages: LobeAverages,
-    path: String,
     files: FileStager,
     untagged: u64,
 }
 
 impl SplitPair {
-    fn window(params: &Params, sweep: &crate::Sweep) -> Result<BinWindow, BlockError> {
+    fn window(s: &SplitPairSettings, sweep: &crate::Sweep) -> Result<BinWindow, BlockError> {
         let rate = sweep.stamp.rate;
-        let width = params.bins_at("gate_width", rate)?;
+        let width = s.gate_width.bins(rate)?;
         let (first, last) = if width > 0.0 {
-            let start = params.bins_at("gate_start", rate)?;
-            let margin = params.bins_at("margin", rate)?;
+            let start = s.gate_start.bins(rate)?;
+            let margin = s.margin.bins(rate)?;
             (start - margin, start + width + margin)
         } else {
             (0.0, sweep.iq.len() as f64)
@@ -133,8 +111,23 @@ impl SplitPair {
     }
 }
 
-impl Block for SplitPair {
-    fn process(&mut self, _port: usize, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+impl TypedBlock for SplitPair {
+    type Settings = SplitPairSettings;
+    type In = SplitPairIn;
+    type Out = NoPorts;
+
+    fn build(s: SplitPairSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
+        let separation = parse_separation(&s.separation).map_err(|e| ParamError::invalid("separation", e))?;
+        Ok(SplitPair {
+            averages: LobeAverages::new(s.average),
+            separation,
+            settings: s,
+            files: ctx.files.clone(),
+            untagged: 0,
+        })
+    }
+
+    fn process(&mut self, _port: SplitPairIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
         let Item::Sweep(sweep) = item else {
             return Ok(());
         };
@@ -149,22 +142,22 @@ impl Block for SplitPair {
             return Ok(());
         };
         let name: &str = &tag.name;
-        if self.pairs.iter().any(|p| p.plus == name || p.minus == name) {
-            let params = &self.params;
-            self.averages.add(name, tag.lobe, &sweep, |s| SplitPair::window(params, s))?;
+        if self.settings.pairs.iter().any(|p| p.plus == name || p.minus == name) {
+            let settings = &self.settings;
+            self.averages.add(name, tag.lobe, &sweep, |s| SplitPair::window(settings, s))?;
         }
         Ok(())
     }
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         let mut panels = Vec::new();
-        for pair in &self.pairs {
+        for pair in &self.settings.pairs {
             let a = self.averages.get(&pair.plus);
             let b = self.averages.get(&pair.minus);
             let gate = match self.averages.window() {
                 Some(w) => {
-                    let width = self.params.bins_at("gate_width", w.rate)?;
-                    let start = self.params.bins_at("gate_start", w.rate)? - w.first as f64;
+                    let width = self.settings.gate_width.bins(w.rate)?;
+                    let start = self.settings.gate_start.bins(w.rate)? - w.first as f64;
                     (width > 0.0)
                         .then_some((start.max(0.0).round() as usize, (start + width).max(0.0).round() as usize))
                 }
@@ -186,7 +179,7 @@ impl Block for SplitPair {
             });
         }
         let picture = SplitPicture { panels, separation: self.separation, untagged: self.untagged };
-        write_picture(&picture, &self.path, &self.files)?;
+        write_picture(&picture, &self.settings.path, &self.files)?;
         Ok(())
     }
 }
