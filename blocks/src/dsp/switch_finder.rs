@@ -29,8 +29,11 @@ const MIN_DWELLS: f64 = 12.0;
 /// many of its deviations over the window's median.
 const DETECT_SD: f64 = 4.0;
 /// Alpha-beta gains of the phase and dwell corrections (a few dwells of memory).
-const ALPHA: f64 = 0.3;
-const BETA: f64 = 0.03;
+const ALPHA: f64 = 0.15;
+const BETA: f64 = 0.01;
+/// Cells by which a switch in a run of samples is said early (about the
+/// spread of the located switches).
+const EARLY_CELLS: f64 = 2.0;
 /// Switches missed in a row before the timeline says the finder is coasting.
 const COAST_NOTE: u64 = 8;
 
@@ -72,6 +75,8 @@ pub struct Acquired {
     pub step_cells: usize,
     /// Significance of the train (autocorrelation peak over its noise).
     pub significance: f64,
+    /// Samples from one cell's start to the next.
+    pub spacing: f64,
 }
 
 /// One cell: its first sample, its samples, their summed and largest power.
@@ -111,6 +116,8 @@ impl Scale {
 #[derive(Clone, Copy, Debug)]
 struct Feature {
     cells: usize,
+    /// Each cell is a sweep (switches fall between cells), not a run of samples.
+    whole_cells: bool,
     step: Scale,
     peak: Scale,
 }
@@ -134,25 +141,33 @@ fn log_peak(c: &Cell) -> f64 {
 
 impl Feature {
     /// Scales from the acquisition cells.
-    fn learn(cells: &[Cell], k: usize) -> Feature {
+    fn learn(cells: &[Cell], k: usize, whole_cells: bool) -> Feature {
         let steps: Vec<f64> = (0..cells.len()).map(|j| step_at(cells, j, k)).collect();
         let peaks: Vec<f64> = cells.iter().map(log_peak).collect();
-        Feature { cells: k, step: Scale::of(&steps), peak: Scale::of(&peaks) }
+        Feature { cells: k, whole_cells, step: Scale::of(&steps), peak: Scale::of(&peaks) }
     }
 
     /// The feature of cell `j` (0 where the step window does not fit).
     fn at(&self, cells: &[Cell], j: usize) -> f64 {
         let step = step_at(cells, j, self.cells);
         let step = if step.is_finite() { self.step.z(step) } else { 0.0 };
-        // the transient shows in the cell before the first cell of the new dwell or in it
-        let peak = [j.checked_sub(1), Some(j)]
-            .into_iter()
-            .flatten()
+        // the transient begins at the switch, inside the cell before the
+        // first whole cell of the new dwell (or at the tail of the sweep before)
+        // (a run of samples: a transient of a few samples may reach into it)
+        let last = if self.whole_cells { j } else { j + 1 };
+        let peak = (j.saturating_sub(1)..last)
             .filter_map(|i| cells.get(i))
             .map(|c| self.peak.z(log_peak(c)))
-            .fold(f64::NEG_INFINITY, f64::max);
-        step + peak.max(0.0)
+            .fold(0.0, f64::max);
+        step + peak
     }
+}
+
+/// Half-width (samples) of the search about a predicted switch: a quarter
+/// dwell, but at least two and a half cells (a dwell of a few sweeps), and
+/// short of the neighbouring switches.
+fn reach(dwell: f64, spacing: f64) -> f64 {
+    (dwell / 4.0).max(2.5 * spacing).min(0.45 * dwell)
 }
 
 /// Position (samples) of a fractional cell index.
@@ -163,7 +178,7 @@ fn position(cells: &[Cell], p: f64) -> f64 {
 }
 
 /// Find the switch train in the acquisition cells.
-fn acquire(cells: &[Cell]) -> Option<(Acquired, Feature)> {
+fn acquire(cells: &[Cell], whole_cells: bool) -> Option<(Acquired, Feature)> {
     if cells.len() < 16 {
         return None;
     }
@@ -173,7 +188,7 @@ fn acquire(cells: &[Cell]) -> Option<(Acquired, Feature)> {
         if (cells.len() as f64) < MIN_DWELLS * 4.0 * k as f64 {
             break;
         }
-        let feature = Feature::learn(cells, k);
+        let feature = Feature::learn(cells, k, whole_cells);
         let values: Vec<f32> = (0..cells.len()).map(|j| feature.at(cells, j) as f32).collect();
         let Some((fit, significance)) = find_events(&values, k) else { continue };
         if best.as_ref().is_some_and(|b| b.0.significance >= significance) {
@@ -196,19 +211,22 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
     let end = (cells[cells.len() - 1].start + u64::from(cells[cells.len() - 1].count)) as f64;
     let spacing = (end - cells[0].start as f64) / cells.len() as f64;
     let mut fit = None;
-    for share in [0.25, 1.0] {
+    // the first line through the first MIN_DWELLS switches (or a quarter, when more)
+    let first_share = (MIN_DWELLS * dwell / (end - cells[0].start as f64)).clamp(0.25, 1.0);
+    for share in [first_share, 1.0] {
         let first = cells[0].start as f64 + (k + 1) as f64 * spacing;
         let last = cells[0].start as f64 + share * (end - cells[0].start as f64) - (k + 1) as f64 * spacing;
         let mut points = Vec::new();
         let mut n = ((first - origin) / dwell).ceil() as i64;
         while origin + n as f64 * dwell <= last {
             let centre = origin + n as f64 * dwell;
-            let (lo, hi) = (centre - dwell / 4.0, centre + dwell / 4.0);
+            let half = reach(dwell, spacing);
+            let (lo, hi) = (centre - half, centre + half);
             let window: Vec<(usize, f64)> = (0..cells.len())
                 .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
                 .map(|j| (j, feature.at(cells, j)))
                 .collect();
-            if let Some(at) = locate(cells, &window) {
+            if let Some(at) = locate(cells, &window, feature.whole_cells) {
                 points.push((n as f64, at));
             }
             n += 1;
@@ -218,7 +236,7 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
         fit = Some(line);
     }
     let fit = fit?;
-    if fit.used < 8 {
+    if (fit.used as f64) < MIN_DWELLS / 2.0 {
         return None;
     }
     // the instant of the first switch in the stretch, and its error there
@@ -231,6 +249,7 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
         events: fit.used,
         step_cells: k,
         significance,
+        spacing,
     })
 }
 
@@ -250,6 +269,8 @@ struct Track {
     lost: bool,
     /// Cells kept for the windows still to be judged.
     cells: VecDeque<Cell>,
+    /// Samples from one cell's start to the next.
+    spacing: f64,
 }
 
 enum Stage {
@@ -347,17 +368,20 @@ impl SwitchFinder {
         }
     }
 
-    /// Fit the switch train to what was collected and start tracking at `first` (the first sample).
-    pub fn end_acquisition(&mut self, first: u64) -> Result<&Acquired, String> {
+    /// Fit the switch train to what was collected and start tracking at
+    /// `first` (the first sample); returns what was found, for the person
+    /// running it (times at `rate`).
+    pub fn end_acquisition(&mut self, first: u64, rate: f64) -> Result<String, String> {
         let Stage::Acquiring(cells) = &mut self.stage else {
-            return self.acquired.as_ref().ok_or_else(|| "switch finder has no acquisition".to_string());
+            return Err("the switch finder has already acquired its switch train".into());
         };
         cells.extend(self.open.take());
-        let Some((found, feature)) = acquire(cells) else {
+        let Some((found, feature)) = acquire(cells, self.settings.cell == 0) else {
             let seen = cells.last().map_or(0, |c| c.start + u64::from(c.count)) - cells.first().map_or(0, |c| c.start);
             return Err(format!(
                 "timing 'signal' found no regular switch train (amplitude steps or switch transients) in the first \
-                 {seen} samples; lengthen 'learn' to hold at least {MIN_DWELLS} dwells, or give the schedule (timing: schedule)"
+                 {} ms; lengthen 'learn' to hold at least {MIN_DWELLS} dwells, or give the schedule (timing: schedule)",
+                seen as f64 / rate * 1e3
             ));
         };
         let known = &self.settings.known;
@@ -366,6 +390,19 @@ impl SwitchFinder {
         let lobe_shift = (known.lobe as i64 - dwell_of(known.at)).rem_euclid(lobes);
         let k = dwell_of(first as f64) + 1;
         let next = found.switch_at + k as f64 * found.dwell;
+        let ms = |samples: f64| samples / rate * 1e3;
+        let said = format!(
+            "switch train found in the signal: dwell {:.5} ms ± {:.5} ms, a switch at {:.4} ms ± {:.4} ms \
+             (line through {} switches; 4 standard errors, plus a cell for the instant); lobe {} active at {:.4} ms ({})",
+            ms(found.dwell),
+            ms(found.dwell_within),
+            ms(found.switch_at),
+            ms(found.switch_within),
+            found.events,
+            self.settings.names[known.lobe],
+            ms(known.at),
+            known.source
+        );
         self.stage = Stage::Tracking(Box::new(Track {
             feature,
             next,
@@ -376,22 +413,23 @@ impl SwitchFinder {
             dwell_within: found.dwell_within.max(1e-6),
             lost: false,
             cells: VecDeque::new(),
+            spacing: found.spacing,
         }));
         self.acquired = Some(found);
-        Ok(self.acquired.as_ref().expect("just set"))
+        Ok(said)
     }
 
     /// Feed the samples from `index` on (each sample's power); samples already seen are skipped.
-    pub fn feed(&mut self, index: u64, powers: &[f64]) {
-        let skip = self.next_index.saturating_sub(index).min(powers.len() as u64) as usize;
-        let index = index + skip as u64;
-        let powers = &powers[skip..];
-        if powers.is_empty() {
+    pub fn feed(&mut self, index: u64, powers: impl ExactSizeIterator<Item = f64>) {
+        let len = powers.len() as u64;
+        let skip = self.next_index.saturating_sub(index).min(len);
+        if skip == len {
             return;
         }
-        self.next_index = index + powers.len() as u64;
+        let index = index + skip;
+        self.next_index = index + (len - skip);
         let mut fresh = Vec::new();
-        self.cells_of(index, powers.iter().copied(), &mut fresh);
+        self.cells_of(index, powers.skip(skip as usize), &mut fresh);
         let lobes = self.settings.names.len() as i64;
         let Stage::Tracking(track) = &mut self.stage else { return };
         if !self.started {
@@ -440,19 +478,14 @@ impl SwitchFinder {
 }
 
 impl Track {
-    /// Half-width of the search about a predicted switch: a quarter dwell.
     fn reach(&self) -> f64 {
-        self.dwell / 4.0
-    }
-
-    fn cell_span(&self) -> f64 {
-        self.cells.front().map_or(1.0, |c| f64::from(c.count.max(1)))
+        reach(self.dwell, self.spacing)
     }
 
     /// Judge the next predicted switch once the cells around it are in;
     /// false when they are not in yet.
     fn judge_next(&mut self, lobes: i64, seen: &mut usize, events: &mut VecDeque<SwitchEvent>) -> bool {
-        let margin = self.reach() + (self.feature.cells + 1) as f64 * self.cell_span();
+        let margin = self.reach() + (self.feature.cells + 1) as f64 * self.spacing;
         let Some(last) = self.cells.back() else { return false };
         if ((last.start + u64::from(last.count)) as f64) < self.next + margin {
             return false;
@@ -461,16 +494,17 @@ impl Track {
         while self.cells.front().is_some_and(|c| (c.start as f64) < self.next - margin) {
             self.cells.pop_front();
         }
-        let (lo, hi) = (self.next - self.reach(), self.next + self.reach());
+        let half = self.reach();
+        let (lo, hi) = (self.next - half, self.next + half);
         let feature = self.feature;
         let cells = self.cells.make_contiguous();
         let window: Vec<(usize, f64)> = (0..cells.len())
             .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
             .map(|j| (j, feature.at(cells, j)))
             .collect();
-        let at = match locate(cells, &window) {
+        let at = match locate(cells, &window, feature.whole_cells) {
             Some(observed) => {
-                let error = (observed - self.next).clamp(-self.reach(), self.reach());
+                let error = (observed - self.next).clamp(-half, half);
                 self.dwell += BETA * error;
                 if self.missed >= COAST_NOTE {
                     let what = format!("switch train seen again after {} dwells without a switch", self.missed);
@@ -487,7 +521,18 @@ impl Track {
             }
         };
         let lobe = (self.k + self.lobe_shift).rem_euclid(lobes) as usize;
-        let here = at.ceil().max(0.0) as u64;
+        let here = if feature.whole_cells {
+            // a sweep switches at its start: the nearest one
+            let nearest =
+                cells.iter().min_by(|a, b| (a.start as f64 - at).abs().total_cmp(&(b.start as f64 - at).abs()));
+            nearest.map_or(at.ceil().max(0.0) as u64, |c| c.start)
+        } else {
+            // early rather than late: a switch said late puts the new lobe's
+            // first samples and its transient into the old dwell, a switch said
+            // early only moves them into the guard
+            let margin = (EARLY_CELLS * self.spacing).min((1.0 - ALPHA) * half);
+            (at - margin).ceil().max(0.0) as u64
+        };
         events.push_back(SwitchEvent::Switch { at: here, lobe });
         if self.missed == COAST_NOTE {
             // the timeline shows it; no warning: a target on the boresight hides the steps
@@ -513,7 +558,7 @@ impl Track {
 
 /// The switch's position (samples) in a window of (cell, feature) pairs:
 /// the centroid of the peak, when it stands out of the window's median.
-fn locate(cells: &[Cell], window: &[(usize, f64)]) -> Option<f64> {
+fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool) -> Option<f64> {
     if window.len() < 3 {
         return None;
     }
@@ -526,11 +571,15 @@ fn locate(cells: &[Cell], window: &[(usize, f64)]) -> Option<f64> {
         return None;
     }
     // A cell's step is across its start, and the switch lies in the cell
-    // before (its transient too): on average half a cell before that start.
+    // before (its transient too): on average half a cell before that start
+    // for runs of samples; a sweep switches at its end.
     let (mut num, mut den) = (0.0, 0.0);
     for &(j, v) in window.iter().skip(at.saturating_sub(1)).take(3) {
         let w = (v - median).max(0.0);
-        let half = j.checked_sub(1).map_or(0.0, |i| f64::from(cells[i].count) / 2.0);
+        let half = match j.checked_sub(1) {
+            Some(i) if !whole_cells => f64::from(cells[i].count) / 2.0,
+            _ => 0.0,
+        };
         num += w * (position(cells, j as f64) - half);
         den += w;
     }
@@ -586,13 +635,14 @@ mod tests {
         let p = powers(200_000, dwell, first, 5, &[300, 301, 302, 500], 100_000 + 80);
         let mut f = finder(first + 10.0);
         assert!(f.acquire_from(0, p[..50_000].iter().copied()));
-        let found = f.end_acquisition(0).unwrap().clone();
+        f.end_acquisition(0, 64e3).unwrap();
+        let found = f.acquired().unwrap().clone();
         assert!((found.dwell - dwell).abs() <= found.dwell_within.max(0.05), "{found:?}");
         let phase = (found.switch_at - first).rem_euclid(dwell);
         let phase = phase.min(dwell - phase);
         assert!(phase <= found.switch_within, "{found:?}");
         for chunk in (0..p.len()).step_by(7_000) {
-            f.feed(chunk as u64, &p[chunk..(chunk + 7_000).min(p.len())]);
+            f.feed(chunk as u64, p[chunk..(chunk + 7_000).min(p.len())].iter().copied());
         }
         f.finish(p.len() as u64);
         let events: Vec<SwitchEvent> = std::iter::from_fn(|| f.pop_event()).collect();
@@ -625,7 +675,7 @@ mod tests {
         let p: Vec<f64> = (0..50_000).map(|_| rng.gaussian().powi(2) + rng.gaussian().powi(2)).collect();
         let mut f = finder(0.0);
         f.acquire_from(0, p.iter().copied());
-        let e = f.end_acquisition(0).unwrap_err();
+        let e = f.end_acquisition(0, 64e3).unwrap_err();
         assert!(e.contains("no regular switch train") && e.contains("'learn'"), "{e}");
     }
 }

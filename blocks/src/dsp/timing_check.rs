@@ -114,7 +114,7 @@ impl ScheduleCheck {
 
     /// Fold samples from `index` on.
     pub fn add(&mut self, index: u64, iq: &[Complex32], sync: Option<&[f32]>) {
-        for (i, x) in iq.iter().enumerate() {
+        for (i, power) in iq.iter().map(|x| x.norm_sqr()).enumerate() {
             let t = (index + i as u64) as f64 - self.first_start;
             let dwell = (t / self.dwell).floor();
             let phase = t - dwell * self.dwell;
@@ -130,7 +130,7 @@ impl ScheduleCheck {
             let bin = ((phase - self.skip) / self.bin_width()) as usize;
             let bin = bin.min(self.bins - 1);
             let cell = dwell.rem_euclid(self.lobes as i64) as usize * self.bins + bin;
-            self.power.sum[cell] += f64::from(x.norm_sqr());
+            self.power.sum[cell] += f64::from(power);
             self.power.count[cell] += 1;
             if let Some(&s) = sync.and_then(|s| s.get(i)) {
                 for fold in [&mut self.sync, &mut self.sync_all] {

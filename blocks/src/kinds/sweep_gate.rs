@@ -66,10 +66,10 @@ pub struct SweepGateSettings {
 }
 
 /// The gates' parameters, then the cuts only sweeps need.
-const PARAMS: [ParamSpec; 12] = {
+const PARAMS: [ParamSpec; 14] = {
     let g = GateSettings::params(true);
     let c = SweepCutSettings::PARAMS;
-    [g[0], g[1], g[2], g[3], g[4], g[5], g[6], g[7], g[8], c[0], c[1], c[2]]
+    [g[0], g[1], g[2], g[3], g[4], g[5], g[6], g[7], g[8], g[9], g[10], c[0], c[1], c[2]]
 };
 
 impl Settings for SweepGateSettings {
@@ -213,6 +213,12 @@ impl GateKind for SweepLabeller {
             counts: Counts::default(),
         };
         Ok((s.switching, labeller))
+    }
+
+    /// The switch finder starts at the range window (the leakage lies
+    /// before it), or past twice the blanked leakage when there is none.
+    fn finder_head(&self, sweep: &Sweep) -> usize {
+        if self.window.0 > 0 { self.window.0 as usize } else { 2 * sweep.blanked as usize }
     }
 
     fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
