@@ -661,10 +661,9 @@ mod tests {
             }
             assert!(!matches!(e, SwitchEvent::Irregular { .. }), "{e:?}");
         }
-        let mean = errs.iter().sum::<f64>() / errs.len() as f64;
-        let worst = errs.iter().fold(0.0f64, |a, e| a.max(e.abs()));
-        // good to a cell (4 samples) on average, two at worst
-        assert!(mean.abs() <= 4.0 && worst <= 8.0, "mean {mean} worst {worst} {errs:?}");
+        // said early rather than late (by two cells, 8 samples), and good to a cell about that
+        let (earliest, latest) = errs.iter().fold((f64::MAX, f64::MIN), |a, &e| (a.0.min(e), a.1.max(e)));
+        assert!(earliest >= -12.0 && latest <= 2.0, "from {earliest} to {latest}: {errs:?}");
         assert_eq!(switches, ((200_000.0 - first) / dwell).floor() as usize + 1);
         assert!(f.seen() > switches - 10);
     }
