@@ -5,7 +5,8 @@
 //! truth within the confidence it states, the angles must match those of
 //! a run with the true schedule within 3 % in RMS, and a clean capture
 //! gives no warning. Also the schedule's drift check on a switch clock
-//! 0.08 % slow, and the error when nothing says which lobe is which.
+//! 0.08 % slow, the sync channel's labels checked against the echoes, and
+//! the error when nothing says which lobe is which.
 
 use super::inspect_captures::{capture, compare, n, repo, run_reporting, truth};
 use lobeflow_blocks::{Notice, Severity};
@@ -139,4 +140,33 @@ fn a_schedule_that_drifts_against_the_switches_is_named_with_the_dwell_that_fits
     let right = [set[0], set[1], ("dwell", "5.004 ms"), ("first_start", "1.2 ms")];
     let (_, _, notices) = run_reporting(name, "graphs/two-lobe-beacon.yaml", &right, "right");
     assert!(warnings_of(&notices, "gate").is_empty(), "{notices:#?}");
+}
+
+#[test]
+fn a_sync_channel_lagging_the_switches_by_a_sweep_is_named_and_a_right_one_is_not() {
+    // make_captures.py's pulsed rig: 250 kS/s, 5 kHz PRF (200 us), 8 pulses per dwell
+    let set = [
+        ("prf", "5 kHz"),
+        ("dwell", "8 pulses"),
+        ("guard", "12 us"),
+        ("lead", "3 us"),
+        ("leakage_threshold", "25 dB"),
+        ("blank", "12 us"),
+        ("pulse", "8 us"),
+        ("search_start", "4 km"),
+        ("search_end", "26 km"),
+        ("noise_start", "14 km"),
+        ("noise_width", "12 km"),
+    ];
+    let graph = "graphs/four-lobe-pulsed.yaml";
+    let gate = |w: &[Notice]| w.iter().filter(|n| n.block.as_ref() == "front/gate").cloned().collect::<Vec<_>>();
+    let right = super::schedule_check::warnings("sync-right", graph, "pulsed-switch-at-transmit.wav", &set);
+    assert!(gate(&right).is_empty(), "{right:#?}");
+    // the staircase 50 samples (one pulse interval) behind the switches
+    let late = super::schedule_check::warnings("sync-late", graph, "pulsed-sync-late.wav", &set);
+    let late = gate(&late);
+    assert_eq!(late.len(), 1, "{late:#?}");
+    let what = &late[0].what;
+    assert!(what.contains("change lobe 1 sweep(s) before the sync channel's switches"), "{what}");
+    assert!(what.contains("lag the lobe switches by about 200 us"), "{what}");
 }

@@ -8,6 +8,7 @@ pub mod pulse_timing;
 pub mod rng;
 pub mod smoother;
 pub mod spectrum;
+pub mod sweep_label_check;
 pub mod switch_finder;
 pub mod switch_schedule;
 pub mod switch_sync;

@@ -5,8 +5,10 @@
 //! only a transient that reaches into the range window the integrator uses
 //! drops the sweep, and every such drop is counted with its reason.
 
-use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate};
+use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate, SwitchTiming};
 use crate::block::{BlockError, BlockSpec, Outputs};
+use crate::dsp::sweep_label_check::SweepLabelCheck;
+use crate::dsp::switch_sync::Irregularity;
 use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params};
@@ -91,6 +93,10 @@ pub struct SweepLabeller {
     emitted_dwell: Option<u64>,
     dwell: u64,
     counts: Counts,
+    /// Sync timing: the sync channel's labels checked against the echoes.
+    label_check: Option<SweepLabelCheck>,
+    /// First and last sweep start and the sweeps between (their mean spacing).
+    starts: Option<(u64, u64, u64)>,
 }
 
 type Driver = SwitchDriver<SweepLabeller>;
@@ -115,6 +121,7 @@ fn sweep_end(s: &Sweep) -> u64 {
 impl SweepLabeller {
     fn label(&mut self, d: &mut Driver, mut sweep: Sweep, out: &mut Outputs) {
         let start = sweep.stamp.index;
+        self.starts = Some(self.starts.map_or((start, start, 0), |(first, _, n)| (first, start, n + 1)));
         let end = sweep_end(&sweep);
         let window_start = start + self.window.0;
         let window_end = self.window.1.map(|w| start + w);
@@ -153,15 +160,28 @@ impl SweepLabeller {
             self.counts.cut += 1;
         }
         let dwell_start = current.dwell_start;
+        let lobe = current.lobe;
         if self.emitted_dwell != Some(dwell_start) {
             if self.emitted_dwell.is_some() {
                 self.dwell += 1;
             }
             self.emitted_dwell = Some(dwell_start);
+            if let Some(check) = self.label_check.as_mut() {
+                check.switch(lobe);
+            }
         }
-        let lobe = current.lobe;
+        if let Some(check) = self.label_check.as_mut() {
+            let end = self.window.1.map_or(sweep.iq.len(), |e| (e as usize).min(sweep.iq.len()));
+            let window = &sweep.iq[(self.window.0 as usize).min(end)..end];
+            check.sweep(window.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>() / window.len().max(1) as f64);
+        }
         sweep.lobe = Some(LobeTag { lobe, name: d.lobe_name(lobe), dwell: self.dwell, dwell_start });
         out.push(SweepGateOut::Sweeps, Item::Sweep(sweep));
+    }
+
+    /// Mean samples from one sweep's start to the next.
+    fn spacing(&self) -> f64 {
+        self.starts.map_or(0.0, |(first, last, n)| (last - first) as f64 / n.max(1) as f64)
     }
 
     /// The end-of-run account of what switch transients did to sweeps.
@@ -211,6 +231,9 @@ impl GateKind for SweepLabeller {
             emitted_dwell: None,
             dwell: 0,
             counts: Counts::default(),
+            label_check: (s.switching.timing == SwitchTiming::Sync)
+                .then(|| SweepLabelCheck::new(s.switching.lobes.len())),
+            starts: None,
         };
         Ok((s.switching, labeller))
     }
@@ -246,6 +269,17 @@ impl GateKind for SweepLabeller {
     fn finish(&mut self, d: &mut Driver, last: Option<Stamp>, out: &mut Outputs) -> Result<(), BlockError> {
         if let Some(stamp) = last {
             self.report_counts(d, out, stamp);
+            if let Some(step) = self.label_check.as_mut().and_then(SweepLabelCheck::finish) {
+                let (count, side) = (step.sweeps.abs(), if step.sweeps > 0 { "after" } else { "before" });
+                let what = format!(
+                    "the echoes change lobe {count} sweep(s) {side} the sync channel's switches (standard score {:.0}): \
+                     the sync edges {} the lobe switches by about {} us",
+                    step.score,
+                    if step.sweeps > 0 { "lead" } else { "lag" },
+                    (self.spacing() * count as f64 / stamp.rate * 1e6).round()
+                );
+                d.router.irregular(out, stamp, Irregularity::Schedule, what);
+            }
         }
         Ok(())
     }
