@@ -180,7 +180,7 @@ mod tests {
         let mut check = SweepLabelCheck::new(4);
         let gain = [1.0, 1.3, 0.8, 1.1];
         for k in 0..40_000usize {
-            if (k + 8 - lag) % 8 == 0 {
+            if (k + 8 - lag).is_multiple_of(8) {
                 check.switch((k + 8 - lag) / 8 % 4);
             }
             let real = k / 8 % 4;
