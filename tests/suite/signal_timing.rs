@@ -85,7 +85,20 @@ fn pulsed_without_sync_gives_the_angles_of_its_true_schedule() {
     let first_text = format!("{} ms", first_switch - dwell);
     let mut known = regions.to_vec();
     known.extend([("timing", "schedule"), ("dwell", dwell_text.as_str()), ("first_start", first_text.as_str())]);
-    let (truth_angles, _, _) = run_reporting(name, graph, &known, "true");
+    let (truth_angles, _, truth_notices) = run_reporting(name, graph, &known, "true");
+    // the true schedule agrees with the echoes
+    assert!(warnings_of(&truth_notices, "front/gate").is_empty(), "{truth_notices:#?}");
+    // three sweeps late: named, with the first_start that fits
+    let late = format!("{} ms", first_switch - dwell + 3.0 / n(&t, "prf_hz") * 1e3);
+    let mut off = regions.to_vec();
+    off.extend([("timing", "schedule"), ("dwell", dwell_text.as_str()), ("first_start", late.as_str())]);
+    let (_, _, off_notices) = run_reporting(name, graph, &off, "late");
+    let warned = warnings_of(&off_notices, "front/gate");
+    assert_eq!(warned.len(), 1, "{off_notices:#?}");
+    let fit: f64 =
+        warned[0].what.split("first_start ≈ ").nth(1).and_then(|v| v.split(" ms").next()?.parse().ok()).unwrap();
+    assert!((fit - (first_switch - dwell)).abs() <= 0.01, "{}", warned[0].what);
+    assert!(warned[0].what.contains("3 sweep(s) before the scheduled switches"), "{}", warned[0].what);
     let mut blind = regions.to_vec();
     // the first lobe of the order is active at the first sample
     blind.extend([("timing", "signal"), ("known_lobe", "right")]);

@@ -7,7 +7,7 @@
 
 use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate, SwitchTiming};
 use crate::block::{BlockError, BlockSpec, Outputs};
-use crate::dsp::sweep_label_check::SweepLabelCheck;
+use crate::dsp::sweep_label_check::{SweepLabelCheck, SweepStep};
 use crate::dsp::switch_sync::Irregularity;
 use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
@@ -179,6 +179,27 @@ impl SweepLabeller {
         out.push(SweepGateOut::Sweeps, Item::Sweep(sweep));
     }
 
+    /// What the labels' check found, with what would fit.
+    fn describe_step(&self, d: &Driver, step: &SweepStep, stamp: Stamp) -> String {
+        let (count, side) = (step.sweeps.abs(), if step.sweeps > 0 { "after" } else { "before" });
+        let shift = self.spacing() * step.sweeps as f64 / stamp.rate;
+        let source = if d.cfg.timing == SwitchTiming::Sync { "the sync channel's" } else { "the scheduled" };
+        let fit = match d.cfg.first_start.samples(stamp.rate, Some(self.spacing())) {
+            Ok(first) if d.cfg.timing == SwitchTiming::Schedule => {
+                format!("first_start ≈ {:.3} ms?", (first / stamp.rate + shift) * 1e3)
+            }
+            _ => format!(
+                "the sync edges {} the lobe switches by about {} us",
+                if step.sweeps > 0 { "lead" } else { "lag" },
+                (shift.abs() * 1e6).round()
+            ),
+        };
+        format!(
+            "the echoes change lobe {count} sweep(s) {side} {source} switches (standard score {:.0}): {fit}",
+            step.score
+        )
+    }
+
     /// Mean samples from one sweep's start to the next.
     fn spacing(&self) -> f64 {
         self.starts.map_or(0.0, |(first, last, n)| (last - first) as f64 / n.max(1) as f64)
@@ -231,7 +252,8 @@ impl GateKind for SweepLabeller {
             emitted_dwell: None,
             dwell: 0,
             counts: Counts::default(),
-            label_check: (s.switching.timing == SwitchTiming::Sync)
+            // the switch finder's own instants need no check against the signal
+            label_check: (s.switching.timing != SwitchTiming::Signal)
                 .then(|| SweepLabelCheck::new(s.switching.lobes.len())),
             starts: None,
         };
@@ -270,14 +292,7 @@ impl GateKind for SweepLabeller {
         if let Some(stamp) = last {
             self.report_counts(d, out, stamp);
             if let Some(step) = self.label_check.as_mut().and_then(SweepLabelCheck::finish) {
-                let (count, side) = (step.sweeps.abs(), if step.sweeps > 0 { "after" } else { "before" });
-                let what = format!(
-                    "the echoes change lobe {count} sweep(s) {side} the sync channel's switches (standard score {:.0}): \
-                     the sync edges {} the lobe switches by about {} us",
-                    step.score,
-                    if step.sweeps > 0 { "lead" } else { "lag" },
-                    (self.spacing() * count as f64 / stamp.rate * 1e6).round()
-                );
+                let what = self.describe_step(d, &step, stamp);
                 d.router.irregular(out, stamp, Irregularity::Schedule, what);
             }
         }
