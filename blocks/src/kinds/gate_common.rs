@@ -10,7 +10,9 @@
 
 use crate::block::{BlockError, BuildContext, Outputs};
 use crate::dsp::switch_finder::{FinderSettings, KnownLobe};
-use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
+use crate::dsp::switch_sync::{
+    Irregularity, MAX_LEARN_SAMPLES, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings,
+};
 use crate::dsp::timing_check::ScheduleCheck;
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, LabelledSpan, StreamFacts};
@@ -568,7 +570,7 @@ impl GateSettings {
                 name: "learn",
                 ty: time(0.0, pulses),
                 default: Some("200 ms"),
-                doc: "data used to learn the sync levels (at least one full lobe cycle, at most 4 Mi samples), or to find the switch train (timing signal: a dozen dwells or more)",
+                doc: "data used to learn the sync levels (at least one full lobe cycle, at most 4 Mi samples), or to find the switch train (timing signal: a dozen dwells or more, at most 4 Mi samples)",
             },
             ParamSpec {
                 name: "tolerance",
@@ -727,7 +729,8 @@ impl GateSettings {
             })?,
             SwitchTiming::Signal => SwitchSync::from_signal(FinderSettings {
                 names: self.lobes.clone(),
-                acquire: self.learn.samples(rate, pri)?.round().max(1.0) as usize,
+                // the held pieces are bounded as the sync levels' learning is
+                acquire: (self.learn.samples(rate, pri)?.round().max(1.0) as usize).min(MAX_LEARN_SAMPLES),
                 // about 30 us: fine enough to place a switch, coarse enough to fold fast
                 cell: if one_cell { 0 } else { (rate * FINDER_CELL_S).round().max(1.0) as usize },
                 known: self.known(rate, pri, marks)?,
