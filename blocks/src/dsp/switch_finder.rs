@@ -28,6 +28,12 @@ const MIN_DWELLS: f64 = 12.0;
 /// A switch is seen when the feature's peak near the prediction stands this
 /// many of its deviations over the window's median.
 const DETECT_SD: f64 = 4.0;
+/// While tracking, a switch must also reach this share of the acquired
+/// switches' typical height: noise alone passes four deviations somewhere
+/// in a window now and then, and would reset the coasting count.
+const TRACK_SHARE: f64 = 0.6;
+/// While coasting, a switch must stand this much higher again to count.
+const REGAIN: f64 = 1.4;
 /// Alpha-beta gains of the phase and dwell corrections (a few dwells of memory).
 const ALPHA: f64 = 0.15;
 const BETA: f64 = 0.01;
@@ -77,6 +83,8 @@ pub struct Acquired {
     pub significance: f64,
     /// Samples from one cell's start to the next.
     pub spacing: f64,
+    /// The located switches' median height over their windows (feature units).
+    pub height: f64,
 }
 
 /// One cell: its first sample, its samples, their summed and largest power.
@@ -211,12 +219,14 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
     let end = (cells[cells.len() - 1].start + u64::from(cells[cells.len() - 1].count)) as f64;
     let spacing = (end - cells[0].start as f64) / cells.len() as f64;
     let mut fit = None;
+    let mut heights: Vec<f64> = Vec::new();
     // the first line through the first MIN_DWELLS switches (or a quarter, when more)
     let first_share = (MIN_DWELLS * dwell / (end - cells[0].start as f64)).clamp(0.25, 1.0);
     for share in [first_share, 1.0] {
         let first = cells[0].start as f64 + (k + 1) as f64 * spacing;
         let last = cells[0].start as f64 + share * (end - cells[0].start as f64) - (k + 1) as f64 * spacing;
         let mut points = Vec::new();
+        heights.clear();
         let mut n = ((first - origin) / dwell).ceil() as i64;
         while origin + n as f64 * dwell <= last {
             let centre = origin + n as f64 * dwell;
@@ -226,8 +236,9 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
                 .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
                 .map(|j| (j, feature.at(cells, j)))
                 .collect();
-            if let Some(at) = locate(cells, &window, feature.whole_cells) {
+            if let Some((at, height)) = locate(cells, &window, feature.whole_cells, DETECT_SD) {
                 points.push((n as f64, at));
+                heights.push(height);
             }
             n += 1;
         }
@@ -241,6 +252,7 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
     }
     // the instant of the first switch in the stretch, and its error there
     let n0 = ((cells[0].start as f64 - fit.intercept) / fit.slope).ceil();
+    heights.sort_by(f64::total_cmp);
     Some(Acquired {
         dwell: fit.slope,
         dwell_within: 4.0 * fit.slope_se,
@@ -250,6 +262,7 @@ fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, signi
         step_cells: k,
         significance,
         spacing,
+        height: heights[heights.len() / 2],
     })
 }
 
@@ -271,6 +284,8 @@ struct Track {
     cells: VecDeque<Cell>,
     /// Samples from one cell's start to the next.
     spacing: f64,
+    /// Least peak height that counts as a switch while tracking.
+    threshold: f64,
 }
 
 enum Stage {
@@ -414,6 +429,7 @@ impl SwitchFinder {
             lost: false,
             cells: VecDeque::new(),
             spacing: found.spacing,
+            threshold: DETECT_SD.max(TRACK_SHARE * found.height),
         }));
         self.acquired = Some(found);
         Ok(said)
@@ -502,8 +518,10 @@ impl Track {
             .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
             .map(|j| (j, feature.at(cells, j)))
             .collect();
-        let at = match locate(cells, &window, feature.whole_cells) {
-            Some(observed) => {
+        // after a run of misses a chance peak in the noise must not pass for the train
+        let threshold = if self.missed >= COAST_NOTE { self.threshold * REGAIN } else { self.threshold };
+        let at = match locate(cells, &window, feature.whole_cells, threshold) {
+            Some((observed, _)) => {
                 let error = (observed - self.next).clamp(-half, half);
                 self.dwell += BETA * error;
                 if self.missed >= COAST_NOTE {
@@ -558,7 +576,9 @@ impl Track {
 
 /// The switch's position (samples) in a window of (cell, feature) pairs:
 /// the centroid of the peak, when it stands out of the window's median.
-fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool) -> Option<f64> {
+/// Returns the position and the peak's height over the median; `threshold`
+/// is the least height that counts.
+fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool, threshold: f64) -> Option<(f64, f64)> {
     if window.len() < 3 {
         return None;
     }
@@ -567,7 +587,7 @@ fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool) -> Option<
     let median = sorted[sorted.len() / 2];
     let (at, peak) =
         window.iter().enumerate().fold((0, f64::NEG_INFINITY), |a, (i, w)| if w.1 > a.1 { (i, w.1) } else { a });
-    if peak - median < DETECT_SD {
+    if peak - median < threshold {
         return None;
     }
     // A cell's step is across its start, and the switch lies in the cell
@@ -583,7 +603,7 @@ fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool) -> Option<
         num += w * (position(cells, j as f64) - half);
         den += w;
     }
-    (den > 0.0).then(|| num / den)
+    (den > 0.0).then(|| (num / den, peak - median))
 }
 
 #[cfg(test)]
@@ -676,5 +696,50 @@ mod tests {
         f.acquire_from(0, p.iter().copied());
         let e = f.end_acquisition(0, 64e3).unwrap_err();
         assert!(e.contains("no regular switch train") && e.contains("'learn'"), "{e}");
+    }
+
+    #[test]
+    fn a_train_that_fades_out_is_coasted_then_said_lost_and_found_again() {
+        let (dwell, first) = (160.4, 57.3);
+        let mut p = powers(600_000, dwell, first, 7, &[], 100);
+        // switches hidden from 100k to 500k samples: the target on the
+        // boresight (both lobes alike), no transients
+        let mut rng = Rng::new(8);
+        p[100_000..500_000].iter_mut().for_each(|v| {
+            let (re, im) = (1.3 + 0.7 * rng.gaussian(), 0.7 * rng.gaussian());
+            *v = re * re + im * im;
+        });
+        let mut f = finder(first + 10.0);
+        // a short acquisition: a dwell good to a few hundredths of a sample,
+        // so 2500 dwells of coasting may stray past an eighth of a dwell
+        f.acquire_from(0, p[..20_000].iter().copied());
+        f.end_acquisition(0, 64e3).unwrap();
+        let within = f.acquired().unwrap().dwell_within;
+        assert!(within * 2500.0 > dwell / 8.0, "{within}");
+        for chunk in (0..p.len()).step_by(10_000) {
+            f.feed(chunk as u64, p[chunk..chunk + 10_000].iter().copied());
+        }
+        let events: Vec<SwitchEvent> = std::iter::from_fn(|| f.pop_event()).collect();
+        let at = |want: &str| -> Vec<u64> {
+            events
+                .iter()
+                .filter_map(|e| match e {
+                    SwitchEvent::Note { at, what } | SwitchEvent::Irregular { at, what, .. } if what.contains(want) => {
+                        Some(*at)
+                    }
+                    _ => None,
+                })
+                .collect()
+        };
+        // (noise alone passes the threshold now and then in the gap, so the
+        // coasting count may start over a few times)
+        let coasting = at("following the tracked dwell");
+        assert!(!coasting.is_empty() && coasting.iter().all(|&c| c > 100_000 && c < 500_000), "{coasting:?}");
+        let lost = at("lost the switch train");
+        assert!(lost.len() == 1 && lost[0] > coasting[0] && lost[0] < 500_000, "{lost:?}");
+        let again = at("switch train seen again");
+        assert!(again.iter().any(|&a| (500_000..501_000).contains(&a)), "{again:?}");
+        let warnings = events.iter().filter(|e| matches!(e, SwitchEvent::Irregular { .. })).count();
+        assert_eq!(warnings, 1, "the loss is the only warning");
     }
 }
