@@ -30,6 +30,17 @@ pub struct StreamFacts {
     pub lobes: Option<Arc<[Arc<str>]>>,
     /// The auxiliary channels of sample chunks.
     pub channels: Option<Channels>,
+    /// Labelled stretches of the capture (its SigMF annotations), which may
+    /// name the lobe active there.
+    pub marks: Option<Arc<[LabelledSpan]>>,
+}
+
+/// A stretch of samples a capture's metadata gives a label.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LabelledSpan {
+    pub start: u64,
+    pub count: Option<u64>,
+    pub label: Arc<str>,
 }
 
 impl StreamFacts {
@@ -50,6 +61,7 @@ impl StreamFacts {
             pri_samples: self.pri_samples.or(other.pri_samples),
             lobes: self.lobes.or_else(|| other.lobes.clone()),
             channels: self.channels.or(other.channels),
+            marks: self.marks.or_else(|| other.marks.clone()),
         }
     }
 }

@@ -38,7 +38,7 @@ pub use block::{
     Block, BlockError, BlockSpec, BuildContext, BuildFn, DescribeFn, FileStager, Outputs, PortSpec, Registry,
 };
 pub use error::{BuildError, ParamError};
-pub use facts::{Channels, Facts, StreamFacts};
+pub use facts::{Channels, Facts, LabelledSpan, StreamFacts};
 pub use item::*;
 pub use limits::{BLOCK_MEMORY, MAX_PRF, MAX_SAMPLE_RATE, MEMORY_CEILING, check_memory};
 pub use output_file::{DeliveryPolicy, OutputFile};
@@ -52,7 +52,7 @@ pub use typed::{
 pub mod prelude {
     pub use crate::block::{BlockError, BlockSpec, BuildContext, Outputs, Registry};
     pub use crate::error::{BuildError, ParamError};
-    pub use crate::facts::{Channels, Facts, StreamFacts};
+    pub use crate::facts::{Channels, Facts, LabelledSpan, StreamFacts};
     pub use crate::item::{
         AngleEstimate, DwellRecord, ExtensionItem, Item, ItemKind, ItemType, LobeSegment, LobeTag, SampleChunk, Span,
         Stamp, Sweep, TableRow,

@@ -349,3 +349,58 @@ fn start_reports_the_lobes_and_refuses_sync_timing_without_a_sync_channel() {
     let err = gate.start(&Facts::new(&without_sync)).expect_err("no sync channel").to_string();
     assert!(err.contains("'timing' is 'sync'"), "{err}");
 }
+
+/// Timing 'signal': the lobe names come from a capture label handed on in
+/// the stream facts; without one (and without `known_lobe`) the gate
+/// refuses to start, naming both ways to say which lobe is which.
+#[test]
+fn signal_timing_names_the_lobes_from_a_capture_label() {
+    use lobeflow_blocks::{Facts, LabelledSpan, StreamFacts};
+    let (rate, dwell, first) = (64_000.0, 160.0, 57.0);
+    // west is 4 dB stronger than east; a 6-sample transient at each switch
+    let dwell_of = |n: u64| ((n as f64 - first) / dwell).floor() as i64;
+    let is_west = |n: u64| dwell_of(n).rem_euclid(2) == 1;
+    let mut rng = Rng::new(31);
+    let total = 96_000u64;
+    let iq: Vec<Complex32> = (0..total)
+        .map(|n| {
+            let amp = if is_west(n) { 1.58 } else { 1.0 };
+            let since = n as f64 - (first + dwell_of(n) as f64 * dwell);
+            let spike = if since < 6.0 { 5.0 } else { 0.0 };
+            let noise = 0.7 + spike;
+            Complex32::new((amp + noise * rng.gaussian()) as f32, (noise * rng.gaussian()) as f32)
+        })
+        .collect();
+    let chunk = SampleChunk { stamp: Stamp::new(0, rate), iq: iq.into(), sync: None, trigger: None };
+    let spec = &lobe_gate::SPEC;
+    let set = [("lobes", "east,west"), ("timing", "signal"), ("guard", "0.2 ms"), ("learn", "0.5 s")];
+    let mut gate =
+        (spec.build)(&params(spec, &set), &BuildContext { name: "gate".into(), ..Default::default() }).expect("builds");
+    let unlabelled = [StreamFacts::at_rate(rate)];
+    let err = gate.start(&Facts::new(&unlabelled)).expect_err("nothing names a lobe").to_string();
+    assert!(err.contains("'timing' is signal") && err.contains("known_lobe and known_at"), "{err}");
+    // a dwell of west labelled as a logger would mark it: dwell 3 starts at 57 + 3 * 160
+    let label = LabelledSpan { start: 537, count: Some(160), label: "West".into() };
+    let labelled = [StreamFacts { marks: Some(vec![label].into()), ..StreamFacts::at_rate(rate) }];
+    gate.start(&Facts::new(&labelled)).expect("the label names a lobe");
+    let mut out = Outputs::new(2);
+    let (mut right, mut wrong) = (0u64, 0u64);
+    let mut tally = |out: &mut Outputs| {
+        for (_, item) in out.drain() {
+            if let Item::Segment(seg) = item {
+                let first = seg.chunk.stamp.index;
+                for n in first..first + seg.chunk.len() as u64 {
+                    if (seg.tag.lobe == 1) == is_west(n) { right += 1 } else { wrong += 1 }
+                }
+            }
+        }
+    };
+    for at in (0..total as usize).step_by(4000) {
+        gate.process(0, Item::Samples(chunk.slice(at..at + 4000)), &mut out).expect("runs");
+        tally(&mut out);
+    }
+    gate.finish(&mut out).expect("finishes");
+    tally(&mut out);
+    // every sample handed on has its true lobe (a few at the switches at most)
+    assert!(right > total * 8 / 10 && wrong * 1000 < right, "{right} right, {wrong} wrong");
+}

@@ -10,7 +10,6 @@
 //! confidence (the interval the true value is claimed to lie in).
 //! The methods are written out in `docs/inspect.md`.
 
-mod fold;
 mod levels;
 pub mod params;
 mod pulses;

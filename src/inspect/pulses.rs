@@ -4,10 +4,10 @@
 //! channel's dwell, and without a sync channel the switch instants from the
 //! switch transients and the steps of the echo amplitude.
 
-use super::fold::{line_fit, whole_period};
 use super::levels::{Survey, SyncLevels};
 use super::{Figure, Installation, Source, Switching, identity_from_annotations, number};
 use lobeflow_blocks::SPEED_OF_LIGHT;
+use lobeflow_blocks::dsp::event_period::{LineFit, line_fit, whole_period};
 
 /// Longest sweep profiled, samples (a PRI longer than this is not measured).
 const MAX_SWEEP: usize = 1 << 16;
@@ -268,7 +268,7 @@ pub(super) fn measure(
 /// Line through the transmit instants: each is numbered by the whole number
 /// of median intervals since the previous one, so a missed pulse does not
 /// halve the rate and a spurious one is dropped as an outlier.
-fn pri_fit(instants: &[f64]) -> Option<super::fold::LineFit> {
+fn pri_fit(instants: &[f64]) -> Option<LineFit> {
     if instants.len() < 8 {
         return None;
     }

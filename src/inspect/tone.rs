@@ -2,9 +2,9 @@
 //! IQ, and the lobe switch instants from switch transients and steps of the
 //! tone's amplitude (folded at the full sample rate).
 
-use super::fold::{fractional_period, fundamental_lag, line_fit, peak_in};
 use super::levels::{Survey, SyncLevels};
 use super::{Figure, Installation, Source, Switching, identity_from_annotations, number};
+use lobeflow_blocks::dsp::event_period::{LineFit, find_events};
 use num_complex::{Complex32, Complex64};
 use rustfft::FftPlanner;
 use std::f64::consts::PI;
@@ -201,56 +201,6 @@ fn event_feature(x: &[Complex32], cum: &[Complex64], transients: &[f32], w: usiz
     feature
 }
 
-/// Events of `feature`: the period from block sums of `w` samples, then
-/// each event located to a fraction of a sample, walking from one to the
-/// next, and a line through them. Returns the line and the significance.
-fn find_events(feature: &[f32], w: usize) -> Option<(super::fold::LineFit, f64)> {
-    let blocks: Vec<f64> = feature.chunks(w).map(|c| c.iter().map(|&v| f64::from(v)).sum()).collect();
-    let max_lag = blocks.len() / 8;
-    let (lag, significance) = fundamental_lag(&blocks, max_lag)?;
-    if lag < 4 {
-        return None; // too few blocks per dwell at this window: a shorter one sees it
-    }
-    let (period_blocks, phase_blocks) = fractional_period(&blocks, lag, max_lag);
-    let mut events: Vec<f64> = Vec::new();
-    let mut period = period_blocks * w as f64;
-    let mut guess = phase_blocks * w as f64 + w as f64 / 2.0;
-    while guess + 2.0 * w as f64 <= feature.len() as f64 {
-        let lo = (guess - 1.5 * w as f64).max(0.0) as usize;
-        if let Some((at, _)) = peak_in(feature, lo, lo + 3 * w) {
-            if let Some(&first) = events.first() {
-                period = (at - first) / ((at - first) / period).round().max(1.0);
-            }
-            events.push(at);
-            guess = at + period;
-        } else {
-            guess += period;
-        }
-    }
-    let first = *events.first()?;
-    let points: Vec<(f64, f64)> = events.iter().map(|&t| (((t - first) / period).round(), t)).collect();
-    let fit = line_fit(&points, w as f64)?;
-    // events too weak to locate one by one wander off the folded period:
-    // then the fold's own period and phase stand, good to a block
-    let folded = period_blocks * w as f64;
-    let drift = (fit.slope - folded).abs() * fit.used as f64;
-    if drift > w as f64 || fit.jitter > w as f64 / 2.0 {
-        let n = (feature.len() as f64 / folded).floor().max(1.0);
-        return Some((
-            super::fold::LineFit {
-                slope: folded,
-                intercept: phase_blocks * w as f64,
-                jitter: w as f64,
-                slope_se: w as f64 / n / 4.0,
-                intercept_se: w as f64 / 4.0,
-                used: n as usize,
-            },
-            significance,
-        ));
-    }
-    Some((fit, significance))
-}
-
 /// Switch instants from the kept samples, at the shortest step window that
 /// shows a train of events.
 fn switching(source: &Source, survey: &Survey, fine: &Fine, noise: f64, inst: &mut Installation) {
@@ -285,9 +235,7 @@ fn switching(source: &Source, survey: &Survey, fine: &Fine, noise: f64, inst: &m
                 .max_by(|a, b| a.2.total_cmp(&b.2))
         });
     let (fit, onset) = match best {
-        Some((period, onset, _)) => {
-            (super::fold::LineFit { slope: period, intercept_se: fit.intercept_se.min(1.0), ..fit }, onset)
-        }
+        Some((period, onset, _)) => (LineFit { slope: period, intercept_se: fit.intercept_se.min(1.0), ..fit }, onset),
         None => (fit, 0.0),
     };
     let dwell_s = fit.slope / rate;

@@ -115,9 +115,10 @@ def pulsed_motion(t):
     return az, el, rng_m
 
 
-def make_pulsed(name, seconds, switch_offset, seed):
+def make_pulsed(name, seconds, switch_offset, seed, sync_delay=0):
     """A four-lobe pulsed capture. `switch_offset`: switch instant relative to
-    the first transmit instant of each dwell, in samples."""
+    the first transmit instant of each dwell, in samples; `sync_delay`: how
+    many samples the sync staircase lags the real switches (a slow line)."""
     p = PULSED
     rng = np.random.default_rng(seed)
     fs, pri, n_tot = p["rate"], p["pri"], int(round(seconds * p["rate"]))
@@ -157,9 +158,9 @@ def make_pulsed(name, seconds, switch_offset, seed):
         iq[m] += 10 ** (p["transient_db"] / 20.0) * (rng.standard_normal(len(m)) + 1j * rng.standard_normal(len(m))) / np.sqrt(2)
     # Sync: staircase with a short linear ramp starting at each switch instant.
     levels = np.array(p["sync_levels"])
-    sync = levels[active].astype(float)
-    prev = np.concatenate([[0], switch_at[:-1]])
-    for i, s in enumerate(switch_at):
+    sync_at = switch_at + sync_delay
+    sync = levels[np.searchsorted(sync_at, n, side="right") % len(p["lobes"])].astype(float)
+    for i, s in enumerate(sync_at):
         a, b = levels[(i) % 4], levels[(i + 1) % 4]
         for r in range(p["sync_ramp"]):
             if s + r < n_tot:
@@ -232,6 +233,8 @@ def main():
         "pulsed_switch_in_tail": make_pulsed("pulsed-switch-in-tail", 2.6, -4, 102),
         "pulsed_switch_in_echo": make_pulsed("pulsed-switch-in-echo", 0.4, 12, 103),
         "beacon_off_grid": make_beacon("beacon-off-grid", 21.0, 104),
+        # the sync staircase one pulse interval (50 samples) behind the switches
+        "pulsed_sync_late": make_pulsed("pulsed-sync-late", 0.6, -4, 105, sync_delay=50),
         "pulsed": PULSED,
         "beacon": BEACON,
     }

@@ -13,7 +13,8 @@ with `<name>.truth.csv` (time_s,az_deg[,el_deg]) and its installation numbers
 in `truth.json`. The PRFs and switch rates are chosen to be awkward for an
 envelope decimated to 8 kS/s: 6.25 kHz aliases to 1.75 kHz, 4.1 kHz to
 3.9 kHz, and a 400 Hz switch train made of short transients has harmonics as
-strong as its fundamental.
+strong as its fundamental. `beacon-drift` has a switch clock whose dwell
+(5.004 ms) is 0.08 % longer than the 5 ms a schedule would assume.
 
 Patterns (common practice, from memory):
 - Gaussian beam, one-way voltage exp(-2 ln2 (x/BW)^2), BW the one-way
@@ -193,6 +194,8 @@ def main():
                                    jitter_s=1e-6),
         "beacon-schedule": beacon("beacon-schedule", 2.4, 48e3, 9876.5, 0.020, -0.007, 6.0, 3, 6.0, 13),
         "beacon-blind": beacon("beacon-blind", 2.0, 64e3, -6432.1, 0.0025, 0.0009, 3.0, 6, 14.0, 14, label=1.0),
+        # a switch clock 0.08 % slow: a schedule of 5 ms dwells drifts by 1.9 ms (38 % of a dwell) over the capture
+        "beacon-drift": beacon("beacon-drift", 2.4, 48e3, 4321.0, 0.005004, 0.0012, 6.0, 4, 10.0, 15),
     }
     with open(os.path.join(OUT, "truth.json"), "w") as f:
         json.dump(truth, f, indent=1)

@@ -10,16 +10,16 @@ use lobeflow::inspect::{Installation, Source, measure};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
-fn repo(p: &str) -> PathBuf {
+pub(super) fn repo(p: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(p)
 }
 
-fn capture(name: &str) -> PathBuf {
+pub(super) fn capture(name: &str) -> PathBuf {
     let stem = repo("tests/independent/inspect").join(name);
     if name.starts_with("beacon") { stem.with_extension("sigmf-meta") } else { stem.with_extension("wav") }
 }
 
-fn truth(name: &str) -> serde_json::Value {
+pub(super) fn truth(name: &str) -> serde_json::Value {
     let text = std::fs::read_to_string(repo("tests/independent/inspect/truth.json")).unwrap();
     serde_json::from_str::<serde_json::Value>(&text).unwrap()[name].clone()
 }
@@ -58,7 +58,7 @@ fn same_phase(value: f64, truth: f64, period: f64, within: f64) {
     assert!(d <= within, "phase {value} against truth {truth} (period {period}): off by {d}, stated ±{within}");
 }
 
-fn n(v: &serde_json::Value, key: &str) -> f64 {
+pub(super) fn n(v: &serde_json::Value, key: &str) -> f64 {
     v[key].as_f64().unwrap_or_else(|| panic!("truth has no {key}"))
 }
 
@@ -132,11 +132,23 @@ fn blind_beacon_with_a_switch_train_whose_harmonics_dominate() {
 
 // ----------------------------------------------------------------- angles
 
-struct Angles {
+pub(super) struct Angles {
     rows: Vec<(f64, String, f64)>,
 }
 
 fn run(name: &str, graph: &str, settings: &[(&str, &str)], tag: &str) -> (Angles, String) {
+    let (angles, described, _) = run_reporting(name, graph, settings, tag);
+    (angles, described)
+}
+
+/// A run of `graph` on the independent capture `name`: its angles, its
+/// settings as `check` describes them, and its notices.
+pub(super) fn run_reporting(
+    name: &str,
+    graph: &str,
+    settings: &[(&str, &str)],
+    tag: &str,
+) -> (Angles, String, Vec<lobeflow_blocks::Notice>) {
     let d = std::env::temp_dir().join(format!("lobeflow-inspect-{}-{name}-{tag}", std::process::id()));
     let _ = std::fs::remove_dir_all(&d);
     let mut s = Session::open(repo(graph)).unwrap();
@@ -146,7 +158,7 @@ fn run(name: &str, graph: &str, settings: &[(&str, &str)], tag: &str) -> (Angles
     }
     let described = lobeflow::commands::check::describe(&s.resolve().unwrap());
     s.out_dir(d.join("out")).threads(2);
-    s.run().unwrap();
+    let report = s.run().unwrap();
     let text = std::fs::read_to_string(d.join("out/angles.csv")).unwrap();
     let mut lines = text.lines();
     let header: Vec<&str> = lines.next().unwrap().split(',').collect();
@@ -158,7 +170,7 @@ fn run(name: &str, graph: &str, settings: &[(&str, &str)], tag: &str) -> (Angles
         .map(|r| (r[tc].parse().unwrap(), r[ac].to_string(), r[ec].parse().unwrap()))
         .collect();
     let _ = std::fs::remove_dir_all(&d);
-    (Angles { rows }, described)
+    (Angles { rows }, described, report.notices)
 }
 
 /// RMS error against the truth file, per axis.
@@ -182,7 +194,7 @@ fn rms(a: &Angles, name: &str, axis: &str) -> (f64, usize) {
     ((errs.iter().map(|e| e * e).sum::<f64>() / errs.len().max(1) as f64).sqrt(), errs.len())
 }
 
-fn compare(name: &str, axis: &str, truth: &Angles, auto: &Angles) {
+pub(super) fn compare(name: &str, axis: &str, truth: &Angles, auto: &Angles) {
     let (want, n_true) = rms(truth, name, axis);
     let (got, n_auto) = rms(auto, name, axis);
     eprintln!(

@@ -25,5 +25,6 @@ mod regress_reports;
 mod report_page;
 mod runtime;
 mod schedule_check;
+mod signal_timing;
 mod synth_and_writers;
 mod validation_phase;

@@ -19,7 +19,7 @@ fn repo(p: &str) -> PathBuf {
 }
 
 /// Warnings of a run of `graph` on an independent capture.
-fn warnings(name: &str, graph: &str, capture: &str, settings: &[(&str, &str)]) -> Vec<Notice> {
+pub(super) fn warnings(name: &str, graph: &str, capture: &str, settings: &[(&str, &str)]) -> Vec<Notice> {
     let out = std::env::temp_dir().join(format!("lobeflow-schedule-check-{name}-{}", std::process::id()));
     let mut s = Session::open(repo(graph)).unwrap();
     s.set("input", repo("tests/independent/captures").join(capture).to_str().unwrap());

@@ -55,10 +55,10 @@ fn refused_at(result: Result<String, Error>, file: &str, line: usize, needle: &s
     text
 }
 
-/// Line 49 of the four-lobe graph sets the discriminator's parameters.
-const PAIRS_LINE: usize = 49;
-/// Line 40 of the four-lobe graph sets the capture reader's path.
-const READ_LINE: usize = 40;
+/// Line 54 of the four-lobe graph sets the discriminator's parameters.
+const PAIRS_LINE: usize = 54;
+/// Line 45 of the four-lobe graph sets the capture reader's path.
+const READ_LINE: usize = 45;
 
 #[test]
 fn malformed_lobe_pairs_fail_check_at_their_line() {

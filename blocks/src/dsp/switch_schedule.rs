@@ -89,3 +89,23 @@ impl ScheduleTracker {
         self.events.pop_front()
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn names(n: usize) -> Vec<Arc<str>> {
+        (0..n).map(|i| Arc::from(format!("l{i}"))).collect()
+    }
+
+    #[test]
+    fn schedule_floors_negative_times() {
+        let t = ScheduleTracker::new(ScheduleSettings { names: names(4), first_start: 250.5, dwell: 100.0 }).unwrap();
+        // Sample 250 lies before the start of lobe 0: it belongs to lobe 3 (floor of a negative).
+        assert_eq!(t.lobe_of(t.dwell_of(250)), 3);
+        assert_eq!(t.lobe_of(t.dwell_of(251)), 0);
+        assert_eq!(t.lobe_of(t.dwell_of(0)), 1);
+        assert_eq!(t.boundary(-3), -49);
+        assert_eq!(t.boundary(1), 351);
+    }
+}

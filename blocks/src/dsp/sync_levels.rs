@@ -2,7 +2,7 @@
 //! peaks split by deep valleys, refined by trimmed means. The lobe at
 //! position `i` of the configured order has the `i`-th lowest level.
 
-use super::switch_sync::min_spacing;
+use super::sync_tracker::min_spacing;
 
 /// Spread (standard deviation) below which one sync level is called flat:
 /// a few percent of the usual staircase spacing (levels 0.5 apart or more).

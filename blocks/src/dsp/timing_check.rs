@@ -15,6 +15,7 @@
 //! dwells of offset that amplitudes cannot. See docs/derivations.md
 //! ("Schedule cross-checks").
 
+use super::event_period::line_fit;
 use num_complex::Complex32;
 use std::ops::Range;
 
@@ -24,6 +25,10 @@ const BLOCK_CYCLES: i64 = 32;
 const MAX_BINS: usize = 128;
 /// Standard scores above this say the profiles step inside the dwell.
 const STEP_SCORE: f64 = 12.0;
+/// One block's best step score (per lobe past the first) that places its step for the drift check.
+const BLOCK_STEP_SCORE: f64 = 40.0;
+/// Steps that move less than this many fold bins over the run are no drift.
+const DRIFT_BINS: f64 = 3.0;
 
 /// What the check found.
 #[derive(Clone, Debug, PartialEq)]
@@ -36,6 +41,8 @@ pub struct Finding {
     pub first_start: f64,
     /// A second first_start that fits as well (a half-dwell step without sync).
     pub alternative: Option<f64>,
+    /// The dwell (samples) that fits when the steps drift against the schedule.
+    pub drift_dwell: Option<f64>,
     /// Standard score of the step.
     pub score: f64,
 }
@@ -79,6 +86,8 @@ pub struct ScheduleCheck {
     /// (its steps are the switches themselves; power also follows the target).
     score: [Vec<f64>; 2],
     scored: [usize; 2],
+    /// Per channel: (middle dwell of a block, step offset) of the blocks whose own step is clear.
+    block_steps: [Vec<(f64, f64)>; 2],
 }
 
 impl ScheduleCheck {
@@ -99,12 +108,13 @@ impl ScheduleCheck {
             block: None,
             score: [vec![0.0; bins], vec![0.0; bins]],
             scored: [0, 0],
+            block_steps: [Vec::new(), Vec::new()],
         }
     }
 
     /// Fold samples from `index` on.
     pub fn add(&mut self, index: u64, iq: &[Complex32], sync: Option<&[f32]>) {
-        for (i, x) in iq.iter().enumerate() {
+        for (i, power) in iq.iter().map(|x| x.norm_sqr()).enumerate() {
             let t = (index + i as u64) as f64 - self.first_start;
             let dwell = (t / self.dwell).floor();
             let phase = t - dwell * self.dwell;
@@ -120,7 +130,7 @@ impl ScheduleCheck {
             let bin = ((phase - self.skip) / self.bin_width()) as usize;
             let bin = bin.min(self.bins - 1);
             let cell = dwell.rem_euclid(self.lobes as i64) as usize * self.bins + bin;
-            self.power.sum[cell] += f64::from(x.norm_sqr());
+            self.power.sum[cell] += f64::from(power);
             self.power.count[cell] += 1;
             if let Some(&s) = sync.and_then(|s| s.get(i)) {
                 for fold in [&mut self.sync, &mut self.sync_all] {
@@ -137,6 +147,14 @@ impl ScheduleCheck {
             if let Some(means) = fold.means()
                 && let Some(score) = step_scores(&means, self.lobes, self.bins)
             {
+                if let (Some(block), Some((bin, &best))) =
+                    (self.block, score.iter().enumerate().skip(1).max_by(|a, b| a.1.total_cmp(b.1)))
+                    && best > BLOCK_STEP_SCORE * (self.lobes - 1) as f64
+                {
+                    let middle = (block as f64 + 0.5) * (BLOCK_CYCLES * self.lobes as i64) as f64;
+                    let offset = self.skip + bin as f64 * (self.dwell - self.skip) / self.bins as f64;
+                    self.block_steps[channel].push((middle, offset));
+                }
                 self.score[channel].iter_mut().zip(score).for_each(|(a, b)| *a += b);
                 self.scored[channel] += 1;
             }
@@ -148,6 +166,9 @@ impl ScheduleCheck {
     /// The verdict over everything folded: None when the signal agrees with the schedule.
     pub fn finish(&mut self) -> Option<Finding> {
         self.end_block();
+        if let Some(found) = self.drift() {
+            return Some(found);
+        }
         let step = self.step();
         let bin = self.bin_width();
         let (step_bin, score) = step.unwrap_or((0, 0.0));
@@ -177,7 +198,49 @@ impl ScheduleCheck {
             return None;
         }
         let whole = dwells.unwrap_or(0) as f64 * self.dwell;
-        Some(Finding { offset, dwells, first_start: self.first_start + offset - whole, alternative, score })
+        let first_start = self.first_start + offset - whole;
+        Some(Finding { offset, dwells, first_start, alternative, score, drift_dwell: None })
+    }
+
+    /// The steps' offsets block by block, when they move along a line: the
+    /// schedule's dwell is not the switch's. The offsets are unwrapped
+    /// (a step leaving the dwell at one end comes back at the other) and a
+    /// line through them gives the drift per dwell and the offset at dwell 0.
+    fn drift(&self) -> Option<Finding> {
+        let channel = if self.scored[1] > 0 { 1 } else { 0 };
+        let steps = &self.block_steps[channel];
+        if steps.len() < 3 {
+            return None;
+        }
+        let mut unwrapped: Vec<(f64, f64)> = Vec::with_capacity(steps.len());
+        for &(at, offset) in steps {
+            let offset = match unwrapped.last() {
+                Some(&(_, before)) => offset + ((before - offset) / self.dwell).round() * self.dwell,
+                None => offset,
+            };
+            unwrapped.push((at, offset));
+        }
+        let line = line_fit(&unwrapped, self.bin_width())?;
+        let span = unwrapped[unwrapped.len() - 1].0 - unwrapped[0].0;
+        let moved = line.slope * span;
+        if moved.abs() < DRIFT_BINS * self.bin_width() || line.slope.abs() < 4.0 * line.slope_se {
+            return None;
+        }
+        let offset = line.intercept.rem_euclid(self.dwell);
+        let offset = if offset > self.dwell / 2.0 { offset - self.dwell } else { offset };
+        Some(Finding {
+            offset,
+            dwells: None,
+            first_start: self.first_start + offset,
+            alternative: None,
+            score: line.slope.abs() / line.slope_se.max(1e-12),
+            drift_dwell: Some(self.dwell + line.slope),
+        })
+    }
+
+    /// The schedule's dwell, in samples.
+    pub fn dwell(&self) -> f64 {
+        self.dwell
     }
 
     fn bin_width(&self) -> f64 {
@@ -276,6 +339,11 @@ mod tests {
 
     /// Two lobes whose powers differ; the real switches `offset` samples after the scheduled ones.
     fn run(offset: i64, sync: bool, dwells_off: i64) -> Option<Finding> {
+        run_at(100.0, offset, sync, dwells_off)
+    }
+
+    /// As `run`, with the real switch's dwell `real` samples against the schedule's 100.
+    fn run_at(real: f64, offset: i64, sync: bool, dwells_off: i64) -> Option<Finding> {
         let (dwell, first) = (100i64, 30i64);
         let mut check = ScheduleCheck::new(2, first as f64, dwell as f64, 5.0);
         let real_first = first + offset + dwells_off * dwell;
@@ -284,13 +352,14 @@ mod tests {
             .map(|n| {
                 seed = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
                 let noise = ((seed >> 33) as f32 / (1u64 << 31) as f32 - 0.5) * 2.0;
-                let lobe = (n - real_first).div_euclid(dwell).rem_euclid(2);
+                let lobe = ((n - real_first) as f64 / real).floor().rem_euclid(2.0) as i64;
                 let slow = if (n / 20_000) % 2 == 0 { 1.0 } else { -1.0 };
                 Complex32::new(1.0 + 0.2 * slow * (lobe as f32 - 0.5) + noise, 0.0)
             })
             .collect();
-        let levels: Vec<f32> =
-            (0..200_000i64).map(|n| 0.2 + 0.5 * (n - real_first).div_euclid(dwell).rem_euclid(2) as f32).collect();
+        let levels: Vec<f32> = (0..200_000i64)
+            .map(|n| 0.2 + 0.5 * ((n - real_first) as f64 / real).floor().rem_euclid(2.0) as f32)
+            .collect();
         check.add(0, &iq, sync.then_some(&levels[..]));
         check.finish()
     }
@@ -314,5 +383,16 @@ mod tests {
         assert_eq!(run(0, false, 1), None);
         let f = run(0, true, 1).expect("found");
         assert!((f.first_start - 130.0).abs() <= 1.0 || (f.first_start + 70.0).abs() <= 1.0, "{f:?}");
+    }
+
+    #[test]
+    fn a_schedule_whose_dwell_is_off_is_named_with_the_dwell_that_fits() {
+        // 0.05 % long: the switches move 100 samples (a dwell) over the run
+        let f = run_at(100.05, 0, false, 0).expect("found");
+        let dwell = f.drift_dwell.expect("drift");
+        assert!((dwell - 100.05).abs() <= 0.01, "{f:?}");
+        assert_eq!(run_at(100.0, 0, false, 0), None);
+        let f = run_at(99.97, 0, true, 0).expect("found");
+        assert!((f.drift_dwell.expect("drift") - 99.97).abs() <= 0.01, "{f:?}");
     }
 }

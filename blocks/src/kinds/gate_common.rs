@@ -11,10 +11,13 @@
 //! [`GateSettings`] holds the switch timing settings both read once.
 
 use crate::block::{BlockError, BuildContext, Outputs};
-use crate::dsp::switch_sync::{Irregularity, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings};
+use crate::dsp::switch_finder::{FinderSettings, KnownLobe};
+use crate::dsp::switch_sync::{
+    Irregularity, MAX_LEARN_SAMPLES, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings,
+};
 use crate::dsp::timing_check::ScheduleCheck;
 use crate::error::{BuildError, ParamError};
-use crate::facts::{Facts, StreamFacts};
+use crate::facts::{Facts, LabelledSpan, StreamFacts};
 use crate::item::{Item, Notice, SampleChunk, Severity, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params, Unit};
 use crate::typed::{FromParam, OutputPort, PortSet, Settings, TimeSetting, TypedBlock};
@@ -29,6 +32,9 @@ pub trait SwitchPiece: Send + Sized {
     fn stamp(&self) -> Stamp;
     fn iq(&self) -> &[Complex32];
     fn sync(&self) -> Option<&[f32]>;
+    /// Whether the switch finder sums each piece into one cell (a sweep)
+    /// rather than into cells of a fixed length (a run of samples).
+    const ONE_CELL: bool;
     /// The stamp end-of-run notices carry when this is the last piece.
     fn last_stamp(&self) -> Stamp;
     /// Index one past the last sample.
@@ -39,8 +45,9 @@ pub trait SwitchPiece: Send + Sized {
 
 /// Both piece kinds carry their samples, sync and stamp under the same names.
 macro_rules! switch_piece {
-    ($kind:ty, $variant:path, $last:expr) => {
+    ($kind:ty, $variant:path, $one_cell:expr, $last:expr) => {
         impl SwitchPiece for $kind {
+            const ONE_CELL: bool = $one_cell;
             fn from_item(item: Item) -> Option<Self> {
                 match item {
                     $variant(piece) => Some(piece),
@@ -64,8 +71,8 @@ macro_rules! switch_piece {
 }
 
 // A chunk's end-of-run notices carry the stamp after its last sample; a sweep's its transmit instant.
-switch_piece!(SampleChunk, Item::Samples, |c: &SampleChunk| c.stamp.after(c.iq.len()));
-switch_piece!(Sweep, Item::Sweep, |s: &Sweep| s.stamp);
+switch_piece!(SampleChunk, Item::Samples, false, |c: &SampleChunk| c.stamp.after(c.iq.len()));
+switch_piece!(Sweep, Item::Sweep, true, |s: &Sweep| s.stamp);
 
 /// The lobe in force and the switch that began it.
 #[derive(Clone, Copy, Debug)]
@@ -100,6 +107,8 @@ pub struct SwitchDriver<K: GateKind> {
     last_stamp: Option<Stamp>,
     /// Schedule timing: the cross-check of the schedule against the signal.
     check: Option<ScheduleCheck>,
+    /// The capture's labelled stretches (lobe identity for timing 'signal').
+    marks: Option<Arc<[LabelledSpan]>>,
 }
 
 impl<K: GateKind> SwitchDriver<K> {
@@ -117,6 +126,7 @@ impl<K: GateKind> SwitchDriver<K> {
             current: None,
             last_stamp: None,
             check: None,
+            marks: None,
         }
     }
 
@@ -161,15 +171,22 @@ impl<K: GateKind> SwitchDriver<K> {
             None
         };
         let at = |e: String| BlockError::at(e, first.index);
-        let (source, guard) = self.cfg.source(first.rate, pri).map_err(at)?;
+        let (source, guard) =
+            self.cfg.source(first.rate, pri, self.marks.as_deref(), K::Piece::ONE_CELL).map_err(at)?;
         self.source = Some(source);
         self.guard = guard;
         self.check = self.cfg.schedule_check(first.rate, pri, guard).map_err(at)?;
         Ok(true)
     }
 
-    /// Learn the sync levels from the held pieces; true once the held pieces can be replayed.
-    fn learn(&mut self, finishing: bool, out: &mut Outputs) -> Result<bool, BlockError> {
+    /// Learn the sync levels (or find the switch train) from the held
+    /// pieces, less `head` samples of each; true once they can be replayed.
+    fn learn(
+        &mut self,
+        finishing: bool,
+        out: &mut Outputs,
+        head: impl Fn(&K::Piece) -> usize,
+    ) -> Result<bool, BlockError> {
         let Some(first) = self.startup.first().map(|s| s.stamp()) else {
             return Ok(false);
         };
@@ -182,34 +199,36 @@ impl<K: GateKind> SwitchDriver<K> {
         let mut enough = false;
         while self.learned < self.startup.len() && !enough {
             let piece = &self.startup[self.learned];
-            let Some(sync) = piece.sync() else {
-                return Err(BlockError::at(
-                    "timing is 'sync' but the input has no sync channel; map one, or use timing: schedule",
-                    piece.stamp().index,
-                ));
-            };
-            enough = source.learn_from(sync);
+            let (index, iq) = seen_part(piece, head(piece));
+            let sync = piece.sync();
+            enough = source.learn_from(index, sync, iq).map_err(|e| BlockError::at(e, piece.stamp().index))?;
             self.learned += 1;
         }
         if !enough && !finishing {
             return Ok(false);
         }
-        source.end_learning().map_err(|e| BlockError::at(e, first.index))?;
-        if let Some(levels) = source.levels() {
-            let list: Vec<String> = levels.iter().zip(&self.cfg.lobes).map(|(l, n)| format!("{n} {l:.3}")).collect();
-            out.inform(first, format!("learned sync levels: {}", list.join(", ")));
+        if let Some(learned) =
+            source.end_learning(first.index, first.rate).map_err(|e| BlockError::at(e, first.index))?
+        {
+            out.inform(first, learned);
         }
         Ok(true)
     }
 
     /// Feed one piece to the switch source and hold it; returns the index
     /// before which every sample's lobe is decided.
-    fn feed(&mut self, piece: K::Piece, out: &mut Outputs) -> Result<u64, BlockError> {
+    fn feed(&mut self, piece: K::Piece, head: usize, out: &mut Outputs) -> Result<u64, BlockError> {
         let Some(source) = self.source.as_mut() else {
             return Ok(0);
         };
         let index = piece.stamp().index;
-        source.feed(index, piece.sync(), piece.iq().len()).map_err(|e| BlockError::at(e, index))?;
+        let (seen_index, seen) = seen_part(&piece, head);
+        if self.cfg.timing == SwitchTiming::Signal {
+            source.feed(seen_index, None, seen)
+        } else {
+            source.feed(index, piece.sync(), piece.iq())
+        }
+        .map_err(|e| BlockError::at(e, index))?;
         if let Some(check) = self.check.as_mut() {
             check.add(index, piece.iq(), piece.sync());
         }
@@ -224,11 +243,30 @@ impl<K: GateKind> SwitchDriver<K> {
         let Some(found) = self.check.as_mut().and_then(ScheduleCheck::finish) else {
             return;
         };
+        // On sweeps the echo's place in each pulse interval and the switch
+        // transient make the per-sample fold step by chance; the sweep gate
+        // checks the offset sweep by sweep, this check only the drift.
+        if K::Piece::ONE_CELL && found.drift_dwell.is_none() {
+            return;
+        }
+        let ms = |samples: f64| format_ms(samples / stamp.rate);
+        if let Some(dwell) = found.drift_dwell {
+            let scheduled = self.check.as_ref().map_or(dwell, ScheduleCheck::dwell);
+            let per_dwell = (dwell - scheduled) / stamp.rate * 1e6;
+            let what = format!(
+                "the amplitude steps drift against the scheduled switches by {per_dwell:.2} us per dwell \
+                 (standard score {:.0}): dwell ≈ {} ms and first_start ≈ {}?",
+                found.score,
+                fine_ms(dwell / stamp.rate),
+                ms(found.first_start)
+            );
+            self.router.irregular(out, stamp, Irregularity::Schedule, what);
+            return;
+        }
         let whole = found.dwells.unwrap_or(0);
         if whole == 0 && found.offset.abs() <= self.guard as f64 {
             return; // inside the guard: those samples are left out anyway
         }
-        let ms = |samples: f64| format_ms(samples / stamp.rate);
         let mut seen = Vec::new();
         if whole != 0 {
             seen.push(format!("the sync levels fit the lobe labels shifted by {whole} dwell(s)"));
@@ -246,6 +284,14 @@ impl<K: GateKind> SwitchDriver<K> {
         self.router.irregular(out, stamp, Irregularity::Schedule, what);
     }
 
+    /// At the end of the stream: the source places the switches it still holds.
+    fn finish_source(&mut self, out: &mut Outputs) {
+        if let Some(source) = self.source.as_mut() {
+            source.finish(self.fed_end);
+        }
+        self.take_events(out);
+    }
+
     /// Route the source's events and note switches and the first lobe.
     fn take_events(&mut self, out: &mut Outputs) {
         let Some(source) = self.source.as_mut() else {
@@ -260,7 +306,7 @@ impl<K: GateKind> SwitchDriver<K> {
                     self.current = Some(LobeInForce { lobe, dwell_start, switch_at });
                 }
                 SwitchEvent::Switch { at, lobe } => self.switches.push_back((at, lobe)),
-                SwitchEvent::Irregular { .. } => {}
+                SwitchEvent::Irregular { .. } | SwitchEvent::Note { .. } => {}
             }
         }
     }
@@ -271,6 +317,18 @@ fn format_ms(seconds: f64) -> String {
     let text = format!("{:.3}", seconds * 1e3);
     let text = text.trim_end_matches('0').trim_end_matches('.');
     format!("{text} ms")
+}
+
+/// Seconds as milliseconds to the tenth of a microsecond (a dwell that drifts).
+fn fine_ms(seconds: f64) -> String {
+    format!("{:.4}", seconds * 1e3)
+}
+
+/// The samples of a piece the switch finder looks at: all but `head` at its
+/// start (a sweep's transmit leakage), with the piece's own index (a sweep
+/// is one cell of the finder, which switches at the sweep's start).
+fn seen_part<P: SwitchPiece>(piece: &P, head: usize) -> (u64, &[Complex32]) {
+    (piece.stamp().index, &piece.iq()[head.min(piece.iq().len())..])
 }
 
 /// Median spacing of consecutive piece starts (transmit instants), in samples.
@@ -301,6 +359,11 @@ pub trait GateKind: Send + Sized + 'static {
     fn start(&mut self, _first: Stamp) -> Result<(), BlockError> {
         Ok(())
     }
+    /// Samples at the head of a piece the switch finder leaves out (a
+    /// sweep's transmit leakage, whose strength would hide the switches).
+    fn finder_head(&self, _piece: &Self::Piece) -> usize {
+        0
+    }
     /// Hand on the pending pieces (or parts of them) before sample `upto`.
     fn release(&mut self, driver: &mut SwitchDriver<Self>, upto: u64, out: &mut Outputs);
     /// After the last release: the gate's own end-of-run checks and reports.
@@ -320,7 +383,8 @@ pub struct SwitchGate<K: GateKind> {
 
 impl<K: GateKind> SwitchGate<K> {
     fn run(&mut self, piece: K::Piece, out: &mut Outputs) -> Result<(), BlockError> {
-        let upto = self.driver.feed(piece, out)?;
+        let head = self.kind.finder_head(&piece);
+        let upto = self.driver.feed(piece, head, out)?;
         self.kind.release(&mut self.driver, upto, out);
         Ok(())
     }
@@ -331,7 +395,8 @@ impl<K: GateKind> SwitchGate<K> {
             let first = self.driver.startup.first().map(|s| s.stamp()).unwrap_or(Stamp::new(0, 1.0));
             self.kind.start(first)?;
         }
-        if !self.driver.learn(finishing, out)? {
+        let kind = &self.kind;
+        if !self.driver.learn(finishing, out, |p| kind.finder_head(p))? {
             return Ok(());
         }
         self.driver.learned = 0;
@@ -365,10 +430,16 @@ impl<K: GateKind> TypedBlock for SwitchGate<K> {
                 cfg.timing
             )));
         }
+        self.driver.marks = facts.marks.clone();
+        let cfg = &self.driver.cfg;
+        if cfg.timing == SwitchTiming::Signal && cfg.known_lobe.is_none() {
+            cfg.lobe_from_marks(facts.marks.as_deref()).ok_or_else(|| BlockError::new(cfg.identity_missing()))?;
+        }
         if let Some(rate) = facts.rate.filter(|r| *r > 0.0 && r.is_finite()) {
             let pri = facts.pri_samples;
             if !cfg.needs_pri() || pri.is_some() {
-                let (_, guard) = cfg.source(rate, pri).map_err(BlockError::new)?;
+                let (_, guard) =
+                    cfg.source(rate, pri, facts.marks.as_deref(), K::Piece::ONE_CELL).map_err(BlockError::new)?;
                 cfg.schedule_check(rate, pri, guard).map_err(BlockError::new)?;
             }
             self.kind.start(Stamp::new(0, rate))?;
@@ -394,7 +465,7 @@ impl<K: GateKind> TypedBlock for SwitchGate<K> {
 
     fn finish(&mut self, out: &mut Outputs) -> Result<(), BlockError> {
         self.advance(true, out)?;
-        self.driver.take_events(out);
+        self.driver.finish_source(out);
         self.kind.release(&mut self.driver, u64::MAX, out);
         let last = self.driver.last_stamp;
         self.kind.finish(&mut self.driver, last, out)?;
@@ -416,6 +487,9 @@ crate::block_choice! {
         Sync = "sync",
         /// From a known schedule (`dwell`, `first_start`).
         Schedule = "schedule",
+        /// From the signal's amplitude steps and switch transients, the
+        /// lobes named by a capture label or `known_lobe`.
+        Signal = "signal",
     }
 }
 
@@ -424,7 +498,7 @@ impl SwitchTiming {
     pub fn needs_sync_channel(self) -> bool {
         match self {
             SwitchTiming::Sync => true,
-            SwitchTiming::Schedule => false,
+            SwitchTiming::Schedule | SwitchTiming::Signal => false,
         }
     }
 }
@@ -442,11 +516,14 @@ pub struct GateSettings {
     pub min_dwell: TimeSetting,
     pub learn: TimeSetting,
     pub tolerance: f64,
+    /// Timing 'signal': the position of the lobe known to be active at `known_at`.
+    pub known_lobe: Option<usize>,
+    pub known_at: TimeSetting,
 }
 
 impl GateSettings {
     /// How many settings [`GateSettings::params`] declares.
-    pub const COUNT: usize = 9;
+    pub const COUNT: usize = 11;
 
     /// The declarations of these settings; `pulses` lets times be given in
     /// pulses (gates on sweeps, whose spacing gives the pulse interval).
@@ -463,13 +540,13 @@ impl GateSettings {
                 name: "timing",
                 ty: ParamType::Choice(SwitchTiming::WORDS),
                 default: Some("sync"),
-                doc: "lobe timing from the sync channel, or from a known schedule",
+                doc: "lobe timing from the sync channel, from a known schedule, or found in the signal (amplitude steps and switch transients)",
             },
             ParamSpec {
                 name: "dwell",
                 ty: time(0.0, pulses),
                 default: Some("0 s"),
-                doc: "dwell length (schedule: required; sync: expected length, 0 = learn the median)",
+                doc: "dwell length (schedule: required; sync: expected length, 0 = learn the median; signal: not used, it is measured)",
             },
             ParamSpec {
                 name: "first_start",
@@ -499,7 +576,7 @@ impl GateSettings {
                 name: "learn",
                 ty: time(0.0, pulses),
                 default: Some("200 ms"),
-                doc: "sync data used to learn the levels: at least one full lobe cycle (at most 4 Mi samples)",
+                doc: "data used to learn the sync levels (at least one full lobe cycle, at most 4 Mi samples), or to find the switch train (timing signal: a dozen dwells or more, at most 4 Mi samples)",
             },
             ParamSpec {
                 name: "tolerance",
@@ -507,12 +584,24 @@ impl GateSettings {
                 default: Some("0.25"),
                 doc: "relative dwell-length deviation reported as irregular",
             },
+            ParamSpec {
+                name: "known_lobe",
+                ty: ParamType::Text,
+                default: Some(""),
+                doc: "timing signal: the lobe active at 'known_at' (by default the first sample: the first lobe); empty = from the capture's lobe labels (SigMF annotations)",
+            },
+            ParamSpec {
+                name: "known_at",
+                ty: time(0.0, pulses),
+                default: Some("0 s"),
+                doc: "timing signal: the time from the capture's first sample at which 'known_lobe' is active",
+            },
         ]
     }
 
     /// Read the settings [`GateSettings::params`] declares from the checked parameters.
     pub fn read(p: &Params, pulses: bool) -> Result<GateSettings, ParamError> {
-        let [lobes, timing, dwell, first_start, guard, hysteresis, min_dwell, learn, tolerance] =
+        let [lobes, timing, dwell, first_start, guard, hysteresis, min_dwell, learn, tolerance, known_lobe, known_at] =
             &GateSettings::params(pulses);
         let names = Vec::<String>::from_param(p, lobes)?;
         if names.len() < 2 {
@@ -534,15 +623,66 @@ impl GateSettings {
             min_dwell: TimeSetting::from_param(p, min_dwell)?,
             learn: TimeSetting::from_param(p, learn)?,
             tolerance: f64::from_param(p, tolerance)?,
+            known_lobe: None,
+            known_at: TimeSetting::from_param(p, known_at)?,
         };
+        let known = String::from_param(p, known_lobe)?;
+        let mut settings = settings;
+        if !known.trim().is_empty() {
+            let position = names.iter().position(|n| n.eq_ignore_ascii_case(known.trim()));
+            settings.known_lobe = Some(position.ok_or_else(|| {
+                ParamError::invalid(
+                    "known_lobe",
+                    format!("'{}' is none of the lobes {}", known.trim(), names.join(", ")),
+                )
+            })?);
+        }
         if settings.timing == SwitchTiming::Schedule && settings.dwell.is_zero() {
             return Err(ParamError::invalid("dwell", "timing 'schedule' needs a 'dwell' longer than zero"));
         }
         Ok(settings)
     }
 
-    fn times(&self) -> [&TimeSetting; 5] {
-        [&self.dwell, &self.first_start, &self.guard, &self.min_dwell, &self.learn]
+    fn times(&self) -> [&TimeSetting; 6] {
+        [&self.dwell, &self.first_start, &self.guard, &self.min_dwell, &self.learn, &self.known_at]
+    }
+
+    /// Timing 'signal' without `known_lobe`: the first capture label that
+    /// names a lobe, active at the middle of its stretch.
+    fn lobe_from_marks(&self, marks: Option<&[LabelledSpan]>) -> Option<KnownLobe> {
+        marks?.iter().find_map(|m| {
+            let lobe = self.lobes.iter().position(|n| n.eq_ignore_ascii_case(m.label.trim()))?;
+            let at = m.start as f64 + m.count.unwrap_or(0) as f64 / 2.0;
+            Some(KnownLobe { lobe, at, source: format!("the capture's label '{}' at sample {}", m.label, m.start) })
+        })
+    }
+
+    /// The error when timing 'signal' cannot tell which lobe is which.
+    fn identity_missing(&self) -> String {
+        let names: Vec<&str> = self.lobes.iter().map(|n| n.as_ref()).collect();
+        format!(
+            "parameter 'timing' is signal, which finds the switch instants but cannot tell which lobe is which: \
+             the capture carries no lobe label (a SigMF annotation labelled {}) and known_lobe is not set. \
+             Give one of the two: known_lobe, the first lobe (active at the first sample), or known_lobe and \
+             known_at, a lobe and a time at which it is active",
+            names.join(" or ")
+        )
+    }
+
+    /// Which lobe is active when, for timing 'signal': the user's statement, else a capture label.
+    fn known(&self, rate: f64, pri: Option<f64>, marks: Option<&[LabelledSpan]>) -> Result<KnownLobe, String> {
+        match self.known_lobe {
+            Some(lobe) => {
+                let at = self.known_at.samples(rate, pri)?;
+                let source = if self.known_at.is_zero() {
+                    "known_lobe: the first lobe".to_string()
+                } else {
+                    "known_lobe at known_at".to_string()
+                };
+                Ok(KnownLobe { lobe, at, source })
+            }
+            None => self.lobe_from_marks(marks).ok_or_else(|| self.identity_missing()),
+        }
     }
 
     /// True when a time is given in pulses (the caller must know the PRI).
@@ -553,7 +693,7 @@ impl GateSettings {
     /// Schedule timing: the cross-check of the schedule against the signal.
     pub fn schedule_check(&self, rate: f64, pri: Option<f64>, guard: u64) -> Result<Option<ScheduleCheck>, String> {
         match self.timing {
-            SwitchTiming::Sync => Ok(None),
+            SwitchTiming::Sync | SwitchTiming::Signal => Ok(None),
             SwitchTiming::Schedule => {
                 let first_start = self.first_start.samples(rate, pri)?;
                 let dwell = self.dwell.samples(rate, pri)?;
@@ -562,8 +702,16 @@ impl GateSettings {
         }
     }
 
-    /// The switch source and the guard length in samples, for a stream at `rate`.
-    pub fn source(&self, rate: f64, pri: Option<f64>) -> Result<(SwitchSync, u64), String> {
+    /// The switch source and the guard length in samples, for a stream at
+    /// `rate`; `marks` are the capture's labels, `one_cell` says the pieces
+    /// are sweeps (each one cell of the switch finder).
+    pub fn source(
+        &self,
+        rate: f64,
+        pri: Option<f64>,
+        marks: Option<&[LabelledSpan]>,
+        one_cell: bool,
+    ) -> Result<(SwitchSync, u64), String> {
         let guard = self.guard.samples(rate, pri)?.round().max(0.0) as u64;
         let dwell = self.dwell.samples(rate, pri)?;
         if dwell > 0.0 && guard as f64 >= dwell {
@@ -585,6 +733,14 @@ impl GateSettings {
                 first_start: self.first_start.samples(rate, pri)?,
                 dwell,
             })?,
+            SwitchTiming::Signal => SwitchSync::from_signal(FinderSettings {
+                names: self.lobes.clone(),
+                // the held pieces are bounded as the sync levels' learning is
+                acquire: (self.learn.samples(rate, pri)?.round().max(1.0) as usize).min(MAX_LEARN_SAMPLES),
+                // about 30 us: fine enough to place a switch, coarse enough to fold fast
+                cell: if one_cell { 0 } else { (rate * FINDER_CELL_S).round().max(1.0) as usize },
+                known: self.known(rate, pri, marks)?,
+            }),
         };
         Ok((source, guard))
     }
@@ -636,6 +792,7 @@ impl<O: OutputPort> NoticeRouter<O> {
             SwitchEvent::Irregular { at, kind, what } => {
                 self.irregular(out, Stamp::new(*at, rate), *kind, what.clone())
             }
+            SwitchEvent::Note { at, what } => self.timeline(out, Stamp::new(*at, rate), what.clone()),
         }
     }
 
@@ -653,6 +810,9 @@ impl<O: OutputPort> NoticeRouter<O> {
 pub fn is_switch_report(what: &str) -> bool {
     what.starts_with("switch to lobe ") || (what.starts_with("lobe ") && what.contains(" active at the first sample"))
 }
+
+/// Cell length of the switch finder on runs of samples.
+const FINDER_CELL_S: f64 = 31.25e-6;
 
 const fn time(min_s: f64, pulses: bool) -> ParamType {
     ParamType::Time { min_s, max_s: 3600.0, pulses }

@@ -5,8 +5,10 @@
 //! only a transient that reaches into the range window the integrator uses
 //! drops the sweep, and every such drop is counted with its reason.
 
-use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate};
+use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate, SwitchTiming};
 use crate::block::{BlockError, BlockSpec, Outputs};
+use crate::dsp::sweep_label_check::{SweepLabelCheck, SweepStep};
+use crate::dsp::switch_sync::Irregularity;
 use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
 use crate::param::{ParamSpec, ParamType, Params};
@@ -88,6 +90,10 @@ pub struct SweepLabeller {
     emitted_dwell: Option<u64>,
     dwell: u64,
     counts: Counts,
+    /// Sync timing: the sync channel's labels checked against the echoes.
+    label_check: Option<SweepLabelCheck>,
+    /// First and last sweep start and the sweeps between (their mean spacing).
+    starts: Option<(u64, u64, u64)>,
 }
 
 type Driver = SwitchDriver<SweepLabeller>;
@@ -112,6 +118,7 @@ fn sweep_end(s: &Sweep) -> u64 {
 impl SweepLabeller {
     fn label(&mut self, d: &mut Driver, mut sweep: Sweep, out: &mut Outputs) {
         let start = sweep.stamp.index;
+        self.starts = Some(self.starts.map_or((start, start, 0), |(first, _, n)| (first, start, n + 1)));
         let end = sweep_end(&sweep);
         let window_start = start + self.window.0;
         let window_end = self.window.1.map(|w| start + w);
@@ -150,15 +157,49 @@ impl SweepLabeller {
             self.counts.cut += 1;
         }
         let dwell_start = current.dwell_start;
+        let lobe = current.lobe;
         if self.emitted_dwell != Some(dwell_start) {
             if self.emitted_dwell.is_some() {
                 self.dwell += 1;
             }
             self.emitted_dwell = Some(dwell_start);
+            if let Some(check) = self.label_check.as_mut() {
+                check.switch(lobe);
+            }
         }
-        let lobe = current.lobe;
+        if let Some(check) = self.label_check.as_mut() {
+            let end = self.window.1.map_or(sweep.iq.len(), |e| (e as usize).min(sweep.iq.len()));
+            let window = &sweep.iq[(self.window.0 as usize).min(end)..end];
+            check.sweep(window.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>() / window.len().max(1) as f64);
+        }
         sweep.lobe = Some(LobeTag { lobe, name: d.lobe_name(lobe), dwell: self.dwell, dwell_start });
         out.push(SweepGateOut::Sweeps, Item::Sweep(sweep));
+    }
+
+    /// What the labels' check found, with what would fit.
+    fn describe_step(&self, d: &Driver, step: &SweepStep, stamp: Stamp) -> String {
+        let (count, side) = (step.sweeps.abs(), if step.sweeps > 0 { "after" } else { "before" });
+        let shift = self.spacing() * step.sweeps as f64 / stamp.rate;
+        let source = if d.cfg.timing == SwitchTiming::Sync { "the sync channel's" } else { "the scheduled" };
+        let fit = match d.cfg.first_start.samples(stamp.rate, Some(self.spacing())) {
+            Ok(first) if d.cfg.timing == SwitchTiming::Schedule => {
+                format!("first_start ≈ {:.3} ms?", (first / stamp.rate + shift) * 1e3)
+            }
+            _ => format!(
+                "the sync edges {} the lobe switches by about {} us",
+                if step.sweeps > 0 { "lead" } else { "lag" },
+                (shift.abs() * 1e6).round()
+            ),
+        };
+        format!(
+            "the echoes change lobe {count} sweep(s) {side} {source} switches (standard score {:.0}): {fit}",
+            step.score
+        )
+    }
+
+    /// Mean samples from one sweep's start to the next.
+    fn spacing(&self) -> f64 {
+        self.starts.map_or(0.0, |(first, last, n)| (last - first) as f64 / n.max(1) as f64)
     }
 
     /// The end-of-run account of what switch transients did to sweeps.
@@ -208,8 +249,18 @@ impl GateKind for SweepLabeller {
             emitted_dwell: None,
             dwell: 0,
             counts: Counts::default(),
+            // the switch finder's own instants need no check against the signal
+            label_check: (s.switching.timing != SwitchTiming::Signal)
+                .then(|| SweepLabelCheck::new(s.switching.lobes.len())),
+            starts: None,
         };
         Ok((s.switching, labeller))
+    }
+
+    /// The switch finder starts at the range window (the leakage lies
+    /// before it), or past twice the blanked leakage when there is none.
+    fn finder_head(&self, sweep: &Sweep) -> usize {
+        if self.window.0 > 0 { self.window.0 as usize } else { 2 * sweep.blanked as usize }
     }
 
     fn start(&mut self, first: Stamp) -> Result<(), BlockError> {
@@ -237,6 +288,10 @@ impl GateKind for SweepLabeller {
     fn finish(&mut self, d: &mut Driver, last: Option<Stamp>, out: &mut Outputs) -> Result<(), BlockError> {
         if let Some(stamp) = last {
             self.report_counts(d, out, stamp);
+            if let Some(step) = self.label_check.as_mut().and_then(SweepLabelCheck::finish) {
+                let what = self.describe_step(d, &step, stamp);
+                d.router.irregular(out, stamp, Irregularity::Schedule, what);
+            }
         }
         Ok(())
     }

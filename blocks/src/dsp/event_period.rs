@@ -210,6 +210,56 @@ pub fn peak_in(x: &[f32], lo: usize, hi: usize) -> Option<(f64, f32)> {
     Some((lo as f64 + centre, peak - median))
 }
 
+/// Events of `feature`: the period from block sums of `w` samples, then
+/// each event located to a fraction of a sample, walking from one to the
+/// next, and a line through them. Returns the line and the significance.
+pub fn find_events(feature: &[f32], w: usize) -> Option<(LineFit, f64)> {
+    let blocks: Vec<f64> = feature.chunks(w).map(|c| c.iter().map(|&v| f64::from(v)).sum()).collect();
+    let max_lag = blocks.len() / 8;
+    let (lag, significance) = fundamental_lag(&blocks, max_lag)?;
+    if lag < 4 {
+        return None; // too few blocks per dwell at this window: a shorter one sees it
+    }
+    let (period_blocks, phase_blocks) = fractional_period(&blocks, lag, max_lag);
+    let mut events: Vec<f64> = Vec::new();
+    let mut period = period_blocks * w as f64;
+    let mut guess = phase_blocks * w as f64 + w as f64 / 2.0;
+    while guess + 2.0 * w as f64 <= feature.len() as f64 {
+        let lo = (guess - 1.5 * w as f64).max(0.0) as usize;
+        if let Some((at, _)) = peak_in(feature, lo, lo + 3 * w) {
+            if let Some(&first) = events.first() {
+                period = (at - first) / ((at - first) / period).round().max(1.0);
+            }
+            events.push(at);
+            guess = at + period;
+        } else {
+            guess += period;
+        }
+    }
+    let first = *events.first()?;
+    let points: Vec<(f64, f64)> = events.iter().map(|&t| (((t - first) / period).round(), t)).collect();
+    let fit = line_fit(&points, w as f64)?;
+    // events too weak to locate one by one wander off the folded period:
+    // then the fold's own period and phase stand, good to a block
+    let folded = period_blocks * w as f64;
+    let drift = (fit.slope - folded).abs() * fit.used as f64;
+    if drift > w as f64 || fit.jitter > w as f64 / 2.0 {
+        let n = (feature.len() as f64 / folded).floor().max(1.0);
+        return Some((
+            LineFit {
+                slope: folded,
+                intercept: phase_blocks * w as f64,
+                jitter: w as f64,
+                slope_se: w as f64 / n / 4.0,
+                intercept_se: w as f64 / 4.0,
+                used: n as usize,
+            },
+            significance,
+        ));
+    }
+    Some((fit, significance))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
