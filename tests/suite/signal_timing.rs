@@ -53,6 +53,15 @@ fn blind_beacons_give_the_angles_of_their_true_schedules() {
     holds_truth(name, &notices, dwell, first);
     assert!(warnings_of(&notices, "gate").is_empty(), "{notices:#?}");
     compare(name, "az", &truth_angles, &found);
+    // no statement: the capture's one SigMF annotation labels a dwell 'left'
+    let labelled = [common[0], common[1], ("timing", "signal")];
+    let (found, _, notices) = run_reporting(name, graph, &labelled, "label");
+    holds_truth(name, &notices, dwell, first);
+    assert!(
+        notices.iter().any(|n| n.what.contains("the capture's label 'left'")),
+        "the lobe's identity should come from the annotation: {notices:#?}"
+    );
+    compare(name, "az", &truth_angles, &found);
     // a 20 ms dwell, weak transients: the amplitude steps carry it
     let name = "beacon-schedule";
     let t = truth(name);

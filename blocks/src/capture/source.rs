@@ -4,10 +4,11 @@
 use super::live::{LiveEnd, LiveMonitor, PushedInput};
 use super::reader::{CaptureReader, Format, OpenOptions, open};
 use super::roles::{ChunkPools, NonFinite, Replaced, RoleMap, from_complex};
+use super::sigmf_meta::SigmfMeta;
 use crate::typed::boxed;
 use crate::{
-    Block, BlockError, BlockSpec, BuildContext, BuildError, Facts, Item, ItemKind, NoPorts, Outputs, ParamError,
-    ParamType, Params, Settings, Stamp, StreamFacts, TypedBlock, Unit, block_ports, block_settings,
+    Block, BlockError, BlockSpec, BuildContext, BuildError, Facts, Item, ItemKind, LabelledSpan, NoPorts, Outputs,
+    ParamError, ParamType, Params, Settings, Stamp, StreamFacts, TypedBlock, Unit, block_ports, block_settings,
 };
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, Ordering};
@@ -114,6 +115,7 @@ impl TypedBlock for CaptureSource {
         Ok(StreamFacts {
             rate: (rate.is_finite() && rate > 0.0).then_some(rate),
             channels: Some(self.roles.channels()),
+            marks: labelled_spans(self.reader.info().sigmf.as_ref()),
             ..StreamFacts::default()
         })
     }
@@ -338,6 +340,24 @@ impl CaptureSource {
             Some(n) => self.emit(n, out).map(|_| true),
         }
     }
+}
+
+/// The capture's labelled SigMF annotations, which may name the lobe active
+/// over their stretch (a gate timed from the signal reads them).
+fn labelled_spans(meta: Option<&SigmfMeta>) -> Option<Arc<[LabelledSpan]>> {
+    let spans: Vec<LabelledSpan> = meta?
+        .annotations
+        .iter()
+        .filter_map(|a| {
+            let label = a.label.as_deref()?.trim();
+            (!label.is_empty()).then(|| LabelledSpan {
+                start: a.sample_start,
+                count: a.sample_count,
+                label: label.into(),
+            })
+        })
+        .collect();
+    (!spans.is_empty()).then(|| spans.into())
 }
 
 #[cfg(test)]
