@@ -80,7 +80,7 @@ impl TypedBlock for LowpassDecimate {
             facts.rate = Some(rate / self.factor as f64);
             facts.pri_samples = facts.pri_samples.map(|pri| pri / self.factor as f64);
             // Labelled stretches count input samples; say them in output samples.
-            let factor = self.factor as u64;
+            let factor = self.factor;
             facts.marks = facts.marks.map(|marks| {
                 marks
                     .iter()
