@@ -352,23 +352,14 @@ impl PortIndex for InstancePort {
 
 impl OutputPort for InstancePort {}
 
-/// Something naming a port by its position: a port handle, or a bare
-/// number in blocks still written against [`Block`] directly.
+/// Something naming a port by its position. A typed port
+/// handle is the only way a block names one; bare numbers stay inside the engine.
 pub trait PortIndex: Copy {
     fn port_index(self) -> usize;
 }
 
-impl PortIndex for usize {
-    fn port_index(self) -> usize {
-        self
-    }
-}
-
 /// A handle of an output port, accepted by [`Outputs::push`].
 pub trait OutputPort: PortIndex {}
-
-/// Output numbers, for engine-side blocks that implement [`Block`] directly.
-impl OutputPort for usize {}
 
 /// The ports of a block that has none on that side (a source's inputs, a
 /// sink's outputs).
