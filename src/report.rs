@@ -268,7 +268,9 @@ fn notices_section(notices: &[Notice], remarks: &[String]) -> String {
 /// `prefix` (a sample's folder on the regression page).
 pub fn pictures_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
     let mut s = String::from("<h2>Pictures</h2>\n");
-    let pictures: Vec<&PathBuf> = files.iter().filter(|p| p.extension().is_some_and(|e| e == "svg")).collect();
+    let mut pictures: Vec<&PathBuf> = files.iter().filter(|p| p.extension().is_some_and(|e| e == "svg")).collect();
+    // By name: blocks finish in whatever order the threads ran them.
+    pictures.sort();
     if pictures.is_empty() {
         s.push_str("<p>no pictures</p>\n");
     }
@@ -318,6 +320,8 @@ pub fn files_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
 /// `files` as a list of links relative to `base`, under `prefix`.
 fn link_list(files: &[PathBuf], base: &Path, prefix: &str) -> String {
     let mut s = String::from("<ul>\n");
+    let mut files: Vec<&PathBuf> = files.iter().collect();
+    files.sort();
     for p in files {
         let rel = Path::new(prefix).join(p.strip_prefix(base).unwrap_or(p));
         let _ = writeln!(s, "<li><a href=\"{}\">{}</a></li>", link(&rel), escape(&rel.display().to_string()));
