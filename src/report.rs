@@ -211,13 +211,15 @@ pub fn summary_section(summary: &EstimateSummary) -> String {
     }
     s.push_str(
         "<table><tr><th>axis</th><th>estimates</th><th>ok</th><th>mean (deg)</th><th>RMS (deg)</th>\
-         <th>std dev (deg)</th><th>median σ (deg)</th><th>out of range</th><th>no signal</th><th>outliers</th></tr>\n",
+         <th>std dev (deg)</th><th>median σ (deg)</th><th>out of range</th><th>no signal</th><th>outliers</th>\
+         <th>echo leading edge (m, mean)</th></tr>\n",
     );
     for a in &summary.axes {
         let _ = writeln!(
             s,
             "<tr><td>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td>\
-             <td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td></tr>",
+             <td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td><td class=n>{}</td>\
+             <td class=n>{}</td></tr>",
             escape(&a.axis),
             a.count(),
             a.ok,
@@ -227,10 +229,11 @@ pub fn summary_section(summary: &EstimateSummary) -> String {
             AxisSummary::figure(a.median_sigma()),
             a.out_of_range,
             a.no_signal,
-            a.outliers
+            a.outliers,
+            a.mean_range_m().map_or_else(|| "–".to_string(), |r| format!("{r:.1}"))
         );
     }
-    s.push_str("</table>\n<p>mean, RMS and standard deviation over the estimates flagged ok (angle off boresight); median σ: the median of their predicted spread.</p>\n");
+    s.push_str("</table>\n<p>mean, RMS and standard deviation over the estimates flagged ok (angle off boresight); median σ: the median of their predicted spread; range: the echo's leading edge (its first sample after the transmit instant, the tables' range_m).</p>\n");
     s
 }
 

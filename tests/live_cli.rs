@@ -171,8 +171,8 @@ fn stop_live_run(sig: i32, name: &str) {
         assert!(out.join(picture).is_file(), "{picture} missing; {err}");
     }
     let leftovers: Vec<_> = std::fs::read_dir(&out).unwrap().flatten().map(|e| e.file_name()).collect();
-    // Tables, two pictures of two files each, and the run's page.
-    assert_eq!(leftovers.len(), 7, "only the outputs remain: {leftovers:?}");
+    // Tables, four pictures of two files each, and the run's page.
+    assert_eq!(leftovers.len(), 11, "only the outputs remain: {leftovers:?}");
     let _ = std::fs::remove_dir_all(&out);
 }
 

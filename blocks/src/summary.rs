@@ -21,6 +21,9 @@ pub struct AxisSummary {
     sum: f64,
     sum_sq: f64,
     sigmas: Vec<f64>,
+    /// Sum and count of the ok estimates' ranges (the echo's leading edge).
+    range_sum: f64,
+    ranges: u64,
 }
 
 impl AxisSummary {
@@ -34,6 +37,10 @@ impl AxisSummary {
                 self.ok += 1;
                 self.sum += v;
                 self.sum_sq += v * v;
+                if let Some(r) = e.range_m.filter(|r| r.is_finite()) {
+                    self.range_sum += r;
+                    self.ranges += 1;
+                }
                 if e.sigma_deg.is_finite() && self.sigmas.len() < MAX_SIGMAS {
                     self.sigmas.push(e.sigma_deg);
                 }
@@ -62,6 +69,12 @@ impl AxisSummary {
     pub fn std_dev(&self) -> Option<f64> {
         let n = self.ok as f64;
         (self.ok > 1).then(|| ((self.sum_sq - self.sum * self.sum / n).max(0.0) / (n - 1.0)).sqrt())
+    }
+
+    /// Mean range of the ok estimates that carry one: the echo's leading
+    /// edge (docs/derivations.md §5); None for a beacon.
+    pub fn mean_range_m(&self) -> Option<f64> {
+        (self.ranges > 0).then(|| self.range_sum / self.ranges as f64)
     }
 
     /// Median of the predicted one-sigma spreads.

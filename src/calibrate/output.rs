@@ -278,15 +278,24 @@ fn picture(cal: &Calibration) -> DiscriminatorCurve {
             CurvePanel {
                 axis: format!("{} ({}/{})", p.axis, p.plus, p.minus),
                 points: p.ratios.iter().map(|r| (r.theta, r.r * DB_PER_NEPER)).collect(),
+                points_label: "measured ratios".to_string(),
+                beyond: Vec::new(),
                 table: curve(&table, imbalance),
                 model: curve(&best_model, best.imbalance.0),
                 model_name: best.fit.name.to_string(),
                 usable_deg: usable,
-                crossover_deg: p.local.crossover_deg,
+                crossover_deg: Some(p.local.crossover_deg),
                 residuals,
                 residual_rms_deg: cal.joint.residual_rms_deg,
             }
         })
         .collect();
-    DiscriminatorCurve { panels }
+    DiscriminatorCurve {
+        title: "Discriminator curve from the calibration scan".to_string(),
+        subtitle: "lobe ratio against the source's off-axis angle: measured ratios, fitted pattern, best beam model; \
+                   residuals below"
+            .to_string(),
+        angle_axis: "source off-axis angle (deg)".to_string(),
+        panels,
+    }
 }

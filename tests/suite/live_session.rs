@@ -171,7 +171,8 @@ fn several_ports_at_once_and_a_report_with_notices_and_no_files() {
     // With an output folder the files are written and listed.
     let d = scratch("files");
     let report = beacon().out_dir(&d).run().unwrap();
-    assert_eq!(report.written.len(), 6);
+    // Two tables and four pictures (PNG and SVG each).
+    assert_eq!(report.written.len(), 10);
     assert!(d.join("angles.csv").is_file());
     let _ = std::fs::remove_dir_all(&d);
 }
@@ -203,6 +204,7 @@ fn a_pushed_input_stopped_by_the_application_keeps_what_was_done() {
     // Stopped somewhere in what was pushed, after the 20 pairs seen.
     let lobeflow::runtime::Ending::CutShort { at_sample, rate } = ending else { panic!("{ending:?}") };
     assert!((200_000..=500_000).contains(&at_sample) && rate == 250e3, "{ending:?}");
-    assert_eq!(written, 6);
+    // Two tables and four pictures (PNG and SVG each).
+    assert_eq!(written, 10);
     let _ = std::fs::remove_dir_all(&d);
 }

@@ -187,6 +187,102 @@ fn circular_readout_is_within_half_a_bin_of_synthesized_echoes() {
     }
 }
 
+/// Vertices of the SVG polylines drawn in `stroke`.
+fn polylines(svg: &Path, stroke: &str) -> Vec<Vec<(f64, f64)>> {
+    let text = std::fs::read_to_string(svg).unwrap();
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    doc.descendants()
+        .filter(|n| n.tag_name().name() == "polyline" && n.attribute("stroke") == Some(stroke))
+        .map(|n| {
+            let points = n.attribute("points").unwrap_or("");
+            points
+                .split_whitespace()
+                .filter_map(|p| p.split_once(','))
+                .map(|(x, y)| (x.parse().unwrap(), y.parse().unwrap()))
+                .collect()
+        })
+        .collect()
+}
+
+/// Text elements with their anchor position.
+fn placed_texts(svg: &Path) -> Vec<(String, f64, f64)> {
+    let text = std::fs::read_to_string(svg).unwrap();
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    doc.descendants()
+        .filter(|n| n.tag_name().name() == "text")
+        .filter_map(|n| {
+            let x = n.attribute("x")?.parse().ok()?;
+            let y = n.attribute("y")?.parse().ok()?;
+            Some((n.text()?.trim().to_string(), x, y))
+        })
+        .collect()
+}
+
+#[test]
+fn circle_trace_passes_through_every_averaged_sample_and_labels_are_round_and_clear() {
+    // 40 range bins over 8 turns: 5 bins a turn, so the circle is round only
+    // if the trace is drawn between them; every bin must still be a vertex.
+    let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
+    let bin = range_bin_m(RATE);
+    let (start, end) = (80.0 * bin, 120.0 * bin);
+    let items = || {
+        let mut rng = Rng::new(9);
+        (0..30).map(|k| (0, Item::Sweep(sweep(&mut rng, k, 101.3, 4.0, None)))).collect::<Vec<_>>()
+    };
+    let (start_t, end_t) = (format!("{start} m"), format!("{end} m"));
+    let set = [("range_start", start_t.as_str()), ("range_end", end_t.as_str()), ("mark_every", "100 m")];
+    let (rows, written) = assert_repeatable(&spec, &set, items, "circle-few-bins");
+    let svg = written[0].with_extension("svg");
+    // Fine circle: centre (400, 418), radius 260 px; rows give points on a unit circle, y up.
+    let (cx, cy, radius) = (400.0, 418.0, 260.0);
+    let traces = polylines(&svg, "#166870");
+    let fine = traces
+        .iter()
+        .find(|t| t.iter().all(|p| ((p.0 - cx).hypot(p.1 - cy) - radius).abs() < 0.5 * radius))
+        .expect("the fine circle's trace");
+    let samples: Vec<(f64, f64)> = rows
+        .iter()
+        .filter_map(|(_, item)| {
+            let Item::Row(row) = item else { return None };
+            let cell = |name: &str| row.fields.iter().find(|f| &*f.0 == name).map(|f| f.1.clone());
+            match (cell("point"), cell("x"), cell("y")) {
+                (Some(Cell::Text(p)), Some(Cell::Num(x)), Some(Cell::Num(y))) if &*p == "trace" => {
+                    Some((cx + x * radius, cy - y * radius))
+                }
+                _ => None,
+            }
+        })
+        .collect();
+    assert_eq!(samples.len(), 40);
+    for s in &samples {
+        let nearest = fine.iter().map(|v| (v.0 - s.0).hypot(v.1 - s.1)).fold(f64::INFINITY, f64::min);
+        assert!(nearest <= 1.0, "sample at {s:?} is {nearest:.2} px from the drawn trace");
+    }
+    // Round: consecutive vertices at most about a degree apart around the centre.
+    let angle = |p: &(f64, f64)| (p.0 - cx).atan2(cy - p.1);
+    let widest = fine
+        .windows(2)
+        .map(|w| {
+            let d = (angle(&w[1]) - angle(&w[0])).rem_euclid(std::f64::consts::TAU);
+            d.min(std::f64::consts::TAU - d).to_degrees()
+        })
+        .fold(0.0, f64::max);
+    assert!(widest < 1.5, "the trace jumps {widest:.2} deg between points");
+    // Coarse labels are whole multiples of the mark spacing; fine labels sit
+    // clear of their circle.
+    for (label, x, y) in placed_texts(&svg) {
+        let Some(km) = label.strip_suffix(" km") else { continue };
+        if let Some(offset) = km.strip_prefix('+') {
+            let off: f64 = offset.parse().unwrap();
+            assert!((off * 10.0 - (off * 10.0).round()).abs() < 1e-9, "fine label {label}");
+            let gap = ((x - cx).hypot(y - cy) - radius).abs();
+            assert!(gap > 14.0, "fine label {label} only {gap:.1} px from the circle line");
+        } else if let Ok(r) = km.parse::<f64>() {
+            assert!((r * 10.0 - (r * 10.0).round()).abs() < 1e-9, "coarse label {label} is not a round range");
+        }
+    }
+}
+
 #[test]
 fn circular_sweep_without_sweeps_still_writes_pictures() {
     let spec = lobeflow::blocks::pictures::circular_sweep::SPEC;
@@ -254,10 +350,11 @@ fn range_trace_draws_each_lobe_and_the_gate() {
     let set = [("gate_start", "33.5 km"), ("gate_width", "600 m"), ("range_end", "60 km")];
     let (_, written) = assert_repeatable(&spec, &set, items, "trace");
     let base = written[0].with_extension("");
-    check_pictures(&written, &base, (1200, 640));
+    check_pictures(&written, &base, (1200, 820));
     let texts = svg_texts(&base.with_extension("svg"));
     for lobe in LOBES {
-        assert!(texts.iter().any(|t| t.starts_with(&format!("{lobe} (40 sweeps)"))), "legend lacks {lobe}: {texts:?}");
+        let entry = format!("{lobe}: 40 sweeps averaged");
+        assert!(texts.contains(&entry), "legend lacks {lobe}: {texts:?}");
     }
     assert!(texts.iter().any(|t| t.starts_with("gate 33.")), "{texts:?}");
 }
@@ -270,14 +367,16 @@ fn split_pair_prints_the_balance_of_each_pair() {
     let gate_start = format!("{} m", (echo_bin - 3.0) * bin);
     let gate_width = format!("{} m", 6.0 * bin);
     let items = || labelled_sweeps(64, echo_bin, false).into_iter().map(|s| (0, Item::Sweep(s))).collect();
-    let set = [("gate_start", gate_start.as_str()), ("gate_width", gate_width.as_str()), ("separation", "0.3")];
+    let set = [("gate_start", gate_start.as_str()), ("gate_width", gate_width.as_str())];
     let (_, written) = assert_repeatable(&spec, &set, items, "split");
     let base = written[0].with_extension("");
     check_pictures(&written, &base, (1200, 640));
     // Check value computed by hand from the two-way Gaussian ratio: A/B = 1.447269, 3.2110 dB, for 0.5 deg off axis.
     let texts = svg_texts(&base.with_extension("svg"));
-    assert!(texts.iter().any(|t| t.starts_with("az: right") && t.ends_with("= +3.21 dB")), "{texts:?}");
-    assert!(texts.iter().any(|t| t.starts_with("el: up") && t.ends_with("= +3.21 dB")), "{texts:?}");
+    assert!(texts.contains(&"balance right over left: +3.21 dB".to_string()), "{texts:?}");
+    assert!(texts.contains(&"balance up over down: +3.21 dB".to_string()), "{texts:?}");
+    // One scale: no trace is raised, and the legend says what the counts are.
+    assert!(texts.contains(&"right: 16 sweeps averaged".to_string()), "{texts:?}");
 }
 
 #[test]
@@ -452,4 +551,206 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     }
     let (_, written) = run(&angle, &[("path", &path)], items);
     assert_eq!(written.len(), 2);
+}
+
+/// Run a reference graph with the command-line tool into a fresh folder.
+fn run_graph(name: &str, graph: &str, extra: &[&str]) -> PathBuf {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let out = scratch(name).join("out");
+    let run = std::process::Command::new(env!("CARGO_BIN_EXE_lobeflow"))
+        .args(["run", root.join(graph).to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet"])
+        .args(extra)
+        .output()
+        .unwrap();
+    assert!(run.status.success(), "{}", String::from_utf8_lossy(&run.stderr));
+    out
+}
+
+/// The first number in `text` after `after`.
+fn number_after(text: &str, after: &str) -> Option<f64> {
+    let rest = text[text.find(after)? + after.len()..].trim_start();
+    let end = rest.find(|c: char| !(c.is_ascii_digit() || c == '.' || c == '-' || c == '+')).unwrap_or(rest.len());
+    rest[..end].parse().ok()
+}
+
+/// Per axis, the report page's summary row: (estimates, ok, mean, RMS, median σ, outliers).
+fn summary_rows(page: &str) -> Vec<(String, Vec<f64>)> {
+    let table = &page[page.find("<h2>Angle estimates</h2>").unwrap()..];
+    let table = &table[..table.find("</table>").unwrap()];
+    table
+        .lines()
+        .filter(|l| l.starts_with("<tr><td>"))
+        .map(|l| {
+            let cells: Vec<&str> =
+                l.split("<td").skip(1).map(|c| &c[c.find('>').unwrap() + 1..c.find("</td>").unwrap()]).collect();
+            (cells[0].to_string(), cells[1..].iter().map(|c| c.parse().unwrap_or(f64::NAN)).collect())
+        })
+        .collect()
+}
+
+/// Mean of a numeric column of a CSV table over its non-empty cells.
+fn column_mean(path: &Path, column: &str) -> f64 {
+    let mut reader = csv::Reader::from_path(path).unwrap();
+    let k = reader.headers().unwrap().iter().position(|h| h == column).unwrap();
+    let values: Vec<f64> = reader.records().filter_map(|r| r.unwrap().get(k)?.parse().ok()).collect();
+    values.iter().sum::<f64>() / values.len() as f64
+}
+
+/// Pixels per km and the pixel of 0 km along the top chart's range axis,
+/// from its tick labels (the numeric, centred labels of the highest row).
+fn range_axis(svg: &Path) -> (f64, f64) {
+    let ticks: Vec<(f64, f64, f64)> =
+        placed_texts(svg).into_iter().filter_map(|(t, x, y)| Some((t.parse::<f64>().ok()?, x, y))).collect();
+    let mut rows: Vec<f64> = ticks.iter().map(|t| t.2).collect();
+    rows.sort_by(f64::total_cmp);
+    rows.dedup();
+    let row = rows.iter().find(|&&y| ticks.iter().filter(|t| t.2 == y).count() >= 4).unwrap();
+    let axis: Vec<&(f64, f64, f64)> = ticks.iter().filter(|t| t.2 == *row).collect();
+    let (a, b) = (axis[0], axis[axis.len() - 1]);
+    let per_km = (b.1 - a.1) / (b.0 - a.0);
+    (per_km, a.1 - a.0 * per_km)
+}
+
+/// The four-lobe sample's pictures against its own run: the range trace's
+/// gate band lies where the range gate says it acquired the echo, and the
+/// tables' range (the echo's leading edge) lies inside it; the circle reads
+/// that same range; the angle plot's key and the discriminator curve's
+/// point counts are the report page's summary figures.
+#[test]
+fn four_lobe_pictures_agree_with_the_run_and_its_summary() {
+    let out = run_graph("four-lobe-run", "graphs/four-lobe-pulsed.yaml", &[]);
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    let notice = &page[page.find("acquired the strongest echo").expect("no acquisition notice on the page")..];
+    let (gate_from, gate_to) = (number_after(notice, "(").unwrap(), number_after(notice, " to ").unwrap());
+    // The gate band of the whole-window chart.
+    let svg = out.join("range-trace.svg");
+    let (per_km, zero) = range_axis(&svg);
+    let text = std::fs::read_to_string(&svg).unwrap();
+    let doc = roxmltree::Document::parse(&text).unwrap();
+    let band = doc
+        .descendants()
+        .find(|n| n.attribute("fill") == Some("#ECC478") && n.attribute("opacity") == Some("0.6"))
+        .expect("a gate band");
+    let x: f64 = band.attribute("x").unwrap().parse().unwrap();
+    let w: f64 = band.attribute("width").unwrap().parse().unwrap();
+    let (band_from, band_to) = ((x - zero) / per_km * 1e3, (x + w - zero) / per_km * 1e3);
+    let px_m = 1e3 / per_km;
+    assert!((band_from - gate_from).abs() < 1.5 * px_m, "band starts at {band_from:.0} m, gate at {gate_from:.0} m");
+    assert!((band_to - gate_to).abs() < 1.5 * px_m, "band ends at {band_to:.0} m, gate at {gate_to:.0} m");
+    let range = column_mean(&out.join("angles.csv"), "range_m");
+    assert!(range > gate_from && range < gate_to, "range {range:.0} m outside the gate {gate_from:.0}..{gate_to:.0} m");
+    // One range everywhere: the circle's reading is the tables' leading edge.
+    let circle = svg_texts(&out.join("sweep-circle.svg"));
+    let edge = circle.iter().find_map(|t| number_after(t, "Echo leading edge")).expect("leading edge readout");
+    assert!((edge * 1e3 - range).abs() < 0.5 * 149.9, "circle {edge} km, tables {range:.1} m");
+    // The angle plot's key and the curve's counts against the summary table.
+    let rows = summary_rows(&page);
+    assert_eq!(rows.len(), 2);
+    let key = svg_texts(&out.join("angles.svg"));
+    let curve = svg_texts(&out.join("discriminator-curve.svg"));
+    for (axis, figures) in &rows {
+        let panel = key.iter().position(|t| t.starts_with(&format!("axis {axis}:"))).unwrap();
+        let mine = &key[panel..];
+        let figure = |name: &str| mine.iter().find_map(|t| number_after(t, name)).unwrap();
+        let (count, ok, mean, rms, sigma, outliers) =
+            (figures[0], figures[1], figures[2], figures[3], figures[5], figures[8]);
+        // The page's range column is the same leading edge the circle reads.
+        assert!((figures[9] - edge * 1e3).abs() < 0.5 * 149.9, "{axis}: page {} m, circle {edge} km", figures[9]);
+        assert_eq!(figure("mean "), mean, "{axis} mean");
+        assert_eq!(figure("RMS "), rms, "{axis} RMS");
+        assert_eq!(figure("median σ "), sigma, "{axis} median σ");
+        assert_eq!(figure("angle, "), ok, "{axis} ok count");
+        assert_eq!(number_after(mine.iter().find(|t| t.starts_with("angle, ")).unwrap(), " ok of "), Some(count));
+        let panel = curve.iter().position(|t| t == &format!("pair {axis}")).unwrap();
+        let points = curve[panel..].iter().find_map(|t| number_after(t, "operating points: ")).unwrap();
+        assert_eq!(points, ok + outliers, "{axis}: curve points against ok and outlier estimates");
+    }
+}
+
+/// The beacon spectrum on the independent off-grid beacon capture (numpy,
+/// tests/independent): each lobe's peak lies within a bin of the tone the
+/// script wrote (3137.7 Hz), inside the search window; a tone setting
+/// far off (-3 kHz) leaves the real tone among the noise bins, and the
+/// picture's block says so.
+#[test]
+fn beacon_spectrum_finds_the_independent_tone_and_warns_of_a_wrong_setting() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let capture = root.join("tests/independent/captures/beacon-off-grid.sigmf-meta");
+    let input = format!("input={}", capture.display());
+    let settings = ["dwell=5 ms", "first_start=2.5 ms", "guard=0.3 ms"];
+    let mut args: Vec<&str> = vec!["--set", &input];
+    for s in &settings {
+        args.extend(["--set", s]);
+    }
+    let good = [args.clone(), vec!["--set", "tone=3137.7 Hz"]].concat();
+    let out = run_graph("beacon-spectrum", "graphs/two-lobe-beacon.yaml", &good);
+    let svg = out.join("beacon-spectrum.svg");
+    let texts = svg_texts(&svg);
+    let subtitle = texts.iter().find(|t| t.contains("-point transform")).unwrap();
+    let bin_hz = number_after(subtitle, "transform, bin ").unwrap();
+    let peaks: Vec<f64> =
+        texts.iter().filter_map(|t| number_after(t, "peak ").filter(|_| t.contains("over noise"))).collect();
+    assert_eq!(peaks.len(), 2, "{texts:?}");
+    for p in peaks {
+        assert!((p - 3137.7).abs() < bin_hz, "peak {p} Hz, tone 3137.7 Hz, bin {bin_hz} Hz");
+    }
+    let search = texts.iter().find_map(|t| number_after(t, "peak search ±")).unwrap();
+    assert!(search > bin_hz && search < 1000.0, "search half-width {search} Hz");
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(!page.contains("beacon spectrum of lobe"), "a warning on the right tone");
+
+    let wrong = [args, vec!["--set", "tone=-3000 Hz"]].concat();
+    let out = run_graph("beacon-spectrum-wrong", "graphs/two-lobe-beacon.yaml", &wrong);
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    let warning = &page[page.find("beacon spectrum of lobe").expect("a warning of the wrong tone")..];
+    let line = number_after(warning, "the strongest line is at ").unwrap();
+    assert!((line - 3137.7).abs() < bin_hz, "the warning names {line} Hz");
+}
+
+/// Warnings a block raises on `items` with `set`.
+fn warnings(spec: &BlockSpec, set: &[(&str, &str)], items: Vec<(usize, Item)>) -> Vec<String> {
+    let files = FileStager::default();
+    let ctx = BuildContext { name: spec.kind.into(), out_dir: std::env::temp_dir(), files: files.clone() };
+    let mut block = (spec.build)(&params(spec, set), &ctx).unwrap();
+    let mut out = Outputs::new(spec.outputs.len());
+    for (port, item) in items {
+        block.process(port, item, &mut out).unwrap();
+    }
+    block.finish(&mut out).unwrap();
+    files.commit().unwrap();
+    out.drain_notices().map(|n| n.what).collect()
+}
+
+/// The hand-worked check value above (Gaussian beams, BW 6 deg, squint
+/// 2.4 deg, two-way: 3.2110 dB at 0.5 deg) lies on the curve picture's
+/// model with those settings; told another beamwidth, the picture warns
+/// that the points lie off its curve, naming the settings to align.
+#[test]
+fn discriminator_curve_warns_when_points_lie_off_its_model() {
+    let spec = lobeflow::blocks::pictures::discriminator_curve::SPEC;
+    let point = |k: u64| {
+        let e = AngleEstimate {
+            stamp: Stamp::new(k * 8000, RATE),
+            axis: Arc::from("az"),
+            error_deg: Some(0.5),
+            sigma_deg: 0.05,
+            snr_db: 18.0,
+            ratio_db: 3.2110,
+            range_m: None,
+            flag: Flag::Ok,
+            tracked_deg: None,
+            tracked_sigma_deg: None,
+            absolute_deg: None,
+        };
+        (0, Item::Estimate(Box::new(e)))
+    };
+    let dir = scratch("curve-model");
+    let base = dir.join("curve");
+    let base = base.to_string_lossy();
+    let set = [("beam", "gaussian"), ("beamwidth", "6 deg"), ("squint", "2.4 deg"), ("way", "two"), ("path", &base)];
+    assert!(warnings(&spec, &set, (0..5).map(point).collect()).is_empty());
+    let wrong = [("beam", "gaussian"), ("beamwidth", "8 deg"), ("squint", "2.4 deg"), ("way", "two"), ("path", &base)];
+    let said = warnings(&spec, &wrong, (0..5).map(point).collect());
+    assert_eq!(said.len(), 1, "{said:?}");
+    assert!(said[0].starts_with("5 operating points lie more than") && said[0].contains("beamwidth"), "{said:?}");
 }

@@ -360,4 +360,23 @@ fn the_regression_page_puts_failures_first_with_their_rows_and_shows_markup_as_t
         assert!(d.join("out").join(target).is_file(), "{target}");
     }
     assert!(page.contains("<a href=\"zz%3Cscript%3Ealert%281%29%3Cb%3E%26%27/report.html\">"));
+    regress_page_in_a_browser(&d.join("out/report.html"));
+}
+
+/// The regression page in headless Chromium (skipped, saying so, without
+/// one): the DOM it builds holds the three sample sections and no script
+/// element, the screenshot has the window's size, and the stylesheet drew
+/// the fail and pass verdicts in their colours.
+fn regress_page_in_a_browser(page: &Path) {
+    use crate::report_page::{rendered_dom, screenshot};
+    let shot = page.with_file_name("regress-shot.png");
+    let Some((w, h, step, buf)) = screenshot(page, (1200, 1400), &shot) else { return };
+    assert_eq!((w, h), (1200, 1400), "screenshot size");
+    let has = |rgb: [u8; 3]| buf.chunks(step).filter(|p| p[..3] == rgb).count() > 50;
+    assert!(has([196, 58, 40]), "no fail colour drawn");
+    assert!(has([26, 104, 112]), "no pass colour drawn");
+    let dom = rendered_dom(page).unwrap();
+    assert_eq!(dom.matches("<h2>").count(), 3, "three sample sections");
+    assert!(!dom.to_lowercase().contains("<script"), "a script element in the rendered page");
+    assert!(dom.contains("alert(2)"), "the hostile axis shown as text");
 }

@@ -73,7 +73,7 @@ fn run_page_escapes_file_strings_and_links_every_picture() {
         .filter_map(|e| e.ok()?.file_name().into_string().ok())
         .filter(|n| n.ends_with(".svg"))
         .collect();
-    assert_eq!(svgs.len(), 5, "{svgs:?}");
+    assert_eq!(svgs.len(), 6, "{svgs:?}");
     assert!(svgs.contains(&"time<b>line.svg".to_string()));
     for name in &svgs {
         let link = lobeflow::report::link(Path::new(name));
@@ -84,26 +84,21 @@ fn run_page_escapes_file_strings_and_links_every_picture() {
     browser_check(&out, &svgs);
 }
 
-fn browser() -> Option<PathBuf> {
+pub fn browser() -> Option<PathBuf> {
     ["chromium", "chromium-browser", "chromium-headless-shell", "google-chrome"].iter().find_map(|name| {
         let path = std::env::var_os("PATH")?;
         std::env::split_paths(&path).map(|d| d.join(name)).find(|p| p.is_file())
     })
 }
 
-/// Load the page in headless Chromium: the screenshot has the window's
-/// size, and the pictures' paper colour (absent from the page's own white
-/// ground) covers about as many rows as the pictures are tall together,
-/// so every picture loaded.
-fn browser_check(out: &Path, svgs: &[String]) {
+/// A headless Chromium screenshot of `page` at `size`: its width, height,
+/// and rows of pixels (RGB or RGBA, `step` bytes each). None, saying so,
+/// where no browser is installed.
+pub fn screenshot(page: &Path, size: (u32, u32), shot: &Path) -> Option<(u32, u32, usize, Vec<u8>)> {
     let Some(chromium) = browser() else {
         eprintln!("SKIPPED browser check: no chromium on PATH (apt-get install -y chromium)");
-        return;
+        return None;
     };
-    let heights: u32 = svgs.iter().map(|n| svg_height(&out.join(n))).sum();
-    let (w, h) = (1400u32, heights + 3000);
-    let shot = out.parent().unwrap().join("shot.png");
-    let page = out.join("report.html");
     let run = Command::new(&chromium)
         .args([
             "--headless",
@@ -111,23 +106,45 @@ fn browser_check(out: &Path, svgs: &[String]) {
             "--disable-gpu",
             "--hide-scrollbars",
             &format!("--screenshot={}", shot.display()),
-            &format!("--window-size={w},{h}"),
+            &format!("--window-size={},{}", size.0, size.1),
             &format!("file://{}", page.display()),
         ])
         .output()
         .unwrap();
     assert!(run.status.success(), "chromium failed: {}", String::from_utf8_lossy(&run.stderr));
-    let decoder = png::Decoder::new(std::io::BufReader::new(std::fs::File::open(&shot).unwrap()));
+    let decoder = png::Decoder::new(std::io::BufReader::new(std::fs::File::open(shot).unwrap()));
     let mut reader = decoder.read_info().unwrap();
     let mut buf = vec![0; reader.output_buffer_size().unwrap()];
     let info = reader.next_frame(&mut buf).unwrap();
-    assert_eq!((info.width, info.height), (w, h), "screenshot size");
-    let step = info.color_type.samples();
-    let row_bytes = info.width as usize * step;
-    let paper_rows = buf[..info.buffer_size()]
-        .chunks(row_bytes)
-        .filter(|row| row.chunks(step).filter(|p| p[..3] == [250, 247, 240]).count() > 20)
-        .count() as u32;
+    buf.truncate(info.buffer_size());
+    Some((info.width, info.height, info.color_type.samples(), buf))
+}
+
+/// The DOM Chromium built from `page` after loading it (scripts would have run by then).
+pub fn rendered_dom(page: &Path) -> Option<String> {
+    let chromium = browser()?;
+    let run = Command::new(&chromium)
+        .args(["--headless", "--no-sandbox", "--disable-gpu", "--dump-dom", &format!("file://{}", page.display())])
+        .output()
+        .unwrap();
+    assert!(run.status.success(), "chromium failed: {}", String::from_utf8_lossy(&run.stderr));
+    Some(String::from_utf8_lossy(&run.stdout).into_owned())
+}
+
+/// Load the page in headless Chromium: the screenshot has the window's
+/// size, and the pictures' paper colour (absent from the page's own white
+/// ground) covers about as many rows as the pictures are tall together,
+/// so every picture loaded.
+fn browser_check(out: &Path, svgs: &[String]) {
+    let heights: u32 = svgs.iter().map(|n| svg_height(&out.join(n))).sum();
+    let (w, h) = (1400u32, heights + 3000);
+    let shot = out.parent().unwrap().join("shot.png");
+    let Some((width, height, step, buf)) = screenshot(&out.join("report.html"), (w, h), &shot) else { return };
+    assert_eq!((width, height), (w, h), "screenshot size");
+    let row_bytes = width as usize * step;
+    let paper_rows =
+        buf.chunks(row_bytes).filter(|row| row.chunks(step).filter(|p| p[..3] == [250, 247, 240]).count() > 20).count()
+            as u32;
     assert!(
         paper_rows as f64 > 0.9 * heights as f64,
         "pictures cover {paper_rows} rows of {heights}: one did not load"

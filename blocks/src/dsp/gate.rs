@@ -63,6 +63,21 @@ crate::block_choice! {
     }
 }
 
+impl Weighting {
+    /// Centroid (bins from the first) of noise-corrected bin powers, or None
+    /// when no bin stands over the noise. The echo's leading edge, the range
+    /// every output gives, lies (P - 1) / 2 bins before it for an echo P
+    /// samples long.
+    pub fn centroid(self, corrected: &[f64]) -> Option<f64> {
+        let weight = |c: f64| match self {
+            Weighting::Amplitude => c.max(0.0).sqrt(),
+            Weighting::Power => c.max(0.0),
+        };
+        let total: f64 = corrected.iter().map(|&c| weight(c)).sum();
+        (total > 0.0).then(|| corrected.iter().enumerate().map(|(k, &c)| k as f64 * weight(c)).sum::<f64>() / total)
+    }
+}
+
 crate::block_choice! {
     /// How a tracking gate re-centres itself.
     pub enum Follow { None = "none", Centroid = "centroid", EarlyLate = "early_late" }
@@ -239,18 +254,11 @@ impl DwellSums {
             Integration::Coherent => noise / n * g.sqrt(),
         };
         let amplitude = if energy > 0.0 && energy > detect_sigmas * noise_std { energy.sqrt() } else { f64::NAN };
-        let weights: Vec<f64> = match weighting {
-            Weighting::Amplitude => corrected.iter().map(|c| c.max(0.0).sqrt()).collect(),
-            Weighting::Power => corrected.iter().map(|c| c.max(0.0)).collect(),
-        };
-        let total: f64 = weights.iter().sum();
         // The interpolated reading fits the echo's delay itself.
         let fitted = reading.and_then(|r| r.position).filter(|_| e > 0.0);
         let centroid_bin = match fitted {
             Some(p) => Some(self.start as f64 + p),
-            None => (total > 0.0).then(|| {
-                self.start as f64 + weights.iter().enumerate().map(|(k, w)| k as f64 * w).sum::<f64>() / total
-            }),
+            None => weighting.centroid(&corrected).map(|c| self.start as f64 + c),
         };
         let half = self.width() / 2;
         let early = corrected[..half].iter().map(|c| c.max(0.0)).sum();

@@ -7,7 +7,7 @@ use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::gate::{AmplitudeFrom, DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
-use crate::item::{DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep};
+use crate::item::{Cell, DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep, TableRow};
 use crate::param::{ParamType, Unit, range_bin_m};
 use crate::typed::{DistanceSetting, TimeSetting, TypedBlock};
 use std::collections::BTreeMap;
@@ -29,7 +29,14 @@ crate::block_ports! {
 }
 
 crate::block_ports! {
-    outputs pub enum RangeGateOut { Dwells = optional("dwells", ItemKind::Dwell, "one record per lobe dwell") }
+    outputs pub enum RangeGateOut {
+        Dwells = optional("dwells", ItemKind::Dwell, "one record per lobe dwell"),
+        Gates = optional(
+            "gates",
+            ItemKind::Row,
+            "the gate in use, a row each time it is set or moves: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
+        ),
+    }
 }
 
 crate::block_settings! {
@@ -156,6 +163,7 @@ impl TypedBlock for RangeGate {
             noise_floor: BTreeMap::new(),
             mismatch_reported: false,
             blank_reported: false,
+            gate_told: None,
             last_stamp: Stamp::new(0, 1.0),
         })
     }
@@ -290,6 +298,8 @@ pub struct RangeGate {
     mismatch_reported: bool,
     blank_reported: bool,
     last_stamp: Stamp,
+    /// (gate start, noise bins) last put on the `gates` port.
+    gate_told: Option<(usize, std::ops::Range<usize>)>,
 }
 
 impl RangeGate {
@@ -326,10 +336,12 @@ impl RangeGate {
                     out.inform(
                         at,
                         format!(
-                            "acquired the strongest echo: gate at bins {}..{} ({:.1} m) after {} dwells",
+                            "acquired the strongest echo: gate at bins {}..{} ({:.1} to {:.1} m) after {} dwells; \
+                             ranges given are the echo's leading edge inside it",
                             start,
                             start + geo.gate_width,
                             start as f64 * range_bin_m(geo.rate),
+                            (start + geo.gate_width) as f64 * range_bin_m(geo.rate),
                             acq.dwells
                         ),
                     );
@@ -517,6 +529,28 @@ impl RangeGate {
 }
 
 impl RangeGate {
+    /// Put the gate and noise region in use on the `gates` port when they
+    /// change, in metres from the transmit instant.
+    fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, out: &mut Outputs) {
+        let Some(start) = self.gate_start else { return };
+        let noise = geo.noise_range(sweep_len);
+        if self.gate_told.as_ref().is_some_and(|(s, n)| *s == start && *n == noise) {
+            return;
+        }
+        let bin_m = range_bin_m(geo.rate);
+        let metres = |bins: f64| Cell::Num(bins * bin_m);
+        let fields = [
+            ("gate_start_m", metres(start as f64)),
+            ("gate_end_m", metres((start + geo.gate_width) as f64)),
+            ("noise_start_m", metres(noise.start as f64)),
+            ("noise_end_m", metres(noise.end as f64)),
+            ("echo_length_m", metres(geo.pulse_samples)),
+        ];
+        let fields = fields.into_iter().map(|(name, cell)| (Arc::from(name), cell)).collect();
+        out.push(RangeGateOut::Gates, Item::Row(TableRow { stamp: at, fields }));
+        self.gate_told = Some((start, noise));
+    }
+
     fn take(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {
         let Some(tag) = sweep.lobe.clone() else {
             self.untagged += 1;
@@ -531,6 +565,7 @@ impl RangeGate {
         if !same_dwell {
             self.close_dwell(out);
             self.open_dwell(&tag, &geo, sweep.stamp, out);
+            self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, out);
         }
         self.add_sweep(&sweep, &geo, out);
         Ok(())

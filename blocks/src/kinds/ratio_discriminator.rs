@@ -228,9 +228,21 @@ fn lobe_gains(text: &str, pairs: &[LobePair]) -> Result<Vec<(String, f64)>, Para
 
 /// The beam model of every pair, from `beam`, `beamwidth`, `squint`, `way`, `pattern`.
 fn pair_model(s: &RatioDiscriminatorSettings) -> Result<PairModel, BuildError> {
-    let pattern = &s.pattern;
+    beam_pair_model(s.beam, s.beamwidth, s.squint, s.way, &s.pattern)
+}
+
+/// The pair model the settings `beam`, `beamwidth`, `squint`, `way` and
+/// `pattern` describe; errors name those settings (the discriminator and
+/// the picture of its curve both take them).
+pub fn beam_pair_model(
+    model: BeamModel,
+    beamwidth: f64,
+    squint: f64,
+    way: Way,
+    pattern: &std::path::Path,
+) -> Result<PairModel, BuildError> {
     let set = !pattern.as_os_str().is_empty();
-    let shape = match s.beam {
+    let shape = match model {
         BeamModel::Gaussian => BeamShape::Gaussian,
         BeamModel::Uniform => BeamShape::Uniform,
         BeamModel::Cosine => BeamShape::Cosine,
@@ -246,16 +258,16 @@ fn pair_model(s: &RatioDiscriminatorSettings) -> Result<PairModel, BuildError> {
             )
         }
     };
-    if set && s.beam != BeamModel::Table {
+    if set && model != BeamModel::Table {
         return Err(
             ParamError::invalid("pattern", format!("is set ({}) but beam is not 'table'", pattern.display())).into()
         );
     }
-    let beam = Beam::new(shape, s.beamwidth).map_err(|e| match s.beam {
+    let beam = Beam::new(shape, beamwidth).map_err(|e| match model {
         BeamModel::Table => BuildError::failed(format!("pattern file {}", pattern.display()), e),
         BeamModel::Gaussian | BeamModel::Uniform | BeamModel::Cosine => BuildError::Refused(e),
     })?;
-    Ok(PairModel::new(beam, s.squint, s.way.passes())?)
+    Ok(PairModel::new(beam, squint, way.passes())?)
 }
 
 #[derive(Clone, Copy, Debug)]

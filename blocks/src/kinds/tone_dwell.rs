@@ -247,11 +247,10 @@ impl ToneDwell {
         self.windowed_powers(nfft, None);
 
         // Peak near the tone: within one unpadded bin plus the search width.
-        let pad = nfft as f64 / m as f64;
         // Reduced to one turn of the spectrum so far-out tones stay in range.
         let tone_bin = (self.tone_hz / rate).rem_euclid(1.0) * nfft as f64;
         // Never wider than half the transform: the search wraps around.
-        let reach = (pad + self.search_hz / rate * nfft as f64).ceil().min(nfft as f64 / 2.0) as i64;
+        let reach = search_reach_bins(self.search_hz, rate, m, nfft).ceil().min(nfft as f64 / 2.0) as i64;
         let centre = tone_bin.round() as i64;
         let wrap = |k: i64| k.rem_euclid(nfft as i64) as usize;
         let peak = (centre - reach..=centre + reach)
@@ -263,7 +262,7 @@ impl ToneDwell {
         let rough = (peak as f64 + offset) / nfft as f64;
         let half_bin = 0.5 / nfft as f64;
         let fitted = dtft_peak(&self.samples, &self.weights, rough - half_bin, rough + half_bin);
-        let exclude = (self.window.main_lobe_half_width() + self.window.noise_exclusion()) * pad;
+        let exclude = noise_exclusion_bins(self.window, m, nfft);
         let rough_noise_bin = self.off_tone_noise(fitted * nfft as f64, exclude);
         let freq = self.readout_frequency(fitted, rate, peak_power, rough_noise_bin);
         let (re, im) = weighted_dtft(&self.samples, &self.weights, freq);
@@ -380,6 +379,22 @@ impl ToneDwell {
         v.sort_by(f64::total_cmp);
         Some(v[v.len() / 2])
     }
+}
+
+/// Bins of an `nfft`-point transform of `samples` samples either side of
+/// the tone setting searched for its peak: one bin of the unpadded
+/// transform plus the `search_hz` drift allowance.
+pub fn search_reach_bins(search_hz: f64, rate: f64, samples: usize, nfft: usize) -> f64 {
+    let pad = nfft as f64 / samples as f64;
+    pad + search_hz / rate * nfft as f64
+}
+
+/// Bins of an `nfft`-point transform of `samples` samples either side of
+/// the tone left out of the noise estimate: the window's main lobe and its
+/// leakage margin. Every bin beyond is a noise bin.
+pub fn noise_exclusion_bins(window: Window, samples: usize, nfft: usize) -> f64 {
+    let pad = nfft as f64 / samples as f64;
+    (window.main_lobe_half_width() + window.noise_exclusion()) * pad
 }
 
 fn ratio(signal: f64, noise: f64) -> f64 {

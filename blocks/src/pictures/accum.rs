@@ -317,3 +317,63 @@ mod tests {
         assert!(d.windows(2).all(|w| w[0].0 <= w[1].0));
     }
 }
+
+/// The range gate as a `range_gate` block reported it on its `gates` port
+/// (metres from the transmit instant): the first gate set (fixed or
+/// acquired), how far a following gate moved, and the noise region.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct GateReport {
+    /// The first gate in use, (start, end) m.
+    pub first: Option<(f64, f64)>,
+    /// The least start and greatest end over every gate in use, m.
+    pub span: Option<(f64, f64)>,
+    /// The last gate in use, (start, end) m.
+    pub last: Option<(f64, f64)>,
+    /// The noise reference region, (start, end) m.
+    pub noise: Option<(f64, f64)>,
+    /// Echo length the gate takes off the centroid to give the leading edge, m.
+    pub echo_length_m: f64,
+    /// Rows taken (1 for a gate that never moved).
+    pub rows: u64,
+}
+
+impl GateReport {
+    /// Take one row of a `gates` port; a row without the fields is an error
+    /// naming the missing one.
+    pub fn take(&mut self, row: &crate::TableRow) -> Result<(), BlockError> {
+        let field = |name: &str| -> Result<f64, BlockError> {
+            row.fields
+                .iter()
+                .find(|(n, _)| &**n == name)
+                .and_then(|(_, c)| match c {
+                    crate::Cell::Num(v) if v.is_finite() => Some(*v),
+                    _ => None,
+                })
+                .ok_or_else(|| {
+                    BlockError::at(
+                        format!("a gate row has no number '{name}': wire a range_gate's 'gates' output here"),
+                        row.stamp.index,
+                    )
+                })
+        };
+        let gate = (field("gate_start_m")?, field("gate_end_m")?);
+        self.noise = Some((field("noise_start_m")?, field("noise_end_m")?));
+        self.echo_length_m = field("echo_length_m")?;
+        self.first.get_or_insert(gate);
+        self.last = Some(gate);
+        self.span = Some(self.span.map_or(gate, |(a, b)| (a.min(gate.0), b.max(gate.1))));
+        self.rows += 1;
+        Ok(())
+    }
+
+    /// What the gate did, for a legend: fixed or acquired where, and how far it followed.
+    pub fn describe(&self) -> Option<String> {
+        let (first, span) = (self.first?, self.span?);
+        let km = |m: f64| format!("{:.2}", m / 1e3);
+        Some(if self.rows > 1 {
+            format!("gate {}–{} km, followed over {}–{} km", km(first.0), km(first.1), km(span.0), km(span.1))
+        } else {
+            format!("gate {}–{} km", km(first.0), km(first.1))
+        })
+    }
+}

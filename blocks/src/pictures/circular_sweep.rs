@@ -3,9 +3,10 @@
 //! coarse single-turn circle beside it; echoes deflect the trace radially and
 //! the strongest echo's range is read off both circles.
 
-use super::accum::{BinWindow, SweepAverage, decimate_min_max, median};
+use super::accum::{BinWindow, GateReport, SweepAverage, decimate_min_max, median};
 use super::circular::{Winding, interpolated_peak, read_range};
 use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
+use crate::dsp::gate::Weighting;
 use crate::{
     BlockError, BlockSpec, BuildContext, Cell, DistanceSetting, FileStager, Item, ItemKind, Outputs, ParamType,
     TableRow, TypedBlock, Unit,
@@ -83,7 +84,10 @@ crate::block_settings! {
 }
 
 crate::block_ports! {
-    inputs pub enum CircularSweepIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps to average (all lobes)") }
+    inputs pub enum CircularSweepIn {
+        Sweeps = required("sweeps", ItemKind::Sweep, "sweeps to average (all lobes)"),
+        Gates = optional("gates", ItemKind::Row, "a range_gate's gates output: its echo length turns the peak into the leading edge"),
+    }
 }
 
 crate::block_ports! {
@@ -98,6 +102,13 @@ const HEIGHT: u32 = 780;
 const DRAWN_POINTS: usize = 6000;
 /// Most range marks drawn around the fine circle per turn.
 const MAX_MARKS_PER_TURN: f64 = 100.0;
+/// Largest angle (radians) between drawn points of the trace: a degree.
+const MAX_STEP_RAD: f64 = std::f64::consts::PI / 180.0;
+/// Most points of an interpolated trace.
+const INTERPOLATED_POINTS: usize = 40_000;
+/// Width of a label character and height of a label line, pixels (12 px font).
+const LABEL_CHAR_PX: f64 = 7.0;
+const LABEL_HEIGHT_PX: f64 = 14.0;
 
 /// Memory one range bin of the window takes by the end of a run: the
 /// average (16 bytes), the trace (16) and its table row (about 700: seven
@@ -108,6 +119,7 @@ pub struct CircularSweep {
     settings: CircularSweepSettings,
     files: FileStager,
     average: Option<SweepAverage>,
+    gate: GateReport,
 }
 
 impl TypedBlock for CircularSweep {
@@ -116,12 +128,14 @@ impl TypedBlock for CircularSweep {
     type Out = CircularSweepOut;
 
     fn build(settings: CircularSweepSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
-        Ok(CircularSweep { settings, files: ctx.files.clone(), average: None })
+        Ok(CircularSweep { settings, files: ctx.files.clone(), average: None, gate: GateReport::default() })
     }
 
-    fn process(&mut self, _port: CircularSweepIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Sweep(sweep) = item else {
-            return Ok(());
+    fn process(&mut self, port: CircularSweepIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
+        let sweep = match (port, item) {
+            (CircularSweepIn::Sweeps, Item::Sweep(sweep)) => sweep,
+            (CircularSweepIn::Gates, Item::Row(row)) => return self.gate.take(&row),
+            _ => return Ok(()),
         };
         if self.average.is_none() {
             let s = &self.settings;
@@ -151,7 +165,9 @@ impl TypedBlock for CircularSweep {
         if !(mark_m > 0.0 && mark_m.is_finite()) {
             return Err(BlockError::new(format!("parameter 'mark_every' must be a positive distance, got {mark_m} m")));
         }
-        let scene = Scene::compute(avg, s.revolutions, s.deflection.sign(), s.gain, mark_m).map_err(BlockError::new)?;
+        let mut scene =
+            Scene::compute(avg, s.revolutions, s.deflection.sign(), s.gain, mark_m).map_err(BlockError::new)?;
+        scene.read_leading_edge(avg, &self.gate);
         for row in scene.rows(avg) {
             out.push(CircularSweepOut::Rows, Item::Row(row));
         }
@@ -170,6 +186,9 @@ pub struct Scene {
     pub readout: Readout,
     pub mark_m: f64,
     pub sweeps: u64,
+    /// The echo's leading edge (the range every table gives), when a gate
+    /// was wired: read in the gate as the range gate reads it.
+    pub leading_edge_m: Option<f64>,
     coarse_scale: f64,
     /// +1 outward, -1 inward.
     sign: f64,
@@ -222,9 +241,27 @@ impl Scene {
             readout: Readout { range_m, turn: fine.split(range_m).0, fine_angle, coarse_angle, above_floor_db },
             mark_m,
             sweeps: avg.sweeps,
+            leading_edge_m: None,
             coarse_scale,
             sign,
         })
+    }
+
+    /// The echo's leading edge read as the range gate reads it: the
+    /// amplitude centroid of the averaged power over the gate, less the
+    /// noise (the mean over the noise region), less half the echo length
+    /// ((P - 1) / 2 bins; docs/derivations.md, "Range").
+    pub fn read_leading_edge(&mut self, avg: &SweepAverage, gate: &GateReport) {
+        let w = avg.window;
+        let (Some((g0, g1)), Some((n0, n1))) = (gate.span, gate.noise) else { return };
+        let bin = |m: f64| (m / w.bin_m()).round() as i64 - w.first as i64;
+        let clip = |b: i64| b.clamp(0, w.len as i64) as usize;
+        let Some(noise) = avg.mean_power(clip(bin(n0)), clip(bin(n1))) else { return };
+        let (lo, hi) = (clip(bin(g0)), clip(bin(g1)));
+        let corrected: Vec<f64> = (lo..hi).map(|k| avg.power_at(k).map_or(0.0, |p| p - noise)).collect();
+        self.leading_edge_m = Weighting::Amplitude
+            .centroid(&corrected)
+            .map(|c| w.range_m(lo as f64 + c) - 0.5 * (gate.echo_length_m - w.bin_m()).max(0.0));
     }
 
     /// Table rows: one per bin of the averaged window, then the readout.
@@ -257,6 +294,38 @@ impl Scene {
         rows
     }
 
+    /// The trace as drawn on `w`: a vertex at every averaged bin, joined by
+    /// points between neighbours (range and deflection taken linearly) so
+    /// the circle is round however few bins a turn holds. Very long windows
+    /// are reduced to their per-group extremes instead.
+    pub fn drawn_trace(&self, w: &Winding, scale: f64) -> Vec<(f64, f64)> {
+        let bins = self.trace.len();
+        if bins > DRAWN_POINTS {
+            let series: Vec<(f64, f64)> = self.trace.iter().enumerate().map(|(k, t)| (k as f64, t.1)).collect();
+            return decimate_min_max(&series, DRAWN_POINTS)
+                .into_iter()
+                .map(|(k, d)| w.point(self.trace[k as usize].0, d * scale))
+                .collect();
+        }
+        let bin_turns = match self.trace.get(..2) {
+            Some([a, b]) => (b.0 - a.0) / w.metres_per_turn(),
+            _ => 0.0,
+        };
+        let steps =
+            ((bin_turns * TAU / MAX_STEP_RAD).ceil() as usize).clamp(1, (INTERPOLATED_POINTS / bins.max(1)).max(1));
+        let mut points = Vec::with_capacity(bins * steps);
+        for (k, &(r, d)) in self.trace.iter().enumerate() {
+            points.push(w.point(r, d * scale));
+            if let Some(&(r1, d1)) = self.trace.get(k + 1) {
+                for j in 1..steps {
+                    let f = j as f64 / steps as f64;
+                    points.push(w.point(r + f * (r1 - r), (d + f * (d1 - d)) * scale));
+                }
+            }
+        }
+        points
+    }
+
     fn draw_circle<DB: DrawingBackend>(
         &self,
         area: &DrawingArea<DB, Shift>,
@@ -268,56 +337,105 @@ impl Scene {
         let c = px(w.centre);
         area.draw(&Circle::new(c, w.radius.round() as i32, palette::GRID.stroke_width(1))).map_err(draw_err)?;
         area.draw(&Circle::new(c, 3, palette::MUTED.filled())).map_err(draw_err)?;
-        // Range marks: ticks on the inner side (or outer, for inward deflection).
-        let tick_dir = -self.sign;
-        let per_turn = w.metres_per_turn();
-        let mut step = self.mark_m;
-        while per_turn / step > MAX_MARKS_PER_TURN {
-            step *= 2.0;
+        if fine {
+            self.draw_fine_marks(area, w)?;
+        } else {
+            self.draw_coarse_marks(area, w)?;
         }
-        let marks = ((w.range_end_m - w.range_start_m) / step).floor() as usize;
-        // Fine circle: label about a dozen marks of the first turn. Coarse
-        // circle: label where each fine turn starts.
-        let label_every = ((per_turn / step) / 12.0).ceil().max(1.0) as usize;
-        let fine_turn = self.fine.metres_per_turn();
-        let label_style = text_style(12.0, palette::MUTED);
-        for j in 0..=marks.min(20_000) {
-            let r = w.range_start_m + j as f64 * step;
-            let a = w.angle(r);
-            let turn_start = ((j as f64 * step) % fine_turn) < 0.5 * step;
-            let long = turn_start || fine && j % label_every == 0;
-            let len = if long { 12.0 } else { 6.0 };
-            let p0 = w.point_at_angle(a, w.radius);
-            let p1 = w.point_at_angle(a, w.radius + tick_dir * len);
-            area.draw(&PathElement::new(vec![px(p0), px(p1)], palette::INK.stroke_width(1))).map_err(draw_err)?;
-            // Labels: offsets within a turn on the fine circle (first turn only), turn starts on the coarse.
-            let label = if fine && r < w.range_start_m + per_turn - 0.5 * step && j % label_every == 0 {
-                Some(format!("+{}", trim_km(r - w.range_start_m)))
-            } else if !fine && turn_start {
-                Some(trim_km(r))
-            } else {
-                None
-            };
-            if let Some(label) = label {
-                let q = w.point_at_angle(a, w.radius + tick_dir * (len + 16.0));
-                let style =
-                    label_style.pos(text_anchor::Pos::new(text_anchor::HPos::Center, text_anchor::VPos::Center));
-                area.draw(&Text::new(label, px(q), style)).map_err(draw_err)?;
-            }
-        }
-        // The trace itself, reduced to a drawable number of points.
-        let series: Vec<(f64, f64)> = self.trace.iter().enumerate().map(|(k, t)| (k as f64, t.1)).collect();
-        let points: Vec<(i32, i32)> = decimate_min_max(&series, DRAWN_POINTS)
-            .into_iter()
-            .map(|(k, d)| px(w.point(self.trace[k as usize].0, d * scale)))
-            .collect();
-        area.draw(&PathElement::new(points, palette::TRACE.stroke_width(2))).map_err(draw_err)?;
+        let points: Vec<(i32, i32)> = self.drawn_trace(w, scale).into_iter().map(px).collect();
+        area.draw(&PathElement::new(points, palette::TRACE.stroke_width(1))).map_err(draw_err)?;
         // Cursor through the echo.
         let a = if fine { self.readout.fine_angle } else { self.readout.coarse_angle };
         let tip = w.point_at_angle(a, w.radius + self.sign * 0.47 * self.fine.radius * scale);
         area.draw(&PathElement::new(vec![c, px(tip)], palette::ALERT.stroke_width(1))).map_err(draw_err)?;
         Ok(())
     }
+
+    /// Mark spacing on `w`: the setting, doubled until a turn holds few enough.
+    fn mark_step(&self, w: &Winding) -> f64 {
+        let mut step = self.mark_m;
+        while w.metres_per_turn() / step > MAX_MARKS_PER_TURN {
+            step *= 2.0;
+        }
+        step
+    }
+
+    /// Fine circle: marks every step from the turn start, about a dozen
+    /// labelled with their offset into the turn (the same on every turn).
+    fn draw_fine_marks<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>, w: &Winding) -> Result<(), String> {
+        let step = self.mark_step(w);
+        let per_turn = w.metres_per_turn();
+        let label_every = ((per_turn / step) / 12.0).ceil().max(1.0) as usize;
+        let marks = ((per_turn - 0.5 * step) / step).floor().max(0.0) as usize;
+        for j in 0..=marks.min(20_000) {
+            let offset = j as f64 * step;
+            let label = (j % label_every == 0).then(|| format!("+{}", trim_km(offset)));
+            self.draw_mark(area, w, w.range_start_m + offset, j == 0, label)?;
+        }
+        Ok(())
+    }
+
+    /// Coarse circle: marks at whole multiples of the step (round ranges),
+    /// about a dozen labelled with their range; each fine turn's start a
+    /// long unlabelled tick.
+    fn draw_coarse_marks<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>, w: &Winding) -> Result<(), String> {
+        let step = self.mark_step(w);
+        let span = w.range_end_m - w.range_start_m;
+        let label_step = round_step(span / 12.0).max(step);
+        let first = (w.range_start_m / step).ceil() as i64;
+        let last = (w.range_end_m / step).floor() as i64;
+        for m in first..=last.min(first + 20_000) {
+            let r = m as f64 * step;
+            let on_label = (r / label_step - (r / label_step).round()).abs() < 1e-6;
+            self.draw_mark(area, w, r, on_label, on_label.then(|| trim_km(r)))?;
+        }
+        let fine_turn = self.fine.metres_per_turn();
+        for t in 0..=(self.fine.revolutions.ceil() as usize).min(200) {
+            let r = w.range_start_m + t as f64 * fine_turn;
+            if r <= w.range_end_m {
+                let (p0, p1) =
+                    (w.point_at_angle(w.angle(r), w.radius), w.point_at_angle(w.angle(r), w.radius - self.sign * 16.0));
+                let px = |p: (f64, f64)| (p.0.round() as i32, p.1.round() as i32);
+                area.draw(&PathElement::new(vec![px(p0), px(p1)], palette::ALERT.stroke_width(2))).map_err(draw_err)?;
+            }
+        }
+        Ok(())
+    }
+
+    /// One tick at `range_m` on the side away from the deflection, and its
+    /// label placed clear of the tick and the circle: the label's centre
+    /// sits out along the radius by half the text box's extent that way.
+    fn draw_mark<DB: DrawingBackend>(
+        &self,
+        area: &DrawingArea<DB, Shift>,
+        w: &Winding,
+        range_m: f64,
+        long: bool,
+        label: Option<String>,
+    ) -> Result<(), String> {
+        let px = |p: (f64, f64)| (p.0.round() as i32, p.1.round() as i32);
+        let tick_dir = -self.sign;
+        let a = w.angle(range_m);
+        let len = if long { 12.0 } else { 6.0 };
+        let p0 = w.point_at_angle(a, w.radius);
+        let p1 = w.point_at_angle(a, w.radius + tick_dir * len);
+        area.draw(&PathElement::new(vec![px(p0), px(p1)], palette::INK.stroke_width(1))).map_err(draw_err)?;
+        if let Some(label) = label {
+            let (half_w, half_h) = (0.5 * LABEL_CHAR_PX * label.chars().count() as f64, 0.5 * LABEL_HEIGHT_PX);
+            let clear = half_w * a.sin().abs() + half_h * a.cos().abs() + 4.0;
+            let q = w.point_at_angle(a, w.radius + tick_dir * (len + clear));
+            let style = text_style(12.0, palette::MUTED)
+                .pos(text_anchor::Pos::new(text_anchor::HPos::Center, text_anchor::VPos::Center));
+            area.draw(&Text::new(label, px(q), style)).map_err(draw_err)?;
+        }
+        Ok(())
+    }
+}
+
+/// The 1-2-5 step at least `x`.
+fn round_step(x: f64) -> f64 {
+    let decade = 10f64.powf(x.max(1e-9).log10().floor());
+    [1.0, 2.0, 5.0, 10.0].iter().map(|m| m * decade).find(|s| *s >= x).unwrap_or(10.0 * decade)
 }
 
 fn trim_km(m: f64) -> String {
@@ -346,8 +464,19 @@ impl Picture for Scene {
         let ink = text_style(16.0, palette::INK);
         let muted = text_style(14.0, palette::MUTED);
         let r = &self.readout;
+        let (headline, how) = match self.leading_edge_m {
+            Some(edge) => (
+                format!("Echo leading edge  {}", fmt_km(edge)),
+                format!("gate's amplitude centroid less half the echo length; peak {}", fmt_km(r.range_m)),
+            ),
+            None => (
+                format!("Echo peak  {}", fmt_km(r.range_m)),
+                "no gate wired: the leading edge (the tables' range) is not known".to_string(),
+            ),
+        };
         let lines = [
-            (format!("Echo range  {}", fmt_km(r.range_m)), text_style(24.0, palette::ALERT)),
+            (headline, text_style(24.0, palette::ALERT)),
+            (how, muted.clone()),
             (
                 format!(
                     "coarse circle: turn {} of {} ({:.1}°)",
@@ -367,7 +496,7 @@ impl Picture for Scene {
             ),
             (
                 format!(
-                    "turn start {} + fine offset",
+                    "turn start {} (red tick on the coarse circle) + fine offset",
                     fmt_km(self.fine.range_start_m + r.turn as f64 * self.fine.metres_per_turn())
                 ),
                 ink.clone(),
@@ -383,7 +512,7 @@ impl Picture for Scene {
             (format!("range marks every {}", trim_km(self.mark_m)), muted.clone()),
         ];
         for (i, (line, style)) in lines.into_iter().enumerate() {
-            root.draw(&Text::new(line, (760, 500 + 34 * i as i32), style)).map_err(draw_err)?;
+            root.draw(&Text::new(line, (760, 470 + 32 * i as i32), style)).map_err(draw_err)?;
         }
         Ok(())
     }

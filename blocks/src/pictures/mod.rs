@@ -7,6 +7,7 @@
 
 pub mod accum;
 pub mod angle_plot;
+pub mod beacon_spectrum;
 pub mod circular;
 pub mod circular_sweep;
 pub mod discriminator_curve;
@@ -24,8 +25,15 @@ use std::sync::OnceLock;
 
 /// Every picture kind, registered by [`crate::standard_registry`]. Each
 /// writes `BASE.png` and `BASE.svg` from its `path` parameter.
-pub const ALL: &[BlockSpec] =
-    &[circular_sweep::SPEC, range_trace::SPEC, split_pair::SPEC, angle_plot::SPEC, lobe_timeline::SPEC];
+pub const ALL: &[BlockSpec] = &[
+    circular_sweep::SPEC,
+    range_trace::SPEC,
+    split_pair::SPEC,
+    angle_plot::SPEC,
+    lobe_timeline::SPEC,
+    beacon_spectrum::SPEC,
+    discriminator_curve::SPEC,
+];
 
 /// Whether `kind` is a picture kind (its `path` is a base name for a pair of
 /// files).
@@ -99,6 +107,15 @@ pub trait Picture {
 /// Turn any drawing error into text.
 pub fn draw_err<E: std::fmt::Display>(e: E) -> String {
     format!("drawing failed: {e}")
+}
+
+/// The base name a picture's `path` setting gives (trimmed); empty is refused.
+pub fn picture_base(path: &str) -> Result<String, crate::ParamError> {
+    let base = path.trim();
+    if base.is_empty() {
+        return Err(crate::ParamError::invalid("path", "is empty"));
+    }
+    Ok(base.to_string())
 }
 
 /// Render `picture` to `<base>.png` and `<base>.svg`, both staged with the
@@ -204,7 +221,7 @@ pub fn draw_mesh<DB: DrawingBackend>(chart: &mut Chart<'_, DB>, x_desc: &str, y_
     chart
         .configure_mesh()
         .bold_line_style(palette::GRID)
-        .light_line_style(palette::GRID_FINE)
+        .light_line_style(TRANSPARENT)
         .axis_style(palette::MUTED)
         .label_style(text_style(13.0, palette::INK))
         .axis_desc_style(text_style(14.0, palette::INK))
@@ -224,10 +241,31 @@ pub fn legend<DB: DrawingBackend>(
     entries: &[(RGBColor, String)],
 ) -> Result<(), String> {
     let (w, _) = area.dim_in_pixel();
+    legend_at(area, (w as i32 - legend_width(entries) - 24).max(4), top, entries)
+}
+
+/// The legend box at the top-left corner of `area`'s plot (past the axis
+/// labels), for charts whose data leave that corner free.
+pub fn legend_top_left<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    top: i32,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    legend_at(area, 100, top, entries)
+}
+
+fn legend_width(entries: &[(RGBColor, String)]) -> i32 {
     let widest = entries.iter().map(|e| e.1.chars().count()).max().unwrap_or(0) as i32;
-    let box_w = 46 + 7 * widest;
-    let x0 = (w as i32 - box_w - 24).max(4);
-    let y0 = top;
+    46 + 7 * widest
+}
+
+fn legend_at<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    x0: i32,
+    y0: i32,
+    entries: &[(RGBColor, String)],
+) -> Result<(), String> {
+    let box_w = legend_width(entries);
     let h = 22 * entries.len() as i32 + 10;
     area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::PANEL.filled())).map_err(draw_err)?;
     area.draw(&Rectangle::new([(x0, y0), (x0 + box_w, y0 + h)], palette::GRID.stroke_width(1))).map_err(draw_err)?;

@@ -1,22 +1,25 @@
 //! `split_pair`: for each lobe pair, the two lobes' averaged sweeps around
-//! the range gate on two traces a small, adjustable distance apart, with the
-//! pair's balance in dB printed (balanced means on axis).
+//! the range gate on one scale, the gate shaded (from a `range_gate`'s
+//! `gates` output, else the gate settings) and the pair's balance written:
+//! the mean power of the positive lobe over the negative one in the gate,
+//! in dB (balanced means on axis).
 
-use super::accum::{BinWindow, LobeAverages, SweepAverage, decimate_min_max};
+use super::accum::{BinWindow, GateReport, LobeAverages, SweepAverage, decimate_min_max};
 use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
 use crate::dsp::discriminator::LobePair;
 use crate::{
-    BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamError,
-    ParamType, TypedBlock,
+    BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType,
+    TypedBlock,
 };
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
 pub const SPEC: BlockSpec = BlockSpec::typed::<SplitPair>(
     "split_pair",
-    "Split pair picture: for each lobe pair, the two lobes' averaged sweeps around the range gate drawn on two traces \
-     an adjustable distance apart, with the balance (positive lobe over negative, dB) printed; writes <path>.png and \
-     <path>.svg. Needs sweeps labelled with their lobe.",
+    "Split pair picture: for each lobe pair, the two lobes' averaged sweeps around the range gate on one scale, the \
+     gate shaded (from a range_gate's gates output, else the gate settings) and the balance (positive lobe over \
+     negative, mean power in the gate, dB) written; writes <path>.png and <path>.svg. Needs sweeps labelled with \
+     their lobe.",
 );
 
 const DIST: ParamType = ParamType::Distance { min_m: 0.0, max_m: 1e8 };
@@ -28,11 +31,6 @@ crate::block_settings! {
             ty: ParamType::LobePairs,
             default: Some("az=right/left, el=up/down"),
             doc: "lobe pairs: axis=positive/negative, comma-separated",
-        },
-        separation: String {
-            ty: ParamType::Text,
-            default: Some("12 dB"),
-            doc: "how far the positive lobe's trace is raised: in dB (e.g. '12 dB') or as a fraction of the plot height (e.g. '0.3')",
         },
         gate_start: DistanceSetting { ty: DIST, default: Some("0 m"), doc: "range gate start" },
         gate_width: DistanceSetting {
@@ -55,42 +53,19 @@ crate::block_settings! {
 }
 
 crate::block_ports! {
-    inputs pub enum SplitPairIn { Sweeps = required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe") }
+    inputs pub enum SplitPairIn {
+        Sweeps = required("sweeps", ItemKind::Sweep, "sweeps labelled with their lobe"),
+        Gates = optional("gates", ItemKind::Row, "a range_gate's gates output: the gate the balance is read in"),
+    }
 }
 
 const WIDTH: u32 = 1200;
 const HEIGHT: u32 = 640;
 
-/// How far apart the two traces of a pair are drawn.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum Separation {
-    Decibels(f64),
-    /// Fraction of the plot height.
-    Fraction(f64),
-}
-
-pub fn parse_separation(text: &str) -> Result<Separation, String> {
-    let t = text.trim();
-    if let Some(n) = t.strip_suffix("dB") {
-        let v: f64 = n.trim().parse().map_err(|_| format!("separation '{t}': expected a number of dB"))?;
-        if !(0.0..=200.0).contains(&v) {
-            return Err(format!("separation {v} dB is out of range (0 to 200 dB)"));
-        }
-        return Ok(Separation::Decibels(v));
-    }
-    let v: f64 = t
-        .parse()
-        .map_err(|_| format!("separation '{t}': expected dB (e.g. '12 dB') or a fraction of the plot (e.g. '0.3')"))?;
-    if !(0.0..=0.9).contains(&v) {
-        return Err(format!("separation {v} as a fraction of the plot must lie between 0 and 0.9"));
-    }
-    Ok(Separation::Fraction(v))
-}
-
 pub struct SplitPair {
     settings: SplitPairSettings,
-    separation: Separation,
     averages: LobeAverages,
+    gate: GateReport,
     files: FileStager,
     untagged: u64,
 }
@@ -111,25 +86,39 @@ impl SplitPair {
     }
 }
 
+impl SplitPair {
+    /// The gate in window bins: every position a `range_gate` reported
+    /// (the span a following gate covered), else the gate settings.
+    fn gate_bins(&self, w: &BinWindow) -> Result<Option<(usize, usize)>, BlockError> {
+        let (start, width) = match self.gate.span {
+            Some((a, b)) => (a / w.bin_m(), (b - a) / w.bin_m()),
+            None => (self.settings.gate_start.bins(w.rate)?, self.settings.gate_width.bins(w.rate)?),
+        };
+        let start = start - w.first as f64;
+        Ok((width > 0.0).then_some((start.max(0.0).round() as usize, (start + width).max(0.0).round() as usize)))
+    }
+}
+
 impl TypedBlock for SplitPair {
     type Settings = SplitPairSettings;
     type In = SplitPairIn;
     type Out = NoPorts;
 
     fn build(s: SplitPairSettings, ctx: &BuildContext) -> Result<Self, crate::BuildError> {
-        let separation = parse_separation(&s.separation).map_err(|e| ParamError::invalid("separation", e))?;
         Ok(SplitPair {
             averages: LobeAverages::new(s.average),
-            separation,
+            gate: GateReport::default(),
             settings: s,
             files: ctx.files.clone(),
             untagged: 0,
         })
     }
 
-    fn process(&mut self, _port: SplitPairIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
-        let Item::Sweep(sweep) = item else {
-            return Ok(());
+    fn process(&mut self, port: SplitPairIn, item: Item, out: &mut Outputs) -> Result<(), BlockError> {
+        let sweep = match (port, item) {
+            (SplitPairIn::Sweeps, Item::Sweep(sweep)) => sweep,
+            (SplitPairIn::Gates, Item::Row(row)) => return self.gate.take(&row),
+            _ => return Ok(()),
         };
         let Some(tag) = &sweep.lobe else {
             if self.untagged == 0 {
@@ -155,12 +144,7 @@ impl TypedBlock for SplitPair {
             let a = self.averages.get(&pair.plus);
             let b = self.averages.get(&pair.minus);
             let gate = match self.averages.window() {
-                Some(w) => {
-                    let width = self.settings.gate_width.bins(w.rate)?;
-                    let start = self.settings.gate_start.bins(w.rate)? - w.first as f64;
-                    (width > 0.0)
-                        .then_some((start.max(0.0).round() as usize, (start + width).max(0.0).round() as usize))
-                }
+                Some(w) => self.gate_bins(&w)?,
                 None => None,
             };
             let balance = balance_db(a, b, gate);
@@ -178,7 +162,11 @@ impl TypedBlock for SplitPair {
                 gate: self.averages.window().zip(gate),
             });
         }
-        let picture = SplitPicture { panels, separation: self.separation, untagged: self.untagged };
+        let margin_km = match self.averages.window() {
+            Some(w) => self.settings.margin.bins(w.rate)? * w.bin_m() / 1e3,
+            None => 0.0,
+        };
+        let picture = SplitPicture { panels, margin_km, followed: self.gate.rows > 1, untagged: self.untagged };
         write_picture(&picture, &self.settings.path, &self.files)?;
         Ok(())
     }
@@ -220,7 +208,10 @@ struct Panel {
 
 struct SplitPicture {
     panels: Vec<Panel>,
-    separation: Separation,
+    /// Range shown either side of the gate.
+    margin_km: f64,
+    /// Whether the gate followed the echo (the shaded gate is its span).
+    followed: bool,
     untagged: u64,
 }
 
@@ -229,74 +220,80 @@ impl Picture for SplitPicture {
         (WIDTH, HEIGHT)
     }
     fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), String> {
-        let sep_text = match self.separation {
-            Separation::Decibels(d) => format!("positive lobe raised {d} dB"),
-            Separation::Fraction(f) => {
-                format!("positive lobe raised {:.0} % of the plot height", 100.0 * f)
-            }
-        };
-        let mut sub =
-            format!("Averaged sweeps of each lobe pair around the gate; {sep_text}; balance = positive over negative");
+        let gate = if self.followed { "the span the following gate covered" } else { "the gate" };
+        let mut sub = format!(
+            "each pair's two lobes on one scale around the gate; balance = mean power of the positive lobe over the \
+             negative one in {gate}"
+        );
         if self.untagged > 0 {
             sub.push_str(&format!("; {} unlabelled sweeps ignored", self.untagged));
         }
         let area = frame(root, "Split pair", &sub)?;
         let cells = area.split_evenly((1, self.panels.len().max(1)));
         for (panel, cell) in self.panels.iter().zip(&cells) {
-            draw_panel(panel, self.separation, cell)?;
+            draw_panel(panel, self.margin_km, cell)?;
         }
         Ok(())
     }
 }
 
-fn draw_panel<DB: DrawingBackend>(
-    panel: &Panel,
-    separation: Separation,
-    cell: &DrawingArea<DB, Shift>,
-) -> Result<(), String> {
-    let p = &panel.pair;
-    let values = panel.a.iter().chain(&panel.b).flat_map(|t| t.1.iter().map(|v| v.1));
-    let hi = values.clone().fold(f64::NEG_INFINITY, f64::max);
-    let lo = values.fold(f64::INFINITY, f64::min).max(hi - 80.0);
-    let (lo, hi) = padded(lo, hi, 0.02, 6.0);
-    let offset = match separation {
-        Separation::Decibels(d) => d,
-        Separation::Fraction(f) => f * (hi - lo),
-    };
+/// The range shown: the gate and `margin_km` either side, else all of the traces.
+fn shown_km(panel: &Panel, margin_km: f64) -> (f64, f64) {
+    if let Some((w, (g0, g1))) = panel.gate {
+        let (a, b) = (w.range_m(g0 as f64) / 1e3, w.range_m(g1 as f64) / 1e3);
+        let m = margin_km.max(5.0 * w.bin_m() / 1e3);
+        return ((a - m).max(w.start_m() / 1e3), (b + m).min(w.end_m() / 1e3));
+    }
     let x = panel
         .a
         .iter()
         .chain(&panel.b)
         .flat_map(|t| t.1.iter().map(|v| v.0))
         .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| (a.min(v), b.max(v)));
-    let (x0, x1) = if x.0 < x.1 { x } else { (0.0, 1.0) };
-    let caption = match panel.balance {
-        Some(b) => format!("{}: {} − {} = {:+.2} dB", p.axis, p.plus, p.minus, b),
-        None => format!("{}: {} / {} — no balance", p.axis, p.plus, p.minus),
-    };
-    let (y0, y1) = (lo, hi + offset);
-    let mut ch = chart(cell, &caption, x0..x1, y0..y1)?;
+    if x.0 < x.1 { x } else { (0.0, 1.0) }
+}
+
+fn draw_panel<DB: DrawingBackend>(panel: &Panel, margin_km: f64, cell: &DrawingArea<DB, Shift>) -> Result<(), String> {
+    let p = &panel.pair;
+    let (x0, x1) = shown_km(panel, margin_km);
+    let inside = |v: &&(f64, f64)| v.0 >= x0 && v.0 <= x1 && v.1.is_finite();
+    let values = panel.a.iter().chain(&panel.b).flat_map(|t| t.1.iter().filter(inside).map(|v| v.1));
+    let hi = values.clone().fold(f64::NEG_INFINITY, f64::max);
+    let lo = values.fold(f64::INFINITY, f64::min).max(hi - 80.0);
+    let (y0, y1) = padded(lo, hi, 0.04, 6.0);
+    // Headroom above the echo for the balance and the legend.
+    let y1 = y1 + 0.45 * (y1 - y0);
+    let mut ch = chart(cell, &format!("{}: {} and {}", p.axis, p.plus, p.minus), x0..x1, y0..y1)?;
     if let Some((w, (g0, g1))) = panel.gate {
         let (a, b) = (w.range_m(g0 as f64) / 1e3, w.range_m(g1 as f64) / 1e3);
-        ch.draw_series(std::iter::once(Rectangle::new([(a, y0), (b, y1)], palette::GATE.mix(0.4).filled())))
+        ch.draw_series(std::iter::once(Rectangle::new([(a, y0), (b, y1)], palette::GATE.mix(0.5).filled())))
             .map_err(draw_err)?;
     }
-    draw_mesh(&mut ch, "range (km)", "amplitude (dB)")?;
+    draw_mesh(&mut ch, "range (km)", "amplitude (dB, RMS)")?;
     let mut entries = Vec::new();
-    let clip = move |v: f64| v.max(lo);
-    if let Some((n, pts)) = &panel.a {
-        ch.draw_series(LineSeries::new(
-            pts.iter().map(|&(x, y)| (x, clip(y) + offset)),
-            palette::lobe(0).stroke_width(2),
-        ))
-        .map_err(draw_err)?;
-        entries.push((palette::lobe(0), format!("{} +{:.1} dB ({n})", p.plus, offset)));
+    for (trace, name, colour) in [(&panel.a, &p.plus, palette::lobe(0)), (&panel.b, &p.minus, palette::lobe(1))] {
+        if let Some((n, pts)) = trace {
+            let shown = pts.iter().filter(inside).map(|&(x, y)| (x, y.max(y0)));
+            ch.draw_series(LineSeries::new(shown, colour.stroke_width(2))).map_err(draw_err)?;
+            entries.push((colour, format!("{name}: {n} sweeps averaged")));
+        }
     }
-    if let Some((n, pts)) = &panel.b {
-        ch.draw_series(LineSeries::new(pts.iter().map(|&(x, y)| (x, clip(y))), palette::lobe(1).stroke_width(2)))
-            .map_err(draw_err)?;
-        entries.push((palette::lobe(1), format!("{} ({n})", p.minus)));
+    if let Some((w, (g0, g1))) = panel.gate {
+        entries.push((
+            palette::GATE,
+            format!("gate {:.2}–{:.2} km", w.range_m(g0 as f64) / 1e3, w.range_m(g1 as f64) / 1e3),
+        ));
     }
+    let balance = match panel.balance {
+        Some(b) => format!("balance {} over {}: {b:+.2} dB", p.plus, p.minus),
+        None => "no balance: a lobe is missing or has no power in the gate".to_string(),
+    };
+    ch.draw_series(std::iter::once(Text::new(
+        balance,
+        (x0 + 0.03 * (x1 - x0), y1 - 0.03 * (y1 - y0)),
+        text_style(18.0, palette::ALERT),
+    )))
+    .map_err(draw_err)?;
     if entries.is_empty() {
         ch.draw_series(std::iter::once(Text::new(
             format!("no sweeps of {} or {}", p.plus, p.minus),
@@ -308,17 +305,4 @@ fn draw_panel<DB: DrawingBackend>(
         legend(cell, 44, &entries)?;
     }
     Ok(())
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn separation_in_db_or_fraction() {
-        assert_eq!(parse_separation("12 dB"), Ok(Separation::Decibels(12.0)));
-        assert_eq!(parse_separation("0.25"), Ok(Separation::Fraction(0.25)));
-        assert!(parse_separation("2").is_err());
-        assert!(parse_separation("x dB").is_err());
-    }
 }
