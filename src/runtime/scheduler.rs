@@ -104,6 +104,8 @@ struct Node {
 struct Edge {
     queue: VecDeque<Item>,
     closed: bool,
+    /// The node that reads this wire.
+    consumer: usize,
     /// The consumer has all it needs (`Block::wants_input` turned false):
     /// items for it are dropped instead of queued.
     unwanted: bool,
@@ -177,7 +179,13 @@ pub fn run_nodes(
         });
     }
     let order = downstream_first(&nodes, edge_count);
-    let edges = (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false, unwanted: false }).collect();
+    let mut edges: Vec<Edge> =
+        (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false }).collect();
+    for (i, nd) in nodes.iter().enumerate() {
+        for &(_, e) in &nd.wired {
+            edges[e].consumer = i;
+        }
+    }
     let shared = Arc::new(Shared {
         state: Mutex::new(State { nodes, edges, order, running: 0, idle: 0, done: 0, stop: None, notices: Vec::new() }),
         wake: Condvar::new(),
@@ -270,9 +278,30 @@ fn helper_gain(st: &State, picked: usize, capacity: usize) -> Duration {
     (sum - longest).min(sum / 2)
 }
 
+/// Whether wire `e` holds back its producer. A wire at its bound whose
+/// consumer is a merge waiting for another, empty input does not, up to
+/// the starved-merge limit: the merge cannot take from it until the other
+/// input delivers, and that input is often fed by the same producer further
+/// up (a picture merging thinned sweeps with the range gate's per-dwell
+/// rows). Holding the producer back there stalled the graph into the
+/// one-item-at-a-time stall breaker. The merge order is unchanged.
+fn holds_back(nodes: &[Node], edges: &[Edge], e: usize, capacity: usize) -> bool {
+    let len = edges[e].queue.len();
+    if len < capacity {
+        return false;
+    }
+    if len >= capacity * STARVED_MERGE_FACTOR {
+        return true;
+    }
+    let consumer = edges[e].consumer;
+    let waiting_elsewhere = consumer != usize::MAX
+        && nodes[consumer].wired.iter().any(|&(_, other)| other != e && edges[other].queue.is_empty() && !edges[other].closed);
+    !waiting_elsewhere
+}
+
 fn ready(st: &State, i: usize, capacity: usize) -> bool {
     let nd = &st.nodes[i];
-    if nd.running || nd.done || nd.out_edges.iter().any(|&e| st.edges[e].queue.len() >= capacity) {
+    if nd.running || nd.done || nd.out_edges.iter().any(|&e| holds_back(&st.nodes, &st.edges, e, capacity)) {
         return false;
     }
     // A source, a block whose inputs all ended (finish), or one with an item on every open input.
@@ -289,7 +318,7 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
     if nd.running || nd.done {
         return None;
     }
-    if !relax && nd.out_edges.iter().any(|&e| edges[e].queue.len() >= capacity) {
+    if !relax && nd.out_edges.iter().any(|&e| holds_back(nodes, edges, e, capacity)) {
         return None;
     }
     if nd.wired.is_empty() {
