@@ -715,3 +715,48 @@ mod tests {
         }
     }
 }
+
+#[cfg(test)]
+mod holding_back {
+    use super::*;
+    use lobeflow_blocks::{SampleChunk, Stamp};
+
+    fn node(name: &str, wired: Vec<(usize, usize)>) -> Node {
+        Node {
+            name: Arc::from(name),
+            block: None,
+            inputs: wired.iter().map(|&(_, e)| Some(e)).collect(),
+            wired,
+            outputs: Vec::new(),
+            out_edges: Vec::new(),
+            running: false,
+            done: false,
+            step_cost: None,
+            stats: BlockStats::default(),
+        }
+    }
+
+    fn edge(len: usize, closed: bool, consumer: usize) -> Edge {
+        let item = Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
+        Edge { queue: std::iter::repeat_n(item, len).collect(), closed, consumer, unwanted: false }
+    }
+
+    #[test]
+    fn a_full_wire_into_a_merge_waiting_elsewhere_lets_its_producer_run() {
+        // Node 0 merges wire 0 (full) with wire 1.
+        let nodes = vec![node("merge", vec![(0, 0), (1, 1)])];
+        let cap = 4;
+        // Wire 1 open and empty: the merge cannot take from wire 0 yet.
+        assert!(!holds_back(&nodes, &[edge(cap, false, 0), edge(0, false, 0)], 0, cap));
+        // Until the starved-merge bound, where the stall breaker takes over.
+        assert!(holds_back(&nodes, &[edge(cap * STARVED_MERGE_FACTOR, false, 0), edge(0, false, 0)], 0, cap));
+        // Wire 1 has an item, or has ended: the merge can take from wire 0.
+        assert!(holds_back(&nodes, &[edge(cap, false, 0), edge(1, false, 0)], 0, cap));
+        assert!(holds_back(&nodes, &[edge(cap, false, 0), edge(0, true, 0)], 0, cap));
+        // Below the bound nothing holds back.
+        assert!(!holds_back(&nodes, &[edge(cap - 1, false, 0), edge(1, false, 0)], 0, cap));
+        // A single-input consumer is held back as before.
+        let single = vec![node("one", vec![(0, 0)])];
+        assert!(holds_back(&single, &[edge(cap, false, 0)], 0, cap));
+    }
+}
