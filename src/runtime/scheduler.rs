@@ -179,8 +179,9 @@ pub fn run_nodes(
         });
     }
     let order = downstream_first(&nodes, edge_count);
-    let mut edges: Vec<Edge> =
-        (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false }).collect();
+    let mut edges: Vec<Edge> = (0..edge_count)
+        .map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false })
+        .collect();
     for (i, nd) in nodes.iter().enumerate() {
         for &(_, e) in &nd.wired {
             edges[e].consumer = i;
@@ -295,7 +296,10 @@ fn holds_back(nodes: &[Node], edges: &[Edge], e: usize, capacity: usize) -> bool
     }
     let consumer = edges[e].consumer;
     let waiting_elsewhere = consumer != usize::MAX
-        && nodes[consumer].wired.iter().any(|&(_, other)| other != e && edges[other].queue.is_empty() && !edges[other].closed);
+        && nodes[consumer]
+            .wired
+            .iter()
+            .any(|&(_, other)| other != e && edges[other].queue.is_empty() && !edges[other].closed);
     !waiting_elsewhere
 }
 
@@ -737,7 +741,8 @@ mod holding_back {
     }
 
     fn edge(len: usize, closed: bool, consumer: usize) -> Edge {
-        let item = Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
+        let item =
+            Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
         Edge { queue: std::iter::repeat_n(item, len).collect(), closed, consumer, unwanted: false }
     }
 
