@@ -7,11 +7,11 @@
 //! Prints MS/s, the ratio to the plain read and the peak resident set of
 //! each run (the peak is reset between runs).
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 use std::time::Instant;
 
 mod common;
-use common::{peak_rss_kib, plain_read, reset_peak_rss};
+use common::{peak_rss_kib, plain_read, reset_peak_rss, without_pictures};
 
 fn main() {
     let gib: f64 = std::env::var("LOBEFLOW_BENCH_GIB").ok().and_then(|v| v.parse().ok()).unwrap_or(1.0);
@@ -62,26 +62,6 @@ fn main() {
         });
         println!("{name}: {:8.1} MS/s  ratio {:.3}  peak RSS {:6.1} MiB", ms(secs), read.0 / secs, rss as f64 / 1024.0);
     }
-}
-
-/// The reference graph without its picture blocks and their wires.
-fn without_pictures(text: &str, repo: &Path) -> String {
-    let pictures = ["angle_plot:", "circle:", "split:", "trace:", "timeline:", "thin:"];
-    text.lines()
-        .filter(|l| {
-            let t = l.trim_start();
-            let picture_wire = t.starts_with("- ")
-                && ["angle_plot", "circle", "split", "trace", "timeline"]
-                    .iter()
-                    .any(|p| t.ends_with(p) || t.contains(&format!("> {p}")));
-            !pictures.iter().any(|p| t.starts_with(p)) && !picture_wire
-        })
-        .map(|l| {
-            l.replace("../samples/", &format!("{}/samples/", repo.display()))
-                .replace("parts/", &format!("{}/graphs/parts/", repo.display()))
-        })
-        .collect::<Vec<_>>()
-        .join("\n")
 }
 
 /// Best wall time of `n` runs and the largest peak resident set (KiB).

@@ -1,5 +1,7 @@
-//! What both benchmarks measure the same way: the plain-read baseline and
-//! the peak resident set.
+//! What the benchmarks share: the plain-read baseline, the peak resident
+//! set and the reference graph without its pictures. Not every bench uses
+//! every helper.
+#![allow(dead_code)]
 
 use std::io::Read;
 use std::path::Path;
@@ -33,4 +35,25 @@ pub fn peak_rss_kib() -> u64 {
         .and_then(|l| l.split_whitespace().nth(1))
         .and_then(|v| v.parse().ok())
         .unwrap_or(0)
+}
+
+/// The reference graph without its picture blocks and their wires, its
+/// relative paths made absolute so the copy runs from another folder.
+pub fn without_pictures(text: &str, repo: &Path) -> String {
+    // The picture blocks, and `thin`, which feeds only pictures.
+    let pictures = ["angle_plot", "curve", "circle", "split", "trace", "timeline", "thin"];
+    text.lines()
+        .filter(|l| {
+            let t = l.trim_start();
+            let picture_block = pictures.iter().any(|p| t.starts_with(&format!("{p}:")));
+            let picture_wire = t.starts_with("- ")
+                && pictures.iter().any(|p| t.ends_with(&format!("> {p}")) || t.contains(&format!("> {p}.")));
+            !picture_block && !picture_wire
+        })
+        .map(|l| {
+            l.replace("../samples/", &format!("{}/samples/", repo.display()))
+                .replace("parts/", &format!("{}/graphs/parts/", repo.display()))
+        })
+        .collect::<Vec<_>>()
+        .join("\n")
 }

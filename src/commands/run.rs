@@ -11,7 +11,7 @@ use lobeflow_blocks::RawValue;
 use std::fmt::Write;
 use std::path::PathBuf;
 use std::sync::Arc;
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::Ordering;
 use std::time::{Duration, Instant};
 
 pub struct RunArgs {
@@ -104,7 +104,8 @@ fn run_watched(args: &RunArgs, signal: &mut Option<i32>) -> Result<RunReport, Er
 /// Watches for signals while a run goes, and keeps the progress line of a
 /// live input (capture time and lag) up to date.
 struct Watch {
-    done: Arc<AtomicBool>,
+    /// Dropped to stop the watcher: it wakes at once instead of at its next tick.
+    done: Option<crossbeam_channel::Sender<()>>,
     thread: Option<std::thread::JoinHandle<Option<i32>>>,
 }
 
@@ -118,16 +119,15 @@ const LAG_LINE_EVERY: Duration = Duration::from_secs(1);
 impl Watch {
     /// `before`: signals counted before this run's handlers were installed.
     fn start(opts: &RunOptions, live: bool, progress: terminal::Progress, stats: bool, before: u64) -> Watch {
-        let done = Arc::new(AtomicBool::new(false));
-        let (d, cancel, end_input, monitor) =
-            (Arc::clone(&done), Arc::clone(&opts.cancel), Arc::clone(&opts.end_input), Arc::clone(&opts.live));
+        let (done, stopped) = crossbeam_channel::bounded::<()>(0);
+        let (cancel, end_input, monitor) =
+            (Arc::clone(&opts.cancel), Arc::clone(&opts.end_input), Arc::clone(&opts.live));
         let thread = std::thread::spawn(move || {
             let mut seen = before;
             let mut first_signal = None;
             let mut last_show = Instant::now();
             let mut last_line = Instant::now();
-            while !d.load(Ordering::SeqCst) {
-                std::thread::sleep(WATCH_TICK);
+            while let Err(crossbeam_channel::RecvTimeoutError::Timeout) = stopped.recv_timeout(WATCH_TICK) {
                 let (count, sig) = signals::received();
                 if count > seen {
                     seen = count;
@@ -154,12 +154,12 @@ impl Watch {
             progress.finish();
             first_signal
         });
-        Watch { done, thread: Some(thread) }
+        Watch { done: Some(done), thread: Some(thread) }
     }
 
     /// Stop watching; returns the first signal that arrived, if any.
     fn stop(mut self) -> Option<i32> {
-        self.done.store(true, Ordering::SeqCst);
+        drop(self.done.take());
         self.thread.take().and_then(|t| t.join().ok()).flatten()
     }
 }

@@ -104,6 +104,8 @@ struct Node {
 struct Edge {
     queue: VecDeque<Item>,
     closed: bool,
+    /// The node that reads this wire.
+    consumer: usize,
     /// The consumer has all it needs (`Block::wants_input` turned false):
     /// items for it are dropped instead of queued.
     unwanted: bool,
@@ -177,7 +179,14 @@ pub fn run_nodes(
         });
     }
     let order = downstream_first(&nodes, edge_count);
-    let edges = (0..edge_count).map(|_| Edge { queue: VecDeque::new(), closed: false, unwanted: false }).collect();
+    let mut edges: Vec<Edge> = (0..edge_count)
+        .map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false })
+        .collect();
+    for (i, nd) in nodes.iter().enumerate() {
+        for &(_, e) in &nd.wired {
+            edges[e].consumer = i;
+        }
+    }
     let shared = Arc::new(Shared {
         state: Mutex::new(State { nodes, edges, order, running: 0, idle: 0, done: 0, stop: None, notices: Vec::new() }),
         wake: Condvar::new(),
@@ -270,9 +279,33 @@ fn helper_gain(st: &State, picked: usize, capacity: usize) -> Duration {
     (sum - longest).min(sum / 2)
 }
 
+/// Whether wire `e` holds back its producer. A wire at its bound whose
+/// consumer is a merge waiting for another, empty input does not, up to
+/// the starved-merge limit: the merge cannot take from it until the other
+/// input delivers, and that input is often fed by the same producer further
+/// up (a picture merging thinned sweeps with the range gate's per-dwell
+/// rows). Holding the producer back there stalled the graph into the
+/// one-item-at-a-time stall breaker. The merge order is unchanged.
+fn holds_back(nodes: &[Node], edges: &[Edge], e: usize, capacity: usize) -> bool {
+    let len = edges[e].queue.len();
+    if len < capacity {
+        return false;
+    }
+    if len >= capacity * STARVED_MERGE_FACTOR {
+        return true;
+    }
+    let consumer = edges[e].consumer;
+    let waiting_elsewhere = consumer != usize::MAX
+        && nodes[consumer]
+            .wired
+            .iter()
+            .any(|&(_, other)| other != e && edges[other].queue.is_empty() && !edges[other].closed);
+    !waiting_elsewhere
+}
+
 fn ready(st: &State, i: usize, capacity: usize) -> bool {
     let nd = &st.nodes[i];
-    if nd.running || nd.done || nd.out_edges.iter().any(|&e| st.edges[e].queue.len() >= capacity) {
+    if nd.running || nd.done || nd.out_edges.iter().any(|&e| holds_back(&st.nodes, &st.edges, e, capacity)) {
         return false;
     }
     // A source, a block whose inputs all ended (finish), or one with an item on every open input.
@@ -289,7 +322,7 @@ fn take_step(st: &mut State, i: usize, capacity: usize, relax: bool, batch: &mut
     if nd.running || nd.done {
         return None;
     }
-    if !relax && nd.out_edges.iter().any(|&e| edges[e].queue.len() >= capacity) {
+    if !relax && nd.out_edges.iter().any(|&e| holds_back(nodes, edges, e, capacity)) {
         return None;
     }
     if nd.wired.is_empty() {
@@ -684,5 +717,51 @@ mod tests {
                 assert!(got == want, "threads {threads}, capacity {capacity}: merge order differs");
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod holding_back {
+    use super::*;
+    use lobeflow_blocks::{SampleChunk, Stamp};
+
+    fn node(name: &str, wired: Vec<(usize, usize)>) -> Node {
+        Node {
+            name: Arc::from(name),
+            block: None,
+            inputs: wired.iter().map(|&(_, e)| Some(e)).collect(),
+            wired,
+            outputs: Vec::new(),
+            out_edges: Vec::new(),
+            running: false,
+            done: false,
+            step_cost: None,
+            stats: BlockStats::default(),
+        }
+    }
+
+    fn edge(len: usize, closed: bool, consumer: usize) -> Edge {
+        let item =
+            Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
+        Edge { queue: std::iter::repeat_n(item, len).collect(), closed, consumer, unwanted: false }
+    }
+
+    #[test]
+    fn a_full_wire_into_a_merge_waiting_elsewhere_lets_its_producer_run() {
+        // Node 0 merges wire 0 (full) with wire 1.
+        let nodes = vec![node("merge", vec![(0, 0), (1, 1)])];
+        let cap = 4;
+        // Wire 1 open and empty: the merge cannot take from wire 0 yet.
+        assert!(!holds_back(&nodes, &[edge(cap, false, 0), edge(0, false, 0)], 0, cap));
+        // Until the starved-merge bound, where the stall breaker takes over.
+        assert!(holds_back(&nodes, &[edge(cap * STARVED_MERGE_FACTOR, false, 0), edge(0, false, 0)], 0, cap));
+        // Wire 1 has an item, or has ended: the merge can take from wire 0.
+        assert!(holds_back(&nodes, &[edge(cap, false, 0), edge(1, false, 0)], 0, cap));
+        assert!(holds_back(&nodes, &[edge(cap, false, 0), edge(0, true, 0)], 0, cap));
+        // Below the bound nothing holds back.
+        assert!(!holds_back(&nodes, &[edge(cap - 1, false, 0), edge(1, false, 0)], 0, cap));
+        // A single-input consumer is held back as before.
+        let single = vec![node("one", vec![(0, 0)])];
+        assert!(holds_back(&single, &[edge(cap, false, 0)], 0, cap));
     }
 }

@@ -34,7 +34,7 @@ crate::block_ports! {
         Gates = optional(
             "gates",
             ItemKind::Row,
-            "the gate in use, a row each time it is set or moves: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
+            "the gate in use, a row per dwell: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
         ),
     }
 }
@@ -163,7 +163,6 @@ impl TypedBlock for RangeGate {
             noise_floor: BTreeMap::new(),
             mismatch_reported: false,
             blank_reported: false,
-            gate_told: None,
             last_stamp: Stamp::new(0, 1.0),
         })
     }
@@ -298,8 +297,6 @@ pub struct RangeGate {
     mismatch_reported: bool,
     blank_reported: bool,
     last_stamp: Stamp,
-    /// (gate start, noise bins) last put on the `gates` port.
-    gate_told: Option<(usize, std::ops::Range<usize>)>,
 }
 
 impl RangeGate {
@@ -529,14 +526,14 @@ impl RangeGate {
 }
 
 impl RangeGate {
-    /// Put the gate and noise region in use on the `gates` port when they
-    /// change, in metres from the transmit instant.
+    /// Put the gate and noise region in use on the `gates` port, in metres
+    /// from the transmit instant. A row per dwell, not only when the gate
+    /// moves: a picture merges these rows by time with sweeps, and a merge
+    /// waits for every open input, so rows that rarely come stalled the
+    /// whole graph (the short budget capture ran 2x slower).
     fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, out: &mut Outputs) {
         let Some(start) = self.gate_start else { return };
         let noise = geo.noise_range(sweep_len);
-        if self.gate_told.as_ref().is_some_and(|(s, n)| *s == start && *n == noise) {
-            return;
-        }
         let bin_m = range_bin_m(geo.rate);
         let metres = |bins: f64| Cell::Num(bins * bin_m);
         let fields = [
@@ -548,7 +545,6 @@ impl RangeGate {
         ];
         let fields = fields.into_iter().map(|(name, cell)| (Arc::from(name), cell)).collect();
         out.push(RangeGateOut::Gates, Item::Row(TableRow { stamp: at, fields }));
-        self.gate_told = Some((start, noise));
     }
 
     fn take(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {

@@ -333,8 +333,10 @@ pub struct GateReport {
     pub noise: Option<(f64, f64)>,
     /// Echo length the gate takes off the centroid to give the leading edge, m.
     pub echo_length_m: f64,
-    /// Rows taken (1 for a gate that never moved).
-    pub rows: u64,
+    /// Gates in use: a row counts only when its gate differs from the
+    /// last one (the gate reports itself every dwell); 1 for a gate that
+    /// never moved.
+    pub gates_in_use: u64,
 }
 
 impl GateReport {
@@ -359,10 +361,12 @@ impl GateReport {
         let gate = (field("gate_start_m")?, field("gate_end_m")?);
         self.noise = Some((field("noise_start_m")?, field("noise_end_m")?));
         self.echo_length_m = field("echo_length_m")?;
+        if self.last != Some(gate) {
+            self.gates_in_use += 1;
+        }
         self.first.get_or_insert(gate);
         self.last = Some(gate);
         self.span = Some(self.span.map_or(gate, |(a, b)| (a.min(gate.0), b.max(gate.1))));
-        self.rows += 1;
         Ok(())
     }
 
@@ -370,7 +374,7 @@ impl GateReport {
     pub fn describe(&self) -> Option<String> {
         let (first, span) = (self.first?, self.span?);
         let km = |m: f64| format!("{:.2}", m / 1e3);
-        Some(if self.rows > 1 {
+        Some(if self.gates_in_use > 1 {
             format!("gate {}–{} km, followed over {}–{} km", km(first.0), km(first.1), km(span.0), km(span.1))
         } else {
             format!("gate {}–{} km", km(first.0), km(first.1))

@@ -150,12 +150,14 @@ fn write_png(path: &Path, w: u32, h: u32, rgb: &[u8], files: &FileStager) -> Res
         let mut encoder = png::Encoder::new(f.writer(), w, h);
         encoder.set_color(png::ColorType::Rgb);
         encoder.set_depth(png::BitDepth::Eight);
-        // Plots are mostly flat colour: a light deflate level without row
-        // filters packs them as small as the default settings do (279 vs 278
-        // KB for the four-lobe graph's five pictures) with a third less
-        // deflate work and no filter search.
-        encoder.set_deflate_compression(png::DeflateCompression::Level(3));
-        encoder.set_filter(png::Filter::NoFilter);
+        // Deflate was most of a picture's cost. Plots are mostly flat
+        // colour, so the `Up` filter turns most rows into zeros and the
+        // fastest deflate level packs them: on the four-lobe graph's six
+        // pictures 3.2 x less encoding time than level 3 without filters,
+        // files 1.3 x larger (the adaptive filter search or the ultra-fast
+        // mode were quicker still but made files 2 to 5 x larger).
+        encoder.set_deflate_compression(png::DeflateCompression::Level(1));
+        encoder.set_filter(png::Filter::Up);
         let enc_err = |e: png::EncodingError| BlockError::new(format!("cannot encode {}: {e}", path.display()));
         let mut writer = encoder.write_header().map_err(enc_err)?;
         writer.write_image_data(rgb).map_err(enc_err)?;

@@ -115,7 +115,7 @@ impl TypedBlock for RangeTrace {
                 self.gate = GateReport {
                     first: Some((start, start + width)),
                     span: Some((start, start + width)),
-                    rows: 1,
+                    gates_in_use: 1,
                     ..GateReport::default()
                 };
             }
@@ -245,7 +245,7 @@ impl TracePicture {
             c.draw_series(std::iter::once(band(noise, palette::GUARD.mix(0.45)))).map_err(draw_err)?;
         }
         if let Some(span) = self.gate.span
-            && self.gate.rows > 1
+            && self.gate.gates_in_use > 1
         {
             c.draw_series(std::iter::once(band(span, palette::GATE.mix(0.25)))).map_err(draw_err)?;
         }

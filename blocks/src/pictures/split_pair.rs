@@ -166,7 +166,7 @@ impl TypedBlock for SplitPair {
             Some(w) => self.settings.margin.bins(w.rate)? * w.bin_m() / 1e3,
             None => 0.0,
         };
-        let picture = SplitPicture { panels, margin_km, followed: self.gate.rows > 1, untagged: self.untagged };
+        let picture = SplitPicture { panels, margin_km, followed: self.gate.gates_in_use > 1, untagged: self.untagged };
         write_picture(&picture, &self.settings.path, &self.files)?;
         Ok(())
     }
