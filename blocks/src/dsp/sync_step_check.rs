@@ -4,7 +4,8 @@
 //! when its line lags (or leads) the antenna, every dwell's samples near
 //! its start belong to the previous lobe. Each released sample is folded,
 //! per lobe, onto its phase since the switch the sync channel gave for its
-//! dwell (observed instants, not a schedule), and the fold is scored as the
+//! dwell (observed instants, not a schedule; each dwell is collected and
+//! stretched onto the usual dwell), and the fold is scored as the
 //! schedule check scores its own ([`ScheduleCheck`]): flat profiles when the
 //! two agree, a step at phase `dwell - lag` when the staircase lags.
 //! Steps close to the switch are tolerated: after it, within the guard (those
@@ -34,55 +35,77 @@ pub struct SyncFinding {
 pub struct SyncStepCheck {
     lobes: usize,
     guard: f64,
-    /// The switch the samples folded last belong to, and how many switches came before it.
-    switch: Option<(u64, i64)>,
+    /// The switch that began the dwell being collected, its lobe, and how many switches came before it.
+    switch: Option<(u64, usize, i64)>,
+    /// The power of the dwell being collected, from its switch on (at most a few dwells).
+    powers: Vec<f32>,
     spacings: Vec<f64>,
     fold: Option<ScheduleCheck>,
 }
 
+/// Longest dwell collected, in fold dwells (a stuck staircase is not held in memory).
+const LONGEST_DWELL: f64 = 4.0;
+/// Samples collected per dwell before the fold's dwell is known.
+const FIRST_DWELLS_CAP: usize = 1 << 20;
+
 impl SyncStepCheck {
     /// `guard` in samples: left out after each switch, as the gate leaves it out.
     pub fn new(lobes: usize, guard: f64) -> SyncStepCheck {
-        SyncStepCheck { lobes, guard, switch: None, spacings: Vec::new(), fold: None }
+        SyncStepCheck { lobes, guard, switch: None, powers: Vec::new(), spacings: Vec::new(), fold: None }
     }
 
-    /// Fold samples from `index` on, all of the dwell of `lobe` that began
-    /// at the sync switch `switch_at`.
+    /// Samples from `index` on, all of the dwell of `lobe` that began at
+    /// the sync switch `switch_at`.
     pub fn add(&mut self, index: u64, iq: &[Complex32], lobe: usize, switch_at: u64) {
-        let dwell_number = match self.switch {
-            Some((at, n)) if at == switch_at => n,
-            Some((at, n)) => {
-                self.switched(switch_at.saturating_sub(at) as f64);
-                n + 1
+        match self.switch {
+            Some((at, _, _)) if at == switch_at => {}
+            Some((at, before, n)) => {
+                self.dwell_ended(before, n, switch_at.saturating_sub(at) as f64);
+                self.switch = Some((switch_at, lobe, n + 1));
             }
-            None => 0,
-        };
-        self.switch = Some((switch_at, dwell_number));
-        let Some(fold) = self.fold.as_mut() else {
-            return;
-        };
+            None => self.switch = Some((switch_at, lobe, 0)),
+        }
+        let cap = self.fold.as_ref().map_or(FIRST_DWELLS_CAP, |f| (LONGEST_DWELL * f.dwell()) as usize);
         for (i, x) in iq.iter().enumerate() {
-            let phase = (index + i as u64).saturating_sub(switch_at) as f64;
-            fold.fold(dwell_number, lobe, phase, x.norm_sqr(), None);
+            // samples arrive in order; a gap (none expected) ends the collection
+            if (index + i as u64).checked_sub(switch_at) != Some(self.powers.len() as u64) || self.powers.len() >= cap {
+                break;
+            }
+            self.powers.push(x.norm_sqr());
         }
     }
 
-    /// A new dwell began `spacing` samples after the last: until the dwell is known, measure it.
-    fn switched(&mut self, spacing: f64) {
-        if self.fold.is_some() || spacing <= 0.0 {
+    /// A dwell of `lobe`, the `number`-th, ended after `length` samples:
+    /// until the usual dwell is known, measure it; then fold the dwell
+    /// stretched onto it (a dwell a few samples longer or shorter than
+    /// usual covers every phase bin once, so a changing power cannot make
+    /// the bins' means differ by which dwells reach them).
+    fn dwell_ended(&mut self, lobe: usize, number: i64, length: f64) {
+        let powers = std::mem::take(&mut self.powers);
+        if length <= 0.0 || powers.len() as f64 != length {
             return;
         }
-        self.spacings.push(spacing);
-        if self.spacings.len() == SPACINGS {
-            self.spacings.sort_by(f64::total_cmp);
-            let dwell = self.spacings[SPACINGS / 2];
-            self.fold = Some(ScheduleCheck::new(self.lobes, 0.0, dwell, self.guard));
+        let Some(fold) = self.fold.as_mut() else {
+            self.spacings.push(length);
+            if self.spacings.len() == SPACINGS {
+                self.spacings.sort_by(f64::total_cmp);
+                let dwell = self.spacings[SPACINGS / 2];
+                self.fold = Some(ScheduleCheck::new(self.lobes, 0.0, dwell, self.guard));
+            }
+            return;
+        };
+        let stretch = fold.dwell() / length;
+        for (k, &power) in powers.iter().enumerate() {
+            fold.fold(number, lobe, k as f64 * stretch, power, None);
         }
+        self.powers = powers;
+        self.powers.clear();
     }
 
     /// The verdict: None when the steps sit at the sync switches (within the tolerance).
     pub fn finish(&mut self) -> Option<SyncFinding> {
         let fold = self.fold.as_mut()?;
+        // the last dwell, unfinished, is not folded
         let found = fold.finish()?;
         // A dwell's samples from the observed switch on: a half-dwell step is
         // a real step either way, the side taken is the nearer one.
@@ -119,5 +142,14 @@ mod tests {
         assert_eq!(run(200, 0, 10.0), None);
         assert_eq!(run(200, 2, 10.0), None);
         assert_eq!(run(200, 3, 10.0), None);
+    }
+
+    #[test]
+    fn a_leading_staircase_is_measured_beyond_the_guard_only() {
+        // the sync switches `lead` samples early: the signal steps after them
+        let lead = |lead: u64, guard: f64| run(200, 200 - lead, guard);
+        let early = lead(40, 10.0).expect("40 samples early");
+        assert!((early.offset - 40.0).abs() <= 2.0, "{early:?}");
+        assert_eq!(lead(8, 10.0), None);
     }
 }
