@@ -186,6 +186,30 @@ def beacon(name, seconds, rate, tone, dwell_s, first_start_s, snr_db, transient,
     }
 
 
+def beacon_with_sync(name, seconds, rate, tone, dwell_s, first_start_s, sync_lag_s, seed):
+    """A two-lobe beacon whose third channel is the switch's sync staircase,
+    recorded `sync_lag_s` after the antenna really switches (0: on time)."""
+    rng = np.random.default_rng(seed)
+    n = int(seconds * rate)
+    t = np.arange(n) / rate
+    az = 0.6 + 0.8 * np.sin(2 * np.pi * t / 1.7)
+    lobe = np.floor((t - first_start_s) / dwell_s).astype(int) % 2  # 0 left, 1 right
+    gain = taper_beam(angle_between(az, 0.0, np.where(lobe == 0, -5.0, 5.0), 0.0), 12.0)
+    iq = 10 ** (6.0 / 20.0) * gain * np.exp(1j * (2 * np.pi * tone * t + 0.4))
+    iq += (rng.standard_normal(n) + 1j * rng.standard_normal(n)) / np.sqrt(2.0)
+    sync_lobe = np.floor((t - first_start_s - sync_lag_s) / dwell_s).astype(int) % 2
+    # the staircase ramps over two samples from one level to the next, as a slow line driver would
+    levels = np.array([-0.4, 0.3])[sync_lobe]
+    sync = np.convolve(levels, [0.5, 0.5])[:n] + 0.01 * rng.standard_normal(n)
+    riff_int16(os.path.join(OUT, name + ".wav"), rate, [1500.0 * iq.real, 1500.0 * iq.imag, 26000.0 * sync])
+    tt = np.arange(0.0, seconds, 1e-3)
+    truth_csv(os.path.join(OUT, name + ".truth.csv"), tt, {"az_deg": 0.6 + 0.8 * np.sin(2 * np.pi * tt / 1.7)})
+    return {
+        "kind": "beacon", "rate": rate, "tone_hz": tone, "dwell_s": dwell_s, "first_start_s": first_start_s,
+        "lobe_order": "left,right", "sync_lag_s": sync_lag_s,
+    }
+
+
 def main():
     os.makedirs(OUT, exist_ok=True)
     truth = {
@@ -196,6 +220,9 @@ def main():
         "beacon-blind": beacon("beacon-blind", 2.0, 64e3, -6432.1, 0.0025, 0.0009, 3.0, 6, 14.0, 14, label=1.0),
         # a switch clock 0.08 % slow: a schedule of 5 ms dwells drifts by 1.9 ms (38 % of a dwell) over the capture
         "beacon-drift": beacon("beacon-drift", 2.4, 48e3, 4321.0, 0.005004, 0.0012, 6.0, 4, 10.0, 15),
+        # a sync staircase a quarter dwell (1.25 ms) behind the antenna's switches, and its on-time twin
+        "lagging-sync-beacon": beacon_with_sync("lagging-sync-beacon", 1.2, 48e3, 3456.0, 0.005, 0.0012, 0.00125, 16),
+        "on-time-sync-beacon": beacon_with_sync("on-time-sync-beacon", 1.2, 48e3, 3456.0, 0.005, 0.0012, 0.0, 17),
     }
     with open(os.path.join(OUT, "truth.json"), "w") as f:
         json.dump(truth, f, indent=1)

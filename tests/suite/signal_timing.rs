@@ -192,3 +192,24 @@ fn a_sync_channel_lagging_the_switches_by_a_sweep_is_named_and_a_right_one_is_no
     assert!(what.contains("change lobe 1 sweep(s) before the sync channel's switches"), "{what}");
     assert!(what.contains("lag the lobe switches by about 200 us"), "{what}");
 }
+
+#[test]
+fn a_beacon_sync_channel_lagging_the_antenna_is_named_and_an_on_time_one_is_not() {
+    // a two-lobe beacon whose third channel is the switch's sync staircase (two-sample ramp)
+    let graph = "graphs/two-lobe-beacon.yaml";
+    let set = [("tone", "3456 Hz"), ("guard", "0.3 ms"), ("timing", "sync"), ("dwell", "5 ms"), ("learn", "0.2 s")];
+    let (_, _, notices) = run_reporting("on-time-sync-beacon", graph, &set, "on-time");
+    assert!(warnings_of(&notices, "gate").is_empty(), "{notices:#?}");
+    let name = "lagging-sync-beacon";
+    let lag_ms = n(&truth(name), "sync_lag_s") * 1e3;
+    let (_, _, notices) = run_reporting(name, graph, &set, "lagging");
+    let warnings = warnings_of(&notices, "gate");
+    assert_eq!(warnings.len(), 1, "{notices:#?}");
+    let what = &warnings[0].what;
+    eprintln!("{name}: {what} (truth: lag {lag_ms} ms)");
+    assert!(what.contains("before the sync channel's switches"), "{what}");
+    let found: f64 =
+        what.split("lags the antenna by about ").nth(1).and_then(|v| v.split(" ms").next()?.parse().ok()).unwrap();
+    // two fold bins (under 0.1 ms here) and the staircase's one-sample ramp
+    assert!((found - lag_ms).abs() <= 0.1, "{what}");
+}

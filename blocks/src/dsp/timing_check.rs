@@ -114,29 +114,35 @@ impl ScheduleCheck {
 
     /// Fold samples from `index` on.
     pub fn add(&mut self, index: u64, iq: &[Complex32], sync: Option<&[f32]>) {
-        for (i, power) in iq.iter().map(|x| x.norm_sqr()).enumerate() {
+        for (i, x) in iq.iter().enumerate() {
             let t = (index + i as u64) as f64 - self.first_start;
             let dwell = (t / self.dwell).floor();
             let phase = t - dwell * self.dwell;
             let dwell = dwell as i64;
-            let block = dwell.div_euclid(BLOCK_CYCLES * self.lobes as i64);
-            if self.block != Some(block) {
-                self.end_block();
-                self.block = Some(block);
-            }
-            if phase < self.skip {
-                continue;
-            }
-            let bin = ((phase - self.skip) / self.bin_width()) as usize;
-            let bin = bin.min(self.bins - 1);
-            let cell = dwell.rem_euclid(self.lobes as i64) as usize * self.bins + bin;
-            self.power.sum[cell] += f64::from(power);
-            self.power.count[cell] += 1;
-            if let Some(&s) = sync.and_then(|s| s.get(i)) {
-                for fold in [&mut self.sync, &mut self.sync_all] {
-                    fold.sum[cell] += f64::from(s);
-                    fold.count[cell] += 1;
-                }
+            let lobe = dwell.rem_euclid(self.lobes as i64) as usize;
+            self.fold(dwell, lobe, phase, x.norm_sqr(), sync.and_then(|s| s.get(i)).copied());
+        }
+    }
+
+    /// Fold one sample: the `dwell`-th dwell, labelled `lobe`, `phase`
+    /// samples after its (scheduled or observed) switch.
+    pub fn fold(&mut self, dwell: i64, lobe: usize, phase: f64, power: f32, sync: Option<f32>) {
+        let block = dwell.div_euclid(BLOCK_CYCLES * self.lobes as i64);
+        if self.block != Some(block) {
+            self.end_block();
+            self.block = Some(block);
+        }
+        if phase < self.skip {
+            return;
+        }
+        let bin = ((phase - self.skip) / self.bin_width()) as usize;
+        let cell = lobe * self.bins + bin.min(self.bins - 1);
+        self.power.sum[cell] += f64::from(power);
+        self.power.count[cell] += 1;
+        if let Some(s) = sync {
+            for fold in [&mut self.sync, &mut self.sync_all] {
+                fold.sum[cell] += f64::from(s);
+                fold.count[cell] += 1;
             }
         }
     }
@@ -243,7 +249,8 @@ impl ScheduleCheck {
         self.dwell
     }
 
-    fn bin_width(&self) -> f64 {
+    /// Samples per phase bin of the fold.
+    pub fn bin_width(&self) -> f64 {
         (self.dwell - self.skip) / self.bins as f64
     }
 

@@ -15,6 +15,7 @@ use crate::dsp::switch_finder::{FinderSettings, KnownLobe};
 use crate::dsp::switch_sync::{
     Irregularity, MAX_LEARN_SAMPLES, NoticeLimiter, ScheduleSettings, SwitchEvent, SwitchSync, SyncSettings,
 };
+use crate::dsp::sync_step_check::SyncStepCheck;
 use crate::dsp::timing_check::ScheduleCheck;
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, LabelledSpan, StreamFacts};
@@ -107,6 +108,8 @@ pub struct SwitchDriver<K: GateKind> {
     last_stamp: Option<Stamp>,
     /// Schedule timing: the cross-check of the schedule against the signal.
     check: Option<ScheduleCheck>,
+    /// Sync timing on sample streams: the cross-check of the sync channel against the signal.
+    sync_check: Option<SyncStepCheck>,
     /// The capture's labelled stretches (lobe identity for timing 'signal').
     marks: Option<Arc<[LabelledSpan]>>,
 }
@@ -126,6 +129,7 @@ impl<K: GateKind> SwitchDriver<K> {
             current: None,
             last_stamp: None,
             check: None,
+            sync_check: None,
             marks: None,
         }
     }
@@ -139,6 +143,21 @@ impl<K: GateKind> SwitchDriver<K> {
     /// A switch instant reached: its lobe is now in force.
     pub fn switch_to(&mut self, at: u64, lobe: usize) {
         self.current = Some(LobeInForce { lobe, dwell_start: at, switch_at: Some(at as i64) });
+    }
+
+    /// Sync timing: fold the released samples `[from, to)` of `piece`
+    /// (all of the lobe in force) into the sync channel's cross-check.
+    pub fn check_released(&mut self, piece: &K::Piece, from: u64, to: u64) {
+        let (Some(check), Some(current)) = (self.sync_check.as_mut(), self.current) else {
+            return;
+        };
+        let Some(switch_at) = current.switch_at.and_then(|s| u64::try_from(s).ok()) else {
+            return;
+        };
+        let base = piece.stamp().index;
+        if let Some(iq) = piece.iq().get((from - base) as usize..(to - base) as usize) {
+            check.add(from, iq, current.lobe, switch_at);
+        }
     }
 
     pub fn lobe_name(&self, lobe: usize) -> Arc<str> {
@@ -176,6 +195,10 @@ impl<K: GateKind> SwitchDriver<K> {
         self.source = Some(source);
         self.guard = guard;
         self.check = self.cfg.schedule_check(first.rate, pri, guard).map_err(at)?;
+        // On sweeps the sweep gate checks the sync channel sweep by sweep.
+        if self.cfg.timing == SwitchTiming::Sync && !K::Piece::ONE_CELL {
+            self.sync_check = Some(SyncStepCheck::new(self.cfg.lobes.len(), guard as f64));
+        }
         Ok(true)
     }
 
@@ -240,6 +263,7 @@ impl<K: GateKind> SwitchDriver<K> {
 
     /// Warn when the signal disagrees with the schedule, saying what would fit.
     fn cross_check(&mut self, out: &mut Outputs, stamp: Stamp) {
+        self.sync_cross_check(out, stamp);
         let Some(found) = self.check.as_mut().and_then(ScheduleCheck::finish) else {
             return;
         };
@@ -281,6 +305,21 @@ impl<K: GateKind> SwitchDriver<K> {
             fit.push_str(&format!(" (or {}: a half-dwell step does not tell which lobe comes first)", ms(alt)));
         }
         let what = format!("{} (standard score {:.0}): {fit}", seen.join(", and "), found.score);
+        self.router.irregular(out, stamp, Irregularity::Schedule, what);
+    }
+
+    /// Warn when the amplitude steps sit away from the sync channel's switches.
+    fn sync_cross_check(&mut self, out: &mut Outputs, stamp: Stamp) {
+        let Some(found) = self.sync_check.as_mut().and_then(SyncStepCheck::finish) else {
+            return;
+        };
+        let lag = format_ms(found.offset.abs() / stamp.rate);
+        let (side, verb) = if found.offset < 0.0 { ("before", "lags") } else { ("after", "leads") };
+        let what = format!(
+            "the amplitude steps sit {lag} {side} the sync channel's switches (standard score {:.0}): \
+             the sync channel {verb} the antenna by about {lag}",
+            found.score
+        );
         self.router.irregular(out, stamp, Irregularity::Schedule, what);
     }
 

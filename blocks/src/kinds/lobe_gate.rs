@@ -67,6 +67,7 @@ impl SegmentCutter {
                 break;
             }
             let at = at.max(from);
+            d.check_released(&piece, from, at);
             self.emit(d, &piece, from, at, out);
             d.switches.pop_front();
             self.flush(true, out);
@@ -75,6 +76,7 @@ impl SegmentCutter {
             d.switch_to(at, lobe);
             from = at;
         }
+        d.check_released(&piece, from, end);
         self.emit(d, &piece, from, end, out);
     }
 
