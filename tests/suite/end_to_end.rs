@@ -248,7 +248,7 @@ fn targets_outside_the_usable_region_are_flagged_not_reported() {
 // committed, so these tests run without Python.
 
 /// The installation numbers of the script's pulsed rig (see PULSED there).
-const INDEPENDENT_PULSED: [(&str, &str); 14] = [
+pub(super) const INDEPENDENT_PULSED: [(&str, &str); 14] = [
     ("prf", "5 kHz"),
     ("dwell", "8 pulses"),
     ("guard", "12 us"),

@@ -166,26 +166,14 @@ fn a_schedule_that_drifts_against_the_switches_is_named_with_the_dwell_that_fits
 
 #[test]
 fn a_sync_channel_lagging_the_switches_by_a_sweep_is_named_and_a_right_one_is_not() {
-    // make_captures.py's pulsed rig: 250 kS/s, 5 kHz PRF (200 us), 8 pulses per dwell
-    let set = [
-        ("prf", "5 kHz"),
-        ("dwell", "8 pulses"),
-        ("guard", "12 us"),
-        ("lead", "3 us"),
-        ("leakage_threshold", "25 dB"),
-        ("blank", "12 us"),
-        ("pulse", "8 us"),
-        ("search_start", "4 km"),
-        ("search_end", "26 km"),
-        ("noise_start", "14 km"),
-        ("noise_width", "12 km"),
-    ];
+    // make_captures.py's pulsed rig (250 kS/s, 5 kHz PRF, 8 pulses per dwell): its timing and gate
+    let set = &super::end_to_end::INDEPENDENT_PULSED[..11];
     let graph = "graphs/four-lobe-pulsed.yaml";
     let gate = |w: &[Notice]| w.iter().filter(|n| n.block.as_ref() == "front/gate").cloned().collect::<Vec<_>>();
-    let right = super::schedule_check::warnings("sync-right", graph, "pulsed-switch-at-transmit.wav", &set);
+    let right = super::schedule_check::warnings("sync-right", graph, "pulsed-switch-at-transmit.wav", set);
     assert!(gate(&right).is_empty(), "{right:#?}");
     // the staircase 50 samples (one pulse interval) behind the switches
-    let late = super::schedule_check::warnings("sync-late", graph, "pulsed-sync-late.wav", &set);
+    let late = super::schedule_check::warnings("sync-late", graph, "pulsed-sync-late.wav", set);
     let late = gate(&late);
     assert_eq!(late.len(), 1, "{late:#?}");
     let what = &late[0].what;
