@@ -15,7 +15,8 @@
 //! A sleeping worker is woken only when the ready work, at each block's recent
 //! cost per step, is enough to share; otherwise the awake one runs it alone.
 //! A worker that finds nothing to do watches for new work for a moment
-//! (`SPIN_FOR`) before it sleeps.
+//! (up to `SPIN_FOR`, shorter after watches that found nothing) before it
+//! sleeps.
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory
@@ -84,6 +85,10 @@ const WAKE_WORTH: Duration = Duration::from_micros(3);
 /// worker took up to 4 ms on a virtual machine; at 50 us a worker often fell
 /// asleep just before a read ended.)
 const SPIN_FOR: Duration = Duration::from_micros(200);
+/// The shortest watch: after watches that found nothing a worker halves its
+/// next one down to this, so a worker with nothing to do mostly sleeps
+/// instead of burning a core another thread (or process) could use.
+const SPIN_MIN: Duration = Duration::from_micros(25);
 
 struct Node {
     name: Arc<str>,
@@ -402,10 +407,11 @@ fn lock(sh: &Shared) -> MutexGuard<'_, State> {
 
 fn worker(sh: &Shared) {
     let mut batch: Vec<(usize, Item)> = Vec::with_capacity(MAX_BATCH);
+    let mut spin_for = SPIN_FOR;
     let mut st = lock(sh);
     loop {
         let claimed;
-        (st, claimed) = claim(sh, st, &mut batch);
+        (st, claimed) = claim(sh, st, &mut batch, &mut spin_for);
         let Some(Claimed { idx, step, mut block }) = claimed else {
             return;
         };
@@ -459,11 +465,13 @@ fn worker(sh: &Shared) {
 
 /// Wait for a block that can make progress and take it out to run, with
 /// its input items in `batch`; None once the run is over (stopped,
-/// cancelled, every block done, or stalled).
+/// cancelled, every block done, or stalled). `spin_for` is this worker's
+/// current watch before sleeping (see `watch_for_work`).
 fn claim<'a>(
     sh: &'a Shared,
     mut st: MutexGuard<'a, State>,
     batch: &mut Vec<(usize, Item)>,
+    spin_for: &mut Duration,
 ) -> (MutexGuard<'a, State>, Option<Claimed>) {
     let mut spun = false;
     loop {
@@ -511,12 +519,7 @@ fn claim<'a>(
             let seen = sh.changes.load(Ordering::Acquire);
             drop(st);
             spun = true;
-            let t0 = Instant::now();
-            while sh.changes.load(Ordering::Acquire) == seen && t0.elapsed() < SPIN_FOR {
-                for _ in 0..64 {
-                    std::hint::spin_loop();
-                }
-            }
+            watch_for_work(sh, seen, spin_for);
             st = lock(sh);
             continue;
         }
@@ -524,6 +527,35 @@ fn claim<'a>(
         st.idle += 1;
         st = sh.wake.wait_timeout(st, Duration::from_millis(100)).unwrap_or_else(|e| e.into_inner()).0;
         st.idle -= 1;
+    }
+}
+
+/// Watch for a change of the scheduler's state (since `seen`) for up to
+/// `spin_for`, then adapt it: a watch that saw work keeps watching long next
+/// time (doubled up to `SPIN_FOR`), one that saw none is halved (down to
+/// `SPIN_MIN`), so an idle worker soon sleeps on the condition variable.
+/// Between checks it yields its core, which on a shared core lets the
+/// worker it waits for run.
+fn watch_for_work(sh: &Shared, seen: u64, spin_for: &mut Duration) {
+    let t0 = Instant::now();
+    let mut rounds = 0u32;
+    loop {
+        if sh.changes.load(Ordering::Acquire) != seen {
+            *spin_for = (*spin_for * 2).min(SPIN_FOR);
+            return;
+        }
+        if t0.elapsed() >= *spin_for {
+            *spin_for = (*spin_for / 2).max(SPIN_MIN);
+            return;
+        }
+        rounds += 1;
+        if rounds % 8 == 0 {
+            std::thread::yield_now();
+        } else {
+            for _ in 0..64 {
+                std::hint::spin_loop();
+            }
+        }
     }
 }
 
