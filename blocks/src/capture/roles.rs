@@ -362,23 +362,32 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
     let rows = frames.as_chunks::<3>().0;
     iq.resize(rows.len(), Complex32::new(0.0, 0.0));
     sync.resize(rows.len(), 0.0);
-    let done = split_iq_sync_by_fours(frames, iq, sync);
+    let (done, finite) = split_iq_sync_by_fours(frames, iq, sync);
     for ((f, z), y) in rows[done..].iter().zip(&mut iq[done..]).zip(&mut sync[done..]) {
         *z = Complex32::new(f[0], f[1]);
         *y = f[2];
     }
-    all_finite(frames)
+    finite && all_finite(&frames[3 * done..])
 }
 
-/// Whole groups of four (I, Q, sync) frames; returns the frames done.
+/// Whole groups of four (I, Q, sync) frames: the frames done and whether
+/// all their values are finite (checked on the loaded registers, which
+/// saves a second pass over the frames).
 #[cfg(target_arch = "x86_64")]
 #[allow(unsafe_code)] // SSE shuffles
-fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> usize {
-    use std::arch::x86_64::{_mm_loadu_ps, _mm_shuffle_ps, _mm_storeu_ps};
+fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> (usize, bool) {
+    use std::arch::x86_64::{
+        _mm_add_ps, _mm_cmpord_ps, _mm_loadu_ps, _mm_movemask_ps, _mm_setzero_ps, _mm_shuffle_ps, _mm_storeu_ps,
+        _mm_sub_ps,
+    };
     let groups = frames.as_chunks::<12>().0;
     let iq4 = iq.as_chunks_mut::<4>().0;
     let sync4 = sync.as_chunks_mut::<4>().0;
     let mut done = 0;
+    // x - x is 0 for a finite x and NaN for an infinity or NaN; the sum of
+    // those stays 0 exactly when every value is finite.
+    // SAFETY: SSE is part of every x86_64 machine.
+    let mut not_finite = unsafe { _mm_setzero_ps() };
     for ((g, z), y) in groups.iter().zip(iq4.iter_mut()).zip(sync4.iter_mut()) {
         // SAFETY: SSE is part of every x86_64 machine. Each load reads four
         // of the group's twelve floats, each store writes four floats of a
@@ -398,15 +407,19 @@ fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]
             _mm_storeu_ps(out, low);
             _mm_storeu_ps(out.add(4), high);
             _mm_storeu_ps(y.as_mut_ptr(), s);
+            let sum = _mm_add_ps(_mm_add_ps(_mm_sub_ps(a, a), _mm_sub_ps(b, b)), _mm_sub_ps(c, c));
+            not_finite = _mm_add_ps(not_finite, sum);
         }
         done += 4;
     }
-    done
+    // SAFETY: as above.
+    let finite = unsafe { _mm_movemask_ps(_mm_cmpord_ps(not_finite, not_finite)) } == 0b1111;
+    (done, finite)
 }
 
 #[cfg(not(target_arch = "x86_64"))]
-fn split_iq_sync_by_fours(_: &[f32], _: &mut [Complex32], _: &mut [f32]) -> usize {
-    0
+fn split_iq_sync_by_fours(_: &[f32], _: &mut [Complex32], _: &mut [f32]) -> (usize, bool) {
+    (0, true)
 }
 
 /// Position of a column a layout does not have.
@@ -454,8 +467,11 @@ mod tests {
             RoleMap::split::<3, 0, 1, 2, NONE>(&frames, &mut iq2, Some(&mut sync2), None);
             assert_eq!((iq, sync), (iq2, sync2), "{n} frames");
         }
-        let mut bad: Vec<f32> = (0..30).map(|k| k as f32).collect();
-        bad[13] = f32::NAN;
-        assert!(!split_iq_sync(&bad, &mut Vec::new(), &mut Vec::new()));
+        // A bad value in the vector part (by fours) and in the tail, each kind.
+        for (at, bad_value) in [(13, f32::NAN), (2, f32::INFINITY), (23, f32::NEG_INFINITY), (28, f32::NAN)] {
+            let mut bad: Vec<f32> = (0..30).map(|k| k as f32).collect();
+            bad[at] = bad_value;
+            assert!(!split_iq_sync(&bad, &mut Vec::new(), &mut Vec::new()), "{bad_value} at {at}");
+        }
     }
 }
