@@ -549,7 +549,7 @@ fn watch_for_work(sh: &Shared, seen: u64, spin_for: &mut Duration) {
             return;
         }
         rounds += 1;
-        if rounds % 8 == 0 {
+        if rounds.is_multiple_of(8) {
             std::thread::yield_now();
         } else {
             for _ in 0..64 {
