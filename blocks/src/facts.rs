@@ -35,11 +35,13 @@ pub struct StreamFacts {
     pub marks: Option<Arc<[LabelledSpan]>>,
 }
 
-/// A stretch of samples a capture's metadata gives a label.
+/// A stretch of the capture its metadata gives a label. Times are seconds
+/// from the capture's first sample, so blocks that change the sample rate
+/// pass them on unchanged.
 #[derive(Clone, Debug, PartialEq)]
 pub struct LabelledSpan {
-    pub start: u64,
-    pub count: Option<u64>,
+    pub start_s: f64,
+    pub length_s: Option<f64>,
     pub label: Arc<str>,
 }
 

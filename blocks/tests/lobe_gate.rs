@@ -380,7 +380,7 @@ fn signal_timing_names_the_lobes_from_a_capture_label() {
     let err = gate.start(&Facts::new(&unlabelled)).expect_err("nothing names a lobe").to_string();
     assert!(err.contains("'timing' is signal") && err.contains("known_lobe and known_at"), "{err}");
     // a dwell of west labelled as a logger would mark it: dwell 3 starts at 57 + 3 * 160
-    let label = LabelledSpan { start: 537, count: Some(160), label: "West".into() };
+    let label = LabelledSpan { start_s: 537.0 / rate, length_s: Some(160.0 / rate), label: "West".into() };
     let labelled = [StreamFacts { marks: Some(vec![label].into()), ..StreamFacts::at_rate(rate) }];
     gate.start(&Facts::new(&labelled)).expect("the label names a lobe");
     let mut out = Outputs::new(2);

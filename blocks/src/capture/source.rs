@@ -115,7 +115,7 @@ impl TypedBlock for CaptureSource {
         Ok(StreamFacts {
             rate: (rate.is_finite() && rate > 0.0).then_some(rate),
             channels: Some(self.roles.channels()),
-            marks: labelled_spans(self.reader.info().sigmf.as_ref()),
+            marks: labelled_spans(self.reader.info().sigmf.as_ref(), rate),
             ..StreamFacts::default()
         })
     }
@@ -344,15 +344,18 @@ impl CaptureSource {
 
 /// The capture's labelled SigMF annotations, which may name the lobe active
 /// over their stretch (a gate timed from the signal reads them).
-fn labelled_spans(meta: Option<&SigmfMeta>) -> Option<Arc<[LabelledSpan]>> {
+fn labelled_spans(meta: Option<&SigmfMeta>, rate: f64) -> Option<Arc<[LabelledSpan]>> {
+    if !(rate.is_finite() && rate > 0.0) {
+        return None;
+    }
     let spans: Vec<LabelledSpan> = meta?
         .annotations
         .iter()
         .filter_map(|a| {
             let label = a.label.as_deref()?.trim();
             (!label.is_empty()).then(|| LabelledSpan {
-                start: a.sample_start,
-                count: a.sample_count,
+                start_s: a.sample_start as f64 / rate,
+                length_s: a.sample_count.map(|n| n as f64 / rate),
                 label: label.into(),
             })
         })

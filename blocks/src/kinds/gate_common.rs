@@ -472,7 +472,7 @@ impl<K: GateKind> TypedBlock for SwitchGate<K> {
         self.driver.marks = facts.marks.clone();
         let cfg = &self.driver.cfg;
         if cfg.timing == SwitchTiming::Signal && cfg.known_lobe.is_none() {
-            cfg.lobe_from_marks(facts.marks.as_deref()).ok_or_else(|| BlockError::new(cfg.identity_missing()))?;
+            cfg.lobe_from_marks(facts.marks.as_deref(), 1.0).ok_or_else(|| BlockError::new(cfg.identity_missing()))?;
         }
         if let Some(rate) = facts.rate.filter(|r| *r > 0.0 && r.is_finite()) {
             let pri = facts.pri_samples;
@@ -688,11 +688,11 @@ impl GateSettings {
 
     /// Timing 'signal' without `known_lobe`: the first capture label that
     /// names a lobe, active at the middle of its stretch.
-    fn lobe_from_marks(&self, marks: Option<&[LabelledSpan]>) -> Option<KnownLobe> {
+    fn lobe_from_marks(&self, marks: Option<&[LabelledSpan]>, rate: f64) -> Option<KnownLobe> {
         marks?.iter().find_map(|m| {
             let lobe = self.lobes.iter().position(|n| n.eq_ignore_ascii_case(m.label.trim()))?;
-            let at = m.start as f64 + m.count.unwrap_or(0) as f64 / 2.0;
-            Some(KnownLobe { lobe, at, source: format!("the capture's label '{}' at sample {}", m.label, m.start) })
+            let at = (m.start_s + m.length_s.unwrap_or(0.0) / 2.0) * rate;
+            Some(KnownLobe { lobe, at, source: format!("the capture's label '{}' at {} s", m.label, m.start_s) })
         })
     }
 
@@ -720,7 +720,7 @@ impl GateSettings {
                 };
                 Ok(KnownLobe { lobe, at, source })
             }
-            None => self.lobe_from_marks(marks).ok_or_else(|| self.identity_missing()),
+            None => self.lobe_from_marks(marks, rate).ok_or_else(|| self.identity_missing()),
         }
     }
 

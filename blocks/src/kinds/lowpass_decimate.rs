@@ -8,7 +8,7 @@
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::spectrum::lowpass_taps;
 use crate::error::{BuildError, ParamError};
-use crate::facts::{Facts, LabelledSpan, StreamFacts};
+use crate::facts::{Facts, StreamFacts};
 use crate::item::{Item, ItemKind, SampleChunk, Stamp};
 use crate::param::{ParamType, Unit};
 use crate::typed::TypedBlock;
@@ -79,18 +79,6 @@ impl TypedBlock for LowpassDecimate {
             self.check_cutoff(rate)?;
             facts.rate = Some(rate / self.factor as f64);
             facts.pri_samples = facts.pri_samples.map(|pri| pri / self.factor as f64);
-            // Labelled stretches count input samples; say them in output samples.
-            let factor = self.factor;
-            facts.marks = facts.marks.map(|marks| {
-                marks
-                    .iter()
-                    .map(|m| LabelledSpan {
-                        start: m.start / factor,
-                        count: m.count.map(|c| c / factor),
-                        label: m.label.clone(),
-                    })
-                    .collect()
-            });
         }
         Ok(facts)
     }
