@@ -31,7 +31,8 @@ impl Model {
     }
 }
 
-type M3 = [[f64; 3]; 3];
+type Mat<const N: usize> = [[f64; N]; N];
+type M3 = Mat<3>;
 type V3 = [f64; 3];
 
 /// One measurement: time (s), angle (deg), variance (deg^2); `None` angle =
@@ -76,7 +77,7 @@ pub fn smooth(data: &[Measurement], model: Model, q: Option<f64>, gate_sigmas: f
 fn most_likely_q(data: &[Measurement], model: Model, gate_sigmas: f64) -> f64 {
     (-32..=16)
         .map(|k| 10f64.powf(k as f64 / 4.0))
-        .map(|q| (q, forward(data, model, q, gate_sigmas).1))
+        .map(|q| (q, likelihood(data, model, q, gate_sigmas)))
         .max_by(|a, b| a.1.total_cmp(&b.1))
         .map_or(1.0, |(q, _)| q)
 }
@@ -107,14 +108,43 @@ fn process_noise(model: Model, q: f64, dt: f64) -> M3 {
 /// The forward Kalman pass and its innovation log-likelihood (the first
 /// `dim` updates, which only fill the diffuse start, left out).
 fn forward(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> (Vec<Forward>, f64) {
-    let n = model.dim();
     let mut out = Vec::with_capacity(data.len());
+    let loglik = match model {
+        Model::ConstantVelocity => filter::<2>(data, model, q, gate_sigmas, Some(&mut out)),
+        Model::ConstantAcceleration => filter::<3>(data, model, q, gate_sigmas, Some(&mut out)),
+    };
+    (out, loglik)
+}
+
+/// The forward pass's log-likelihood alone: the `q` grid search runs the
+/// pass once per grid value, and keeping no records makes each run cheaper.
+fn likelihood(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> f64 {
+    match model {
+        Model::ConstantVelocity => filter::<2>(data, model, q, gate_sigmas, None),
+        Model::ConstantAcceleration => filter::<3>(data, model, q, gate_sigmas, None),
+    }
+}
+
+/// The forward Kalman filter on the model's `N` states, pushing each step's
+/// record (padded to three states) onto `keep` when given; returns the
+/// innovation log-likelihood. One routine for both uses, so the grid search
+/// scores exactly the pass that is then kept. Working on `N` = 2 states for
+/// the constant-velocity model skips the products with the unused third
+/// state, which were zeros: the sums are the same numbers.
+fn filter<const N: usize>(
+    data: &[Measurement],
+    model: Model,
+    q: f64,
+    gate_sigmas: f64,
+    mut keep: Option<&mut Vec<Forward>>,
+) -> f64 {
     // Diffuse start: the first usable angle, any rate within ~100 deg/s.
     let first = data.iter().find_map(|m| m.z.map(|z| (z, m.r))).unwrap_or((0.0, 1.0));
-    let mut x: V3 = [first.0, 0.0, 0.0];
-    let mut p: M3 = [[0.0; 3]; 3];
+    let mut x = [0.0; N];
+    x[0] = first.0;
+    let mut p = [[0.0; N]; N];
     p[0][0] = first.1.max(1e-12) * 1e4;
-    for (i, row) in p.iter_mut().enumerate().take(n).skip(1) {
+    for (i, row) in p.iter_mut().enumerate().skip(1) {
         row[i] = 1e4;
     }
     let mut t_prev = data.first().map_or(0.0, |m| m.t);
@@ -122,30 +152,51 @@ fn forward(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> (Vec
     for m in data {
         let dt = (m.t - t_prev).max(0.0);
         t_prev = m.t.max(t_prev);
-        let f = transition(model, dt);
+        let f: Mat<N> = leading(&transition(model, dt));
         let x_pred = mat_vec(&f, &x);
-        let p_pred = add(&mat_mul(&mat_mul(&f, &p), &transpose(&f)), &process_noise(model, q, dt));
-        let mut step = Forward { x_pred, p_pred, x: x_pred, p: p_pred, f, outlier: false };
+        let p_pred = add(&mat_mul(&mat_mul(&f, &p), &transpose(&f)), &leading(&process_noise(model, q, dt)));
+        let (mut x_new, mut p_new, mut outlier) = (x_pred, p_pred, false);
         if let Some(z) = m.z {
             let s = p_pred[0][0] + m.r;
             let nu = z - x_pred[0];
-            if updates >= n && gate_sigmas > 0.0 && nu * nu > gate_sigmas * gate_sigmas * s {
-                step.outlier = true;
+            if updates >= N && gate_sigmas > 0.0 && nu * nu > gate_sigmas * gate_sigmas * s {
+                outlier = true;
             } else if s > 0.0 {
-                if updates >= n {
+                if updates >= N {
                     loglik -= 0.5 * (s.ln() + nu * nu / s);
                 }
                 updates += 1;
-                let k: V3 = [p_pred[0][0] / s, p_pred[1][0] / s, p_pred[2][0] / s];
-                step.x = [0, 1, 2].map(|i| x_pred[i] + k[i] * nu);
-                step.p = [0, 1, 2].map(|i| [0, 1, 2].map(|j| p_pred[i][j] - k[i] * p_pred[0][j]));
+                let k: [f64; N] = std::array::from_fn(|i| p_pred[i][0] / s);
+                x_new = std::array::from_fn(|i| x_pred[i] + k[i] * nu);
+                p_new = std::array::from_fn(|i| std::array::from_fn(|j| p_pred[i][j] - k[i] * p_pred[0][j]));
             }
         }
-        x = step.x;
-        p = step.p;
-        out.push(step);
+        x = x_new;
+        p = p_new;
+        if let Some(records) = keep.as_deref_mut() {
+            records.push(Forward {
+                x_pred: padded(&x_pred),
+                p_pred: padded_mat(&p_pred),
+                x: padded(&x),
+                p: padded_mat(&p),
+                f: padded_mat(&f),
+                outlier,
+            });
+        }
     }
-    (out, loglik)
+    loglik
+}
+
+/// The leading `N` x `N` block of a 3 x 3 matrix.
+fn leading<const N: usize>(a: &M3) -> Mat<N> {
+    std::array::from_fn(|i| std::array::from_fn(|j| a[i][j]))
+}
+/// `N` states padded with zeros to three.
+fn padded<const N: usize>(x: &[f64; N]) -> V3 {
+    std::array::from_fn(|i| if i < N { x[i] } else { 0.0 })
+}
+fn padded_mat<const N: usize>(a: &Mat<N>) -> M3 {
+    std::array::from_fn(|i| if i < N { padded(&a[i]) } else { [0.0; 3] })
 }
 
 /// The Rauch-Tung-Striebel pass over the forward records.
@@ -171,23 +222,17 @@ fn backward(fwd: &[Forward], model: Model) -> Vec<Smoothed> {
     out
 }
 
-fn mat_mul(a: &M3, b: &M3) -> M3 {
-    let mut c = [[0.0; 3]; 3];
-    for (i, row) in c.iter_mut().enumerate() {
-        for (j, v) in row.iter_mut().enumerate() {
-            *v = (0..3).map(|k| a[i][k] * b[k][j]).sum();
-        }
-    }
-    c
+fn mat_mul<const N: usize>(a: &Mat<N>, b: &Mat<N>) -> Mat<N> {
+    std::array::from_fn(|i| std::array::from_fn(|j| (0..N).map(|k| a[i][k] * b[k][j]).sum()))
 }
-fn mat_vec(a: &M3, x: &V3) -> V3 {
-    [0, 1, 2].map(|i| (0..3).map(|k| a[i][k] * x[k]).sum())
+fn mat_vec<const N: usize>(a: &Mat<N>, x: &[f64; N]) -> [f64; N] {
+    std::array::from_fn(|i| (0..N).map(|k| a[i][k] * x[k]).sum())
 }
-fn transpose(a: &M3) -> M3 {
-    [0, 1, 2].map(|i| [0, 1, 2].map(|j| a[j][i]))
+fn transpose<const N: usize>(a: &Mat<N>) -> Mat<N> {
+    std::array::from_fn(|i| std::array::from_fn(|j| a[j][i]))
 }
-fn add(a: &M3, b: &M3) -> M3 {
-    [0, 1, 2].map(|i| [0, 1, 2].map(|j| a[i][j] + b[i][j]))
+fn add<const N: usize>(a: &Mat<N>, b: &Mat<N>) -> Mat<N> {
+    std::array::from_fn(|i| std::array::from_fn(|j| a[i][j] + b[i][j]))
 }
 fn sub(a: &M3, b: &M3) -> M3 {
     [0, 1, 2].map(|i| [0, 1, 2].map(|j| a[i][j] - b[i][j]))
