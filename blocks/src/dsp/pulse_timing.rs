@@ -115,6 +115,28 @@ impl NoiseFloor {
             let t = limit as f32;
             if (t as f64) > limit { t.next_down() } else { t }
         };
+        if per_group == 1 {
+            // Once the stride applies: four groups per test, so the test and
+            // its branch cost less per sample (every sample of a capture
+            // passes here); where one fails, the groups below find the sample.
+            const WIDE: usize = 4 * LANES;
+            while taken + WIDE <= samples.len() && filled + WIDE / LANES < FLOOR_BLOCK {
+                let mut power = [0f32; WIDE];
+                for (p, x) in power.iter_mut().zip(&samples[taken..taken + WIDE]) {
+                    *p = x.norm_sqr();
+                }
+                if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit)) {
+                    break;
+                }
+                for (slot, group) in
+                    self.block[filled..filled + WIDE / LANES].iter_mut().zip(power.as_chunks::<LANES>().0)
+                {
+                    *slot = total_order_key(group[lane].to_bits() as i32);
+                }
+                filled += WIDE / LANES;
+                taken += WIDE;
+            }
+        }
         while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
             let mut power = [0f32; LANES];
             for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {

@@ -23,6 +23,50 @@ const MIN_SWEEPS: f64 = 8.0;
 /// Standard score above which a step is reported.
 const STEP_SCORE: f64 = 12.0;
 
+use num_complex::Complex32;
+
+/// `iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>()`, the window
+/// power the check has always taken (added in order), to the last bit, but
+/// added in four lanes when that cannot change it: every power is a whole
+/// multiple of the finest float32 step among them, so when their total stays
+/// below 2^53 of those steps every partial sum in any order is exact. That
+/// holds unless the window spans more than about 2^29 in power; then the
+/// powers are added in order. Every sweep's window passes here.
+pub fn window_power_sum(iq: &[Complex32]) -> f64 {
+    if iq.is_empty() {
+        return iq.iter().map(|z| f64::from(z.norm_sqr())).sum();
+    }
+    let (quads, rest) = iq.as_chunks::<4>();
+    let mut lanes = [0f64; 4];
+    // The largest power and the smallest non-zero one (as float32; powers are
+    // never negative, so non-finite ones show as a largest of inf or NaN).
+    let (mut top, mut low) = ([0f32; 4], [f32::INFINITY; 4]);
+    for quad in quads {
+        for k in 0..4 {
+            let p = quad[k].norm_sqr();
+            lanes[k] += f64::from(p);
+            top[k] = if p > top[k] || p.is_nan() { p } else { top[k] };
+            low[k] = if p > 0.0 && p < low[k] { p } else { low[k] };
+        }
+    }
+    for z in rest {
+        let p = z.norm_sqr();
+        lanes[0] += f64::from(p);
+        top[0] = if p > top[0] || p.is_nan() { p } else { top[0] };
+        low[0] = if p > 0.0 && p < low[0] { p } else { low[0] };
+    }
+    let top = top.iter().fold(0f32, |m, &p| if p > m || p.is_nan() { p } else { m });
+    let low = low.iter().fold(f32::INFINITY, |m, &p| p.min(m));
+    if top == 0.0 {
+        return 0.0; // every power is zero: so is every partial sum
+    }
+    // Float32 exponent fields: `top < 2^(hi - 126)`, every power a multiple of `2^(max(lo, 1) - 150)`.
+    let (hi, lo) = ((top.to_bits() >> 23) as i64, ((low.to_bits() >> 23) as i64).max(1));
+    // The total is below len * 2^(hi - 126); exact when that is at most 2^53 steps.
+    let exact = top.is_finite() && hi - lo <= 29 && (iq.len() as u64) <= 1u64 << (29 - (hi - lo));
+    if exact { (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]) } else { iq.iter().map(|z| f64::from(z.norm_sqr())).sum() }
+}
+
 /// What the check found.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SweepStep {
@@ -195,5 +239,45 @@ mod tests {
         assert_eq!(run(0), None);
         assert_eq!(run(1).map(|s| s.sweeps), Some(-1));
         assert_eq!(run(3).map(|s| s.sweeps), Some(-3));
+    }
+
+    #[test]
+    fn window_power_sum_is_the_in_order_sum_to_the_last_bit() {
+        let mut rng = Rng::new(31);
+        let in_order = |iq: &[Complex32]| iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>();
+        // Some windows must be ones whose sum depends on the order (the wide spreads).
+        let (mut order_free, mut cases) = (0, 0);
+        for len in [0usize, 1, 3, 4, 7, 160, 161, 250, 1000] {
+            for spread in [0.0, 2.0, 6.0, 12.0, 30.0] {
+                for special in 0..5 {
+                    let mut iq: Vec<Complex32> = (0..len)
+                        .map(|_| {
+                            // amplitudes spread over 10^spread, so powers over 10^(2 spread)
+                            let scale = 10f64.powf(spread * (rng.uniform() - 0.5)) as f32;
+                            let z = rng.complex_gaussian(1.0);
+                            Complex32::new(z.re * scale, z.im * scale)
+                        })
+                        .collect();
+                    if len > 2 {
+                        let at = (rng.uniform() * len as f64) as usize % len;
+                        iq[at] = match special {
+                            0 => iq[at],
+                            1 => Complex32::new(0.0, -0.0),
+                            2 => Complex32::new(f32::MIN_POSITIVE / 64.0, 0.0),
+                            3 => Complex32::new(f32::NAN, 1.0),
+                            _ => Complex32::new(3e19, 3e19),
+                        };
+                    }
+                    let (got, want) = (window_power_sum(&iq), in_order(&iq));
+                    assert_eq!(got.to_bits(), want.to_bits(), "len {len}, spread {spread}, case {special}");
+                    cases += 1;
+                    let reversed: f64 = iq.iter().map(|z| f64::from(z.norm_sqr())).rev().sum();
+                    order_free += (reversed.to_bits() == want.to_bits()) as usize;
+                }
+            }
+        }
+        assert!(order_free > 0 && order_free < cases, "{order_free} of {cases}");
+        let zeros = vec![Complex32::new(0.0, 0.0); 9];
+        assert_eq!(window_power_sum(&zeros).to_bits(), in_order(&zeros).to_bits());
     }
 }

@@ -104,6 +104,22 @@ fn last_rising<const UP: bool>(
     (past, crossed)
 }
 
+/// The first index from `k` (below `until`) whose value lies outside
+/// `[lo, hi]`, or `until`: whole blocks first (a branch-free test the
+/// compiler vectorises), then single values.
+fn end_of_band_run(values: &[f32], mut k: usize, until: usize, (lo, hi): (f32, f32)) -> usize {
+    let inside = |v: f32| (v >= lo) & (v <= hi);
+    const BLOCK: usize = 16;
+    let until = until.min(values.len());
+    while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
+        k += BLOCK;
+    }
+    while k < until && inside(values[k]) {
+        k += 1;
+    }
+    k
+}
+
 fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
     let mut v: Vec<u64> = values.collect();
     if v.is_empty() {
@@ -274,15 +290,7 @@ impl SyncTracker {
                 // Fast path: skip the run of samples that stay in the current level's band.
                 let (lo, hi) = self.quiet_band[self.current];
                 let until = self.stuck_from().saturating_sub(index).min(values.len() as u64) as usize;
-                let inside = |v: f32| (v >= lo) & (v <= hi);
-                // Whole blocks first (a branch-free test the compiler vectorises), then single samples.
-                const BLOCK: usize = 16;
-                while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
-                    k += BLOCK;
-                }
-                while k < until && inside(values[k]) {
-                    k += 1;
-                }
+                k = end_of_band_run(values, k, until, (lo, hi));
                 if k == values.len() {
                     break;
                 }
@@ -295,9 +303,7 @@ impl SyncTracker {
                 let lobes = self.levels.len();
                 let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
                 let run_start = k;
-                while k < until && (values[k] >= lo) & (values[k] <= hi) {
-                    k += 1;
-                }
+                k = end_of_band_run(values, k, until, (lo, hi));
                 // Each lobe's midpoint is independent of the others': one pass
                 // per lobe over the run keeps its state in registers.
                 for (j, &(mid, up)) in row.iter().enumerate() {
@@ -428,24 +434,10 @@ impl SyncTracker {
         let at = if self.past_mid[new] { self.crossed_at[new] } else { self.pending_since };
         let at = at.max(self.settled_floor).min(n);
         let old = self.current;
-        let names = self.settings.names.clone();
         if self.dwell_from_switch {
             let len = at.saturating_sub(self.dwell_start);
-            if let Some(expected) = self.expected_dwell() {
-                let tol = self.settings.tolerance;
-                if (len as f64 - expected).abs() > tol * expected {
-                    let what = if (len as f64) < expected { "short" } else { "long" };
-                    self.irregular(
-                        self.dwell_start,
-                        Irregularity::DwellLength,
-                        format!(
-                            "{what} dwell of lobe {} from sample {}: {len} samples, expected about {expected:.0} (tolerance {:.0} %)",
-                            names[old],
-                            self.dwell_start,
-                            tol * 100.0
-                        ),
-                    );
-                }
+            if let Some(what) = self.dwell_length_notice(old, len) {
+                self.irregular(self.dwell_start, Irregularity::DwellLength, what);
             }
             self.history.push_back(len);
             if self.history.len() > DWELL_HISTORY {
@@ -456,17 +448,15 @@ impl SyncTracker {
         let lobes = self.levels.len();
         let expected_next = (old + 1) % lobes;
         if new != expected_next {
+            let names = &self.settings.names;
             let skipped = (new + lobes - old - 1) % lobes;
-            self.irregular(
-                at,
-                Irregularity::Order,
-                format!(
-                    "lobe order broken at sample {at}: {} followed by {} (skipped {}: a missing transition?)",
-                    names[old],
-                    names[new],
-                    lobe_list(&names, expected_next, skipped)
-                ),
+            let what = format!(
+                "lobe order broken at sample {at}: {} followed by {} (skipped {}: a missing transition?)",
+                names[old],
+                names[new],
+                lobe_list(names, expected_next, skipped)
             );
+            self.irregular(at, Irregularity::Order, what);
         }
         self.current = new;
         self.dwell_start = at;
@@ -474,6 +464,24 @@ impl SyncTracker {
         self.stuck_reported = false;
         self.past_mid.iter_mut().for_each(|p| *p = false);
         self.events.push_back(SwitchEvent::Switch { at, lobe: new });
+    }
+
+    /// The notice for a dwell of lobe `old` that lasted `len` samples, when
+    /// it is farther from the expected length than the tolerance.
+    fn dwell_length_notice(&self, old: usize, len: u64) -> Option<String> {
+        let expected = self.expected_dwell()?;
+        let tol = self.settings.tolerance;
+        let off = (len as f64 - expected).abs() > tol * expected;
+        if !off {
+            return None;
+        }
+        let what = if (len as f64) < expected { "short" } else { "long" };
+        Some(format!(
+            "{what} dwell of lobe {} from sample {}: {len} samples, expected about {expected:.0} (tolerance {:.0} %)",
+            self.settings.names[old],
+            self.dwell_start,
+            tol * 100.0
+        ))
     }
 
     fn check_stuck(&mut self, n: u64) {
