@@ -35,6 +35,25 @@ pub struct NoiseFloor {
     floor: f64,
 }
 
+/// Readings tested together in [`NoiseFloor::push_below`]: one stride.
+const LANES: usize = 8;
+
+/// The powers |x|^2 of one group of samples (a shape the compiler vectorises).
+#[inline(always)]
+fn group_powers(group: &[Complex32; LANES]) -> [f32; LANES] {
+    let mut power = [0f32; LANES];
+    for (p, x) in power.iter_mut().zip(group) {
+        *p = x.norm_sqr();
+    }
+    power
+}
+
+/// Whether every power of a group is finite and at most `limit` (branch-free).
+#[inline(always)]
+fn all_below(power: &[f32; LANES], limit: f32) -> bool {
+    power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit))
+}
+
 /// `f32::total_cmp` order as a plain integer order; the map is its own inverse.
 #[inline]
 fn total_order_key(bits: i32) -> i32 {
@@ -105,7 +124,6 @@ impl NoiseFloor {
         // Eight at a time while all are finite and under the limit (the usual
         // case; vectorised), then one at a time. Eight finite readings are
         // one whole stride, so the phase stays where it is.
-        const LANES: usize = 8;
         const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
         let per_group = if self.stride == 1 { LANES } else { 1 };
         // The one lane of a group kept once the stride applies.
@@ -120,29 +138,26 @@ impl NoiseFloor {
             // its branch cost less per sample (every sample of a capture
             // passes here); where one fails, the groups below find the sample.
             const WIDE: usize = 4 * LANES;
-            while taken + WIDE <= samples.len() && filled + WIDE / LANES < FLOOR_BLOCK {
-                let mut power = [0f32; WIDE];
-                for (p, x) in power.iter_mut().zip(&samples[taken..taken + WIDE]) {
-                    *p = x.norm_sqr();
+            const GROUPS: usize = WIDE / LANES;
+            while taken + WIDE <= samples.len() && filled + GROUPS < FLOOR_BLOCK {
+                let (groups, _) = samples[taken..taken + WIDE].as_chunks::<LANES>();
+                let (mut below, mut keys) = (true, [0i32; GROUPS]);
+                for (key, group) in keys.iter_mut().zip(groups) {
+                    let power = group_powers(group);
+                    below &= all_below(&power, limit);
+                    *key = total_order_key(power[lane].to_bits() as i32);
                 }
-                if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit)) {
+                if !below {
                     break;
                 }
-                for (slot, group) in
-                    self.block[filled..filled + WIDE / LANES].iter_mut().zip(power.as_chunks::<LANES>().0)
-                {
-                    *slot = total_order_key(group[lane].to_bits() as i32);
-                }
-                filled += WIDE / LANES;
+                self.block[filled..filled + GROUPS].copy_from_slice(&keys);
+                filled += GROUPS;
                 taken += WIDE;
             }
         }
         while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
-            let mut power = [0f32; LANES];
-            for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {
-                *p = x.norm_sqr();
-            }
-            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit)) {
+            let power = group_powers(&samples[taken..taken + LANES].as_chunks::<LANES>().0[0]);
+            if !all_below(&power, limit) {
                 break;
             }
             if per_group == LANES {

@@ -27,44 +27,47 @@ use num_complex::Complex32;
 
 /// `iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>()`, the window
 /// power the check has always taken (added in order), to the last bit, but
-/// added in four lanes when that cannot change it: every power is a whole
-/// multiple of the finest float32 step among them, so when their total stays
+/// added in lanes when that cannot change it: every power is a whole
+/// multiple of the finest float32 step among them, so while the total stays
 /// below 2^53 of those steps every partial sum in any order is exact. That
-/// holds unless the window spans more than about 2^29 in power; then the
-/// powers are added in order. Every sweep's window passes here.
+/// holds unless the total is over about 2^28 times the smallest non-zero
+/// power; then the powers are added in order. Every sweep's window passes here.
 pub fn window_power_sum(iq: &[Complex32]) -> f64 {
+    let in_order = || iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>();
     if iq.is_empty() {
-        return iq.iter().map(|z| f64::from(z.norm_sqr())).sum();
+        return in_order();
     }
-    let (quads, rest) = iq.as_chunks::<4>();
-    let mut lanes = [0f64; 4];
-    // The largest power and the smallest non-zero one (as float32; powers are
-    // never negative, so non-finite ones show as a largest of inf or NaN).
-    let (mut top, mut low) = ([0f32; 4], [f32::INFINITY; 4]);
-    for quad in quads {
-        for k in 0..4 {
-            let p = quad[k].norm_sqr();
+    // Eight lanes: four float64 pairs, so the adds do not wait on each other.
+    const LANES: usize = 8;
+    let (groups, rest) = iq.as_chunks::<LANES>();
+    let mut lanes = [0f64; LANES];
+    // The smallest non-zero power (powers are never negative; NaN is never taken).
+    let mut low = [f32::INFINITY; LANES];
+    for group in groups {
+        for k in 0..LANES {
+            let p = group[k].norm_sqr();
             lanes[k] += f64::from(p);
-            top[k] = if p > top[k] || p.is_nan() { p } else { top[k] };
             low[k] = if p > 0.0 && p < low[k] { p } else { low[k] };
         }
     }
     for z in rest {
         let p = z.norm_sqr();
         lanes[0] += f64::from(p);
-        top[0] = if p > top[0] || p.is_nan() { p } else { top[0] };
         low[0] = if p > 0.0 && p < low[0] { p } else { low[0] };
     }
-    let top = top.iter().fold(0f32, |m, &p| if p > m || p.is_nan() { p } else { m });
+    let sum = lanes.iter().sum::<f64>();
     let low = low.iter().fold(f32::INFINITY, |m, &p| p.min(m));
-    if top == 0.0 {
-        return 0.0; // every power is zero: so is every partial sum
+    if low == f32::INFINITY {
+        // No power above zero: zero, or some power is not finite.
+        return if sum == 0.0 { sum } else { in_order() };
     }
-    // Float32 exponent fields: `top < 2^(hi - 126)`, every power a multiple of `2^(max(lo, 1) - 150)`.
-    let (hi, lo) = ((top.to_bits() >> 23) as i64, ((low.to_bits() >> 23) as i64).max(1));
-    // The total is below len * 2^(hi - 126); exact when that is at most 2^53 steps.
-    let exact = top.is_finite() && hi - lo <= 29 && (iq.len() as u64) <= 1u64 << (29 - (hi - lo));
-    if exact { (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]) } else { iq.iter().map(|z| f64::from(z.norm_sqr())).sum() }
+    // Every power is a whole multiple of `step`, the float32 step at the
+    // smallest one's exponent (biased exponent field `e`: 2^(max(e, 1) - 150)).
+    let e = ((low.to_bits() >> 23) as i64).max(1);
+    // `sum` is within a relative 2^-52 * len of the exact total: at most 2^52
+    // steps here keeps the exact total, and so every partial sum, below 2^53.
+    let limit = f64::from_bits(((e - 150 + 52 + 1023) as u64) << 52);
+    if sum.is_finite() && sum <= limit { sum } else { in_order() }
 }
 
 /// What the check found.
