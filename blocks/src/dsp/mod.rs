@@ -17,3 +17,4 @@ pub mod sync_step_check;
 pub mod sync_tracker;
 pub mod timing_check;
 pub mod tracking;
+pub mod wide_vectors;

@@ -1,6 +1,7 @@
 //! Pieces of transmit-instant detection shared by framing blocks: a running
 //! noise-floor estimate of power, robust to strong short pulses.
 
+use super::wide_vectors::wide_vectors;
 use num_complex::Complex32;
 use std::collections::VecDeque;
 
@@ -119,75 +120,7 @@ impl NoiseFloor {
     /// pushed exactly as [`Self::push`] would.
     #[inline]
     pub fn push_below(&mut self, samples: &[Complex32], limit: f64) -> usize {
-        let mut filled = self.filled;
-        let mut taken = 0;
-        // Eight at a time while all are finite and under the limit (the usual
-        // case; vectorised), then one at a time. Eight finite readings are
-        // one whole stride, so the phase stays where it is.
-        const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
-        let per_group = if self.stride == 1 { LANES } else { 1 };
-        // The one lane of a group kept once the stride applies.
-        let lane = (LANES - self.phase) % LANES;
-        // The same test in float32: the largest float32 not above the limit.
-        let limit = {
-            let t = limit as f32;
-            if (t as f64) > limit { t.next_down() } else { t }
-        };
-        if per_group == 1 {
-            // Once the stride applies: four groups per test, so the test and
-            // its branch cost less per sample (every sample of a capture
-            // passes here); where one fails, the groups below find the sample.
-            const WIDE: usize = 4 * LANES;
-            const GROUPS: usize = WIDE / LANES;
-            while taken + WIDE <= samples.len() && filled + GROUPS < FLOOR_BLOCK {
-                let (groups, _) = samples[taken..taken + WIDE].as_chunks::<LANES>();
-                let (mut below, mut keys) = (true, [0i32; GROUPS]);
-                for (key, group) in keys.iter_mut().zip(groups) {
-                    let power = group_powers(group);
-                    below &= all_below(&power, limit);
-                    *key = total_order_key(power[lane].to_bits() as i32);
-                }
-                if !below {
-                    break;
-                }
-                self.block[filled..filled + GROUPS].copy_from_slice(&keys);
-                filled += GROUPS;
-                taken += WIDE;
-            }
-        }
-        while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
-            let power = group_powers(&samples[taken..taken + LANES].as_chunks::<LANES>().0[0]);
-            if !all_below(&power, limit) {
-                break;
-            }
-            if per_group == LANES {
-                for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
-                    *slot = total_order_key(p.to_bits() as i32);
-                }
-            } else {
-                self.block[filled] = total_order_key(power[lane].to_bits() as i32);
-            }
-            filled += per_group;
-            taken += LANES;
-        }
-        let mut phase = self.phase;
-        for x in &samples[taken..] {
-            let p = x.norm_sqr();
-            let finite = p.is_finite();
-            let keep = finite & (phase == 0);
-            if (keep && filled + 1 >= FLOOR_BLOCK) || p > limit {
-                break;
-            }
-            // Non-finite powers are skipped, as in `push` (branch-free).
-            self.block[filled] = total_order_key(p.to_bits() as i32);
-            filled += keep as usize;
-            // The stride is a power of two: a mask, not a division.
-            phase = (phase + finite as usize) & (self.stride - 1);
-            taken += 1;
-        }
-        self.filled = filled;
-        self.phase = phase;
-        taken
+        push_below(self, samples, limit)
     }
 
     /// Mean noise power per sample; 0 until a first block is complete.
@@ -199,6 +132,81 @@ impl NoiseFloor {
     pub fn ready(&self) -> bool {
         !self.medians.is_empty()
     }
+}
+
+wide_vectors! {
+/// [`NoiseFloor::push_below`], built for the widest vectors the CPU has.
+fn push_below(floor: &mut NoiseFloor, samples: &[Complex32], limit: f64) -> usize {
+    let mut filled = floor.filled;
+    let mut taken = 0;
+    // Eight at a time while all are finite and under the limit (the usual
+    // case; vectorised), then one at a time. Eight finite readings are
+    // one whole stride, so the phase stays where it is.
+    const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
+    let per_group = if floor.stride == 1 { LANES } else { 1 };
+    // The one lane of a group kept once the stride applies.
+    let lane = (LANES - floor.phase) % LANES;
+    // The same test in float32: the largest float32 not above the limit.
+    let limit = {
+        let t = limit as f32;
+        if (t as f64) > limit { t.next_down() } else { t }
+    };
+    if per_group == 1 {
+        // Once the stride applies: four groups per test, so the test and
+        // its branch cost less per sample (every sample of a capture
+        // passes here); where one fails, the groups below find the sample.
+        const WIDE: usize = 4 * LANES;
+        const GROUPS: usize = WIDE / LANES;
+        while taken + WIDE <= samples.len() && filled + GROUPS < FLOOR_BLOCK {
+            let (groups, _) = samples[taken..taken + WIDE].as_chunks::<LANES>();
+            let (mut below, mut keys) = (true, [0i32; GROUPS]);
+            for (key, group) in keys.iter_mut().zip(groups) {
+                let power = group_powers(group);
+                below &= all_below(&power, limit);
+                *key = total_order_key(power[lane].to_bits() as i32);
+            }
+            if !below {
+                break;
+            }
+            floor.block[filled..filled + GROUPS].copy_from_slice(&keys);
+            filled += GROUPS;
+            taken += WIDE;
+        }
+    }
+    while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
+        let power = group_powers(&samples[taken..taken + LANES].as_chunks::<LANES>().0[0]);
+        if !all_below(&power, limit) {
+            break;
+        }
+        if per_group == LANES {
+            for (slot, p) in floor.block[filled..filled + LANES].iter_mut().zip(power) {
+                *slot = total_order_key(p.to_bits() as i32);
+            }
+        } else {
+            floor.block[filled] = total_order_key(power[lane].to_bits() as i32);
+        }
+        filled += per_group;
+        taken += LANES;
+    }
+    let mut phase = floor.phase;
+    for x in &samples[taken..] {
+        let p = x.norm_sqr();
+        let finite = p.is_finite();
+        let keep = finite & (phase == 0);
+        if (keep && filled + 1 >= FLOOR_BLOCK) || p > limit {
+            break;
+        }
+        // Non-finite powers are skipped, as in `push` (branch-free).
+        floor.block[filled] = total_order_key(p.to_bits() as i32);
+        filled += keep as usize;
+        // The stride is a power of two: a mask, not a division.
+        phase = (phase + finite as usize) & (floor.stride - 1);
+        taken += 1;
+    }
+    floor.filled = filled;
+    floor.phase = phase;
+    taken
+}
 }
 
 #[cfg(test)]

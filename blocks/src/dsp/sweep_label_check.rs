@@ -23,8 +23,10 @@ const MIN_SWEEPS: f64 = 8.0;
 /// Standard score above which a step is reported.
 const STEP_SCORE: f64 = 12.0;
 
+use super::wide_vectors::wide_vectors;
 use num_complex::Complex32;
 
+wide_vectors! {
 /// `iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>()`, the window
 /// power the check has always taken (added in order), to the last bit, but
 /// added in lanes when that cannot change it: every power is a whole
@@ -68,6 +70,7 @@ pub fn window_power_sum(iq: &[Complex32]) -> f64 {
     // steps here keeps the exact total, and so every partial sum, below 2^53.
     let limit = f64::from_bits(((e - 150 + 52 + 1023) as u64) << 52);
     if sum.is_finite() && sum <= limit { sum } else { in_order() }
+}
 }
 
 /// What the check found.

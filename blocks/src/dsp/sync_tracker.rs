@@ -8,6 +8,7 @@
 //! midpoint crossings of a pending level are found 32 samples per bit mask.
 
 use super::switch_sync::{Irregularity, SwitchEvent};
+use super::wide_vectors::wide_vectors;
 use std::collections::VecDeque;
 use std::sync::Arc;
 
@@ -104,10 +105,12 @@ fn last_rising<const UP: bool>(
     (past, crossed)
 }
 
-/// The first index from `k` (below `until`) whose value lies outside
-/// `[lo, hi]`, or `until`: whole blocks first (a branch-free test the
+wide_vectors! {
+/// The first index from `from` (below `until`) whose value lies outside
+/// the `band` `[lo, hi]`, or `until`: whole blocks first (a branch-free test the
 /// compiler vectorises), then single values.
-fn end_of_band_run(values: &[f32], mut k: usize, until: usize, (lo, hi): (f32, f32)) -> usize {
+fn end_of_band_run(values: &[f32], from: usize, until: usize, band: (f32, f32)) -> usize {
+    let ((lo, hi), mut k) = (band, from);
     let inside = |v: f32| (v >= lo) & (v <= hi);
     const BLOCK: usize = 16;
     let until = until.min(values.len());
@@ -118,6 +121,7 @@ fn end_of_band_run(values: &[f32], mut k: usize, until: usize, (lo, hi): (f32, f
         k += 1;
     }
     k
+}
 }
 
 fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
