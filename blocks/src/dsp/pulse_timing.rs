@@ -36,6 +36,30 @@ pub struct NoiseFloor {
     floor: f64,
 }
 
+/// The block's middle key (rank `FLOOR_BLOCK / 2` in integer order), as
+/// `select_nth_unstable` gives it. A block's median seldom moves far from the
+/// last one (`near`): the keys between 3/4 and 4/3 of it are gathered and
+/// counted in one pass, and the median is selected among those few when it
+/// is one of them; otherwise among all keys.
+fn median_key(block: &mut [i32; FLOOR_BLOCK], near: Option<f32>) -> i32 {
+    const RANK: usize = FLOOR_BLOCK / 2;
+    if let Some(near) = near.filter(|m| m.is_finite() && *m > 0.0) {
+        // Positive float32 keep their bits as keys.
+        let (lo, hi) = ((0.75 * near).to_bits() as i32, (near / 0.75).to_bits() as i32);
+        let mut middle = [0i32; FLOOR_BLOCK];
+        let (mut below, mut kept) = (0, 0);
+        for &key in block.iter() {
+            below += (key < lo) as usize;
+            middle[kept] = key;
+            kept += ((key >= lo) & (key <= hi)) as usize;
+        }
+        if below <= RANK && RANK < below + kept {
+            return *middle[..kept].select_nth_unstable(RANK - below).1;
+        }
+    }
+    *block.select_nth_unstable(RANK).1
+}
+
 /// Readings tested together in [`NoiseFloor::push_below`]: one stride.
 const LANES: usize = 8;
 
@@ -97,8 +121,8 @@ impl NoiseFloor {
 
     #[inline(never)]
     fn close_block(&mut self) {
-        let (_, m, _) = self.block.select_nth_unstable(FLOOR_BLOCK / 2);
-        let m = f32::from_bits(total_order_key(*m) as u32);
+        let m = median_key(&mut self.block, self.medians.back().copied());
+        let m = f32::from_bits(total_order_key(m) as u32);
         self.filled = 0;
         self.stride = FLOOR_STRIDE;
         if self.medians.len() == FLOOR_BLOCKS {
@@ -307,5 +331,34 @@ mod tests {
             assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "sample {at}");
         }
         assert!(bulk.ready() && stops > 9);
+    }
+
+    #[test]
+    fn median_key_is_the_middle_key_whether_near_the_last_or_not() {
+        let mut rng = Rng::new(41);
+        let (mut near_hits, mut cases) = (0, 0);
+        for level in [1.0f64, 1.05, 1.2, 3.0, 0.01, 1e-30] {
+            for near in [None, Some(1.0f32), Some(0.0), Some(-1.0), Some(f32::NAN), Some(f32::INFINITY)] {
+                let mut block = [0i32; FLOOR_BLOCK];
+                for (n, key) in block.iter_mut().enumerate() {
+                    let z = rng.complex_gaussian(level);
+                    let p = match n % 211 {
+                        0 => -0.0,
+                        1 => 1e6,
+                        _ => z.norm_sqr(),
+                    };
+                    *key = total_order_key(p.to_bits() as i32);
+                }
+                let mut sorted = block;
+                sorted.sort_unstable();
+                let got = median_key(&mut block, near);
+                assert_eq!(got, sorted[FLOOR_BLOCK / 2], "level {level}, near {near:?}");
+                let m = f32::from_bits(total_order_key(got) as u32);
+                near_hits += near.is_some_and(|n| n > 0.0 && n.is_finite() && m >= 0.75 * n && m <= n / 0.75) as usize;
+                cases += 1;
+            }
+        }
+        // Both ways are taken: the median near the last one, and far from it.
+        assert!(near_hits > 0 && near_hits < cases, "{near_hits} of {cases}");
     }
 }
