@@ -105,6 +105,24 @@ fn last_rising<const UP: bool>(
     (past, crossed)
 }
 
+/// [`last_rising`] over `values` that all lie in `[lo, hi]`: when the whole
+/// band is on one side of the midpoint, so is every value, and the answer
+/// needs none of them (most lobes' midpoints lie outside a level's band).
+fn rising_in_band<const UP: bool>(
+    values: &[f32],
+    first: u64,
+    t: f32,
+    (lo, hi): (f32, f32),
+    (past, crossed): (bool, u64),
+) -> (bool, u64) {
+    let is_past = |v: f32| if UP { v > t } else { v < t };
+    if values.is_empty() || is_past(lo) != is_past(hi) {
+        return last_rising::<UP>(values, first, t, (past, crossed));
+    }
+    let all_past = is_past(lo);
+    (all_past, if all_past && !past { first } else { crossed })
+}
+
 wide_vectors! {
 /// The first index from `from` (below `until`) whose value lies outside
 /// the `band` `[lo, hi]`, or `until`: whole blocks first (a branch-free test the
@@ -318,9 +336,9 @@ impl SyncTracker {
                     let run = &values[run_start..k];
                     let first = index + run_start as u64;
                     let (past, crossed) = if up {
-                        last_rising::<true>(run, first, float32_above(mid), state)
+                        rising_in_band::<true>(run, first, float32_above(mid), (lo, hi), state)
                     } else {
-                        last_rising::<false>(run, first, float32_below(mid), state)
+                        rising_in_band::<false>(run, first, float32_below(mid), (lo, hi), state)
                     };
                     self.past_mid[j] = past;
                     self.crossed_at[j] = crossed;
@@ -706,6 +724,35 @@ mod tests {
                 };
                 assert_eq!(last_rising::<true>(&values, 1000, t, start), reference(true), "len {len}");
                 assert_eq!(last_rising::<false>(&values, 1000, t, start), reference(false), "len {len}");
+            }
+        }
+    }
+
+    #[test]
+    fn crossings_of_values_inside_a_band_match_value_by_value_stepping() {
+        let mut rng = Rng::new(29);
+        for (lo, hi) in [(0.2f32, 0.4f32), (-0.3, 0.05), (0.1, 0.1), (0.05, 0.3)] {
+            for len in [0usize, 1, 5, 40] {
+                let values: Vec<f32> = (0..len).map(|_| lo + (hi - lo) * rng.uniform() as f32).collect();
+                for start in [(false, 7u64), (true, 3)] {
+                    for t in [0.1f32, -0.5, 0.5, 0.2, 0.4] {
+                        let reference = |up: bool| {
+                            let (mut past, mut crossed) = start;
+                            for (n, &v) in (1000u64..).zip(&values) {
+                                let p = if up { v > t } else { v < t };
+                                if p && !past {
+                                    crossed = n;
+                                }
+                                past = p;
+                            }
+                            (past, crossed)
+                        };
+                        let got = rising_in_band::<true>(&values, 1000, t, (lo, hi), start);
+                        assert_eq!(got, reference(true), "band {lo}..{hi}, t {t}, len {len}");
+                        let got = rising_in_band::<false>(&values, 1000, t, (lo, hi), start);
+                        assert_eq!(got, reference(false), "band {lo}..{hi}, t {t}, len {len}");
+                    }
+                }
             }
         }
     }
