@@ -13,6 +13,7 @@ pub mod switch_finder;
 pub mod switch_schedule;
 pub mod switch_sync;
 pub mod sync_levels;
+pub mod sync_scan;
 pub mod sync_step_check;
 pub mod sync_tracker;
 pub mod timing_check;
