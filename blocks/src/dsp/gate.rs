@@ -13,6 +13,7 @@
 //! for matched-filter triangles (bias below 0.03 and 0.01 bin).
 
 use crate::dsp::compressed_gate::CompressedSums;
+use crate::dsp::wide_vectors::wide_vectors;
 use num_complex::{Complex32, Complex64};
 
 crate::block_choice! {
@@ -126,6 +127,7 @@ pub struct DwellSums {
     last_index: u64,
 }
 
+wide_vectors! {
 /// Sum of |x|^2 in double precision, over four running sums so the adds
 /// do not wait on each other (the noise region is most of what a range
 /// gate reads).
@@ -139,6 +141,7 @@ pub fn power_sum(x: &[Complex32]) -> f64 {
     }
     let tail: f64 = rest.iter().map(|z| z.norm_sqr() as f64).sum();
     (acc[0] + acc[1]) + (acc[2] + acc[3]) + tail
+}
 }
 
 impl DwellSums {

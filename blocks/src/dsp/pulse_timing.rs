@@ -1,6 +1,7 @@
 //! Pieces of transmit-instant detection shared by framing blocks: a running
 //! noise-floor estimate of power, robust to strong short pulses.
 
+use super::wide_vectors::wide_vectors;
 use num_complex::Complex32;
 use std::collections::VecDeque;
 
@@ -33,6 +34,49 @@ pub struct NoiseFloor {
     phase: usize,
     medians: VecDeque<f32>,
     floor: f64,
+}
+
+/// The block's middle key (rank `FLOOR_BLOCK / 2` in integer order), as
+/// `select_nth_unstable` gives it. A block's median seldom moves far from the
+/// last one (`near`): the keys between 3/4 and 4/3 of it are gathered and
+/// counted in one pass, and the median is selected among those few when it
+/// is one of them; otherwise among all keys.
+fn median_key(block: &mut [i32; FLOOR_BLOCK], near: Option<f32>) -> i32 {
+    const RANK: usize = FLOOR_BLOCK / 2;
+    if let Some(near) = near.filter(|m| m.is_finite() && *m > 0.0) {
+        // Positive float32 keep their bits as keys.
+        let (lo, hi) = ((0.75 * near).to_bits() as i32, (near / 0.75).to_bits() as i32);
+        let mut middle = [0i32; FLOOR_BLOCK];
+        let (mut below, mut kept) = (0, 0);
+        for &key in block.iter() {
+            below += (key < lo) as usize;
+            middle[kept] = key;
+            kept += ((key >= lo) & (key <= hi)) as usize;
+        }
+        if below <= RANK && RANK < below + kept {
+            return *middle[..kept].select_nth_unstable(RANK - below).1;
+        }
+    }
+    *block.select_nth_unstable(RANK).1
+}
+
+/// Readings tested together in [`NoiseFloor::push_below`]: one stride.
+const LANES: usize = 8;
+
+/// The powers |x|^2 of one group of samples (a shape the compiler vectorises).
+#[inline(always)]
+fn group_powers(group: &[Complex32; LANES]) -> [f32; LANES] {
+    let mut power = [0f32; LANES];
+    for (p, x) in power.iter_mut().zip(group) {
+        *p = x.norm_sqr();
+    }
+    power
+}
+
+/// Whether every power of a group is finite and at most `limit` (branch-free).
+#[inline(always)]
+fn all_below(power: &[f32; LANES], limit: f32) -> bool {
+    power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit))
 }
 
 /// `f32::total_cmp` order as a plain integer order; the map is its own inverse.
@@ -77,8 +121,8 @@ impl NoiseFloor {
 
     #[inline(never)]
     fn close_block(&mut self) {
-        let (_, m, _) = self.block.select_nth_unstable(FLOOR_BLOCK / 2);
-        let m = f32::from_bits(total_order_key(*m) as u32);
+        let m = median_key(&mut self.block, self.medians.back().copied());
+        let m = f32::from_bits(total_order_key(m) as u32);
         self.filled = 0;
         self.stride = FLOOR_STRIDE;
         if self.medians.len() == FLOOR_BLOCKS {
@@ -100,57 +144,7 @@ impl NoiseFloor {
     /// pushed exactly as [`Self::push`] would.
     #[inline]
     pub fn push_below(&mut self, samples: &[Complex32], limit: f64) -> usize {
-        let mut filled = self.filled;
-        let mut taken = 0;
-        // Eight at a time while all are finite and under the limit (the usual
-        // case; vectorised), then one at a time. Eight finite readings are
-        // one whole stride, so the phase stays where it is.
-        const LANES: usize = 8;
-        const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
-        let per_group = if self.stride == 1 { LANES } else { 1 };
-        // The one lane of a group kept once the stride applies.
-        let lane = (LANES - self.phase) % LANES;
-        // The same test in float32: the largest float32 not above the limit.
-        let limit = {
-            let t = limit as f32;
-            if (t as f64) > limit { t.next_down() } else { t }
-        };
-        while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
-            let mut power = [0f32; LANES];
-            for (p, x) in power.iter_mut().zip(&samples[taken..taken + LANES]) {
-                *p = x.norm_sqr();
-            }
-            if !power.iter().fold(true, |ok, &p| ok & p.is_finite() & (p <= limit)) {
-                break;
-            }
-            if per_group == LANES {
-                for (slot, p) in self.block[filled..filled + LANES].iter_mut().zip(power) {
-                    *slot = total_order_key(p.to_bits() as i32);
-                }
-            } else {
-                self.block[filled] = total_order_key(power[lane].to_bits() as i32);
-            }
-            filled += per_group;
-            taken += LANES;
-        }
-        let mut phase = self.phase;
-        for x in &samples[taken..] {
-            let p = x.norm_sqr();
-            let finite = p.is_finite();
-            let keep = finite & (phase == 0);
-            if (keep && filled + 1 >= FLOOR_BLOCK) || p > limit {
-                break;
-            }
-            // Non-finite powers are skipped, as in `push` (branch-free).
-            self.block[filled] = total_order_key(p.to_bits() as i32);
-            filled += keep as usize;
-            // The stride is a power of two: a mask, not a division.
-            phase = (phase + finite as usize) & (self.stride - 1);
-            taken += 1;
-        }
-        self.filled = filled;
-        self.phase = phase;
-        taken
+        push_below(self, samples, limit)
     }
 
     /// Mean noise power per sample; 0 until a first block is complete.
@@ -162,6 +156,81 @@ impl NoiseFloor {
     pub fn ready(&self) -> bool {
         !self.medians.is_empty()
     }
+}
+
+wide_vectors! {
+/// [`NoiseFloor::push_below`], built for the widest vectors the CPU has.
+fn push_below(floor: &mut NoiseFloor, samples: &[Complex32], limit: f64) -> usize {
+    let mut filled = floor.filled;
+    let mut taken = 0;
+    // Eight at a time while all are finite and under the limit (the usual
+    // case; vectorised), then one at a time. Eight finite readings are
+    // one whole stride, so the phase stays where it is.
+    const _: () = assert!(FLOOR_STRIDE == LANES && LANES.is_power_of_two());
+    let per_group = if floor.stride == 1 { LANES } else { 1 };
+    // The one lane of a group kept once the stride applies.
+    let lane = (LANES - floor.phase) % LANES;
+    // The same test in float32: the largest float32 not above the limit.
+    let limit = {
+        let t = limit as f32;
+        if (t as f64) > limit { t.next_down() } else { t }
+    };
+    if per_group == 1 {
+        // Once the stride applies: four groups per test, so the test and
+        // its branch cost less per sample (every sample of a capture
+        // passes here); where one fails, the groups below find the sample.
+        const WIDE: usize = 4 * LANES;
+        const GROUPS: usize = WIDE / LANES;
+        while taken + WIDE <= samples.len() && filled + GROUPS < FLOOR_BLOCK {
+            let (groups, _) = samples[taken..taken + WIDE].as_chunks::<LANES>();
+            let (mut below, mut keys) = (true, [0i32; GROUPS]);
+            for (key, group) in keys.iter_mut().zip(groups) {
+                let power = group_powers(group);
+                below &= all_below(&power, limit);
+                *key = total_order_key(power[lane].to_bits() as i32);
+            }
+            if !below {
+                break;
+            }
+            floor.block[filled..filled + GROUPS].copy_from_slice(&keys);
+            filled += GROUPS;
+            taken += WIDE;
+        }
+    }
+    while taken + LANES <= samples.len() && filled + per_group < FLOOR_BLOCK {
+        let power = group_powers(&samples[taken..taken + LANES].as_chunks::<LANES>().0[0]);
+        if !all_below(&power, limit) {
+            break;
+        }
+        if per_group == LANES {
+            for (slot, p) in floor.block[filled..filled + LANES].iter_mut().zip(power) {
+                *slot = total_order_key(p.to_bits() as i32);
+            }
+        } else {
+            floor.block[filled] = total_order_key(power[lane].to_bits() as i32);
+        }
+        filled += per_group;
+        taken += LANES;
+    }
+    let mut phase = floor.phase;
+    for x in &samples[taken..] {
+        let p = x.norm_sqr();
+        let finite = p.is_finite();
+        let keep = finite & (phase == 0);
+        if (keep && filled + 1 >= FLOOR_BLOCK) || p > limit {
+            break;
+        }
+        // Non-finite powers are skipped, as in `push` (branch-free).
+        floor.block[filled] = total_order_key(p.to_bits() as i32);
+        filled += keep as usize;
+        // The stride is a power of two: a mask, not a division.
+        phase = (phase + finite as usize) & (floor.stride - 1);
+        taken += 1;
+    }
+    floor.filled = filled;
+    floor.phase = phase;
+    taken
+}
 }
 
 #[cfg(test)]
@@ -262,5 +331,34 @@ mod tests {
             assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "sample {at}");
         }
         assert!(bulk.ready() && stops > 9);
+    }
+
+    #[test]
+    fn median_key_is_the_middle_key_whether_near_the_last_or_not() {
+        let mut rng = Rng::new(41);
+        let (mut near_hits, mut cases) = (0, 0);
+        for level in [1.0f64, 1.05, 1.2, 3.0, 0.01, 1e-30] {
+            for near in [None, Some(1.0f32), Some(0.0), Some(-1.0), Some(f32::NAN), Some(f32::INFINITY)] {
+                let mut block = [0i32; FLOOR_BLOCK];
+                for (n, key) in block.iter_mut().enumerate() {
+                    let z = rng.complex_gaussian(level);
+                    let p = match n % 211 {
+                        0 => -0.0,
+                        1 => 1e6,
+                        _ => z.norm_sqr(),
+                    };
+                    *key = total_order_key(p.to_bits() as i32);
+                }
+                let mut sorted = block;
+                sorted.sort_unstable();
+                let got = median_key(&mut block, near);
+                assert_eq!(got, sorted[FLOOR_BLOCK / 2], "level {level}, near {near:?}");
+                let m = f32::from_bits(total_order_key(got) as u32);
+                near_hits += near.is_some_and(|n| n > 0.0 && n.is_finite() && m >= 0.75 * n && m <= n / 0.75) as usize;
+                cases += 1;
+            }
+        }
+        // Both ways are taken: the median near the last one, and far from it.
+        assert!(near_hits > 0 && near_hits < cases, "{near_hits} of {cases}");
     }
 }

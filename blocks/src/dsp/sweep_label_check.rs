@@ -23,6 +23,58 @@ const MIN_SWEEPS: f64 = 8.0;
 /// Standard score above which a step is reported.
 const STEP_SCORE: f64 = 12.0;
 
+use super::wide_vectors::wide_vectors;
+use num_complex::Complex32;
+
+wide_vectors! {
+/// `iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>()`, the window
+/// power the check has always taken (added in order), to the last bit, but
+/// added in lanes when that cannot change it: every power is a whole
+/// multiple of the finest float32 step among them, so while the total stays
+/// below 2^53 of those steps every partial sum in any order is exact. That
+/// holds unless the total is over about 2^28 times the smallest non-zero
+/// power; then the powers are added in order. Every sweep's window passes here.
+pub fn window_power_sum(iq: &[Complex32]) -> f64 {
+    let in_order = || iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>();
+    if iq.is_empty() {
+        return in_order();
+    }
+    // Eight lanes: four float64 pairs, so the adds do not wait on each other.
+    const LANES: usize = 8;
+    let (groups, rest) = iq.as_chunks::<LANES>();
+    let mut lanes = [0f64; LANES];
+    // The smallest non-zero power (powers are never negative; NaN is never taken).
+    let mut low = [f32::INFINITY; LANES];
+    for group in groups {
+        for k in 0..LANES {
+            let p = group[k].norm_sqr();
+            lanes[k] += f64::from(p);
+            low[k] = if p > 0.0 && p < low[k] { p } else { low[k] };
+        }
+    }
+    for z in rest {
+        let p = z.norm_sqr();
+        lanes[0] += f64::from(p);
+        low[0] = if p > 0.0 && p < low[0] { p } else { low[0] };
+    }
+    let sum = lanes.iter().sum::<f64>();
+    let low = low.iter().fold(f32::INFINITY, |m, &p| p.min(m));
+    if low == f32::INFINITY {
+        // No power above zero: zero, or some power is not finite.
+        return if sum == 0.0 { sum } else { in_order() };
+    }
+    // Every power is a whole multiple of `step`, the float32 step at the
+    // smallest one's exponent (biased exponent field `e`: 2^(max(e, 1) - 150)).
+    let e = ((low.to_bits() >> 23) as i64).max(1);
+    // Summed in any order, `sum` is within gamma(len - 1) < 1/2 of the exact
+    // total, relatively (Higham, Accuracy and Stability of Numerical
+    // Algorithms, 2nd ed., sec. 4.2; from memory): at most 2^52 steps here
+    // keeps the exact total, and so every partial sum, below 2^53 steps.
+    let limit = f64::from_bits(((e - 150 + 52 + 1023) as u64) << 52);
+    if sum.is_finite() && sum <= limit { sum } else { in_order() }
+}
+}
+
 /// What the check found.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SweepStep {
@@ -195,5 +247,45 @@ mod tests {
         assert_eq!(run(0), None);
         assert_eq!(run(1).map(|s| s.sweeps), Some(-1));
         assert_eq!(run(3).map(|s| s.sweeps), Some(-3));
+    }
+
+    #[test]
+    fn window_power_sum_is_the_in_order_sum_to_the_last_bit() {
+        let mut rng = Rng::new(31);
+        let in_order = |iq: &[Complex32]| iq.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>();
+        // Some windows must be ones whose sum depends on the order (the wide spreads).
+        let (mut order_free, mut cases) = (0, 0);
+        for len in [0usize, 1, 3, 4, 7, 160, 161, 250, 1000] {
+            for spread in [0.0, 2.0, 6.0, 12.0, 30.0] {
+                for special in 0..5 {
+                    let mut iq: Vec<Complex32> = (0..len)
+                        .map(|_| {
+                            // amplitudes spread over 10^spread, so powers over 10^(2 spread)
+                            let scale = 10f64.powf(spread * (rng.uniform() - 0.5)) as f32;
+                            let z = rng.complex_gaussian(1.0);
+                            Complex32::new(z.re * scale, z.im * scale)
+                        })
+                        .collect();
+                    if len > 2 {
+                        let at = (rng.uniform() * len as f64) as usize % len;
+                        iq[at] = match special {
+                            0 => iq[at],
+                            1 => Complex32::new(0.0, -0.0),
+                            2 => Complex32::new(f32::MIN_POSITIVE / 64.0, 0.0),
+                            3 => Complex32::new(f32::NAN, 1.0),
+                            _ => Complex32::new(3e19, 3e19),
+                        };
+                    }
+                    let (got, want) = (window_power_sum(&iq), in_order(&iq));
+                    assert_eq!(got.to_bits(), want.to_bits(), "len {len}, spread {spread}, case {special}");
+                    cases += 1;
+                    let reversed: f64 = iq.iter().map(|z| f64::from(z.norm_sqr())).rev().sum();
+                    order_free += (reversed.to_bits() == want.to_bits()) as usize;
+                }
+            }
+        }
+        assert!(order_free > 0 && order_free < cases, "{order_free} of {cases}");
+        let zeros = vec![Complex32::new(0.0, 0.0); 9];
+        assert_eq!(window_power_sum(&zeros).to_bits(), in_order(&zeros).to_bits());
     }
 }

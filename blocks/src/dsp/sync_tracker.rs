@@ -5,9 +5,11 @@
 //!
 //! Per-sample work is kept small: a sample inside the current level's quiet
 //! band changes nothing (tested a block at a time, in float32), and
-//! midpoint crossings of a pending level are found 32 samples per bit mask.
+//! midpoint crossings of a pending level are found 32 samples per bit mask
+//! (`sync_scan`).
 
 use super::switch_sync::{Irregularity, SwitchEvent};
+use super::sync_scan::{EMPTY_BAND, end_of_band_run, float32_above, float32_band, float32_below, rising_in_band};
 use std::collections::VecDeque;
 use std::sync::Arc;
 
@@ -38,70 +40,6 @@ const STRAY_FRACTION: f64 = 0.3;
 
 pub(crate) fn min_spacing(levels: &[f64]) -> f64 {
     levels.windows(2).map(|w| (w[1] - w[0]).abs()).fold(f64::INFINITY, f64::min)
-}
-
-/// A band no value falls in.
-const EMPTY_BAND: (f32, f32) = (f32::INFINITY, f32::NEG_INFINITY);
-
-/// The float32 values inside `[lo, hi]`, as float32 bounds rounded inwards
-/// (the sync channel arrives as float32; comparing in its own type tests
-/// twice as many samples per vector instruction, with no conversion).
-fn float32_band(lo: f64, hi: f64) -> (f32, f32) {
-    let (mut a, mut b) = (lo as f32, hi as f32);
-    if (a as f64) < lo {
-        a = a.next_up();
-    }
-    if (b as f64) > hi {
-        b = b.next_down();
-    }
-    if a.is_finite() && b.is_finite() && a <= b { (a, b) } else { EMPTY_BAND }
-}
-
-/// The largest float32 `t` with `t <= x`: for float32 `v`, `v > t` exactly
-/// when `v as f64 > x`.
-fn float32_above(x: f64) -> f32 {
-    let t = x as f32;
-    if (t as f64) > x { t.next_down() } else { t }
-}
-
-/// The smallest float32 `t` with `t >= x`: `v < t` exactly when `v as f64 < x`.
-fn float32_below(x: f64) -> f32 {
-    let t = x as f32;
-    if (t as f64) < x { t.next_up() } else { t }
-}
-
-/// Follow "past the midpoint" (`v > t` when `UP`, else `v < t`) over `values`
-/// (the first at absolute index `first`) from `(past, crossed)`: returns
-/// whether the last value is past, and where past last turned true. The
-/// same as stepping value by value, 32 values per bit mask.
-fn last_rising<const UP: bool>(
-    values: &[f32],
-    first: u64,
-    t: f32,
-    (mut past, mut crossed): (bool, u64),
-) -> (bool, u64) {
-    let is_past = |v: f32| if UP { v > t } else { v < t };
-    let (blocks, tail) = values.as_chunks::<32>();
-    for (b, block) in blocks.iter().enumerate() {
-        let mut mask = 0u32;
-        for (i, &v) in block.iter().enumerate() {
-            mask |= (is_past(v) as u32) << i;
-        }
-        let rising = mask & !((mask << 1) | past as u32);
-        if rising != 0 {
-            crossed = first + (b * 32) as u64 + (31 - rising.leading_zeros()) as u64;
-        }
-        past = mask >> 31 == 1;
-    }
-    let tail_first = first + (blocks.len() * 32) as u64;
-    for (n, &v) in (tail_first..).zip(tail) {
-        let p = is_past(v);
-        if p && !past {
-            crossed = n;
-        }
-        past = p;
-    }
-    (past, crossed)
 }
 
 fn median(values: impl Iterator<Item = u64>) -> Option<f64> {
@@ -274,15 +212,7 @@ impl SyncTracker {
                 // Fast path: skip the run of samples that stay in the current level's band.
                 let (lo, hi) = self.quiet_band[self.current];
                 let until = self.stuck_from().saturating_sub(index).min(values.len() as u64) as usize;
-                let inside = |v: f32| (v >= lo) & (v <= hi);
-                // Whole blocks first (a branch-free test the compiler vectorises), then single samples.
-                const BLOCK: usize = 16;
-                while k + BLOCK <= until && values[k..k + BLOCK].iter().fold(true, |all, &v| all & inside(v)) {
-                    k += BLOCK;
-                }
-                while k < until && inside(values[k]) {
-                    k += 1;
-                }
+                k = end_of_band_run(values, k, until, (lo, hi));
                 if k == values.len() {
                     break;
                 }
@@ -295,9 +225,7 @@ impl SyncTracker {
                 let lobes = self.levels.len();
                 let row = &self.midpoints[self.current * lobes..(self.current + 1) * lobes];
                 let run_start = k;
-                while k < until && (values[k] >= lo) & (values[k] <= hi) {
-                    k += 1;
-                }
+                k = end_of_band_run(values, k, until, (lo, hi));
                 // Each lobe's midpoint is independent of the others': one pass
                 // per lobe over the run keeps its state in registers.
                 for (j, &(mid, up)) in row.iter().enumerate() {
@@ -308,9 +236,9 @@ impl SyncTracker {
                     let run = &values[run_start..k];
                     let first = index + run_start as u64;
                     let (past, crossed) = if up {
-                        last_rising::<true>(run, first, float32_above(mid), state)
+                        rising_in_band::<true>(run, first, float32_above(mid), (lo, hi), state)
                     } else {
-                        last_rising::<false>(run, first, float32_below(mid), state)
+                        rising_in_band::<false>(run, first, float32_below(mid), (lo, hi), state)
                     };
                     self.past_mid[j] = past;
                     self.crossed_at[j] = crossed;
@@ -428,24 +356,10 @@ impl SyncTracker {
         let at = if self.past_mid[new] { self.crossed_at[new] } else { self.pending_since };
         let at = at.max(self.settled_floor).min(n);
         let old = self.current;
-        let names = self.settings.names.clone();
         if self.dwell_from_switch {
             let len = at.saturating_sub(self.dwell_start);
-            if let Some(expected) = self.expected_dwell() {
-                let tol = self.settings.tolerance;
-                if (len as f64 - expected).abs() > tol * expected {
-                    let what = if (len as f64) < expected { "short" } else { "long" };
-                    self.irregular(
-                        self.dwell_start,
-                        Irregularity::DwellLength,
-                        format!(
-                            "{what} dwell of lobe {} from sample {}: {len} samples, expected about {expected:.0} (tolerance {:.0} %)",
-                            names[old],
-                            self.dwell_start,
-                            tol * 100.0
-                        ),
-                    );
-                }
+            if let Some(what) = self.dwell_length_notice(old, len) {
+                self.irregular(self.dwell_start, Irregularity::DwellLength, what);
             }
             self.history.push_back(len);
             if self.history.len() > DWELL_HISTORY {
@@ -456,17 +370,15 @@ impl SyncTracker {
         let lobes = self.levels.len();
         let expected_next = (old + 1) % lobes;
         if new != expected_next {
+            let names = &self.settings.names;
             let skipped = (new + lobes - old - 1) % lobes;
-            self.irregular(
-                at,
-                Irregularity::Order,
-                format!(
-                    "lobe order broken at sample {at}: {} followed by {} (skipped {}: a missing transition?)",
-                    names[old],
-                    names[new],
-                    lobe_list(&names, expected_next, skipped)
-                ),
+            let what = format!(
+                "lobe order broken at sample {at}: {} followed by {} (skipped {}: a missing transition?)",
+                names[old],
+                names[new],
+                lobe_list(names, expected_next, skipped)
             );
+            self.irregular(at, Irregularity::Order, what);
         }
         self.current = new;
         self.dwell_start = at;
@@ -474,6 +386,24 @@ impl SyncTracker {
         self.stuck_reported = false;
         self.past_mid.iter_mut().for_each(|p| *p = false);
         self.events.push_back(SwitchEvent::Switch { at, lobe: new });
+    }
+
+    /// The notice for a dwell of lobe `old` that lasted `len` samples, when
+    /// it is farther from the expected length than the tolerance.
+    fn dwell_length_notice(&self, old: usize, len: u64) -> Option<String> {
+        let expected = self.expected_dwell()?;
+        let tol = self.settings.tolerance;
+        let off = (len as f64 - expected).abs() > tol * expected;
+        if !off {
+            return None;
+        }
+        let what = if (len as f64) < expected { "short" } else { "long" };
+        Some(format!(
+            "{what} dwell of lobe {} from sample {}: {len} samples, expected about {expected:.0} (tolerance {:.0} %)",
+            self.settings.names[old],
+            self.dwell_start,
+            tol * 100.0
+        ))
     }
 
     fn check_stuck(&mut self, n: u64) {
@@ -649,52 +579,6 @@ mod tests {
             }
             // The staircase must exercise both paths: switches and irregularities.
             assert!(switches > 100 && notices > 5, "seed {seed}: {switches} switches, {notices} notices");
-        }
-    }
-
-    #[test]
-    fn float32_thresholds_decide_exactly_as_the_float64_comparison() {
-        let mut rng = Rng::new(17);
-        for _ in 0..2000 {
-            let x = rng.gaussian() * 2.0;
-            let (above, below) = (float32_above(x), float32_below(x));
-            let near = x as f32;
-            let mut v = near.next_down().next_down();
-            for _ in 0..5 {
-                assert_eq!(v > above, v as f64 > x, "{v} against {x}");
-                assert_eq!(v < below, (v as f64) < x, "{v} against {x}");
-                v = v.next_up();
-            }
-            let (lo, hi) = float32_band(x - 0.25, x + 0.25);
-            assert!((lo as f64) >= x - 0.25 && (hi as f64) <= x + 0.25);
-            assert!((lo.next_down() as f64) < x - 0.25 && (hi.next_up() as f64) > x + 0.25);
-        }
-        assert_eq!(float32_band(1.0, 0.5), EMPTY_BAND);
-        assert_eq!(float32_band(f64::NEG_INFINITY, 0.0), EMPTY_BAND);
-    }
-
-    #[test]
-    fn bit_mask_crossings_match_value_by_value_stepping() {
-        let mut rng = Rng::new(23);
-        for len in [0usize, 1, 31, 32, 33, 64, 95, 200] {
-            let values: Vec<f32> =
-                (0..len).map(|n| if n % 17 == 5 { f32::NAN } else { (rng.gaussian() * 0.3 + 0.1) as f32 }).collect();
-            for start in [(false, 7u64), (true, 3)] {
-                let t = 0.1f32;
-                let reference = |up: bool| {
-                    let (mut past, mut crossed) = start;
-                    for (n, &v) in (1000u64..).zip(&values) {
-                        let p = if up { v > t } else { v < t };
-                        if p && !past {
-                            crossed = n;
-                        }
-                        past = p;
-                    }
-                    (past, crossed)
-                };
-                assert_eq!(last_rising::<true>(&values, 1000, t, start), reference(true), "len {len}");
-                assert_eq!(last_rising::<false>(&values, 1000, t, start), reference(false), "len {len}");
-            }
         }
     }
 }

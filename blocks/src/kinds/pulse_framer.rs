@@ -261,7 +261,7 @@ pub struct PulseFramer {
     blanked_in_place: Range<u64>,
     /// Number of the open sweep.
     pulse: u64,
-    /// Samples from the open sweep's start on.
+    /// The chunks holding the samples from the open sweep's start on.
     pending: VecDeque<SampleChunk>,
     /// (first predicted instant, count) of the current run of missing pulses.
     missing_run: Option<(u64, u64)>,
@@ -578,18 +578,12 @@ impl PulseFramer {
         self.missing_reports += 1;
     }
 
-    /// Drop pending samples before `n`.
+    /// Drop the pending chunks that end before `n`. A chunk holding `n` is
+    /// kept whole: sweeps are cut from chunks by their stamps, and slicing
+    /// it at every instant cost reference counting per sweep.
     fn trim(&mut self, n: u64) {
-        while let Some(front) = self.pending.front_mut() {
-            let (a, len) = (front.stamp.index, front.len());
-            if a + len as u64 <= n {
-                self.pending.pop_front();
-            } else {
-                if a < n {
-                    *front = front.slice((n - a) as usize..len);
-                }
-                break;
-            }
+        while self.pending.front().is_some_and(|c| c.stamp.index + c.len() as u64 <= n) {
+            self.pending.pop_front();
         }
     }
 

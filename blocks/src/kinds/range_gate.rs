@@ -164,6 +164,7 @@ impl TypedBlock for RangeGate {
             mismatch_reported: false,
             blank_reported: false,
             last_stamp: Stamp::new(0, 1.0),
+            gate_fields: None,
         })
     }
 
@@ -297,6 +298,8 @@ pub struct RangeGate {
     mismatch_reported: bool,
     blank_reported: bool,
     last_stamp: Stamp,
+    /// [`GATE_FIELDS`] as shared names, once the first row is made.
+    gate_fields: Option<[Arc<str>; 5]>,
 }
 
 impl RangeGate {
@@ -525,6 +528,9 @@ impl RangeGate {
     }
 }
 
+/// The columns of a `gates` row (named once: a row goes out every dwell).
+const GATE_FIELDS: [&str; 5] = ["gate_start_m", "gate_end_m", "noise_start_m", "noise_end_m", "echo_length_m"];
+
 impl RangeGate {
     /// Put the gate and noise region in use on the `gates` port, in metres
     /// from the transmit instant. A row per dwell, not only when the gate
@@ -536,19 +542,20 @@ impl RangeGate {
         let noise = geo.noise_range(sweep_len);
         let bin_m = range_bin_m(geo.rate);
         let metres = |bins: f64| Cell::Num(bins * bin_m);
-        let fields = [
-            ("gate_start_m", metres(start as f64)),
-            ("gate_end_m", metres((start + geo.gate_width) as f64)),
-            ("noise_start_m", metres(noise.start as f64)),
-            ("noise_end_m", metres(noise.end as f64)),
-            ("echo_length_m", metres(geo.pulse_samples)),
+        let cells = [
+            metres(start as f64),
+            metres((start + geo.gate_width) as f64),
+            metres(noise.start as f64),
+            metres(noise.end as f64),
+            metres(geo.pulse_samples),
         ];
-        let fields = fields.into_iter().map(|(name, cell)| (Arc::from(name), cell)).collect();
+        let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
+        let fields = names.iter().cloned().zip(cells).collect();
         out.push(RangeGateOut::Gates, Item::Row(TableRow { stamp: at, fields }));
     }
 
     fn take(&mut self, sweep: Sweep, out: &mut Outputs) -> Result<(), BlockError> {
-        let Some(tag) = sweep.lobe.clone() else {
+        let Some(tag) = sweep.lobe.as_ref() else {
             self.untagged += 1;
             if self.untagged == 1 {
                 out.warn(sweep.stamp, "sweep without a lobe label (no switch-sync gate upstream?); skipped");
@@ -560,7 +567,7 @@ impl RangeGate {
         let same_dwell = self.current.as_ref().is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
         if !same_dwell {
             self.close_dwell(out);
-            self.open_dwell(&tag, &geo, sweep.stamp, out);
+            self.open_dwell(tag, &geo, sweep.stamp, out);
             self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, out);
         }
         self.add_sweep(&sweep, &geo, out);

@@ -7,7 +7,7 @@
 
 use super::gate_common::{GateKind, GateSettings, SwitchDriver, SwitchGate, SwitchTiming};
 use crate::block::{BlockError, BlockSpec, Outputs};
-use crate::dsp::sweep_label_check::{SweepLabelCheck, SweepStep};
+use crate::dsp::sweep_label_check::{SweepLabelCheck, SweepStep, window_power_sum};
 use crate::dsp::switch_sync::Irregularity;
 use crate::error::{BuildError, ParamError};
 use crate::item::{Item, ItemKind, LobeTag, Stamp, Sweep};
@@ -170,7 +170,7 @@ impl SweepLabeller {
         if let Some(check) = self.label_check.as_mut() {
             let end = self.window.1.map_or(sweep.iq.len(), |e| (e as usize).min(sweep.iq.len()));
             let window = &sweep.iq[(self.window.0 as usize).min(end)..end];
-            check.sweep(window.iter().map(|z| f64::from(z.norm_sqr())).sum::<f64>() / window.len().max(1) as f64);
+            check.sweep(window_power_sum(window) / window.len().max(1) as f64);
         }
         sweep.lobe = Some(LobeTag { lobe, name: d.lobe_name(lobe), dwell: self.dwell, dwell_start });
         out.push(SweepGateOut::Sweeps, Item::Sweep(sweep));
