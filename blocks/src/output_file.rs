@@ -167,6 +167,15 @@ impl Commit {
                 std::fs::create_dir_all(dir).map_err(named(dir, "cannot create the folder"))?;
             }
         }
+        // Every file's data and size reach the disk before the first
+        // rename, as when each file was synced as it was finished: after a
+        // crash a final name never shows a file whose data was lost. One
+        // sync after another here mostly finds its file in the journal
+        // commit the first one forced. A file that cannot be synced fails
+        // the commit before anything was renamed.
+        for (tmp, fin) in staged {
+            File::open(tmp).and_then(|f| f.sync_all()).map_err(named(fin, "cannot write the output to disk"))?;
+        }
         for (i, (_, fin)) in staged.iter().enumerate() {
             if std::fs::symlink_metadata(fin).is_ok() {
                 let aside = match folder {
@@ -236,15 +245,36 @@ impl OutputFile {
         self.writer.as_mut().expect("writer present until finish")
     }
 
-    /// Flush, sync and hand the file to the stager for the final rename.
+    /// Flush, start the disk write and hand the file to the stager for the
+    /// final rename. The wait for the disk is the commit's
+    /// ([`FileStager::commit`] syncs every staged file before its first
+    /// rename): one journal commit for all the run's files instead of one
+    /// per file, which cost 1-5 ms each on the critical path.
     pub fn finish(mut self, stager: &FileStager) -> std::io::Result<()> {
         let w = self.writer.take().expect("finish called once");
         let file = w.into_inner().map_err(|e| e.into_error())?;
-        file.sync_all()?;
+        start_disk_write(&file);
         stager.stage(std::mem::take(&mut self.temp), self.path.clone());
         Ok(())
     }
 }
+
+/// Ask the kernel to start writing `file`'s data without waiting for it, so
+/// the commit's sync finds most of it on disk already. Only a hint: any
+/// failure shows at that sync.
+#[cfg(target_os = "linux")]
+fn start_disk_write(file: &File) {
+    use std::os::fd::AsRawFd;
+    // SAFETY: the descriptor is open for the call's duration (`file` is
+    // borrowed), and the call reads no memory of ours.
+    #[allow(unsafe_code)]
+    unsafe {
+        libc::sync_file_range(file.as_raw_fd(), 0, 0, libc::SYNC_FILE_RANGE_WRITE);
+    }
+}
+
+#[cfg(not(target_os = "linux"))]
+fn start_disk_write(_file: &File) {}
 
 impl Write for OutputFile {
     fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
