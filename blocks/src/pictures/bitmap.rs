@@ -9,7 +9,9 @@
 //!   backend's default `draw_text`, both reproduced step for step below).
 //! - Memory: a fresh multi-megabyte pixel buffer costs a page fault per
 //!   4 KiB on first touch; each worker keeps its buffer between pictures
-//!   ([`with_pixel_buffer`]).
+//!   ([`with_pixel_buffer`]). Zeroing it again is skipped when the first
+//!   drawing covers every pixel anyway (the background), and opaque
+//!   rectangles are filled a row at a time by copying the first row.
 
 use super::FONT;
 use ab_glyph::{Font, FontRef, GlyphId, ScaleFont};
@@ -28,13 +30,19 @@ thread_local! {
     static GLYPHS: RefCell<GlyphCache> = RefCell::new(GlyphCache::default());
 }
 
-/// Run `f` on a zeroed buffer of `len` bytes, reusing this thread's buffer
-/// from an earlier picture (zeroed as a fresh one would be).
-pub fn with_pixel_buffer<T>(len: usize, f: impl FnOnce(&mut [u8]) -> T) -> T {
+/// Run `f` on a buffer of `len` bytes and whether it holds an earlier
+/// picture's pixels (else it is zeroed, as a fresh one). The buffer is
+/// this thread's from an earlier picture when it is large enough.
+pub fn with_pixel_buffer<T>(len: usize, f: impl FnOnce(&mut [u8], bool) -> T) -> T {
     let mut buf = PIXELS.with(|b| std::mem::take(&mut *b.borrow_mut()));
-    buf.clear();
-    buf.resize(len, 0);
-    let result = f(&mut buf);
+    let stale = buf.capacity() >= len;
+    if stale {
+        buf.resize(len, 0);
+    } else {
+        // Zeroed by the kernel as its pages are first touched.
+        buf = vec![0; len];
+    }
+    let result = f(&mut buf[..len], stale);
     if buf.capacity() <= KEPT_BUFFER_BYTES {
         PIXELS.with(|b| *b.borrow_mut() = buf);
     }
@@ -98,41 +106,87 @@ fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char
 }
 
 /// Plotters' bitmap backend over an RGB buffer, drawing text of our font
-/// from cached glyphs; everything else goes to the bitmap backend itself.
+/// from cached glyphs and opaque rectangles itself; everything else goes
+/// to the bitmap backend.
 pub struct GlyphCachedBitmap<'a> {
-    inner: BitMapBackend<'a>,
+    rgb: &'a mut [u8],
+    size: (u32, u32),
+    /// The buffer holds an earlier picture's pixels: it is zeroed before the
+    /// first drawing that may leave some of them showing.
+    stale: bool,
 }
 
 impl<'a> GlyphCachedBitmap<'a> {
-    pub fn with_buffer(rgb: &'a mut [u8], size: (u32, u32)) -> Self {
-        GlyphCachedBitmap { inner: BitMapBackend::with_buffer(rgb, size) }
+    /// A backend over `rgb` (3 bytes a pixel, rows top down); `stale` as
+    /// [`with_pixel_buffer`] tells it.
+    pub fn with_buffer(rgb: &'a mut [u8], size: (u32, u32), stale: bool) -> Self {
+        GlyphCachedBitmap { rgb, size, stale }
+    }
+
+    /// Zero a stale buffer, as a fresh one would be.
+    fn clear_stale(&mut self) {
+        if self.stale {
+            self.rgb.fill(0);
+            self.stale = false;
+        }
+    }
+
+    /// The bitmap backend over the buffer.
+    fn bitmap(&mut self) -> BitMapBackend<'_> {
+        self.clear_stale();
+        BitMapBackend::with_buffer(self.rgb, self.size)
+    }
+
+    /// Set every pixel of the rectangle to `rgb`, clipped to the image
+    /// exactly as the bitmap backend's opaque fill clips it (corners in any
+    /// order, the bottom-right one excluded).
+    fn fill_opaque(&mut self, a: BackendCoord, b: BackendCoord, rgb: (u8, u8, u8)) {
+        let (w, h) = (self.size.0 as i32, self.size.1 as i32);
+        let (x0, y0) = (a.0.min(b.0).max(0), a.1.min(b.1).max(0));
+        let (x1, y1) = (a.0.max(b.0).min(w), a.1.max(b.1).min(h));
+        if x0 >= x1 || y0 >= y1 {
+            return;
+        }
+        if self.stale && (x0, y0, x1, y1) == (0, 0, w, h) {
+            self.stale = false;
+        }
+        self.clear_stale();
+        let stride = 3 * w as usize;
+        let (left, right) = (3 * x0 as usize, 3 * x1 as usize);
+        let first = y0 as usize * stride;
+        for pixel in self.rgb[first + left..first + right].chunks_exact_mut(3) {
+            pixel.copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
+        }
+        for y in y0 as usize + 1..y1 as usize {
+            self.rgb.copy_within(first + left..first + right, y * stride + left);
+        }
     }
 }
 
-type BitmapError<'a> = DrawingErrorKind<<BitMapBackend<'a> as DrawingBackend>::ErrorType>;
+type BitmapError = DrawingErrorKind<<BitMapBackend<'static> as DrawingBackend>::ErrorType>;
 
-impl<'a> DrawingBackend for GlyphCachedBitmap<'a> {
-    type ErrorType = <BitMapBackend<'a> as DrawingBackend>::ErrorType;
+impl DrawingBackend for GlyphCachedBitmap<'_> {
+    type ErrorType = <BitMapBackend<'static> as DrawingBackend>::ErrorType;
 
     fn get_size(&self) -> (u32, u32) {
-        self.inner.get_size()
+        self.size
     }
-    fn ensure_prepared(&mut self) -> Result<(), BitmapError<'a>> {
-        self.inner.ensure_prepared()
+    fn ensure_prepared(&mut self) -> Result<(), BitmapError> {
+        self.bitmap().ensure_prepared()
     }
-    fn present(&mut self) -> Result<(), BitmapError<'a>> {
-        self.inner.present()
+    fn present(&mut self) -> Result<(), BitmapError> {
+        self.bitmap().present()
     }
-    fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError<'a>> {
-        self.inner.draw_pixel(point, color)
+    fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError> {
+        self.bitmap().draw_pixel(point, color)
     }
     fn draw_line<S: BackendStyle>(
         &mut self,
         from: BackendCoord,
         to: BackendCoord,
         style: &S,
-    ) -> Result<(), BitmapError<'a>> {
-        self.inner.draw_line(from, to, style)
+    ) -> Result<(), BitmapError> {
+        self.bitmap().draw_line(from, to, style)
     }
     fn draw_rect<S: BackendStyle>(
         &mut self,
@@ -140,15 +194,20 @@ impl<'a> DrawingBackend for GlyphCachedBitmap<'a> {
         bottom_right: BackendCoord,
         style: &S,
         fill: bool,
-    ) -> Result<(), BitmapError<'a>> {
-        self.inner.draw_rect(upper_left, bottom_right, style, fill)
+    ) -> Result<(), BitmapError> {
+        // The bitmap backend's own test for its opaque fill.
+        if fill && style.color().alpha >= 1.0 {
+            self.fill_opaque(upper_left, bottom_right, style.color().rgb);
+            return Ok(());
+        }
+        self.bitmap().draw_rect(upper_left, bottom_right, style, fill)
     }
     fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
         &mut self,
         path: I,
         style: &S,
-    ) -> Result<(), BitmapError<'a>> {
-        self.inner.draw_path(path, style)
+    ) -> Result<(), BitmapError> {
+        self.bitmap().draw_path(path, style)
     }
     fn draw_circle<S: BackendStyle>(
         &mut self,
@@ -156,25 +215,18 @@ impl<'a> DrawingBackend for GlyphCachedBitmap<'a> {
         radius: u32,
         style: &S,
         fill: bool,
-    ) -> Result<(), BitmapError<'a>> {
-        self.inner.draw_circle(center, radius, style, fill)
+    ) -> Result<(), BitmapError> {
+        self.bitmap().draw_circle(center, radius, style, fill)
     }
     fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
         &mut self,
         vert: I,
         style: &S,
-    ) -> Result<(), BitmapError<'a>> {
-        self.inner.fill_polygon(vert, style)
+    ) -> Result<(), BitmapError> {
+        self.bitmap().fill_polygon(vert, style)
     }
-    fn estimate_text_size<TStyle: BackendTextStyle>(
-        &self,
-        text: &str,
-        style: &TStyle,
-    ) -> Result<(u32, u32), BitmapError<'a>> {
-        self.inner.estimate_text_size(text, style)
-    }
-    fn blit_bitmap(&mut self, pos: BackendCoord, size: (u32, u32), src: &[u8]) -> Result<(), BitmapError<'a>> {
-        self.inner.blit_bitmap(pos, size, src)
+    fn blit_bitmap(&mut self, pos: BackendCoord, size: (u32, u32), src: &[u8]) -> Result<(), BitmapError> {
+        self.bitmap().blit_bitmap(pos, size, src)
     }
 
     /// The backend's default `draw_text` with the glyphs from the cache.
@@ -183,9 +235,9 @@ impl<'a> DrawingBackend for GlyphCachedBitmap<'a> {
         text: &str,
         style: &TStyle,
         pos: BackendCoord,
-    ) -> Result<(), BitmapError<'a>> {
+    ) -> Result<(), BitmapError> {
         if style.family().as_str() != FONT {
-            return self.inner.draw_text(text, style, pos);
+            return self.bitmap().draw_text(text, style, pos);
         }
         let color = style.color();
         if color.alpha == 0.0 {
@@ -206,19 +258,19 @@ impl<'a> DrawingBackend for GlyphCachedBitmap<'a> {
         };
         let trans = style.transform();
         let (w, h) = self.get_size();
-        let inner = &mut self.inner;
+        let mut bitmap = self.bitmap();
         let mut result = Ok(());
         let drawn = GLYPHS.with(|cache| {
             cache.borrow_mut().draw_text(style.size(), text, |x, y, coverage| {
                 let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
                 let (x, y) = (pos.0 + x, pos.1 + y);
                 if result.is_ok() && x >= 0 && x < w as i32 && y >= 0 && y < h as i32 {
-                    result = inner.draw_pixel((x, y), color.mix(coverage as f64));
+                    result = bitmap.draw_pixel((x, y), color.mix(coverage as f64));
                 }
             })
         });
         if !drawn {
-            return self.inner.draw_text(text, style, pos);
+            return bitmap.draw_text(text, style, pos);
         }
         result
     }

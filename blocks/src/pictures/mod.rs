@@ -132,9 +132,9 @@ pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) ->
     }
     let png_path = PathBuf::from(format!("{base}.png"));
     let svg_path = PathBuf::from(format!("{base}.svg"));
-    bitmap::with_pixel_buffer(w as usize * h as usize * 3, |rgb| {
+    bitmap::with_pixel_buffer(w as usize * h as usize * 3, |rgb, stale| {
         {
-            let root = bitmap::GlyphCachedBitmap::with_buffer(rgb, (w, h)).into_drawing_area();
+            let root = bitmap::GlyphCachedBitmap::with_buffer(rgb, (w, h), stale).into_drawing_area();
             picture.draw(&root).map_err(BlockError::new)?;
             root.present().map_err(|e| BlockError::new(draw_err(e)))?;
         }
