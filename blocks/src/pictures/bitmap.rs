@@ -24,6 +24,11 @@ use std::collections::HashMap;
 /// A pixel buffer kept for the next picture only up to this size, so an
 /// unusually large picture does not hold its memory for the whole run.
 const KEPT_BUFFER_BYTES: usize = 16 << 20;
+/// A new buffer is made at least this large (the largest of the reference
+/// graphs' pictures is 4.3 MB): its pages cost nothing until drawn on, and
+/// a later, larger picture then draws on the pages the earlier ones
+/// already touched instead of faulting in a whole new buffer.
+const NEW_BUFFER_BYTES: usize = 8 << 20;
 
 thread_local! {
     static PIXELS: RefCell<Vec<u8>> = const { RefCell::new(Vec::new()) };
@@ -35,15 +40,14 @@ thread_local! {
 /// this thread's from an earlier picture when it is large enough.
 pub fn with_pixel_buffer<T>(len: usize, f: impl FnOnce(&mut [u8], bool) -> T) -> T {
     let mut buf = PIXELS.with(|b| std::mem::take(&mut *b.borrow_mut()));
-    let stale = buf.capacity() >= len;
-    if stale {
-        buf.resize(len, 0);
-    } else {
+    // A buffer is handed out at its full length, so reusing it never writes.
+    let stale = !buf.is_empty() && buf.len() >= len;
+    if !stale {
         // Zeroed by the kernel as its pages are first touched.
-        buf = vec![0; len];
+        buf = vec![0; len.max(NEW_BUFFER_BYTES)];
     }
     let result = f(&mut buf[..len], stale);
-    if buf.capacity() <= KEPT_BUFFER_BYTES {
+    if buf.len() <= KEPT_BUFFER_BYTES {
         PIXELS.with(|b| *b.borrow_mut() = buf);
     }
     result
