@@ -175,11 +175,14 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
     fn get_size(&self) -> (u32, u32) {
         self.size
     }
+    // Called before every drawing; the bitmap backend's own, over a buffer,
+    // change no pixel. Going through `bitmap()` here would zero a stale
+    // buffer before the background is drawn over all of it.
     fn ensure_prepared(&mut self) -> Result<(), BitmapError> {
-        self.bitmap().ensure_prepared()
+        Ok(())
     }
     fn present(&mut self) -> Result<(), BitmapError> {
-        self.bitmap().present()
+        Ok(())
     }
     fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError> {
         self.bitmap().draw_pixel(point, color)
@@ -277,5 +280,91 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             return bitmap.draw_text(text, style, pos);
         }
         result
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    //! The pixels must be exactly those plotters' own bitmap backend draws,
+    //! on a fresh buffer, whatever an earlier picture left in ours.
+
+    use super::{GlyphCachedBitmap, with_pixel_buffer};
+    use crate::pictures::{ensure_font, palette, text_style};
+    use plotters::coord::Shift;
+    use plotters::prelude::*;
+    use plotters::style::FontTransform;
+    use plotters::style::text_anchor::{HPos, Pos, VPos};
+
+    const SIZE: (u32, u32) = (320, 200);
+
+    fn scene<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, background: bool) {
+        if background {
+            root.fill(&palette::PAPER).unwrap();
+        }
+        // Opaque rectangles: corners in either order, partly off the image.
+        root.draw(&Rectangle::new([(30, 20), (10, 60)], palette::GATE.filled())).unwrap();
+        root.draw(&Rectangle::new([(-15, 150), (40, 260)], palette::ALERT.filled())).unwrap();
+        root.draw(&Rectangle::new([(300, 5), (400, 30)], palette::MUTED.filled())).unwrap();
+        // Translucent fill, outline, lines of both kinds.
+        root.draw(&Rectangle::new([(50, 50), (140, 120)], palette::BAND.mix(0.4).filled())).unwrap();
+        root.draw(&Rectangle::new([(60, 60), (130, 110)], palette::INK.stroke_width(1))).unwrap();
+        root.draw(&PathElement::new(vec![(0, 199), (319, 0)], palette::TRACE.stroke_width(2))).unwrap();
+        root.draw(&PathElement::new(vec![(5, 100), (315, 100)], palette::GRID)).unwrap();
+        // Text: sizes, anchors, rotation, characters without outlines, past the edge.
+        let style = text_style(13.0, palette::INK);
+        root.draw(&Text::new("range 12.5 km -3 dB".to_string(), (12, 8), style.clone())).unwrap();
+        root.draw(&Text::new("Az/El ±σ".to_string(), (160, 100), text_style(22.0, palette::ALERT))).unwrap();
+        let centred = style.pos(Pos::new(HPos::Center, VPos::Center));
+        root.draw(&Text::new("centred  twice".to_string(), (160, 150), centred)).unwrap();
+        let turned = text_style(14.0, palette::MUTED).transform(FontTransform::Rotate270);
+        root.draw(&Text::new("power (dB)".to_string(), (20, 180), turned)).unwrap();
+        root.draw(&Text::new("cut off at the right edge".to_string(), (250, 180), style)).unwrap();
+    }
+
+    fn reference(background: bool) -> Vec<u8> {
+        let mut rgb = vec![0u8; (SIZE.0 * SIZE.1 * 3) as usize];
+        {
+            let root = BitMapBackend::with_buffer(&mut rgb, SIZE).into_drawing_area();
+            scene(&root, background);
+            root.present().unwrap();
+        }
+        rgb
+    }
+
+    fn ours(background: bool, stale: bool) -> Vec<u8> {
+        let mut rgb: Vec<u8> = (0..SIZE.0 * SIZE.1 * 3).map(|i| if stale { (i * 7 % 251) as u8 } else { 0 }).collect();
+        {
+            let root = GlyphCachedBitmap::with_buffer(&mut rgb, SIZE, stale).into_drawing_area();
+            scene(&root, background);
+            root.present().unwrap();
+        }
+        rgb
+    }
+
+    #[test]
+    fn pixels_equal_the_bitmap_backends() {
+        ensure_font().unwrap();
+        for background in [true, false] {
+            let expected = reference(background);
+            for stale in [false, true] {
+                // Twice: the second time every glyph comes from the cache.
+                for round in 0..2 {
+                    let got = ours(background, stale);
+                    let differing = got.iter().zip(&expected).filter(|(a, b)| a != b).count();
+                    assert_eq!(differing, 0, "background {background}, stale buffer {stale}, round {round}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn a_reused_buffer_is_handed_out_whole_and_marked_stale() {
+        let first = with_pixel_buffer(300, |buf, stale| {
+            buf.fill(9);
+            (buf.len(), stale)
+        });
+        assert_eq!(first, (300, false));
+        let second = with_pixel_buffer(200, |buf, stale| (buf.len(), stale, buf[0]));
+        assert_eq!(second, (200, true, 9));
     }
 }
