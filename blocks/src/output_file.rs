@@ -28,6 +28,44 @@ struct StagerInner {
     /// Numbers the files in the folder, so equal names never collide.
     next: AtomicUsize,
     policy: DeliveryPolicy,
+    /// Syncs finished files to disk while the run goes on.
+    syncer: Mutex<Option<Syncer>>,
+}
+
+/// A thread that syncs each finished file to disk, in the order they are
+/// finished, so the waits for the disk (1-30 ms each on a busy one) overlap
+/// the rest of the run instead of holding up the block that wrote the file
+/// or the commit; files finished while a sync waits share its journal
+/// commit. Measured on the four-lobe graph's 10 ms capture with a busy
+/// disk: 0.118-0.138 s against 0.132-0.141 s syncing in `finish` and
+/// 0.141-0.144 s syncing everything at the commit.
+struct Syncer {
+    files: std::sync::mpsc::Sender<(File, PathBuf)>,
+    done: std::thread::JoinHandle<std::io::Result<()>>,
+}
+
+impl Syncer {
+    fn start() -> std::io::Result<Syncer> {
+        let (files, queue) = std::sync::mpsc::channel::<(File, PathBuf)>();
+        let done = std::thread::Builder::new().name("lobeflow-sync".into()).spawn(move || {
+            let mut first_error = Ok(());
+            for (file, path) in queue {
+                if let Err(e) = file.sync_all()
+                    && first_error.is_ok()
+                {
+                    first_error = Err(named(&path, "cannot write the output to disk")(e));
+                }
+            }
+            first_error
+        })?;
+        Ok(Syncer { files, done })
+    }
+
+    /// Wait until every file handed over is on disk; the first failure.
+    fn finish(self) -> std::io::Result<()> {
+        drop(self.files);
+        self.done.join().unwrap_or_else(|_| Err(std::io::Error::other("the thread syncing the outputs failed")))
+    }
 }
 
 /// How finished rows reach the reader, beyond the staged files.
@@ -94,6 +132,28 @@ impl FileStager {
         OutputFile::create_at(temp, final_path)
     }
 
+    /// Have `file` (finished, to become `final_path`) synced to disk before
+    /// the commit renames anything.
+    fn sync_before_commit(&self, file: File, final_path: &Path) -> std::io::Result<()> {
+        let mut slot = self.inner.syncer.lock().unwrap_or_else(|e| e.into_inner());
+        let syncer = match &mut *slot {
+            Some(syncer) => syncer,
+            empty => empty.insert(Syncer::start()?),
+        };
+        match syncer.files.send((file, final_path.to_path_buf())) {
+            Ok(()) => Ok(()),
+            // The thread is gone (it cannot end while the sender lives, so
+            // only by a panic): sync here.
+            Err(std::sync::mpsc::SendError((file, _))) => file.sync_all(),
+        }
+    }
+
+    /// Wait for every file handed to the syncer to be on disk.
+    fn wait_for_syncs(&self) -> std::io::Result<()> {
+        let syncer = self.inner.syncer.lock().unwrap_or_else(|e| e.into_inner()).take();
+        syncer.map_or(Ok(()), Syncer::finish)
+    }
+
     /// Record that `temp` is complete and should become `final_path`.
     pub fn stage(&self, temp: PathBuf, final_path: PathBuf) {
         self.inner.staged.lock().unwrap_or_else(|e| e.into_inner()).push((temp, final_path));
@@ -105,7 +165,12 @@ impl FileStager {
     pub fn commit(&self) -> std::io::Result<Vec<PathBuf>> {
         let staged = std::mem::take(&mut *self.inner.staged.lock().unwrap_or_else(|e| e.into_inner()));
         let mut commit = Commit { moved: Vec::new(), set_aside: Vec::new() };
-        match commit.run(&staged, self.inner.folder.as_deref()) {
+        // Every file's data reaches the disk before the first rename, as
+        // when each file was synced in `finish`: after a crash a final name
+        // never shows a file whose data was lost, and a file that cannot be
+        // synced fails the commit before anything moved.
+        let synced = self.wait_for_syncs();
+        match synced.and_then(|()| commit.run(&staged, self.inner.folder.as_deref())) {
             Ok(()) => {
                 commit.drop_set_aside();
                 Ok(staged.into_iter().map(|(_, f)| f).collect())
@@ -127,6 +192,7 @@ impl FileStager {
 
     /// Delete every staged file (on failure).
     pub fn discard(&self) {
+        let _ = self.wait_for_syncs();
         let staged = std::mem::take(&mut *self.inner.staged.lock().unwrap_or_else(|e| e.into_inner()));
         for (tmp, _) in staged {
             let _ = std::fs::remove_file(tmp);
@@ -236,11 +302,12 @@ impl OutputFile {
         self.writer.as_mut().expect("writer present until finish")
     }
 
-    /// Flush, sync and hand the file to the stager for the final rename.
+    /// Flush, hand the file to be synced to disk and to the stager for the
+    /// final rename ([`FileStager::commit`] waits for the sync).
     pub fn finish(mut self, stager: &FileStager) -> std::io::Result<()> {
         let w = self.writer.take().expect("finish called once");
         let file = w.into_inner().map_err(|e| e.into_error())?;
-        file.sync_all()?;
+        stager.sync_before_commit(file, &self.path)?;
         stager.stage(std::mem::take(&mut self.temp), self.path.clone());
         Ok(())
     }

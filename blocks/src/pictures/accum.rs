@@ -107,14 +107,18 @@ impl SweepAverage {
             let k0 = first - self.window.first;
             let power = &mut self.power[k0..k0 + src.len()];
             let counts = &mut self.counts[k0..k0 + src.len()];
-            let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
             if self.memory == 0 {
-                // Plain mean: keep sums, divide once when drawing.
-                for ((p, c), x) in bins {
+                // Plain mean: keep sums, divide once when drawing. Sums and
+                // counts in passes of their own, which the compiler turns
+                // into vector code.
+                for (p, x) in power.iter_mut().zip(src) {
                     *p += f64::from(x.norm_sqr());
+                }
+                for c in counts.iter_mut() {
                     *c += 1;
                 }
             } else {
+                let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
                 // Running mean while warming up, then a fixed weight 1/memory.
                 let m = self.memory;
                 let weight = 1.0 / m as f64;
