@@ -78,6 +78,10 @@ pub type ProgressFn = Arc<dyn Fn(u64, u64) + Send + Sync>;
 struct Node {
     name: Arc<str>,
     block: Option<Box<dyn Block>>,
+    /// The block's output buffer, kept between steps (with the block while
+    /// it runs): a step's items then go into room the earlier steps grew
+    /// instead of a new vector grown item by item.
+    out: Outputs,
     inputs: Vec<Option<usize>>,
     /// (port, edge) of every wired input, in port order.
     wired: Vec<(usize, usize)>,
@@ -158,6 +162,7 @@ pub fn run_nodes(
         nodes.push(Node {
             name: Arc::from(s.name.as_str()),
             block: Some(s.block),
+            out: Outputs::new(s.outputs.len()),
             wired: s.inputs.iter().enumerate().filter_map(|(p, e)| e.map(|e| (p, e))).collect(),
             out_edges: s.outputs.iter().flatten().copied().collect(),
             inputs: s.inputs,
@@ -213,6 +218,7 @@ struct Claimed {
     idx: usize,
     step: Step,
     block: Box<dyn Block>,
+    out: Outputs,
 }
 
 fn lock(sh: &Shared) -> MutexGuard<'_, State> {
@@ -226,13 +232,11 @@ fn worker(sh: &Shared) {
     loop {
         let claimed;
         (st, claimed) = claim(sh, st, &mut batch, &mut spin_for);
-        let Some(Claimed { idx, step, mut block }) = claimed else {
+        let Some(Claimed { idx, step, mut block, mut out }) = claimed else {
             return;
         };
-        let n_out = st.nodes[idx].outputs.len();
         drop(st);
 
-        let mut out = Outputs::new(n_out);
         let t0 = Instant::now();
         let (result, items_in, samples_in) = run_step(block.as_mut(), step, &mut batch, &mut out);
         // Items left after a failure are dropped with the run.
@@ -249,6 +253,10 @@ fn worker(sh: &Shared) {
         let items_out = deliver(&mut st, idx, &mut out);
         let nd = &mut st.nodes[idx];
         nd.block = Some(block);
+        if !finished {
+            // A finished block's (often its largest) output buffer is freed now.
+            nd.out = out;
+        }
         nd.running = false;
         nd.stats.items_in += items_in;
         nd.stats.samples_in += samples_in;

@@ -208,13 +208,14 @@ pub(super) fn take_step(
 mod holding_back {
     use super::*;
     use crate::runtime::scheduler::BlockStats;
-    use lobeflow_blocks::{SampleChunk, Stamp};
+    use lobeflow_blocks::{Outputs, SampleChunk, Stamp};
     use std::sync::Arc;
 
     fn node(name: &str, wired: Vec<(usize, usize)>) -> Node {
         Node {
             name: Arc::from(name),
             block: None,
+            out: Outputs::new(0),
             inputs: wired.iter().map(|&(_, e)| Some(e)).collect(),
             wired,
             outputs: Vec::new(),

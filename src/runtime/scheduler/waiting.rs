@@ -3,7 +3,7 @@
 
 use super::picking::{WAKE_WORTH, helper_gain, pick};
 use super::{Claimed, Shared, State, StopReason, lock};
-use lobeflow_blocks::{BlockError, Item};
+use lobeflow_blocks::{BlockError, Item, Outputs};
 use std::sync::MutexGuard;
 use std::sync::atomic::Ordering;
 use std::time::{Duration, Instant};
@@ -48,13 +48,14 @@ pub(super) fn claim<'a>(
             let nd = &mut st.nodes[idx];
             nd.running = true;
             let block = nd.block.take().expect("a node not running holds its block");
+            let out = std::mem::replace(&mut nd.out, Outputs::new(0));
             st.running += 1;
             // More work than this worker takes, enough that sharing it
             // pays for the wake-up: wake a sleeping one.
             if st.idle > 0 && helper_gain(&st, idx, sh.capacity) >= WAKE_WORTH {
                 sh.wake.notify_one();
             }
-            return (st, Some(Claimed { idx, step, block }));
+            return (st, Some(Claimed { idx, step, block, out }));
         }
         if st.running == 0 {
             // Nothing can run and nothing is running: a scheduler bug.
