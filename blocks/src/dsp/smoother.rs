@@ -22,18 +22,8 @@ crate::block_choice! {
     }
 }
 
-impl Model {
-    fn dim(self) -> usize {
-        match self {
-            Model::ConstantVelocity => 2,
-            Model::ConstantAcceleration => 3,
-        }
-    }
-}
-
 type Mat<const N: usize> = [[f64; N]; N];
 type M3 = Mat<3>;
-type V3 = [f64; 3];
 
 /// One measurement: time (s), angle (deg), variance (deg^2); `None` angle =
 /// a time step without a usable measurement (smoothed, not updated).
@@ -53,14 +43,14 @@ pub struct Smoothed {
     pub outlier: bool,
 }
 
-/// Forward-pass record of one step.
+/// Forward-pass record of one step, on the model's `N` states.
 #[derive(Clone, Copy)]
-struct Forward {
-    x_pred: V3,
-    p_pred: M3,
-    x: V3,
-    p: M3,
-    f: M3,
+struct Forward<const N: usize> {
+    x_pred: [f64; N],
+    p_pred: Mat<N>,
+    x: [f64; N],
+    p: Mat<N>,
+    f: Mat<N>,
     outlier: bool,
 }
 
@@ -68,8 +58,11 @@ struct Forward {
 /// likely `q` of a grid when `q` is `None`; returns the results and the `q` used.
 pub fn smooth(data: &[Measurement], model: Model, q: Option<f64>, gate_sigmas: f64) -> (Vec<Smoothed>, f64) {
     let q = q.unwrap_or_else(|| most_likely_q(data, model, gate_sigmas));
-    let (fwd, _) = forward(data, model, q, gate_sigmas);
-    (backward(&fwd, model), q)
+    let smoothed = match model {
+        Model::ConstantVelocity => backward(&forward::<2>(data, model, q, gate_sigmas)),
+        Model::ConstantAcceleration => backward(&forward::<3>(data, model, q, gate_sigmas)),
+    };
+    (smoothed, q)
 }
 
 /// The grid value of `q` (1e-8 to 1e4, four per decade) whose forward pass
@@ -105,19 +98,17 @@ fn process_noise(model: Model, q: f64, dt: f64) -> M3 {
     }
 }
 
-/// The forward Kalman pass and its innovation log-likelihood (the first
-/// `dim` updates, which only fill the diffuse start, left out).
-fn forward(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> (Vec<Forward>, f64) {
+/// The forward Kalman pass's records, on the model's `N` states (two for
+/// constant velocity: the records of a long recording are half the size).
+fn forward<const N: usize>(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> Vec<Forward<N>> {
     let mut out = Vec::with_capacity(data.len());
-    let loglik = match model {
-        Model::ConstantVelocity => filter::<2>(data, model, q, gate_sigmas, Some(&mut out)),
-        Model::ConstantAcceleration => filter::<3>(data, model, q, gate_sigmas, Some(&mut out)),
-    };
-    (out, loglik)
+    filter::<N>(data, model, q, gate_sigmas, Some(&mut out));
+    out
 }
 
-/// The forward pass's log-likelihood alone: the `q` grid search runs the
-/// pass once per grid value, and keeping no records makes each run cheaper.
+/// The forward pass's innovation log-likelihood (the first `N` updates,
+/// which only fill the diffuse start, left out) and no records: the `q`
+/// grid search runs the pass once per grid value.
 fn likelihood(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> f64 {
     match model {
         Model::ConstantVelocity => filter::<2>(data, model, q, gate_sigmas, None),
@@ -126,7 +117,7 @@ fn likelihood(data: &[Measurement], model: Model, q: f64, gate_sigmas: f64) -> f
 }
 
 /// The forward Kalman filter on the model's `N` states, pushing each step's
-/// record (padded to three states) onto `keep` when given; returns the
+/// record onto `keep` when given; returns the
 /// innovation log-likelihood. One routine for both uses, so the grid search
 /// scores exactly the pass that is then kept. Working on `N` = 2 states for
 /// the constant-velocity model skips the products with the unused third
@@ -136,7 +127,7 @@ fn filter<const N: usize>(
     model: Model,
     q: f64,
     gate_sigmas: f64,
-    mut keep: Option<&mut Vec<Forward>>,
+    mut keep: Option<&mut Vec<Forward<N>>>,
 ) -> f64 {
     // Diffuse start: the first usable angle, any rate within ~100 deg/s.
     let first = data.iter().find_map(|m| m.z.map(|z| (z, m.r))).unwrap_or((0.0, 1.0));
@@ -174,14 +165,7 @@ fn filter<const N: usize>(
         x = x_new;
         p = p_new;
         if let Some(records) = keep.as_deref_mut() {
-            records.push(Forward {
-                x_pred: padded(&x_pred),
-                p_pred: padded_mat(&p_pred),
-                x: padded(&x),
-                p: padded_mat(&p),
-                f: padded_mat(&f),
-                outlier,
-            });
+            records.push(Forward { x_pred, p_pred, x, p, f, outlier });
         }
     }
     loglik
@@ -191,17 +175,8 @@ fn filter<const N: usize>(
 fn leading<const N: usize>(a: &M3) -> Mat<N> {
     std::array::from_fn(|i| std::array::from_fn(|j| a[i][j]))
 }
-/// `N` states padded with zeros to three.
-fn padded<const N: usize>(x: &[f64; N]) -> V3 {
-    std::array::from_fn(|i| if i < N { x[i] } else { 0.0 })
-}
-fn padded_mat<const N: usize>(a: &Mat<N>) -> M3 {
-    std::array::from_fn(|i| if i < N { padded(&a[i]) } else { [0.0; 3] })
-}
-
 /// The Rauch-Tung-Striebel pass over the forward records.
-fn backward(fwd: &[Forward], model: Model) -> Vec<Smoothed> {
-    let n = model.dim();
+fn backward<const N: usize>(fwd: &[Forward<N>]) -> Vec<Smoothed> {
     let mut out = vec![Smoothed { angle: f64::NAN, variance: f64::NAN, outlier: false }; fwd.len()];
     let Some(last) = fwd.last() else { return out };
     let (mut xs, mut ps) = (last.x, last.p);
@@ -209,13 +184,14 @@ fn backward(fwd: &[Forward], model: Model) -> Vec<Smoothed> {
     for k in (0..fwd.len() - 1).rev() {
         let (now, next) = (&fwd[k], &fwd[k + 1]);
         // C = P_k|k F' P_k+1|k^-1
-        let c = match invert(&next.p_pred, n) {
+        let c = match invert(&next.p_pred) {
             Some(inv) => mat_mul(&mat_mul(&now.p, &transpose(&next.f)), &inv),
-            None => [[0.0; 3]; 3],
+            None => [[0.0; N]; N],
         };
-        let dx = sub_v(&xs, &next.x_pred);
-        let dp = sub(&ps, &next.p_pred);
-        xs = add_v(&now.x, &mat_vec(&c, &dx));
+        let dx: [f64; N] = std::array::from_fn(|i| xs[i] - next.x_pred[i]);
+        let dp: Mat<N> = std::array::from_fn(|i| std::array::from_fn(|j| ps[i][j] - next.p_pred[i][j]));
+        let gain = mat_vec(&c, &dx);
+        xs = std::array::from_fn(|i| now.x[i] + gain[i]);
         ps = add(&now.p, &mat_mul(&mat_mul(&c, &dp), &transpose(&c)));
         out[k] = Smoothed { angle: xs[0], variance: ps[0][0].max(0.0), outlier: now.outlier };
     }
@@ -234,26 +210,18 @@ fn transpose<const N: usize>(a: &Mat<N>) -> Mat<N> {
 fn add<const N: usize>(a: &Mat<N>, b: &Mat<N>) -> Mat<N> {
     std::array::from_fn(|i| std::array::from_fn(|j| a[i][j] + b[i][j]))
 }
-fn sub(a: &M3, b: &M3) -> M3 {
-    [0, 1, 2].map(|i| [0, 1, 2].map(|j| a[i][j] - b[i][j]))
-}
-fn add_v(a: &V3, b: &V3) -> V3 {
-    [0, 1, 2].map(|i| a[i] + b[i])
-}
-fn sub_v(a: &V3, b: &V3) -> V3 {
-    [0, 1, 2].map(|i| a[i] - b[i])
-}
-
-/// Inverse of the leading `n` x `n` block (n = 2 or 3), zeros elsewhere.
-fn invert(a: &M3, n: usize) -> Option<M3> {
-    let mut inv = [[0.0; 3]; 3];
-    if n == 2 {
+/// Inverse of a 2 x 2 or 3 x 3 matrix; `None` when it is singular.
+fn invert<const N: usize>(a: &Mat<N>) -> Option<Mat<N>> {
+    let mut inv = [[0.0; N]; N];
+    if N == 2 {
         let det = a[0][0] * a[1][1] - a[0][1] * a[1][0];
         if det.abs() < 1e-300 || !det.is_finite() {
             return None;
         }
-        inv[0] = [a[1][1] / det, -a[0][1] / det, 0.0];
-        inv[1] = [-a[1][0] / det, a[0][0] / det, 0.0];
+        inv[0][0] = a[1][1] / det;
+        inv[0][1] = -a[0][1] / det;
+        inv[1][0] = -a[1][0] / det;
+        inv[1][1] = a[0][0] / det;
         return Some(inv);
     }
     let cof = |i: usize, j: usize| {
@@ -325,7 +293,7 @@ mod tests {
     #[test]
     fn three_by_three_inverse() {
         let a = [[4.0, 1.0, 0.5], [1.0, 3.0, 0.2], [0.5, 0.2, 2.0]];
-        let inv = invert(&a, 3).unwrap();
+        let inv = invert(&a).unwrap();
         let i = mat_mul(&a, &inv);
         for (r, row) in i.iter().enumerate() {
             for (c, v) in row.iter().enumerate() {

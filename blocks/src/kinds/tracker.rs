@@ -208,7 +208,9 @@ struct SmootherSetup {
     model: Model,
     /// None: the most likely value.
     q: Option<f64>,
-    held: Vec<AngleEstimate>,
+    /// Kept in the boxes they came in, handed on as they are: a long
+    /// recording's estimates then live once, not also as copies at the end.
+    held: Vec<Box<AngleEstimate>>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
 }
@@ -347,10 +349,9 @@ impl Tracker {
                 e.tracked_sigma_deg = Some(s.variance.sqrt());
             }
         }
-        for (e, k) in held.into_iter().zip(axis_of) {
-            let mut e = e;
+        for (mut e, k) in held.into_iter().zip(axis_of) {
             self.point(&mut e, k, out);
-            out.push(TrackerOut::Estimates, Item::Estimate(Box::new(e)));
+            out.push(TrackerOut::Estimates, Item::Estimate(e));
         }
         Ok(())
     }
@@ -360,7 +361,7 @@ impl Tracker {
     fn take(&mut self, mut e: Box<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
-            setup.held.push(*e);
+            setup.held.push(e);
             if setup.held.len() >= MAX_HELD {
                 self.flush_smoother(out)?;
             }
