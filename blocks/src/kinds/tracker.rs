@@ -210,6 +210,7 @@ struct SmootherSetup {
     q: Option<f64>,
     /// Kept in the boxes they came in, handed on as they are: a long
     /// recording's estimates then live once, not also as copies at the end.
+    #[allow(clippy::vec_box)]
     held: Vec<Box<AngleEstimate>>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
