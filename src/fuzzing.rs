@@ -130,7 +130,8 @@ pub fn manifest(data: &[u8]) -> Result<usize, String> {
 
 /// A synthesizer scenario: parsed, checked, and its first chunk generated.
 pub fn scenario(data: &[u8]) -> Result<usize, String> {
-    use crate::synth::generate::{Frames, Generator, Model};
+    use crate::synth::generate::{Frames, Generator};
+    use crate::synth::model::Model;
     let text = String::from_utf8_lossy(data).into_owned();
     let file = crate::synth::scenario::ScenarioFile::parse(&scratch().join("scenario.yaml"), text)?;
     let model = Model::from_file(&file)?;

@@ -1,15 +1,17 @@
 //! `lobeflow synth`: synthetic captures with known truth, from a scenario
-//! file (see [`scenario`] for the syntax, [`generate`] for the signal model).
+//! file (see [`scenario`] for the syntax, [`model`] for the signal model, [`generate`] for its samples).
 
 pub mod generate;
+pub mod model;
 pub(crate) mod scan;
 pub mod scenario;
 pub(crate) mod truth;
 
 use crate::capture::write::{CaptureWriter, WriterConfig, commit_staged};
 use crate::runtime::staging;
-use generate::{Frames, Generator, Model};
+use generate::{Frames, Generator};
 use lobeflow_blocks::{DeliveryPolicy, FileStager};
+use model::Model;
 use scenario::ScenarioFile;
 use std::path::{Path, PathBuf};
 

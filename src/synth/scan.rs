@@ -2,7 +2,7 @@
 //! puts the fixed source at the scenario's target offsets, written as
 //! `PREFIX.pointing.csv` (`time_s,az_deg,el_deg`).
 
-use super::generate::Model;
+use super::model::Model;
 use super::scenario::ScanSpec;
 use crate::calibrate::telemetry::antenna_frame_offset;
 use lobeflow_blocks::{FileStager, OutputFile};

@@ -3,7 +3,7 @@
 //! time in seconds from the first sample and the target at mid-dwell
 //! (range empty for beacons).
 
-use super::generate::{Model, Signal};
+use super::model::{Model, Signal};
 use lobeflow_blocks::FileStager;
 use std::io::Write;
 use std::path::Path;

@@ -6,7 +6,8 @@
 use lobeflow::capture::datatype::DataType;
 use lobeflow::capture::sigmf_meta::Annotation;
 use lobeflow::capture::write::{AuxRole, CaptureWriter, WriteFormat, WriterConfig};
-use lobeflow::synth::generate::{Frames, Generator, Model};
+use lobeflow::synth::generate::{Frames, Generator};
+use lobeflow::synth::model::Model;
 use lobeflow::synth::scenario::ScenarioFile;
 use lobeflow::synth::synthesize;
 use num_complex::Complex32;
