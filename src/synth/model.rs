@@ -16,7 +16,7 @@
 //!   amplitude uses the target position at mid-dwell.
 //!
 //! Every random draw tied to a pulse or dwell comes from its own seeded
-//! stream ([`sub_rng`]), so the output does not depend on the chunk size.
+//! stream (`sub_rng`), so the output does not depend on the chunk size.
 
 use super::scenario::{
     BeaconSpec, BeamKind, Degrees, Fluctuation, Metres, PhaseMode, PulsedSpec, Quantity, ScaleSpec, ScenarioFile,
