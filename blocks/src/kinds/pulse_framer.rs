@@ -409,6 +409,20 @@ impl PulseFramer {
         let mut leak_limit = self.leak_limit();
         let mut next = 0;
         while next < len {
+            if !by_trigger && self.rise.is_none() && start + next as u64 >= warm_end {
+                // In the hold-off after a transmit instant only the noise floor
+                // takes the samples (see [`Self::hold_off_end`]).
+                let until = (self.hold_off_end(holdoff, gap).saturating_sub(start).min(len as u64) as usize).max(next);
+                if until > next {
+                    if self.noise.push_all(&chunk.iq[next..until]) {
+                        leak_limit = self.leak_limit();
+                    }
+                    next = until;
+                    if next == len {
+                        break;
+                    }
+                }
+            }
             if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
                 // Between pulses: take the run of samples under the threshold in
                 // one go, up to where a missing pulse would be predicted.
@@ -474,6 +488,24 @@ impl PulseFramer {
                 self.instant(l + pri.round() as u64, true, out);
             }
         }
+    }
+
+    /// The locked mode: the first sample the framer must test again after the
+    /// last real transmit instant `r`. A sample before `r + holdoff` cannot
+    /// open a sweep, and no missing pulse is predicted before the gap; such a
+    /// sample only feeds the noise floor, and its being over the threshold
+    /// matters only to the edge test of the sample after it. So the samples
+    /// up to `r + holdoff - 1` (the hold-off's last, which the full test
+    /// takes) are left out of the test, and the floor computes only the
+    /// powers it keeps. This is no guess: whatever the capture holds there,
+    /// the full scan finds nothing either, so nothing is ever missed and no
+    /// periodic full check is needed. After a predicted instant the hold-off
+    /// of the last real one has long run out, so the full scan runs on
+    /// until a pulse is found again.
+    fn hold_off_end(&self, holdoff: u64, gap: u64) -> u64 {
+        let Some(r) = self.last_real else { return 0 };
+        let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
+        (r + holdoff).saturating_sub(1).min(gap_at)
     }
 
     /// Power over which a sample is transmit leakage (never, before the floor is known).
