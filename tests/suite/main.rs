@@ -10,6 +10,7 @@ mod cli;
 mod compressed_limit;
 mod csv_round_trip;
 mod end_to_end;
+mod front_end_surprises;
 mod external_block;
 mod graph_validation;
 mod graphs_and_regress;

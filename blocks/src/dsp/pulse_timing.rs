@@ -157,18 +157,6 @@ impl NoiseFloor {
         push_all(self, samples)
     }
 
-    /// Keep one finite reading's key (the stride's choice already made).
-    #[inline(always)]
-    fn keep_key(&mut self, key: i32) -> bool {
-        self.block[self.filled] = key;
-        self.filled += 1;
-        if self.filled == FLOOR_BLOCK {
-            self.close_block();
-            return true;
-        }
-        false
-    }
-
     /// Mean noise power per sample; 0 until a first block is complete.
     pub fn power(&self) -> f64 {
         self.floor
@@ -275,29 +263,34 @@ fn powers_surely_finite(run: &[Complex32; SPARSE_RUN]) -> bool {
 wide_vectors! {
 /// [`NoiseFloor::push_all`], built for the widest vectors the CPU has.
 fn push_all(floor: &mut NoiseFloor, samples: &[Complex32]) -> bool {
+    const GROUPS: usize = SPARSE_RUN / FLOOR_STRIDE;
     let mut moved = false;
     let mut taken = 0;
     while taken < samples.len() {
-        let run = samples[taken..].first_chunk::<SPARSE_RUN>();
-        match run {
-            Some(run) if floor.stride == FLOOR_STRIDE && powers_surely_finite(run) => {
-                // Eight finite readings are one whole stride: the phase stays
-                // where it is and the kept one is always at the same place.
-                let lane = (FLOOR_STRIDE - floor.phase) % FLOOR_STRIDE;
-                for group in run.chunks_exact(FLOOR_STRIDE) {
-                    moved |= floor.keep_key(total_order_key(group[lane].norm_sqr().to_bits() as i32));
+        if floor.stride == FLOOR_STRIDE {
+            // Eight finite readings are one whole stride: the phase stays
+            // where it is and the kept one is always at the same place.
+            let lane = (FLOOR_STRIDE - floor.phase) % FLOOR_STRIDE;
+            let mut filled = floor.filled;
+            while let Some(run) = samples[taken..].first_chunk::<SPARSE_RUN>()
+                && filled + GROUPS < FLOOR_BLOCK
+                && powers_surely_finite(run)
+            {
+                for (slot, group) in floor.block[filled..filled + GROUPS].iter_mut().zip(run.as_chunks::<FLOOR_STRIDE>().0) {
+                    *slot = total_order_key(group[lane].norm_sqr().to_bits() as i32);
                 }
+                filled += GROUPS;
                 taken += SPARSE_RUN;
             }
-            _ => {
-                // The first block, a run that may hold a non-finite power, or the tail.
-                let end = (taken + SPARSE_RUN).min(samples.len());
-                for x in &samples[taken..end] {
-                    moved |= floor.push(x.norm_sqr());
-                }
-                taken = end;
-            }
+            floor.filled = filled;
         }
+        // The first block, a block's last slots, a run that may hold a
+        // non-finite power, or the tail: one reading at a time.
+        let end = (taken + SPARSE_RUN).min(samples.len());
+        for x in &samples[taken..end] {
+            moved |= floor.push(x.norm_sqr());
+        }
+        taken = end;
     }
     moved
 }
