@@ -1,6 +1,16 @@
 //! `pulse_framer`: finds each transmit instant (trigger channel, transmit
 //! leakage in the IQ, or a known PRF) and cuts the stream into sweeps, one
 //! pulse repetition interval each, numbered, with missing pulses predicted.
+//!
+//! Locked mode (leakage timing): once a real transmit instant is found, the
+//! samples of its hold-off (`holdoff` of a PRI) are not tested for leakage,
+//! only handed to the noise floor, which computes just the powers it keeps.
+//! The test resumes at the hold-off's last sample and runs until the next
+//! pulse is found or a missing one is predicted. Nothing the full test could
+//! find is skipped (an instant inside the hold-off is never taken), so it
+//! needs no periodic full check and an early pulse, a missing pulse or a PRF
+//! change is found exactly when the full test finds it; after a predicted
+//! instant the full test runs on until a pulse is found again.
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::pulse_timing::{FLOOR_BLOCK, NoiseFloor};
