@@ -362,92 +362,12 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
     let rows = frames.as_chunks::<3>().0;
     iq.resize(rows.len(), Complex32::new(0.0, 0.0));
     sync.resize(rows.len(), 0.0);
-    let (done, finite) = split_iq_sync_vectors(frames, iq, sync);
+    let (done, finite) = split_iq_sync_by_fours(frames, iq, sync);
     for ((f, z), y) in rows[done..].iter().zip(&mut iq[done..]).zip(&mut sync[done..]) {
         *z = Complex32::new(f[0], f[1]);
         *y = f[2];
     }
     finite && all_finite(&frames[3 * done..])
-}
-
-/// The frames the CPU's widest vectors split: by eights with AVX2 (about
-/// 40 % fewer shuffles per frame), else by fours; then the same for the
-/// frames left. Returns the frames done and whether their values are all
-/// finite.
-fn split_iq_sync_vectors(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> (usize, bool) {
-    let (mut done, mut finite) = (0, true);
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // Calling a function built for AVX2 is unsafe only on a CPU without it.
-        #[allow(unsafe_code)]
-        // SAFETY: the CPU has AVX2, checked just above.
-        let by_eights = unsafe { split_iq_sync_by_eights(frames, iq, sync) };
-        (done, finite) = by_eights;
-    }
-    let (more, more_finite) = split_iq_sync_by_fours(&frames[3 * done..], &mut iq[done..], &mut sync[done..]);
-    (done + more, finite && more_finite)
-}
-
-/// Whole groups of eight (I, Q, sync) frames, as [`split_iq_sync_by_fours`]
-/// does by fours.
-#[cfg(target_arch = "x86_64")]
-#[allow(unsafe_code)] // AVX2 permutes
-#[target_feature(enable = "avx2")]
-fn split_iq_sync_by_eights(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> (usize, bool) {
-    use std::arch::x86_64::{
-        _mm256_add_ps, _mm256_blend_ps, _mm256_cmp_ps, _mm256_loadu_ps, _mm256_movemask_ps, _mm256_permutevar8x32_ps,
-        _mm256_setr_epi32, _mm256_setzero_ps, _mm256_storeu_ps, _mm256_sub_ps, _CMP_ORD_Q,
-    };
-    let groups = frames.as_chunks::<24>().0;
-    let iq8 = iq.as_chunks_mut::<8>().0;
-    let sync8 = sync.as_chunks_mut::<8>().0;
-    let mut done = 0;
-    // Lanes each output takes from a, b and c (0: a lane the blend drops).
-    let iq_low_a = _mm256_setr_epi32(0, 1, 3, 4, 6, 7, 0, 0);
-    let iq_low_b = _mm256_setr_epi32(0, 0, 0, 0, 0, 0, 1, 2);
-    let iq_high_b = _mm256_setr_epi32(4, 5, 7, 0, 0, 0, 0, 0);
-    let iq_high_c = _mm256_setr_epi32(0, 0, 0, 0, 2, 3, 5, 6);
-    let sync_a = _mm256_setr_epi32(2, 5, 0, 0, 0, 0, 0, 0);
-    let sync_b = _mm256_setr_epi32(0, 0, 0, 3, 6, 0, 0, 0);
-    let sync_c = _mm256_setr_epi32(0, 0, 0, 0, 0, 1, 4, 7);
-    // x - x is 0 for a finite x and NaN otherwise, as by fours.
-    let mut not_finite = _mm256_setzero_ps();
-    for ((g, z), y) in groups.iter().zip(iq8.iter_mut()).zip(sync8.iter_mut()) {
-        // SAFETY: each load reads eight of the group's 24 floats, each store
-        // writes eight floats of a [Complex32; 8] (sixteen floats, `Complex`
-        // is repr(C)) or of a [f32; 8].
-        unsafe {
-            // a = i0 q0 s0 i1 q1 s1 i2 q2, b = s2 i3 q3 s3 i4 q4 s4 i5,
-            // c = q5 s5 i6 q6 s6 i7 q7 s7
-            let a = _mm256_loadu_ps(g.as_ptr());
-            let b = _mm256_loadu_ps(g.as_ptr().add(8));
-            let c = _mm256_loadu_ps(g.as_ptr().add(16));
-            let low = _mm256_blend_ps::<0b1100_0000>(
-                _mm256_permutevar8x32_ps(a, iq_low_a),
-                _mm256_permutevar8x32_ps(b, iq_low_b),
-            );
-            let high = _mm256_blend_ps::<0b1111_1000>(
-                _mm256_permutevar8x32_ps(b, iq_high_b),
-                _mm256_permutevar8x32_ps(c, iq_high_c),
-            );
-            let s = _mm256_blend_ps::<0b1110_0000>(
-                _mm256_blend_ps::<0b0001_1100>(
-                    _mm256_permutevar8x32_ps(a, sync_a),
-                    _mm256_permutevar8x32_ps(b, sync_b),
-                ),
-                _mm256_permutevar8x32_ps(c, sync_c),
-            );
-            let out = z.as_mut_ptr().cast::<f32>();
-            _mm256_storeu_ps(out, low);
-            _mm256_storeu_ps(out.add(8), high);
-            _mm256_storeu_ps(y.as_mut_ptr(), s);
-            let sum = _mm256_add_ps(_mm256_add_ps(_mm256_sub_ps(a, a), _mm256_sub_ps(b, b)), _mm256_sub_ps(c, c));
-            not_finite = _mm256_add_ps(not_finite, sum);
-        }
-        done += 8;
-    }
-    let finite = _mm256_movemask_ps(_mm256_cmp_ps::<_CMP_ORD_Q>(not_finite, not_finite)) == 0xff;
-    (done, finite)
 }
 
 /// Whole groups of four (I, Q, sync) frames: the frames done and whether
@@ -539,28 +459,15 @@ mod tests {
     #[test]
     fn vector_split_matches_the_plain_loop() {
         // Distinct values, so any shuffle taking a wrong lane shows.
-        for n in [0usize, 1, 3, 4, 5, 7, 8, 9, 12, 15, 16, 17, 64, 1001] {
+        for n in [0usize, 1, 3, 4, 5, 7, 8, 9, 64, 1001] {
             let frames: Vec<f32> = (0..3 * n).map(|k| k as f32 + 0.25).collect();
             let (mut iq, mut sync) = (Vec::new(), Vec::new());
             assert!(split_iq_sync(&frames, &mut iq, &mut sync));
             let (mut iq2, mut sync2) = (Vec::new(), Vec::new());
             RoleMap::split::<3, 0, 1, 2, NONE>(&frames, &mut iq2, Some(&mut sync2), None);
-            assert_eq!((&iq, &sync), (&iq2, &sync2), "{n} frames");
-            // By fours alone, as on a CPU without AVX2.
-            let (mut iq4, mut sync4) = (vec![Complex32::new(0.0, 0.0); n], vec![0.0; n]);
-            let (done, finite) = split_iq_sync_by_fours(&frames, &mut iq4, &mut sync4);
-            assert!(finite && (done == n / 4 * 4 || cfg!(not(target_arch = "x86_64"))));
-            assert_eq!((&iq4[..done], &sync4[..done]), (&iq2[..done], &sync2[..done]), "{n} frames by fours");
+            assert_eq!((iq, sync), (iq2, sync2), "{n} frames");
         }
         // A bad value in the vector part (by fours) and in the tail, each kind.
-        // Every position of 35 frames: by eights, by fours and the tail.
-        for at in 0..105 {
-            for bad_value in [f32::NAN, f32::INFINITY, f32::NEG_INFINITY] {
-                let mut bad: Vec<f32> = (0..105).map(|k| k as f32).collect();
-                bad[at] = bad_value;
-                assert!(!split_iq_sync(&bad, &mut Vec::new(), &mut Vec::new()), "{bad_value} at {at}");
-            }
-        }
         for (at, bad_value) in [(13, f32::NAN), (2, f32::INFINITY), (23, f32::NEG_INFINITY), (28, f32::NAN)] {
             let mut bad: Vec<f32> = (0..30).map(|k| k as f32).collect();
             bad[at] = bad_value;
