@@ -9,7 +9,7 @@ use lobeflow::capture::reader::{OpenOptions, open};
 use lobeflow::capture::roles::{NonFinite, RoleMap};
 use lobeflow::capture::source::CaptureSource;
 use lobeflow_blocks::kinds::{pulse_framer, sweep_gate};
-use lobeflow_blocks::{BlockSpec, TypedBlock, BuildContext, Item, Notice, Outputs, Params, RawValue, Sweep};
+use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, Sweep, TypedBlock};
 use std::path::PathBuf;
 
 const CAPTURE: &str = "tests/independent/captures/front-end-surprises";
@@ -98,18 +98,18 @@ fn run(spec: &BlockSpec, set: &[(&str, &str)], items: Vec<Item>) -> (Vec<Sweep>,
     (sweeps, notices)
 }
 
-const FRAMER: [(&str, &str); 4] = [("prf", "4 kHz"), ("timing", "leakage"), ("threshold_db", "30 dB"), ("blank", "6 us")];
+const FRAMER: [(&str, &str); 4] =
+    [("prf", "4 kHz"), ("timing", "leakage"), ("threshold_db", "30 dB"), ("blank", "6 us")];
 
 #[test]
 fn the_framer_finds_every_surprise_after_a_regular_train() {
     let t = truth();
     // A missing pulse is predicted one nominal interval after the one before.
-    let want: Vec<(u64, bool)> = t
-        .tx
-        .iter()
-        .enumerate()
-        .map(|(k, &(n, sent))| if sent { (n, false) } else { (t.tx[k - 1].0 + PRI, true) })
-        .collect();
+    let want: Vec<(u64, bool)> =
+        t.tx.iter()
+            .enumerate()
+            .map(|(k, &(n, sent))| if sent { (n, false) } else { (t.tx[k - 1].0 + PRI, true) })
+            .collect();
     for chunk in [1000, 4096, 65536] {
         let (sweeps, notices) = run(&pulse_framer::SPEC, &FRAMER, chunks(chunk));
         let got: Vec<(u64, bool)> = sweeps.iter().map(|s| (s.stamp.index, s.predicted)).collect();
@@ -119,7 +119,11 @@ fn the_framer_finds_every_surprise_after_a_regular_train() {
         assert!(got.windows(2).any(|w| w == [(74827, false), (75027, false)]), "chunk {chunk}: the PRF change");
         assert_eq!(got, want, "chunk {chunk}");
         let missing: Vec<&str> = notices.iter().map(|n| n.what.as_str()).collect();
-        assert_eq!(missing, ["1 missing pulse(s) from sample 25137: predicted transmit instants inserted"], "chunk {chunk}");
+        assert_eq!(
+            missing,
+            ["1 missing pulse(s) from sample 25137: predicted transmit instants inserted"],
+            "chunk {chunk}"
+        );
     }
 }
 
