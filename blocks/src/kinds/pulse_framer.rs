@@ -420,17 +420,9 @@ impl PulseFramer {
         let mut next = 0;
         while next < len {
             if !by_trigger && self.rise.is_none() && start + next as u64 >= warm_end {
-                // In the hold-off after a transmit instant only the noise floor
-                // takes the samples (see [`Self::hold_off_end`]).
-                let until = (self.hold_off_end(holdoff, gap).saturating_sub(start).min(len as u64) as usize).max(next);
-                if until > next {
-                    if self.noise.push_all(&chunk.iq[next..until]) {
-                        leak_limit = self.leak_limit();
-                    }
-                    next = until;
-                    if next == len {
-                        break;
-                    }
+                next = self.pass_hold_off(&chunk.iq, start, next, (holdoff, gap), &mut leak_limit);
+                if next == len {
+                    break;
                 }
             }
             if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
@@ -498,6 +490,24 @@ impl PulseFramer {
                 self.instant(l + pri.round() as u64, true, out);
             }
         }
+    }
+
+    /// Hand the samples of `iq` (the first at `start`) from `next` up to the
+    /// hold-off's end to the noise floor only ([`Self::hold_off_end`]);
+    /// returns where the leakage test resumes.
+    fn pass_hold_off(
+        &mut self,
+        iq: &[Complex32],
+        start: u64,
+        next: usize,
+        (holdoff, gap): (u64, u64),
+        leak_limit: &mut f64,
+    ) -> usize {
+        let until = (self.hold_off_end(holdoff, gap).saturating_sub(start).min(iq.len() as u64) as usize).max(next);
+        if until > next && self.noise.push_all(&iq[next..until]) {
+            *leak_limit = self.leak_limit();
+        }
+        until
     }
 
     /// The locked mode: the first sample the framer must test again after the
