@@ -1,6 +1,6 @@
 //! The pulsed front end (framer and sweep gate) on a capture numpy wrote
 //! (tests/independent/make_front_end_surprises.py): after a hundred regular
-//! pulses, when the framer's locked mode is in force, a missing pulse, an
+//! pulses (the framer settled on a regular train), a missing pulse, an
 //! early pulse, a switch off schedule and a PRF change. Every transmit
 //! instant and every sweep's lobe must come out as the script wrote them,
 //! however the capture is cut into chunks.

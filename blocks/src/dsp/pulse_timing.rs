@@ -147,16 +147,6 @@ impl NoiseFloor {
         push_below(self, samples, limit)
     }
 
-    /// Push the powers |x|^2 of all `samples`, each exactly as [`Self::push`]
-    /// would, blocks completing on the way. Once the stride applies only the
-    /// kept powers are computed: where no component of a run reaches
-    /// [`FINITE_BOUND`], every power of the run is finite, so the stride
-    /// keeps one sample in each [`FLOOR_STRIDE`] at a place known in
-    /// advance. Returns whether the floor moved.
-    pub fn push_all(&mut self, samples: &[Complex32]) -> bool {
-        push_all(self, samples)
-    }
-
     /// Mean noise power per sample; 0 until a first block is complete.
     pub fn power(&self) -> f64 {
         self.floor
@@ -240,59 +230,6 @@ fn push_below(floor: &mut NoiseFloor, samples: &[Complex32], limit: f64) -> usiz
     floor.filled = filled;
     floor.phase = phase;
     taken
-}
-}
-
-/// Bit pattern of 2^63 (sign bit clear): a float32 component below it in
-/// magnitude squares to under 2^126, so the sum of two squares stays
-/// finite. Infinities and NaN lie above it.
-const FINITE_BOUND: u32 = 0x5f00_0000;
-
-/// Samples whose components are tested together in [`push_all`]: four strides.
-const SPARSE_RUN: usize = 4 * FLOOR_STRIDE;
-
-/// Whether every power |x|^2 of `run` is finite, by a bound on the
-/// components' magnitudes (integer maxima of their bits: branch-free, and no
-/// power computed).
-#[inline(always)]
-fn powers_surely_finite(run: &[Complex32; SPARSE_RUN]) -> bool {
-    let floats: &[f32; 2 * SPARSE_RUN] = bytemuck::cast_ref(run);
-    floats.iter().fold(0u32, |m, x| m.max(x.to_bits() & 0x7fff_ffff)) < FINITE_BOUND
-}
-
-wide_vectors! {
-/// [`NoiseFloor::push_all`], built for the widest vectors the CPU has.
-fn push_all(floor: &mut NoiseFloor, samples: &[Complex32]) -> bool {
-    const GROUPS: usize = SPARSE_RUN / FLOOR_STRIDE;
-    let mut moved = false;
-    let mut taken = 0;
-    while taken < samples.len() {
-        if floor.stride == FLOOR_STRIDE {
-            // Eight finite readings are one whole stride: the phase stays
-            // where it is and the kept one is always at the same place.
-            let lane = (FLOOR_STRIDE - floor.phase) % FLOOR_STRIDE;
-            let mut filled = floor.filled;
-            while let Some(run) = samples[taken..].first_chunk::<SPARSE_RUN>()
-                && filled + GROUPS < FLOOR_BLOCK
-                && powers_surely_finite(run)
-            {
-                for (slot, group) in floor.block[filled..filled + GROUPS].iter_mut().zip(run.as_chunks::<FLOOR_STRIDE>().0) {
-                    *slot = total_order_key(group[lane].norm_sqr().to_bits() as i32);
-                }
-                filled += GROUPS;
-                taken += SPARSE_RUN;
-            }
-            floor.filled = filled;
-        }
-        // The first block, a block's last slots, a run that may hold a
-        // non-finite power, or the tail: one reading at a time.
-        let end = (taken + SPARSE_RUN).min(samples.len());
-        for x in &samples[taken..end] {
-            moved |= floor.push(x.norm_sqr());
-        }
-        taken = end;
-    }
-    moved
 }
 }
 
@@ -394,42 +331,6 @@ mod tests {
             assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "sample {at}");
         }
         assert!(bulk.ready() && stops > 9);
-    }
-
-    #[test]
-    fn pushing_all_matches_single_pushes() {
-        // Runs of every kind: plain noise, a leakage pulse, components whose
-        // powers overflow to infinity although they are finite, NaN, and
-        // values just under the bound, fed in pieces of odd lengths so runs
-        // start at every phase.
-        let mut rng = Rng::new(33);
-        let samples: Vec<Complex32> = (0..(7 * FLOOR_STRIDE * FLOOR_BLOCK + 101))
-            .map(|n| match n % 977 {
-                0 => Complex32::new(f32::NAN, 1.0),
-                1 => Complex32::new(3e19, 0.0),
-                2 => Complex32::new(0.0, -2e19),
-                3 => Complex32::new(f32::from_bits(FINITE_BOUND).next_down(), 9.2e18),
-                4..=9 => Complex32::new(100.0, -40.0),
-                _ => rng.complex_gaussian(1.0),
-            })
-            .collect();
-        let (mut bulk, mut single) = (NoiseFloor::default(), NoiseFloor::default());
-        let (mut at, mut piece, mut moves) = (0, 1, 0);
-        while at < samples.len() {
-            let end = (at + piece).min(samples.len());
-            let moved = bulk.push_all(&samples[at..end]);
-            let mut moved_single = false;
-            for x in &samples[at..end] {
-                moved_single |= single.push(x.norm_sqr());
-            }
-            assert_eq!(moved, moved_single, "samples {at}..{end}");
-            assert_eq!((bulk.filled, bulk.phase, bulk.stride), (single.filled, single.phase, single.stride));
-            assert_eq!(bulk.power().to_bits(), single.power().to_bits(), "samples {at}..{end}");
-            moves += moved as usize;
-            at = end;
-            piece = piece * 7 % 1999 + 3;
-        }
-        assert!(bulk.ready() && moves > 5, "{moves}");
     }
 
     #[test]

@@ -1,16 +1,6 @@
 //! `pulse_framer`: finds each transmit instant (trigger channel, transmit
 //! leakage in the IQ, or a known PRF) and cuts the stream into sweeps, one
 //! pulse repetition interval each, numbered, with missing pulses predicted.
-//!
-//! Locked mode (leakage timing): once a real transmit instant is found, the
-//! samples of its hold-off (`holdoff` of a PRI) are not tested for leakage,
-//! only handed to the noise floor, which computes just the powers it keeps.
-//! The test resumes at the hold-off's last sample and runs until the next
-//! pulse is found or a missing one is predicted. Nothing the full test could
-//! find is skipped (an instant inside the hold-off is never taken), so it
-//! needs no periodic full check and an early pulse, a missing pulse or a PRF
-//! change is found exactly when the full test finds it; after a predicted
-//! instant the full test runs on until a pulse is found again.
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::pulse_timing::{FLOOR_BLOCK, NoiseFloor};
@@ -419,12 +409,6 @@ impl PulseFramer {
         let mut leak_limit = self.leak_limit();
         let mut next = 0;
         while next < len {
-            if !by_trigger && self.rise.is_none() && start + next as u64 >= warm_end {
-                next = self.pass_hold_off(&chunk.iq, start, next, (holdoff, gap), &mut leak_limit);
-                if next == len {
-                    break;
-                }
-            }
             if !by_trigger && !self.prev_above && self.rise.is_none() && start + next as u64 >= warm_end {
                 // Between pulses: take the run of samples under the threshold in
                 // one go, up to where a missing pulse would be predicted.
@@ -490,42 +474,6 @@ impl PulseFramer {
                 self.instant(l + pri.round() as u64, true, out);
             }
         }
-    }
-
-    /// Hand the samples of `iq` (the first at `start`) from `next` up to the
-    /// hold-off's end to the noise floor only ([`Self::hold_off_end`]);
-    /// returns where the leakage test resumes.
-    fn pass_hold_off(
-        &mut self,
-        iq: &[Complex32],
-        start: u64,
-        next: usize,
-        (holdoff, gap): (u64, u64),
-        leak_limit: &mut f64,
-    ) -> usize {
-        let until = (self.hold_off_end(holdoff, gap).saturating_sub(start).min(iq.len() as u64) as usize).max(next);
-        if until > next && self.noise.push_all(&iq[next..until]) {
-            *leak_limit = self.leak_limit();
-        }
-        until
-    }
-
-    /// The locked mode: the first sample the framer must test again after the
-    /// last real transmit instant `r`. A sample before `r + holdoff` cannot
-    /// open a sweep, and no missing pulse is predicted before the gap; such a
-    /// sample only feeds the noise floor, and its being over the threshold
-    /// matters only to the edge test of the sample after it. So the samples
-    /// up to `r + holdoff - 1` (the hold-off's last, which the full test
-    /// takes) are left out of the test, and the floor computes only the
-    /// powers it keeps. This is no guess: whatever the capture holds there,
-    /// the full scan finds nothing either, so nothing is ever missed and no
-    /// periodic full check is needed. After a predicted instant the hold-off
-    /// of the last real one has long run out, so the full scan runs on
-    /// until a pulse is found again.
-    fn hold_off_end(&self, holdoff: u64, gap: u64) -> u64 {
-        let Some(r) = self.last_real else { return 0 };
-        let gap_at = self.last.map_or(u64::MAX, |(l, _)| l + gap + 1);
-        (r + holdoff).saturating_sub(1).min(gap_at)
     }
 
     /// Power over which a sample is transmit leakage (never, before the floor is known).
