@@ -297,10 +297,21 @@ pub struct AngleEstimate {
 }
 
 /// A labelled row for table outputs and pictures (free-form numeric columns).
+///
+/// The named cells are shared: a row fanned out to several blocks, or
+/// repeated unchanged by its producer, is one allocation however many hold
+/// it. A row is never changed once made (build a new one instead).
 #[derive(Clone, Debug, PartialEq)]
 pub struct TableRow {
     pub stamp: Stamp,
-    pub fields: Vec<(Arc<str>, Cell)>,
+    pub fields: Arc<[(Arc<str>, Cell)]>,
+}
+
+impl TableRow {
+    /// The cell of the column `name`, if the row has one.
+    pub fn cell(&self, name: &str) -> Option<&Cell> {
+        self.fields.iter().find(|(n, _)| &**n == name).map(|(_, c)| c)
+    }
 }
 
 /// One cell of a [`TableRow`].

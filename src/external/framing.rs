@@ -335,7 +335,7 @@ pub fn build_item(
             used: h.u64("used")?,
         }),
         ItemKind::Estimate => Item::Estimate(Box::new(estimate_from(&h, stamp)?)),
-        ItemKind::Row => Item::Row(TableRow { stamp, fields: fields_from(&h)? }),
+        ItemKind::Row => Item::Row(TableRow { stamp, fields: fields_from(&h)?.into() }),
         ItemKind::Notice => Item::Notice(notice_from(&h, stamp)?),
         ItemKind::Extension(t) => return Err(format!("a program cannot send '{}' items", t.name)),
     })
@@ -476,7 +476,8 @@ mod tests {
                 (Arc::from("c"), Cell::Text(Arc::from("NaN"))),
                 (Arc::from("d"), Cell::Empty),
                 (Arc::from("e"), Cell::Num(f64::NEG_INFINITY)),
-            ],
+            ]
+            .into(),
         };
         match round_trip(Item::Row(row.clone())) {
             Item::Row(r) => assert_eq!(r, row),

@@ -165,6 +165,7 @@ impl TypedBlock for RangeGate {
             blank_reported: false,
             last_stamp: Stamp::new(0, 1.0),
             gate_fields: None,
+            last_gate_row: None,
         })
     }
 
@@ -300,6 +301,9 @@ pub struct RangeGate {
     last_stamp: Stamp,
     /// [`GATE_FIELDS`] as shared names, once the first row is made.
     gate_fields: Option<[Arc<str>; 5]>,
+    /// The cells of the last `gates` row: an unchanged gate (most dwells)
+    /// hands on the same shared cells instead of new ones.
+    last_gate_row: Option<Arc<[(Arc<str>, Cell)]>>,
 }
 
 impl RangeGate {
@@ -549,8 +553,21 @@ impl RangeGate {
             metres(noise.end as f64),
             metres(geo.pulse_samples),
         ];
-        let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
-        let fields = names.iter().cloned().zip(cells).collect();
+        // Bit for bit, so a row is shared only where a new one would be the same.
+        let same = |a: &Cell, b: &Cell| matches!((a, b), (Cell::Num(x), Cell::Num(y)) if x.to_bits() == y.to_bits());
+        let unchanged = self
+            .last_gate_row
+            .as_ref()
+            .filter(|last| last.len() == cells.len() && last.iter().zip(&cells).all(|((_, a), b)| same(a, b)));
+        let fields = match unchanged {
+            Some(last) => Arc::clone(last),
+            None => {
+                let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
+                let fields: Arc<[(Arc<str>, Cell)]> = names.iter().cloned().zip(cells).collect();
+                self.last_gate_row = Some(Arc::clone(&fields));
+                fields
+            }
+        };
         out.push(RangeGateOut::Gates, Item::Row(TableRow { stamp: at, fields }));
     }
 

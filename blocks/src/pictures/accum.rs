@@ -75,6 +75,10 @@ pub struct SweepAverage {
     pub window: BinWindow,
     power: Vec<f64>,
     counts: Vec<u64>,
+    /// Plain mean: sweeps that reached every bin of the window. They are
+    /// counted here once instead of in each bin of `counts` (which then
+    /// holds only the sweeps that fell short), so a whole sweep costs one pass.
+    whole: u64,
     memory: u64,
     pub sweeps: u64,
     pub first_stamp: Stamp,
@@ -86,6 +90,7 @@ impl SweepAverage {
             window,
             power: vec![0.0; window.len],
             counts: vec![0; window.len],
+            whole: 0,
             memory,
             sweeps: 0,
             first_stamp,
@@ -114,8 +119,12 @@ impl SweepAverage {
                 for (p, x) in power.iter_mut().zip(src) {
                     *p += f64::from(x.norm_sqr());
                 }
-                for c in counts.iter_mut() {
-                    *c += 1;
+                if src.len() == self.window.len {
+                    self.whole += 1;
+                } else {
+                    for c in counts.iter_mut() {
+                        *c += 1;
+                    }
                 }
             } else {
                 let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
@@ -137,7 +146,9 @@ impl SweepAverage {
     /// Mean (or exponentially averaged) power of window bin `k`.
     pub fn power_at(&self, k: usize) -> Option<f64> {
         match (self.counts.get(k), self.power.get(k)) {
-            (Some(&c), Some(&p)) if c > 0 => Some(if self.memory == 0 { p / c as f64 } else { p }),
+            (Some(&c), Some(&p)) if c + self.whole > 0 => {
+                Some(if self.memory == 0 { p / (c + self.whole) as f64 } else { p })
+            }
             _ => None,
         }
     }
@@ -348,10 +359,8 @@ impl GateReport {
     /// naming the missing one.
     pub fn take(&mut self, row: &crate::TableRow) -> Result<(), BlockError> {
         let field = |name: &str| -> Result<f64, BlockError> {
-            row.fields
-                .iter()
-                .find(|(n, _)| &**n == name)
-                .and_then(|(_, c)| match c {
+            row.cell(name)
+                .and_then(|c| match c {
                     crate::Cell::Num(v) if v.is_finite() => Some(*v),
                     _ => None,
                 })

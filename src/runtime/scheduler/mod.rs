@@ -33,7 +33,7 @@ mod step;
 mod waiting;
 
 use lobeflow_blocks::{Block, BlockError, Item, Notice, Outputs};
-use picking::{MAX_BATCH, downstream_first};
+use picking::{BURST_BOUNDS, MAX_BATCH, downstream_first};
 use std::collections::VecDeque;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, Condvar, Mutex, MutexGuard};
@@ -88,6 +88,10 @@ struct Node {
     outputs: Vec<Vec<usize>>,
     /// Every edge any output feeds.
     out_edges: Vec<usize>,
+    /// Items made but not queued yet, (port, item) in order: a burst waits
+    /// here, shared by the wires it goes to, and the block does not run
+    /// again before they are all queued (`step::forward_pending`).
+    pending: VecDeque<(usize, Item)>,
     running: bool,
     done: bool,
     /// Recent time per step (moving average); None before the first step.
@@ -100,6 +104,8 @@ struct Edge {
     closed: bool,
     /// The node that reads this wire.
     consumer: usize,
+    /// The node that writes it.
+    producer: usize,
     /// The consumer has all it needs (`Block::wants_input` turned false):
     /// items for it are dropped instead of queued.
     unwanted: bool,
@@ -135,6 +141,8 @@ struct Shared {
     threads: usize,
     cancel: Arc<AtomicBool>,
     capacity: usize,
+    /// Items a wire may hold before its producer's further items wait with it.
+    burst_limit: usize,
     progress: Option<ProgressFn>,
 }
 
@@ -165,6 +173,7 @@ pub fn run_nodes(
             out: Outputs::new(s.outputs.len()),
             wired: s.inputs.iter().enumerate().filter_map(|(p, e)| e.map(|e| (p, e))).collect(),
             out_edges: s.outputs.iter().flatten().copied().collect(),
+            pending: VecDeque::new(),
             inputs: s.inputs,
             outputs: s.outputs,
             running: false,
@@ -175,11 +184,20 @@ pub fn run_nodes(
     }
     let order = downstream_first(&nodes, edge_count);
     let mut edges: Vec<Edge> = (0..edge_count)
-        .map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false })
+        .map(|_| Edge {
+            queue: VecDeque::new(),
+            closed: false,
+            consumer: usize::MAX,
+            producer: usize::MAX,
+            unwanted: false,
+        })
         .collect();
     for (i, nd) in nodes.iter().enumerate() {
         for &(_, e) in &nd.wired {
             edges[e].consumer = i;
+        }
+        for &e in &nd.out_edges {
+            edges[e].producer = i;
         }
     }
     let shared = Arc::new(Shared {
@@ -189,6 +207,7 @@ pub fn run_nodes(
         threads: threads.max(1),
         cancel,
         capacity: capacity.max(1),
+        burst_limit: capacity.max(1) * BURST_BOUNDS,
         progress,
     });
     let workers: Vec<_> = (0..threads.max(1))
@@ -250,7 +269,7 @@ fn worker(sh: &Shared) {
             fail(&mut st, idx, error);
             false
         });
-        let items_out = deliver(&mut st, idx, &mut out);
+        let items_out = deliver(&mut st, idx, &mut out, sh.burst_limit);
         let nd = &mut st.nodes[idx];
         nd.block = Some(block);
         if !finished {
@@ -266,13 +285,16 @@ fn worker(sh: &Shared) {
         st.running -= 1;
         sh.changes.fetch_add(1, Ordering::Release);
         if satisfied {
-            stop_feeding(&mut st, idx);
+            stop_feeding(&mut st, idx, sh.burst_limit);
         }
         if finished {
             let State { nodes, edges, .. } = &mut *st;
             nodes[idx].done = true;
-            for &e in &nodes[idx].out_edges {
-                edges[e].closed = true;
+            // Wires end once the items held back are queued too.
+            if nodes[idx].pending.is_empty() {
+                for &e in &nodes[idx].out_edges {
+                    edges[e].closed = true;
+                }
             }
             st.done += 1;
         }

@@ -2,8 +2,9 @@
 //! the lock: its items queued on the wires out, its notices kept, a satisfied
 //! block's inputs dropped, a failure recorded.
 
-use super::{State, Step, StopReason};
+use super::{Edge, Node, State, Step, StopReason};
 use lobeflow_blocks::{Block, BlockError, Item, Outputs};
+use std::collections::VecDeque;
 use std::panic::{AssertUnwindSafe, catch_unwind};
 use std::sync::Arc;
 
@@ -46,40 +47,109 @@ pub(super) fn run_step(
 
 /// Queue the items of one step on the wires out of block `idx` (not on
 /// those whose consumer wants no more) and collect its notices; returns how
-/// many items it produced.
-pub(super) fn deliver(st: &mut State, idx: usize, out: &mut Outputs) -> u64 {
+/// many items it produced. A step whose items would fill a wire past
+/// `limit` (a burst: a smoother handing on a whole recording's estimates
+/// at its end) keeps them with the block, in one copy however many wires
+/// they go to, and they are queued as the consumers take them
+/// ([`forward_pending`]).
+pub(super) fn deliver(st: &mut State, idx: usize, out: &mut Outputs, limit: usize) -> u64 {
     let State { nodes, edges, notices, .. } = st;
-    let nd = &nodes[idx];
-    let mut items_out = 0;
-    for (port, item) in out.drain() {
-        let targets = &nd.outputs[port];
-        let last = targets.iter().rposition(|&e| !edges[e].unwanted);
-        if let Some(last) = last {
-            for &e in &targets[..last] {
-                if !edges[e].unwanted {
-                    edges[e].queue.push_back(item.clone());
-                }
-            }
-            edges[targets[last]].queue.push_back(item);
+    let nd = &mut nodes[idx];
+    let items_out = out.len() as u64;
+    let fits = nd.pending.is_empty() && nd.out_edges.iter().all(|&e| edges[e].queue.len() + out.len() <= limit);
+    if fits {
+        for (port, item) in out.drain() {
+            queue_on(&nd.outputs[port], edges, item);
         }
-        items_out += 1;
+    } else {
+        let burst = out.take_items();
+        if nd.pending.is_empty() {
+            nd.pending = VecDeque::from(burst);
+        } else {
+            nd.pending.extend(burst);
+        }
+        forward_pending(nodes, edges, idx, Some(limit));
     }
     for mut n in out.drain_notices() {
-        n.block = Arc::clone(&nd.name);
+        n.block = Arc::clone(&nodes[idx].name);
         notices.push(n);
     }
     items_out
 }
 
+/// Put `item` on every wire of `targets` whose consumer still wants it:
+/// a clone each but the last, which takes the item itself.
+fn queue_on(targets: &[usize], edges: &mut [Edge], item: Item) {
+    let Some(last) = targets.iter().rposition(|&e| !edges[e].unwanted) else { return };
+    for &e in &targets[..last] {
+        if !edges[e].unwanted {
+            edges[e].queue.push_back(item.clone());
+        }
+    }
+    edges[targets[last]].queue.push_back(item);
+}
+
+/// Queue the items block `p` holds back, in order, while every wire an
+/// item goes to holds fewer than `limit` (all of them with no limit: the
+/// stall breaker's way back to queueing everything at once). A finished
+/// block's wires end once it holds nothing more.
+pub(super) fn forward_pending(nodes: &mut [Node], edges: &mut [Edge], p: usize, limit: Option<usize>) {
+    let nd = &mut nodes[p];
+    while let Some(&(port, _)) = nd.pending.front() {
+        let targets = &nd.outputs[port];
+        if let Some(limit) = limit
+            && targets.iter().any(|&e| !edges[e].unwanted && edges[e].queue.len() >= limit)
+        {
+            return;
+        }
+        let Some((_, item)) = nd.pending.pop_front() else { break };
+        queue_on(targets, edges, item);
+    }
+    // The burst's buffer is freed now, not at the end of the run.
+    nd.pending = VecDeque::new();
+    if nd.done {
+        for &e in &nd.out_edges {
+            edges[e].closed = true;
+        }
+    }
+}
+
+/// After block `idx` took items: queue what the blocks feeding it hold back.
+pub(super) fn forward_to(st: &mut State, idx: usize, limit: usize) {
+    let State { nodes, edges, .. } = st;
+    for k in 0..nodes[idx].wired.len() {
+        let producer = edges[nodes[idx].wired[k].1].producer;
+        if !nodes[producer].pending.is_empty() {
+            forward_pending(nodes, edges, producer, Some(limit));
+        }
+    }
+}
+
+/// Queue everything every block holds back (nothing can run otherwise);
+/// whether there was anything.
+pub(super) fn forward_all(st: &mut State) -> bool {
+    let State { nodes, edges, .. } = st;
+    let mut any = false;
+    for p in 0..nodes.len() {
+        if !nodes[p].pending.is_empty() {
+            forward_pending(nodes, edges, p, None);
+            any = true;
+        }
+    }
+    any
+}
+
 /// Stop feeding block `idx`, which has what it needs; it still finishes
 /// when its inputs end. Which items it saw depends only on its own
 /// processing, so outputs stay independent of timing.
-pub(super) fn stop_feeding(st: &mut State, idx: usize) {
+pub(super) fn stop_feeding(st: &mut State, idx: usize, limit: usize) {
     let State { nodes, edges, .. } = st;
     for &(_, e) in &nodes[idx].wired {
         edges[e].unwanted = true;
         edges[e].queue.clear();
     }
+    // Items held back for this block alone need not wait any more.
+    forward_to(st, idx, limit);
 }
 
 pub(super) fn fail(st: &mut State, idx: usize, error: BlockError) {
