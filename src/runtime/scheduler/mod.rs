@@ -373,6 +373,68 @@ mod tests {
         boxed(Ticks { next: 0, count, step, rate })
     }
 
+    block_ports! { outputs enum BurstOut { Early = optional("early", ItemKind::Samples, "even samples"), Late = optional("late", ItemKind::Samples, "odd samples") } }
+
+    /// Emits `count` one-sample chunks at once, the even-numbered on port
+    /// `early` first, then the odd-numbered on `late`.
+    struct Burst {
+        count: u64,
+    }
+    impl TypedBlock for Burst {
+        type Settings = ();
+        type In = NoPorts;
+        type Out = BurstOut;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            crate::runtime::attached_by_run()
+        }
+        fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+            for (port, first) in [(BurstOut::Early, 0), (BurstOut::Late, 1)] {
+                for k in (first..self.count).step_by(2) {
+                    let item = SampleChunk { stamp: Stamp::new(k, 1.0), iq: vec![].into(), sync: None, trigger: None };
+                    out.push(port, Item::Samples(item));
+                }
+            }
+            Ok(false)
+        }
+    }
+
+    #[test]
+    fn a_burst_reaches_every_reader_in_order_and_a_merge_of_its_ports_does_not_stall() {
+        // Port `early` feeds a merge and two plain readers, `late` the merge's
+        // second input: the merge needs items the burst holds behind a full wire.
+        let count = 3000;
+        for threads in [1, 2] {
+            for capacity in [1, 4] {
+                let logs: Vec<_> = (0..3).map(|_| Arc::new(Mutex::new(Vec::new()))).collect();
+                let reader = |log: &Arc<Mutex<Vec<(usize, u64)>>>, inputs| NodeSetup {
+                    name: "reader".into(),
+                    kind: "recorder".into(),
+                    block: boxed(Recorder(Arc::clone(log))),
+                    inputs,
+                    outputs: vec![],
+                };
+                let setups = vec![
+                    NodeSetup {
+                        name: "burst".into(),
+                        kind: "burst".into(),
+                        block: boxed(Burst { count }),
+                        inputs: vec![],
+                        outputs: vec![vec![0, 1, 2], vec![3]],
+                    },
+                    reader(&logs[0], vec![Some(0), Some(3)]),
+                    reader(&logs[1], vec![Some(1), None]),
+                    reader(&logs[2], vec![Some(2), None]),
+                ];
+                let outcome = run_nodes(setups, 4, threads, capacity, Arc::new(AtomicBool::new(false)), None);
+                assert!(outcome.stop.is_none(), "threads {threads}, capacity {capacity}");
+                let merged: Vec<(usize, u64)> = (0..count).map(|k| ((k % 2) as usize, k)).collect();
+                let early: Vec<(usize, u64)> = (0..count).step_by(2).map(|k| (0, k)).collect();
+                assert!(*logs[0].lock().expect("log") == merged, "threads {threads}, capacity {capacity}");
+                assert!(*logs[1].lock().expect("log") == early && *logs[2].lock().expect("log") == early);
+            }
+        }
+    }
+
     #[test]
     fn batched_merge_keeps_time_order_for_any_thread_count_and_capacity() {
         // Port 0 ticks every 3 samples at 1 kS/s, port 1 every 4 samples at

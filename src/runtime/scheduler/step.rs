@@ -158,3 +158,100 @@ pub(super) fn fail(st: &mut State, idx: usize, error: BlockError) {
         st.stop = Some(StopReason::Failed { block: nd.name.to_string(), kind: nd.stats.kind.clone(), error });
     }
 }
+
+#[cfg(test)]
+mod bursts {
+    use super::*;
+    use crate::runtime::scheduler::BlockStats;
+    use lobeflow_blocks::{InstancePort, SampleChunk, Stamp};
+
+    fn chunk(index: u64) -> Item {
+        Item::Samples(SampleChunk { stamp: Stamp::new(index, 1.0), iq: vec![].into(), sync: None, trigger: None })
+    }
+
+    /// Node 0 writes its one port to wires 0, 1 and 2; nodes 1 to 3 read one each.
+    fn fan_out_of_three() -> State {
+        let node = |wired: Vec<(usize, usize)>, outputs: Vec<Vec<usize>>| Node {
+            name: Arc::from("n"),
+            block: None,
+            out: Outputs::new(outputs.len()),
+            inputs: wired.iter().map(|&(_, e)| Some(e)).collect(),
+            out_edges: outputs.iter().flatten().copied().collect(),
+            wired,
+            outputs,
+            pending: VecDeque::new(),
+            running: false,
+            done: false,
+            step_cost: None,
+            stats: BlockStats::default(),
+        };
+        let edge = |consumer| Edge { queue: VecDeque::new(), closed: false, consumer, producer: 0, unwanted: false };
+        State {
+            nodes: vec![
+                node(vec![], vec![vec![0, 1, 2]]),
+                node(vec![(0, 0)], vec![]),
+                node(vec![(0, 1)], vec![]),
+                node(vec![(0, 2)], vec![]),
+            ],
+            edges: vec![edge(1), edge(2), edge(3)],
+            order: vec![1, 2, 3, 0],
+            running: 0,
+            idle: 0,
+            done: 0,
+            stop: None,
+            notices: Vec::new(),
+        }
+    }
+
+    fn queued(st: &State) -> Vec<usize> {
+        st.edges.iter().map(|e| e.queue.len()).collect()
+    }
+
+    #[test]
+    fn a_burst_waits_with_its_producer_and_moves_as_the_slowest_wire_drains() {
+        let mut st = fan_out_of_three();
+        let mut out = Outputs::new(1);
+        for k in 0..1000 {
+            out.push(InstancePort(0), chunk(k));
+        }
+        assert_eq!(deliver(&mut st, 0, &mut out, 100), 1000);
+        assert_eq!((queued(&st), st.nodes[0].pending.len()), (vec![100, 100, 100], 900));
+        // One wire drained: the others are still full, so nothing moves.
+        st.edges[0].queue.drain(..60);
+        forward_to(&mut st, 1, 100);
+        assert_eq!(queued(&st), [40, 100, 100]);
+        // Every wire with room: items move, each wire in order.
+        st.edges[1].queue.drain(..60);
+        st.edges[2].queue.drain(..30);
+        forward_to(&mut st, 3, 100);
+        assert_eq!((queued(&st), st.nodes[0].pending.len()), (vec![70, 70, 100], 870));
+        assert_eq!(st.edges[0].queue.back().map(|i| i.stamp().index), Some(129));
+        assert_eq!(st.edges[2].queue.front().map(|i| i.stamp().index), Some(30));
+        // A finished producer's wires end only once it holds nothing more.
+        st.nodes[0].done = true;
+        assert!(!st.edges.iter().any(|e| e.closed));
+        assert!(forward_all(&mut st));
+        assert_eq!((queued(&st), st.nodes[0].pending.capacity()), (vec![940, 940, 970], 0));
+        assert!(st.edges.iter().all(|e| e.closed));
+        assert!(!forward_all(&mut st));
+    }
+
+    #[test]
+    fn a_wire_whose_reader_has_enough_does_not_hold_a_burst_back() {
+        let mut st = fan_out_of_three();
+        let mut out = Outputs::new(1);
+        for k in 0..300 {
+            out.push(InstancePort(0), chunk(k));
+        }
+        deliver(&mut st, 0, &mut out, 100);
+        st.edges[0].queue.drain(..);
+        st.edges[1].queue.drain(..);
+        stop_feeding(&mut st, 3, 100);
+        assert_eq!((queued(&st), st.nodes[0].pending.len()), (vec![100, 100, 0], 100));
+        // Small steps go straight onto the wires.
+        let mut st = fan_out_of_three();
+        out.push(InstancePort(0), chunk(0));
+        deliver(&mut st, 0, &mut out, 100);
+        assert_eq!((queued(&st), st.nodes[0].pending.len()), (vec![1, 1, 1], 0));
+    }
+}
