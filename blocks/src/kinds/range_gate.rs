@@ -34,7 +34,7 @@ crate::block_ports! {
         Gates = optional(
             "gates",
             ItemKind::Row,
-            "the gate in use, a row per dwell: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
+            "the gate in use, a row at the first dwell of each lobe cycle and at any dwell where it changed: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
         ),
     }
 }
@@ -326,7 +326,8 @@ impl RangeGate {
 
     /// A new dwell begins with `tag`: apply acquisition / follow results at
     /// the start of a lobe cycle so both lobes of a pair share one gate.
-    fn open_dwell(&mut self, tag: &LobeTag, geo: &Geometry, at: Stamp, out: &mut Outputs) {
+    /// Returns whether the dwell begins a lobe cycle.
+    fn open_dwell(&mut self, tag: &LobeTag, geo: &Geometry, at: Stamp, out: &mut Outputs) -> bool {
         let cycle_start = self.last_lobe.is_none_or(|l| tag.lobe <= l);
         self.last_lobe = Some(tag.lobe);
         if cycle_start {
@@ -371,6 +372,7 @@ impl RangeGate {
             acq.dwells += 1;
         }
         self.current = Some(Current { tag: tag.clone(), sums });
+        cycle_start
     }
 
     fn add_sweep(&mut self, sweep: &Sweep, geo: &Geometry, out: &mut Outputs) {
@@ -537,11 +539,14 @@ const GATE_FIELDS: [&str; 5] = ["gate_start_m", "gate_end_m", "noise_start_m", "
 
 impl RangeGate {
     /// Put the gate and noise region in use on the `gates` port, in metres
-    /// from the transmit instant. A row per dwell, not only when the gate
+    /// from the transmit instant: at the first dwell of each lobe cycle
+    /// (where a gate may move) and at any other dwell where a cell changed
+    /// (the noise region follows the sweep length), so every change is told
+    /// and consecutive rows repeat only once a cycle. Not only when the gate
     /// moves: a picture merges these rows by time with sweeps, and a merge
     /// waits for every open input, so rows that rarely come stalled the
     /// whole graph (the short budget capture ran 2x slower).
-    fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, out: &mut Outputs) {
+    fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, cycle_start: bool, out: &mut Outputs) {
         let Some(start) = self.gate_start else { return };
         let noise = geo.noise_range(sweep_len);
         let bin_m = range_bin_m(geo.rate);
@@ -560,6 +565,7 @@ impl RangeGate {
             .as_ref()
             .filter(|last| last.len() == cells.len() && last.iter().zip(&cells).all(|((_, a), b)| same(a, b)));
         let fields = match unchanged {
+            Some(_) if !cycle_start => return,
             Some(last) => Arc::clone(last),
             None => {
                 let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
@@ -584,8 +590,8 @@ impl RangeGate {
         let same_dwell = self.current.as_ref().is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
         if !same_dwell {
             self.close_dwell(out);
-            self.open_dwell(tag, &geo, sweep.stamp, out);
-            self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, out);
+            let cycle_start = self.open_dwell(tag, &geo, sweep.stamp, out);
+            self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, cycle_start, out);
         }
         self.add_sweep(&sweep, &geo, out);
         Ok(())
