@@ -404,14 +404,17 @@ impl Severity {
 ///
 /// Items are moved through queues millions of times a run; the rarer large
 /// kinds are boxed so an item stays within 128 bytes, which the compiler
-/// moves inline instead of calling `memcpy`.
+/// moves inline instead of calling `memcpy`. Estimates are shared rather
+/// than boxed: several blocks usually read each one (a table, pictures, the
+/// run's page), and a block that changes one (a tracker) copies it only
+/// while another still holds it (`Arc::make_mut`).
 #[derive(Clone, Debug)]
 pub enum Item {
     Samples(SampleChunk),
     Sweep(Sweep),
     Segment(Box<LobeSegment>),
     Dwell(DwellRecord),
-    Estimate(Box<AngleEstimate>),
+    Estimate(Arc<AngleEstimate>),
     Row(TableRow),
     Notice(Notice),
     /// An item of a kind defined outside this crate.

@@ -66,7 +66,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         tracked_sigma_deg: None,
         absolute_deg: None,
     };
-    vec![(0, Item::Estimate(Box::new(a))), (0, Item::Estimate(Box::new(b)))]
+    vec![(0, Item::Estimate(Arc::new(a))), (0, Item::Estimate(Arc::new(b)))]
 }
 
 #[test]
