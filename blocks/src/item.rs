@@ -304,8 +304,11 @@ pub struct AngleEstimate {
 #[derive(Clone, Debug, PartialEq)]
 pub struct TableRow {
     pub stamp: Stamp,
-    pub fields: Arc<[(Arc<str>, Cell)]>,
+    pub fields: RowCells,
 }
+
+/// The named cells of a [`TableRow`], shared.
+pub type RowCells = Arc<[(Arc<str>, Cell)]>;
 
 impl TableRow {
     /// The cell of the column `name`, if the row has one.

@@ -7,7 +7,7 @@ use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::gate::{AmplitudeFrom, DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
-use crate::item::{Cell, DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep, TableRow};
+use crate::item::{Cell, DwellRecord, Item, ItemKind, LobeTag, RowCells, Stamp, Sweep, TableRow};
 use crate::param::{ParamType, Unit, range_bin_m};
 use crate::typed::{DistanceSetting, TimeSetting, TypedBlock};
 use std::collections::BTreeMap;
@@ -303,7 +303,7 @@ pub struct RangeGate {
     gate_fields: Option<[Arc<str>; 5]>,
     /// The cells of the last `gates` row: an unchanged gate (most dwells)
     /// hands on the same shared cells instead of new ones.
-    last_gate_row: Option<Arc<[(Arc<str>, Cell)]>>,
+    last_gate_row: Option<RowCells>,
 }
 
 impl RangeGate {
@@ -569,7 +569,7 @@ impl RangeGate {
             Some(last) => Arc::clone(last),
             None => {
                 let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
-                let fields: Arc<[(Arc<str>, Cell)]> = names.iter().cloned().zip(cells).collect();
+                let fields: RowCells = names.iter().cloned().zip(cells).collect();
                 self.last_gate_row = Some(Arc::clone(&fields));
                 fields
             }

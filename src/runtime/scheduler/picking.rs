@@ -237,7 +237,13 @@ mod holding_back {
     fn edge(len: usize, closed: bool, consumer: usize) -> Edge {
         let item =
             Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
-        Edge { queue: std::iter::repeat_n(item, len).collect(), closed, consumer, producer: usize::MAX, unwanted: false }
+        Edge {
+            queue: std::iter::repeat_n(item, len).collect(),
+            closed,
+            consumer,
+            producer: usize::MAX,
+            unwanted: false,
+        }
     }
 
     #[test]
