@@ -20,7 +20,10 @@
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory
-//! flat however long the capture. When nothing can
+//! flat however long the capture. A step whose items would overfill a wire
+//! far past its bound (a smoother's whole recording at its end) keeps them
+//! with the block, one copy for all its wires, queued as the consumers take
+//! them (`step::forward_pending`). When nothing can
 //! run and nothing is running (a branching graph whose branches rejoin at
 //! very different rates), the most downstream block that has input is allowed
 //! to overfill its outputs once, so a graph never deadlocks.
