@@ -111,8 +111,8 @@ const LABEL_CHAR_PX: f64 = 7.0;
 const LABEL_HEIGHT_PX: f64 = 14.0;
 
 /// Memory one range bin of the window takes by the end of a run: the
-/// average (16 bytes), the trace (16) and its table row (about 700: seven
-/// cells with their names), estimated generously.
+/// average (16 bytes), the trace (16) and its table row (about 450: the
+/// item and seven cells; the column names are shared), estimated generously.
 const BYTES_PER_BIN: f64 = 768.0;
 
 pub struct CircularSweep {
