@@ -145,6 +145,11 @@ impl Outputs {
     pub fn drain(&mut self) -> std::vec::Drain<'_, (usize, Item)> {
         self.items.drain(..)
     }
+    /// Every item pushed so far, in their buffer, leaving this empty: the
+    /// engine holds back a burst of items this way without copying it.
+    pub fn take_items(&mut self) -> Vec<(usize, Item)> {
+        std::mem::take(&mut self.items)
+    }
     pub fn drain_notices(&mut self) -> std::vec::Drain<'_, Notice> {
         self.notices.drain(..)
     }

@@ -297,10 +297,24 @@ pub struct AngleEstimate {
 }
 
 /// A labelled row for table outputs and pictures (free-form numeric columns).
+///
+/// The named cells are shared: a row fanned out to several blocks, or
+/// repeated unchanged by its producer, is one allocation however many hold
+/// it. A row is never changed once made (build a new one instead).
 #[derive(Clone, Debug, PartialEq)]
 pub struct TableRow {
     pub stamp: Stamp,
-    pub fields: Vec<(Arc<str>, Cell)>,
+    pub fields: RowCells,
+}
+
+/// The named cells of a [`TableRow`], shared.
+pub type RowCells = Arc<[(Arc<str>, Cell)]>;
+
+impl TableRow {
+    /// The cell of the column `name`, if the row has one.
+    pub fn cell(&self, name: &str) -> Option<&Cell> {
+        self.fields.iter().find(|(n, _)| &**n == name).map(|(_, c)| c)
+    }
 }
 
 /// One cell of a [`TableRow`].
@@ -393,14 +407,17 @@ impl Severity {
 ///
 /// Items are moved through queues millions of times a run; the rarer large
 /// kinds are boxed so an item stays within 128 bytes, which the compiler
-/// moves inline instead of calling `memcpy`.
+/// moves inline instead of calling `memcpy`. Estimates are shared rather
+/// than boxed: several blocks usually read each one (a table, pictures, the
+/// run's page), and a block that changes one (a tracker) copies it only
+/// while another still holds it (`Arc::make_mut`).
 #[derive(Clone, Debug)]
 pub enum Item {
     Samples(SampleChunk),
     Sweep(Sweep),
     Segment(Box<LobeSegment>),
     Dwell(DwellRecord),
-    Estimate(Box<AngleEstimate>),
+    Estimate(Arc<AngleEstimate>),
     Row(TableRow),
     Notice(Notice),
     /// An item of a kind defined outside this crate.

@@ -54,8 +54,8 @@ pub mod prelude {
     pub use crate::error::{BuildError, ParamError};
     pub use crate::facts::{Channels, Facts, LabelledSpan, StreamFacts};
     pub use crate::item::{
-        AngleEstimate, DwellRecord, ExtensionItem, Item, ItemKind, ItemType, LobeSegment, LobeTag, SampleChunk, Span,
-        Stamp, Sweep, TableRow,
+        AngleEstimate, DwellRecord, ExtensionItem, Item, ItemKind, ItemType, LobeSegment, LobeTag, RowCells,
+        SampleChunk, Span, Stamp, Sweep, TableRow,
     };
     pub use crate::param::{ParamType, Unit};
     pub use crate::typed::{Choice, DistanceSetting, NoPorts, TimeSetting, TypedBlock};

@@ -8,7 +8,7 @@ mod common;
 use common::*;
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::range_gate::SPEC;
-use lobeflow_blocks::{DwellRecord, Item, Stamp, Sweep, range_bin_m};
+use lobeflow_blocks::{Cell, DwellRecord, Item, Stamp, Sweep, range_bin_m};
 use num_complex::Complex32;
 
 const RATE: f64 = 4e6;
@@ -174,6 +174,35 @@ fn acquire_finds_a_planted_echo_and_follow_tracks_it() {
                 assert_eq!(a.mid.index - a.tag.dwell_start, b.mid.index - b.tag.dwell_start, "{follow}");
             }
         }
+        gate_rows_come_each_cycle_and_follow_the_gate(&r, &scene, follow);
+    }
+}
+
+/// The `gates` rows of an acquire-and-follow run (sweeps of one length, two
+/// lobes a cycle): one at the first dwell of every cycle from the acquisition
+/// on, none in between (nothing changed there), the acquired gate first and
+/// a followed gate at the echo's end.
+fn gate_rows_come_each_cycle_and_follow_the_gate(r: &Run, scene: &Scene, follow: &str) {
+    let dwell_len = (scene.pulses * scene.sweep_len) as u64;
+    let rows: Vec<(u64, f64)> = r
+        .items
+        .iter()
+        .filter_map(|i| match i {
+            Item::Row(row) => match row.cell("gate_start_m") {
+                Some(Cell::Num(m)) => Some((row.stamp.index / dwell_len, m / range_bin_m(RATE))),
+                _ => None,
+            },
+            _ => None,
+        })
+        .collect();
+    let dwells: Vec<u64> = rows.iter().map(|r| r.0).collect();
+    assert_eq!(dwells, (4..scene.dwells).step_by(2).collect::<Vec<_>>(), "{follow}");
+    assert!((rows[0].1 - 230.0).abs() < 1e-9, "{follow}: acquired gate {}", rows[0].1);
+    let last = rows.last().map_or(0.0, |r| r.1);
+    if follow == "none" {
+        assert!(rows.iter().all(|r| r.1 == rows[0].1), "{follow}: a fixed gate stays");
+    } else {
+        assert!(last >= 233.0, "{follow}: the gate followed the echo to bin {last}");
     }
 }
 

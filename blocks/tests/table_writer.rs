@@ -66,7 +66,7 @@ fn sample_estimates() -> Vec<(usize, Item)> {
         tracked_sigma_deg: None,
         absolute_deg: None,
     };
-    vec![(0, Item::Estimate(Box::new(a))), (0, Item::Estimate(Box::new(b)))]
+    vec![(0, Item::Estimate(Arc::new(a))), (0, Item::Estimate(Arc::new(b)))]
 }
 
 #[test]
@@ -189,7 +189,7 @@ fn quoted_column_names_read_back_as_telemetry() {
         .map(|k| {
             let t = f64::from(k);
             let fields = vec![(Arc::from("time_s"), Cell::Num(t)), (Arc::from(az), Cell::Num(10.0 + 2.0 * t))];
-            (2, Item::Row(TableRow { stamp: Stamp::new(k as u64, 1.0), fields }))
+            (2, Item::Row(TableRow { stamp: Stamp::new(k as u64, 1.0), fields: fields.into() }))
         })
         .collect();
     let (bytes, _) = write_all(&path, "csv", rows);

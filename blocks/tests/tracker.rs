@@ -37,8 +37,8 @@ fn drifting(seed: u64, seconds: f64) -> (Vec<Item>, Vec<f64>) {
         let t = k as f64 / 20.0;
         let th = 0.3 + 0.02 * t;
         truth.push(th);
-        items.push(Item::Estimate(Box::new(estimate("az", t, th + 0.1 * rng.gaussian(), 0.1))));
-        items.push(Item::Estimate(Box::new(estimate("el", t + 0.01, -th, 0.1))));
+        items.push(Item::Estimate(Arc::new(estimate("az", t, th + 0.1 * rng.gaussian(), 0.1))));
+        items.push(Item::Estimate(Arc::new(estimate("el", t + 0.01, -th, 0.1))));
     }
     (items, truth)
 }
@@ -87,12 +87,12 @@ fn outliers_are_flagged_kept_and_not_used() {
     let k = 2 * 300; // an az estimate at t = 15 s
     let Item::Estimate(e) = &mut items[k] else { panic!() };
     let bad = truth[300] + 1.5;
-    e.error_deg = Some(bad);
+    Arc::make_mut(e).error_deg = Some(bad);
     // Flagged estimates from the discriminator pass through untouched.
     let mut out_of_range = estimate("az", 15.02, 0.0, 0.3);
     out_of_range.error_deg = None;
     out_of_range.flag = Flag::OutOfRange;
-    items.insert(k + 1, Item::Estimate(Box::new(out_of_range.clone())));
+    items.insert(k + 1, Item::Estimate(Arc::new(out_of_range.clone())));
     for method in ["alpha_beta", "kalman"] {
         let mut blk = build(&SPEC, &[("method", method)]).unwrap();
         let (out, _) = run(blk.as_mut(), items.clone());
@@ -112,7 +112,7 @@ fn track_restarts_after_repeated_outliers() {
     for k in 0..100 {
         let t = k as f64 * 0.05;
         let th = if k < 50 { 0.1 } else { 2.0 }; // re-acquired on another target
-        items.push(Item::Estimate(Box::new(estimate("az", t, th, 0.05))));
+        items.push(Item::Estimate(Arc::new(estimate("az", t, th, 0.05))));
     }
     let mut blk = build(&SPEC, &[("reset_after", "3")]).unwrap();
     let (out, _) = run(blk.as_mut(), items);
@@ -134,7 +134,7 @@ fn telemetry_gives_absolute_angles() {
         .map(|k| {
             let t = k as f64 * 0.5;
             let axis = ["az", "el", "h"][k % 3];
-            Item::Estimate(Box::new(estimate(axis, t, 0.25, 0.05)))
+            Item::Estimate(Arc::new(estimate(axis, t, 0.25, 0.05)))
         })
         .collect();
     let mut blk = build(&SPEC, &[("pointing", path), ("axis_columns", "az=az_deg, el=el_deg")]).unwrap();

@@ -334,8 +334,8 @@ pub fn build_item(
             range_m: h.opt_f64("range_m")?,
             used: h.u64("used")?,
         }),
-        ItemKind::Estimate => Item::Estimate(Box::new(estimate_from(&h, stamp)?)),
-        ItemKind::Row => Item::Row(TableRow { stamp, fields: fields_from(&h)? }),
+        ItemKind::Estimate => Item::Estimate(Arc::new(estimate_from(&h, stamp)?)),
+        ItemKind::Row => Item::Row(TableRow { stamp, fields: fields_from(&h)?.into() }),
         ItemKind::Notice => Item::Notice(notice_from(&h, stamp)?),
         ItemKind::Extension(t) => return Err(format!("a program cannot send '{}' items", t.name)),
     })
@@ -464,7 +464,7 @@ mod tests {
             tracked_sigma_deg: None,
             absolute_deg: Some(3.0),
         };
-        match round_trip(Item::Estimate(Box::new(est.clone()))) {
+        match round_trip(Item::Estimate(Arc::new(est.clone()))) {
             Item::Estimate(e) => assert_eq!(*e, est),
             other => panic!("{other:?}"),
         }
@@ -476,7 +476,8 @@ mod tests {
                 (Arc::from("c"), Cell::Text(Arc::from("NaN"))),
                 (Arc::from("d"), Cell::Empty),
                 (Arc::from("e"), Cell::Num(f64::NEG_INFINITY)),
-            ],
+            ]
+            .into(),
         };
         match round_trip(Item::Row(row.clone())) {
             Item::Row(r) => assert_eq!(r, row),

@@ -39,7 +39,7 @@ impl TypedBlock for Labeller {
                 (Arc::from("chunk"), Cell::Int(c.stamp.index as i64)),
                 (Arc::from("note"), Cell::Text(Arc::from(note))),
             ];
-            out.push(LabellerOut::Rows, Item::Row(TableRow { stamp: c.stamp, fields }));
+            out.push(LabellerOut::Rows, Item::Row(TableRow { stamp: c.stamp, fields: fields.into() }));
         }
         Ok(())
     }

@@ -416,7 +416,7 @@ fn estimates(n: u64) -> Vec<(usize, Item)> {
                 truth + 0.3 * (t * 0.5).sin() + 0.05 * rng.gaussian() + if flag == Flag::Outlier { 1.5 } else { 0.0 };
             out.push((
                 0,
-                Item::Estimate(Box::new(AngleEstimate {
+                Item::Estimate(Arc::new(AngleEstimate {
                     stamp: Stamp::new(k * 8000, RATE),
                     axis: Arc::from(axis),
                     error_deg: matches!(flag, Flag::Ok | Flag::Outlier).then_some(err),
@@ -547,7 +547,7 @@ fn bad_windows_and_rates_are_errors_not_panics() {
     let angle = lobeflow::blocks::pictures::angle_plot::SPEC;
     let mut items = estimates(50);
     if let (_, Item::Estimate(e)) = &mut items[0] {
-        e.error_deg = Some(f64::NAN);
+        Arc::make_mut(e).error_deg = Some(f64::NAN);
     }
     let (_, written) = run(&angle, &[("path", &path)], items);
     assert_eq!(written.len(), 2);
@@ -742,7 +742,7 @@ fn discriminator_curve_warns_when_points_lie_off_its_model() {
             tracked_sigma_deg: None,
             absolute_deg: None,
         };
-        (0, Item::Estimate(Box::new(e)))
+        (0, Item::Estimate(Arc::new(e)))
     };
     let dir = scratch("curve-model");
     let base = dir.join("curve");

@@ -7,7 +7,7 @@ use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::gate::{AmplitudeFrom, DwellSums, Follow, GateSummary, Integration, Weighting, best_gate_start};
 use crate::error::{BuildError, ParamError};
 use crate::facts::{Facts, StreamFacts};
-use crate::item::{Cell, DwellRecord, Item, ItemKind, LobeTag, Stamp, Sweep, TableRow};
+use crate::item::{Cell, DwellRecord, Item, ItemKind, LobeTag, RowCells, Stamp, Sweep, TableRow};
 use crate::param::{ParamType, Unit, range_bin_m};
 use crate::typed::{DistanceSetting, TimeSetting, TypedBlock};
 use std::collections::BTreeMap;
@@ -34,7 +34,7 @@ crate::block_ports! {
         Gates = optional(
             "gates",
             ItemKind::Row,
-            "the gate in use, a row per dwell: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
+            "the gate in use, a row at the first dwell of each lobe cycle and at any dwell where it changed: gate_start_m, gate_end_m, noise_start_m, noise_end_m, echo_length_m (for pictures)"
         ),
     }
 }
@@ -165,6 +165,7 @@ impl TypedBlock for RangeGate {
             blank_reported: false,
             last_stamp: Stamp::new(0, 1.0),
             gate_fields: None,
+            last_gate_row: None,
         })
     }
 
@@ -300,6 +301,9 @@ pub struct RangeGate {
     last_stamp: Stamp,
     /// [`GATE_FIELDS`] as shared names, once the first row is made.
     gate_fields: Option<[Arc<str>; 5]>,
+    /// The cells of the last `gates` row: an unchanged gate (most dwells)
+    /// hands on the same shared cells instead of new ones.
+    last_gate_row: Option<RowCells>,
 }
 
 impl RangeGate {
@@ -322,7 +326,8 @@ impl RangeGate {
 
     /// A new dwell begins with `tag`: apply acquisition / follow results at
     /// the start of a lobe cycle so both lobes of a pair share one gate.
-    fn open_dwell(&mut self, tag: &LobeTag, geo: &Geometry, at: Stamp, out: &mut Outputs) {
+    /// Returns whether the dwell begins a lobe cycle.
+    fn open_dwell(&mut self, tag: &LobeTag, geo: &Geometry, at: Stamp, out: &mut Outputs) -> bool {
         let cycle_start = self.last_lobe.is_none_or(|l| tag.lobe <= l);
         self.last_lobe = Some(tag.lobe);
         if cycle_start {
@@ -367,6 +372,7 @@ impl RangeGate {
             acq.dwells += 1;
         }
         self.current = Some(Current { tag: tag.clone(), sums });
+        cycle_start
     }
 
     fn add_sweep(&mut self, sweep: &Sweep, geo: &Geometry, out: &mut Outputs) {
@@ -533,11 +539,14 @@ const GATE_FIELDS: [&str; 5] = ["gate_start_m", "gate_end_m", "noise_start_m", "
 
 impl RangeGate {
     /// Put the gate and noise region in use on the `gates` port, in metres
-    /// from the transmit instant. A row per dwell, not only when the gate
+    /// from the transmit instant: at the first dwell of each lobe cycle
+    /// (where a gate may move) and at any other dwell where a cell changed
+    /// (the noise region follows the sweep length), so every change is told
+    /// and consecutive rows repeat only once a cycle. Not only when the gate
     /// moves: a picture merges these rows by time with sweeps, and a merge
     /// waits for every open input, so rows that rarely come stalled the
     /// whole graph (the short budget capture ran 2x slower).
-    fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, out: &mut Outputs) {
+    fn tell_gate(&mut self, geo: &Geometry, sweep_len: usize, at: Stamp, cycle_start: bool, out: &mut Outputs) {
         let Some(start) = self.gate_start else { return };
         let noise = geo.noise_range(sweep_len);
         let bin_m = range_bin_m(geo.rate);
@@ -549,8 +558,22 @@ impl RangeGate {
             metres(noise.end as f64),
             metres(geo.pulse_samples),
         ];
-        let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
-        let fields = names.iter().cloned().zip(cells).collect();
+        // Bit for bit, so a row is shared only where a new one would be the same.
+        let same = |a: &Cell, b: &Cell| matches!((a, b), (Cell::Num(x), Cell::Num(y)) if x.to_bits() == y.to_bits());
+        let unchanged = self
+            .last_gate_row
+            .as_ref()
+            .filter(|last| last.len() == cells.len() && last.iter().zip(&cells).all(|((_, a), b)| same(a, b)));
+        let fields = match unchanged {
+            Some(_) if !cycle_start => return,
+            Some(last) => Arc::clone(last),
+            None => {
+                let names = self.gate_fields.get_or_insert_with(|| GATE_FIELDS.map(Arc::from));
+                let fields: RowCells = names.iter().cloned().zip(cells).collect();
+                self.last_gate_row = Some(Arc::clone(&fields));
+                fields
+            }
+        };
         out.push(RangeGateOut::Gates, Item::Row(TableRow { stamp: at, fields }));
     }
 
@@ -567,8 +590,8 @@ impl RangeGate {
         let same_dwell = self.current.as_ref().is_some_and(|c| c.tag.dwell == tag.dwell && c.tag.lobe == tag.lobe);
         if !same_dwell {
             self.close_dwell(out);
-            self.open_dwell(tag, &geo, sweep.stamp, out);
-            self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, out);
+            let cycle_start = self.open_dwell(tag, &geo, sweep.stamp, out);
+            self.tell_gate(&geo, sweep.iq.len(), sweep.stamp, cycle_start, out);
         }
         self.add_sweep(&sweep, &geo, out);
         Ok(())

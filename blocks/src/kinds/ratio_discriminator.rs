@@ -392,7 +392,7 @@ impl RatioDiscriminator {
         }
         let (plus, minus) = if is_plus { (&dwell, &partner) } else { (&partner, &dwell) };
         let estimate = self.estimate(&self.slots[k], plus, minus);
-        out.push(DiscriminatorOut::Estimates, Item::Estimate(Box::new(estimate)));
+        out.push(DiscriminatorOut::Estimates, Item::Estimate(std::sync::Arc::new(estimate)));
         Ok(())
     }
 

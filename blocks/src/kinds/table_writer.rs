@@ -359,7 +359,7 @@ impl TableWriter {
     }
 
     fn row(&mut self, r: &TableRow, out: &mut Outputs) -> Result<(), BlockError> {
-        for (name, _) in &r.fields {
+        for (name, _) in r.fields.iter() {
             if !self.row_columns.contains(name)
                 && self.unknown_fields.len() < UNKNOWN_FIELDS_REPORTED
                 && self.unknown_fields.insert(name.clone())
@@ -374,7 +374,7 @@ impl TableWriter {
         let fill = |l: &mut LineBuilder| {
             l.begin();
             for column in &columns {
-                match r.fields.iter().find(|(n, _)| n == column).map(|(_, c)| c) {
+                match r.cell(column) {
                     Some(Cell::Num(v)) => l.num(column, Some(*v), NumStyle::Shortest),
                     Some(Cell::Int(i)) => l.int(column, (*i).into()),
                     Some(Cell::Text(t)) => l.text(column, t),
@@ -415,7 +415,7 @@ impl TableWriter {
                     (TableIn::Estimates, _) => self.header(ESTIMATE_COLUMNS, stamp, out),
                     (TableIn::Dwells, _) => self.header(DWELL_COLUMNS, stamp, out),
                     (TableIn::Rows, Item::Row(r)) => {
-                        for (name, _) in &r.fields {
+                        for (name, _) in r.fields.iter() {
                             if !self.row_columns.contains(name) {
                                 self.row_columns.push(name.clone());
                             }

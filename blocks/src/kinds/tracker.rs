@@ -208,10 +208,9 @@ struct SmootherSetup {
     model: Model,
     /// None: the most likely value.
     q: Option<f64>,
-    /// Kept in the boxes they came in, handed on as they are: a long
+    /// Kept as they came, shared, and handed on as they are: a long
     /// recording's estimates then live once, not also as copies at the end.
-    #[allow(clippy::vec_box)]
-    held: Vec<Box<AngleEstimate>>,
+    held: Vec<Arc<AngleEstimate>>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
 }
@@ -342,7 +341,7 @@ impl Tracker {
                 );
             }
             for (&i, s) in rows.iter().zip(&smoothed) {
-                let e = &mut held[i];
+                let e = Arc::make_mut(&mut held[i]);
                 if s.outlier {
                     e.flag = Flag::Outlier;
                 }
@@ -351,7 +350,7 @@ impl Tracker {
             }
         }
         for (mut e, k) in held.into_iter().zip(axis_of) {
-            self.point(&mut e, k, out);
+            self.point(Arc::make_mut(&mut e), k, out);
             out.push(TrackerOut::Estimates, Item::Estimate(e));
         }
         Ok(())
@@ -359,7 +358,7 @@ impl Tracker {
 }
 
 impl Tracker {
-    fn take(&mut self, mut e: Box<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
+    fn take(&mut self, mut e: Arc<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
             setup.held.push(e);
@@ -374,12 +373,13 @@ impl Tracker {
         };
         let k = self.axis_index(&e, out)?;
         let step = self.axes[k].filter.step(e.stamp.seconds(), z, sigma);
+        let tracked = Arc::make_mut(&mut e);
         if step.outlier {
-            e.flag = Flag::Outlier;
+            tracked.flag = Flag::Outlier;
         }
-        e.tracked_deg = Some(step.tracked);
-        e.tracked_sigma_deg = Some(step.variance.max(0.0).sqrt());
-        self.point(&mut e, k, out);
+        tracked.tracked_deg = Some(step.tracked);
+        tracked.tracked_sigma_deg = Some(step.variance.max(0.0).sqrt());
+        self.point(tracked, k, out);
         out.push(TrackerOut::Estimates, Item::Estimate(e));
         Ok(())
     }

@@ -1,6 +1,17 @@
 //! Bounded summaries the picture blocks keep while items stream past.
 
+use crate::dsp::wide_vectors::wide_vectors;
 use crate::{BlockError, DistanceSetting, Stamp, Sweep, range_bin_m};
+use num_complex::Complex32;
+
+wide_vectors! {
+    /// Add each sample's power (|x|^2 in float32, widened) to its bin's sum.
+    fn add_powers(sums: &mut [f64], samples: &[Complex32]) -> () {
+        for (p, x) in sums.iter_mut().zip(samples) {
+            *p += f64::from(x.norm_sqr());
+        }
+    }
+}
 
 /// Most range bins one averaged sweep may hold (bounds memory per block).
 pub const MAX_BINS: usize = 1 << 20;
@@ -75,6 +86,12 @@ pub struct SweepAverage {
     pub window: BinWindow,
     power: Vec<f64>,
     counts: Vec<u64>,
+    /// Plain mean: the window bins the first sweep reached and how many
+    /// sweeps reached exactly those. Such a sweep (nearly every one: the
+    /// same blanking and length) is counted here once instead of in each
+    /// bin of `counts`, which holds the other sweeps.
+    usual_reach: Option<(usize, usize)>,
+    usual_sweeps: u64,
     memory: u64,
     pub sweeps: u64,
     pub first_stamp: Stamp,
@@ -86,6 +103,8 @@ impl SweepAverage {
             window,
             power: vec![0.0; window.len],
             counts: vec![0; window.len],
+            usual_reach: None,
+            usual_sweeps: 0,
             memory,
             sweeps: 0,
             first_stamp,
@@ -108,14 +127,16 @@ impl SweepAverage {
             let power = &mut self.power[k0..k0 + src.len()];
             let counts = &mut self.counts[k0..k0 + src.len()];
             if self.memory == 0 {
-                // Plain mean: keep sums, divide once when drawing. Sums and
-                // counts in passes of their own, which the compiler turns
-                // into vector code.
-                for (p, x) in power.iter_mut().zip(src) {
-                    *p += f64::from(x.norm_sqr());
-                }
-                for c in counts.iter_mut() {
-                    *c += 1;
+                // Plain mean: keep sums, divide once when drawing.
+                add_powers(power, src);
+                let reach = (k0, k0 + src.len());
+                match self.usual_reach {
+                    Some(usual) if usual == reach => self.usual_sweeps += 1,
+                    Some(_) => counts.iter_mut().for_each(|c| *c += 1),
+                    None => {
+                        self.usual_reach = Some(reach);
+                        self.usual_sweeps = 1;
+                    }
                 }
             } else {
                 let bins = power.iter_mut().zip(counts.iter_mut()).zip(src);
@@ -136,8 +157,12 @@ impl SweepAverage {
 
     /// Mean (or exponentially averaged) power of window bin `k`.
     pub fn power_at(&self, k: usize) -> Option<f64> {
+        let usual = match self.usual_reach {
+            Some((a, b)) if (a..b).contains(&k) => self.usual_sweeps,
+            _ => 0,
+        };
         match (self.counts.get(k), self.power.get(k)) {
-            (Some(&c), Some(&p)) if c > 0 => Some(if self.memory == 0 { p / c as f64 } else { p }),
+            (Some(&c), Some(&p)) if c + usual > 0 => Some(if self.memory == 0 { p / (c + usual) as f64 } else { p }),
             _ => None,
         }
     }
@@ -300,6 +325,23 @@ mod tests {
     }
 
     #[test]
+    fn a_bin_averages_only_the_sweeps_that_reached_it() {
+        let w = BinWindow { first: 0, len: 4, rate: 4e6 };
+        let mut avg = SweepAverage::new(w, 0, Stamp::new(0, 4e6));
+        // Powers 4 in every bin, twice; then 16 with two bins blanked; then
+        // 36 in a sweep one bin short; a bin nothing reached stays empty.
+        for (value, blanked, len) in [(2.0f32, 0, 4), (2.0, 0, 4), (4.0, 2, 4), (6.0, 0, 3)] {
+            let mut s = sweep(&vec![value; len], 0);
+            s.blanked = blanked;
+            avg.add(&s).unwrap();
+        }
+        let means: Vec<f64> = (0..4).map(|k| avg.power_at(k).unwrap()).collect();
+        assert_eq!(means, [(4.0 + 4.0 + 36.0) / 3.0, 44.0 / 3.0, (4.0 + 4.0 + 16.0 + 36.0) / 4.0, 24.0 / 3.0]);
+        let never = SweepAverage::new(w, 0, Stamp::new(0, 4e6));
+        assert_eq!(never.power_at(0), None);
+    }
+
+    #[test]
     fn window_in_metres_and_bins() {
         let s = sweep(&[0.0; 400], 0);
         // 37.47 m per bin at 4 MS/s (docs/derivations.md, section 5): 1.5 km starts at bin 40.
@@ -348,10 +390,8 @@ impl GateReport {
     /// naming the missing one.
     pub fn take(&mut self, row: &crate::TableRow) -> Result<(), BlockError> {
         let field = |name: &str| -> Result<f64, BlockError> {
-            row.fields
-                .iter()
-                .find(|(n, _)| &**n == name)
-                .and_then(|(_, c)| match c {
+            row.cell(name)
+                .and_then(|c| match c {
                     crate::Cell::Num(v) if v.is_finite() => Some(*v),
                     _ => None,
                 })

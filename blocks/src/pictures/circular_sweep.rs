@@ -111,8 +111,8 @@ const LABEL_CHAR_PX: f64 = 7.0;
 const LABEL_HEIGHT_PX: f64 = 14.0;
 
 /// Memory one range bin of the window takes by the end of a run: the
-/// average (16 bytes), the trace (16) and its table row (about 700: seven
-/// cells with their names), estimated generously.
+/// average (16 bytes), the trace (16) and its table row (about 450: the
+/// item and seven cells; the column names are shared), estimated generously.
 const BYTES_PER_BIN: f64 = 768.0;
 
 pub struct CircularSweep {
@@ -266,31 +266,31 @@ impl Scene {
 
     /// Table rows: one per bin of the averaged window, then the readout.
     pub fn rows(&self, avg: &SweepAverage) -> Vec<TableRow> {
-        let name = |s: &str| -> Arc<str> { Arc::from(s) };
+        // Column names and the point kinds, shared by every row.
+        let [point, range, amplitude, x_name, y_name, turn_name, angle_name, trace, readout] =
+            ["point", "range_m", "amplitude", "x", "y", "turn", "angle_deg", "trace", "readout"].map(Arc::<str>::from);
         let mut rows = Vec::with_capacity(self.trace.len() + 1);
-        let make = |point: &str, range_m: f64, amp: f64, defl: f64| {
+        let make = |kind: &Arc<str>, range_m: f64, amp: f64, defl: f64| {
             let (x, y) = self.fine.point(range_m, defl);
             let (turn, angle) = self.fine.split(range_m);
-            TableRow {
-                stamp: avg.first_stamp,
-                fields: vec![
-                    (name("point"), Cell::Text(name(point))),
-                    (name("range_m"), Cell::Num(range_m)),
-                    (name("amplitude"), if amp.is_finite() { Cell::Num(amp) } else { Cell::Empty }),
-                    // Normalised: circle radius 1, centre at the origin, y up.
-                    (name("x"), Cell::Num((x - self.fine.centre.0) / self.fine.radius)),
-                    (name("y"), Cell::Num((self.fine.centre.1 - y) / self.fine.radius)),
-                    (name("turn"), Cell::Int(turn)),
-                    (name("angle_deg"), Cell::Num(angle.to_degrees())),
-                ],
-            }
+            let fields = [
+                (point.clone(), Cell::Text(kind.clone())),
+                (range.clone(), Cell::Num(range_m)),
+                (amplitude.clone(), if amp.is_finite() { Cell::Num(amp) } else { Cell::Empty }),
+                // Normalised: circle radius 1, centre at the origin, y up.
+                (x_name.clone(), Cell::Num((x - self.fine.centre.0) / self.fine.radius)),
+                (y_name.clone(), Cell::Num((self.fine.centre.1 - y) / self.fine.radius)),
+                (turn_name.clone(), Cell::Int(turn)),
+                (angle_name.clone(), Cell::Num(angle.to_degrees())),
+            ];
+            TableRow { stamp: avg.first_stamp, fields: Arc::from(fields) }
         };
         for (k, &(r, d)) in self.trace.iter().enumerate() {
-            rows.push(make("trace", r, self.amplitude[k], d));
+            rows.push(make(&trace, r, self.amplitude[k], d));
         }
         let peak_amp = self.amplitude.iter().copied().filter(|a| a.is_finite()).fold(f64::NAN, f64::max);
         let defl = self.trace.iter().map(|t| t.1).fold(0.0, |m: f64, d| if d.abs() > m.abs() { d } else { m });
-        rows.push(make("readout", self.readout.range_m, peak_amp, defl));
+        rows.push(make(&readout, self.readout.range_m, peak_amp, defl));
         rows
     }
 

@@ -20,7 +20,10 @@
 //!
 //! Queues are bounded softly: a block runs only when its output queues have
 //! room (a batch may overfill them by its own outputs), which keeps memory
-//! flat however long the capture. When nothing can
+//! flat however long the capture. A step whose items would overfill a wire
+//! far past its bound (a smoother's whole recording at its end) keeps them
+//! with the block, one copy for all its wires, queued as the consumers take
+//! them (`step::forward_pending`). When nothing can
 //! run and nothing is running (a branching graph whose branches rejoin at
 //! very different rates), the most downstream block that has input is allowed
 //! to overfill its outputs once, so a graph never deadlocks.
@@ -33,7 +36,7 @@ mod step;
 mod waiting;
 
 use lobeflow_blocks::{Block, BlockError, Item, Notice, Outputs};
-use picking::{MAX_BATCH, downstream_first};
+use picking::{BURST_BOUNDS, MAX_BATCH, downstream_first};
 use std::collections::VecDeque;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, Condvar, Mutex, MutexGuard};
@@ -88,6 +91,10 @@ struct Node {
     outputs: Vec<Vec<usize>>,
     /// Every edge any output feeds.
     out_edges: Vec<usize>,
+    /// Items made but not queued yet, (port, item) in order: a burst waits
+    /// here, shared by the wires it goes to, and the block does not run
+    /// again before they are all queued (`step::forward_pending`).
+    pending: VecDeque<(usize, Item)>,
     running: bool,
     done: bool,
     /// Recent time per step (moving average); None before the first step.
@@ -100,6 +107,8 @@ struct Edge {
     closed: bool,
     /// The node that reads this wire.
     consumer: usize,
+    /// The node that writes it.
+    producer: usize,
     /// The consumer has all it needs (`Block::wants_input` turned false):
     /// items for it are dropped instead of queued.
     unwanted: bool,
@@ -135,6 +144,8 @@ struct Shared {
     threads: usize,
     cancel: Arc<AtomicBool>,
     capacity: usize,
+    /// Items a wire may hold before its producer's further items wait with it.
+    burst_limit: usize,
     progress: Option<ProgressFn>,
 }
 
@@ -165,6 +176,7 @@ pub fn run_nodes(
             out: Outputs::new(s.outputs.len()),
             wired: s.inputs.iter().enumerate().filter_map(|(p, e)| e.map(|e| (p, e))).collect(),
             out_edges: s.outputs.iter().flatten().copied().collect(),
+            pending: VecDeque::new(),
             inputs: s.inputs,
             outputs: s.outputs,
             running: false,
@@ -175,11 +187,20 @@ pub fn run_nodes(
     }
     let order = downstream_first(&nodes, edge_count);
     let mut edges: Vec<Edge> = (0..edge_count)
-        .map(|_| Edge { queue: VecDeque::new(), closed: false, consumer: usize::MAX, unwanted: false })
+        .map(|_| Edge {
+            queue: VecDeque::new(),
+            closed: false,
+            consumer: usize::MAX,
+            producer: usize::MAX,
+            unwanted: false,
+        })
         .collect();
     for (i, nd) in nodes.iter().enumerate() {
         for &(_, e) in &nd.wired {
             edges[e].consumer = i;
+        }
+        for &e in &nd.out_edges {
+            edges[e].producer = i;
         }
     }
     let shared = Arc::new(Shared {
@@ -189,6 +210,7 @@ pub fn run_nodes(
         threads: threads.max(1),
         cancel,
         capacity: capacity.max(1),
+        burst_limit: capacity.max(1) * BURST_BOUNDS,
         progress,
     });
     let workers: Vec<_> = (0..threads.max(1))
@@ -250,7 +272,7 @@ fn worker(sh: &Shared) {
             fail(&mut st, idx, error);
             false
         });
-        let items_out = deliver(&mut st, idx, &mut out);
+        let items_out = deliver(&mut st, idx, &mut out, sh.burst_limit);
         let nd = &mut st.nodes[idx];
         nd.block = Some(block);
         if !finished {
@@ -266,13 +288,16 @@ fn worker(sh: &Shared) {
         st.running -= 1;
         sh.changes.fetch_add(1, Ordering::Release);
         if satisfied {
-            stop_feeding(&mut st, idx);
+            stop_feeding(&mut st, idx, sh.burst_limit);
         }
         if finished {
             let State { nodes, edges, .. } = &mut *st;
             nodes[idx].done = true;
-            for &e in &nodes[idx].out_edges {
-                edges[e].closed = true;
+            // Wires end once the items held back are queued too.
+            if nodes[idx].pending.is_empty() {
+                for &e in &nodes[idx].out_edges {
+                    edges[e].closed = true;
+                }
             }
             st.done += 1;
         }
@@ -349,6 +374,68 @@ mod tests {
 
     fn ticks(count: u64, step: u64, rate: f64) -> Box<dyn Block> {
         boxed(Ticks { next: 0, count, step, rate })
+    }
+
+    block_ports! { outputs enum BurstOut { Early = optional("early", ItemKind::Samples, "even samples"), Late = optional("late", ItemKind::Samples, "odd samples") } }
+
+    /// Emits `count` one-sample chunks at once, the even-numbered on port
+    /// `early` first, then the odd-numbered on `late`.
+    struct Burst {
+        count: u64,
+    }
+    impl TypedBlock for Burst {
+        type Settings = ();
+        type In = NoPorts;
+        type Out = BurstOut;
+        fn build(_: (), _: &BuildContext) -> Result<Self, BuildError> {
+            crate::runtime::attached_by_run()
+        }
+        fn generate(&mut self, out: &mut Outputs) -> Result<bool, BlockError> {
+            for (port, first) in [(BurstOut::Early, 0), (BurstOut::Late, 1)] {
+                for k in (first..self.count).step_by(2) {
+                    let item = SampleChunk { stamp: Stamp::new(k, 1.0), iq: vec![].into(), sync: None, trigger: None };
+                    out.push(port, Item::Samples(item));
+                }
+            }
+            Ok(false)
+        }
+    }
+
+    #[test]
+    fn a_burst_reaches_every_reader_in_order_and_a_merge_of_its_ports_does_not_stall() {
+        // Port `early` feeds a merge and two plain readers, `late` the merge's
+        // second input: the merge needs items the burst holds behind a full wire.
+        let count = 3000;
+        for threads in [1, 2] {
+            for capacity in [1, 4] {
+                let logs: Vec<_> = (0..3).map(|_| Arc::new(Mutex::new(Vec::new()))).collect();
+                let reader = |log: &Arc<Mutex<Vec<(usize, u64)>>>, inputs| NodeSetup {
+                    name: "reader".into(),
+                    kind: "recorder".into(),
+                    block: boxed(Recorder(Arc::clone(log))),
+                    inputs,
+                    outputs: vec![],
+                };
+                let setups = vec![
+                    NodeSetup {
+                        name: "burst".into(),
+                        kind: "burst".into(),
+                        block: boxed(Burst { count }),
+                        inputs: vec![],
+                        outputs: vec![vec![0, 1, 2], vec![3]],
+                    },
+                    reader(&logs[0], vec![Some(0), Some(3)]),
+                    reader(&logs[1], vec![Some(1), None]),
+                    reader(&logs[2], vec![Some(2), None]),
+                ];
+                let outcome = run_nodes(setups, 4, threads, capacity, Arc::new(AtomicBool::new(false)), None);
+                assert!(outcome.stop.is_none(), "threads {threads}, capacity {capacity}");
+                let merged: Vec<(usize, u64)> = (0..count).map(|k| ((k % 2) as usize, k)).collect();
+                let early: Vec<(usize, u64)> = (0..count).step_by(2).map(|k| (0, k)).collect();
+                assert!(*logs[0].lock().expect("log") == merged, "threads {threads}, capacity {capacity}");
+                assert!(*logs[1].lock().expect("log") == early && *logs[2].lock().expect("log") == early);
+            }
+        }
     }
 
     #[test]

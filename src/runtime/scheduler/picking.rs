@@ -14,6 +14,10 @@ pub(super) const MAX_BATCH: usize = 256;
 /// A merge waits for a starved input until another of its queues holds this
 /// many times the queue bound (see `take_step`).
 pub(super) const STARVED_MERGE_FACTOR: usize = 64;
+/// Queue bounds a wire holds before a producer's further items wait with it
+/// (`step::deliver`): past what a step adds in a steady run (a batch's
+/// sweeps, a merge's starved limit), so only bursts wait.
+pub(super) const BURST_BOUNDS: usize = MAX_BATCH;
 /// A batch stops growing once it holds this many samples (four default capture chunks).
 pub(super) const MAX_BATCH_SAMPLES: usize = 1 << 16;
 /// A sleeping worker is woken only when it would save at least this much of
@@ -114,7 +118,8 @@ pub(super) fn holds_back(nodes: &[Node], edges: &[Edge], e: usize, capacity: usi
 
 pub(super) fn ready(st: &State, i: usize, capacity: usize) -> bool {
     let nd = &st.nodes[i];
-    if nd.running || nd.done || nd.out_edges.iter().any(|&e| holds_back(&st.nodes, &st.edges, e, capacity)) {
+    let busy = nd.running || nd.done || !nd.pending.is_empty();
+    if busy || nd.out_edges.iter().any(|&e| holds_back(&st.nodes, &st.edges, e, capacity)) {
         return false;
     }
     // A source, a block whose inputs all ended (finish), or one with an item on every open input.
@@ -134,7 +139,8 @@ pub(super) fn take_step(
 ) -> Option<Step> {
     let State { nodes, edges, .. } = st;
     let nd = &nodes[i];
-    if nd.running || nd.done {
+    // A block holding items back runs again once they are all queued.
+    if nd.running || nd.done || !nd.pending.is_empty() {
         return None;
     }
     if !relax && nd.out_edges.iter().any(|&e| holds_back(nodes, edges, e, capacity)) {
@@ -220,6 +226,7 @@ mod holding_back {
             wired,
             outputs: Vec::new(),
             out_edges: Vec::new(),
+            pending: VecDeque::new(),
             running: false,
             done: false,
             step_cost: None,
@@ -230,7 +237,13 @@ mod holding_back {
     fn edge(len: usize, closed: bool, consumer: usize) -> Edge {
         let item =
             Item::Samples(SampleChunk { stamp: Stamp::new(0, 1.0), iq: vec![].into(), sync: None, trigger: None });
-        Edge { queue: std::iter::repeat_n(item, len).collect(), closed, consumer, unwanted: false }
+        Edge {
+            queue: std::iter::repeat_n(item, len).collect(),
+            closed,
+            consumer,
+            producer: usize::MAX,
+            unwanted: false,
+        }
     }
 
     #[test]

@@ -2,6 +2,7 @@
 //! between claims a short watch for new work before sleeping.
 
 use super::picking::{WAKE_WORTH, helper_gain, pick};
+use super::step::{forward_all, forward_to};
 use super::{Claimed, Shared, State, StopReason, lock};
 use lobeflow_blocks::{BlockError, Item, Outputs};
 use std::sync::MutexGuard;
@@ -39,12 +40,19 @@ pub(super) fn claim<'a>(
             sh.wake.notify_all();
             return (st, None);
         }
-        let picked = match pick(&mut st, sh.capacity, false, batch) {
-            Some(p) => Some(p),
-            None if st.running == 0 => pick(&mut st, sh.capacity, true, batch),
-            None => None,
-        };
+        let mut picked = pick(&mut st, sh.capacity, false, batch);
+        if picked.is_none() && st.running == 0 {
+            // Nothing can run: queue every held-back item, then overfill.
+            if forward_all(&mut st) {
+                picked = pick(&mut st, sh.capacity, false, batch);
+            }
+            if picked.is_none() {
+                picked = pick(&mut st, sh.capacity, true, batch);
+            }
+        }
         if let Some((idx, step)) = picked {
+            // Room on its inputs now: what their producers hold back moves up.
+            forward_to(&mut st, idx, sh.burst_limit);
             let nd = &mut st.nodes[idx];
             nd.running = true;
             let block = nd.block.take().expect("a node not running holds its block");
