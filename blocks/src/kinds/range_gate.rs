@@ -534,7 +534,7 @@ impl RangeGate {
     }
 }
 
-/// The columns of a `gates` row (named once: a row goes out every dwell).
+/// The columns of a `gates` row (named once: rows go out every lobe cycle).
 const GATE_FIELDS: [&str; 5] = ["gate_start_m", "gate_end_m", "noise_start_m", "noise_end_m", "echo_length_m"];
 
 impl RangeGate {
