@@ -1,4 +1,4 @@
-//! The bitmap half of a picture: plotters' bitmap backend with two costs
+//! The bitmap half of a picture: plotters' bitmap backend with its costs
 //! taken out and its pixels left exactly as they were.
 //!
 //! - Text: the font renderer outlines and rasterizes every character of
@@ -7,6 +7,14 @@
 //!   same pixel calls, in the same order, with the same positions and alpha
 //!   the renderer computes (`plotters` 0.3 `FontDataInternal::draw` and the
 //!   backend's default `draw_text`, both reproduced step for step below).
+//! - Pixels: the bitmap backend draws lines, polygons and circles pixel by
+//!   pixel through its general entry point, which checks the image bounds
+//!   and picks the pixel format for each one. [`GlyphCachedBitmap`] runs
+//!   the same rasterizers (`plotters_backend::rasterizer`, as the bitmap
+//!   backend does) over its own pixel, line and rectangle calls, each the
+//!   bitmap backend's own for RGB pixels (`BitMapBackend::draw_pixel`,
+//!   `draw_line`, `draw_rect` and `RGBPixel`'s fills) written straight into
+//!   the buffer; translucent rectangles and blits still go to the backend.
 //! - Memory: a fresh multi-megabyte pixel buffer costs a page fault per
 //!   4 KiB on first touch; each worker keeps its buffer between pictures
 //!   ([`with_pixel_buffer`]). Zeroing it again is skipped when the first
@@ -110,8 +118,7 @@ fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char
 }
 
 /// Plotters' bitmap backend over an RGB buffer, drawing text of our font
-/// from cached glyphs and opaque rectangles itself; everything else goes
-/// to the bitmap backend.
+/// from cached glyphs, and pixels, lines and opaque rectangles itself.
 pub struct GlyphCachedBitmap<'a> {
     rgb: &'a mut [u8],
     size: (u32, u32),
@@ -165,6 +172,48 @@ impl<'a> GlyphCachedBitmap<'a> {
             self.rgb.copy_within(first + left..first + right, y * stride + left);
         }
     }
+
+    /// Set the pixels of column `x` from `ys.0` to `ys.1`, both included, as
+    /// the bitmap backend's opaque vertical line does.
+    fn fill_vertical(&mut self, x: i32, ys: (i32, i32), rgb: (u8, u8, u8)) {
+        let (w, h) = (self.size.0 as i32, self.size.1 as i32);
+        if x < 0 || x >= w {
+            return;
+        }
+        let (y0, y1) = (ys.0.min(ys.1).max(0), ys.0.max(ys.1).min(h - 1));
+        for y in y0..=y1 {
+            let at = 3 * (y as usize * w as usize + x as usize);
+            self.rgb[at..at + 3].copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
+        }
+    }
+
+    /// One pixel as the bitmap backend draws it: skipped off the image,
+    /// set when nearly opaque, else each channel moved toward the colour
+    /// by `floor(256 alpha) / 256` of the difference, rounded toward the
+    /// old value.
+    #[inline]
+    fn put_pixel(&mut self, (x, y): BackendCoord, color: BackendColor) {
+        let (w, h) = self.size;
+        if x < 0 || y < 0 || x as u32 >= w || y as u32 >= h {
+            return;
+        }
+        let at = 3 * (y as usize * w as usize + x as usize);
+        let pixel = &mut self.rgb[at..at + 3];
+        let (r, g, b) = color.rgb;
+        if color.alpha >= 1.0 - 1.0 / 256.0 {
+            pixel.copy_from_slice(&[r, g, b]);
+        } else if color.alpha > 0.0 {
+            // In (0, 255): truncation is the floor the backend takes.
+            let a = (color.alpha * 256.0) as u32;
+            for (old, new) in pixel.iter_mut().zip([r, g, b]) {
+                if new > *old {
+                    *old += (u32::from(new - *old) * a / 256) as u8;
+                } else {
+                    *old -= (u32::from(*old - new) * a / 256) as u8;
+                }
+            }
+        }
+    }
 }
 
 type BitmapError = DrawingErrorKind<<BitMapBackend<'static> as DrawingBackend>::ErrorType>;
@@ -185,15 +234,33 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         Ok(())
     }
     fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError> {
-        self.bitmap().draw_pixel(point, color)
+        self.clear_stale();
+        self.put_pixel(point, color);
+        Ok(())
     }
+    /// The bitmap backend's: one-pixel-wide level and upright lines as
+    /// rectangle fills, the rest by the rasterizer.
     fn draw_line<S: BackendStyle>(
         &mut self,
         from: BackendCoord,
         to: BackendCoord,
         style: &S,
     ) -> Result<(), BitmapError> {
-        self.bitmap().draw_line(from, to, style)
+        self.clear_stale();
+        let color = style.color();
+        if (from.0 == to.0 || from.1 == to.1) && style.stroke_width() == 1 {
+            if color.alpha < 1.0 {
+                // Its translucent rectangle fill, with these corners.
+                return self.bitmap().draw_rect(from, (to.0 + 1, to.1 + 1), &color, true);
+            }
+            if from.1 == to.1 {
+                self.fill_opaque(from, (to.0 + 1, to.1 + 1), color.rgb);
+            } else {
+                self.fill_vertical(from.0, (from.1, to.1), color.rgb);
+            }
+            return Ok(());
+        }
+        plotters_backend::rasterizer::draw_line(self, from, to, style)
     }
     fn draw_rect<S: BackendStyle>(
         &mut self,
@@ -202,36 +269,18 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         style: &S,
         fill: bool,
     ) -> Result<(), BitmapError> {
-        // The bitmap backend's own test for its opaque fill.
-        if fill && style.color().alpha >= 1.0 {
+        // The bitmap backend's own choice between its fills and outlines.
+        if !fill {
+            return plotters_backend::rasterizer::draw_rect(self, upper_left, bottom_right, style, fill);
+        }
+        if style.color().alpha >= 1.0 {
             self.fill_opaque(upper_left, bottom_right, style.color().rgb);
             return Ok(());
         }
         self.bitmap().draw_rect(upper_left, bottom_right, style, fill)
     }
-    fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
-        &mut self,
-        path: I,
-        style: &S,
-    ) -> Result<(), BitmapError> {
-        self.bitmap().draw_path(path, style)
-    }
-    fn draw_circle<S: BackendStyle>(
-        &mut self,
-        center: BackendCoord,
-        radius: u32,
-        style: &S,
-        fill: bool,
-    ) -> Result<(), BitmapError> {
-        self.bitmap().draw_circle(center, radius, style, fill)
-    }
-    fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
-        &mut self,
-        vert: I,
-        style: &S,
-    ) -> Result<(), BitmapError> {
-        self.bitmap().fill_polygon(vert, style)
-    }
+    // Paths, circles and polygons: the trait's rasterizers, as the bitmap
+    // backend uses them, over the pixel and line calls above.
     fn blit_bitmap(&mut self, pos: BackendCoord, size: (u32, u32), src: &[u8]) -> Result<(), BitmapError> {
         self.bitmap().blit_bitmap(pos, size, src)
     }
@@ -264,22 +313,17 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             VPos::Bottom => -height,
         };
         let trans = style.transform();
-        let (w, h) = self.get_size();
-        let mut bitmap = self.bitmap();
-        let mut result = Ok(());
+        self.clear_stale();
         let drawn = GLYPHS.with(|cache| {
             cache.borrow_mut().draw_text(style.size(), text, |x, y, coverage| {
                 let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
-                let (x, y) = (pos.0 + x, pos.1 + y);
-                if result.is_ok() && x >= 0 && x < w as i32 && y >= 0 && y < h as i32 {
-                    result = bitmap.draw_pixel((x, y), color.mix(coverage as f64));
-                }
+                self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
             })
         });
         if !drawn {
-            return bitmap.draw_text(text, style, pos);
+            return self.bitmap().draw_text(text, style, pos);
         }
-        result
+        Ok(())
     }
 }
 
@@ -319,6 +363,66 @@ mod tests {
         let turned = text_style(14.0, palette::MUTED).transform(FontTransform::Rotate270);
         root.draw(&Text::new("power (dB)".to_string(), (20, 180), turned)).unwrap();
         root.draw(&Text::new("cut off at the right edge".to_string(), (250, 180), style)).unwrap();
+        let translucent = palette::TRACE.mix(0.5);
+        let faint = text_style(15.0, palette::INK).color(&translucent);
+        root.draw(&Text::new("translucent text".to_string(), (170, 40), faint)).unwrap();
+        lines(root);
+        shapes(root);
+    }
+
+    /// Lines of every kind the backend tells apart: level and upright ones
+    /// of one pixel (drawn either way, opaque or not), sloped ones steep and
+    /// shallow in all four directions, wide ones, and ones leaving the image.
+    fn lines<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>) {
+        let centre = (160, 100);
+        for (i, angle) in (0..24).map(|k| (k, k as f64 * std::f64::consts::PI / 12.0 + 0.05)) {
+            let r = 30.0 + 4.0 * i as f64;
+            let end = (centre.0 + (r * angle.cos()) as i32, centre.1 + (r * angle.sin()) as i32);
+            let colour = palette::lobe(i).mix(if i % 3 == 0 { 0.6 } else { 1.0 });
+            let width = [1, 1, 2, 3][i % 4];
+            root.draw(&PathElement::new(vec![centre, end], colour.stroke_width(width))).unwrap();
+        }
+        let level_and_upright =
+            [((40, 30), (90, 30)), ((90, 34), (40, 34)), ((70, 10), (70, 80)), ((74, 80), (74, 10))];
+        for (k, &(a, b)) in level_and_upright.iter().enumerate() {
+            let colour = if k % 2 == 0 { palette::ALERT.mix(1.0) } else { palette::TRACE.mix(0.35) };
+            root.draw(&PathElement::new(vec![a, b], colour.stroke_width(1))).unwrap();
+            let moved = |p: (i32, i32)| (p.0 + 200, p.1 + 100);
+            root.draw(&PathElement::new(vec![moved(a), moved(b)], colour.stroke_width(1))).unwrap();
+        }
+        // Leaving the image on every side, and wholly outside it.
+        let leaving =
+            [((-40, 20), (60, -30)), ((300, 150), (360, 260)), ((10, -5), (10, 250)), ((-20, 190), (400, 190))];
+        for &(a, b) in &leaving {
+            root.draw(&PathElement::new(vec![a, b], palette::INK.stroke_width(1))).unwrap();
+            root.draw(&PathElement::new(vec![(a.0 + 3, a.1 + 4), (b.0 + 3, b.1 + 4)], palette::GATE.stroke_width(3)))
+                .unwrap();
+        }
+        root.draw(&PathElement::new(vec![(-50, -50), (-10, -80)], palette::INK.stroke_width(1))).unwrap();
+        let zigzag: Vec<(i32, i32)> =
+            (0..40).map(|i| (8 * i - 10, 120 + if i % 2 == 0 { 0 } else { 9 + i % 5 })).collect();
+        root.draw(&PathElement::new(zigzag.clone(), palette::FLAG_EDGE.stroke_width(1))).unwrap();
+        let lower: Vec<(i32, i32)> = zigzag.iter().map(|p| (p.0, p.1 + 30)).collect();
+        root.draw(&PathElement::new(lower, palette::lobe(2).mix(0.7).stroke_width(2))).unwrap();
+    }
+
+    /// Filled and outlined shapes, translucent and opaque, some clipped.
+    fn shapes<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>) {
+        let concave = vec![(200, 20), (260, 60), (230, 70), (290, 130), (210, 110), (180, 150)];
+        root.draw(&Polygon::new(concave, palette::BAND.mix(0.7).filled())).unwrap();
+        let clipped = vec![(280, 150), (340, 170), (330, 230), (260, 215)];
+        root.draw(&Polygon::new(clipped, palette::GATE.filled())).unwrap();
+        let tall = vec![(100, 130), (112, 198), (92, 205)];
+        root.draw(&Polygon::new(tall, palette::ALERT.mix(0.4).filled())).unwrap();
+        root.draw(&Rectangle::new([(150, 160), (190, 190)], palette::FLAG_EDGE.mix(0.5).stroke_width(1))).unwrap();
+        for (k, &(x, y)) in [(40, 100), (120, 40), (318, 90), (5, 195), (250, 100)].iter().enumerate() {
+            let colour = palette::lobe(k).mix([1.0, 0.55, 0.3][k % 3]);
+            root.draw(&Circle::new((x, y), 2 + 3 * k as u32, colour.filled())).unwrap();
+            root.draw(&Circle::new((x + 6, y + 4), 4 + 2 * k as u32, colour.stroke_width(1))).unwrap();
+        }
+        for (k, &(x, y)) in [(0, 0), (319, 199), (-1, 5), (320, 5), (100, 200), (60, 70)].iter().enumerate() {
+            root.draw(&Pixel::new((x, y), palette::INK.mix([1.0, 0.99, 0.5, 0.003][k % 4]))).unwrap();
+        }
     }
 
     fn reference(background: bool) -> Vec<u8> {
