@@ -187,6 +187,39 @@ impl<'a> GlyphCachedBitmap<'a> {
         }
     }
 
+    /// Blend `color` into the rectangle (clipped as [`Self::fill_opaque`]),
+    /// as the bitmap backend's translucent fill does: with `a = floor(256
+    /// alpha)`, each row's first `8 * floor((n - 1) / 8)` pixels become
+    /// `floor((old (256 - a) + new a) / 256)` (it blends those eight at a
+    /// time in 16-bit lanes) and the rest are blended as single pixels.
+    fn blend_rect(&mut self, a: BackendCoord, b: BackendCoord, color: BackendColor) {
+        let alpha = color.alpha.clamp(0.0, 1.0);
+        let (w, h) = (self.size.0 as i32, self.size.1 as i32);
+        let (x0, y0) = (a.0.min(b.0).max(0), a.1.min(b.1).max(0));
+        let (x1, y1) = (a.0.max(b.0).min(w), a.1.max(b.1).min(h));
+        if alpha == 0.0 || x0 >= x1 || y0 >= y1 {
+            return;
+        }
+        self.clear_stale();
+        // In (0, 256]: truncation is the floor the backend takes.
+        let a = (256.0 * alpha) as u32;
+        let (r, g, b) = color.rgb;
+        let count = (x1 - x0) as usize;
+        let in_lanes = 3 * ((count - 1) / 8 * 8);
+        for y in y0..y1 {
+            let start = 3 * (y as usize * w as usize + x0 as usize);
+            let (lanes, single) = self.rgb[start..start + 3 * count].split_at_mut(in_lanes);
+            for pixel in lanes.chunks_exact_mut(3) {
+                for (old, new) in pixel.iter_mut().zip([r, g, b]) {
+                    *old = ((u32::from(*old) * (256 - a) + u32::from(new) * a) >> 8) as u8;
+                }
+            }
+            for pixel in single.chunks_exact_mut(3) {
+                blend_pixel(pixel, (r, g, b), a);
+            }
+        }
+    }
+
     /// One pixel as the bitmap backend draws it: skipped off the image,
     /// set when nearly opaque, else each channel moved toward the colour
     /// by `floor(256 alpha) / 256` of the difference, rounded toward the
@@ -204,14 +237,21 @@ impl<'a> GlyphCachedBitmap<'a> {
             pixel.copy_from_slice(&[r, g, b]);
         } else if color.alpha > 0.0 {
             // In (0, 255): truncation is the floor the backend takes.
-            let a = (color.alpha * 256.0) as u32;
-            for (old, new) in pixel.iter_mut().zip([r, g, b]) {
-                if new > *old {
-                    *old += (u32::from(new - *old) * a / 256) as u8;
-                } else {
-                    *old -= (u32::from(*old - new) * a / 256) as u8;
-                }
-            }
+            blend_pixel(pixel, (r, g, b), (color.alpha * 256.0) as u32);
+        }
+    }
+}
+
+/// The bitmap backend's blend of one pixel by `a / 256`: each channel moves
+/// toward the colour by that share of the difference, rounded toward the
+/// old value.
+#[inline]
+fn blend_pixel(pixel: &mut [u8], (r, g, b): (u8, u8, u8), a: u32) {
+    for (old, new) in pixel.iter_mut().zip([r, g, b]) {
+        if new > *old {
+            *old += (u32::from(new - *old) * a / 256) as u8;
+        } else {
+            *old -= (u32::from(*old - new) * a / 256) as u8;
         }
     }
 }
@@ -250,8 +290,8 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         let color = style.color();
         if (from.0 == to.0 || from.1 == to.1) && style.stroke_width() == 1 {
             if color.alpha < 1.0 {
-                // Its translucent rectangle fill, with these corners.
-                return self.bitmap().draw_rect(from, (to.0 + 1, to.1 + 1), &color, true);
+                self.blend_rect(from, (to.0 + 1, to.1 + 1), color);
+                return Ok(());
             }
             if from.1 == to.1 {
                 self.fill_opaque(from, (to.0 + 1, to.1 + 1), color.rgb);
@@ -275,12 +315,21 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         }
         if style.color().alpha >= 1.0 {
             self.fill_opaque(upper_left, bottom_right, style.color().rgb);
-            return Ok(());
+        } else {
+            self.blend_rect(upper_left, bottom_right, style.color());
         }
-        self.bitmap().draw_rect(upper_left, bottom_right, style, fill)
+        Ok(())
     }
-    // Paths, circles and polygons: the trait's rasterizers, as the bitmap
-    // backend uses them, over the pixel and line calls above.
+    fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
+        &mut self,
+        vert: I,
+        style: &S,
+    ) -> Result<(), BitmapError> {
+        let vertices: Vec<BackendCoord> = vert.into_iter().collect();
+        super::raster::fill_polygon(self, &vertices, style)
+    }
+    // Paths and circles: the trait's rasterizers, as the bitmap backend uses
+    // them, over the pixel, line and polygon calls above.
     fn blit_bitmap(&mut self, pos: BackendCoord, size: (u32, u32), src: &[u8]) -> Result<(), BitmapError> {
         self.bitmap().blit_bitmap(pos, size, src)
     }
