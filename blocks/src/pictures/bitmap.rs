@@ -122,29 +122,43 @@ fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char
 pub struct GlyphCachedBitmap<'a> {
     rgb: &'a mut [u8],
     size: (u32, u32),
-    /// The buffer holds an earlier picture's pixels: it is zeroed before the
-    /// first drawing that may leave some of them showing.
-    stale: bool,
+    /// Rows not written yet, which hold `ground` as far as the picture is
+    /// concerned: zeros over a reused buffer, or the colour of an opaque
+    /// fill of the whole image. A row is written out when first drawn on,
+    /// and an opaque rectangle then writes the ground only beside itself,
+    /// so the background under a chart's panel is never written.
+    unpainted: Vec<bool>,
+    ground: [u8; 3],
 }
 
 impl<'a> GlyphCachedBitmap<'a> {
     /// A backend over `rgb` (3 bytes a pixel, rows top down); `stale` as
     /// [`with_pixel_buffer`] tells it.
     pub fn with_buffer(rgb: &'a mut [u8], size: (u32, u32), stale: bool) -> Self {
-        GlyphCachedBitmap { rgb, size, stale }
+        // A fresh buffer is zeroed already; a stale one is, in effect.
+        GlyphCachedBitmap { rgb, size, unpainted: vec![stale; size.1 as usize], ground: [0; 3] }
     }
 
-    /// Zero a stale buffer, as a fresh one would be.
-    fn clear_stale(&mut self) {
-        if self.stale {
-            self.rgb.fill(0);
-            self.stale = false;
+    /// Write out the ground of row `y` if it is still unpainted.
+    #[inline]
+    fn paint_row(&mut self, y: usize) {
+        if self.unpainted[y] {
+            self.unpainted[y] = false;
+            let stride = 3 * self.size.0 as usize;
+            fill_span(&mut self.rgb[y * stride..(y + 1) * stride], self.ground);
         }
     }
 
-    /// The bitmap backend over the buffer.
+    /// Write out the ground of rows `y0..y1` still unpainted.
+    fn paint_rows(&mut self, y0: i32, y1: i32) {
+        for y in y0.max(0)..y1.min(self.size.1 as i32) {
+            self.paint_row(y as usize);
+        }
+    }
+
+    /// The bitmap backend over the buffer, every row written out.
     fn bitmap(&mut self) -> BitMapBackend<'_> {
-        self.clear_stale();
+        self.paint_rows(0, self.size.1 as i32);
         BitMapBackend::with_buffer(self.rgb, self.size)
     }
 
@@ -158,18 +172,22 @@ impl<'a> GlyphCachedBitmap<'a> {
         if x0 >= x1 || y0 >= y1 {
             return;
         }
-        if self.stale && (x0, y0, x1, y1) == (0, 0, w, h) {
-            self.stale = false;
+        let colour = [rgb.0, rgb.1, rgb.2];
+        if (x0, y0, x1, y1) == (0, 0, w, h) {
+            self.ground = colour;
+            self.unpainted.fill(true);
+            return;
         }
-        self.clear_stale();
         let stride = 3 * w as usize;
         let (left, right) = (3 * x0 as usize, 3 * x1 as usize);
-        let first = y0 as usize * stride;
-        for pixel in self.rgb[first + left..first + right].chunks_exact_mut(3) {
-            pixel.copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
-        }
-        for y in y0 as usize + 1..y1 as usize {
-            self.rgb.copy_within(first + left..first + right, y * stride + left);
+        for y in y0 as usize..y1 as usize {
+            let row = &mut self.rgb[y * stride..(y + 1) * stride];
+            if self.unpainted[y] {
+                self.unpainted[y] = false;
+                fill_span(&mut row[..left], self.ground);
+                fill_span(&mut row[right..], self.ground);
+            }
+            fill_span(&mut row[left..right], colour);
         }
     }
 
@@ -181,6 +199,7 @@ impl<'a> GlyphCachedBitmap<'a> {
             return;
         }
         let (y0, y1) = (ys.0.min(ys.1).max(0), ys.0.max(ys.1).min(h - 1));
+        self.paint_rows(y0, y1 + 1);
         for y in y0..=y1 {
             let at = 3 * (y as usize * w as usize + x as usize);
             self.rgb[at..at + 3].copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
@@ -200,18 +219,25 @@ impl<'a> GlyphCachedBitmap<'a> {
         if alpha == 0.0 || x0 >= x1 || y0 >= y1 {
             return;
         }
-        self.clear_stale();
+        self.paint_rows(y0, y1);
         // In (0, 256]: truncation is the floor the backend takes.
         let a = (256.0 * alpha) as u32;
         let (r, g, b) = color.rgb;
         let count = (x1 - x0) as usize;
         let in_lanes = 3 * ((count - 1) / 8 * 8);
+        // Eight pixels' worth of `new * a`; `old * (256 - a) + new * a` is at
+        // most 255 * 256, so 16 bits hold it (as in the backend's lanes).
+        let keep = (256 - a) as u16;
+        let mut added = [0u16; 24];
+        for (k, v) in added.iter_mut().enumerate() {
+            *v = u16::from([r, g, b][k % 3]) * a as u16;
+        }
         for y in y0..y1 {
             let start = 3 * (y as usize * w as usize + x0 as usize);
             let (lanes, single) = self.rgb[start..start + 3 * count].split_at_mut(in_lanes);
-            for pixel in lanes.chunks_exact_mut(3) {
-                for (old, new) in pixel.iter_mut().zip([r, g, b]) {
-                    *old = ((u32::from(*old) * (256 - a) + u32::from(new) * a) >> 8) as u8;
+            for eight in lanes.chunks_exact_mut(24) {
+                for (old, add) in eight.iter_mut().zip(&added) {
+                    *old = ((u16::from(*old) * keep + add) >> 8) as u8;
                 }
             }
             for pixel in single.chunks_exact_mut(3) {
@@ -230,6 +256,7 @@ impl<'a> GlyphCachedBitmap<'a> {
         if x < 0 || y < 0 || x as u32 >= w || y as u32 >= h {
             return;
         }
+        self.paint_row(y as usize);
         let at = 3 * (y as usize * w as usize + x as usize);
         let pixel = &mut self.rgb[at..at + 3];
         let (r, g, b) = color.rgb;
@@ -239,6 +266,21 @@ impl<'a> GlyphCachedBitmap<'a> {
             // In (0, 255): truncation is the floor the backend takes.
             blend_pixel(pixel, (r, g, b), (color.alpha * 256.0) as u32);
         }
+    }
+}
+
+/// Set every pixel of `span` (whole pixels) to `rgb`, eight at a time.
+fn fill_span(span: &mut [u8], rgb: [u8; 3]) {
+    let mut eight = [0u8; 24];
+    for (k, v) in eight.iter_mut().enumerate() {
+        *v = rgb[k % 3];
+    }
+    let mut chunks = span.chunks_exact_mut(24);
+    for chunk in &mut chunks {
+        chunk.copy_from_slice(&eight);
+    }
+    for pixel in chunks.into_remainder().chunks_exact_mut(3) {
+        pixel.copy_from_slice(&rgb);
     }
 }
 
@@ -265,8 +307,8 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         self.size
     }
     // Called before every drawing; the bitmap backend's own, over a buffer,
-    // change no pixel. Going through `bitmap()` here would zero a stale
-    // buffer before the background is drawn over all of it.
+    // change no pixel. Going through `bitmap()` here would write out every
+    // row before the background is drawn.
     fn ensure_prepared(&mut self) -> Result<(), BitmapError> {
         Ok(())
     }
@@ -274,7 +316,6 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         Ok(())
     }
     fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError> {
-        self.clear_stale();
         self.put_pixel(point, color);
         Ok(())
     }
@@ -286,7 +327,6 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         to: BackendCoord,
         style: &S,
     ) -> Result<(), BitmapError> {
-        self.clear_stale();
         let color = style.color();
         if (from.0 == to.0 || from.1 == to.1) && style.stroke_width() == 1 {
             if color.alpha < 1.0 {
@@ -362,7 +402,6 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             VPos::Bottom => -height,
         };
         let trans = style.transform();
-        self.clear_stale();
         let drawn = GLYPHS.with(|cache| {
             cache.borrow_mut().draw_text(style.size(), text, |x, y, coverage| {
                 let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
@@ -373,6 +412,14 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             return self.bitmap().draw_text(text, style, pos);
         }
         Ok(())
+    }
+}
+
+/// The buffer holds the whole picture once the backend is gone, whether or
+/// not it was presented.
+impl Drop for GlyphCachedBitmap<'_> {
+    fn drop(&mut self) {
+        self.paint_rows(0, self.size.1 as i32);
     }
 }
 
@@ -390,9 +437,18 @@ mod tests {
 
     const SIZE: (u32, u32) = (320, 200);
 
-    fn scene<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, background: bool) {
+    fn scene<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, background: bool, sparse: bool) {
         if background {
             root.fill(&palette::PAPER).unwrap();
+        }
+        if sparse {
+            // A few rows drawn on, the rest left to the background: each
+            // drawing's first and last rows matter.
+            root.draw(&PathElement::new(vec![(3, 2), (3, 5)], palette::INK.stroke_width(1))).unwrap();
+            root.draw(&PathElement::new(vec![(10, 40), (60, 40)], palette::ALERT.mix(0.5).stroke_width(1))).unwrap();
+            root.draw(&Rectangle::new([(100, 80), (140, 84)], palette::BAND.mix(0.3).filled())).unwrap();
+            root.draw(&Pixel::new((200, 150), palette::TRACE)).unwrap();
+            return;
         }
         // Opaque rectangles: corners in either order, partly off the image.
         root.draw(&Rectangle::new([(30, 20), (10, 60)], palette::GATE.filled())).unwrap();
@@ -474,22 +530,26 @@ mod tests {
         }
     }
 
-    fn reference(background: bool) -> Vec<u8> {
+    fn reference(background: bool, sparse: bool) -> Vec<u8> {
         let mut rgb = vec![0u8; (SIZE.0 * SIZE.1 * 3) as usize];
         {
             let root = BitMapBackend::with_buffer(&mut rgb, SIZE).into_drawing_area();
-            scene(&root, background);
+            scene(&root, background, sparse);
             root.present().unwrap();
         }
         rgb
     }
 
-    fn ours(background: bool, stale: bool) -> Vec<u8> {
+    /// Our backend's pixels, on a fresh or a reused buffer, the rows not
+    /// drawn on written out by `present` or else when the backend is dropped.
+    fn ours(background: bool, sparse: bool, stale: bool, present: bool) -> Vec<u8> {
         let mut rgb: Vec<u8> = (0..SIZE.0 * SIZE.1 * 3).map(|i| if stale { (i * 7 % 251) as u8 } else { 0 }).collect();
         {
             let root = GlyphCachedBitmap::with_buffer(&mut rgb, SIZE, stale).into_drawing_area();
-            scene(&root, background);
-            root.present().unwrap();
+            scene(&root, background, sparse);
+            if present {
+                root.present().unwrap();
+            }
         }
         rgb
     }
@@ -497,14 +557,15 @@ mod tests {
     #[test]
     fn pixels_equal_the_bitmap_backends() {
         ensure_font().unwrap();
-        for background in [true, false] {
-            let expected = reference(background);
+        for (background, sparse) in [(true, false), (false, false), (true, true), (false, true)] {
+            let expected = reference(background, sparse);
             for stale in [false, true] {
-                // Twice: the second time every glyph comes from the cache.
-                for round in 0..2 {
-                    let got = ours(background, stale);
+                // Glyphs come from the cache after the first round.
+                for present in [true, false] {
+                    let got = ours(background, sparse, stale, present);
                     let differing = got.iter().zip(&expected).filter(|(a, b)| a != b).count();
-                    assert_eq!(differing, 0, "background {background}, stale buffer {stale}, round {round}");
+                    let case = format!("background {background}, sparse {sparse}, stale {stale}, presented {present}");
+                    assert_eq!(differing, 0, "{case}");
                 }
             }
         }
