@@ -3,23 +3,27 @@
 //!
 //! - Text: the font renderer outlines and rasterizes every character of
 //!   every label anew (a tenth of a picture's time). [`GlyphCachedBitmap`]
-//!   keeps each character's coverage per size and lays it down through the
-//!   same pixel calls, in the same order, with the same positions and alpha
-//!   the renderer computes (`plotters` 0.3 `FontDataInternal::draw` and the
-//!   backend's default `draw_text`, both reproduced step for step below).
+//!   keeps each character's coverage per size (one rasterization per run,
+//!   shared by the workers) and lays it down through the same pixel calls,
+//!   in the same order, with the same positions and alpha the renderer
+//!   computes (`plotters` 0.3 `FontDataInternal::draw` and the backend's
+//!   default `draw_text`, both reproduced step for step below).
 //! - Pixels: the bitmap backend draws lines, polygons and circles pixel by
-//!   pixel through its general entry point, which checks the image bounds
-//!   and picks the pixel format for each one. [`GlyphCachedBitmap`] runs
-//!   the same rasterizers (`plotters_backend::rasterizer`, as the bitmap
-//!   backend does) over its own pixel, line and rectangle calls, each the
-//!   bitmap backend's own for RGB pixels (`BitMapBackend::draw_pixel`,
-//!   `draw_line`, `draw_rect` and `RGBPixel`'s fills) written straight into
-//!   the buffer; translucent rectangles and blits still go to the backend.
+//!   pixel through its general entry point. [`GlyphCachedBitmap`] has its
+//!   own pixel, line and rectangle calls, each the bitmap backend's own
+//!   arithmetic for RGB pixels (`BitMapBackend::draw_pixel`, `draw_line`,
+//!   `draw_rect` and `RGBPixel`'s fills and blends) written straight into
+//!   the buffer, runs plotters' line and circle rasterizers over them, and
+//!   fills polygons (wide lines, areas) with a copy of plotters' polygon
+//!   scan that allocates once per polygon instead of once per scanline
+//!   (`raster.rs`).
 //! - Memory: a fresh multi-megabyte pixel buffer costs a page fault per
 //!   4 KiB on first touch; each worker keeps its buffer between pictures
-//!   ([`with_pixel_buffer`]). Zeroing it again is skipped when the first
-//!   drawing covers every pixel anyway (the background), and opaque
-//!   rectangles are filled a row at a time by copying the first row.
+//!   ([`with_pixel_buffer`]). The background, an opaque fill of the whole
+//!   image, is written a row at a time when the row is first drawn on, and
+//!   then only beside an opaque rectangle drawn there (a chart's panel), so
+//!   the ground under a panel is not written twice; an old picture left in
+//!   a reused buffer is treated as the zeros of a fresh one the same way.
 
 use super::FONT;
 use ab_glyph::{Font, FontRef, GlyphId, ScaleFont};
@@ -27,7 +31,8 @@ use plotters::prelude::*;
 use plotters_backend::text_anchor::{HPos, VPos};
 use plotters_backend::{BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingErrorKind};
 use std::cell::RefCell;
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
+use std::sync::{Arc, Mutex};
 
 /// A pixel buffer kept for the next picture only up to this size, so an
 /// unusually large picture does not hold its memory for the whole run.
@@ -70,10 +75,15 @@ struct Glyph {
     pixels: Vec<(i32, i32, f32)>,
 }
 
+/// Glyphs rasterized by any worker, so each character at each size is
+/// rasterized once per run; each worker keeps its own map of those it used
+/// so the lock is taken once per new character, not per character drawn.
+static SHARED_GLYPHS: Mutex<BTreeMap<(u64, char), Arc<Glyph>>> = Mutex::new(BTreeMap::new());
+
 #[derive(Default)]
 struct GlyphCache {
     font: Option<FontRef<'static>>,
-    glyphs: HashMap<(u64, char), Glyph>,
+    glyphs: HashMap<(u64, char), Arc<Glyph>>,
 }
 
 impl GlyphCache {
@@ -92,7 +102,11 @@ impl GlyphCache {
         let mut x_shift = 0f32;
         let mut prev: Option<GlyphId> = None;
         for c in text.chars() {
-            let glyph = self.glyphs.entry((size.to_bits(), c)).or_insert_with(|| rasterize(&font, size, c));
+            let key = (size.to_bits(), c);
+            let glyph = self.glyphs.entry(key).or_insert_with(|| {
+                let mut shared = SHARED_GLYPHS.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+                shared.entry(key).or_insert_with(|| Arc::new(rasterize(&font, size, c))).clone()
+            });
             if let Some(pc) = prev {
                 x_shift += font.kern(pc, glyph.id);
             }
