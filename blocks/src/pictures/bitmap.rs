@@ -143,6 +143,9 @@ pub struct GlyphCachedBitmap<'a> {
     /// so the background under a chart's panel is never written.
     unpainted: Vec<bool>,
     ground: [u8; 3],
+    /// Whole rows of the colours filled lately, copied from by the fills
+    /// (a row copy runs at memory speed; a pixel at a time does not).
+    rows_of: Vec<([u8; 3], Vec<u8>)>,
 }
 
 impl<'a> GlyphCachedBitmap<'a> {
@@ -150,7 +153,7 @@ impl<'a> GlyphCachedBitmap<'a> {
     /// [`with_pixel_buffer`] tells it.
     pub fn with_buffer(rgb: &'a mut [u8], size: (u32, u32), stale: bool) -> Self {
         // A fresh buffer is zeroed already; a stale one is, in effect.
-        GlyphCachedBitmap { rgb, size, unpainted: vec![stale; size.1 as usize], ground: [0; 3] }
+        GlyphCachedBitmap { rgb, size, unpainted: vec![stale; size.1 as usize], ground: [0; 3], rows_of: Vec::new() }
     }
 
     /// Write out the ground of row `y` if it is still unpainted.
@@ -159,7 +162,8 @@ impl<'a> GlyphCachedBitmap<'a> {
         if self.unpainted[y] {
             self.unpainted[y] = false;
             let stride = 3 * self.size.0 as usize;
-            fill_span(&mut self.rgb[y * stride..(y + 1) * stride], self.ground);
+            let ground = row_of(&mut self.rows_of, self.ground, stride);
+            self.rgb[y * stride..(y + 1) * stride].copy_from_slice(ground);
         }
     }
 
@@ -194,14 +198,20 @@ impl<'a> GlyphCachedBitmap<'a> {
         }
         let stride = 3 * w as usize;
         let (left, right) = (3 * x0 as usize, 3 * x1 as usize);
+        // The colour first: making the ground's row then drops the oldest,
+        // never the one just made.
+        row_of(&mut self.rows_of, colour, stride);
+        row_of(&mut self.rows_of, self.ground, stride);
+        let ground = &self.rows_of.iter().find(|(c, _)| *c == self.ground).expect("made above").1;
+        let filled = &self.rows_of.iter().find(|(c, _)| *c == colour).expect("made above").1;
         for y in y0 as usize..y1 as usize {
             let row = &mut self.rgb[y * stride..(y + 1) * stride];
             if self.unpainted[y] {
                 self.unpainted[y] = false;
-                fill_span(&mut row[..left], self.ground);
-                fill_span(&mut row[right..], self.ground);
+                row[..left].copy_from_slice(&ground[..left]);
+                row[right..].copy_from_slice(&ground[right..]);
             }
-            fill_span(&mut row[left..right], colour);
+            row[left..right].copy_from_slice(&filled[left..right]);
         }
     }
 
@@ -283,19 +293,20 @@ impl<'a> GlyphCachedBitmap<'a> {
     }
 }
 
-/// Set every pixel of `span` (whole pixels) to `rgb`, eight at a time.
-fn fill_span(span: &mut [u8], rgb: [u8; 3]) {
-    let mut eight = [0u8; 24];
-    for (k, v) in eight.iter_mut().enumerate() {
-        *v = rgb[k % 3];
-    }
-    let mut chunks = span.chunks_exact_mut(24);
-    for chunk in &mut chunks {
-        chunk.copy_from_slice(&eight);
-    }
-    for pixel in chunks.into_remainder().chunks_exact_mut(3) {
-        pixel.copy_from_slice(&rgb);
-    }
+/// A row of `len` bytes of colour `rgb` from `rows`, made (and the oldest
+/// of more than four dropped) if it is not there.
+fn row_of(rows: &mut Vec<([u8; 3], Vec<u8>)>, rgb: [u8; 3], len: usize) -> &[u8] {
+    let at = match rows.iter().position(|(c, _)| *c == rgb) {
+        Some(at) => at,
+        None => {
+            if rows.len() == 4 {
+                rows.remove(0);
+            }
+            rows.push((rgb, rgb.iter().copied().cycle().take(len).collect()));
+            rows.len() - 1
+        }
+    };
+    &rows[at].1
 }
 
 /// The bitmap backend's blend of one pixel by `a / 256`: each channel moves
