@@ -1,17 +1,29 @@
-//! The bitmap half of a picture: plotters' bitmap backend with two costs
+//! The bitmap half of a picture: plotters' bitmap backend with its costs
 //! taken out and its pixels left exactly as they were.
 //!
 //! - Text: the font renderer outlines and rasterizes every character of
 //!   every label anew (a tenth of a picture's time). [`GlyphCachedBitmap`]
-//!   keeps each character's coverage per size and lays it down through the
-//!   same pixel calls, in the same order, with the same positions and alpha
-//!   the renderer computes (`plotters` 0.3 `FontDataInternal::draw` and the
-//!   backend's default `draw_text`, both reproduced step for step below).
+//!   keeps each character's coverage per size (one rasterization per run,
+//!   shared by the workers) and lays it down through the same pixel calls,
+//!   in the same order, with the same positions and alpha the renderer
+//!   computes (`plotters` 0.3 `FontDataInternal::draw` and the backend's
+//!   default `draw_text`, both reproduced step for step below).
+//! - Pixels: the bitmap backend draws lines, polygons and circles pixel by
+//!   pixel through its general entry point. [`GlyphCachedBitmap`] has its
+//!   own pixel, line and rectangle calls, each the bitmap backend's own
+//!   arithmetic for RGB pixels (`BitMapBackend::draw_pixel`, `draw_line`,
+//!   `draw_rect` and `RGBPixel`'s fills and blends) written straight into
+//!   the buffer, runs plotters' line and circle rasterizers over them, and
+//!   fills polygons (wide lines, areas) with a copy of plotters' polygon
+//!   scan that allocates once per polygon instead of once per scanline
+//!   (`raster.rs`).
 //! - Memory: a fresh multi-megabyte pixel buffer costs a page fault per
 //!   4 KiB on first touch; each worker keeps its buffer between pictures
-//!   ([`with_pixel_buffer`]). Zeroing it again is skipped when the first
-//!   drawing covers every pixel anyway (the background), and opaque
-//!   rectangles are filled a row at a time by copying the first row.
+//!   ([`with_pixel_buffer`]). The background, an opaque fill of the whole
+//!   image, is written a row at a time when the row is first drawn on, and
+//!   then only beside an opaque rectangle drawn there (a chart's panel), so
+//!   the ground under a panel is not written twice; an old picture left in
+//!   a reused buffer is treated as the zeros of a fresh one the same way.
 
 use super::FONT;
 use ab_glyph::{Font, FontRef, GlyphId, ScaleFont};
@@ -19,7 +31,8 @@ use plotters::prelude::*;
 use plotters_backend::text_anchor::{HPos, VPos};
 use plotters_backend::{BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingErrorKind};
 use std::cell::RefCell;
-use std::collections::HashMap;
+use std::collections::{BTreeMap, HashMap};
+use std::sync::{Arc, Mutex};
 
 /// A pixel buffer kept for the next picture only up to this size, so an
 /// unusually large picture does not hold its memory for the whole run.
@@ -62,10 +75,15 @@ struct Glyph {
     pixels: Vec<(i32, i32, f32)>,
 }
 
+/// Glyphs rasterized by any worker, so each character at each size is
+/// rasterized once per run; each worker keeps its own map of those it used
+/// so the lock is taken once per new character, not per character drawn.
+static SHARED_GLYPHS: Mutex<BTreeMap<(u64, char), Arc<Glyph>>> = Mutex::new(BTreeMap::new());
+
 #[derive(Default)]
 struct GlyphCache {
     font: Option<FontRef<'static>>,
-    glyphs: HashMap<(u64, char), Glyph>,
+    glyphs: HashMap<(u64, char), Arc<Glyph>>,
 }
 
 impl GlyphCache {
@@ -84,7 +102,11 @@ impl GlyphCache {
         let mut x_shift = 0f32;
         let mut prev: Option<GlyphId> = None;
         for c in text.chars() {
-            let glyph = self.glyphs.entry((size.to_bits(), c)).or_insert_with(|| rasterize(&font, size, c));
+            let key = (size.to_bits(), c);
+            let glyph = self.glyphs.entry(key).or_insert_with(|| {
+                let mut shared = SHARED_GLYPHS.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+                shared.entry(key).or_insert_with(|| Arc::new(rasterize(&font, size, c))).clone()
+            });
             if let Some(pc) = prev {
                 x_shift += font.kern(pc, glyph.id);
             }
@@ -110,34 +132,51 @@ fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char
 }
 
 /// Plotters' bitmap backend over an RGB buffer, drawing text of our font
-/// from cached glyphs and opaque rectangles itself; everything else goes
-/// to the bitmap backend.
+/// from cached glyphs, and pixels, lines and opaque rectangles itself.
 pub struct GlyphCachedBitmap<'a> {
     rgb: &'a mut [u8],
     size: (u32, u32),
-    /// The buffer holds an earlier picture's pixels: it is zeroed before the
-    /// first drawing that may leave some of them showing.
-    stale: bool,
+    /// Rows not written yet, which hold `ground` as far as the picture is
+    /// concerned: zeros over a reused buffer, or the colour of an opaque
+    /// fill of the whole image. A row is written out when first drawn on,
+    /// and an opaque rectangle then writes the ground only beside itself,
+    /// so the background under a chart's panel is never written.
+    unpainted: Vec<bool>,
+    ground: [u8; 3],
+    /// Whole rows of the colours filled lately, copied from by the fills
+    /// (a row copy runs at memory speed; a pixel at a time does not).
+    rows_of: Vec<([u8; 3], Vec<u8>)>,
 }
 
 impl<'a> GlyphCachedBitmap<'a> {
     /// A backend over `rgb` (3 bytes a pixel, rows top down); `stale` as
     /// [`with_pixel_buffer`] tells it.
     pub fn with_buffer(rgb: &'a mut [u8], size: (u32, u32), stale: bool) -> Self {
-        GlyphCachedBitmap { rgb, size, stale }
+        // A fresh buffer is zeroed already; a stale one is, in effect.
+        GlyphCachedBitmap { rgb, size, unpainted: vec![stale; size.1 as usize], ground: [0; 3], rows_of: Vec::new() }
     }
 
-    /// Zero a stale buffer, as a fresh one would be.
-    fn clear_stale(&mut self) {
-        if self.stale {
-            self.rgb.fill(0);
-            self.stale = false;
+    /// Write out the ground of row `y` if it is still unpainted.
+    #[inline]
+    fn paint_row(&mut self, y: usize) {
+        if self.unpainted[y] {
+            self.unpainted[y] = false;
+            let stride = 3 * self.size.0 as usize;
+            let ground = row_of(&mut self.rows_of, self.ground, stride);
+            self.rgb[y * stride..(y + 1) * stride].copy_from_slice(ground);
         }
     }
 
-    /// The bitmap backend over the buffer.
+    /// Write out the ground of rows `y0..y1` still unpainted.
+    fn paint_rows(&mut self, y0: i32, y1: i32) {
+        for y in y0.max(0)..y1.min(self.size.1 as i32) {
+            self.paint_row(y as usize);
+        }
+    }
+
+    /// The bitmap backend over the buffer, every row written out.
     fn bitmap(&mut self) -> BitMapBackend<'_> {
-        self.clear_stale();
+        self.paint_rows(0, self.size.1 as i32);
         BitMapBackend::with_buffer(self.rgb, self.size)
     }
 
@@ -151,18 +190,135 @@ impl<'a> GlyphCachedBitmap<'a> {
         if x0 >= x1 || y0 >= y1 {
             return;
         }
-        if self.stale && (x0, y0, x1, y1) == (0, 0, w, h) {
-            self.stale = false;
+        let colour = [rgb.0, rgb.1, rgb.2];
+        if (x0, y0, x1, y1) == (0, 0, w, h) {
+            self.ground = colour;
+            self.unpainted.fill(true);
+            return;
         }
-        self.clear_stale();
         let stride = 3 * w as usize;
         let (left, right) = (3 * x0 as usize, 3 * x1 as usize);
-        let first = y0 as usize * stride;
-        for pixel in self.rgb[first + left..first + right].chunks_exact_mut(3) {
-            pixel.copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
+        // The colour first: making the ground's row then drops the oldest,
+        // never the one just made.
+        row_of(&mut self.rows_of, colour, stride);
+        row_of(&mut self.rows_of, self.ground, stride);
+        let ground = &self.rows_of.iter().find(|(c, _)| *c == self.ground).expect("made above").1;
+        let filled = &self.rows_of.iter().find(|(c, _)| *c == colour).expect("made above").1;
+        for y in y0 as usize..y1 as usize {
+            let row = &mut self.rgb[y * stride..(y + 1) * stride];
+            if self.unpainted[y] {
+                self.unpainted[y] = false;
+                row[..left].copy_from_slice(&ground[..left]);
+                row[right..].copy_from_slice(&ground[right..]);
+            }
+            row[left..right].copy_from_slice(&filled[left..right]);
         }
-        for y in y0 as usize + 1..y1 as usize {
-            self.rgb.copy_within(first + left..first + right, y * stride + left);
+    }
+
+    /// Set the pixels of column `x` from `ys.0` to `ys.1`, both included, as
+    /// the bitmap backend's opaque vertical line does.
+    fn fill_vertical(&mut self, x: i32, ys: (i32, i32), rgb: (u8, u8, u8)) {
+        let (w, h) = (self.size.0 as i32, self.size.1 as i32);
+        if x < 0 || x >= w {
+            return;
+        }
+        let (y0, y1) = (ys.0.min(ys.1).max(0), ys.0.max(ys.1).min(h - 1));
+        self.paint_rows(y0, y1 + 1);
+        for y in y0..=y1 {
+            let at = 3 * (y as usize * w as usize + x as usize);
+            self.rgb[at..at + 3].copy_from_slice(&[rgb.0, rgb.1, rgb.2]);
+        }
+    }
+
+    /// Blend `color` into the rectangle (clipped as [`Self::fill_opaque`]),
+    /// as the bitmap backend's translucent fill does: with `a = floor(256
+    /// alpha)`, each row's first `8 * floor((n - 1) / 8)` pixels become
+    /// `floor((old (256 - a) + new a) / 256)` (it blends those eight at a
+    /// time in 16-bit lanes) and the rest are blended as single pixels.
+    fn blend_rect(&mut self, a: BackendCoord, b: BackendCoord, color: BackendColor) {
+        let alpha = color.alpha.clamp(0.0, 1.0);
+        let (w, h) = (self.size.0 as i32, self.size.1 as i32);
+        let (x0, y0) = (a.0.min(b.0).max(0), a.1.min(b.1).max(0));
+        let (x1, y1) = (a.0.max(b.0).min(w), a.1.max(b.1).min(h));
+        if alpha == 0.0 || x0 >= x1 || y0 >= y1 {
+            return;
+        }
+        self.paint_rows(y0, y1);
+        // In (0, 256]: truncation is the floor the backend takes.
+        let a = (256.0 * alpha) as u32;
+        let (r, g, b) = color.rgb;
+        let count = (x1 - x0) as usize;
+        let in_lanes = 3 * ((count - 1) / 8 * 8);
+        // Eight pixels' worth of `new * a`; `old * (256 - a) + new * a` is at
+        // most 255 * 256, so 16 bits hold it (as in the backend's lanes).
+        let keep = (256 - a) as u16;
+        let mut added = [0u16; 24];
+        for (k, v) in added.iter_mut().enumerate() {
+            *v = u16::from([r, g, b][k % 3]) * a as u16;
+        }
+        for y in y0..y1 {
+            let start = 3 * (y as usize * w as usize + x0 as usize);
+            let (lanes, single) = self.rgb[start..start + 3 * count].split_at_mut(in_lanes);
+            for eight in lanes.chunks_exact_mut(24) {
+                for (old, add) in eight.iter_mut().zip(&added) {
+                    *old = ((u16::from(*old) * keep + add) >> 8) as u8;
+                }
+            }
+            for pixel in single.chunks_exact_mut(3) {
+                blend_pixel(pixel, (r, g, b), a);
+            }
+        }
+    }
+
+    /// One pixel as the bitmap backend draws it: skipped off the image,
+    /// set when nearly opaque, else each channel moved toward the colour
+    /// by `floor(256 alpha) / 256` of the difference, rounded toward the
+    /// old value.
+    #[inline]
+    fn put_pixel(&mut self, (x, y): BackendCoord, color: BackendColor) {
+        let (w, h) = self.size;
+        if x < 0 || y < 0 || x as u32 >= w || y as u32 >= h {
+            return;
+        }
+        self.paint_row(y as usize);
+        let at = 3 * (y as usize * w as usize + x as usize);
+        let pixel = &mut self.rgb[at..at + 3];
+        let (r, g, b) = color.rgb;
+        if color.alpha >= 1.0 - 1.0 / 256.0 {
+            pixel.copy_from_slice(&[r, g, b]);
+        } else if color.alpha > 0.0 {
+            // In (0, 255): truncation is the floor the backend takes.
+            blend_pixel(pixel, (r, g, b), (color.alpha * 256.0) as u32);
+        }
+    }
+}
+
+/// A row of `len` bytes of colour `rgb` from `rows`, made (and the oldest
+/// of more than four dropped) if it is not there.
+fn row_of(rows: &mut Vec<([u8; 3], Vec<u8>)>, rgb: [u8; 3], len: usize) -> &[u8] {
+    let at = match rows.iter().position(|(c, _)| *c == rgb) {
+        Some(at) => at,
+        None => {
+            if rows.len() == 4 {
+                rows.remove(0);
+            }
+            rows.push((rgb, rgb.iter().copied().cycle().take(len).collect()));
+            rows.len() - 1
+        }
+    };
+    &rows[at].1
+}
+
+/// The bitmap backend's blend of one pixel by `a / 256`: each channel moves
+/// toward the colour by that share of the difference, rounded toward the
+/// old value.
+#[inline]
+fn blend_pixel(pixel: &mut [u8], (r, g, b): (u8, u8, u8), a: u32) {
+    for (old, new) in pixel.iter_mut().zip([r, g, b]) {
+        if new > *old {
+            *old += (u32::from(new - *old) * a / 256) as u8;
+        } else {
+            *old -= (u32::from(*old - new) * a / 256) as u8;
         }
     }
 }
@@ -176,8 +332,8 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         self.size
     }
     // Called before every drawing; the bitmap backend's own, over a buffer,
-    // change no pixel. Going through `bitmap()` here would zero a stale
-    // buffer before the background is drawn over all of it.
+    // change no pixel. Going through `bitmap()` here would write out every
+    // row before the background is drawn.
     fn ensure_prepared(&mut self) -> Result<(), BitmapError> {
         Ok(())
     }
@@ -185,15 +341,31 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         Ok(())
     }
     fn draw_pixel(&mut self, point: BackendCoord, color: BackendColor) -> Result<(), BitmapError> {
-        self.bitmap().draw_pixel(point, color)
+        self.put_pixel(point, color);
+        Ok(())
     }
+    /// The bitmap backend's: one-pixel-wide level and upright lines as
+    /// rectangle fills, the rest by the rasterizer.
     fn draw_line<S: BackendStyle>(
         &mut self,
         from: BackendCoord,
         to: BackendCoord,
         style: &S,
     ) -> Result<(), BitmapError> {
-        self.bitmap().draw_line(from, to, style)
+        let color = style.color();
+        if (from.0 == to.0 || from.1 == to.1) && style.stroke_width() == 1 {
+            if color.alpha < 1.0 {
+                self.blend_rect(from, (to.0 + 1, to.1 + 1), color);
+                return Ok(());
+            }
+            if from.1 == to.1 {
+                self.fill_opaque(from, (to.0 + 1, to.1 + 1), color.rgb);
+            } else {
+                self.fill_vertical(from.0, (from.1, to.1), color.rgb);
+            }
+            return Ok(());
+        }
+        plotters_backend::rasterizer::draw_line(self, from, to, style)
     }
     fn draw_rect<S: BackendStyle>(
         &mut self,
@@ -202,36 +374,27 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
         style: &S,
         fill: bool,
     ) -> Result<(), BitmapError> {
-        // The bitmap backend's own test for its opaque fill.
-        if fill && style.color().alpha >= 1.0 {
-            self.fill_opaque(upper_left, bottom_right, style.color().rgb);
-            return Ok(());
+        // The bitmap backend's own choice between its fills and outlines.
+        if !fill {
+            return plotters_backend::rasterizer::draw_rect(self, upper_left, bottom_right, style, fill);
         }
-        self.bitmap().draw_rect(upper_left, bottom_right, style, fill)
-    }
-    fn draw_path<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
-        &mut self,
-        path: I,
-        style: &S,
-    ) -> Result<(), BitmapError> {
-        self.bitmap().draw_path(path, style)
-    }
-    fn draw_circle<S: BackendStyle>(
-        &mut self,
-        center: BackendCoord,
-        radius: u32,
-        style: &S,
-        fill: bool,
-    ) -> Result<(), BitmapError> {
-        self.bitmap().draw_circle(center, radius, style, fill)
+        if style.color().alpha >= 1.0 {
+            self.fill_opaque(upper_left, bottom_right, style.color().rgb);
+        } else {
+            self.blend_rect(upper_left, bottom_right, style.color());
+        }
+        Ok(())
     }
     fn fill_polygon<S: BackendStyle, I: IntoIterator<Item = BackendCoord>>(
         &mut self,
         vert: I,
         style: &S,
     ) -> Result<(), BitmapError> {
-        self.bitmap().fill_polygon(vert, style)
+        let vertices: Vec<BackendCoord> = vert.into_iter().collect();
+        super::raster::fill_polygon(self, &vertices, style)
     }
+    // Paths and circles: the trait's rasterizers, as the bitmap backend uses
+    // them, over the pixel, line and polygon calls above.
     fn blit_bitmap(&mut self, pos: BackendCoord, size: (u32, u32), src: &[u8]) -> Result<(), BitmapError> {
         self.bitmap().blit_bitmap(pos, size, src)
     }
@@ -264,22 +427,24 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             VPos::Bottom => -height,
         };
         let trans = style.transform();
-        let (w, h) = self.get_size();
-        let mut bitmap = self.bitmap();
-        let mut result = Ok(());
         let drawn = GLYPHS.with(|cache| {
             cache.borrow_mut().draw_text(style.size(), text, |x, y, coverage| {
                 let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
-                let (x, y) = (pos.0 + x, pos.1 + y);
-                if result.is_ok() && x >= 0 && x < w as i32 && y >= 0 && y < h as i32 {
-                    result = bitmap.draw_pixel((x, y), color.mix(coverage as f64));
-                }
+                self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
             })
         });
         if !drawn {
-            return bitmap.draw_text(text, style, pos);
+            return self.bitmap().draw_text(text, style, pos);
         }
-        result
+        Ok(())
+    }
+}
+
+/// The buffer holds the whole picture once the backend is gone, whether or
+/// not it was presented.
+impl Drop for GlyphCachedBitmap<'_> {
+    fn drop(&mut self) {
+        self.paint_rows(0, self.size.1 as i32);
     }
 }
 
@@ -297,9 +462,18 @@ mod tests {
 
     const SIZE: (u32, u32) = (320, 200);
 
-    fn scene<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, background: bool) {
+    fn scene<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, background: bool, sparse: bool) {
         if background {
             root.fill(&palette::PAPER).unwrap();
+        }
+        if sparse {
+            // A few rows drawn on, the rest left to the background: each
+            // drawing's first and last rows matter.
+            root.draw(&PathElement::new(vec![(3, 2), (3, 5)], palette::INK.stroke_width(1))).unwrap();
+            root.draw(&PathElement::new(vec![(10, 40), (60, 40)], palette::ALERT.mix(0.5).stroke_width(1))).unwrap();
+            root.draw(&Rectangle::new([(100, 80), (140, 84)], palette::BAND.mix(0.3).filled())).unwrap();
+            root.draw(&Pixel::new((200, 150), palette::TRACE)).unwrap();
+            return;
         }
         // Opaque rectangles: corners in either order, partly off the image.
         root.draw(&Rectangle::new([(30, 20), (10, 60)], palette::GATE.filled())).unwrap();
@@ -319,24 +493,88 @@ mod tests {
         let turned = text_style(14.0, palette::MUTED).transform(FontTransform::Rotate270);
         root.draw(&Text::new("power (dB)".to_string(), (20, 180), turned)).unwrap();
         root.draw(&Text::new("cut off at the right edge".to_string(), (250, 180), style)).unwrap();
+        let translucent = palette::TRACE.mix(0.5);
+        let faint = text_style(15.0, palette::INK).color(&translucent);
+        root.draw(&Text::new("translucent text".to_string(), (170, 40), faint)).unwrap();
+        lines(root);
+        shapes(root);
     }
 
-    fn reference(background: bool) -> Vec<u8> {
+    /// Lines of every kind the backend tells apart: level and upright ones
+    /// of one pixel (drawn either way, opaque or not), sloped ones steep and
+    /// shallow in all four directions, wide ones, and ones leaving the image.
+    fn lines<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>) {
+        let centre = (160, 100);
+        for (i, angle) in (0..24).map(|k| (k, k as f64 * std::f64::consts::PI / 12.0 + 0.05)) {
+            let r = 30.0 + 4.0 * i as f64;
+            let end = (centre.0 + (r * angle.cos()) as i32, centre.1 + (r * angle.sin()) as i32);
+            let colour = palette::lobe(i).mix(if i % 3 == 0 { 0.6 } else { 1.0 });
+            let width = [1, 1, 2, 3][i % 4];
+            root.draw(&PathElement::new(vec![centre, end], colour.stroke_width(width))).unwrap();
+        }
+        let level_and_upright =
+            [((40, 30), (90, 30)), ((90, 34), (40, 34)), ((70, 10), (70, 80)), ((74, 80), (74, 10))];
+        for (k, &(a, b)) in level_and_upright.iter().enumerate() {
+            let colour = if k % 2 == 0 { palette::ALERT.mix(1.0) } else { palette::TRACE.mix(0.35) };
+            root.draw(&PathElement::new(vec![a, b], colour.stroke_width(1))).unwrap();
+            let moved = |p: (i32, i32)| (p.0 + 200, p.1 + 100);
+            root.draw(&PathElement::new(vec![moved(a), moved(b)], colour.stroke_width(1))).unwrap();
+        }
+        // Leaving the image on every side, and wholly outside it.
+        let leaving =
+            [((-40, 20), (60, -30)), ((300, 150), (360, 260)), ((10, -5), (10, 250)), ((-20, 190), (400, 190))];
+        for &(a, b) in &leaving {
+            root.draw(&PathElement::new(vec![a, b], palette::INK.stroke_width(1))).unwrap();
+            root.draw(&PathElement::new(vec![(a.0 + 3, a.1 + 4), (b.0 + 3, b.1 + 4)], palette::GATE.stroke_width(3)))
+                .unwrap();
+        }
+        root.draw(&PathElement::new(vec![(-50, -50), (-10, -80)], palette::INK.stroke_width(1))).unwrap();
+        let zigzag: Vec<(i32, i32)> =
+            (0..40).map(|i| (8 * i - 10, 120 + if i % 2 == 0 { 0 } else { 9 + i % 5 })).collect();
+        root.draw(&PathElement::new(zigzag.clone(), palette::FLAG_EDGE.stroke_width(1))).unwrap();
+        let lower: Vec<(i32, i32)> = zigzag.iter().map(|p| (p.0, p.1 + 30)).collect();
+        root.draw(&PathElement::new(lower, palette::lobe(2).mix(0.7).stroke_width(2))).unwrap();
+    }
+
+    /// Filled and outlined shapes, translucent and opaque, some clipped.
+    fn shapes<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>) {
+        let concave = vec![(200, 20), (260, 60), (230, 70), (290, 130), (210, 110), (180, 150)];
+        root.draw(&Polygon::new(concave, palette::BAND.mix(0.7).filled())).unwrap();
+        let clipped = vec![(280, 150), (340, 170), (330, 230), (260, 215)];
+        root.draw(&Polygon::new(clipped, palette::GATE.filled())).unwrap();
+        let tall = vec![(100, 130), (112, 198), (92, 205)];
+        root.draw(&Polygon::new(tall, palette::ALERT.mix(0.4).filled())).unwrap();
+        root.draw(&Rectangle::new([(150, 160), (190, 190)], palette::FLAG_EDGE.mix(0.5).stroke_width(1))).unwrap();
+        for (k, &(x, y)) in [(40, 100), (120, 40), (318, 90), (5, 195), (250, 100)].iter().enumerate() {
+            let colour = palette::lobe(k).mix([1.0, 0.55, 0.3][k % 3]);
+            root.draw(&Circle::new((x, y), 2 + 3 * k as u32, colour.filled())).unwrap();
+            root.draw(&Circle::new((x + 6, y + 4), 4 + 2 * k as u32, colour.stroke_width(1))).unwrap();
+        }
+        for (k, &(x, y)) in [(0, 0), (319, 199), (-1, 5), (320, 5), (100, 200), (60, 70)].iter().enumerate() {
+            root.draw(&Pixel::new((x, y), palette::INK.mix([1.0, 0.99, 0.5, 0.003][k % 4]))).unwrap();
+        }
+    }
+
+    fn reference(background: bool, sparse: bool) -> Vec<u8> {
         let mut rgb = vec![0u8; (SIZE.0 * SIZE.1 * 3) as usize];
         {
             let root = BitMapBackend::with_buffer(&mut rgb, SIZE).into_drawing_area();
-            scene(&root, background);
+            scene(&root, background, sparse);
             root.present().unwrap();
         }
         rgb
     }
 
-    fn ours(background: bool, stale: bool) -> Vec<u8> {
+    /// Our backend's pixels, on a fresh or a reused buffer, the rows not
+    /// drawn on written out by `present` or else when the backend is dropped.
+    fn ours(background: bool, sparse: bool, stale: bool, present: bool) -> Vec<u8> {
         let mut rgb: Vec<u8> = (0..SIZE.0 * SIZE.1 * 3).map(|i| if stale { (i * 7 % 251) as u8 } else { 0 }).collect();
         {
             let root = GlyphCachedBitmap::with_buffer(&mut rgb, SIZE, stale).into_drawing_area();
-            scene(&root, background);
-            root.present().unwrap();
+            scene(&root, background, sparse);
+            if present {
+                root.present().unwrap();
+            }
         }
         rgb
     }
@@ -344,14 +582,15 @@ mod tests {
     #[test]
     fn pixels_equal_the_bitmap_backends() {
         ensure_font().unwrap();
-        for background in [true, false] {
-            let expected = reference(background);
+        for (background, sparse) in [(true, false), (false, false), (true, true), (false, true)] {
+            let expected = reference(background, sparse);
             for stale in [false, true] {
-                // Twice: the second time every glyph comes from the cache.
-                for round in 0..2 {
-                    let got = ours(background, stale);
+                // Glyphs come from the cache after the first round.
+                for present in [true, false] {
+                    let got = ours(background, sparse, stale, present);
                     let differing = got.iter().zip(&expected).filter(|(a, b)| a != b).count();
-                    assert_eq!(differing, 0, "background {background}, stale buffer {stale}, round {round}");
+                    let case = format!("background {background}, sparse {sparse}, stale {stale}, presented {present}");
+                    assert_eq!(differing, 0, "{case}");
                 }
             }
         }

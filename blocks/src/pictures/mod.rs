@@ -14,6 +14,7 @@ pub mod circular_sweep;
 pub mod discriminator_curve;
 pub mod lobe_timeline;
 pub mod range_trace;
+mod raster;
 pub mod split_pair;
 
 use crate::{BlockError, BlockSpec, FileStager};
