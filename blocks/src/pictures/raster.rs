@@ -2,7 +2,9 @@
 //! 0.3 `rasterizer::fill_polygon`), step for step and call for call, so
 //! the pixels are the same, without its per-scanline allocations and
 //! re-computed edge positions. Wide lines and wide paths are polygons, so
-//! this is where most of a chart's line drawing goes.
+//! this is where most of a chart's line drawing goes. The algorithm is
+//! adapted from plotters-backend (MIT licence, copyright the plotters
+//! developers), a dependency of this crate, so that its pixels are kept.
 //!
 //! The scan runs along the polygon's longer side ("master" axis); each
 //! edge crossing a scanline has a position on the other ("slave") axis.
