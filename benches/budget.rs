@@ -15,7 +15,9 @@
 //! Every figure is the best of 3 (LOBEFLOW_BENCH_RUNS), the variants taken in
 //! turn within each round so that load from elsewhere falls on all of them.
 //! `cargo bench --bench budget`; LOBEFLOW_BENCH_ONLY=short or =long runs one
-//! capture. The budget it checks is stated in DEVELOPERS.md.
+//! capture; LOBEFLOW_BENCH_BIN=PATH measures another build of `lobeflow`
+//! (an earlier one, for a before/after table) on the same captures. The
+//! budget it checks is stated in DEVELOPERS.md.
 
 // wait4 (the child's own peak resident set and CPU time) has no safe wrapper.
 #![allow(unsafe_code)]
@@ -27,7 +29,10 @@ use std::time::{Duration, Instant};
 mod common;
 use common::{plain_read, without_pictures};
 
-const BIN: &str = env!("CARGO_BIN_EXE_lobeflow");
+/// The binary measured: this build's, or LOBEFLOW_BENCH_BIN's.
+fn lobeflow_binary() -> PathBuf {
+    std::env::var_os("LOBEFLOW_BENCH_BIN").map_or_else(|| PathBuf::from(env!("CARGO_BIN_EXE_lobeflow")), PathBuf::from)
+}
 
 /// One capture to measure: the scenario's rate, length and file.
 struct Capture {
@@ -46,7 +51,7 @@ fn main() {
     let bare = dir.join("four-lobe-no-pictures.yaml");
     std::fs::write(&bare, without_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo))
         .expect("graph copy");
-    println!("lobeflow: {BIN}");
+    println!("lobeflow: {}", lobeflow_binary().display());
     println!("load average at start: {}", load_average());
 
     let tiny = synthesize(&repo, &dir, &Capture { name: "budget-10ms", rate_ms: 4, seconds: 0.01 });
@@ -146,7 +151,7 @@ fn measure(wav: &Path, full: &Path, bare: &Path, dir: &Path, runs: usize, numpy:
 
 /// The graph as a user runs it: `lobeflow run GRAPH --input WAV --out DIR`.
 fn run_graph(graph: &Path, wav: &Path, out: &Path, threads: usize) -> Cost {
-    let mut cmd = Command::new(BIN);
+    let mut cmd = Command::new(lobeflow_binary());
     cmd.arg("run").arg(graph).arg("--input").arg(wav).arg("--out").arg(out);
     cmd.args(["--quiet", "--threads", &threads.to_string()]);
     child_cost(&mut cmd)
@@ -191,7 +196,9 @@ fn synthesize(repo: &Path, dir: &Path, c: &Capture) -> PathBuf {
     let sc = dir.join(format!("{}.scenario.yaml", c.name));
     std::fs::write(&sc, scenario).expect("scenario copy");
     let t = Instant::now();
-    let cost = child_cost(Command::new(BIN).arg("synth").arg(&sc).arg("--out").arg(dir.join(c.name)));
+    let cost = child_cost(
+        Command::new(env!("CARGO_BIN_EXE_lobeflow")).arg("synth").arg(&sc).arg("--out").arg(dir.join(c.name)),
+    );
     let len = std::fs::metadata(&wav).map(|m| m.len()).unwrap_or(0);
     assert_eq!(len, samples * 12 + 68, "synthesized {} has an unexpected length", wav.display());
     println!("synthesized {} in {:.1} s ({:.1} s wall)", wav.display(), t.elapsed().as_secs_f64(), cost.wall);
