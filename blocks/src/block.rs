@@ -225,6 +225,29 @@ impl BlockSpec {
     pub fn param(&self, name: &str) -> Option<&ParamSpec> {
         self.params.iter().find(|p| p.name == name)
     }
+
+    /// Parameters for building this kind outside a graph file (embedding
+    /// code, tests): the declared defaults overridden by `set` (name, text;
+    /// a later pair wins), each text checked by its declaration as a graph
+    /// file value is. A required parameter left unset is left out, so
+    /// `build` names it. An unknown name or a value that does not parse is
+    /// an error naming the parameter.
+    pub fn params_from_text(&self, set: &[(&str, &str)]) -> Result<Params, String> {
+        if let Some((name, _)) = set.iter().find(|(name, _)| self.param(name).is_none()) {
+            return Err(format!("{} has no parameter '{name}'", self.kind));
+        }
+        let mut params = Params::new();
+        for spec in self.params {
+            let text = set.iter().rev().find(|(name, _)| *name == spec.name).map(|(_, text)| *text).or(spec.default);
+            if let Some(text) = text {
+                let value = spec
+                    .parse(&crate::param::RawValue::from_text(text))
+                    .map_err(|e| format!("{} parameter '{}': {e}", self.kind, spec.name))?;
+                params.insert(spec.name, value);
+            }
+        }
+        Ok(params)
+    }
 }
 
 /// Declares one instance of a kind whose ports and parameters depend on the
@@ -275,5 +298,22 @@ impl Registry {
     }
     pub fn kinds(&self) -> impl Iterator<Item = &BlockSpec> {
         self.kinds.values()
+    }
+}
+
+#[cfg(test)]
+mod params_from_text {
+    use crate::kinds::thin;
+
+    #[test]
+    fn defaults_overridden_by_the_last_setting_and_checked() {
+        let spec = &thin::SPEC;
+        assert_eq!(spec.params_from_text(&[]).unwrap().int("stride").unwrap(), 1);
+        let set = spec.params_from_text(&[("stride", "3"), ("stride", "7")]).unwrap();
+        assert_eq!(set.int("stride").unwrap(), 7);
+        let unknown = spec.params_from_text(&[("strides", "3")]).unwrap_err();
+        assert!(unknown.contains("no parameter 'strides'"), "{unknown}");
+        let bad = spec.params_from_text(&[("stride", "0")]).unwrap_err();
+        assert!(bad.contains("parameter 'stride'"), "{bad}");
     }
 }

@@ -6,7 +6,7 @@
 
 use lobeflow_blocks::dsp::switch_sync::learn_levels;
 use lobeflow_blocks::kinds::{lobe_gate, pulse_framer, sweep_gate};
-use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep};
+use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, SampleChunk, Stamp, Sweep};
 use num_complex::Complex32;
 
 const CAPTURE: &[u8] = include_bytes!("fixtures/gate_framer/capture.f32");
@@ -52,14 +52,7 @@ fn capture() -> SampleChunk {
 }
 
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        if let Some(t) = text {
-            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
-        }
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 /// Run one block over `items`; returns (port, item) outputs and report notices.

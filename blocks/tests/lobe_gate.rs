@@ -8,18 +8,11 @@
 
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::lobe_gate;
-use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp};
+use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, SampleChunk, Stamp};
 use num_complex::Complex32;
 
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        if let Some(t) = text {
-            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
-        }
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 /// A staircase sync: `switches[k]` is the exact instant where the value

@@ -4,7 +4,7 @@
 
 use lobeflow_blocks::dsp::rng::Rng;
 use lobeflow_blocks::kinds::{pulse_framer, sweep_gate};
-use lobeflow_blocks::{BlockError, BuildContext, Item, Notice, Outputs, Params, RawValue, SampleChunk, Stamp, Sweep};
+use lobeflow_blocks::{BlockError, BuildContext, Item, Notice, Outputs, Params, SampleChunk, Stamp, Sweep};
 use num_complex::Complex32;
 
 const RATE: f64 = 1e6;
@@ -17,14 +17,7 @@ const PHASE: u64 = 2;
 const FIRST_LOBE: u64 = 1;
 
 fn params(spec: &lobeflow_blocks::BlockSpec, set: &[(&str, &str)]) -> Params {
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        if let Some(t) = text {
-            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
-        }
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 fn tx(k: u64) -> u64 {

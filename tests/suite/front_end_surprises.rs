@@ -9,7 +9,7 @@ use lobeflow::capture::reader::{OpenOptions, open};
 use lobeflow::capture::roles::{NonFinite, RoleMap};
 use lobeflow::capture::source::CaptureSource;
 use lobeflow_blocks::kinds::{pulse_framer, sweep_gate};
-use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, RawValue, Sweep, TypedBlock};
+use lobeflow_blocks::{BlockSpec, BuildContext, Item, Notice, Outputs, Params, Sweep, TypedBlock};
 use std::path::PathBuf;
 
 const CAPTURE: &str = "tests/independent/captures/front-end-surprises";
@@ -64,14 +64,7 @@ fn chunks(chunk: usize) -> Vec<Item> {
 }
 
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set.iter().rev().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        if let Some(t) = text {
-            p.insert(ps.name, ps.parse(&RawValue::from_text(t)).expect("test parameter parses"));
-        }
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 /// Run one block over `items`: its sweeps, and its notices from either way out.

@@ -18,15 +18,7 @@ const RATE: f64 = 4e6;
 const SWEEP_LEN: usize = 2000;
 
 fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    let mut p = Params::new();
-    for ps in spec.params {
-        let text = set.iter().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        if let Some(t) = text {
-            let v = ps.parse(&RawValue::from_text(t)).unwrap_or_else(|e| panic!("{}: {e}", ps.name));
-            p.insert(ps.name, v);
-        }
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 /// A fresh directory under cargo's scratch space for integration tests

@@ -2,25 +2,13 @@
 //! declarations, running a block over items, and building dwell records.
 #![allow(dead_code)]
 
-use lobeflow_blocks::{
-    Block, BlockSpec, BuildContext, DwellRecord, Item, LobeTag, Notice, Outputs, Params, RawValue, Stamp,
-};
+use lobeflow_blocks::{Block, BlockSpec, BuildContext, DwellRecord, Item, LobeTag, Notice, Outputs, Params, Stamp};
 use std::sync::Arc;
 
 /// Parameters of `spec`: the declared defaults, overridden by `set`, each
 /// checked by its declaration like a graph file value.
 pub fn params(spec: &BlockSpec, set: &[(&str, &str)]) -> Params {
-    for (name, _) in set {
-        assert!(spec.param(name).is_some(), "{} has no parameter {name}", spec.kind);
-    }
-    let mut p = Params::new();
-    for ps in spec.params {
-        let raw = set.iter().find(|(n, _)| *n == ps.name).map(|(_, v)| *v).or(ps.default);
-        let raw = raw.unwrap_or_else(|| panic!("test must set required parameter {}", ps.name));
-        let v = ps.parse(&RawValue::from_text(raw)).unwrap_or_else(|e| panic!("{}: {e}", ps.name));
-        p.insert(ps.name, v);
-    }
-    p
+    spec.params_from_text(set).unwrap_or_else(|e| panic!("test parameters: {e}"))
 }
 
 pub fn build(spec: &BlockSpec, set: &[(&str, &str)]) -> Result<Box<dyn Block>, lobeflow_blocks::BuildError> {
