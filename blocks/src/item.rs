@@ -135,6 +135,7 @@ impl Stamp {
         Stamp { index, rate }
     }
     /// Seconds from the capture's first sample.
+    #[inline]
     pub fn seconds(&self) -> f64 {
         self.index as f64 / self.rate
     }
@@ -168,6 +169,7 @@ pub struct SampleChunk {
 }
 
 impl SampleChunk {
+    #[inline]
     pub fn len(&self) -> usize {
         self.iq.len()
     }
@@ -504,6 +506,7 @@ impl ItemKind {
 }
 
 impl Item {
+    #[inline]
     pub fn kind(&self) -> ItemKind {
         match self {
             Item::Samples(_) => ItemKind::Samples,
@@ -518,6 +521,7 @@ impl Item {
     }
 
     /// When the item happened; the scheduler merges multiple inputs by it.
+    #[inline]
     pub fn stamp(&self) -> Stamp {
         match self {
             Item::Samples(c) => c.stamp,
@@ -532,6 +536,7 @@ impl Item {
     }
 
     /// Number of raw samples the item carries (for statistics).
+    #[inline]
     pub fn sample_count(&self) -> usize {
         match self {
             Item::Samples(c) => c.len(),
