@@ -3,11 +3,11 @@
 //!
 //! - Text: the font renderer outlines and rasterizes every character of
 //!   every label anew (a tenth of a picture's time). [`GlyphCachedBitmap`]
-//!   keeps each character's coverage per size (one rasterization per run,
-//!   shared by the workers) and lays it down through the same pixel calls,
-//!   in the same order, with the same positions and alpha the renderer
-//!   computes (`plotters` 0.3 `FontDataInternal::draw` and the backend's
-//!   default `draw_text`, both reproduced step for step below).
+//!   takes each character's coverage from the glyph cache (`glyphs.rs`,
+//!   one rasterization per character and size per run, shared by the
+//!   workers) and lays it down through the same pixel calls, in the same
+//!   order, with the same positions and alpha as the backend's default
+//!   `draw_text` (reproduced step for step below).
 //! - Pixels: the bitmap backend draws lines, polygons and circles pixel by
 //!   pixel through its general entry point. [`GlyphCachedBitmap`] has its
 //!   own pixel, line and rectangle calls, each the bitmap backend's own
@@ -26,13 +26,11 @@
 //!   a reused buffer is treated as the zeros of a fresh one the same way.
 
 use super::FONT;
-use ab_glyph::{Font, FontRef, GlyphId, ScaleFont};
+use super::glyphs;
 use plotters::prelude::*;
 use plotters_backend::text_anchor::{HPos, VPos};
 use plotters_backend::{BackendColor, BackendCoord, BackendStyle, BackendTextStyle, DrawingErrorKind};
 use std::cell::RefCell;
-use std::collections::{BTreeMap, HashMap};
-use std::sync::{Arc, Mutex};
 
 /// A pixel buffer kept for the next picture only up to this size, so an
 /// unusually large picture does not hold its memory for the whole run.
@@ -45,7 +43,6 @@ const NEW_BUFFER_BYTES: usize = 8 << 20;
 
 thread_local! {
     static PIXELS: RefCell<Vec<u8>> = const { RefCell::new(Vec::new()) };
-    static GLYPHS: RefCell<GlyphCache> = RefCell::new(GlyphCache::default());
 }
 
 /// Run `f` on a buffer of `len` bytes and whether it holds an earlier
@@ -64,71 +61,6 @@ pub fn with_pixel_buffer<T>(len: usize, f: impl FnOnce(&mut [u8], bool) -> T) ->
         PIXELS.with(|b| *b.borrow_mut() = buf);
     }
     result
-}
-
-/// One character at one size as the font renderer draws it with its pen at
-/// the origin.
-struct Glyph {
-    id: GlyphId,
-    /// Pixels the outline covers: offset from the pen (the renderer's
-    /// vertical shift included) and coverage, in the renderer's order.
-    pixels: Vec<(i32, i32, f32)>,
-}
-
-/// Glyphs rasterized by any worker, so each character at each size is
-/// rasterized once per run; each worker keeps its own map of those it used
-/// so the lock is taken once per new character, not per character drawn.
-static SHARED_GLYPHS: Mutex<BTreeMap<(u64, char), Arc<Glyph>>> = Mutex::new(BTreeMap::new());
-
-#[derive(Default)]
-struct GlyphCache {
-    font: Option<FontRef<'static>>,
-    glyphs: HashMap<(u64, char), Arc<Glyph>>,
-}
-
-impl GlyphCache {
-    fn font(&mut self) -> Option<FontRef<'static>> {
-        if self.font.is_none() {
-            self.font = FontRef::try_from_slice(super::FONT_BYTES).ok();
-        }
-        self.font.clone()
-    }
-
-    /// Call `draw(x, y, coverage)` for every pixel of `text` at `size`, as
-    /// `FontDataInternal::draw` does with its pen at (0, 0).
-    fn draw_text(&mut self, size: f64, text: &str, mut draw: impl FnMut(i32, i32, f32)) -> bool {
-        let Some(font_ref) = self.font() else { return false };
-        let font = font_ref.as_scaled(size as f32);
-        let mut x_shift = 0f32;
-        let mut prev: Option<GlyphId> = None;
-        for c in text.chars() {
-            let key = (size.to_bits(), c);
-            let glyph = self.glyphs.entry(key).or_insert_with(|| {
-                let mut shared = SHARED_GLYPHS.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
-                shared.entry(key).or_insert_with(|| Arc::new(rasterize(&font, size, c))).clone()
-            });
-            if let Some(pc) = prev {
-                x_shift += font.kern(pc, glyph.id);
-            }
-            prev = Some(glyph.id);
-            let x0 = x_shift as i32;
-            for &(x, y, coverage) in &glyph.pixels {
-                draw(x + x0, y, coverage);
-            }
-            x_shift += font.h_advance(glyph.id);
-        }
-        true
-    }
-}
-
-fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char) -> Glyph {
-    let id = font.glyph_id(c);
-    let mut pixels = Vec::new();
-    if let Some(outline) = font.outline_glyph(font.scaled_glyph(c)) {
-        let y_shift = ((size as f32) / 2.0 + outline.px_bounds().min.y) as i32;
-        outline.draw(|x, y, coverage| pixels.push((x as i32, y as i32 + y_shift, coverage)));
-    }
-    Glyph { id, pixels }
 }
 
 /// Plotters' bitmap backend over an RGB buffer, drawing text of our font
@@ -427,11 +359,9 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             VPos::Bottom => -height,
         };
         let trans = style.transform();
-        let drawn = GLYPHS.with(|cache| {
-            cache.borrow_mut().draw_text(style.size(), text, |x, y, coverage| {
-                let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
-                self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
-            })
+        let drawn = glyphs::draw_text(style.size(), text, |x, y, coverage| {
+            let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
+            self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
         });
         if !drawn {
             return self.bitmap().draw_text(text, style, pos);

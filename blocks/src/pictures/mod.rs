@@ -12,6 +12,7 @@ pub mod bitmap;
 pub mod circular;
 pub mod circular_sweep;
 pub mod discriminator_curve;
+mod glyphs;
 pub mod lobe_timeline;
 pub mod range_trace;
 mod raster;
