@@ -4,6 +4,7 @@
 pub mod datatype;
 pub mod error;
 pub mod live;
+mod mapped;
 pub mod raw;
 pub mod reader;
 pub mod roles;

@@ -3,7 +3,7 @@
 
 use super::datatype::DataType;
 use super::error::CaptureError;
-use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions};
+use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, OpenOptions};
 use crate::MAX_SAMPLE_RATE;
 use crate::param::num_text;
 use std::fs::File;
@@ -57,7 +57,7 @@ pub fn open_raw(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     if let Some(len) = len {
         check_whole_frames(&info, len)?;
     }
-    Ok(Box::new(FrameStream::new(info, BufReader::with_capacity(1 << 16, file))))
+    Ok(super::mapped::file_frames(info, BufReader::with_capacity(1 << 16, file)))
 }
 
 /// The length of a regular file; None for a FIFO, socket or character

@@ -177,6 +177,19 @@ pub trait CaptureReader: Send {
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError>;
     /// Bytes of sample data read so far.
     fn bytes_read(&self) -> u64;
+    /// Lend up to `max_frames` frames straight from the reader's own memory
+    /// (a mapped file's page cache) instead of copying them: their number,
+    /// then [`CaptureReader::lent`] views them. Fewer than asked only at the
+    /// end of the data. `None` when this reader cannot lend them (not a
+    /// mapped file, not little-endian float32, or more than one read
+    /// takes): use [`CaptureReader::read_frames`].
+    fn lend_frames(&mut self, _max_frames: usize) -> Result<Option<usize>, BlockError> {
+        Ok(None)
+    }
+    /// The frames of the last [`CaptureReader::lend_frames`].
+    fn lent(&self) -> &[f32] {
+        &[]
+    }
     /// A live input (a pipe, a FIFO, pushed samples): read without waiting
     /// for whole chunks.
     fn as_live(&mut self) -> Option<&mut super::live::LiveReader> {
@@ -192,8 +205,8 @@ pub const MAX_READ_BYTES: usize = 16 << 20;
 /// reading loop behind every format.
 pub struct FrameStream<R> {
     info: CaptureInfo,
-    inner: R,
-    done_bytes: u64,
+    pub(super) inner: R,
+    pub(super) done_bytes: u64,
     buf: Vec<u8>,
 }
 
@@ -201,6 +214,41 @@ impl<R: Read + Send> FrameStream<R> {
     pub fn new(info: CaptureInfo, inner: R) -> Self {
         FrameStream { info, inner, done_bytes: 0, buf: Vec::new() }
     }
+}
+
+impl<R> FrameStream<R> {
+    /// Bytes the next read of up to `max_frames` frames takes: whole
+    /// frames, at most [`MAX_READ_BYTES`] (one frame at least) and what is
+    /// left of the data.
+    pub(super) fn want_bytes(&self, max_frames: usize) -> usize {
+        let frame_bytes = self.info.frame_bytes();
+        let want = max_frames.min((MAX_READ_BYTES / frame_bytes.max(1)).max(1)).saturating_mul(frame_bytes);
+        match self.info.data_bytes {
+            Some(total) => want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX)),
+            None => want,
+        }
+    }
+
+    /// Count `whole` bytes of whole frames as read: their number of frames.
+    /// Nothing at all where a sample was asked for is an error.
+    pub(super) fn advance(&mut self, whole: usize, max_frames: usize) -> Result<usize, BlockError> {
+        if whole == 0 && self.done_bytes == 0 && max_frames > 0 {
+            let found = match self.info.data_bytes {
+                Some(_) => "its sample data is 0 bytes long",
+                None => "the stream ended before its first sample",
+            };
+            return Err(BlockError::at(format!("{}: the capture holds no samples: {found}", self.info.path), 0));
+        }
+        self.done_bytes += whole as u64;
+        Ok(whole / self.info.frame_bytes().max(1))
+    }
+}
+
+/// Little-endian float32 on a little-endian machine is already in its
+/// final form: no decoding, and it may be viewed as floats where it lies.
+pub(super) fn is_native_f32(encoding: &Encoding) -> bool {
+    matches!(encoding, Encoding::Type(t) if t.format == SampleFormat::F32 && !t.big_endian)
+        && cfg!(target_endian = "little")
 }
 
 impl<R: Read + Send> CaptureReader for FrameStream<R> {
@@ -214,16 +262,10 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
 
     fn read_frames(&mut self, max_frames: usize, out: &mut Vec<f32>) -> Result<usize, BlockError> {
         let frame_bytes = self.info.frame_bytes();
-        let mut want = max_frames.min((MAX_READ_BYTES / frame_bytes.max(1)).max(1)).saturating_mul(frame_bytes);
-        if let Some(total) = self.info.data_bytes {
-            want = want.min(usize::try_from(total - self.done_bytes).unwrap_or(usize::MAX));
-        }
-        // Little-endian float32 on a little-endian machine is already in its
-        // final form: read it straight into `out` and skip a copy and a decode
-        // (the common case for large captures).
-        let native = matches!(self.info.encoding, Encoding::Type(t) if t.format == SampleFormat::F32 && !t.big_endian)
-            && cfg!(target_endian = "little");
-        let whole = if native {
+        let want = self.want_bytes(max_frames);
+        // Native floats are read straight into `out`, which skips a copy and
+        // a decode (the common case for large captures).
+        let whole = if is_native_f32(&self.info.encoding) {
             // A reused buffer of the right length is overwritten as it is:
             // only growth pays for zero-filling.
             out.resize(want / 4, 0.0);
@@ -242,15 +284,7 @@ impl<R: Read + Send> CaptureReader for FrameStream<R> {
             self.buf = buf;
             whole?
         };
-        if whole == 0 && self.done_bytes == 0 && max_frames > 0 {
-            let found = match self.info.data_bytes {
-                Some(_) => "its sample data is 0 bytes long",
-                None => "the stream ended before its first sample",
-            };
-            return Err(BlockError::at(format!("{}: the capture holds no samples: {found}", self.info.path), 0));
-        }
-        self.done_bytes += whole as u64;
-        Ok(whole / frame_bytes.max(1))
+        self.advance(whole, max_frames)
     }
 }
 

@@ -186,16 +186,30 @@ impl RoleMap {
         replaced: &mut Replaced,
         pools: &ChunkPools,
     ) -> Result<SampleChunk, BlockError> {
-        let check = info.encoding.is_float();
         // Fast path, taken almost always: every value finite (or integer data).
         if self.is_plain_iq()
             && frames.len().is_multiple_of(2)
             && frames.capacity().is_multiple_of(2)
-            && (!check || all_finite(frames))
+            && (!info.encoding.is_float() || all_finite(frames))
         {
             let iq = Span::pooled(into_complex(std::mem::take(frames)), &pools.iq);
             return Ok(SampleChunk { stamp: Stamp::new(first, info.rate), iq, sync: None, trigger: None });
         }
+        self.split_chunk(frames, first, info, policy, replaced, pools)
+    }
+
+    /// [`Self::chunk`] from frames it cannot take over (say, lent from a
+    /// mapped file): every layout is split into buffers from `pools`.
+    pub fn split_chunk(
+        &self,
+        frames: &[f32],
+        first: u64,
+        info: &CaptureInfo,
+        policy: NonFinite,
+        replaced: &mut Replaced,
+        pools: &ChunkPools,
+    ) -> Result<SampleChunk, BlockError> {
+        let check = info.encoding.is_float();
         let mut iq = pools.iq.take_as_left();
         let mut sync = self.sync.map(|_| pools.real.take_as_left());
         let mut trigger = self.trigger.map(|_| pools.real.take_as_left());

@@ -6,7 +6,7 @@ use super::datatype::DataType;
 use super::error::CaptureError;
 use super::raw::{check_channels, check_whole_frames, regular_file_len};
 use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
+    CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate,
 };
 use super::sigmf_meta::{Capture, SigmfMeta};
 use serde_json::Value;
@@ -153,7 +153,7 @@ pub fn open_sigmf(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReade
             ),
         });
     }
-    Ok(Box::new(FrameStream::new(info, input)))
+    Ok(super::mapped::file_frames(info, input))
 }
 
 /// How the metadata says the data file is laid out, checked against the

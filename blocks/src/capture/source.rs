@@ -124,6 +124,20 @@ impl TypedBlock for CaptureSource {
         if self.reader.as_live().is_some() {
             return self.generate_live(out);
         }
+        // A mapped file lends its frames to be split where they lie. Plain
+        // (I, Q) chunks copy them into a chunk buffer through `read_frames`
+        // instead: one copy either way, and a plain copy is the cheaper.
+        if !self.roles.is_plain_iq()
+            && let Some(n) = self.reader.lend_frames(self.chunk)?
+        {
+            if n == 0 {
+                self.segment_notices(0, out);
+                self.end_notices(out);
+                return Ok(false);
+            }
+            self.emit(n, true, out)?;
+            return Ok(true);
+        }
         if self.frames.capacity() == 0 && self.roles.is_plain_iq() {
             // Plain (I, Q) chunks take the read buffer over: read into a returned one.
             self.frames = from_complex(self.pools.iq.take_as_left());
@@ -143,7 +157,7 @@ impl TypedBlock for CaptureSource {
             self.end_notices(out);
             return Ok(false);
         }
-        self.emit(n, out)?;
+        self.emit(n, false, out)?;
         Ok(true)
     }
 
@@ -292,17 +306,16 @@ impl CaptureSource {
         }
     }
 
-    /// Emit the `n` frames read into `self.frames` as one chunk.
-    fn emit(&mut self, n: usize, out: &mut Outputs) -> Result<(), BlockError> {
+    /// Emit `n` frames as one chunk: those the reader lent, or those read
+    /// into `self.frames`.
+    fn emit(&mut self, n: usize, lent: bool, out: &mut Outputs) -> Result<(), BlockError> {
         self.segment_notices(n as u64, out);
-        let chunk = self.roles.chunk(
-            &mut self.frames,
-            self.next,
-            self.reader.info(),
-            self.nonfinite,
-            &mut self.replaced,
-            &self.pools,
-        )?;
+        let (info, policy, replaced, pools) = (self.reader.info(), self.nonfinite, &mut self.replaced, &self.pools);
+        let chunk = if lent {
+            self.roles.split_chunk(self.reader.lent(), self.next, info, policy, replaced, pools)?
+        } else {
+            self.roles.chunk(&mut self.frames, self.next, info, policy, replaced, pools)?
+        };
         self.next += n as u64;
         out.push(ReaderOut::Samples, Item::Samples(chunk));
         Ok(())
@@ -337,7 +350,7 @@ impl CaptureSource {
                 self.end_notices(out);
                 Ok(false)
             }
-            Some(n) => self.emit(n, out).map(|_| true),
+            Some(n) => self.emit(n, false, out).map(|_| true),
         }
     }
 }

@@ -6,7 +6,7 @@ use super::datatype::{DataType, SampleFormat};
 use super::error::{CaptureError, Place};
 use super::raw::check_whole_frames;
 use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, FrameStream, OpenOptions, agree_channels, agree_rate,
+    CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate,
 };
 use std::fs::File;
 use std::io::{BufReader, Read};
@@ -78,7 +78,7 @@ pub fn open_wav(path: &str, opts: &OpenOptions) -> Result<Box<dyn CaptureReader>
     if let Some(n) = data_bytes {
         check_whole_frames(&info, n)?;
     }
-    Ok(Box::new(FrameStream::new(info, input)))
+    Ok(super::mapped::file_frames(info, input))
 }
 
 /// What the RIFF header of a WAV file says, read front to back without
