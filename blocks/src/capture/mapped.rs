@@ -66,7 +66,7 @@ mod linux {
     /// Bytes mapped at once (more when one read needs more). A window is
     /// unmapped when the reading leaves it: its pages count toward the
     /// resident set while mapped.
-    const WINDOW_BYTES: usize = 2 << 20;
+    const WINDOW_BYTES: usize = 512 << 10;
     /// Windows start, and populated ranges are rounded down, to multiples of
     /// this: a multiple of every usual page size (mmap offsets and madvise
     /// addresses must be page-aligned; a larger page makes mmap fail, and
@@ -173,7 +173,8 @@ mod linux {
                 // As the read path: a reused buffer of the right length is
                 // overwritten as it is.
                 out.resize(want / 4, 0.0);
-                bytemuck::cast_slice_mut::<f32, u8>(&mut out[..]).copy_from_slice(bytes);
+                let dest = bytemuck::cast_slice_mut::<f32, u8>(&mut out[..]);
+                dest.copy_from_slice(bytes);
             } else {
                 out.clear();
                 encoding.decode(bytes, out);

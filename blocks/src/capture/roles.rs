@@ -392,8 +392,14 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
 fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> (usize, bool) {
     use std::arch::x86_64::{
         _mm_add_ps, _mm_cmpord_ps, _mm_loadu_ps, _mm_movemask_ps, _mm_setzero_ps, _mm_shuffle_ps, _mm_storeu_ps,
-        _mm_sub_ps,
+        _MM_HINT_T0, _mm_prefetch, _mm_sub_ps,
     };
+    // Frames lent by a mapped file come from memory, not from a buffer the
+    // kernel has just filled, and the hardware prefetcher stops at each
+    // 4 KiB page: asking for the line 8 KiB ahead hides that stall (the
+    // split's user time on the 1 GiB capture 0.12-0.14 s -> 0.08-0.10 s;
+    // 4 to 32 KiB ahead measured alike).
+    const PREFETCH_FLOATS: usize = 2048;
     let groups = frames.as_chunks::<12>().0;
     let iq4 = iq.as_chunks_mut::<4>().0;
     let sync4 = sync.as_chunks_mut::<4>().0;
@@ -407,6 +413,8 @@ fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]
         // of the group's twelve floats, each store writes four floats of a
         // [Complex32; 4] (eight floats, `Complex` is repr(C)) or of a [f32; 4].
         unsafe {
+            // Never faults, wherever it points (the pointer is only a hint).
+            _mm_prefetch::<_MM_HINT_T0>(g.as_ptr().wrapping_add(PREFETCH_FLOATS).cast());
             // a = i0 q0 s0 i1, b = q1 s1 i2 q2, c = s2 i3 q3 s3
             let a = _mm_loadu_ps(g.as_ptr());
             let b = _mm_loadu_ps(g.as_ptr().add(4));
