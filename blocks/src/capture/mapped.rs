@@ -102,7 +102,13 @@ mod linux {
             // whole floats, so the data start decides the floats' alignment.
             let lendable = is_native_f32(&info.encoding) && info.data_offset.is_multiple_of(4);
             let at = info.data_offset;
-            MappedStream { stream: FrameStream::new(info, FileAt { file, at }), window: None, mapping: true, lendable, lent: 0..0 }
+            MappedStream {
+                stream: FrameStream::new(info, FileAt { file, at }),
+                window: None,
+                mapping: true,
+                lendable,
+                lent: 0..0,
+            }
         }
 
         /// The next `want` bytes of data (1 or more), mapped and populated:
@@ -276,5 +282,251 @@ mod linux {
                 libc::munmap(self.ptr.as_ptr().cast(), self.len);
             }
         }
+    }
+}
+
+#[cfg(all(test, target_os = "linux"))]
+mod tests {
+    use super::linux::MappedStream;
+    use crate::capture::reader::{CaptureInfo, CaptureReader, Format, FrameStream, OpenOptions, open};
+    use crate::capture::roles::{NonFinite, RoleMap};
+    use crate::capture::source::CaptureSource;
+    use crate::{Item, TypedBlock};
+    use num_complex::Complex32;
+    use std::fs::File;
+    use std::io::{BufReader, Seek, SeekFrom, Write};
+    use std::path::{Path, PathBuf};
+
+    fn scratch(name: &str) -> PathBuf {
+        let dir = std::env::temp_dir().join(format!("lobeflow-mapped-unit-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap_or_else(|e| panic!("{e}"));
+        dir.join(name)
+    }
+
+    /// What a capture source made of a capture: chunks (first sample, I/Q,
+    /// sync), the progress after each, the notices and the error, if any.
+    #[derive(Debug, PartialEq)]
+    struct Made {
+        chunks: Vec<(u64, Vec<Complex32>, Option<Vec<f32>>)>,
+        progress: Vec<Option<(u64, u64)>>,
+        notices: Vec<String>,
+        error: Option<(String, Option<u64>)>,
+    }
+
+    /// Run a source over `reader` in chunks of `chunk`; `between(k)` runs
+    /// before the k-th step.
+    fn make(reader: Box<dyn CaptureReader>, chunk: usize, mut between: impl FnMut(usize)) -> Made {
+        let roles = RoleMap::new(&[], reader.info()).unwrap_or_else(|e| panic!("{e}"));
+        let mut src = CaptureSource::new(reader, roles, chunk, NonFinite::Error);
+        let mut out = crate::Outputs::new(1);
+        let mut made = Made { chunks: Vec::new(), progress: Vec::new(), notices: Vec::new(), error: None };
+        for k in 0.. {
+            between(k);
+            let more = src.generate(&mut out);
+            made.notices.extend(out.drain_notices().map(|n| format!("{} {}", n.stamp.index, n.what)));
+            for (_, item) in out.drain() {
+                if let Item::Samples(c) = item {
+                    made.chunks.push((c.stamp.index, c.iq.to_vec(), c.sync.as_ref().map(|s| s.to_vec())));
+                }
+            }
+            made.progress.push(src.progress());
+            match more {
+                Ok(true) => {}
+                Ok(false) => break,
+                Err(e) => {
+                    made.error = Some((e.message, e.at_sample));
+                    break;
+                }
+            }
+        }
+        made
+    }
+
+    /// The present read path over the data of the capture `info` describes.
+    fn read_path(info: &CaptureInfo) -> Box<dyn CaptureReader> {
+        let mut file = File::open(&info.path).unwrap_or_else(|e| panic!("{e}"));
+        file.seek(SeekFrom::Start(info.data_offset)).unwrap_or_else(|e| panic!("{e}"));
+        Box::new(FrameStream::new(info.clone(), BufReader::new(file)))
+    }
+
+    fn mapped(info: &CaptureInfo) -> Box<dyn CaptureReader> {
+        let file = File::open(&info.path).unwrap_or_else(|e| panic!("{e}"));
+        Box::new(MappedStream::new(info.clone(), file))
+    }
+
+    /// Whether this process maps (part of) `path` now.
+    fn is_mapped_here(path: &str) -> bool {
+        let maps = std::fs::read_to_string("/proc/self/maps").unwrap_or_default();
+        let name = std::fs::canonicalize(path).unwrap_or_else(|e| panic!("{e}"));
+        maps.lines().any(|l| l.ends_with(&*name.to_string_lossy()))
+    }
+
+    /// The mapped and the read path give the same chunks, progress, notices
+    /// and errors for `path`, in chunks of each size; `open` maps it.
+    fn same_both_ways(path: &Path, opts: &OpenOptions, chunks: &[usize]) -> Made {
+        let p = path.to_string_lossy();
+        let mut by_open = open(&p, opts).unwrap_or_else(|e| panic!("{e}"));
+        let info = by_open.info().clone();
+        assert!(by_open.read_frames(1, &mut Vec::new()).is_ok_and(|n| n == 1));
+        assert!(is_mapped_here(&info.path), "open() maps {}", info.path);
+        let mut first = None;
+        for &chunk in chunks {
+            let (m, r) = (make(mapped(&info), chunk, |_| {}), make(read_path(&info), chunk, |_| {}));
+            assert_eq!(m, r, "{p} in chunks of {chunk}");
+            assert!(m.error.is_none() && !m.chunks.is_empty(), "{p}: {:?}", m.error);
+            assert!(m.chunks.iter().rev().skip(1).all(|c| c.1.len() == chunk), "{p}: whole chunks but the last");
+            first.get_or_insert(m);
+        }
+        first.unwrap_or_else(|| panic!("no chunk sizes"))
+    }
+
+    fn write_wav(path: &Path, frames: usize, float: bool) {
+        let spec = hound::WavSpec {
+            channels: 3,
+            sample_rate: 1000,
+            bits_per_sample: if float { 32 } else { 16 },
+            sample_format: if float { hound::SampleFormat::Float } else { hound::SampleFormat::Int },
+        };
+        let mut w = hound::WavWriter::create(path, spec).unwrap_or_else(|e| panic!("{e}"));
+        for k in 0..frames {
+            for (c, v) in wav_frame(k).into_iter().enumerate() {
+                let r = if float { w.write_sample(v) } else { w.write_sample(int_code(k, c)) };
+                r.unwrap_or_else(|e| panic!("{e}"));
+            }
+        }
+        w.finalize().unwrap_or_else(|e| panic!("{e}"));
+    }
+
+    /// Component `c` of frame `k` of the 16-bit WAV captures.
+    fn int_code(k: usize, c: usize) -> i16 {
+        (((k * 3 + c) % 60000) as i32 - 30000) as i16
+    }
+
+    /// Frame `k` of the float WAV captures: I, Q, sync.
+    fn wav_frame(k: usize) -> [f32; 3] {
+        [k as f32 * 0.5, -(k as f32), (k % 7) as f32]
+    }
+
+    #[test]
+    fn float_wav_is_lent_from_the_mapping_as_read() {
+        let path = scratch("f32.wav");
+        write_wav(&path, 100_003, true);
+        // 16384 frames take 196608 bytes: windows hold two chunks and a
+        // part; 100000 frames need a window larger than the usual one.
+        let made = same_both_ways(&path, &OpenOptions::default(), &[16384, 100_000, 7, 1]);
+        let iq: Vec<Complex32> = made.chunks.iter().flat_map(|c| c.1.clone()).collect();
+        let sync: Vec<f32> = made.chunks.iter().flat_map(|c| c.2.clone().unwrap_or_default()).collect();
+        assert_eq!(iq.len(), 100_003);
+        for k in [0, 1, 16383, 16384, 50_000, 100_002] {
+            let [i, q, s] = wav_frame(k);
+            assert_eq!((iq[k], sync[k]), (Complex32::new(i, q), s), "frame {k}");
+        }
+        assert_eq!(made.progress.last(), Some(&Some((1_200_036, 1_200_036))));
+        let mut reader = open(&path.to_string_lossy(), &OpenOptions::default()).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(reader.lend_frames(10).ok(), Some(Some(10)), "lent, not copied");
+        assert_eq!(reader.lent()[3..6], wav_frame(1));
+    }
+
+    #[test]
+    fn int16_wav_is_decoded_from_the_mapping_as_read() {
+        let path = scratch("i16.wav");
+        write_wav(&path, 70_001, false);
+        let made = same_both_ways(&path, &OpenOptions::default(), &[16384, 5000]);
+        let code = |k: usize, c: usize| f32::from(int_code(k, c)) / 32768.0;
+        let last = made.chunks.last().map(|c| (c.0 as usize + c.1.len() - 1, c.1[c.1.len() - 1]));
+        assert_eq!(last, Some((70_000, Complex32::new(code(70_000, 0), code(70_000, 1)))));
+    }
+
+    #[test]
+    fn cf32_raw_file_is_copied_from_the_mapping_as_read() {
+        let path = scratch("iq.cf32_le");
+        let values: Vec<f32> = (0..2 * 150_001).map(|k| k as f32 - 0.25).collect();
+        std::fs::write(&path, bytemuck::cast_slice::<f32, u8>(&values)).unwrap_or_else(|e| panic!("{e}"));
+        let opts = OpenOptions { format: Format::Raw, rate: Some(1e3), ..OpenOptions::default() };
+        let made = same_both_ways(&path, &opts, &[16384, 65536, 3]);
+        let iq: Vec<Complex32> = made.chunks.iter().flat_map(|c| c.1.clone()).collect();
+        assert_eq!(iq.len(), 150_001);
+        assert_eq!(iq[150_000], Complex32::new(299_999.75, 300_000.75));
+    }
+
+    #[test]
+    fn sigmf_recording_reads_the_same_with_segments_and_header_bytes() {
+        // Header bytes of 6 put the floats off their alignment: copied, not lent.
+        for header in [0usize, 6] {
+            let base = scratch(&format!("rec{header}"));
+            let meta = format!(
+                r#"{{"global": {{"core:datatype": "cf32_le", "core:version": "1.2.0", "core:sample_rate": 1000, "core:num_channels": 2}},
+                "captures": [{{"core:sample_start": 0, "core:header_bytes": {header}}}, {{"core:sample_start": 40000, "core:frequency": 1e6}}],
+                "annotations": []}}"#
+            );
+            std::fs::write(base.with_extension("sigmf-meta"), meta).unwrap_or_else(|e| panic!("{e}"));
+            let mut data = vec![7u8; header];
+            let frames: Vec<f32> = (0..4 * 70_001).map(|k| (k % 1000) as f32).collect();
+            data.extend_from_slice(bytemuck::cast_slice(&frames));
+            std::fs::write(base.with_extension("sigmf-data"), data).unwrap_or_else(|e| panic!("{e}"));
+            let made = same_both_ways(&base.with_extension("sigmf-meta"), &OpenOptions::default(), &[16384, 999]);
+            assert!(
+                made.notices.iter().any(|n| n.starts_with("40000 ") && n.contains("segment 2")),
+                "{:?}",
+                made.notices
+            );
+            let c = &made.chunks[1];
+            assert_eq!((c.0, c.1[0], c.2.as_ref().map(|s| s[0])), (16384, Complex32::new(536.0, 537.0), Some(538.0)));
+        }
+    }
+
+    #[test]
+    fn a_file_cut_short_after_opening_gives_the_read_paths_error() {
+        // Cut inside a later chunk, and before the part already read.
+        for (cut_frames, cut_extra) in [(50_000u64, 5u64), (10_000, 0)] {
+            let mut made = Vec::new();
+            for how in ["mapped", "read"] {
+                let path = scratch(&format!("cut-{cut_frames}-{how}.wav"));
+                write_wav(&path, 100_000, true);
+                let p = path.to_string_lossy().to_string();
+                let reader = open(&p, &OpenOptions::default()).unwrap_or_else(|e| panic!("{e}"));
+                let info = reader.info().clone();
+                let reader = if how == "mapped" { reader } else { read_path(&info) };
+                let cut = info.data_offset + 12 * cut_frames + cut_extra;
+                let m = make(reader, 16384, |k| {
+                    if k == 2 {
+                        let f = std::fs::OpenOptions::new().write(true).open(&path);
+                        f.and_then(|f| f.set_len(cut)).unwrap_or_else(|e| panic!("{e}"));
+                    }
+                });
+                let (message, at) = m.error.clone().unwrap_or_else(|| panic!("{how}: no error"));
+                let end = info.data_offset + 1_200_000;
+                let read_to = cut.max(info.data_offset + 2 * 16384 * 12);
+                let want =
+                    format!("truncated: the data should run to byte offset {end} but ends at byte offset {read_to}");
+                assert!(message.contains(&p) && message.contains(&want), "{how}: {message}");
+                assert_eq!(at, Some((read_to - info.data_offset) / 12), "{how}");
+                made.push((m.chunks, m.error.map(|(e, at)| (e.replace(&p, "PATH"), at))));
+            }
+            assert_eq!(made[0], made[1], "cut at frame {cut_frames}");
+        }
+    }
+
+    #[test]
+    fn a_fifo_keeps_the_read_path() {
+        let path = scratch("pipe.wav");
+        let _ = std::fs::remove_file(&path);
+        let made = std::process::Command::new("mkfifo").arg(&path).status();
+        if !made.is_ok_and(|s| s.success()) {
+            return; // no mkfifo here: nothing to check
+        }
+        let writer = std::thread::spawn({
+            let (src, path) = (scratch("for-pipe.wav"), path.clone());
+            move || {
+                write_wav(&src, 1000, true);
+                let bytes = std::fs::read(&src).unwrap_or_else(|e| panic!("{e}"));
+                File::create(&path).and_then(|mut f| f.write_all(&bytes)).unwrap_or_else(|e| panic!("{e}"));
+            }
+        });
+        let mut reader = open(&path.to_string_lossy(), &OpenOptions::default()).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(reader.lend_frames(10).ok(), Some(None), "a FIFO is not mapped");
+        let made = make(reader, 300, |_| {});
+        assert_eq!(made.chunks.iter().map(|c| c.1.len()).sum::<usize>(), 1000);
+        writer.join().unwrap_or_else(|_| panic!("writer"));
     }
 }

@@ -391,8 +391,8 @@ fn split_iq_sync(frames: &[f32], iq: &mut Vec<Complex32>, sync: &mut Vec<f32>) -
 #[allow(unsafe_code)] // SSE shuffles
 fn split_iq_sync_by_fours(frames: &[f32], iq: &mut [Complex32], sync: &mut [f32]) -> (usize, bool) {
     use std::arch::x86_64::{
-        _mm_add_ps, _mm_cmpord_ps, _mm_loadu_ps, _mm_movemask_ps, _mm_setzero_ps, _mm_shuffle_ps, _mm_storeu_ps,
-        _MM_HINT_T0, _mm_prefetch, _mm_sub_ps,
+        _MM_HINT_T0, _mm_add_ps, _mm_cmpord_ps, _mm_loadu_ps, _mm_movemask_ps, _mm_prefetch, _mm_setzero_ps,
+        _mm_shuffle_ps, _mm_storeu_ps, _mm_sub_ps,
     };
     // Frames lent by a mapped file come from memory, not from a buffer the
     // kernel has just filled, and the hardware prefetcher stops at each

@@ -5,9 +5,7 @@
 use super::datatype::DataType;
 use super::error::CaptureError;
 use super::raw::{check_channels, check_whole_frames, regular_file_len};
-use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate,
-};
+use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate};
 use super::sigmf_meta::{Capture, SigmfMeta};
 use serde_json::Value;
 use std::fs::File;

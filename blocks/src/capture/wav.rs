@@ -5,9 +5,7 @@
 use super::datatype::{DataType, SampleFormat};
 use super::error::{CaptureError, Place};
 use super::raw::check_whole_frames;
-use super::reader::{
-    CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate,
-};
+use super::reader::{CaptureInfo, CaptureReader, Encoding, Format, OpenOptions, agree_channels, agree_rate};
 use std::fs::File;
 use std::io::{BufReader, Read};
 
