@@ -104,7 +104,8 @@ mod linux {
     }
 
     impl MappedStream {
-        /// A stream over data [`can_map`] accepts.
+        /// A stream over the data of `file`; only data [`can_map`] accepts
+        /// is mapped.
         pub(super) fn new(info: CaptureInfo, file: File) -> Self {
             let at = info.data_offset;
             // Other data is only read.
@@ -251,8 +252,7 @@ mod linux {
             // SAFETY: the range lies inside the mapping, which lives as long
             // as `&self` and is read-only (PROT_READ). Not guaranteed, as for
             // any file mapping: another process that rewrites the file
-            // changes these bytes (any bit pattern is a valid float or
-            // integer code), and one that truncates it between `populate`
+            // changes these bytes (any bit pattern is a valid float), and one that truncates it between `populate`
             // and this read raises SIGBUS (the race the module notes).
             unsafe { std::slice::from_raw_parts(self.ptr.as_ptr().add(range.start), range.len()) }
         }
