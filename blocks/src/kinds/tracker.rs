@@ -6,7 +6,7 @@
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::discriminator::parse_key_values;
-use crate::dsp::smoother::{Measurement, Model, smooth};
+use crate::dsp::smoother::{Measurement, Model, QSearch, smooth};
 use crate::dsp::tracking::{AxisFilter, FilterMethod, Telemetry};
 use crate::error::{BuildError, ParamError};
 use crate::item::{AngleEstimate, Flag, Item, ItemKind, Stamp};
@@ -121,6 +121,7 @@ impl TypedBlock for Tracker {
             model: s.model,
             q: (s.smoother_noise > 0.0).then_some(s.smoother_noise),
             held: Vec::new(),
+            searches: Vec::new(),
             pieces: 0,
         });
         let method = match s.method {
@@ -211,8 +212,44 @@ struct SmootherSetup {
     /// Kept as they came, shared, and handed on as they are: a long
     /// recording's estimates then live once, not also as copies at the end.
     held: Vec<Arc<AngleEstimate>>,
+    /// With `q` to be found: each axis's search over the held estimates,
+    /// stepped as they come (see [`QSearch`]: the end of input then has
+    /// only the kept and backward passes left to run).
+    searches: Vec<(Arc<str>, QSearch)>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
+}
+
+impl SmootherSetup {
+    /// Step the search of `e`'s axis by `e` (a new axis gets a search, up
+    /// to [`MAX_AXES`]: past that the flush reports the error).
+    fn search(&mut self, e: &AngleEstimate, fallback_sigma: f64, gate_sigmas: f64) {
+        let at = match self.searches.iter().position(|(axis, _)| *axis == e.axis) {
+            Some(at) => at,
+            None if self.searches.len() < MAX_AXES => {
+                self.searches.push((e.axis.clone(), QSearch::new(self.model, gate_sigmas)));
+                self.searches.len() - 1
+            }
+            None => return,
+        };
+        let m = usable(e, fallback_sigma).map(|(z, sigma, _)| (z, sigma));
+        self.searches[at].1.push(to_measurement(e, m));
+    }
+}
+
+/// The estimate's angle and sigma when it is usable, and whether the sigma
+/// is `fallback_sigma` (the estimate's own is missing).
+fn usable(e: &AngleEstimate, fallback_sigma: f64) -> Option<(f64, f64, bool)> {
+    let z = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite())?;
+    if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
+        return Some((z, e.sigma_deg, false));
+    }
+    Some((z, fallback_sigma, true))
+}
+
+/// What the smoother is given for estimate `e` with its usable angle and sigma.
+fn to_measurement(e: &AngleEstimate, usable: Option<(f64, f64)>) -> Measurement {
+    Measurement { t: e.stamp.seconds(), z: usable.map(|m| m.0), r: usable.map_or(1.0, |m| m.1 * m.1) }
 }
 
 /// Most estimates held for smoothing at once (about 25 MB); a longer run is
@@ -262,11 +299,8 @@ impl Tracker {
     /// The estimate's angle and sigma when it is usable (a notice once when
     /// the sigma is missing and the fallback is used).
     fn measurement(&mut self, e: &AngleEstimate, out: &mut Outputs) -> Option<(f64, f64)> {
-        let z = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite())?;
-        if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
-            return Some((z, e.sigma_deg));
-        }
-        if !self.warned_sigma {
+        let (z, sigma, fallback) = usable(e, self.fallback_sigma)?;
+        if fallback && !self.warned_sigma {
             self.warned_sigma = true;
             out.warn(
                 e.stamp,
@@ -276,7 +310,7 @@ impl Tracker {
                 ),
             );
         }
-        Some((z, self.fallback_sigma))
+        Some((z, sigma))
     }
 
     /// Add the antenna's pointing (when telemetry maps axis `k`) to the tracked angle.
@@ -308,7 +342,8 @@ impl Tracker {
             return Ok(());
         };
         let mut held = std::mem::take(&mut setup.held);
-        let (model, q) = (setup.model, setup.q);
+        let mut searches = std::mem::take(&mut setup.searches);
+        let (model, setup_q) = (setup.model, setup.q);
         setup.pieces += 1;
         let mut axis_of = Vec::with_capacity(held.len());
         for e in &held {
@@ -320,18 +355,17 @@ impl Tracker {
         }
         for k in 0..self.axes.len() {
             let rows: Vec<usize> = (0..held.len()).filter(|&i| axis_of[i] == k).collect();
-            let data: Vec<Measurement> = rows
-                .iter()
-                .map(|&i| {
-                    let m = measured[i];
-                    Measurement { t: held[i].stamp.seconds(), z: m.map(|m| m.0), r: m.map_or(1.0, |m| m.1 * m.1) }
-                })
-                .collect();
+            let data: Vec<Measurement> = rows.iter().map(|&i| to_measurement(&held[i], measured[i])).collect();
+            let search = searches.iter().position(|(axis, _)| *axis == self.axes[k].axis);
+            let search = search.map(|at| searches.swap_remove(at).1);
             if data.iter().all(|m| m.z.is_none()) {
                 continue;
             }
+            // The search saw this piece's estimates of the axis as they came;
+            // without one (a fixed `q`), `smooth` searches itself.
+            let q = setup_q.or_else(|| search.filter(|s| s.len() == data.len()).map(QSearch::most_likely_q));
             let (smoothed, q_used) = smooth(&data, model, q, self.gate_sigmas);
-            if q.is_none()
+            if setup_q.is_none()
                 && let Some(&i) = rows.first()
             {
                 let axis = self.axes[k].axis.clone();
@@ -361,6 +395,9 @@ impl Tracker {
     fn take(&mut self, mut e: Arc<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
+            if setup.q.is_none() {
+                setup.search(&e, self.fallback_sigma, self.gate_sigmas);
+            }
             setup.held.push(e);
             if setup.held.len() >= MAX_HELD {
                 self.flush_smoother(out)?;
