@@ -6,7 +6,7 @@
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::discriminator::parse_key_values;
-use crate::dsp::smoother::{Measurement, Model, QSearch, smooth};
+use crate::dsp::smoother::{Measurement, Model, QSearch, Smoothed, smooth};
 use crate::dsp::tracking::{AxisFilter, FilterMethod, Telemetry};
 use crate::error::{BuildError, ParamError};
 use crate::item::{AngleEstimate, Flag, Item, ItemKind, Stamp};
@@ -117,13 +117,8 @@ impl TypedBlock for Tracker {
             TrackMethod::Auto => !live,
             TrackMethod::AlphaBeta | TrackMethod::Kalman => false,
         };
-        let smoother = smoothing.then(|| SmootherSetup {
-            model: s.model,
-            q: (s.smoother_noise > 0.0).then_some(s.smoother_noise),
-            held: Vec::new(),
-            searches: Vec::new(),
-            pieces: 0,
-        });
+        let q = (s.smoother_noise > 0.0).then_some(s.smoother_noise);
+        let smoother = smoothing.then(|| SmootherSetup::new(s.model, q, s.gate_sigmas, s.fallback_sigma));
         let method = match s.method {
             TrackMethod::Kalman => FilterMethod::Kalman { accel_sigma: s.process_noise },
             TrackMethod::AlphaBeta | TrackMethod::Smoother | TrackMethod::Auto => {
@@ -204,36 +199,94 @@ struct AxisTrack {
     column: Option<usize>,
 }
 
-/// Estimates held for the fixed-interval smoother.
+/// Estimates held for the fixed-interval smoother, with what the end of
+/// input needs of them worked out as they came: the end of a long recording
+/// is a serial tail of the run (nothing else is left to do on the other
+/// worker), so it keeps only the kept and backward passes and one walk over
+/// the held estimates.
 struct SmootherSetup {
     model: Model,
     /// None: the most likely value.
     q: Option<f64>,
+    gate_sigmas: f64,
+    fallback_sigma: f64,
     /// Kept as they came, shared, and handed on as they are: a long
     /// recording's estimates then live once, not also as copies at the end.
     held: Vec<Arc<AngleEstimate>>,
-    /// With `q` to be found: each axis's search over the held estimates,
-    /// stepped as they come (see [`QSearch`]: the end of input then has
-    /// only the kept and backward passes left to run).
-    searches: Vec<(Arc<str>, QSearch)>,
+    /// Each held estimate's axis, an index into `axes`.
+    axis_of: Vec<u8>,
+    /// The axes of the held estimates, in the order they first came.
+    axes: Vec<HeldAxis>,
+    /// The held estimate of the first axis past [`MAX_AXES`], which the
+    /// flush reports as the error (where it would have found it).
+    too_many: Option<usize>,
+    /// The first held estimate that takes the fallback sigma.
+    first_fallback: Option<usize>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
 }
 
+/// One axis's held estimates as the smoother takes them.
+struct HeldAxis {
+    axis: Arc<str>,
+    /// Its first held estimate.
+    first: usize,
+    data: Vec<Measurement>,
+    /// With `q` to be found: the search, stepped as the estimates come (see
+    /// [`QSearch`]).
+    search: Option<QSearch>,
+}
+
 impl SmootherSetup {
-    /// Step the search of `e`'s axis by `e` (a new axis gets a search, up
-    /// to [`MAX_AXES`]: past that the flush reports the error).
-    fn search(&mut self, e: &AngleEstimate, fallback_sigma: f64, gate_sigmas: f64) {
-        let at = match self.searches.iter().position(|(axis, _)| *axis == e.axis) {
-            Some(at) => at,
-            None if self.searches.len() < MAX_AXES => {
-                self.searches.push((e.axis.clone(), QSearch::new(self.model, gate_sigmas)));
-                self.searches.len() - 1
+    fn new(model: Model, q: Option<f64>, gate_sigmas: f64, fallback_sigma: f64) -> SmootherSetup {
+        SmootherSetup {
+            model,
+            q,
+            gate_sigmas,
+            fallback_sigma,
+            held: Vec::new(),
+            axis_of: Vec::new(),
+            axes: Vec::new(),
+            too_many: None,
+            first_fallback: None,
+            pieces: 0,
+        }
+    }
+
+    /// Hold `e`, and give its measurement to its axis (and the axis's search).
+    fn hold(&mut self, e: Arc<AngleEstimate>) {
+        let i = self.held.len();
+        // The same axis as the one before is the common case.
+        let last = self.axis_of.last().map(|&a| a as usize).filter(|&a| Arc::ptr_eq(&self.axes[a].axis, &e.axis));
+        let at = match last.or_else(|| self.axes.iter().position(|a| a.axis == e.axis)) {
+            Some(at) => Some(at),
+            None if self.axes.len() < MAX_AXES => {
+                let search = self.q.is_none().then(|| QSearch::new(self.model, self.gate_sigmas));
+                self.axes.push(HeldAxis { axis: e.axis.clone(), first: i, data: Vec::new(), search });
+                Some(self.axes.len() - 1)
             }
-            None => return,
+            None => None,
         };
-        let m = usable(e, fallback_sigma).map(|(z, sigma, _)| (z, sigma));
-        self.searches[at].1.push(to_measurement(e, m));
+        match at {
+            Some(at) => {
+                let m = usable(&e, self.fallback_sigma);
+                if m.is_some_and(|m| m.2) && self.first_fallback.is_none() {
+                    self.first_fallback = Some(i);
+                }
+                let m = to_measurement(&e, m.map(|(z, sigma, _)| (z, sigma)));
+                let axis = &mut self.axes[at];
+                axis.data.push(m);
+                if let Some(search) = axis.search.as_mut() {
+                    search.push(m);
+                }
+                self.axis_of.push(at as u8);
+            }
+            None => {
+                self.too_many.get_or_insert(i);
+                self.axis_of.push(u8::MAX);
+            }
+        }
+        self.held.push(e);
     }
 }
 
@@ -341,50 +394,52 @@ impl Tracker {
         let Some(setup) = self.smoother.as_mut().filter(|s| !s.held.is_empty()) else {
             return Ok(());
         };
+        let (model, setup_q, gate) = (setup.model, setup.q, setup.gate_sigmas);
         let mut held = std::mem::take(&mut setup.held);
-        let mut searches = std::mem::take(&mut setup.searches);
-        let (model, setup_q) = (setup.model, setup.q);
+        let axis_of = std::mem::take(&mut setup.axis_of);
+        let mut axes = std::mem::take(&mut setup.axes);
+        let (too_many, first_fallback) = (setup.too_many.take(), setup.first_fallback.take());
         setup.pieces += 1;
-        let mut axis_of = Vec::with_capacity(held.len());
-        for e in &held {
-            axis_of.push(self.axis_index(e, out)?);
+        // The notices (and the error) of a walk over the held estimates, at
+        // the estimates that give them.
+        let mut track_of = Vec::with_capacity(axes.len());
+        for axis in &axes {
+            track_of.push(self.axis_index(&held[axis.first], out)?);
         }
-        let mut measured = Vec::with_capacity(held.len());
-        for e in &held {
-            measured.push(self.measurement(e, out));
+        if let Some(i) = too_many {
+            self.axis_index(&held[i], out)?;
         }
+        if let Some(i) = first_fallback {
+            self.measurement(&held[i], out);
+        }
+        let mut smoothed: Vec<Option<std::vec::IntoIter<Smoothed>>> = axes.iter().map(|_| None).collect();
         for k in 0..self.axes.len() {
-            let rows: Vec<usize> = (0..held.len()).filter(|&i| axis_of[i] == k).collect();
-            let data: Vec<Measurement> = rows.iter().map(|&i| to_measurement(&held[i], measured[i])).collect();
-            let search = searches.iter().position(|(axis, _)| *axis == self.axes[k].axis);
-            let search = search.map(|at| searches.swap_remove(at).1);
-            if data.iter().all(|m| m.z.is_none()) {
+            let Some(at) = track_of.iter().position(|&t| t == k) else { continue };
+            let axis = &mut axes[at];
+            if axis.data.iter().all(|m| m.z.is_none()) {
                 continue;
             }
-            // The search saw this piece's estimates of the axis as they came;
-            // without one (a fixed `q`), `smooth` searches itself.
-            let q = setup_q.or_else(|| search.filter(|s| s.len() == data.len()).map(QSearch::most_likely_q));
-            let (smoothed, q_used) = smooth(&data, model, q, self.gate_sigmas);
-            if setup_q.is_none()
-                && let Some(&i) = rows.first()
-            {
-                let axis = self.axes[k].axis.clone();
+            let q = setup_q.or_else(|| axis.search.take().map(QSearch::most_likely_q));
+            let (results, q_used) = smooth(&axis.data, model, q, gate);
+            if setup_q.is_none() {
                 out.inform(
-                    held[i].stamp,
-                    format!("smoother for axis '{axis}': process noise {q_used:.3e} (most likely for the data)"),
+                    held[axis.first].stamp,
+                    format!("smoother for axis '{}': process noise {q_used:.3e} (most likely for the data)", axis.axis),
                 );
             }
-            for (&i, s) in rows.iter().zip(&smoothed) {
-                let e = Arc::make_mut(&mut held[i]);
+            smoothed[at] = Some(results.into_iter());
+        }
+        for (mut e, at) in held.drain(..).zip(axis_of) {
+            let at = usize::from(at);
+            if let Some(s) = smoothed[at].as_mut().and_then(Iterator::next) {
+                let e = Arc::make_mut(&mut e);
                 if s.outlier {
                     e.flag = Flag::Outlier;
                 }
                 e.tracked_deg = Some(s.angle);
                 e.tracked_sigma_deg = Some(s.variance.sqrt());
             }
-        }
-        for (mut e, k) in held.into_iter().zip(axis_of) {
-            self.point(Arc::make_mut(&mut e), k, out);
+            self.point(Arc::make_mut(&mut e), track_of[at], out);
             out.push(TrackerOut::Estimates, Item::Estimate(e));
         }
         Ok(())
@@ -395,10 +450,7 @@ impl Tracker {
     fn take(&mut self, mut e: Arc<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
-            if setup.q.is_none() {
-                setup.search(&e, self.fallback_sigma, self.gate_sigmas);
-            }
-            setup.held.push(e);
+            setup.hold(e);
             if setup.held.len() >= MAX_HELD {
                 self.flush_smoother(out)?;
             }
