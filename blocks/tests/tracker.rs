@@ -270,3 +270,47 @@ fn smoothing_in_pieces_gives_each_piece_the_batch_search_to_the_bit() {
         assert!(out.iter().filter(|e| e.flag == Flag::Outlier).count() > 1000, "outliers gated");
     }
 }
+
+#[test]
+fn the_smoother_gives_its_notices_at_the_estimates_that_call_for_them_and_in_order() {
+    let dir = std::env::temp_dir().join(format!("lobeflow-tracker-notices-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let pointing = dir.join("pointing.csv");
+    std::fs::write(&pointing, "time_s,az_deg,el_deg\n0,120,15\n100,121,14.5\n").unwrap();
+    // Axis 'h' (no pointing column) first comes at t = 0.2 s, the first
+    // estimate without a sigma at 0.5 s (el's), el's first angle at 0.3 s.
+    let mut items = Vec::new();
+    for k in 0..60 {
+        let t = k as f64 * 0.1;
+        let axis = ["az", "el", "h"][k % 3];
+        let mut e = estimate(axis, t, 0.01 * k as f64, if k == 5 { 0.0 } else { 0.05 });
+        if axis == "el" && k < 4 {
+            e.error_deg = None;
+        }
+        items.push(Item::Estimate(Arc::new(e)));
+    }
+    let set = [("method", "smoother"), ("pointing", pointing.to_str().unwrap())];
+    let mut blk = build(&SPEC, &set).unwrap();
+    let (out, notices) = run(blk.as_mut(), items.clone());
+    assert_eq!(estimates(&out).len(), 60);
+    let told: Vec<(u64, &str)> = notices.iter().map(|n| (n.stamp.index, n.what.split(':').next().unwrap())).collect();
+    let want: Vec<(u64, &str)> = vec![
+        (200, "axis 'h' has no pointing column (see axis_columns); no absolute angles"),
+        (500, "estimates without a usable sigma (first at sample 500); assuming 0.1 deg"),
+        (0, "smoother for axis 'az'"),
+        (100, "smoother for axis 'el'"),
+        (200, "smoother for axis 'h'"),
+    ];
+    assert_eq!(told, want);
+    // More than 64 axes: the error names the first axis too many and its sample.
+    let many: Vec<Item> =
+        (0..70).map(|k| Item::Estimate(Arc::new(estimate(&format!("a{k}"), k as f64 * 0.01, 0.1, 0.05)))).collect();
+    let mut blk = build(&SPEC, &[("method", "smoother")]).unwrap();
+    let mut out = lobeflow_blocks::Outputs::new(1);
+    for item in many {
+        blk.process(0, item, &mut out).unwrap();
+    }
+    let err = blk.finish(&mut out).err().expect("too many axes").to_string();
+    assert_eq!(err, "more than 64 axes (new axis 'a64') (at sample 640)");
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -257,7 +257,8 @@ impl SmootherSetup {
     fn hold(&mut self, e: Arc<AngleEstimate>) {
         let i = self.held.len();
         // The same axis as the one before is the common case.
-        let last = self.axis_of.last().map(|&a| a as usize).filter(|&a| Arc::ptr_eq(&self.axes[a].axis, &e.axis));
+        let last = self.axis_of.last().map(|&a| usize::from(a));
+        let last = last.filter(|&a| self.axes.get(a).is_some_and(|a| Arc::ptr_eq(&a.axis, &e.axis)));
         let at = match last.or_else(|| self.axes.iter().position(|a| a.axis == e.axis)) {
             Some(at) => Some(at),
             None if self.axes.len() < MAX_AXES => {
