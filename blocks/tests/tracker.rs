@@ -310,7 +310,7 @@ fn the_smoother_gives_its_notices_at_the_estimates_that_call_for_them_and_in_ord
     for item in many {
         blk.process(0, item, &mut out).unwrap();
     }
-    let err = blk.finish(&mut out).err().expect("too many axes").to_string();
+    let err = blk.finish(&mut out).expect_err("too many axes").to_string();
     assert_eq!(err, "more than 64 axes (new axis 'a64') (at sample 640)");
     let _ = std::fs::remove_dir_all(&dir);
 }

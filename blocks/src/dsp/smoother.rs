@@ -11,6 +11,20 @@
 //! docs/derivations.md). With `q` unknown, it is chosen from a grid by the
 //! likelihood of the forward pass's innovations. Every smoothed angle comes
 //! with its variance.
+//!
+//! The grid search is where the time goes (one forward pass per grid value
+//! against one kept pass and one backward pass), and a recording is only
+//! smoothed once its input has ended: run then, the search is a serial
+//! tail of the whole run, with the other workers idle. [`QSearch`]
+//! therefore runs it as the measurements arrive: a bank of one filter
+//! state per grid value, each stepped by every measurement and adding up
+//! its log-likelihood, so the end keeps only the choice, the kept pass
+//! (run again for the chosen `q`: keeping 49 passes' records would cost 49
+//! times the memory) and the backward pass. Both searches take their steps
+//! through one `State::advance`, the same floating-point operations in
+//! the same order, so they choose the same `q` to the bit. The diffuse
+//! start sits on the first usable angle, so the bank holds the times of
+//! the steps before it until it comes. A fixed `q` needs no search.
 
 crate::block_choice! {
     /// The motion model of the smoothed angle.
@@ -256,7 +270,7 @@ impl<const N: usize> State<N> {
 /// adding up its innovation log-likelihood, so that at the end of a
 /// recording only the choice, the kept pass and the backward pass remain.
 /// Fed the measurements [`smooth`] is given, in their order, it takes the
-/// same steps as [`most_likely_q`] and picks the same `q`.
+/// same steps as the batch search of [`smooth`] and picks the same `q`.
 pub struct QSearch {
     model: Model,
     gate_sigmas: f64,

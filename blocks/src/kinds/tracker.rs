@@ -3,6 +3,10 @@
 //! On a recording the whole capture is known, so a fixed-interval smoother
 //! ([`crate::dsp::smoother`]) gives the tracked value; live input (standard
 //! input) keeps a causal filter, whose output does not wait for the end.
+//! What the smoother can do before the end it does as the estimates come
+//! (each axis's measurements and its search for the process noise), so
+//! the end of a long recording, when only this block and its consumers are
+//! left to run, is short.
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::discriminator::parse_key_values;
