@@ -436,15 +436,15 @@ impl Tracker {
         }
         for (mut e, at) in held.drain(..).zip(axis_of) {
             let at = usize::from(at);
+            let est = Arc::make_mut(&mut e);
             if let Some(s) = smoothed[at].as_mut().and_then(Iterator::next) {
-                let e = Arc::make_mut(&mut e);
                 if s.outlier {
-                    e.flag = Flag::Outlier;
+                    est.flag = Flag::Outlier;
                 }
-                e.tracked_deg = Some(s.angle);
-                e.tracked_sigma_deg = Some(s.variance.sqrt());
+                est.tracked_deg = Some(s.angle);
+                est.tracked_sigma_deg = Some(s.variance.sqrt());
             }
-            self.point(Arc::make_mut(&mut e), track_of[at], out);
+            self.point(est, track_of[at], out);
             out.push(TrackerOut::Estimates, Item::Estimate(e));
         }
         Ok(())
