@@ -205,3 +205,112 @@ fn auto_smooths_recordings_at_the_end_and_filters_live_input_as_it_comes() {
     eprintln!("smoothed drift: RMS {rms:.4} (raw 0.1), own sigma {sigma:.4}");
     assert!(rms < 0.03 && rms < 1.5 * sigma, "RMS {rms} sigma {sigma}");
 }
+
+/// The tracker's piece length (`MAX_HELD` in the block): a longer run is
+/// smoothed piece by piece, each piece with a search of its own.
+const PIECE: usize = 100_000;
+
+#[test]
+fn smoothing_in_pieces_gives_each_piece_the_batch_search_to_the_bit() {
+    use lobeflow_blocks::dsp::smoother::{Measurement, Model, smooth};
+    let mut rng = Rng::new(21);
+    let mut items = Vec::new();
+    for k in 0..PIECE + 4_321 {
+        // Axes interleaved irregularly; el has no usable angle for its first
+        // stretch, then steps without one, estimates without a sigma and
+        // outliers come among the rest.
+        let axis = if rng.uniform() < 0.6 { "az" } else { "el" };
+        let t = k as f64 * 0.005;
+        let truth = 0.5 * (t / 40.0).sin();
+        let mut e = estimate(axis, t, truth + 0.05 * rng.gaussian(), 0.05);
+        match rng.uniform() {
+            _ if axis == "el" && k < 300 => e.error_deg = None,
+            u if u < 0.03 => e.flag = Flag::OutOfRange,
+            u if u < 0.05 => e.sigma_deg = 0.0,
+            u if u < 0.07 => e.error_deg = Some(truth + 5.0 * rng.gaussian()),
+            _ => {}
+        }
+        items.push(e);
+    }
+    for model in ["constant_velocity", "constant_acceleration"] {
+        let mut blk = build(&SPEC, &[("method", "smoother"), ("model", model)]).unwrap();
+        let (out, notices) = run(blk.as_mut(), items.iter().cloned().map(|e| Item::Estimate(Arc::new(e))));
+        let out = estimates(&out);
+        assert_eq!(out.len(), items.len());
+        let model = if model == "constant_velocity" { Model::ConstantVelocity } else { Model::ConstantAcceleration };
+        // Each piece and axis on its own, through the batch search.
+        let mut chosen = Vec::new();
+        for (piece, start) in (0..items.len()).step_by(PIECE).enumerate() {
+            let end = (start + PIECE).min(items.len());
+            for axis in ["az", "el"] {
+                let rows: Vec<usize> = (start..end).filter(|&i| &*items[i].axis == axis).collect();
+                let data: Vec<Measurement> = rows
+                    .iter()
+                    .map(|&i| {
+                        let e = &items[i];
+                        let z = e.error_deg.filter(|_| e.flag == Flag::Ok);
+                        let sigma = if e.sigma_deg > 0.0 { e.sigma_deg } else { 0.1 };
+                        Measurement { t: e.stamp.seconds(), z, r: if z.is_some() { sigma * sigma } else { 1.0 } }
+                    })
+                    .collect();
+                let (smoothed, q) = smooth(&data, model, None, 4.0);
+                chosen.push(format!("smoother for axis '{axis}': process noise {q:.3e} (most likely for the data)"));
+                for (&i, s) in rows.iter().zip(&smoothed) {
+                    let got = &out[i];
+                    assert_eq!(got.tracked_deg.map(f64::to_bits), Some(s.angle.to_bits()), "piece {piece} row {i}");
+                    assert_eq!(got.tracked_sigma_deg.map(f64::to_bits), Some(s.variance.sqrt().to_bits()));
+                    assert_eq!(got.flag == Flag::Outlier, s.outlier, "row {i}");
+                }
+            }
+        }
+        let told: Vec<&str> =
+            notices.iter().map(|n| n.what.as_str()).filter(|w| w.starts_with("smoother for")).collect();
+        assert_eq!(told, chosen.iter().map(String::as_str).collect::<Vec<_>>());
+        assert!(notices.iter().any(|n| n.what.starts_with("smoothed in 2 pieces")), "{notices:?}");
+        assert!(out.iter().filter(|e| e.flag == Flag::Outlier).count() > 1000, "outliers gated");
+    }
+}
+
+#[test]
+fn the_smoother_gives_its_notices_at_the_estimates_that_call_for_them_and_in_order() {
+    let dir = std::env::temp_dir().join(format!("lobeflow-tracker-notices-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let pointing = dir.join("pointing.csv");
+    std::fs::write(&pointing, "time_s,az_deg,el_deg\n0,120,15\n100,121,14.5\n").unwrap();
+    // Axis 'h' (no pointing column) first comes at t = 0.2 s, the first
+    // estimate without a sigma at 0.5 s (el's), el's first angle at 0.3 s.
+    let mut items = Vec::new();
+    for k in 0..60 {
+        let t = k as f64 * 0.1;
+        let axis = ["az", "el", "h"][k % 3];
+        let mut e = estimate(axis, t, 0.01 * k as f64, if k == 5 { 0.0 } else { 0.05 });
+        if axis == "el" && k < 4 {
+            e.error_deg = None;
+        }
+        items.push(Item::Estimate(Arc::new(e)));
+    }
+    let set = [("method", "smoother"), ("pointing", pointing.to_str().unwrap())];
+    let mut blk = build(&SPEC, &set).unwrap();
+    let (out, notices) = run(blk.as_mut(), items.clone());
+    assert_eq!(estimates(&out).len(), 60);
+    let told: Vec<(u64, &str)> = notices.iter().map(|n| (n.stamp.index, n.what.split(':').next().unwrap())).collect();
+    let want: Vec<(u64, &str)> = vec![
+        (200, "axis 'h' has no pointing column (see axis_columns); no absolute angles"),
+        (500, "estimates without a usable sigma (first at sample 500); assuming 0.1 deg"),
+        (0, "smoother for axis 'az'"),
+        (100, "smoother for axis 'el'"),
+        (200, "smoother for axis 'h'"),
+    ];
+    assert_eq!(told, want);
+    // More than 64 axes: the error names the first axis too many and its sample.
+    let many: Vec<Item> =
+        (0..70).map(|k| Item::Estimate(Arc::new(estimate(&format!("a{k}"), k as f64 * 0.01, 0.1, 0.05)))).collect();
+    let mut blk = build(&SPEC, &[("method", "smoother")]).unwrap();
+    let mut out = lobeflow_blocks::Outputs::new(1);
+    for item in many {
+        blk.process(0, item, &mut out).unwrap();
+    }
+    let err = blk.finish(&mut out).expect_err("too many axes").to_string();
+    assert_eq!(err, "more than 64 axes (new axis 'a64') (at sample 640)");
+    let _ = std::fs::remove_dir_all(&dir);
+}

@@ -3,10 +3,14 @@
 //! On a recording the whole capture is known, so a fixed-interval smoother
 //! ([`crate::dsp::smoother`]) gives the tracked value; live input (standard
 //! input) keeps a causal filter, whose output does not wait for the end.
+//! What the smoother can do before the end it does as the estimates come
+//! (each axis's measurements and its search for the process noise), so
+//! the end of a long recording, when only this block and its consumers are
+//! left to run, is short.
 
 use crate::block::{BlockError, BlockSpec, BuildContext, Outputs};
 use crate::dsp::discriminator::parse_key_values;
-use crate::dsp::smoother::{Measurement, Model, smooth};
+use crate::dsp::smoother::{Measurement, Model, QSearch, Smoothed, smooth};
 use crate::dsp::tracking::{AxisFilter, FilterMethod, Telemetry};
 use crate::error::{BuildError, ParamError};
 use crate::item::{AngleEstimate, Flag, Item, ItemKind, Stamp};
@@ -117,12 +121,8 @@ impl TypedBlock for Tracker {
             TrackMethod::Auto => !live,
             TrackMethod::AlphaBeta | TrackMethod::Kalman => false,
         };
-        let smoother = smoothing.then(|| SmootherSetup {
-            model: s.model,
-            q: (s.smoother_noise > 0.0).then_some(s.smoother_noise),
-            held: Vec::new(),
-            pieces: 0,
-        });
+        let q = (s.smoother_noise > 0.0).then_some(s.smoother_noise);
+        let smoother = smoothing.then(|| SmootherSetup::new(s.model, q, s.gate_sigmas, s.fallback_sigma));
         let method = match s.method {
             TrackMethod::Kalman => FilterMethod::Kalman { accel_sigma: s.process_noise },
             TrackMethod::AlphaBeta | TrackMethod::Smoother | TrackMethod::Auto => {
@@ -203,16 +203,111 @@ struct AxisTrack {
     column: Option<usize>,
 }
 
-/// Estimates held for the fixed-interval smoother.
+/// Estimates held for the fixed-interval smoother, with what the end of
+/// input needs of them worked out as they came: the end of a long recording
+/// is a serial tail of the run (nothing else is left to do on the other
+/// worker), so it keeps only the kept and backward passes and one walk over
+/// the held estimates.
 struct SmootherSetup {
     model: Model,
     /// None: the most likely value.
     q: Option<f64>,
+    gate_sigmas: f64,
+    fallback_sigma: f64,
     /// Kept as they came, shared, and handed on as they are: a long
     /// recording's estimates then live once, not also as copies at the end.
     held: Vec<Arc<AngleEstimate>>,
+    /// Each held estimate's axis, an index into `axes`.
+    axis_of: Vec<u8>,
+    /// The axes of the held estimates, in the order they first came.
+    axes: Vec<HeldAxis>,
+    /// The held estimate of the first axis past [`MAX_AXES`], which the
+    /// flush reports as the error (where it would have found it).
+    too_many: Option<usize>,
+    /// The first held estimate that takes the fallback sigma.
+    first_fallback: Option<usize>,
     /// Pieces smoothed so far (more than one only past [`MAX_HELD`]).
     pieces: u64,
+}
+
+/// One axis's held estimates as the smoother takes them.
+struct HeldAxis {
+    axis: Arc<str>,
+    /// Its first held estimate.
+    first: usize,
+    data: Vec<Measurement>,
+    /// With `q` to be found: the search, stepped as the estimates come (see
+    /// [`QSearch`]).
+    search: Option<QSearch>,
+}
+
+impl SmootherSetup {
+    fn new(model: Model, q: Option<f64>, gate_sigmas: f64, fallback_sigma: f64) -> SmootherSetup {
+        SmootherSetup {
+            model,
+            q,
+            gate_sigmas,
+            fallback_sigma,
+            held: Vec::new(),
+            axis_of: Vec::new(),
+            axes: Vec::new(),
+            too_many: None,
+            first_fallback: None,
+            pieces: 0,
+        }
+    }
+
+    /// Hold `e`, and give its measurement to its axis (and the axis's search).
+    fn hold(&mut self, e: Arc<AngleEstimate>) {
+        let i = self.held.len();
+        // The same axis as the one before is the common case.
+        let last = self.axis_of.last().map(|&a| usize::from(a));
+        let last = last.filter(|&a| self.axes.get(a).is_some_and(|a| Arc::ptr_eq(&a.axis, &e.axis)));
+        let at = match last.or_else(|| self.axes.iter().position(|a| a.axis == e.axis)) {
+            Some(at) => Some(at),
+            None if self.axes.len() < MAX_AXES => {
+                let search = self.q.is_none().then(|| QSearch::new(self.model, self.gate_sigmas));
+                self.axes.push(HeldAxis { axis: e.axis.clone(), first: i, data: Vec::new(), search });
+                Some(self.axes.len() - 1)
+            }
+            None => None,
+        };
+        match at {
+            Some(at) => {
+                let m = usable(&e, self.fallback_sigma);
+                if m.is_some_and(|m| m.2) && self.first_fallback.is_none() {
+                    self.first_fallback = Some(i);
+                }
+                let m = to_measurement(&e, m.map(|(z, sigma, _)| (z, sigma)));
+                let axis = &mut self.axes[at];
+                axis.data.push(m);
+                if let Some(search) = axis.search.as_mut() {
+                    search.push(m);
+                }
+                self.axis_of.push(at as u8);
+            }
+            None => {
+                self.too_many.get_or_insert(i);
+                self.axis_of.push(u8::MAX);
+            }
+        }
+        self.held.push(e);
+    }
+}
+
+/// The estimate's angle and sigma when it is usable, and whether the sigma
+/// is `fallback_sigma` (the estimate's own is missing).
+fn usable(e: &AngleEstimate, fallback_sigma: f64) -> Option<(f64, f64, bool)> {
+    let z = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite())?;
+    if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
+        return Some((z, e.sigma_deg, false));
+    }
+    Some((z, fallback_sigma, true))
+}
+
+/// What the smoother is given for estimate `e` with its usable angle and sigma.
+fn to_measurement(e: &AngleEstimate, usable: Option<(f64, f64)>) -> Measurement {
+    Measurement { t: e.stamp.seconds(), z: usable.map(|m| m.0), r: usable.map_or(1.0, |m| m.1 * m.1) }
 }
 
 /// Most estimates held for smoothing at once (about 25 MB); a longer run is
@@ -262,11 +357,8 @@ impl Tracker {
     /// The estimate's angle and sigma when it is usable (a notice once when
     /// the sigma is missing and the fallback is used).
     fn measurement(&mut self, e: &AngleEstimate, out: &mut Outputs) -> Option<(f64, f64)> {
-        let z = e.error_deg.filter(|z| e.flag == Flag::Ok && z.is_finite())?;
-        if e.sigma_deg.is_finite() && e.sigma_deg > 0.0 {
-            return Some((z, e.sigma_deg));
-        }
-        if !self.warned_sigma {
+        let (z, sigma, fallback) = usable(e, self.fallback_sigma)?;
+        if fallback && !self.warned_sigma {
             self.warned_sigma = true;
             out.warn(
                 e.stamp,
@@ -276,7 +368,7 @@ impl Tracker {
                 ),
             );
         }
-        Some((z, self.fallback_sigma))
+        Some((z, sigma))
     }
 
     /// Add the antenna's pointing (when telemetry maps axis `k`) to the tracked angle.
@@ -307,50 +399,52 @@ impl Tracker {
         let Some(setup) = self.smoother.as_mut().filter(|s| !s.held.is_empty()) else {
             return Ok(());
         };
+        let (model, setup_q, gate) = (setup.model, setup.q, setup.gate_sigmas);
         let mut held = std::mem::take(&mut setup.held);
-        let (model, q) = (setup.model, setup.q);
+        let axis_of = std::mem::take(&mut setup.axis_of);
+        let mut axes = std::mem::take(&mut setup.axes);
+        let (too_many, first_fallback) = (setup.too_many.take(), setup.first_fallback.take());
         setup.pieces += 1;
-        let mut axis_of = Vec::with_capacity(held.len());
-        for e in &held {
-            axis_of.push(self.axis_index(e, out)?);
+        // The notices (and the error) of a walk over the held estimates, at
+        // the estimates that give them.
+        let mut track_of = Vec::with_capacity(axes.len());
+        for axis in &axes {
+            track_of.push(self.axis_index(&held[axis.first], out)?);
         }
-        let mut measured = Vec::with_capacity(held.len());
-        for e in &held {
-            measured.push(self.measurement(e, out));
+        if let Some(i) = too_many {
+            self.axis_index(&held[i], out)?;
         }
+        if let Some(i) = first_fallback {
+            self.measurement(&held[i], out);
+        }
+        let mut smoothed: Vec<Option<std::vec::IntoIter<Smoothed>>> = axes.iter().map(|_| None).collect();
         for k in 0..self.axes.len() {
-            let rows: Vec<usize> = (0..held.len()).filter(|&i| axis_of[i] == k).collect();
-            let data: Vec<Measurement> = rows
-                .iter()
-                .map(|&i| {
-                    let m = measured[i];
-                    Measurement { t: held[i].stamp.seconds(), z: m.map(|m| m.0), r: m.map_or(1.0, |m| m.1 * m.1) }
-                })
-                .collect();
-            if data.iter().all(|m| m.z.is_none()) {
+            let Some(at) = track_of.iter().position(|&t| t == k) else { continue };
+            let axis = &mut axes[at];
+            if axis.data.iter().all(|m| m.z.is_none()) {
                 continue;
             }
-            let (smoothed, q_used) = smooth(&data, model, q, self.gate_sigmas);
-            if q.is_none()
-                && let Some(&i) = rows.first()
-            {
-                let axis = self.axes[k].axis.clone();
+            let q = setup_q.or_else(|| axis.search.take().map(QSearch::most_likely_q));
+            let (results, q_used) = smooth(&axis.data, model, q, gate);
+            if setup_q.is_none() {
                 out.inform(
-                    held[i].stamp,
-                    format!("smoother for axis '{axis}': process noise {q_used:.3e} (most likely for the data)"),
+                    held[axis.first].stamp,
+                    format!("smoother for axis '{}': process noise {q_used:.3e} (most likely for the data)", axis.axis),
                 );
             }
-            for (&i, s) in rows.iter().zip(&smoothed) {
-                let e = Arc::make_mut(&mut held[i]);
-                if s.outlier {
-                    e.flag = Flag::Outlier;
-                }
-                e.tracked_deg = Some(s.angle);
-                e.tracked_sigma_deg = Some(s.variance.sqrt());
-            }
+            smoothed[at] = Some(results.into_iter());
         }
-        for (mut e, k) in held.into_iter().zip(axis_of) {
-            self.point(Arc::make_mut(&mut e), k, out);
+        for (mut e, at) in held.drain(..).zip(axis_of) {
+            let at = usize::from(at);
+            let est = Arc::make_mut(&mut e);
+            if let Some(s) = smoothed[at].as_mut().and_then(Iterator::next) {
+                if s.outlier {
+                    est.flag = Flag::Outlier;
+                }
+                est.tracked_deg = Some(s.angle);
+                est.tracked_sigma_deg = Some(s.variance.sqrt());
+            }
+            self.point(est, track_of[at], out);
             out.push(TrackerOut::Estimates, Item::Estimate(e));
         }
         Ok(())
@@ -361,7 +455,7 @@ impl Tracker {
     fn take(&mut self, mut e: Arc<AngleEstimate>, out: &mut Outputs) -> Result<(), BlockError> {
         self.last_stamp = Some(e.stamp);
         if let Some(setup) = self.smoother.as_mut() {
-            setup.held.push(e);
+            setup.hold(e);
             if setup.held.len() >= MAX_HELD {
                 self.flush_smoother(out)?;
             }
