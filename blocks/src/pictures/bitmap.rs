@@ -207,7 +207,22 @@ impl<'a> GlyphCachedBitmap<'a> {
     /// by `floor(256 alpha) / 256` of the difference, rounded toward the
     /// old value.
     #[inline]
-    fn put_pixel(&mut self, (x, y): BackendCoord, color: BackendColor) {
+    fn put_pixel(&mut self, at: BackendCoord, color: BackendColor) {
+        let step = if color.alpha >= 1.0 - 1.0 / 256.0 {
+            256
+        } else if color.alpha > 0.0 {
+            // In (0, 255): truncation is the floor the backend takes.
+            (color.alpha * 256.0) as u32
+        } else {
+            return;
+        };
+        self.put_step(at, color.rgb, step);
+    }
+
+    /// [`Self::put_pixel`] with the alpha as its step: 256 sets the pixel,
+    /// 1..=255 blend it by that many 256ths, 0 changes nothing.
+    #[inline]
+    fn put_step(&mut self, (x, y): BackendCoord, (r, g, b): (u8, u8, u8), step: u32) {
         let (w, h) = self.size;
         if x < 0 || y < 0 || x as u32 >= w || y as u32 >= h {
             return;
@@ -215,12 +230,10 @@ impl<'a> GlyphCachedBitmap<'a> {
         self.paint_row(y as usize);
         let at = 3 * (y as usize * w as usize + x as usize);
         let pixel = &mut self.rgb[at..at + 3];
-        let (r, g, b) = color.rgb;
-        if color.alpha >= 1.0 - 1.0 / 256.0 {
+        if step >= 256 {
             pixel.copy_from_slice(&[r, g, b]);
-        } else if color.alpha > 0.0 {
-            // In (0, 255): truncation is the floor the backend takes.
-            blend_pixel(pixel, (r, g, b), (color.alpha * 256.0) as u32);
+        } else if step > 0 {
+            blend_pixel(pixel, (r, g, b), step);
         }
     }
 }
@@ -359,9 +372,16 @@ impl DrawingBackend for GlyphCachedBitmap<'_> {
             VPos::Bottom => -height,
         };
         let trans = style.transform();
-        let drawn = glyphs::draw_text(style.size(), text, |x, y, coverage| {
+        // An opaque colour (most text) takes each pixel's blend step from
+        // the cache instead of mixing its alpha anew.
+        let opaque = color.alpha == 1.0;
+        let drawn = glyphs::draw_text(style.size(), text, |x, y, coverage, step| {
             let (x, y) = trans.transform(x + dx - min_x, y + dy - min_y);
-            self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
+            if opaque {
+                self.put_step((pos.0 + x, pos.1 + y), color.rgb, u32::from(step));
+            } else {
+                self.put_pixel((pos.0 + x, pos.1 + y), color.mix(coverage as f64));
+            }
         });
         if !drawn {
             return self.bitmap().draw_text(text, style, pos);

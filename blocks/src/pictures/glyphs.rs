@@ -13,10 +13,11 @@ thread_local! {
     static GLYPHS: RefCell<GlyphCache> = RefCell::new(GlyphCache::default());
 }
 
-/// Call `draw(x, y, coverage)` for every pixel of `text` at `size` in our
-/// font, pen at (0, 0), from this thread's glyph cache; false when the font
-/// cannot be loaded (the caller then draws the text another way).
-pub(super) fn draw_text(size: f64, text: &str, draw: impl FnMut(i32, i32, f32)) -> bool {
+/// Call `draw(x, y, coverage, step)` for every pixel of `text` at `size` in
+/// our font, pen at (0, 0), from this thread's glyph cache (`step` as
+/// [`opaque_step`] gives it); false when the font cannot be loaded (the
+/// caller then draws the text another way).
+pub(super) fn draw_text(size: f64, text: &str, draw: impl FnMut(i32, i32, f32, u16)) -> bool {
     GLYPHS.with(|cache| cache.borrow_mut().draw_text(size, text, draw))
 }
 
@@ -24,9 +25,10 @@ pub(super) fn draw_text(size: f64, text: &str, draw: impl FnMut(i32, i32, f32)) 
 /// the origin.
 struct Glyph {
     id: GlyphId,
-    /// Pixels the outline covers: offset from the pen (the renderer's
-    /// vertical shift included) and coverage, in the renderer's order.
-    pixels: Vec<(i32, i32, f32)>,
+    /// Pixels the outline covers (coverage above 0): offset from the pen
+    /// (the renderer's vertical shift included) and coverage, in the
+    /// renderer's order, with the coverage's [`opaque_step`].
+    pixels: Vec<(i32, i32, f32, u16)>,
 }
 
 /// Glyphs rasterized by any worker, so each character at each size is
@@ -50,7 +52,7 @@ impl GlyphCache {
 
     /// Call `draw(x, y, coverage)` for every pixel of `text` at `size`, as
     /// `FontDataInternal::draw` does with its pen at (0, 0).
-    fn draw_text(&mut self, size: f64, text: &str, mut draw: impl FnMut(i32, i32, f32)) -> bool {
+    fn draw_text(&mut self, size: f64, text: &str, mut draw: impl FnMut(i32, i32, f32, u16)) -> bool {
         let Some(font_ref) = self.font() else { return false };
         let font = font_ref.as_scaled(size as f32);
         let mut x_shift = 0f32;
@@ -66,8 +68,8 @@ impl GlyphCache {
             }
             prev = Some(glyph.id);
             let x0 = x_shift as i32;
-            for &(x, y, coverage) in &glyph.pixels {
-                draw(x + x0, y, coverage);
+            for &(x, y, coverage, step) in &glyph.pixels {
+                draw(x + x0, y, coverage, step);
             }
             x_shift += font.h_advance(glyph.id);
         }
@@ -80,7 +82,24 @@ fn rasterize(font: &ab_glyph::PxScaleFont<&FontRef<'static>>, size: f64, c: char
     let mut pixels = Vec::new();
     if let Some(outline) = font.outline_glyph(font.scaled_glyph(c)) {
         let y_shift = ((size as f32) / 2.0 + outline.px_bounds().min.y) as i32;
-        outline.draw(|x, y, coverage| pixels.push((x as i32, y as i32 + y_shift, coverage)));
+        // The renderer visits every pixel of the glyph's box; one it does
+        // not cover draws nothing (alpha 0), so it is not kept: a third to
+        // a half of the box in our font.
+        outline.draw(|x, y, coverage| {
+            if coverage > 0.0 {
+                pixels.push((x as i32, y as i32 + y_shift, coverage, opaque_step(coverage)));
+            }
+        });
     }
     Glyph { id, pixels }
+}
+
+/// What the bitmap backend makes of `coverage` as the alpha of an opaque
+/// colour (`color.mix(coverage)` then its pixel call): 256 when it sets the
+/// pixel (alpha of at least 255/256), else the blend's `floor(256 alpha)`.
+/// Worked out once per glyph pixel rather than per pixel drawn.
+pub(super) fn opaque_step(coverage: f32) -> u16 {
+    // The mix of an opaque colour: 1.0 times the coverage, exactly it.
+    let alpha = f64::from(coverage);
+    if alpha >= 1.0 - 1.0 / 256.0 { 256 } else { (alpha * 256.0) as u16 }
 }
