@@ -252,8 +252,9 @@ mod linux {
             // SAFETY: the range lies inside the mapping, which lives as long
             // as `&self` and is read-only (PROT_READ). Not guaranteed, as for
             // any file mapping: another process that rewrites the file
-            // changes these bytes (any bit pattern is a valid float), and one that truncates it between `populate`
-            // and this read raises SIGBUS (the race the module notes).
+            // changes these bytes (any bit pattern is a valid float), and
+            // one that truncates it between `populate` and this read raises
+            // SIGBUS (the race the module notes).
             unsafe { std::slice::from_raw_parts(self.ptr.as_ptr().add(range.start), range.len()) }
         }
     }
