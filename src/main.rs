@@ -237,6 +237,7 @@ fn cores() -> usize {
 const MAX_THREADS: i64 = 256;
 
 fn main() -> ExitCode {
+    commands::bus_error::install();
     match dispatch(Cli::parse()) {
         Ok(code) => code,
         Err(e) => {

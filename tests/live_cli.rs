@@ -1,7 +1,7 @@
 //! Live runs through the command: a slow producer on standard input gets
 //! its first rows before it has finished; Ctrl-C (and SIGTERM, SIGHUP) keep
 //! the rows so far and draw the pictures; a partial last frame is a warning;
-//! a FIFO is read as a stream.
+//! a FIFO is read as a stream; a bus error ends the run with a message.
 
 use std::io::{BufRead, BufReader, Read, Write};
 use std::path::{Path, PathBuf};
@@ -338,4 +338,50 @@ fn row_latency_figures() {
         );
         let _ = std::fs::remove_dir_all(&out);
     }
+}
+
+#[test]
+fn a_bus_error_is_told_in_words_and_commits_nothing() {
+    // A capture truncated between the reader's check and its read raises
+    // SIGBUS (the mapped read); here the signal is sent during a live run.
+    let out = scratch("sigbus");
+    let mut child = beacon_live(&out, &["--quiet"]);
+    let lines = lines_with_times(&mut child);
+    let mut stdin = child.stdin.take().unwrap();
+    let bytes = beacon_bytes();
+    stdin.write_all(&bytes[..bytes.len() / 3]).unwrap();
+    stdin.flush().unwrap();
+    lines.recv_timeout(Duration::from_secs(20)).expect("rows arrive while the pipe is open");
+    signal(&child, libc::SIGBUS);
+    // Without the handler a sent SIGBUS is only noted (the standard
+    // library's stack-guard handler returns), and the run would wait on.
+    let waited = Instant::now();
+    let status = loop {
+        if let Some(status) = child.try_wait().unwrap() {
+            break status;
+        }
+        if waited.elapsed() > Duration::from_secs(20) {
+            let _ = child.kill();
+            panic!("the run did not end on SIGBUS");
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    };
+    drop(stdin);
+    let err = stderr_text(&mut child);
+    assert_eq!(status.code(), Some(2), "{err}");
+    assert!(err.contains("bus error (SIGBUS): most likely a capture file was truncated"), "{err}");
+    assert!(!out.join("angles.csv").exists(), "nothing is committed");
+    // The next run in that folder clears what the stopped one left.
+    let mut child = beacon_live(&out, &["--quiet"]);
+    let mut stdin = child.stdin.take().unwrap();
+    stdin.write_all(&bytes).unwrap();
+    drop(stdin);
+    let mut sink = String::new();
+    child.stdout.take().unwrap().read_to_string(&mut sink).unwrap();
+    let err = stderr_text(&mut child);
+    assert!(child.wait().unwrap().success(), "{err}");
+    let left: Vec<_> = std::fs::read_dir(&out).unwrap().flatten().map(|e| e.file_name()).collect();
+    assert!(left.iter().all(|n| !n.to_string_lossy().starts_with(".lobeflow-staging-")), "{left:?}");
+    assert!(out.join("angles.csv").is_file());
+    let _ = std::fs::remove_dir_all(&out);
 }

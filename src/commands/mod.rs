@@ -3,6 +3,7 @@
 //! `main` prints once.
 
 pub mod batch;
+pub mod bus_error;
 pub mod calibrate;
 pub mod catalog;
 pub mod check;

@@ -14,7 +14,8 @@
 //!
 //! What remains: a file truncated *between* populating a range and reading
 //! it (a few microseconds for one chunk) still raises SIGBUS and ends the
-//! process. Guarding that too would take a process-wide signal handler.
+//! process. The command-line tool's handler (`src/commands/bus_error.rs`)
+//! then says so and exits with status 2; an embedding program has its own.
 
 use super::reader::{CaptureInfo, CaptureReader, FrameStream};
 use std::fs::File;
