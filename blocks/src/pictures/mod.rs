@@ -17,6 +17,9 @@ pub mod lobe_timeline;
 pub mod range_trace;
 mod raster;
 pub mod split_pair;
+mod svg_writer;
+#[cfg(test)]
+mod test_scene;
 
 use crate::{BlockError, BlockSpec, FileStager};
 use plotters::coord::Shift;
@@ -128,7 +131,7 @@ pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) ->
     let (w, h) = picture.size();
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (w, h)).into_drawing_area();
+        let root = svg_writer::SvgWriter::with_string(&mut svg, (w, h)).into_drawing_area();
         picture.draw(&root).map_err(BlockError::new)?;
         root.present().map_err(|e| BlockError::new(draw_err(e)))?;
     }
