@@ -98,6 +98,14 @@ fn shapes<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>) {
         root.draw(&Circle::new((x, y), 2 + 3 * k as u32, colour.filled())).unwrap();
         root.draw(&Circle::new((x + 6, y + 4), 4 + 2 * k as u32, colour.stroke_width(1))).unwrap();
     }
+    // Markers of one kind again and again (drawn from one stamp), some
+    // cut by the edges; outlines thin and wide.
+    for k in 0..14 {
+        let at = (-3 + 26 * k, 198 - 15 * k);
+        root.draw(&Circle::new(at, 2, palette::INK.mix(0.55).filled())).unwrap();
+        root.draw(&Circle::new((at.0 + 4, at.1), 3, palette::ALERT.stroke_width(1))).unwrap();
+        root.draw(&Circle::new((at.0, at.1 + 9), 5, palette::TRACE.mix(0.8).stroke_width(3))).unwrap();
+    }
     for (k, &(x, y)) in [(0, 0), (319, 199), (-1, 5), (320, 5), (100, 200), (60, 70)].iter().enumerate() {
         root.draw(&Pixel::new((x, y), palette::INK.mix([1.0, 0.99, 0.5, 0.003][k % 4]))).unwrap();
     }
