@@ -64,6 +64,17 @@ impl<'a> SvgWriter<'a> {
         let _ = write!(self.buf, " {name}=\"#{r:02X}{g:02X}{b:02X}\"");
     }
 
+    /// ` fill="#C" stroke="none"` for a filled shape, else the other way.
+    fn fill_or_stroke(&mut self, color: BackendColor, fill: bool) {
+        if fill {
+            self.colour("fill", color);
+            self.buf.push_str(" stroke=\"none\"");
+        } else {
+            self.buf.push_str(" fill=\"none\"");
+            self.colour("stroke", color);
+        }
+    }
+
     /// ` points="x,y x,y "`.
     fn points(&mut self, path: impl IntoIterator<Item = BackendCoord>) {
         self.buf.push_str(" points=\"");
@@ -146,13 +157,7 @@ impl DrawingBackend for SvgWriter<'_> {
             bottom_right.1 - upper_left.1
         );
         self.opacity(color);
-        if fill {
-            self.colour("fill", color);
-            self.buf.push_str(" stroke=\"none\"");
-        } else {
-            self.buf.push_str(" fill=\"none\"");
-            self.colour("stroke", color);
-        }
+        self.fill_or_stroke(color, fill);
         self.buf.push_str("/>\n");
         Ok(())
     }
@@ -205,13 +210,7 @@ impl DrawingBackend for SvgWriter<'_> {
         }
         let _ = write!(self.buf, "<circle cx=\"{x}\" cy=\"{y}\" r=\"{radius}\"");
         self.opacity(color);
-        if fill {
-            self.colour("fill", color);
-            self.buf.push_str(" stroke=\"none\"");
-        } else {
-            self.buf.push_str(" fill=\"none\"");
-            self.colour("stroke", color);
-        }
+        self.fill_or_stroke(color, fill);
         let _ = writeln!(self.buf, " stroke-width=\"{}\"/>", style.stroke_width());
         Ok(())
     }
