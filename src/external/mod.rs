@@ -92,6 +92,9 @@ impl Launch {
             Some(Value::Text(f)) if !f.is_empty() => PathBuf::from(f),
             _ => graph_dir.to_path_buf(),
         };
+        // A graph named without a folder (`run graph.yaml`) has the empty
+        // path for one, which no process can be started in.
+        let folder = if folder.as_os_str().is_empty() { PathBuf::from(".") } else { folder };
         let timeout = match p.get("timeout") {
             Some(Value::Number(s)) => *s,
             _ => 30.0,

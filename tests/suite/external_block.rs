@@ -105,6 +105,27 @@ fn the_python_discriminator_gives_the_built_in_angles() {
 }
 
 #[test]
+fn a_graph_named_without_its_folder_starts_its_program_there() {
+    needs_python!(false, "a_graph_named_without_its_folder_starts_its_program_there");
+    // `lobeflow check graph.yaml` and `run graph.yaml` from the graph's own
+    // folder: the folder of a bare file name is the empty path, which no
+    // process can be started in (this failed as "cannot start ... in :").
+    let out = temp_dir("bare-name");
+    for command in ["check", "run"] {
+        let mut cmd = Command::new(env!("CARGO_BIN_EXE_lobeflow"));
+        cmd.current_dir(root().join("graphs")).args([command, "four-lobe-external-dos.yaml"]);
+        if command == "run" {
+            cmd.arg("--out").arg(&out).arg("--quiet");
+        }
+        let done = cmd.output().unwrap();
+        let stderr = String::from_utf8_lossy(&done.stderr);
+        assert!(done.status.success(), "{command}: {stderr}");
+    }
+    let angles = std::fs::read_to_string(out.join("angles.csv")).unwrap();
+    assert!(angles.lines().count() > 100, "{angles}");
+}
+
+#[test]
 fn a_numpy_gain_gives_the_samples_of_the_same_product_in_rust() {
     needs_python!(true, "a_numpy_gain_gives_the_samples_of_the_same_product_in_rust");
     let d = temp_dir("gain");
