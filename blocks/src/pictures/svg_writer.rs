@@ -75,13 +75,31 @@ impl<'a> SvgWriter<'a> {
         }
     }
 
-    /// ` points="x,y x,y "`.
-    fn points(&mut self, path: impl IntoIterator<Item = BackendCoord>) {
+    /// A polyline or polygon: `open`, the opacity, the colour as
+    /// `colour_attr`, the stroke width if any, then ` points="x,y x,y "`.
+    /// Nothing for a transparent colour.
+    fn points_element(
+        &mut self,
+        open: &str,
+        colour_attr: &str,
+        color: BackendColor,
+        width: Option<u32>,
+        path: impl IntoIterator<Item = BackendCoord>,
+    ) {
+        if color.alpha == 0.0 {
+            return;
+        }
+        self.buf.push_str(open);
+        self.opacity(color);
+        self.colour(colour_attr, color);
+        if let Some(width) = width {
+            let _ = write!(self.buf, " stroke-width=\"{width}\"");
+        }
         self.buf.push_str(" points=\"");
         for (x, y) in path {
             let _ = write!(self.buf, "{x},{y} ");
         }
-        self.buf.push('"');
+        self.buf.push_str("\"/>\n");
     }
 }
 
@@ -167,16 +185,7 @@ impl DrawingBackend for SvgWriter<'_> {
         path: I,
         style: &S,
     ) -> Result<(), SvgError> {
-        let color = style.color();
-        if color.alpha == 0.0 {
-            return Ok(());
-        }
-        self.buf.push_str("<polyline fill=\"none\"");
-        self.opacity(color);
-        self.colour("stroke", color);
-        let _ = write!(self.buf, " stroke-width=\"{}\"", style.stroke_width());
-        self.points(path);
-        self.buf.push_str("/>\n");
+        self.points_element("<polyline fill=\"none\"", "stroke", style.color(), Some(style.stroke_width()), path);
         Ok(())
     }
 
@@ -185,15 +194,7 @@ impl DrawingBackend for SvgWriter<'_> {
         path: I,
         style: &S,
     ) -> Result<(), SvgError> {
-        let color = style.color();
-        if color.alpha == 0.0 {
-            return Ok(());
-        }
-        self.buf.push_str("<polygon");
-        self.opacity(color);
-        self.colour("fill", color);
-        self.points(path);
-        self.buf.push_str("/>\n");
+        self.points_element("<polygon", "fill", style.color(), None, path);
         Ok(())
     }
 
