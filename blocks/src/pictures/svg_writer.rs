@@ -22,8 +22,8 @@ type SvgError = DrawingErrorKind<std::io::Error>;
 pub struct SvgWriter<'a> {
     buf: &'a mut String,
     size: (u32, u32),
-    /// Elements opened and not closed yet, innermost last.
-    open: Vec<&'static str>,
+    /// Whether the closing `</svg>` is written (every other element is
+    /// closed where it is opened).
     closed: bool,
 }
 
@@ -36,7 +36,7 @@ impl<'a> SvgWriter<'a> {
             buf,
             "<svg width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\" xmlns=\"http://www.w3.org/2000/svg\">"
         );
-        SvgWriter { buf, size, open: vec!["svg"], closed: false }
+        SvgWriter { buf, size, closed: false }
     }
 
     /// `value` with the five markup characters escaped.
@@ -116,9 +116,7 @@ impl DrawingBackend for SvgWriter<'_> {
 
     fn present(&mut self) -> Result<(), SvgError> {
         if !self.closed {
-            while let Some(tag) = self.open.pop() {
-                let _ = writeln!(self.buf, "</{tag}>");
-            }
+            self.buf.push_str("</svg>\n");
             self.closed = true;
         }
         Ok(())
