@@ -21,6 +21,7 @@ mod inspect_captures;
 mod live_session;
 mod output_safety;
 mod pictures;
+mod pictures_against_runs;
 mod plugin_block;
 mod regress_reports;
 mod report_page;

@@ -26,6 +26,10 @@
 //! start sits on the first usable angle, so the bank holds the times of
 //! the steps before it until it comes. A fixed `q` needs no search.
 
+mod small_matrix;
+
+use small_matrix::{M3, Mat, add, invert, leading, mat_mul, mat_vec, transpose};
+
 crate::block_choice! {
     /// The motion model of the smoothed angle.
     pub enum Model {
@@ -35,9 +39,6 @@ crate::block_choice! {
         ConstantAcceleration = "constant_acceleration",
     }
 }
-
-type Mat<const N: usize> = [[f64; N]; N];
-type M3 = Mat<3>;
 
 /// One measurement: time (s), angle (deg), variance (deg^2); `None` angle =
 /// a time step without a usable measurement (smoothed, not updated).
@@ -390,10 +391,6 @@ fn step_all<const N: usize>(
     }
 }
 
-/// The leading `N` x `N` block of a 3 x 3 matrix.
-fn leading<const N: usize>(a: &M3) -> Mat<N> {
-    std::array::from_fn(|i| std::array::from_fn(|j| a[i][j]))
-}
 /// The Rauch-Tung-Striebel pass over the forward records.
 fn backward<const N: usize>(fwd: &[Forward<N>]) -> Vec<Smoothed> {
     let mut out = vec![Smoothed { angle: f64::NAN, variance: f64::NAN, outlier: false }; fwd.len()];
@@ -415,49 +412,6 @@ fn backward<const N: usize>(fwd: &[Forward<N>]) -> Vec<Smoothed> {
         out[k] = Smoothed { angle: xs[0], variance: ps[0][0].max(0.0), outlier: now.outlier };
     }
     out
-}
-
-fn mat_mul<const N: usize>(a: &Mat<N>, b: &Mat<N>) -> Mat<N> {
-    std::array::from_fn(|i| std::array::from_fn(|j| (0..N).map(|k| a[i][k] * b[k][j]).sum()))
-}
-fn mat_vec<const N: usize>(a: &Mat<N>, x: &[f64; N]) -> [f64; N] {
-    std::array::from_fn(|i| (0..N).map(|k| a[i][k] * x[k]).sum())
-}
-fn transpose<const N: usize>(a: &Mat<N>) -> Mat<N> {
-    std::array::from_fn(|i| std::array::from_fn(|j| a[j][i]))
-}
-fn add<const N: usize>(a: &Mat<N>, b: &Mat<N>) -> Mat<N> {
-    std::array::from_fn(|i| std::array::from_fn(|j| a[i][j] + b[i][j]))
-}
-/// Inverse of a 2 x 2 or 3 x 3 matrix; `None` when it is singular.
-fn invert<const N: usize>(a: &Mat<N>) -> Option<Mat<N>> {
-    let mut inv = [[0.0; N]; N];
-    if N == 2 {
-        let det = a[0][0] * a[1][1] - a[0][1] * a[1][0];
-        if det.abs() < 1e-300 || !det.is_finite() {
-            return None;
-        }
-        inv[0][0] = a[1][1] / det;
-        inv[0][1] = -a[0][1] / det;
-        inv[1][0] = -a[1][0] / det;
-        inv[1][1] = a[0][0] / det;
-        return Some(inv);
-    }
-    let cof = |i: usize, j: usize| {
-        let (r0, r1) = ((i + 1) % 3, (i + 2) % 3);
-        let (c0, c1) = ((j + 1) % 3, (j + 2) % 3);
-        a[r0][c0] * a[r1][c1] - a[r0][c1] * a[r1][c0]
-    };
-    let det = a[0][0] * cof(0, 0) + a[0][1] * cof(0, 1) + a[0][2] * cof(0, 2);
-    if det.abs() < 1e-300 || !det.is_finite() {
-        return None;
-    }
-    for (i, row) in inv.iter_mut().enumerate() {
-        for (j, v) in row.iter_mut().enumerate() {
-            *v = cof(j, i) / det;
-        }
-    }
-    Some(inv)
 }
 
 #[cfg(test)]
@@ -594,18 +548,6 @@ mod tests {
         // Line through (3,4),(4,6),(5,5),(6,5): slope 0.2, 5 at t = 4.5.
         for (m, s) in data.iter().zip(&out) {
             assert!((s.angle - (5.0 + 0.2 * (m.t - 4.5))).abs() < 1e-3, "{}: {}", m.t, s.angle);
-        }
-    }
-
-    #[test]
-    fn three_by_three_inverse() {
-        let a = [[4.0, 1.0, 0.5], [1.0, 3.0, 0.2], [0.5, 0.2, 2.0]];
-        let inv = invert(&a).unwrap();
-        let i = mat_mul(&a, &inv);
-        for (r, row) in i.iter().enumerate() {
-            for (c, v) in row.iter().enumerate() {
-                assert!((v - if r == c { 1.0 } else { 0.0 }).abs() < 1e-12);
-            }
         }
     }
 }

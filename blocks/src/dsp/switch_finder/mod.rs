@@ -16,18 +16,15 @@
 //! instant. Derivation and limits in docs/derivations.md ("Switch timing
 //! from the signal").
 
-use super::event_period::{find_events, line_fit};
+mod acquisition;
+mod cells;
+
 use super::switch_sync::{Irregularity, SwitchEvent};
+use acquisition::{DETECT_SD, MIN_DWELLS, acquire};
+use cells::{Cell, Feature, locate, reach};
 use std::collections::VecDeque;
 use std::sync::Arc;
 
-/// Step windows tried at acquisition, in cells each side of a candidate switch.
-const STEP_CELLS: [usize; 6] = [1, 2, 4, 8, 16, 32];
-/// Dwells the acquisition stretch must hold for a window to be tried.
-const MIN_DWELLS: f64 = 12.0;
-/// A switch is seen when the feature's peak near the prediction stands this
-/// many of its deviations over the window's median.
-const DETECT_SD: f64 = 4.0;
 /// While tracking, a switch must also reach this share of the acquired
 /// switches' typical height: noise alone passes four deviations somewhere
 /// in a window now and then, and would reset the coasting count.
@@ -85,185 +82,6 @@ pub struct Acquired {
     pub spacing: f64,
     /// The located switches' median height over their windows (feature units).
     pub height: f64,
-}
-
-/// One cell: its first sample, its samples, their summed and largest power.
-#[derive(Clone, Copy, Debug)]
-struct Cell {
-    start: u64,
-    count: u32,
-    energy: f64,
-    peak: f64,
-}
-
-/// Location and scale of a feature, robust to the events in it.
-#[derive(Clone, Copy, Debug)]
-struct Scale {
-    median: f64,
-    spread: f64,
-}
-
-impl Scale {
-    fn of(values: &[f64]) -> Scale {
-        let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
-        if v.is_empty() {
-            return Scale { median: 0.0, spread: 1.0 };
-        }
-        v.sort_by(f64::total_cmp);
-        let median = v[v.len() / 2];
-        let mut dev: Vec<f64> = v.iter().map(|x| (x - median).abs()).collect();
-        dev.sort_by(f64::total_cmp);
-        Scale { median, spread: (1.4826 * dev[dev.len() / 2]).max(1e-9) }
-    }
-    fn z(&self, x: f64) -> f64 {
-        (x - self.median) / self.spread
-    }
-}
-
-/// The per-cell feature: standardised step across the cell's start plus standardised log peak.
-#[derive(Clone, Copy, Debug)]
-struct Feature {
-    cells: usize,
-    /// Each cell is a sweep (switches fall between cells), not a run of samples.
-    whole_cells: bool,
-    step: Scale,
-    peak: Scale,
-}
-
-/// |ln| of the mean power of `k` cells from `j` over the `k` cells before `j`.
-fn step_at(cells: &[Cell], j: usize, k: usize) -> f64 {
-    if j < k || j + k > cells.len() {
-        return f64::NAN;
-    }
-    let mean = |r: &[Cell]| {
-        let (e, n) = r.iter().fold((0.0, 0u64), |a, c| (a.0 + c.energy, a.1 + u64::from(c.count)));
-        e / n.max(1) as f64
-    };
-    let (before, after) = (mean(&cells[j - k..j]), mean(&cells[j..j + k]));
-    if before > 0.0 && after > 0.0 { (after / before).ln().abs() } else { f64::NAN }
-}
-
-fn log_peak(c: &Cell) -> f64 {
-    c.peak.max(1e-30).ln()
-}
-
-impl Feature {
-    /// Scales from the acquisition cells.
-    fn learn(cells: &[Cell], k: usize, whole_cells: bool) -> Feature {
-        let steps: Vec<f64> = (0..cells.len()).map(|j| step_at(cells, j, k)).collect();
-        let peaks: Vec<f64> = cells.iter().map(log_peak).collect();
-        Feature { cells: k, whole_cells, step: Scale::of(&steps), peak: Scale::of(&peaks) }
-    }
-
-    /// The feature of cell `j` (0 where the step window does not fit).
-    fn at(&self, cells: &[Cell], j: usize) -> f64 {
-        let step = step_at(cells, j, self.cells);
-        let step = if step.is_finite() { self.step.z(step) } else { 0.0 };
-        // the transient begins at the switch, inside the cell before the
-        // first whole cell of the new dwell (or at the tail of the sweep before)
-        // (a run of samples: a transient of a few samples may reach into it)
-        let last = if self.whole_cells { j } else { j + 1 };
-        let peak = (j.saturating_sub(1)..last)
-            .filter_map(|i| cells.get(i))
-            .map(|c| self.peak.z(log_peak(c)))
-            .fold(0.0, f64::max);
-        step + peak
-    }
-}
-
-/// Half-width (samples) of the search about a predicted switch: a quarter
-/// dwell, but at least two and a half cells (a dwell of a few sweeps), and
-/// short of the neighbouring switches.
-fn reach(dwell: f64, spacing: f64) -> f64 {
-    (dwell / 4.0).max(2.5 * spacing).min(0.45 * dwell)
-}
-
-/// Position (samples) of a fractional cell index.
-fn position(cells: &[Cell], p: f64) -> f64 {
-    let j = (p.floor().max(0.0) as usize).min(cells.len() - 1);
-    let c = &cells[j];
-    c.start as f64 + (p - j as f64) * f64::from(c.count)
-}
-
-/// Find the switch train in the acquisition cells.
-fn acquire(cells: &[Cell], whole_cells: bool) -> Option<(Acquired, Feature)> {
-    if cells.len() < 16 {
-        return None;
-    }
-    let mut best: Option<(Acquired, Feature)> = None;
-    for k in STEP_CELLS {
-        // a dwell of at least four step windows must fit MIN_DWELLS times
-        if (cells.len() as f64) < MIN_DWELLS * 4.0 * k as f64 {
-            break;
-        }
-        let feature = Feature::learn(cells, k, whole_cells);
-        let values: Vec<f32> = (0..cells.len()).map(|j| feature.at(cells, j) as f32).collect();
-        let Some((fit, significance)) = find_events(&values, k) else { continue };
-        if best.as_ref().is_some_and(|b| b.0.significance >= significance) {
-            continue;
-        }
-        let spacing = (cells[cells.len() - 1].start - cells[0].start) as f64 / (cells.len() - 1) as f64;
-        let coarse = (fit.slope * spacing, position(cells, fit.intercept));
-        let Some(found) = refine(cells, &feature, coarse, k, significance) else { continue };
-        best = Some((found, feature));
-    }
-    best
-}
-
-/// Each switch of the coarse train (dwell, a switch instant) located in the
-/// acquisition cells, and a line through them: the dwell and a switch
-/// instant with standard errors from the scatter (twice: the first line
-/// from the first quarter, where a coarse dwell has not strayed yet).
-fn refine(cells: &[Cell], feature: &Feature, coarse: (f64, f64), k: usize, significance: f64) -> Option<Acquired> {
-    let (mut dwell, mut origin) = coarse;
-    let end = (cells[cells.len() - 1].start + u64::from(cells[cells.len() - 1].count)) as f64;
-    let spacing = (end - cells[0].start as f64) / cells.len() as f64;
-    let mut fit = None;
-    let mut heights: Vec<f64> = Vec::new();
-    // the first line through the first MIN_DWELLS switches (or a quarter, when more)
-    let first_share = (MIN_DWELLS * dwell / (end - cells[0].start as f64)).clamp(0.25, 1.0);
-    for share in [first_share, 1.0] {
-        let first = cells[0].start as f64 + (k + 1) as f64 * spacing;
-        let last = cells[0].start as f64 + share * (end - cells[0].start as f64) - (k + 1) as f64 * spacing;
-        let mut points = Vec::new();
-        heights.clear();
-        let mut n = ((first - origin) / dwell).ceil() as i64;
-        while origin + n as f64 * dwell <= last {
-            let centre = origin + n as f64 * dwell;
-            let half = reach(dwell, spacing);
-            let (lo, hi) = (centre - half, centre + half);
-            let window: Vec<(usize, f64)> = (0..cells.len())
-                .filter(|&j| (lo..=hi).contains(&(cells[j].start as f64)))
-                .map(|j| (j, feature.at(cells, j)))
-                .collect();
-            if let Some((at, height)) = locate(cells, &window, feature.whole_cells, DETECT_SD) {
-                points.push((n as f64, at));
-                heights.push(height);
-            }
-            n += 1;
-        }
-        let line = line_fit(&points, 2.0 * spacing)?;
-        (dwell, origin) = (line.slope, line.intercept);
-        fit = Some(line);
-    }
-    let fit = fit?;
-    if (fit.used as f64) < MIN_DWELLS / 2.0 {
-        return None;
-    }
-    // the instant of the first switch in the stretch, and its error there
-    let n0 = ((cells[0].start as f64 - fit.intercept) / fit.slope).ceil();
-    heights.sort_by(f64::total_cmp);
-    Some(Acquired {
-        dwell: fit.slope,
-        dwell_within: 4.0 * fit.slope_se,
-        switch_at: fit.intercept + n0 * fit.slope,
-        switch_within: 4.0 * (fit.intercept_se.powi(2) + (n0 * fit.slope_se).powi(2)).sqrt() + spacing,
-        events: fit.used,
-        step_cells: k,
-        significance,
-        spacing,
-        height: heights[heights.len() / 2],
-    })
 }
 
 /// Tracking state after acquisition.
@@ -572,38 +390,6 @@ impl Track {
         self.k += 1;
         true
     }
-}
-
-/// The switch's position (samples) in a window of (cell, feature) pairs:
-/// the centroid of the peak, when it stands out of the window's median.
-/// Returns the position and the peak's height over the median; `threshold`
-/// is the least height that counts.
-fn locate(cells: &[Cell], window: &[(usize, f64)], whole_cells: bool, threshold: f64) -> Option<(f64, f64)> {
-    if window.len() < 3 {
-        return None;
-    }
-    let mut sorted: Vec<f64> = window.iter().map(|w| w.1).collect();
-    sorted.sort_by(f64::total_cmp);
-    let median = sorted[sorted.len() / 2];
-    let (at, peak) =
-        window.iter().enumerate().fold((0, f64::NEG_INFINITY), |a, (i, w)| if w.1 > a.1 { (i, w.1) } else { a });
-    if peak - median < threshold {
-        return None;
-    }
-    // A cell's step is across its start, and the switch lies in the cell
-    // before (its transient too): on average half a cell before that start
-    // for runs of samples; a sweep switches at its end.
-    let (mut num, mut den) = (0.0, 0.0);
-    for &(j, v) in window.iter().skip(at.saturating_sub(1)).take(3) {
-        let w = (v - median).max(0.0);
-        let half = match j.checked_sub(1) {
-            Some(i) if !whole_cells => f64::from(cells[i].count) / 2.0,
-            _ => 0.0,
-        };
-        num += w * (position(cells, j as f64) - half);
-        den += w;
-    }
-    (den > 0.0).then(|| (num / den, peak - median))
 }
 
 #[cfg(test)]
