@@ -27,7 +27,7 @@ use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
 mod common;
-use common::{plain_read, without_pictures};
+use common::{plain_read, svg_pictures, without_pictures};
 
 /// The binary measured: this build's, or LOBEFLOW_BENCH_BIN's.
 fn lobeflow_binary() -> PathBuf {
@@ -51,6 +51,10 @@ fn main() {
     let bare = dir.join("four-lobe-no-pictures.yaml");
     std::fs::write(&bare, without_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo))
         .expect("graph copy");
+    let svg = dir.join("four-lobe-svg-pictures.yaml");
+    let svg_text = svg_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo);
+    assert_eq!(svg_text.matches("formats: svg").count(), 6, "every picture block set to SVG");
+    std::fs::write(&svg, svg_text).expect("graph copy");
     println!("lobeflow: {}", lobeflow_binary().display());
     println!("load average at start: {}", load_average());
 
@@ -59,10 +63,12 @@ fn main() {
     // also the font load and the drawing of every (nearly empty) picture.
     let fixed_bare = best_of(runs, || run_graph(&bare, &tiny, &dir.join("out-fixed"), 2).wall);
     let fixed = best_of(runs, || run_graph(&full, &tiny, &dir.join("out-fixed"), 2).wall);
+    let fixed_svg = best_of(runs, || run_graph(&svg, &tiny, &dir.join("out-fixed"), 2).wall);
     println!(
-        "fixed costs, graph on a 10 ms capture: {:.1} ms without pictures, {:.1} ms with",
+        "fixed costs, graph on a 10 ms capture: {:.1} ms without pictures, {:.1} ms with, {:.1} ms with SVG ones only",
         fixed_bare * 1e3,
-        fixed * 1e3
+        fixed * 1e3,
+        fixed_svg * 1e3
     );
 
     let gib: f64 = std::env::var("LOBEFLOW_BENCH_GIB").ok().and_then(|v| v.parse().ok()).unwrap_or(1.0);
@@ -76,7 +82,7 @@ fn main() {
             continue;
         }
         let wav = synthesize(&repo, &dir, &capture);
-        measure(&wav, &full, &bare, &dir, runs, with_numpy.then(|| repo.join("benches/numpy_chain.py")));
+        measure(&wav, [&full, &bare, &svg], &dir, runs, with_numpy.then(|| repo.join("benches/numpy_chain.py")));
     }
     println!("load average at end: {}", load_average());
 }
@@ -90,7 +96,7 @@ struct Cost {
 }
 
 /// All variants on one capture, `runs` rounds; prints the table and ratios.
-fn measure(wav: &Path, full: &Path, bare: &Path, dir: &Path, runs: usize, numpy: Option<PathBuf>) {
+fn measure(wav: &Path, [full, bare, svg]: [&Path; 3], dir: &Path, runs: usize, numpy: Option<PathBuf>) {
     let bytes = std::fs::metadata(wav).expect("capture").len();
     println!("\n== {} ({:.0} MB, {:.3} GiB)", wav.display(), bytes as f64 / 1e6, bytes as f64 / (1u64 << 30) as f64);
     let numpy = numpy.filter(|_| {
@@ -101,13 +107,14 @@ fn measure(wav: &Path, full: &Path, bare: &Path, dir: &Path, runs: usize, numpy:
         ok
     });
     let out = dir.join("out");
-    let variants: [(&str, &Path, usize); 4] = [
+    let variants: [(&str, &Path, usize); 5] = [
         ("pictures, 2 threads", full, 2),
         ("pictures, 1 thread", full, 1),
         ("no pictures, 2 threads", bare, 2),
         ("no pictures, 1 thread", bare, 1),
+        ("SVG pictures, 2 threads", svg, 2),
     ];
-    let mut best = [Cost { wall: f64::MAX, ..Cost::default() }; 4];
+    let mut best = [Cost { wall: f64::MAX, ..Cost::default() }; 5];
     let (mut cat, mut read, mut np) = (f64::MAX, f64::MAX, f64::MAX);
     for _ in 0..runs {
         let t = Instant::now();
@@ -137,14 +144,15 @@ fn measure(wav: &Path, full: &Path, bare: &Path, dir: &Path, runs: usize, numpy:
             c.peak_rss_kib as f64 / 1024.0
         );
     }
-    let [pic2, pic1, bare2, _] = best;
-    let pictures_share = (pic2.wall - bare2.wall).max(0.0) / pic2.wall;
-    println!("pictures' share of the wall time (2 threads): {:.1} %", pictures_share * 100.0);
+    let [pic2, pic1, bare2, _, svg2] = best;
+    let share = |with: Cost| (with.wall - bare2.wall).max(0.0) / with.wall * 100.0;
+    println!("pictures' share of the wall time (2 threads): {:.1} % (SVG only: {:.1} %)", share(pic2), share(svg2));
     println!("2 threads vs 1, with pictures: {:.2} x", pic1.wall / pic2.wall);
     println!("2 threads vs 1, no pictures:   {:.2} x", best[3].wall / bare2.wall);
     if numpy.is_some() {
         println!("numpy chain (whole process):   {:8.3} s", np);
         println!("graph with pictures vs numpy chain: {:.1} x faster", np / pic2.wall);
+        println!("graph with SVG pictures vs numpy chain: {:.1} x faster", np / svg2.wall);
         println!("graph without pictures vs numpy chain: {:.1} x faster", np / bare2.wall);
     }
 }

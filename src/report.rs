@@ -264,11 +264,24 @@ fn notices_section(notices: &[Notice], remarks: &[String]) -> String {
     s
 }
 
-/// Every SVG picture among `files`, linked relative to `base`, under
-/// `prefix` (a sample's folder on the regression page).
+/// The pictures among `files` a page shows: each SVG, and a PNG where no
+/// SVG of the same name was written (a picture block set to `formats: png`).
+fn shown_pictures(files: &[PathBuf]) -> Vec<&PathBuf> {
+    let is = |p: &Path, ext: &str| p.extension().is_some_and(|e| e == ext);
+    files
+        .iter()
+        .filter(|p| {
+            is(p, "svg")
+                || (is(p, "png") && !files.iter().any(|q| is(q, "svg") && q.with_extension("") == p.with_extension("")))
+        })
+        .collect()
+}
+
+/// Every picture among `files` ([`shown_pictures`]), linked relative to
+/// `base`, under `prefix` (a sample's folder on the regression page).
 pub fn pictures_section(files: &[PathBuf], base: &Path, prefix: &str) -> String {
     let mut s = String::from("<h2>Pictures</h2>\n");
-    let mut pictures: Vec<&PathBuf> = files.iter().filter(|p| p.extension().is_some_and(|e| e == "svg")).collect();
+    let mut pictures = shown_pictures(files);
     // By name: blocks finish in whatever order the threads ran them.
     pictures.sort();
     if pictures.is_empty() {
@@ -400,7 +413,8 @@ fn sample_section(name: &str, rows: &[&Row], out: &Path) -> String {
     if let Ok(dir) = sample_dir(out, name) {
         let mut files: Vec<PathBuf> =
             std::fs::read_dir(&dir).map(|d| d.filter_map(|e| e.ok().map(|e| e.path())).collect()).unwrap_or_default();
-        files.retain(|p| p.file_name().is_some_and(|n| n == PAGE_NAME) || p.extension().is_some_and(|e| e == "svg"));
+        let pictures: Vec<PathBuf> = shown_pictures(&files).into_iter().cloned().collect();
+        files.retain(|p| p.file_name().is_some_and(|n| n == PAGE_NAME) || pictures.contains(p));
         files.sort();
         if !files.is_empty() {
             s.push_str("<p>run page and pictures</p>\n");

@@ -1,6 +1,6 @@
 //! What the benchmarks share: the plain-read baseline, the peak resident
-//! set and the reference graph without its pictures. Not every bench uses
-//! every helper.
+//! set and the reference graph without its pictures or with SVG ones
+//! only. Not every bench uses every helper.
 #![allow(dead_code)]
 
 use std::io::Read;
@@ -37,19 +37,39 @@ pub fn peak_rss_kib() -> u64 {
         .unwrap_or(0)
 }
 
+/// The picture blocks of the reference graph (`thin` feeds only them).
+const PICTURE_BLOCKS: [&str; 6] = ["angle_plot", "curve", "circle", "split", "trace", "timeline"];
+
 /// The reference graph without its picture blocks and their wires, its
 /// relative paths made absolute so the copy runs from another folder.
 pub fn without_pictures(text: &str, repo: &Path) -> String {
-    // The picture blocks, and `thin`, which feeds only pictures.
-    let pictures = ["angle_plot", "curve", "circle", "split", "trace", "timeline", "thin"];
-    text.lines()
-        .filter(|l| {
-            let t = l.trim_start();
-            let picture_block = pictures.iter().any(|p| t.starts_with(&format!("{p}:")));
-            let picture_wire = t.starts_with("- ")
-                && pictures.iter().any(|p| t.ends_with(&format!("> {p}")) || t.contains(&format!("> {p}.")));
-            !picture_block && !picture_wire
-        })
+    let dropped: Vec<&str> = PICTURE_BLOCKS.iter().copied().chain(["thin"]).collect();
+    let kept = text.lines().filter(|l| {
+        let t = l.trim_start();
+        let picture_block = dropped.iter().any(|p| t.starts_with(&format!("{p}:")));
+        let picture_wire = t.starts_with("- ")
+            && dropped.iter().any(|p| t.ends_with(&format!("> {p}")) || t.contains(&format!("> {p}.")));
+        !picture_block && !picture_wire
+    });
+    absolute_paths(kept, repo)
+}
+
+/// The reference graph with every picture written as SVG only
+/// (`formats: svg`), its relative paths made absolute.
+pub fn svg_pictures(text: &str, repo: &Path) -> String {
+    let lines = text.lines().map(|l| {
+        let t = l.trim_start();
+        if PICTURE_BLOCKS.iter().any(|p| t.starts_with(&format!("{p}:"))) {
+            l.replacen("set: {", "set: {formats: svg, ", 1)
+        } else {
+            l.to_string()
+        }
+    });
+    absolute_paths(lines.collect::<Vec<_>>().iter().map(String::as_str), repo)
+}
+
+fn absolute_paths<'a>(lines: impl Iterator<Item = &'a str>, repo: &Path) -> String {
+    lines
         .map(|l| {
             l.replace("../samples/", &format!("{}/samples/", repo.display()))
                 .replace("parts/", &format!("{}/graphs/parts/", repo.display()))

@@ -6,7 +6,7 @@ use super::ratio::{DB_PER_NEPER, angle_residual};
 use super::{CalibrateArgs, Calibration, FittedPattern};
 use crate::error::Error;
 use lobeflow_blocks::pictures::discriminator_curve::{CurvePanel, DiscriminatorCurve};
-use lobeflow_blocks::pictures::write_picture;
+use lobeflow_blocks::pictures::{PictureFormats, write_picture};
 use lobeflow_blocks::{FileStager, OutputFile, RawValue};
 use std::fmt::Write as _;
 use std::io::Write as _;
@@ -37,7 +37,7 @@ pub fn write_all(cal: &Calibration, args: &CalibrateArgs, scan_run: &Path) -> Re
         write_text(&dir.join(POINTS_FILE), &points_csv(cal), &stager)?;
         write_text(&dir.join(FITS_FILE), &fits_csv(cal), &stager)?;
         let base = dir.join(PICTURE).display().to_string();
-        write_picture(&picture(cal), &base, &stager).map_err(|e| Error::Output(e.to_string()))?;
+        write_picture(&picture(cal), &base, PictureFormats::Both, &stager).map_err(|e| Error::Output(e.to_string()))?;
         Ok(())
     })();
     if let Err(e) = result {

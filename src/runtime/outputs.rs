@@ -11,7 +11,10 @@ use lobeflow_blocks::{ParamType, Value};
 use std::path::{Component, Path, PathBuf};
 
 /// Extensions writers add to a base name (pictures write `BASE.png` and
-/// `BASE.svg`; a SigMF recording has a data and a meta file).
+/// `BASE.svg`; a SigMF recording has a data and a meta file). A picture
+/// claims both names whatever its `formats`: two pictures never share a
+/// base name, so a page that shows a PNG only where no SVG of its name was
+/// written shows every picture once.
 const PICTURE_EXTENSIONS: &[&str] = &["png", "svg"];
 
 /// An output-path parameter resolved against the output folder (absolute

@@ -136,6 +136,63 @@ fn two_outputs_of_one_name_and_a_path_out_of_the_folder_are_refused() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
+/// The beacon graph with its angle plot and timeline pictures set as given.
+fn graph_with_pictures(dir: &Path, angle_plot: &str, timeline: &str) -> PathBuf {
+    let text = std::fs::read_to_string(root().join("graphs/two-lobe-beacon.yaml"))
+        .unwrap()
+        .replace("../samples/", &format!("{}/samples/", root().display()))
+        .replace("patterns/", &format!("{}/graphs/patterns/", root().display()))
+        .replace("set: {path: angles}", &format!("set: {{{angle_plot}}}"))
+        .replace("set: {path: timeline, span: 0.3 s}", &format!("set: {{{timeline}, span: 0.3 s}}"));
+    let g = dir.join("g.yaml");
+    std::fs::write(&g, text).unwrap();
+    g
+}
+
+#[test]
+fn picture_formats_choose_the_files_and_a_picture_keeps_its_base_name_to_itself() {
+    let dir = scratch("formats");
+    let out = dir.join("out");
+    let both = |g: &Path| {
+        let g = g.to_str().unwrap();
+        (lobeflow(&["check", g, "--out", out.to_str().unwrap()]), lobeflow(&["run", g, "--out", out.to_str().unwrap()]))
+    };
+    // An unknown format: check and run refuse it alike, naming block and parameter.
+    let g = graph_with_pictures(&dir, "path: angles, formats: gif", "path: timeline");
+    for o in <[Output; 2]>::from(both(&g)) {
+        assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+        assert!(
+            stderr(&o).contains("angle_plot") && stderr(&o).contains("formats") && stderr(&o).contains("gif"),
+            "{}",
+            stderr(&o)
+        );
+    }
+    assert!(!out.exists() || names(&out).is_empty());
+    // Two pictures on one base name are refused even when their files would differ.
+    let g = graph_with_pictures(&dir, "path: angles, formats: png", "path: angles, formats: svg");
+    for o in <[Output; 2]>::from(both(&g)) {
+        assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+        assert!(stderr(&o).contains("is also written by block"), "{}", stderr(&o));
+    }
+    // Each writes what it is asked for, and the run page shows both pictures.
+    let g = graph_with_pictures(&dir, "path: angles, formats: png", "path: timeline, formats: svg");
+    let (check, run) = both(&g);
+    assert_eq!(check.status.code(), Some(0), "{}", stderr(&check));
+    assert_eq!(run.status.code(), Some(0), "{}", stderr(&run));
+    let written = names(&out);
+    for (name, present) in
+        [("angles.png", true), ("angles.svg", false), ("timeline.svg", true), ("timeline.png", false)]
+    {
+        assert_eq!(written.contains(&name.to_string()), present, "{name}: {written:?}");
+    }
+    let page = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(page.contains("<img src=\"angles.png\"") && page.contains("<img src=\"timeline.svg\""), "{page}");
+    assert!(
+        page.contains("<img src=\"discriminator-curve.svg\"") && !page.contains("<img src=\"discriminator-curve.png\"")
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
 #[test]
 fn staging_left_by_a_killed_run_is_removed_by_the_next_and_a_live_one_is_not() {
     let out = scratch("stale");

@@ -440,6 +440,33 @@ fn angle_plot_has_one_panel_per_axis_and_marks_flags() {
     assert!(texts.iter().any(|t| t == "out of range: 207, top"));
 }
 
+#[test]
+fn formats_write_only_the_files_asked_for_and_draw_them_the_same() {
+    let spec = lobeflow::blocks::pictures::angle_plot::SPEC;
+    let dir = scratch("formats");
+    let written = |formats: &str| {
+        let path = dir.join(formats).join("angles").display().to_string();
+        let (_, written) = run(&spec, &[("path", &path), ("formats", formats)], estimates(300));
+        let names: Vec<String> =
+            written.iter().map(|p| p.file_name().unwrap().to_string_lossy().into_owned()).collect();
+        (names, written)
+    };
+    let (both, both_files) = written("both");
+    let (svg, svg_files) = written("svg");
+    let (png, png_files) = written("png");
+    assert_eq!(both, ["angles.png", "angles.svg"]);
+    assert_eq!(svg, ["angles.svg"]);
+    assert_eq!(png, ["angles.png"]);
+    assert!(!dir.join("svg/angles.png").exists() && !dir.join("png/angles.svg").exists());
+    // One drawing whichever files are asked for.
+    let read = |p: &PathBuf| std::fs::read(p).unwrap();
+    assert_eq!(read(&svg_files[0]), read(&both_files[1]));
+    assert_eq!(read(&png_files[0]), read(&both_files[0]));
+    // An unknown format is refused by name, with the words accepted.
+    let err = spec.params_from_text(&[("formats", "jpeg")]).map(|_| ()).unwrap_err().to_string();
+    assert!(err.contains("formats") && err.contains("jpeg") && err.contains("svg"), "{err}");
+}
+
 fn timeline_items(dwells: u64) -> Vec<(usize, Item)> {
     let dwell_len = 4 * SWEEP_LEN;
     let guard = 100;

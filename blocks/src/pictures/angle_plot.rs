@@ -2,7 +2,7 @@
 //! expected ±σ band, the tracked value and flagged estimates marked. Long
 //! runs are reduced to time buckets (min/max/mean) as estimates arrive.
 
-use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
+use super::{Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
 use crate::summary::AxisSummary;
 use crate::{
     AngleEstimate, BlockError, BlockSpec, BuildContext, FileStager, Flag, Item, ItemKind, NoPorts, Outputs, ParamType,
@@ -34,7 +34,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("angle-plot"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -236,6 +241,7 @@ pub struct AnglePlot {
     axes: Vec<AxisSeries>,
     other_axes: u64,
     path: String,
+    formats: PictureFormats,
     files: FileStager,
 }
 
@@ -251,6 +257,7 @@ impl TypedBlock for AnglePlot {
             axes: Vec::new(),
             other_axes: 0,
             path: s.path,
+            formats: s.formats,
             files: ctx.files.clone(),
         })
     }
@@ -283,7 +290,7 @@ impl TypedBlock for AnglePlot {
 
     fn finish(&mut self, _out: &mut Outputs) -> Result<(), BlockError> {
         let picture = AnglePicture { axes: &self.axes, span: self.span, other: self.other_axes };
-        write_picture(&picture, &self.path, &self.files)?;
+        write_picture(&picture, &self.path, self.formats, &self.files)?;
         Ok(())
     }
 }

@@ -7,7 +7,10 @@
 //! line sits in the noise bins.
 
 use super::accum::decimate_min_max;
-use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, picture_base, write_picture};
+use super::{
+    Chart, Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend, padded, palette, picture_base,
+    write_picture,
+};
 use crate::block::{BlockError, BlockSpec, BuildContext, FileStager, Outputs};
 use crate::dsp::spectrum::{FftCache, Window, next_pow2, parabolic_offset};
 use crate::error::{BuildError, ParamError};
@@ -65,7 +68,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("beacon-spectrum"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -83,6 +91,7 @@ pub struct BeaconSpectrum {
     span_hz: f64,
     cap: usize,
     path: String,
+    formats: PictureFormats,
     files: FileStager,
     fft: FftCache,
     samples: Vec<Complex32>,
@@ -126,6 +135,7 @@ impl TypedBlock for BeaconSpectrum {
             span_hz: s.span,
             cap: s.max_samples,
             path,
+            formats: s.formats,
             files: ctx.files.clone(),
             fft: FftCache::new(),
             samples: Vec::new(),
@@ -164,7 +174,7 @@ impl TypedBlock for BeaconSpectrum {
         for lobe in &picture.lobes {
             self.report(lobe, &picture, out);
         }
-        write_picture(&picture, &self.path, &self.files)?;
+        write_picture(&picture, &self.path, self.formats, &self.files)?;
         Ok(())
     }
 }

@@ -5,7 +5,7 @@
 
 use super::accum::{BinWindow, GateReport, SweepAverage, decimate_min_max, median};
 use super::circular::{Winding, interpolated_peak, read_range};
-use super::{Picture, draw_err, fmt_km, frame, palette, text_style, write_picture};
+use super::{Picture, PictureFormats, draw_err, fmt_km, frame, palette, text_style, write_picture};
 use crate::dsp::gate::Weighting;
 use crate::{
     BlockError, BlockSpec, BuildContext, Cell, DistanceSetting, FileStager, Item, ItemKind, Outputs, ParamType,
@@ -78,7 +78,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("sweep-circle"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -159,7 +164,7 @@ impl TypedBlock for CircularSweep {
         let s = &self.settings;
         let Some(avg) = self.average.as_ref() else {
             out.warn(crate::Stamp::new(0, 1.0), "no sweeps arrived; the circle is drawn empty");
-            return write_picture(&Empty, &s.path, &self.files).map(|_| ());
+            return write_picture(&Empty, &s.path, s.formats, &self.files).map(|_| ());
         };
         let mark_m = s.mark_every.metres(avg.window.rate)?;
         if !(mark_m > 0.0 && mark_m.is_finite()) {
@@ -171,7 +176,7 @@ impl TypedBlock for CircularSweep {
         for row in scene.rows(avg) {
             out.push(CircularSweepOut::Rows, Item::Row(row));
         }
-        write_picture(&scene, &s.path, &self.files)?;
+        write_picture(&scene, &s.path, s.formats, &self.files)?;
         Ok(())
     }
 }

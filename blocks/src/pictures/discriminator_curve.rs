@@ -6,7 +6,8 @@
 //! points on it).
 
 use super::{
-    Chart, Picture, chart, draw_err, draw_mesh, frame, legend_top_left, padded, palette, picture_base, write_picture,
+    Chart, Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend_top_left, padded, palette, picture_base,
+    write_picture,
 };
 use crate::block::{BlockError, BlockSpec, BuildContext, FileStager, Outputs};
 use crate::dsp::beam::PairModel;
@@ -226,7 +227,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("discriminator-curve"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -280,6 +286,7 @@ pub struct CurveBlock {
     model: PairModel,
     model_name: String,
     path: String,
+    formats: PictureFormats,
     files: FileStager,
     pairs: Vec<PairPoints>,
     last_stamp: Option<Stamp>,
@@ -305,7 +312,15 @@ impl TypedBlock for CurveBlock {
                 s.way.passes()
             ),
         };
-        Ok(CurveBlock { model, model_name, path, files: ctx.files.clone(), pairs: Vec::new(), last_stamp: None })
+        Ok(CurveBlock {
+            model,
+            model_name,
+            path,
+            formats: s.formats,
+            files: ctx.files.clone(),
+            pairs: Vec::new(),
+            last_stamp: None,
+        })
     }
 
     fn process(&mut self, port: CurveIn, item: Item, _out: &mut Outputs) -> Result<(), BlockError> {
@@ -327,7 +342,7 @@ impl TypedBlock for CurveBlock {
                 ),
             );
         }
-        write_picture(&self.picture(), &self.path, &self.files)?;
+        write_picture(&self.picture(), &self.path, self.formats, &self.files)?;
         Ok(())
     }
 }

@@ -8,7 +8,10 @@
 //! lobes. Only the first `span` of the capture (at most `max_dwells` dwells)
 //! is kept, so the picture stays readable and memory bounded.
 
-use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
+use super::{
+    Chart, Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style,
+    write_picture,
+};
 use crate::kinds::gate_common::is_switch_report;
 use crate::{
     BlockError, BlockSpec, BuildContext, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType, TimeSetting,
@@ -41,7 +44,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("lobe-timeline"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -151,6 +159,7 @@ pub struct LobeTimeline {
     max_dwells: usize,
     timeline: Timeline,
     path: String,
+    formats: PictureFormats,
     files: FileStager,
 }
 
@@ -178,6 +187,7 @@ impl TypedBlock for LobeTimeline {
             max_dwells: s.max_dwells.max(1),
             timeline: Timeline::default(),
             path: s.path,
+            formats: s.formats,
             files: ctx.files.clone(),
         })
     }
@@ -246,7 +256,7 @@ impl TypedBlock for LobeTimeline {
     }
 
     fn finish(&mut self, _out: &mut Outputs) -> Result<(), BlockError> {
-        write_picture(&TimelinePicture { t: &self.timeline }, &self.path, &self.files)?;
+        write_picture(&TimelinePicture { t: &self.timeline }, &self.path, self.formats, &self.files)?;
         Ok(())
     }
 }

@@ -30,7 +30,8 @@ use std::path::{Path, PathBuf};
 use std::sync::OnceLock;
 
 /// Every picture kind, registered by [`crate::standard_registry`]. Each
-/// writes `BASE.png` and `BASE.svg` from its `path` parameter.
+/// writes `BASE.png` and `BASE.svg` from its `path` parameter (or one of
+/// them: its `formats` parameter, [`PictureFormats`]).
 pub const ALL: &[BlockSpec] = &[
     circular_sweep::SPEC,
     range_trace::SPEC,
@@ -124,31 +125,71 @@ pub fn picture_base(path: &str) -> Result<String, crate::ParamError> {
     Ok(base.to_string())
 }
 
-/// Render `picture` to `<base>.png` and `<base>.svg`, both staged with the
-/// run's other outputs. Returns the two final paths.
-pub fn write_picture<P: Picture>(picture: &P, base: &str, files: &FileStager) -> Result<Vec<PathBuf>, BlockError> {
+crate::block_choice! {
+    /// Which files a picture block writes from its `path` base name.
+    pub enum PictureFormats {
+        /// `<path>.png` and `<path>.svg`.
+        Both = "both",
+        /// `<path>.svg` only: no bitmap is drawn or encoded, which is most
+        /// of a picture's cost (DEVELOPERS.md, speed budget).
+        Svg = "svg",
+        /// `<path>.png` only.
+        Png = "png",
+    }
+}
+
+impl PictureFormats {
+    /// The file extensions written, in the order they are written.
+    pub fn extensions(self) -> &'static [&'static str] {
+        match self {
+            PictureFormats::Both => &["png", "svg"],
+            PictureFormats::Svg => &["svg"],
+            PictureFormats::Png => &["png"],
+        }
+    }
+
+    fn wants(self, extension: &str) -> bool {
+        self.extensions().contains(&extension)
+    }
+}
+
+/// Render `picture` to `<base>.png` and/or `<base>.svg` as `formats` asks,
+/// staged with the run's other outputs. Returns the final paths.
+pub fn write_picture<P: Picture>(
+    picture: &P,
+    base: &str,
+    formats: PictureFormats,
+    files: &FileStager,
+) -> Result<Vec<PathBuf>, BlockError> {
     ensure_font()?;
     let (w, h) = picture.size();
-    let mut svg = String::new();
-    {
-        let root = svg_writer::SvgWriter::with_string(&mut svg, (w, h)).into_drawing_area();
-        picture.draw(&root).map_err(BlockError::new)?;
-        root.present().map_err(|e| BlockError::new(draw_err(e)))?;
+    let mut written = Vec::new();
+    if formats.wants("png") {
+        let png_path = PathBuf::from(format!("{base}.png"));
+        bitmap::with_pixel_buffer(w as usize * h as usize * 3, |rgb, stale| {
+            {
+                let root = bitmap::GlyphCachedBitmap::with_buffer(rgb, (w, h), stale).into_drawing_area();
+                picture.draw(&root).map_err(BlockError::new)?;
+                root.present().map_err(|e| BlockError::new(draw_err(e)))?;
+            }
+            write_png(&png_path, w, h, rgb, files)
+        })?;
+        written.push(png_path);
     }
-    let png_path = PathBuf::from(format!("{base}.png"));
-    let svg_path = PathBuf::from(format!("{base}.svg"));
-    bitmap::with_pixel_buffer(w as usize * h as usize * 3, |rgb, stale| {
+    if formats.wants("svg") {
+        let svg_path = PathBuf::from(format!("{base}.svg"));
+        let mut svg = String::new();
         {
-            let root = bitmap::GlyphCachedBitmap::with_buffer(rgb, (w, h), stale).into_drawing_area();
+            let root = svg_writer::SvgWriter::with_string(&mut svg, (w, h)).into_drawing_area();
             picture.draw(&root).map_err(BlockError::new)?;
             root.present().map_err(|e| BlockError::new(draw_err(e)))?;
         }
-        write_png(&png_path, w, h, rgb, files)
-    })?;
-    let mut f = files.create(&svg_path).map_err(|e| file_err(&svg_path, e))?;
-    std::io::Write::write_all(&mut f, svg.as_bytes()).map_err(|e| file_err(&svg_path, e))?;
-    f.finish(files).map_err(|e| file_err(&svg_path, e))?;
-    Ok(vec![png_path, svg_path])
+        let mut f = files.create(&svg_path).map_err(|e| file_err(&svg_path, e))?;
+        std::io::Write::write_all(&mut f, svg.as_bytes()).map_err(|e| file_err(&svg_path, e))?;
+        f.finish(files).map_err(|e| file_err(&svg_path, e))?;
+        written.push(svg_path);
+    }
+    Ok(written)
 }
 
 fn write_png(path: &Path, w: u32, h: u32, rgb: &[u8], files: &FileStager) -> Result<(), BlockError> {

@@ -4,7 +4,9 @@
 //! region a `range_gate` reported (its `gates` output) shaded.
 
 use super::accum::{BinWindow, GateReport, LobeAverages, decimate_min_max};
-use super::{Chart, Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture};
+use super::{
+    Chart, Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend, padded, palette, write_picture,
+};
 use crate::{
     BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType,
     TypedBlock,
@@ -58,7 +60,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("range-trace"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -121,7 +128,7 @@ impl TypedBlock for RangeTrace {
             }
         }
         let picture = TracePicture::new(&self.averages, self.gate, window);
-        write_picture(&picture, &self.settings.path, &self.files)?;
+        write_picture(&picture, &self.settings.path, self.settings.formats, &self.files)?;
         Ok(())
     }
 }

@@ -5,7 +5,9 @@
 //! in dB (balanced means on axis).
 
 use super::accum::{BinWindow, GateReport, LobeAverages, SweepAverage, decimate_min_max};
-use super::{Picture, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture};
+use super::{
+    Picture, PictureFormats, chart, draw_err, draw_mesh, frame, legend, padded, palette, text_style, write_picture,
+};
 use crate::dsp::discriminator::LobePair;
 use crate::{
     BlockError, BlockSpec, BuildContext, DistanceSetting, FileStager, Item, ItemKind, NoPorts, Outputs, ParamType,
@@ -47,7 +49,12 @@ crate::block_settings! {
         path: String {
             ty: ParamType::OutputPath,
             default: Some("split-pair"),
-            doc: "base name: writes <path>.png and <path>.svg",
+            doc: "base name: writes <path>.png and <path>.svg (see formats)",
+        },
+        formats: PictureFormats {
+            ty: ParamType::Choice(PictureFormats::WORDS),
+            default: Some("both"),
+            doc: "which files: both (<path>.png and <path>.svg), svg or png (svg alone skips the bitmap, most of the cost)",
         },
     }
 }
@@ -167,7 +174,7 @@ impl TypedBlock for SplitPair {
             None => 0.0,
         };
         let picture = SplitPicture { panels, margin_km, followed: self.gate.gates_in_use > 1, untagged: self.untagged };
-        write_picture(&picture, &self.settings.path, &self.files)?;
+        write_picture(&picture, &self.settings.path, self.settings.formats, &self.files)?;
         Ok(())
     }
 }
