@@ -80,14 +80,22 @@ fn a_commit_that_fails_half_way_puts_every_file_back() {
 
 /// A copy of the beacon graph with its angles table at `table_path`, reading
 /// the capture named by the `input` setting.
-fn graph_with_table_path(dir: &Path, table_path: &str) -> PathBuf {
-    let text = std::fs::read_to_string(root().join("graphs/two-lobe-beacon.yaml"))
+/// The beacon reference graph written to `dir` with its sample paths made
+/// absolute and each (from, to) replaced.
+fn beacon_graph(dir: &Path, edits: &[(&str, String)]) -> PathBuf {
+    let mut text = std::fs::read_to_string(root().join("graphs/two-lobe-beacon.yaml"))
         .unwrap()
-        .replace("../samples/", &format!("{}/samples/", root().display()))
-        .replace("set: {path: angles.csv}", &format!("set: {{path: {table_path}}}"));
+        .replace("../samples/", &format!("{}/samples/", root().display()));
+    for (from, to) in edits {
+        text = text.replace(from, to);
+    }
     let g = dir.join("g.yaml");
     std::fs::write(&g, text).unwrap();
     g
+}
+
+fn graph_with_table_path(dir: &Path, table_path: &str) -> PathBuf {
+    beacon_graph(dir, &[("set: {path: angles.csv}", format!("set: {{path: {table_path}}}"))])
 }
 
 #[test]
@@ -138,15 +146,13 @@ fn two_outputs_of_one_name_and_a_path_out_of_the_folder_are_refused() {
 
 /// The beacon graph with its angle plot and timeline pictures set as given.
 fn graph_with_pictures(dir: &Path, angle_plot: &str, timeline: &str) -> PathBuf {
-    let text = std::fs::read_to_string(root().join("graphs/two-lobe-beacon.yaml"))
-        .unwrap()
-        .replace("../samples/", &format!("{}/samples/", root().display()))
-        .replace("patterns/", &format!("{}/graphs/patterns/", root().display()))
-        .replace("set: {path: angles}", &format!("set: {{{angle_plot}}}"))
-        .replace("set: {path: timeline, span: 0.3 s}", &format!("set: {{{timeline}, span: 0.3 s}}"));
-    let g = dir.join("g.yaml");
-    std::fs::write(&g, text).unwrap();
-    g
+    beacon_graph(
+        dir,
+        &[
+            ("set: {path: angles}", format!("set: {{{angle_plot}}}")),
+            ("set: {path: timeline, span: 0.3 s}", format!("set: {{{timeline}, span: 0.3 s}}")),
+        ],
+    )
 }
 
 #[test]
