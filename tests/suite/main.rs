@@ -22,6 +22,7 @@ mod live_session;
 mod output_safety;
 mod pictures;
 mod pictures_against_runs;
+mod pictures_circular;
 mod plugin_block;
 mod regress_reports;
 mod report_page;

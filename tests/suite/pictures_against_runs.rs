@@ -2,7 +2,8 @@
 //! a picture shows (gate band, ranges, key, curve, a beacon's tone) agrees
 //! with the tables and the report page of the same run.
 
-use super::pictures::{placed_texts, scratch, svg_texts};
+use super::pictures::{scratch, svg_texts};
+use super::pictures_circular::placed_texts;
 use std::path::{Path, PathBuf};
 
 /// Run a reference graph with the command-line tool into a fresh folder.
