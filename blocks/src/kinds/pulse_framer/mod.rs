@@ -188,15 +188,11 @@ struct Plan {
     warm: u64,
 }
 
-/// Stream-dependent settings, fixed at the first chunk.
+/// Stream-dependent settings, fixed at the first chunk: the plan at the
+/// stream's rate, where the stream starts, and where the search for a first
+/// transmit instant gives up.
 struct Setup {
-    rate: f64,
-    pri: f64,
-    holdoff: u64,
-    gap: u64,
-    blank: usize,
-    offset: f64,
-    warm: u64,
+    plan: Plan,
     start: u64,
     give_up: u64,
 }
@@ -285,18 +281,8 @@ impl PulseFramer {
             Some(plan) if plan.rate == first.rate => plan,
             _ => self.plan(first.rate)?,
         };
-        let Plan { rate, pri, holdoff, gap, blank, offset, warm } = plan;
-        self.setup = Some(Setup {
-            rate,
-            pri,
-            holdoff,
-            gap,
-            blank,
-            offset,
-            warm,
-            start: first.index,
-            give_up: first.index + warm + (SEARCH_PRIS * pri).ceil() as u64,
-        });
+        let give_up = first.index + plan.warm + (SEARCH_PRIS * plan.pri).ceil() as u64;
+        self.setup = Some(Setup { plan, start: first.index, give_up });
         Ok(())
     }
 
@@ -305,7 +291,7 @@ impl PulseFramer {
         let Some(s) = self.setup.as_ref() else {
             return Ok(());
         };
-        let warm_end = s.start + s.warm;
+        let warm_end = s.start + s.plan.warm;
         for chunk in &self.warm_buf {
             let n = (warm_end.saturating_sub(chunk.stamp.index) as usize).min(chunk.len());
             match self.mode {
@@ -368,7 +354,7 @@ impl PulseFramer {
     /// Find the transmit instants of one chunk from the trigger channel or
     /// the leakage's rising edges, predicting missing pulses.
     fn scan_edges(&mut self, chunk: &SampleChunk, trigger: Option<&[f32]>, out: &mut Outputs) {
-        let Some(&Setup { start: first, warm, holdoff, gap, pri, .. }) = self.setup.as_ref() else {
+        let Some(&Setup { start: first, plan: Plan { warm, holdoff, gap, pri, .. }, .. }) = self.setup.as_ref() else {
             return;
         };
         let warm_end = first + warm;
@@ -463,7 +449,7 @@ impl PulseFramer {
 
     fn scan_schedule(&mut self, start: u64, len: usize, out: &mut Outputs) {
         let Some(s) = self.setup.as_ref() else { return };
-        let (offset, pri, first) = (s.offset, s.pri, s.start as f64);
+        let (offset, pri, first) = (s.plan.offset, s.plan.pri, s.start as f64);
         let at = |k: i64| (offset + k as f64 * pri).round();
         let mut k = match self.next_scheduled {
             Some(k) => k,
@@ -509,7 +495,7 @@ impl PulseFramer {
         };
         if self.missing_reports < MISSING_SHOWN {
             out.warn(
-                Stamp::new(first, s.rate),
+                Stamp::new(first, s.plan.rate),
                 format!("{count} missing pulse(s) from sample {first}: predicted transmit instants inserted"),
             );
         }
@@ -532,7 +518,7 @@ impl PulseFramer {
         }
         self.warm_have += chunk.len() as u64;
         self.warm_buf.push(chunk);
-        if self.setup.as_ref().is_some_and(|s| self.warm_have >= s.warm) {
+        if self.setup.as_ref().is_some_and(|s| self.warm_have >= s.plan.warm) {
             self.warm_up(out)?;
         }
         Ok(())

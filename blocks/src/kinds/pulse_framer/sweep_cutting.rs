@@ -15,7 +15,7 @@ impl PulseFramer {
     /// itself when this block is its only reader (no copy), then keep it.
     pub(super) fn blank_in_place(&mut self, mut chunk: SampleChunk) {
         self.blanked_in_place = 0..0;
-        let blank = self.setup.as_ref().map_or(0, |s| s.blank);
+        let blank = self.setup.as_ref().map_or(0, |s| s.plan.blank);
         let (start, end) = (chunk.stamp.index, chunk.stamp.index + chunk.len() as u64);
         if blank > 0
             && let Some(iq) = chunk.iq.get_mut()
@@ -56,7 +56,7 @@ impl PulseFramer {
     pub(super) fn emit(&mut self, open: Opening, to: u64) {
         let Some(s) = self.setup.as_ref() else { return };
         let Opening { at: from, predicted, blanked: blanked_already } = open;
-        let blank = s.blank;
+        let blank = s.plan.blank;
         let overlaps = |c: &&SampleChunk| c.stamp.index < to && c.stamp.index + c.len() as u64 > from;
         let mut parts = self.pending.iter().filter(overlaps);
         let Some(first) = parts.next() else { return };
@@ -102,7 +102,7 @@ impl PulseFramer {
 
     /// Hand on the sweeps emitted so far, in order.
     pub(super) fn release_held(&mut self, out: &mut Outputs) {
-        let Some(rate) = self.setup.as_ref().map(|s| s.rate) else { return };
+        let Some(rate) = self.setup.as_ref().map(|s| s.plan.rate) else { return };
         let mut copies: Option<Span<Complex32>> = None;
         for h in self.held.drain(..) {
             let iq = match h.iq {
