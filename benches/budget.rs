@@ -7,7 +7,10 @@
 //!   the bench itself reading the file into a buffer;
 //! - the graph with its pictures and without the picture blocks, on 1 and 2
 //!   worker threads, each with its peak resident set and CPU time (wait4);
-//! - fixed costs: the graph on a 10 ms capture, without and with pictures;
+//!   the graph with SVG pictures only (`formats: svg`), and a graph that
+//!   only reads the capture (the floor of any graph), on 2 threads;
+//! - fixed costs: the graph on a 10 ms capture, without pictures, with
+//!   them and with SVG ones only;
 //! - short capture only: `benches/numpy_chain.py`, a straightforward
 //!   numpy/scipy chain, as a whole process (skipped with a message when
 //!   python3 has no numpy).
@@ -55,6 +58,8 @@ fn main() {
     let svg_text = svg_pictures(&std::fs::read_to_string(&full).expect("graph"), &repo);
     assert_eq!(svg_text.matches("formats: svg").count(), 6, "every picture block set to SVG");
     std::fs::write(&svg, svg_text).expect("graph copy");
+    let read_only = dir.join("read-only.yaml");
+    std::fs::write(&read_only, READ_ONLY).expect("graph file");
     println!("lobeflow: {}", lobeflow_binary().display());
     println!("load average at start: {}", load_average());
 
@@ -82,7 +87,13 @@ fn main() {
             continue;
         }
         let wav = synthesize(&repo, &dir, &capture);
-        measure(&wav, [&full, &bare, &svg], &dir, runs, with_numpy.then(|| repo.join("benches/numpy_chain.py")));
+        measure(
+            &wav,
+            [&full, &bare, &svg, &read_only],
+            &dir,
+            runs,
+            with_numpy.then(|| repo.join("benches/numpy_chain.py")),
+        );
     }
     println!("load average at end: {}", load_average());
 }
@@ -96,7 +107,7 @@ struct Cost {
 }
 
 /// All variants on one capture, `runs` rounds; prints the table and ratios.
-fn measure(wav: &Path, [full, bare, svg]: [&Path; 3], dir: &Path, runs: usize, numpy: Option<PathBuf>) {
+fn measure(wav: &Path, [full, bare, svg, read_only]: [&Path; 4], dir: &Path, runs: usize, numpy: Option<PathBuf>) {
     let bytes = std::fs::metadata(wav).expect("capture").len();
     println!("\n== {} ({:.0} MB, {:.3} GiB)", wav.display(), bytes as f64 / 1e6, bytes as f64 / (1u64 << 30) as f64);
     let numpy = numpy.filter(|_| {
@@ -107,14 +118,15 @@ fn measure(wav: &Path, [full, bare, svg]: [&Path; 3], dir: &Path, runs: usize, n
         ok
     });
     let out = dir.join("out");
-    let variants: [(&str, &Path, usize); 5] = [
+    let variants: [(&str, &Path, usize); 6] = [
         ("pictures, 2 threads", full, 2),
         ("pictures, 1 thread", full, 1),
         ("no pictures, 2 threads", bare, 2),
         ("no pictures, 1 thread", bare, 1),
         ("SVG pictures, 2 threads", svg, 2),
+        ("read only, 2 threads", read_only, 2),
     ];
-    let mut best = [Cost { wall: f64::MAX, ..Cost::default() }; 5];
+    let mut best = [Cost { wall: f64::MAX, ..Cost::default() }; 6];
     let (mut cat, mut read, mut np) = (f64::MAX, f64::MAX, f64::MAX);
     for _ in 0..runs {
         let t = Instant::now();
@@ -144,7 +156,7 @@ fn measure(wav: &Path, [full, bare, svg]: [&Path; 3], dir: &Path, runs: usize, n
             c.peak_rss_kib as f64 / 1024.0
         );
     }
-    let [pic2, pic1, bare2, _, svg2] = best;
+    let [pic2, pic1, bare2, _, svg2, _] = best;
     let share = |with: Cost| (with.wall - bare2.wall).max(0.0) / with.wall * 100.0;
     println!("pictures' share of the wall time (2 threads): {:.1} % (SVG only: {:.1} %)", share(pic2), share(svg2));
     println!("2 threads vs 1, with pictures: {:.2} x", pic1.wall / pic2.wall);
@@ -156,6 +168,18 @@ fn measure(wav: &Path, [full, bare, svg]: [&Path; 3], dir: &Path, runs: usize, n
         println!("graph without pictures vs numpy chain: {:.1} x faster", np / bare2.wall);
     }
 }
+
+/// A graph that reads the capture and drops it: what any graph costs at least.
+const READ_ONLY: &str = "title: read only
+about: the capture read and dropped, the floor of any graph on it
+settings:
+  input: {default: capture.wav, doc: the capture}
+blocks:
+  read: {kind: capture_reader, set: {path: $input}}
+  drop: {kind: discard}
+wiring:
+  - read -> drop
+";
 
 /// The graph as a user runs it: `lobeflow run GRAPH --input WAV --out DIR`.
 fn run_graph(graph: &Path, wav: &Path, out: &Path, threads: usize) -> Cost {
